@@ -1,10 +1,15 @@
 package main
 
 import (
+	"bytes"
+	"encoding/csv"
 	"fmt"
 	"math"
 	"math/rand/v2"
+	"strconv"
+	"strings"
 	"time"
+	"unicode"
 
 	"gonum.org/v1/gonum/stat/distuv"
 
@@ -112,7 +117,7 @@ func (g demoGen) each(prefix string, perShift int, fn func(code string, t time.T
 		for _, s := range demoShifts {
 			k := 1 + g.rng.IntN(perShift)
 			for i := 0; i < k; i++ {
-				minute := 30 + i*(420/k) + g.rng.IntN(60)
+				minute := 30 + i*(420/k) + g.rng.IntN(40)
 				t := time.Date(day.Year(), day.Month(), day.Day(), s.start, 0, 0, 0, day.Location()).Add(time.Duration(minute) * time.Minute)
 				if t.After(g.cutoff) {
 					return
@@ -275,4 +280,45 @@ func (g demoGen) packing() demoProcess {
 			Categories: g.split(d, p.Categories, weights), Inspector: g.inspector()})
 	})
 	return p
+}
+
+// demoFileName is the CSV file name of a demo process: its name in lower
+// case with dashes.
+func demoFileName(name string) string {
+	var b strings.Builder
+	dash := false
+	for _, r := range strings.ToLower(name) {
+		if unicode.IsLetter(r) || unicode.IsDigit(r) {
+			b.WriteRune(r)
+			dash = false
+		} else if !dash && b.Len() > 0 {
+			b.WriteByte('-')
+			dash = true
+		}
+	}
+	return strings.TrimSuffix(b.String(), "-") + ".csv"
+}
+
+// demoCSV renders a demo process's lots as an import-ready CSV file.
+func demoCSV(dp demoProcess) []byte {
+	var buf bytes.Buffer
+	w := csv.NewWriter(&buf)
+	count := "defects"
+	if dp.Chart.CountsUnits() {
+		count = "defective"
+	}
+	header := append([]string{"lot", "time", "shift", "inspected", count}, dp.Categories...)
+	header = append(header, "inspector", "note")
+	w.Write(header)
+	for _, l := range dp.Lots {
+		rec := []string{l.Code, l.Time.Format(time.RFC3339), l.Shift,
+			strconv.FormatInt(l.Inspected, 10), strconv.FormatInt(l.Count, 10)}
+		for _, c := range dp.Categories {
+			rec = append(rec, strconv.FormatInt(l.Categories[c], 10))
+		}
+		rec = append(rec, l.Inspector, l.Note)
+		w.Write(rec)
+	}
+	w.Flush()
+	return buf.Bytes()
 }
