@@ -38,7 +38,8 @@ Options:
   --arl1 T    target: a shift to P1 should signal within T lots on average
               (a number, 1 or more; needs --p1)
   --sigma K   width of the limits in standard deviations (default 3)
-  --max-n N   largest lot size tried when searching (default 100000)
+  --max-n N   largest lot size tried when searching (default 100000,
+              at most 10000000)
   --format F  text (default) or json
   -h          show this help
 
@@ -49,6 +50,10 @@ Exit status: 0 when done, 1 when no lot size up to --max-n meets the target,
 2 for bad input (nothing is printed on standard output then; each problem is
 named on standard error).
 `
+
+// planMaxN bounds the --max-n search, which evaluates every lot size up to
+// it (about a microsecond each), so that a search ends within seconds.
+const planMaxN = 10_000_000
 
 type planJSON struct {
 	N               int64    `json:"n"`
@@ -127,6 +132,9 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		u.addf("--sigma %q must be a number greater than 0, such as 3", *sigmas)
 	}
 	maxN := u.count("--max-n", *maxNs, 1)
+	if maxN > planMaxN {
+		u.addf("--max-n %q must be at most %d (the search tries every lot size up to it)", *maxNs, planMaxN)
+	}
 	if *ns == "" && (*p1s == "" || *arl1s == "") {
 		u.addf("give --n N to evaluate a lot size, or --p1 and --arl1 to find the smallest one")
 	}

@@ -232,6 +232,7 @@ func TestStatsCommandsBadInput(t *testing.T) {
 		{[]string{"plan", "--p0", "0.1", "--sigma", "-3", "--n", "50"}, []string{`--sigma "-3"`}},
 		{[]string{"plan", "--p0", "0.1", "--n", "50", "extra"}, []string{`"extra"`}},
 		{[]string{"plan", "--p0", "0.1", "--n", "50", "--x", "1"}, []string{"--x"}},
+		{[]string{"plan", "--p0", "0.1", "--p1", "0.2", "--arl1", "2", "--max-n", "100000000"}, []string{`--max-n "100000000"`}},
 	}
 	for _, tt := range tests {
 		code, out, errs := runStats(tt.args...)
