@@ -1,0 +1,227 @@
+package main
+
+import (
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"math"
+	"strconv"
+	"strings"
+
+	"lotwatch/spc"
+)
+
+func init() {
+	register(command{
+		name:    "plan",
+		summary: "plan the lot size of a p/np chart: limits as counts and average run lengths",
+		run:     runPlan,
+	})
+}
+
+const planHelp = `Usage: lotwatch plan --p0 P [--p1 P] [--n N] [--arl1 T] [--sigma K] [options]
+
+Shows how a p or np chart with K-sigma limits behaves for lots of N units:
+how many nonconforming units make a lot signal, and the average number of
+lots until a signal (the average run length, ARL) when the process runs at
+its usual fraction nonconforming P0 (false alarms) and when it has shifted
+to P1 (detection). All figures use the exact binomial distribution.
+
+With --n it evaluates that lot size. Without --n, give --p1 and --arl1: it
+finds the smallest lot size whose ARL at P1 is at most the target.
+
+Options:
+  --p0 P      usual (in-control) fraction nonconforming, between 0 and 1; required
+  --p1 P      shifted fraction nonconforming to detect, between 0 and 1, not P0
+  --n N       units per lot, a whole number greater than 0
+  --arl1 T    target: a shift to P1 should signal within T lots on average
+              (a number, 1 or more; needs --p1)
+  --sigma K   width of the limits in standard deviations (default 3)
+  --max-n N   largest lot size tried when searching (default 100000,
+              at most 10000000)
+  --format F  text (default) or json
+  -h          show this help
+
+Because counts are whole numbers, the ARL does not fall steadily as lots grow:
+a lot size somewhat larger than the one found may miss the target again.
+
+Exit status: 0 when done, 1 when no lot size up to --max-n meets the target,
+2 for bad input (nothing is printed on standard output then; each problem is
+named on standard error).
+`
+
+// planMaxN bounds the --max-n search, which evaluates every lot size up to
+// it (about a microsecond each), so that a search ends within seconds.
+const planMaxN = 10_000_000
+
+type planJSON struct {
+	N               int64    `json:"n"`
+	UCLCount        int64    `json:"ucl_count"`
+	LCLCount        int64    `json:"lcl_count"`
+	ARL0            *float64 `json:"arl0"` // null when no lot can signal
+	ARL1            *float64 `json:"arl1"` // null without --p1, or when no lot can signal
+	MinNPositiveLCL int64    `json:"min_n_positive_lcl"`
+	P0              float64  `json:"p0"`
+	P1              *float64 `json:"p1"`
+	Sigma           float64  `json:"sigma"`
+	UCL             float64  `json:"ucl"`
+	LCL             float64  `json:"lcl"`
+	TargetARL1      *float64 `json:"arl1_target,omitempty"`
+}
+
+func finiteOrNil(x float64) *float64 {
+	if math.IsInf(x, 0) || math.IsNaN(x) {
+		return nil
+	}
+	return &x
+}
+
+func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
+	fs := flag.NewFlagSet("plan", flag.ContinueOnError)
+	p0s := fs.String("p0", "", "")
+	p1s := fs.String("p1", "", "")
+	ns := fs.String("n", "", "")
+	arl1s := fs.String("arl1", "", "")
+	sigmas := fs.String("sigma", "3", "")
+	maxNs := fs.String("max-n", "100000", "")
+	format := fs.String("format", "text", "")
+	pos, code := statsParse(fs, args, planHelp, stdout, stderr)
+	if code >= 0 {
+		return code
+	}
+	u := &statsUsage{cmd: "plan"}
+	asJSON := u.format(*format)
+	fraction := func(name, s string) float64 {
+		v, err := strconv.ParseFloat(s, 64)
+		if err != nil || !(v > 0 && v < 1) {
+			u.addf("--%s %q must be a fraction between 0 and 1, such as 0.02", name, s)
+			return math.NaN()
+		}
+		return v
+	}
+	var p0, p1, target float64 = math.NaN(), math.NaN(), math.NaN()
+	var n int64
+	if *p0s == "" {
+		u.addf("--p0 is required: the usual fraction nonconforming, such as 0.02")
+	} else {
+		p0 = fraction("p0", *p0s)
+	}
+	if *p1s != "" {
+		p1 = fraction("p1", *p1s)
+		if p1 == p0 {
+			u.addf("--p1 %q must differ from --p0", *p1s)
+		}
+	}
+	if *ns != "" {
+		n = u.count("--n", *ns, 1)
+	}
+	if *arl1s != "" {
+		v, err := strconv.ParseFloat(*arl1s, 64)
+		if err != nil || !(v >= 1) || math.IsInf(v, 1) {
+			u.addf("--arl1 %q must be a number of lots, 1 or more", *arl1s)
+		} else {
+			target = v
+		}
+		if *p1s == "" {
+			u.addf("--arl1 %q needs --p1, the shifted fraction to detect", *arl1s)
+		}
+	}
+	k, err := strconv.ParseFloat(*sigmas, 64)
+	if err != nil || !(k > 0) || math.IsInf(k, 1) {
+		u.addf("--sigma %q must be a number greater than 0, such as 3", *sigmas)
+	}
+	maxN := u.count("--max-n", *maxNs, 1)
+	if maxN > planMaxN {
+		u.addf("--max-n %q must be at most %d (the search tries every lot size up to it)", *maxNs, planMaxN)
+	}
+	if *ns == "" && (*p1s == "" || *arl1s == "") {
+		u.addf("give --n N to evaluate a lot size, or --p1 and --arl1 to find the smallest one")
+	}
+	if len(pos) > 0 {
+		u.addf("unexpected argument %q: plan takes options only", pos[0])
+	}
+	if c := u.report(stderr); c >= 0 {
+		return c
+	}
+
+	searched := *ns == ""
+	if searched {
+		n, err = spc.SmallestN(p0, p1, k, target, maxN)
+		if errors.Is(err, spc.ErrNoPlan) {
+			fmt.Fprintf(stderr, "lotwatch plan: no lot size up to %d units detects a shift to %s within %s lots on average; try a larger --max-n or a smaller --sigma\n",
+				maxN, *p1s, *arl1s)
+			return exitFail
+		}
+		if err != nil {
+			fmt.Fprintf(stderr, "lotwatch plan: %v\n", err)
+			return exitUsage
+		}
+	}
+	pl := spc.PlanLimits(p0, n, k)
+	if *p1s != "" {
+		pl = pl.WithShift(p1)
+	}
+
+	if asJSON {
+		out := planJSON{
+			N: pl.N, UCLCount: pl.UCLCount, LCLCount: pl.LCLCount,
+			ARL0: finiteOrNil(pl.ARL0), MinNPositiveLCL: pl.MinNPositiveLCL,
+			P0: p0, Sigma: k, UCL: pl.UCL, LCL: pl.LCL,
+		}
+		if *p1s != "" {
+			out.P1, out.ARL1 = &p1, finiteOrNil(pl.ARL1)
+		}
+		if *arl1s != "" {
+			out.TargetARL1 = &target
+		}
+		return statsJSON(stdout, out)
+	}
+
+	var b strings.Builder
+	if searched {
+		fmt.Fprintf(&b, "Smallest lot size that detects a shift to %s within %s lots on average: %d units.\n\n",
+			statsRate(p1), strconv.FormatFloat(target, 'g', -1, 64), n)
+	}
+	fmt.Fprintf(&b, "Lots of %d units, usual fraction nonconforming %s, limits at %s sigma:\n",
+		n, statsRate(p0), strconv.FormatFloat(k, 'g', -1, 64))
+	if pl.UCLCount >= n {
+		fmt.Fprintf(&b, "  upper limit %s: no lot can signal high at this size.\n", statsRate(pl.UCL))
+	} else {
+		fmt.Fprintf(&b, "  upper limit %s: a lot signals when it has more than %d nonconforming units.\n", statsRate(pl.UCL), pl.UCLCount)
+	}
+	if pl.LCLCount < 0 {
+		fmt.Fprintf(&b, "  lower limit %s: no lot can signal low at this size; that needs lots of at least %d units.\n",
+			statsRate(math.Max(0, pl.LCL)), pl.MinNPositiveLCL)
+	} else {
+		fmt.Fprintf(&b, "  lower limit %s: a lot signals when it has fewer than %d nonconforming units.\n", statsRate(pl.LCL), pl.LCLCount)
+	}
+	fmt.Fprintf(&b, "  at the usual rate, a false alarm comes %s (ARL0).\n", planRunLength(pl.ARL0))
+	if *p1s != "" {
+		fmt.Fprintf(&b, "  after a shift to %s, a signal comes %s (ARL1).\n", statsRate(p1), planRunLength(pl.ARL1))
+		if *arl1s != "" && !searched {
+			verdict := "meets"
+			if !(pl.ARL1 <= target) {
+				verdict = "does not meet"
+			}
+			fmt.Fprintf(&b, "  this %s the target of %s lots.\n", verdict, strconv.FormatFloat(target, 'g', -1, 64))
+		}
+	}
+	if searched {
+		b.WriteString("\nBecause counts are whole numbers, some larger lot sizes may miss the target again;\ncheck the size you choose with --n.\n")
+	}
+	b.WriteString("\n" + caution)
+	fmt.Fprint(stdout, b.String())
+	return exitOK
+}
+
+// planRunLength says an average run length in words.
+func planRunLength(arl float64) string {
+	switch {
+	case math.IsInf(arl, 1):
+		return "never (no count can signal)"
+	case arl < 1.05:
+		return "on average with the first lot"
+	}
+	return "on average once every " + strconv.FormatFloat(arl, 'f', 1, 64) + " lots"
+}

@@ -1,0 +1,127 @@
+package spc
+
+import (
+	"errors"
+	"math"
+	"testing"
+)
+
+func TestPlanLimitsReference(t *testing.T) {
+	ref := loadIntervalsRef(t)
+	for _, r := range ref.Plan {
+		pl := PlanLimits(r.P0, r.N, r.K).WithShift(r.P1)
+		// Source: exact rational arithmetic in intervals_reference.py.
+		if pl.UCLCount != r.UCLCount || pl.LCLCount != r.LCLCount {
+			t.Errorf("p0=%g n=%d k=%g: counts (%d, %d), reference (%d, %d)",
+				r.P0, r.N, r.K, pl.UCLCount, pl.LCLCount, r.UCLCount, r.LCLCount)
+		}
+		// Source: scipy.stats.binom.sf / cdf.
+		if math.Abs(pl.SignalProb(r.P0)-r.SignalP0) > 1e-9*math.Max(r.SignalP0, 1e-6) ||
+			math.Abs(pl.SignalProb(r.P1)-r.SignalP1) > 1e-9*math.Max(r.SignalP1, 1e-6) {
+			t.Errorf("p0=%g n=%d: signal probabilities %.12g %.12g, scipy %.12g %.12g",
+				r.P0, r.N, pl.SignalProb(r.P0), pl.SignalProb(r.P1), r.SignalP0, r.SignalP1)
+		}
+		if r.SignalP0 > 0 && !intervalClose(pl.ARL0, 1/r.SignalP0, 1e-9) {
+			t.Errorf("p0=%g n=%d: ARL0 %v, want %v", r.P0, r.N, pl.ARL0, 1/r.SignalP0)
+		}
+		if r.SignalP0 == 0 && !math.IsInf(pl.ARL0, 1) {
+			t.Errorf("p0=%g n=%d: no signal possible, ARL0 %v", r.P0, r.N, pl.ARL0)
+		}
+		if want := 1 / r.SignalP1; pl.ARL1 != want && !intervalClose(pl.ARL1, want, 1e-9) {
+			t.Errorf("p0=%g n=%d: ARL1 %v, want %v", r.P0, r.N, pl.ARL1, 1/r.SignalP1)
+		}
+	}
+}
+
+func TestPlanLimitsExactEquality(t *testing.T) {
+	// 0.1 ± 3·√(0.1·0.9/100) = 0.19 and 0.01 exactly, so n·UCL = 19 and
+	// n·LCL = 1: 19 does not signal (not above the limit) and 1 does not
+	// signal (not below it). Hand arithmetic from the definition.
+	pl := PlanLimits(0.1, 100, 3)
+	if pl.UCLCount != 19 || pl.LCLCount != 1 {
+		t.Errorf("counts %d %d, want 19 1", pl.UCLCount, pl.LCLCount)
+	}
+	// n = 400: 40 ± 18 → 58 and 22.
+	pl = PlanLimits(0.1, 400, 3)
+	if pl.UCLCount != 58 || pl.LCLCount != 22 {
+		t.Errorf("counts %d %d, want 58 22", pl.UCLCount, pl.LCLCount)
+	}
+	if PlanLimits(0.5, 1, 3).ARL0 != math.Inf(1) {
+		t.Error("a lot of one unit at p0 = 0.5 cannot signal at 3 sigma")
+	}
+	if !math.IsNaN(PlanLimits(0, 10, 3).ARL0) || CheckPlanInput(0, 10, 3) == nil {
+		t.Error("p0 = 0 accepted")
+	}
+}
+
+func TestMinNPositiveLCL(t *testing.T) {
+	tests := []struct {
+		p0, k float64
+		want  int64
+	}{
+		// Montgomery, Introduction to Statistical Quality Control, §7.2:
+		// p = 0.05, L = 3 needs n > 171 (from memory).
+		{0.05, 3, 172},
+		// n > 9·0.9/0.1 = 81 exactly, so 82 (hand arithmetic; equality does
+		// not give a positive limit).
+		{0.1, 3, 82},
+		{0.2, 3, 37}, // 9·0.8/0.2 = 36 exactly
+		{0.01, 3, 892},
+		{0.5, 2, 5}, // 4·0.5/0.5 = 4
+	}
+	for _, tt := range tests {
+		if got := MinNPositiveLCL(tt.p0, tt.k); got != tt.want {
+			t.Errorf("MinNPositiveLCL(%g, %g) = %d, want %d", tt.p0, tt.k, got, tt.want)
+		}
+		// The definition itself: at the returned n a lower signal exists, one
+		// less and it does not.
+		if PlanLimits(tt.p0, tt.want, tt.k).LCLCount < 1 || PlanLimits(tt.p0, tt.want-1, tt.k).LCLCount != -1 {
+			t.Errorf("p0=%g k=%g: LCL counts around n=%d disagree", tt.p0, tt.k, tt.want)
+		}
+	}
+}
+
+func TestSmallestNReference(t *testing.T) {
+	ref := loadIntervalsRef(t)
+	for _, r := range ref.SmallestN {
+		got, err := SmallestN(r.P0, r.P1, r.K, r.Target, 100000)
+		if err != nil {
+			t.Fatal(err)
+		}
+		// Source: scan with exact limit counts and scipy.stats.binom tails.
+		if got != r.N {
+			t.Errorf("SmallestN(%g, %g, %g, %g) = %d, reference %d", r.P0, r.P1, r.K, r.Target, got, r.N)
+		}
+	}
+	if _, err := SmallestN(0.1, 0.11, 3, 1.0001, 50); !errors.Is(err, ErrNoPlan) {
+		t.Errorf("unreachable target: %v", err)
+	}
+	for _, bad := range [][4]float64{{0, 0.1, 3, 2}, {0.1, 0.1, 3, 2}, {0.1, 0.2, 3, 0.5}, {0.1, 1, 3, 2}} {
+		if _, err := SmallestN(bad[0], bad[1], bad[2], bad[3], 100); err == nil {
+			t.Errorf("SmallestN%v: no error", bad)
+		}
+	}
+}
+
+// TestARLNotMonotone shows the reason SmallestN scans: with whole counts,
+// ARL1 rises again at some larger n (shown directly from the binomial; the
+// reference scan in intervals_reference.py relies on no monotonicity).
+func TestARLNotMonotone(t *testing.T) {
+	ns := make([]int64, 200)
+	for i := range ns {
+		ns[i] = int64(i + 1)
+	}
+	curve := ARLCurve(0.05, 0.1, 3, ns)
+	rises := 0
+	for i := 1; i < len(curve); i++ {
+		if curve[i].N != ns[i] || curve[i].P1 != 0.1 {
+			t.Fatalf("curve point %d: %+v", i, curve[i])
+		}
+		if curve[i].ARL1 > curve[i-1].ARL1 {
+			rises++
+		}
+	}
+	if rises == 0 {
+		t.Error("ARL1 never rises with n; the scan in SmallestN would be unneeded")
+	}
+}
