@@ -174,7 +174,12 @@ func TestValidateLot(t *testing.T) {
 	u := Process{Name: "paint", Chart: spc.ChartU, Categories: []string{"dent"}}
 	now := time.Date(2025, 6, 1, 12, 0, 0, 0, time.UTC)
 	ok := LotInput{Lot: "A1", Time: now.Add(-time.Hour), Inspected: 50, Count: 2, Categories: map[string]int64{"dent": 2}}
-	with := func(f func(*LotInput)) LotInput { in := ok; in.Categories = map[string]int64{"dent": 2}; f(&in); return in }
+	with := func(f func(*LotInput)) LotInput {
+		in := ok
+		in.Categories = map[string]int64{"dent": 2}
+		f(&in)
+		return in
+	}
 	cases := []struct {
 		name  string
 		p     Process
