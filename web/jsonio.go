@@ -61,3 +61,6 @@ func (n Num) MarshalJSON() ([]byte, error) {
 	}
 	return strconv.AppendFloat(make([]byte, 0, 24), f, 'g', -1, 64), nil
 }
+
+// nan marks a number that is not defined (a lot not on the chart).
+var nan = math.NaN()
