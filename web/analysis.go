@@ -41,7 +41,7 @@ func (s *Server) analyzeProcess(ctx context.Context, p store.Process) (*processC
 
 // judge builds the phases from the limit sets and runs the analysis.
 func judge(p store.Process, lots []store.Lot, sets []store.LimitSet) (*processChart, error) {
-	rules, err := spc.ParseRules(p.Rules)
+	rules, err := parseProcessRules(p.Rules)
 	if err != nil {
 		return nil, fmt.Errorf("process %q: rules: %w", p.Name, err)
 	}
@@ -200,3 +200,12 @@ func (pc *processChart) lotIndex(id int64) int {
 }
 
 func formatID(id int64) string { return strconv.FormatInt(id, 10) }
+
+// parseProcessRules reads a process's rule list; an empty list applies
+// no run rule (the limits are still judged).
+func parseProcessRules(s string) (spc.RuleSet, error) {
+	if s == "" {
+		return spc.RulesNone, nil
+	}
+	return spc.ParseRules(s)
+}

@@ -8,7 +8,6 @@ import (
 
 	"github.com/go-chi/chi/v5"
 
-	"lotwatch/spc"
 	"lotwatch/store"
 )
 
@@ -210,7 +209,11 @@ func (s *Server) apiLots(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusBadRequest, err.Error())
 		return
 	}
-	lots, err := s.db.Lots(r.Context(), p.ID, win.from, win.to)
+	to := win.to
+	if !to.IsZero() {
+		to = to.Add(time.Nanosecond) // the store's upper bound is exclusive
+	}
+	lots, err := s.db.Lots(r.Context(), p.ID, win.from, to)
 	if err != nil {
 		s.internalError(w, r, err)
 		return
@@ -247,7 +250,7 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 	if len(lp.list) == 0 {
 		for i, in := range ins {
 			for _, pr := range store.ValidateLot(p, in) {
-				lp.add(i, pr.Field, pr.Value, pr.Reason)
+				lp.add(i, lotField(pr.Field), pr.Value, pr.Reason)
 			}
 		}
 	}
@@ -265,7 +268,7 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 			if pr.Line > 0 {
 				i = pr.Line - 1
 			}
-			lp.add(i, pr.Field, pr.Value, pr.Reason)
+			lp.add(i, lotField(pr.Field), pr.Value, pr.Reason)
 		}
 		writeJSON(w, http.StatusBadRequest, apiError{Error: lp.message(), Problems: lp.list})
 		return
@@ -294,6 +297,15 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	writeJSON(w, http.StatusCreated, map[string]any{"lots": pc.verdicts(stored)})
+}
+
+// lotField names a store problem's field as the API does: a defect
+// category is "categories.NAME".
+func lotField(f string) string {
+	if f == "" || lotFields[f] {
+		return f
+	}
+	return "categories." + f
 }
 
 // verdicts returns the stored lots with their points on the chart.
@@ -445,4 +457,3 @@ func (s *Server) apiUsers(w http.ResponseWriter, r *http.Request) {
 	writeJSON(w, http.StatusOK, out)
 }
 
-var _ = spc.ChartP

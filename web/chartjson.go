@@ -133,3 +133,16 @@ func AnalysisJSON(a *spc.Analysis) *ChartJSON {
 	}
 	return out
 }
+
+// ruleNames lists the short names of the rules in s ("we1", "nelson3"),
+// never nil.
+func ruleNames(s spc.RuleSet) []string {
+	rs := s.Rules()
+	out := make([]string, len(rs))
+	for i, r := range rs {
+		out[i] = r.String()
+	}
+	return out
+}
+
+func ruleName(r spc.Rule) string { return r.String() }

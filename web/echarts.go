@@ -5,7 +5,6 @@ import (
 
 	"github.com/go-echarts/go-echarts/v2/charts"
 	"github.com/go-echarts/go-echarts/v2/opts"
-	"github.com/go-echarts/go-echarts/v2/types"
 )
 
 // Colours of the control chart, chosen for contrast on white and for
@@ -49,11 +48,11 @@ func chartOptions(title string, c *ChartJSON) map[string]any {
 	line.SetGlobalOptions(
 		charts.WithAnimation(false),
 		charts.WithTitleOpts(opts.Title{Title: title}),
-		charts.WithTooltipOpts(opts.Tooltip{Show: types.BoolPtr(true), Trigger: "axis"}),
-		charts.WithLegendOpts(opts.Legend{Show: types.BoolPtr(true), Top: "30"}),
+		charts.WithTooltipOpts(opts.Tooltip{Show: opts.Bool(true), Trigger: "axis"}),
+		charts.WithLegendOpts(opts.Legend{Show: opts.Bool(true), Top: "30"}),
 		charts.WithGridOpts(opts.Grid{Left: "60", Right: "30", Top: "70", Bottom: "80"}),
 		charts.WithXAxisOpts(opts.XAxis{Type: "category", Name: "lot", Data: codes}),
-		charts.WithYAxisOpts(opts.YAxis{Type: "value", Name: valueName(c.Chart), Scale: types.BoolPtr(true)}),
+		charts.WithYAxisOpts(opts.YAxis{Type: "value", Name: valueName(c.Chart), Scale: opts.Bool(true)}),
 		charts.WithDataZoomOpts(opts.DataZoom{Type: "inside"}, opts.DataZoom{Type: "slider"}),
 	)
 	line.SetXAxis(codes)
