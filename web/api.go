@@ -456,4 +456,3 @@ func (s *Server) apiUsers(w http.ResponseWriter, r *http.Request) {
 	}
 	writeJSON(w, http.StatusOK, out)
 }
-

@@ -35,8 +35,8 @@ type Config struct {
 	// certificate of its own (behind a TLS-terminating proxy).
 	Secure bool
 
-	Logger *slog.Logger      // default: slog.Default()
-	Now    func() time.Time  // default: time.Now; tests set a fake clock
+	Logger *slog.Logger     // default: slog.Default()
+	Now    func() time.Time // default: time.Now; tests set a fake clock
 }
 
 // Server is the lotwatch web server.
