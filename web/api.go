@@ -4,6 +4,7 @@ import (
 	"errors"
 	"net/http"
 	"strconv"
+	"strings"
 	"time"
 
 	"github.com/go-chi/chi/v5"
@@ -273,7 +274,7 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 		writeJSON(w, http.StatusBadRequest, apiError{Error: lp.message(), Problems: lp.list})
 		return
 	case errors.Is(err, store.ErrConflict):
-		writeError(w, http.StatusConflict, err.Error()+"; nothing was stored (to change a stored lot, correct it)")
+		writeError(w, http.StatusConflict, strings.ReplaceAll(err.Error(), "\n", "; ")+"; nothing was stored (a stored lot is changed by correcting it, which keeps its history)")
 		return
 	case errors.Is(err, store.ErrNotFound):
 		writeError(w, http.StatusNotFound, err.Error())

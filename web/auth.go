@@ -76,8 +76,8 @@ func (s *Server) signIn(w http.ResponseWriter, r *http.Request) {
 	name := strings.TrimSpace(r.PostFormValue("name"))
 	password := r.PostFormValue("password")
 	data := signInData{Name: name, Next: safeNext(r.PostFormValue("next"))}
-	nameKey := "name:" + strings.ToLower(name)
-	if ok, wait := s.limiter.allow(nameKey, "addr:"+clientAddr(r)); !ok {
+	nameKey, addrKey := "name:"+strings.ToLower(name), "addr:"+clientAddr(r)
+	if wait := s.limiter.wait(nameKey, addrKey); wait > 0 {
 		w.Header().Set("Retry-After", retryAfter(wait))
 		data.Problem = "Too many sign-in attempts. Wait " + retryAfter(wait) + " seconds and try again."
 		s.render(w, r, http.StatusTooManyRequests, "signin.html", "Sign in", data)
@@ -95,6 +95,9 @@ func (s *Server) signIn(w http.ResponseWriter, r *http.Request) {
 	if errors.Is(err, store.ErrBadCredentials) {
 		s.log.Warn("sign-in refused", "name", name, "addr", clientAddr(r))
 		data.Problem = "The user name or password is not right."
+		if wait := s.limiter.fail(nameKey, addrKey); wait > 0 {
+			data.Problem += " Too many failed attempts: wait " + retryAfter(wait) + " seconds before the next."
+		}
 		s.render(w, r, http.StatusUnauthorized, "signin.html", "Sign in", data)
 		return
 	}
@@ -156,7 +159,8 @@ func (s *Server) changePassword(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusForbidden, "a password cannot be changed with an API token")
 		return
 	}
-	if ok, wait := s.limiter.allow("name:"+strings.ToLower(p.user.Name), "addr:"+clientAddr(r)); !ok {
+	nameKey, addrKey := "name:"+strings.ToLower(p.user.Name), "addr:"+clientAddr(r)
+	if wait := s.limiter.wait(nameKey, addrKey); wait > 0 {
 		w.Header().Set("Retry-After", retryAfter(wait))
 		fail(http.StatusTooManyRequests, "Too many attempts. Wait "+retryAfter(wait)+" seconds and try again.")
 		return
@@ -174,6 +178,7 @@ func (s *Server) changePassword(w http.ResponseWriter, r *http.Request) {
 	}
 	if _, err := s.db.Authenticate(r.Context(), p.user.Name, current); err != nil {
 		if errors.Is(err, store.ErrBadCredentials) {
+			s.limiter.fail(nameKey, addrKey)
 			fail(http.StatusUnauthorized, "The current password is not right.")
 			return
 		}

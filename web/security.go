@@ -62,11 +62,13 @@ func clientAddr(r *http.Request) string {
 	return host
 }
 
-// attemptLimiter limits sign-in attempts per key (a user name or a client
-// address): at most max attempts within window. A key that goes over the
-// limit is blocked, for window the first time and twice as long each time
-// it goes over again (up to maxBlock); a quiet spell of forgetAfter clears
-// its record. The figures are common practice, no source.
+// attemptLimiter limits failed sign-in attempts per key (a user name or
+// a client address): after max failures within window the key is
+// blocked, for window the first time and twice as long each time it is
+// blocked again (up to maxBlock); a quiet spell of forgetAfter clears its
+// record. Successful sign-ins are not counted, so that a shift signing in
+// through one shared address is not held up. The figures are common
+// practice, no source.
 type attemptLimiter struct {
 	max         int
 	window      time.Duration
@@ -80,9 +82,9 @@ type attemptLimiter struct {
 }
 
 type attempts struct {
-	times   []time.Time // within the window, oldest first
+	fails   []time.Time // failures within the window, oldest first
 	blocked time.Time   // refused until this instant
-	strikes int         // times the limit was exceeded
+	strikes int         // times the key was blocked
 	last    time.Time
 }
 
@@ -97,49 +99,55 @@ func newAttemptLimiter(now func() time.Time) *attemptLimiter {
 	}
 }
 
-// allow records an attempt for every key and reports whether it may go
-// ahead; if not, it returns how long the caller must wait. An attempt
-// refused for one key is still counted against the others, so that
-// spreading guesses over names or addresses does not help.
-func (l *attemptLimiter) allow(keys ...string) (ok bool, wait time.Duration) {
+// wait reports how long the longest block among the keys still lasts;
+// 0 lets the attempt go ahead.
+func (l *attemptLimiter) wait(keys ...string) time.Duration {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	now := l.now()
+	var w time.Duration
+	for _, k := range keys {
+		if a := l.keys[k]; a != nil && now.Before(a.blocked) {
+			w = max(w, a.blocked.Sub(now))
+		}
+	}
+	return w
+}
+
+// fail records a failed attempt against every key and reports how long
+// the keys are now blocked (0 if none is).
+func (l *attemptLimiter) fail(keys ...string) time.Duration {
 	l.mu.Lock()
 	defer l.mu.Unlock()
 	now := l.now()
 	l.sweep(now)
-	ok = true
+	var w time.Duration
 	for _, k := range keys {
 		a := l.keys[k]
-		if a == nil {
+		if a == nil || now.Sub(a.last) > l.forgetAfter {
 			a = &attempts{}
 			l.keys[k] = a
 		}
-		if now.Sub(a.last) > l.forgetAfter {
-			*a = attempts{}
-		}
 		a.last = now
-		if now.Before(a.blocked) {
-			ok = false
-			wait = max(wait, a.blocked.Sub(now))
-			continue
-		}
 		cut := 0
-		for cut < len(a.times) && now.Sub(a.times[cut]) >= l.window {
+		for cut < len(a.fails) && now.Sub(a.fails[cut]) >= l.window {
 			cut++
 		}
-		a.times = append(a.times[cut:], now)
-		if len(a.times) > l.max {
+		a.fails = append(a.fails[cut:], now)
+		if len(a.fails) >= l.max {
 			block := l.window << a.strikes
 			if block > l.maxBlock || block <= 0 {
 				block = l.maxBlock
 			}
 			a.strikes++
 			a.blocked = now.Add(block)
-			a.times = a.times[:0]
-			ok = false
-			wait = max(wait, block)
+			a.fails = a.fails[:0]
+		}
+		if now.Before(a.blocked) {
+			w = max(w, a.blocked.Sub(now))
 		}
 	}
-	return ok, wait
+	return w
 }
 
 // reset forgets a key, after a successful sign-in for its user name.

@@ -16,65 +16,75 @@ func (c *fakeClock) Advance(d time.Duration) { c.t = c.t.Add(d) }
 func TestAttemptLimiter(t *testing.T) {
 	clk := &fakeClock{t: time.Date(2026, 3, 2, 8, 0, 0, 0, time.UTC)}
 	l := newAttemptLimiter(clk.Now)
-	// Five attempts a minute pass (the project's limit, common practice,
-	// no source); the sixth is refused for a minute.
-	for i := range 5 {
-		if ok, _ := l.allow("user:kim"); !ok {
-			t.Fatalf("attempt %d refused", i+1)
+	// Five failures a minute block the key for a minute (the project's
+	// limit, common practice, no source).
+	for i := range 4 {
+		if w := l.fail("name:kim"); w != 0 {
+			t.Fatalf("failure %d blocked for %v", i+1, w)
 		}
 		clk.Advance(time.Second)
 	}
-	ok, wait := l.allow("user:kim")
-	if ok || wait != time.Minute {
-		t.Fatalf("6th attempt: ok=%v wait=%v, want refused for 1m", ok, wait)
+	if w := l.fail("name:kim"); w != time.Minute {
+		t.Fatalf("5th failure: blocked for %v, want 1m", w)
+	}
+	if w := l.wait("name:kim"); w != time.Minute {
+		t.Fatalf("after 5th failure: wait %v, want 1m", w)
 	}
 	// Other keys are not affected.
-	if ok, _ := l.allow("user:lee"); !ok {
-		t.Fatal("another user name was refused")
+	if w := l.wait("name:lee"); w != 0 {
+		t.Fatalf("another user name must wait %v", w)
 	}
-	// Still blocked half-way through, with the remaining wait.
+	// Still blocked half-way through, with the remaining wait; the
+	// longest wait among the keys counts.
 	clk.Advance(30 * time.Second)
-	if ok, wait := l.allow("user:kim"); ok || wait != 30*time.Second {
-		t.Fatalf("during block: ok=%v wait=%v, want refused for 30s", ok, wait)
+	if w := l.wait("name:lee", "name:kim"); w != 30*time.Second {
+		t.Fatalf("during block: wait %v, want 30s", w)
 	}
 	clk.Advance(30 * time.Second)
-	for i := range 5 {
-		if ok, _ := l.allow("user:kim"); !ok {
-			t.Fatalf("after block, attempt %d refused", i+1)
+	if w := l.wait("name:kim"); w != 0 {
+		t.Fatalf("after block: wait %v, want 0", w)
+	}
+	// Failures spread beyond the window do not add up.
+	for i := range 8 {
+		if w := l.fail("name:ann"); w != 0 {
+			t.Fatalf("spread failure %d blocked for %v", i+1, w)
 		}
+		clk.Advance(16 * time.Second)
 	}
-	// Going over again doubles the block (backoff).
-	if ok, wait := l.allow("user:kim"); ok || wait != 2*time.Minute {
-		t.Fatalf("second block: ok=%v wait=%v, want 2m", ok, wait)
+	// Being blocked again doubles the block (backoff).
+	for range 4 {
+		l.fail("name:kim")
 	}
-	// A quiet hour forgets the key.
+	if w := l.fail("name:kim"); w != 2*time.Minute {
+		t.Fatalf("second block: %v, want 2m", w)
+	}
+	// A quiet hour forgets the key: the next block is one minute again.
 	clk.Advance(2*time.Minute + time.Hour + time.Second)
-	for i := range 5 {
-		if ok, _ := l.allow("user:kim"); !ok {
-			t.Fatalf("after quiet hour, attempt %d refused", i+1)
-		}
+	for range 4 {
+		l.fail("name:kim")
 	}
-	if ok, wait := l.allow("user:kim"); ok || wait != time.Minute {
-		t.Fatalf("after forgetting: ok=%v wait=%v, want 1m (first strike again)", ok, wait)
+	if w := l.fail("name:kim"); w != time.Minute {
+		t.Fatalf("after forgetting: %v, want 1m (first strike again)", w)
 	}
 	// reset clears a key at once (successful sign-in).
-	l.reset("user:kim")
-	if ok, _ := l.allow("user:kim"); !ok {
-		t.Fatal("refused after reset")
+	l.reset("name:kim")
+	if w := l.wait("name:kim"); w != 0 {
+		t.Fatalf("after reset: wait %v", w)
 	}
 }
 
-func TestAttemptLimiterSeveralKeys(t *testing.T) {
+func TestAttemptLimiterBackoffCap(t *testing.T) {
 	clk := &fakeClock{t: time.Date(2026, 3, 2, 8, 0, 0, 0, time.UTC)}
 	l := newAttemptLimiter(clk.Now)
-	// One address trying many names is stopped by the address key.
-	for i := range 5 {
-		if ok, _ := l.allow("name:u"+string(rune('a'+i)), "addr:10.0.0.9"); !ok {
-			t.Fatalf("attempt %d refused", i+1)
+	var last time.Duration
+	for range 8 {
+		for range 5 {
+			last = l.fail("addr:10.0.0.9")
 		}
+		clk.Advance(last)
 	}
-	if ok, _ := l.allow("name:uz", "addr:10.0.0.9"); ok {
-		t.Fatal("sixth attempt from one address allowed")
+	if last != 15*time.Minute {
+		t.Fatalf("block after many strikes: %v, want the 15m cap", last)
 	}
 }
 
