@@ -313,14 +313,21 @@ func lotField(f string) string {
 func (pc *processChart) verdicts(stored []store.Lot) []verdictJSON {
 	loc := pc.proc.Location()
 	index := make(map[int64]int, len(stored))
-	for i := len(pc.lots) - 1; i >= 0 && len(index) < len(stored); i-- {
-		index[pc.lots[i].ID] = i
+	for _, l := range stored {
+		index[l.ID] = -1
+	}
+	found := 0
+	for i := len(pc.lots) - 1; i >= 0 && found < len(index); i-- {
+		if j, ok := index[pc.lots[i].ID]; ok && j < 0 {
+			index[pc.lots[i].ID] = i
+			found++
+		}
 	}
 	out := make([]verdictJSON, len(stored))
 	for k, l := range stored {
 		v := verdictJSON{lotJSON: toLotJSON(l, loc), Signals: []string{}, Limits: "trial"}
 		v.Value, v.Center, v.UCL, v.LCL, v.Z = Num(nan), Num(nan), Num(nan), Num(nan), Num(nan)
-		if i, ok := index[l.ID]; ok && pc.a != nil && i < len(pc.a.Points) {
+		if i := index[l.ID]; i >= 0 && pc.a != nil && i < len(pc.a.Points) {
 			pt := pc.a.Points[i]
 			v.Value, v.Center, v.UCL, v.LCL, v.Z = Num(pt.Value), Num(pt.Center), Num(pt.UCL), Num(pt.LCL), Num(pt.Z)
 			v.OutOfLimits = pt.Above || pt.Below
