@@ -409,3 +409,65 @@ func TestRevokedToken(t *testing.T) {
 		}
 	}
 }
+
+// TestChartLimitSets: lots before the first frozen set get trial limits
+// from themselves; lots from its EffectiveFrom on are judged against the
+// frozen centre, p₀ ± 3√(p₀(1−p₀)/n) ("standard given" p chart,
+// Montgomery, Introduction to Statistical Quality Control, from memory).
+func TestChartLimitSets(t *testing.T) {
+	e := newTestEnv(t)
+	lots := e.addLots(t, 40, func(i int) int64 { return int64(3 + i%3) })
+	const p0 = 0.01
+	ls, err := e.db.FreezeLimitSet(t.Context(), "engineer1", store.LimitSet{
+		ProcessID: e.proc.ID, Method: "sigma", K: 3, Center: p0, SigmaZ: 1,
+		BaselineFrom: lots[0].Time, BaselineTo: lots[19].Time, BaselineLots: 20,
+		EffectiveFrom: lots[25].Time, Reason: "baseline of the first 20 lots",
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	rec := e.do(req{method: "GET", path: fmt.Sprintf("/api/v1/processes/%d/chart", e.proc.ID), token: e.tokens[store.RoleViewer]})
+	if rec.Code != 200 {
+		t.Fatalf("status %d: %s", rec.Code, rec.Body.String())
+	}
+	c := decodeJSON[ChartJSON](t, rec)
+	var sum int64
+	for _, l := range lots[:25] {
+		sum += l.Count
+	}
+	pTrial := float64(sum) / float64(200*25)
+	for i, l := range c.Lots {
+		p, limits, set := pTrial, "trial", 0
+		if i >= 25 {
+			p, limits, set = p0, "frozen", ls.Number
+		}
+		ucl := p + 3*math.Sqrt(p*(1-p)/200)
+		if l.Limits != limits || l.LimitSet != set {
+			t.Errorf("lot %d: limits %q set %d, want %q %d", i, l.Limits, l.LimitSet, limits, set)
+		}
+		if math.Abs(float64(l.Center)-p) > 1e-12 || math.Abs(float64(l.UCL)-ucl) > 1e-9 {
+			t.Errorf("lot %d: centre %v UCL %v, want %v %v", i, l.Center, l.UCL, p, ucl)
+		}
+	}
+	// 5 of 200 is beyond the frozen UCL 0.0311 but not beyond the trial one.
+	for i, l := range c.Lots {
+		want := float64(lots[i].Count)/200 > p0+3*math.Sqrt(p0*(1-p0)/200)
+		if i < 25 {
+			want = float64(lots[i].Count)/200 > pTrial+3*math.Sqrt(pTrial*(1-pTrial)/200)
+		}
+		if l.OutOfLimits != want {
+			t.Errorf("lot %d: out_of_limits %v, want %v", i, l.OutOfLimits, want)
+		}
+	}
+	// A lot posted now is judged against the frozen set.
+	rec = e.do(req{method: "POST", path: lotsPath(e), token: e.tokens[store.RoleInspector], body: `{"lot":"N1","inspected":200,"defective":9}`})
+	if rec.Code != http.StatusCreated {
+		t.Fatalf("post: %d %s", rec.Code, rec.Body.String())
+	}
+	v := decodeJSON[struct {
+		Lots []verdictJSON `json:"lots"`
+	}](t, rec).Lots[0]
+	if v.Limits != "frozen" || v.LimitSet != ls.Number || !v.OutOfLimits || math.Abs(float64(v.Center)-p0) > 1e-12 {
+		t.Errorf("posted lot verdict %+v, want frozen set %d, centre %v, out of limits", v, ls.Number, p0)
+	}
+}
