@@ -36,6 +36,7 @@ type analyzeOptions struct {
 	centerSet    bool
 	format       string
 	standardized bool
+	baseline     int
 }
 
 func runAnalyze(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
@@ -55,6 +56,7 @@ func runAnalyze(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		o.center, o.centerSet = v, true
 		return nil
 	})
+	fs.IntVar(&o.baseline, "baseline", 0, "estimate the centre (and σ_z) from the first `N` lots only, then judge every lot\nagainst those limits as if frozen; 0 uses all lots (trial limits)")
 	fs.StringVar(&o.format, "format", "text", "the output: `text`, json or csv")
 	fs.BoolVar(&o.standardized, "standardized", false, "plot the standardized values z with limits in z units")
 	fs.Usage = func() {
@@ -137,6 +139,23 @@ Options:
 		}
 	}
 
+	if o.baseline > 0 {
+		if o.centerSet {
+			fmt.Fprintln(stderr, "lotwatch analyze: --baseline and --center both set the centre; give one of them")
+			return exitUsage
+		}
+		if o.baseline > len(lots) {
+			fmt.Fprintf(stderr, "%s: --baseline: %d lots asked for, the file has %d\n", file, o.baseline, len(lots))
+			return exitUsage
+		}
+		base, err := spc.Analyze(lots[:o.baseline], cfg)
+		if err != nil {
+			fmt.Fprintf(stderr, "%s: --baseline: %v\n", file, err)
+			return exitUsage
+		}
+		cfg.Standard = &spc.Standard{Center: base.Rate, SigmaZ: base.SigmaZ}
+		cfg.Exclude = nil
+	}
 	a, err := spc.Analyze(lots, cfg)
 	if err != nil {
 		fmt.Fprintf(stderr, "%s: %v\n", file, err)
@@ -153,7 +172,7 @@ Options:
 	case "csv":
 		writeAnalysisCSV(stdout, a)
 	default:
-		writeAnalysisText(stdout, file, a)
+		writeAnalysisText(stdout, file, a, o.baseline)
 	}
 	return exitOK
 }
@@ -311,15 +330,18 @@ func ruleList(rs spc.RuleSet) string {
 }
 
 // writeAnalysisText writes the analysis for a person to read.
-func writeAnalysisText(w io.Writer, file string, a *spc.Analysis) {
+func writeAnalysisText(w io.Writer, file string, a *spc.Analysis, baseline int) {
 	unit := map[spc.Chart]string{spc.ChartP: "fraction nonconforming", spc.ChartNP: "number nonconforming",
 		spc.ChartU: "defects per unit", spc.ChartC: "defects per lot"}[a.Chart]
 	fmt.Fprintf(w, "%s chart (%s) of %s, %s limits at %g sigma\n", a.Chart, unit, file, a.Method, a.K)
-	centre := "estimated from"
-	if a.Baseline == 0 {
-		centre = "a known standard;"
+	switch {
+	case baseline > 0:
+		fmt.Fprintf(w, "centre line %s (from the first %d lots; all %d judged against it)", fmtStat(a.Chart, a.Center), baseline, len(a.Points))
+	case a.Baseline == 0:
+		fmt.Fprintf(w, "centre line %s (a known standard; %d lots judged)", fmtStat(a.Chart, a.Center), len(a.Points))
+	default:
+		fmt.Fprintf(w, "centre line %s (trial limits estimated from %d of %d lots)", fmtStat(a.Chart, a.Center), a.Baseline, len(a.Points))
 	}
-	fmt.Fprintf(w, "centre line %s (%s %d of %d lots)", fmtStat(a.Chart, a.Center), centre, a.Baseline, len(a.Points))
 	if a.Method == spc.MethodLaney {
 		fmt.Fprintf(w, ", sigma_z %.3f", a.SigmaZ)
 	}

@@ -213,3 +213,24 @@ func TestAnalyzeBadInput(t *testing.T) {
 		}
 	}
 }
+
+// TestAnalyzeBaseline checks that --baseline N judges every lot against
+// the centre of the first N lots: the first 15 samples of Montgomery's
+// orange-juice data above (from memory) hold 167 nonconforming of 750
+// units (by arithmetic), p̄ = 0.22267.
+func TestAnalyzeBaseline(t *testing.T) {
+	code, stdout, stderr := runCmd(t, orangeJuiceCSV(), "analyze", "--baseline", "15", "--format", "json", "-")
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	var got analyzeJSON
+	if err := json.Unmarshal([]byte(stdout), &got); err != nil {
+		t.Fatal(err)
+	}
+	if math.Abs(*got.Center-167.0/750) > 1e-9 || len(got.Lots) != 30 {
+		t.Errorf("center %v over %d lots, want 167/750 over 30", *got.Center, len(got.Lots))
+	}
+	if code, _, _ := runCmd(t, orangeJuiceCSV(), "analyze", "--baseline", "31", "-"); code != exitUsage {
+		t.Errorf("a baseline longer than the file: exit %d, want 2", code)
+	}
+}
