@@ -191,7 +191,7 @@ func (s *Server) apiChart(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusBadRequest, err.Error())
 		return
 	}
-	pc, err := s.analyzeProcess(r.Context(), p)
+	pc, err := s.freshChart(r.Context(), p)
 	if err != nil {
 		s.internalError(w, r, err)
 		return
@@ -286,7 +286,7 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 		s.internalError(w, r, err)
 		return
 	}
-	pc, err := s.analyzeProcess(r.Context(), p)
+	pc, err := s.freshChart(r.Context(), p)
 	if err != nil {
 		// The lots are stored; say so even though they cannot be judged.
 		s.log.Error("judging posted lots", "process", p.ID, "err", err)
@@ -351,7 +351,7 @@ func (s *Server) apiSignals(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusBadRequest, err.Error())
 		return
 	}
-	pc, err := s.analyzeProcess(r.Context(), p)
+	pc, err := s.freshChart(r.Context(), p)
 	if err != nil {
 		s.internalError(w, r, err)
 		return

@@ -147,7 +147,7 @@ func (s *Server) chartPage(w http.ResponseWriter, r *http.Request) {
 		s.pageError(w, r, http.StatusBadRequest, err.Error())
 		return
 	}
-	pc, err := s.analyzeProcess(r.Context(), p)
+	pc, err := s.freshChart(r.Context(), p)
 	if err != nil {
 		s.internalError(w, r, err)
 		return

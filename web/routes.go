@@ -8,6 +8,7 @@ import (
 	"strings"
 
 	"github.com/go-chi/chi/v5"
+	"github.com/go-chi/chi/v5/middleware"
 
 	"lotwatch/store"
 )
@@ -60,6 +61,7 @@ func (s *Server) routes() []route {
 // the cross-origin guard and the security headers.
 func (s *Server) buildHandler() http.Handler {
 	r := chi.NewRouter()
+	r.Use(middleware.GetHead) // HEAD is answered like GET, with no body
 	for _, rt := range s.routes() {
 		r.Method(rt.method, rt.pattern, s.guard(rt))
 	}

@@ -50,6 +50,7 @@ type Server struct {
 	now     func() time.Time
 	limiter *attemptLimiter
 	pages   *pageSet
+	judges  judgeGroup
 	handler http.Handler
 }
 
