@@ -1,0 +1,440 @@
+package spc
+
+import (
+	"errors"
+	"fmt"
+	"math"
+
+	"gonum.org/v1/gonum/stat/distuv"
+)
+
+// ZLimit bounds every z value. A lot whose statistic has zero spread
+// (centre p̄ = 0 or 1, or ū = 0, or a Laney σ_z of 0) cannot be
+// standardized: its z is 0 when it sits on the centre line and ±ZLimit
+// when it does not, and Analyze adds a "zero-spread" warning. Finite
+// values keep the results representable in JSON.
+const ZLimit = 1e6
+
+// laneyD2 is d₂ for moving ranges of two, the constant Laney (2002) uses
+// to turn the mean moving range of z into σ_z.
+const laneyD2 = 1.128
+
+// Config chooses the chart, the limits and the rules of an analysis.
+type Config struct {
+	Chart        Chart
+	Method       Method          // "" means MethodSigma
+	K            float64         // limit width in σ; 0 means 3
+	Rules        RuleSet         // run rules to apply; 0 applies none
+	Standard     *Standard       // phase II "standard given": known centre, nothing estimated
+	Exclude      map[string]bool // lot IDs left out of the centre (and σ_z) estimate but still plotted and judged
+	Standardized bool            // plot z with limits in z units
+}
+
+// Standard is a known (frozen or specified) centre for phase II.
+// Center is p for p and np charts, defects per unit for u, defects per
+// lot for c. SigmaZ is the Laney σ_z to use; 0 estimates it from the lots.
+type Standard struct {
+	Center float64
+	SigmaZ float64
+}
+
+// Analysis is the result of judging a sequence of lots.
+type Analysis struct {
+	Chart  Chart
+	Method Method
+	K      float64
+	// Alpha is the two-sided false-alarm probability matched to K,
+	// 2(1 − Φ(K)) (0.0027 for K = 3); exact limits leave at most Alpha/2
+	// in each tail.
+	Alpha float64
+	// Rate is p̄ = Σd/Σn (never the mean of the fractions) for p and np,
+	// ū = Σc/Σn for u, c̄ = Σc/m for c: from the lots not excluded, or
+	// the standard.
+	Rate float64
+	// Center is the centre of the plotted statistic in the chart's units:
+	// p̄ (p), n̄·p̄ (np, n̄ the mean lot size), ū (u), c̄ (c). It stays in
+	// these units when Standardized is set.
+	Center float64
+	// SigmaZ is Laney's σ_z: the mean moving range of the sigma-method z
+	// over the baseline lots divided by 1.128. It is computed for every
+	// method and used by MethodLaney (unless the standard gives one).
+	SigmaZ float64
+	// Baseline is the number of lots the centre was estimated from (0 when
+	// a standard gives it).
+	Baseline   int
+	Points     []Point
+	Signals    []Signal
+	Warnings   []Warning
+	Dispersion Dispersion
+	// Phases describes each run of lots of AnalyzePhases; nil for Analyze.
+	Phases []PhaseResult
+}
+
+// Point is one judged lot.
+type Point struct {
+	Lot Lot
+	// Value is the plotted statistic: the fraction nonconforming (p), the
+	// count (np, c) or defects per unit (u); z when Standardized.
+	Value float64
+	// Center, UCL and LCL are the lot's centre line and control limits in
+	// the units of Value.
+	Center, UCL, LCL float64
+	// Sigma is σᵢ of the plotted statistic (σᵢ·σ_z for Laney; 1 when
+	// Standardized).
+	Sigma float64
+	// Z is (value − centre)/σᵢ in the chart's units (σᵢ·σ_z for Laney),
+	// bounded by ±ZLimit.
+	Z float64
+	// TailP is the exact one-sided probability, under the centre line, of
+	// a count at least as far from the expected count as this lot's in the
+	// direction observed: P(X ≥ count) when the count is at or above the
+	// expected count, P(X ≤ count) below it. X is binomial(nᵢ, p̄) for p
+	// and np, Poisson(nᵢ·ū) for u and Poisson(c̄) for c.
+	TailP float64
+	// Rules holds the rules whose signals this lot takes part in.
+	Rules RuleSet
+	// Above and Below report a lot beyond the UCL or below the LCL.
+	Above, Below bool
+	// Excluded reports a lot left out of the estimate.
+	Excluded bool
+}
+
+// OutOfLimits reports whether the lot is beyond a control limit.
+func (p Point) OutOfLimits() bool { return p.Above || p.Below }
+
+// Signal is one run-rule finding over the lots Points[First..Last].
+type Signal struct {
+	Rule        Rule
+	First, Last int      // indices into Points
+	Lots        []string // IDs of the lots First..Last
+	Side        int8     // +1 above the centre (or increasing), −1 below (or decreasing), 0 either
+	Description string   // plain words, e.g. "9 lots in a row above the centre line"
+	hits        int
+	k           float64
+}
+
+// Warning is a diagnostic in plain words. Code is a stable key for
+// programs; Message is for people.
+type Warning struct {
+	Code    string
+	Message string
+}
+
+// PhaseResult describes one run of lots judged against one limit set.
+type PhaseResult struct {
+	Start, End int // Points[Start:End]
+	Method     Method
+	K          float64
+	Rate       float64
+	Center     float64
+	SigmaZ     float64
+}
+
+// AlphaForK returns the two-sided normal tail probability 2(1 − Φ(k)).
+func AlphaForK(k float64) float64 {
+	return 2 * distuv.UnitNormal.Survival(k)
+}
+
+func (cfg *Config) normalize() error {
+	if _, err := ParseChart(string(cfg.Chart)); err != nil {
+		return err
+	}
+	if cfg.Method == "" {
+		cfg.Method = MethodSigma
+	}
+	if _, err := ParseMethod(string(cfg.Method)); err != nil {
+		return err
+	}
+	if cfg.K == 0 {
+		cfg.K = 3
+	}
+	if !(cfg.K > 0) || math.IsInf(cfg.K, 0) {
+		return fmt.Errorf("limit width k %v must be a number greater than 0", cfg.K)
+	}
+	if st := cfg.Standard; st != nil {
+		switch {
+		case math.IsNaN(st.Center) || math.IsInf(st.Center, 0) || st.Center < 0:
+			return fmt.Errorf("standard centre %v must be a number not below 0", st.Center)
+		case cfg.Chart.CountsUnits() && st.Center > 1:
+			return fmt.Errorf("standard centre %v is a fraction nonconforming and must not exceed 1", st.Center)
+		case math.IsNaN(st.SigmaZ) || math.IsInf(st.SigmaZ, 0) || st.SigmaZ < 0:
+			return fmt.Errorf("standard σ_z %v must be a number not below 0", st.SigmaZ)
+		}
+	}
+	return nil
+}
+
+// Analyze judges lots on the chart cfg.Chart.
+//
+// Limits (Montgomery, Introduction to Statistical Quality Control, ch. 7):
+//
+//	p:  p̄ ± k·√(p̄(1−p̄)/nᵢ), clamped to [0, 1]
+//	np: nᵢp̄ ± k·√(nᵢp̄(1−p̄)), clamped to [0, nᵢ]
+//	u:  ū ± k·√(ū/nᵢ), LCL clamped at 0
+//	c:  c̄ ± k·√c̄, LCL clamped at 0
+//
+// with p̄ = Σd/Σn, ū = Σc/Σn and c̄ = Σc/m over the lots not excluded, or
+// the centre of cfg.Standard. zᵢ = (valueᵢ − centreᵢ)/σᵢ.
+//
+// MethodExact replaces the limits by binomial(nᵢ, p̄) or Poisson(nᵢū, c̄)
+// quantiles; see exactLimits. Rule 1 (beyond limits) then uses these
+// exact limits, which may be asymmetric, while the zone and run rules use
+// the normal-theory zᵢ with zones at K/3 and 2K/3.
+//
+// MethodLaney (Laney 2002, Quality Engineering 14(4), 531–537) widens σᵢ
+// by σ_z, the mean moving range of the sigma-method zᵢ over the baseline
+// lots (in order, excluded lots skipped) divided by 1.128: limits are
+// centre ± k·σᵢ·σ_z and z is reported relative to σᵢ·σ_z. It applies to
+// all four charts (p′, np′, u′, c′).
+//
+// Run rules (cfg.Rules) are applied to every lot, excluded or not, in
+// order; see Rule for the zones and ruleEngine for how signals start and
+// extend: a pattern that keeps going, or repeats while overlapping or
+// touching the previous finding of the same rule on the same side,
+// extends one Signal instead of adding one per lot.
+func Analyze(lots []Lot, cfg Config) (*Analysis, error) {
+	var e ruleEngine
+	e.reset(cfg.Rules)
+	a, err := analyze(lots, cfg, 0, &e)
+	if err != nil {
+		return nil, err
+	}
+	a.Signals = e.finish(a.Points)
+	return a, nil
+}
+
+// analyze computes points and diagnostics; when e is not nil it steps
+// the rule engine over the points as they are finished. offset numbers
+// lots in errors.
+func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, error) {
+	if err := cfg.normalize(); err != nil {
+		return nil, err
+	}
+	if len(lots) == 0 {
+		return nil, errors.New("no lots to analyze")
+	}
+	a := &Analysis{Chart: cfg.Chart, Method: cfg.Method, K: cfg.K, Alpha: AlphaForK(cfg.K)}
+	pts := make([]Point, len(lots))
+	a.Points = pts
+
+	// Pass 1: check, mark exclusions, sum the baseline.
+	var sumN, sumC, allN float64
+	minN, maxN := lots[0].Inspected, lots[0].Inspected
+	m := 0
+	excluding := len(cfg.Exclude) > 0
+	for i := range lots {
+		l := &lots[i]
+		if err := CheckLot(cfg.Chart, l.Inspected, l.Count); err != nil {
+			return nil, fmt.Errorf("lot %d (%q): %w", offset+i+1, l.ID, err)
+		}
+		minN = min(minN, l.Inspected)
+		maxN = max(maxN, l.Inspected)
+		allN += float64(l.Inspected)
+		if excluding && cfg.Exclude[l.ID] {
+			pts[i].Excluded = true
+			continue
+		}
+		sumN += float64(l.Inspected)
+		sumC += float64(l.Count)
+		m++
+	}
+	if excluding {
+		a.Warnings = append(a.Warnings, unknownExclusions(lots, cfg.Exclude)...)
+	}
+
+	// The centre.
+	var rate float64
+	switch {
+	case cfg.Standard != nil:
+		rate = cfg.Standard.Center
+	case m == 0:
+		return nil, errors.New("every lot is excluded: at least one lot must remain to estimate the centre line")
+	case cfg.Chart == ChartC:
+		rate = sumC / float64(m)
+	default:
+		rate = sumC / sumN
+	}
+	a.Rate = rate
+	a.Center = rate
+	if cfg.Chart == ChartNP {
+		if cfg.Standard != nil {
+			a.Center = rate * allN / float64(len(lots))
+		} else {
+			a.Center = rate * sumN / float64(m)
+		}
+	}
+	if cfg.Standard == nil {
+		a.Baseline = m
+	}
+
+	// Laney needs σ_z before any limit; the other methods finish each
+	// point in one pass.
+	laney := cfg.Method == MethodLaney
+	var sigmaZ float64
+	var lclZero int
+	if laney {
+		var st stats
+		for i := range lots {
+			n := float64(lots[i].Inspected)
+			v, ctr, sig := model(cfg.Chart, rate, n, float64(lots[i].Count))
+			st.add(zOf(v-ctr, sig), !pts[i].Excluded)
+		}
+		a.SigmaZ = st.sigmaZ()
+		a.Dispersion.ChiSquare, a.Dispersion.DF = st.chi, st.df(cfg.Standard != nil)
+		sigmaZ = a.SigmaZ
+		if cfg.Standard != nil && cfg.Standard.SigmaZ > 0 {
+			sigmaZ = cfg.Standard.SigmaZ
+		} else if st.nmr == 0 {
+			return nil, errors.New("Laney limits need at least 2 lots in the baseline to estimate σ_z")
+		}
+		lclZero = finishPoints(a, lots, cfg, rate, sigmaZ, e, nil)
+	} else {
+		var st stats
+		lclZero = finishPoints(a, lots, cfg, rate, 1, e, &st)
+		a.SigmaZ = st.sigmaZ()
+		a.Dispersion.ChiSquare, a.Dispersion.DF = st.chi, st.df(cfg.Standard != nil)
+	}
+	diagnose(a, lots, cfg, minN, maxN, sigmaZ, lclZero)
+	return a, nil
+}
+
+// model returns the plotted value, centre and σᵢ of a lot with n
+// inspected and count c on chart ch with centre rate.
+func model(ch Chart, rate, n, c float64) (v, ctr, sig float64) {
+	switch ch {
+	case ChartP:
+		return c / n, rate, math.Sqrt(rate * (1 - rate) / n)
+	case ChartNP:
+		return c, n * rate, math.Sqrt(n * rate * (1 - rate))
+	case ChartU:
+		return c / n, rate, math.Sqrt(rate / n)
+	default:
+		return c, rate, math.Sqrt(rate)
+	}
+}
+
+// zOf returns diff/sigma bounded by ±ZLimit, with the zero-spread
+// convention of ZLimit.
+func zOf(diff, sigma float64) float64 {
+	if sigma > 0 {
+		z := diff / sigma
+		return max(-ZLimit, min(ZLimit, z))
+	}
+	switch {
+	case diff > 0:
+		return ZLimit
+	case diff < 0:
+		return -ZLimit
+	}
+	return 0
+}
+
+// stats accumulates, over the baseline lots in order, the Pearson
+// chi-square (Σ z² of the sigma-method z) and the moving ranges of z.
+type stats struct {
+	chi      float64
+	m        int
+	mr       float64
+	nmr      int
+	prev     float64
+	havePrev bool
+}
+
+func (s *stats) add(z float64, baseline bool) {
+	if !baseline {
+		return
+	}
+	s.m++
+	s.chi += z * z
+	if s.havePrev {
+		s.mr += math.Abs(z - s.prev)
+		s.nmr++
+	}
+	s.prev, s.havePrev = z, true
+}
+
+func (s *stats) sigmaZ() float64 {
+	if s.nmr == 0 {
+		return 0
+	}
+	return s.mr / float64(s.nmr) / laneyD2
+}
+
+func (s *stats) df(standard bool) int {
+	if standard {
+		return s.m
+	}
+	return s.m - 1
+}
+
+// finishPoints computes each point's limits, z, judgement and tail
+// probability, and steps the rule engine. sz scales σᵢ (Laney's σ_z, or
+// 1). When st is not nil the sigma-method z of the baseline lots are
+// accumulated into it. It returns the number of lots whose lower limit
+// is 0 in the chart's units.
+func finishPoints(a *Analysis, lots []Lot, cfg Config, rate, sz float64, e *ruleEngine, st *stats) (lclZero int) {
+	pts := a.Points
+	k := cfg.K
+	exact := cfg.Method == MethodExact
+	dc := newDistCache(cfg.Chart, rate, a.Alpha/2)
+	units := cfg.Chart.CountsUnits()
+	perUnit := cfg.Chart == ChartP || cfg.Chart == ChartU
+	stepping := e != nil && e.set != 0
+	for i := range pts {
+		p := &pts[i]
+		l := &lots[i]
+		n := float64(l.Inspected)
+		v, ctr, sig := model(cfg.Chart, rate, n, float64(l.Count))
+		z := zOf(v-ctr, sig)
+		if st != nil {
+			st.add(z, !p.Excluded)
+		}
+		sig *= sz
+		if sz != 1 {
+			z = zOf(v-ctr, sig)
+		}
+		d := dc.get(l.Inspected)
+		var ucl, lcl float64
+		if exact {
+			d.limits()
+			ucl, lcl = float64(d.ucl), float64(d.lcl)
+			if perUnit {
+				ucl /= n
+				lcl /= n
+			}
+			p.Above = l.Count > d.ucl
+			p.Below = l.Count < d.lcl
+		} else {
+			ucl = ctr + k*sig
+			lcl = max(0, ctr-k*sig)
+			if units {
+				top := 1.0
+				if cfg.Chart == ChartNP {
+					top = n
+				}
+				ucl = min(ucl, top)
+			}
+			p.Above = v > ucl
+			p.Below = v < lcl
+		}
+		if lcl <= 0 {
+			lclZero++
+		}
+		p.Lot = *l
+		p.TailP = d.tail(l.Count)
+		if cfg.Standardized {
+			if exact {
+				ucl, lcl = zOf(ucl-ctr, sig), zOf(lcl-ctr, sig)
+			} else {
+				ucl, lcl = k, -k
+			}
+			p.Value, p.Center, p.UCL, p.LCL, p.Sigma, p.Z = z, 0, ucl, lcl, 1, z
+		} else {
+			p.Value, p.Center, p.UCL, p.LCL, p.Sigma, p.Z = v, ctr, ucl, lcl, sig, z
+		}
+		if stepping {
+			e.step(i, p, k)
+		}
+	}
+	return lclZero
+}

@@ -1,0 +1,402 @@
+package spc
+
+import (
+	"fmt"
+	"math/bits"
+	"strconv"
+	"strings"
+)
+
+// Rule is one run rule for judging a sequence of standardized values zᵢ.
+//
+// The Western Electric rules are from the Western Electric Statistical
+// Quality Control Handbook (1956); the Nelson tests from L. S. Nelson,
+// "The Shewhart Control Chart — Tests for Special Causes", Journal of
+// Quality Technology 16(4), 1984, 237–239.
+type Rule uint8
+
+// The run rules. Zones are measured in σ of the plotted statistic scaled
+// to the limit width K: "1σ" is K/3 and "2σ" is 2K/3, so that with the
+// usual K = 3 they are the textbook 1σ and 2σ and with other K they stay
+// at one and two thirds of the way from the centre line to the limit.
+const (
+	RuleWE1     Rule = iota // one lot beyond the control limits
+	RuleWE2                 // 2 of 3 lots in a row beyond 2σ on the same side
+	RuleWE3                 // 4 of 5 lots in a row beyond 1σ on the same side
+	RuleWE4                 // 8 lots in a row on the same side of the centre line
+	RuleNelson1             // one lot beyond the control limits
+	RuleNelson2             // 9 lots in a row on the same side of the centre line
+	RuleNelson3             // 6 lots in a row steadily increasing or decreasing
+	RuleNelson4             // 14 lots in a row alternating up and down
+	RuleNelson5             // 2 of 3 lots in a row beyond 2σ on the same side
+	RuleNelson6             // 4 of 5 lots in a row beyond 1σ on the same side
+	RuleNelson7             // 15 lots in a row within 1σ of the centre line
+	RuleNelson8             // 8 lots in a row beyond 1σ, on either side
+	numRules
+)
+
+// RuleSet is a set of run rules, one bit per Rule. The zero value selects
+// no rule.
+type RuleSet uint32
+
+// The named rule sets.
+const (
+	RulesNone   RuleSet = 0
+	RulesWE     RuleSet = 1<<RuleWE1 | 1<<RuleWE2 | 1<<RuleWE3 | 1<<RuleWE4
+	RulesNelson RuleSet = 1<<RuleNelson1 | 1<<RuleNelson2 | 1<<RuleNelson3 | 1<<RuleNelson4 |
+		1<<RuleNelson5 | 1<<RuleNelson6 | 1<<RuleNelson7 | 1<<RuleNelson8
+)
+
+var ruleNames = [numRules]string{
+	"we1", "we2", "we3", "we4",
+	"nelson1", "nelson2", "nelson3", "nelson4", "nelson5", "nelson6", "nelson7", "nelson8",
+}
+
+var ruleDescriptions = [numRules]string{
+	"Western Electric rule 1: a lot beyond a control limit",
+	"Western Electric rule 2: 2 of 3 lots in a row more than 2σ from the centre line on the same side",
+	"Western Electric rule 3: 4 of 5 lots in a row more than 1σ from the centre line on the same side",
+	"Western Electric rule 4: 8 lots in a row on the same side of the centre line",
+	"Nelson test 1: a lot beyond a control limit",
+	"Nelson test 2: 9 lots in a row on the same side of the centre line",
+	"Nelson test 3: 6 lots in a row steadily increasing or steadily decreasing",
+	"Nelson test 4: 14 lots in a row alternating up and down",
+	"Nelson test 5: 2 of 3 lots in a row more than 2σ from the centre line on the same side",
+	"Nelson test 6: 4 of 5 lots in a row more than 1σ from the centre line on the same side",
+	"Nelson test 7: 15 lots in a row within 1σ of the centre line, on either side",
+	"Nelson test 8: 8 lots in a row more than 1σ from the centre line, on either side",
+}
+
+// String returns the rule's short name, "we1" … "we4", "nelson1" … "nelson8".
+func (r Rule) String() string {
+	if r < numRules {
+		return ruleNames[r]
+	}
+	return "rule" + strconv.Itoa(int(r))
+}
+
+// Describe returns what the rule looks for, in plain words. σ is the
+// standard deviation of the plotted statistic scaled to the limit width
+// (zones at K/3 and 2K/3).
+func (r Rule) Describe() string {
+	if r < numRules {
+		return ruleDescriptions[r]
+	}
+	return "unknown rule"
+}
+
+// Set returns the set holding only r.
+func (r Rule) Set() RuleSet { return 1 << r }
+
+// Has reports whether s holds r.
+func (s RuleSet) Has(r Rule) bool { return s&(1<<r) != 0 }
+
+// Rules returns the rules in s in their order of declaration.
+func (s RuleSet) Rules() []Rule {
+	var out []Rule
+	for r := Rule(0); r < numRules; r++ {
+		if s.Has(r) {
+			out = append(out, r)
+		}
+	}
+	return out
+}
+
+// String returns s as a comma list of rule names, or "none".
+func (s RuleSet) String() string {
+	if s&(1<<numRules-1) == 0 {
+		return "none"
+	}
+	var b strings.Builder
+	for _, r := range s.Rules() {
+		if b.Len() > 0 {
+			b.WriteByte(',')
+		}
+		b.WriteString(r.String())
+	}
+	return b.String()
+}
+
+// ParseRules returns the rule set named by s: "we" (Western Electric 1–4),
+// "nelson" (Nelson 1–8), "none", or a comma list of these and single rule
+// names such as "we1,nelson3".
+func ParseRules(s string) (RuleSet, error) {
+	var set RuleSet
+	parts := strings.Split(s, ",")
+	for _, part := range parts {
+		name := strings.ToLower(strings.TrimSpace(part))
+		switch name {
+		case "none":
+			if len(parts) > 1 {
+				return 0, fmt.Errorf("run rules %q: \"none\" cannot be combined with other rules", s)
+			}
+			continue
+		case "we":
+			set |= RulesWE
+			continue
+		case "nelson":
+			set |= RulesNelson
+			continue
+		}
+		found := false
+		for r, n := range ruleNames {
+			if n == name {
+				set |= Rule(r).Set()
+				found = true
+				break
+			}
+		}
+		if !found {
+			return 0, fmt.Errorf("unknown run rule %q (want we, nelson, none, or a list such as we1,nelson3)", strings.TrimSpace(part))
+		}
+	}
+	return set, nil
+}
+
+// ruleEngine judges points one at a time with O(1) work and no allocation
+// per lot; it allocates only when a new signal starts.
+//
+// Conventions (documented on Analyze): a pattern signals at the lot that
+// completes it, and that lot must itself take part in the pattern (for
+// "2 of 3" the current lot is one of the two); "beyond" and "within" are
+// strict (a z exactly on a zone boundary is neither); z = 0 is on neither
+// side and breaks a same-side run; equal successive z break a trend and an
+// alternation. A signal that continues or repeats on the same side while
+// overlapping or touching the open signal of the same rule extends that
+// signal instead of adding another.
+type ruleEngine struct {
+	set RuleSet
+	// shift registers of the last lots, bit 0 = current lot
+	hi2, lo2, hi1, lo1 uint8
+	runAbove, runBelow int
+	runUp, runDown     int
+	alt                int
+	lastDir            int8
+	runInside          int
+	runOutside         int
+	prevZ              float64
+	havePrev           bool
+	open               [numRules]int
+	signals            []Signal
+}
+
+func (e *ruleEngine) reset(set RuleSet) {
+	*e = ruleEngine{set: set}
+	for i := range e.open {
+		e.open[i] = -1
+	}
+}
+
+func b2u(b bool) uint8 {
+	if b {
+		return 1
+	}
+	return 0
+}
+
+// step judges point i. k is the limit width in σ that sets the zones.
+func (e *ruleEngine) step(i int, p *Point, k float64) {
+	if e.set == 0 {
+		return
+	}
+	z := p.Z
+	z1, z2 := k/3, 2*k/3
+	e.hi2 = e.hi2<<1 | b2u(z > z2)
+	e.lo2 = e.lo2<<1 | b2u(z < -z2)
+	e.hi1 = e.hi1<<1 | b2u(z > z1)
+	e.lo1 = e.lo1<<1 | b2u(z < -z1)
+	switch {
+	case z > 0:
+		e.runAbove++
+		e.runBelow = 0
+	case z < 0:
+		e.runBelow++
+		e.runAbove = 0
+	default:
+		e.runAbove, e.runBelow = 0, 0
+	}
+	if e.havePrev {
+		var dir int8
+		switch {
+		case z > e.prevZ:
+			dir = 1
+			e.runUp++
+			e.runDown = 0
+		case z < e.prevZ:
+			dir = -1
+			e.runDown++
+			e.runUp = 0
+		default:
+			e.runUp, e.runDown = 0, 0
+		}
+		switch {
+		case dir == 0:
+			e.alt = 0
+		case e.lastDir != 0 && dir == -e.lastDir:
+			e.alt++
+		default:
+			e.alt = 1
+		}
+		e.lastDir = dir
+	}
+	e.prevZ, e.havePrev = z, true
+	if z < z1 && z > -z1 {
+		e.runInside++
+	} else {
+		e.runInside = 0
+	}
+	if z > z1 || z < -z1 {
+		e.runOutside++
+	} else {
+		e.runOutside = 0
+	}
+
+	s := e.set
+	if s&(RuleWE1.Set()|RuleNelson1.Set()) != 0 && (p.Above || p.Below) {
+		side := int8(1)
+		if p.Below {
+			side = -1
+		}
+		e.emitBoth(RuleWE1, RuleNelson1, i, i, side, 1, k)
+	}
+	if s&(RuleWE2.Set()|RuleNelson5.Set()) != 0 {
+		e.window(RuleWE2, RuleNelson5, i, e.hi2, 0b111, 2, 1, k)
+		e.window(RuleWE2, RuleNelson5, i, e.lo2, 0b111, 2, -1, k)
+	}
+	if s&(RuleWE3.Set()|RuleNelson6.Set()) != 0 {
+		e.window(RuleWE3, RuleNelson6, i, e.hi1, 0b11111, 4, 1, k)
+		e.window(RuleWE3, RuleNelson6, i, e.lo1, 0b11111, 4, -1, k)
+	}
+	if e.runAbove >= 8 {
+		if s.Has(RuleWE4) {
+			e.emit(RuleWE4, i-e.runAbove+1, i, 1, 1, k)
+		}
+		if e.runAbove >= 9 && s.Has(RuleNelson2) {
+			e.emit(RuleNelson2, i-e.runAbove+1, i, 1, 1, k)
+		}
+	}
+	if e.runBelow >= 8 {
+		if s.Has(RuleWE4) {
+			e.emit(RuleWE4, i-e.runBelow+1, i, -1, 1, k)
+		}
+		if e.runBelow >= 9 && s.Has(RuleNelson2) {
+			e.emit(RuleNelson2, i-e.runBelow+1, i, -1, 1, k)
+		}
+	}
+	if s.Has(RuleNelson3) {
+		if e.runUp >= 5 {
+			e.emit(RuleNelson3, i-e.runUp, i, 1, 1, k)
+		} else if e.runDown >= 5 {
+			e.emit(RuleNelson3, i-e.runDown, i, -1, 1, k)
+		}
+	}
+	if e.alt >= 13 && s.Has(RuleNelson4) {
+		e.emit(RuleNelson4, i-e.alt, i, 0, 1, k)
+	}
+	if e.runInside >= 15 && s.Has(RuleNelson7) {
+		e.emit(RuleNelson7, i-e.runInside+1, i, 0, 1, k)
+	}
+	if e.runOutside >= 8 && s.Has(RuleNelson8) {
+		e.emit(RuleNelson8, i-e.runOutside+1, i, 0, 1, k)
+	}
+}
+
+// window checks a "need of width" pattern: the current lot (bit 0) takes
+// part and at least need of the lots in mask do.
+func (e *ruleEngine) window(we, nelson Rule, i int, reg, mask uint8, need int, side int8, k float64) {
+	w := reg & mask
+	if w&1 == 0 || bits.OnesCount8(w) < need {
+		return
+	}
+	first := i - (7 - bits.LeadingZeros8(w)) // earliest lot taking part
+	e.emitBoth(we, nelson, first, i, side, bits.OnesCount8(w), k)
+}
+
+func (e *ruleEngine) emitBoth(we, nelson Rule, first, last int, side int8, hits int, k float64) {
+	if e.set.Has(we) {
+		e.emit(we, first, last, side, hits, k)
+	}
+	if e.set.Has(nelson) {
+		e.emit(nelson, first, last, side, hits, k)
+	}
+}
+
+// emit records that rule r is met over lots first..last. hits is the
+// number of lots taking part when a signal starts; an extension adds one
+// (the current lot).
+func (e *ruleEngine) emit(r Rule, first, last int, side int8, hits int, k float64) {
+	if o := e.open[r]; o >= 0 {
+		sg := &e.signals[o]
+		if sg.Side == side && first <= sg.Last+1 {
+			if first < sg.First {
+				sg.First = first
+			}
+			sg.Last = last
+			sg.hits++
+			return
+		}
+	}
+	e.open[r] = len(e.signals)
+	e.signals = append(e.signals, Signal{Rule: r, First: first, Last: last, Side: side, hits: hits, k: k})
+}
+
+// finish fills in the lots and descriptions of the signals and marks the
+// points taking part in them.
+func (e *ruleEngine) finish(pts []Point) []Signal {
+	for si := range e.signals {
+		sg := &e.signals[si]
+		sg.Lots = make([]string, 0, sg.Last-sg.First+1)
+		bit := sg.Rule.Set()
+		for j := sg.First; j <= sg.Last; j++ {
+			sg.Lots = append(sg.Lots, pts[j].Lot.ID)
+			pts[j].Rules |= bit
+		}
+		sg.Description = sg.describe()
+	}
+	return e.signals
+}
+
+func (sg *Signal) describe() string {
+	n := sg.Last - sg.First + 1
+	where := "above"
+	if sg.Side < 0 {
+		where = "below"
+	}
+	zone1 := strconv.FormatFloat(sg.k/3, 'g', 3, 64) + "σ"
+	zone2 := strconv.FormatFloat(2*sg.k/3, 'g', 3, 64) + "σ"
+	switch sg.Rule {
+	case RuleWE1, RuleNelson1:
+		limit := "upper"
+		if sg.Side < 0 {
+			limit = "lower"
+		}
+		if n == 1 {
+			return "1 lot " + where + " the " + limit + " control limit"
+		}
+		return fmt.Sprintf("%d lots in a row %s the %s control limit", n, where, limit)
+	case RuleWE2, RuleNelson5:
+		if n <= 3 {
+			return fmt.Sprintf("%d of %d lots in a row more than %s %s the centre line", sg.hits, n, zone2, where)
+		}
+		return fmt.Sprintf("%d of %d lots in a row more than %s %s the centre line, at least 2 in every 3", sg.hits, n, zone2, where)
+	case RuleWE3, RuleNelson6:
+		if n <= 5 {
+			return fmt.Sprintf("%d of %d lots in a row more than %s %s the centre line", sg.hits, n, zone1, where)
+		}
+		return fmt.Sprintf("%d of %d lots in a row more than %s %s the centre line, at least 4 in every 5", sg.hits, n, zone1, where)
+	case RuleWE4, RuleNelson2:
+		return fmt.Sprintf("%d lots in a row %s the centre line", n, where)
+	case RuleNelson3:
+		if sg.Side > 0 {
+			return fmt.Sprintf("%d lots in a row each higher than the one before", n)
+		}
+		return fmt.Sprintf("%d lots in a row each lower than the one before", n)
+	case RuleNelson4:
+		return fmt.Sprintf("%d lots in a row alternating up and down", n)
+	case RuleNelson7:
+		return fmt.Sprintf("%d lots in a row within %s of the centre line", n, zone1)
+	case RuleNelson8:
+		return fmt.Sprintf("%d lots in a row more than %s from the centre line", n, zone1)
+	}
+	return sg.Rule.Describe()
+}
