@@ -1,0 +1,350 @@
+package store
+
+import (
+	"context"
+	"database/sql"
+	"embed"
+	"errors"
+	"fmt"
+	"io/fs"
+	"net/url"
+	"sort"
+	"strconv"
+	"strings"
+	"sync"
+	"time"
+
+	"github.com/mattn/go-sqlite3"
+)
+
+//go:embed migrations/*.sql
+var migrationFS embed.FS
+
+// migration is one forward-only schema step, numbered from 1.
+type migration struct {
+	version int
+	name    string
+	sql     string
+}
+
+func migrations() ([]migration, error) {
+	names, err := fs.Glob(migrationFS, "migrations/*.sql")
+	if err != nil {
+		return nil, err
+	}
+	sort.Strings(names)
+	var ms []migration
+	for i, n := range names {
+		base := strings.TrimPrefix(n, "migrations/")
+		v, err := strconv.Atoi(strings.SplitN(base, "_", 2)[0])
+		if err != nil || v != i+1 {
+			return nil, fmt.Errorf("store: migration %s is out of sequence", base)
+		}
+		b, err := migrationFS.ReadFile(n)
+		if err != nil {
+			return nil, err
+		}
+		ms = append(ms, migration{version: v, name: base, sql: string(b)})
+	}
+	return ms, nil
+}
+
+// SchemaVersion is the schema version this build writes.
+func SchemaVersion() int {
+	ms, _ := migrations()
+	return len(ms)
+}
+
+// DB is a lotwatch database in one SQLite file.
+//
+// Connections: one writer connection (BEGIN IMMEDIATE) owned by a single
+// writer goroutine, and a pool of read-only connections. Readers never
+// wait for the writer (WAL), and writers never meet each other in SQLite,
+// so no user sees "database is locked". The writer batches the work
+// submitted concurrently into one transaction (group commit), each piece
+// in its own savepoint, and answers each caller only after COMMIT; with
+// synchronous=FULL an acknowledged write survives a power cut.
+type DB struct {
+	path string
+	w    *sql.DB // exactly one connection
+	r    *sql.DB // read-only pool
+
+	jobs      chan *job
+	quit      chan struct{}
+	done      chan struct{}
+	closeOnce sync.Once
+	mu        sync.RWMutex // held shared while queueing a job, exclusive to close
+	closed    bool
+
+	// chain is the audit chain head, owned by the writer goroutine.
+	chain chainHead
+}
+
+// Store is what the rest of lotwatch needs of a store. *DB implements it
+// on SQLite; another back end (e.g. PostgreSQL) can implement it without
+// touching spc or web.
+type Store interface {
+	Users
+	Sessions
+	Tokens
+	Processes
+	Lots
+	LimitSets
+	Annotations
+	Audit
+	Close() error
+}
+
+var _ Store = (*DB)(nil)
+
+func dsn(path string, params string) string {
+	// Escape what a SQLite URI would read as syntax.
+	p := strings.NewReplacer("%", "%25", "?", "%3f", "#", "%23").Replace(path)
+	return "file:" + p + "?" + params
+}
+
+// Open opens (creating if needed) the database at path and applies the
+// embedded migrations it lacks. A database written by a newer lotwatch is
+// refused with ErrNewerSchema.
+func Open(path string) (*DB, error) {
+	wparams := url.Values{}
+	wparams.Set("_journal_mode", "WAL")
+	wparams.Set("_synchronous", "FULL")
+	wparams.Set("_busy_timeout", "10000")
+	wparams.Set("_foreign_keys", "on")
+	wparams.Set("_txlock", "immediate")
+	w, err := sql.Open("sqlite3", dsn(path, wparams.Encode()))
+	if err != nil {
+		return nil, fmt.Errorf("store: open %s: %w", path, err)
+	}
+	w.SetMaxOpenConns(1)
+	w.SetMaxIdleConns(1)
+	w.SetConnMaxLifetime(0)
+	w.SetConnMaxIdleTime(0)
+	if _, err := w.Exec("PRAGMA cache_size = -65536; PRAGMA temp_store = MEMORY"); err != nil {
+		w.Close()
+		return nil, fmt.Errorf("store: open %s: %w", path, err)
+	}
+	if err := migrate(w, path); err != nil {
+		w.Close()
+		return nil, err
+	}
+	rparams := url.Values{}
+	rparams.Set("mode", "ro")
+	rparams.Set("_busy_timeout", "10000")
+	rparams.Set("_foreign_keys", "on")
+	rparams.Set("_query_only", "1")
+	r, err := sql.Open("sqlite3", dsn(path, rparams.Encode()))
+	if err != nil {
+		w.Close()
+		return nil, fmt.Errorf("store: open %s: %w", path, err)
+	}
+	r.SetMaxOpenConns(8)
+	r.SetMaxIdleConns(8)
+	db := &DB{path: path, w: w, r: r, jobs: make(chan *job, 256), quit: make(chan struct{}), done: make(chan struct{})}
+	if err := db.loadChain(context.Background()); err != nil {
+		db.w.Close()
+		db.r.Close()
+		return nil, err
+	}
+	go db.writer()
+	return db, nil
+}
+
+func migrate(w *sql.DB, path string) error {
+	ms, err := migrations()
+	if err != nil {
+		return err
+	}
+	if _, err := w.Exec(`CREATE TABLE IF NOT EXISTS schema_migrations (
+		version INTEGER PRIMARY KEY, name TEXT NOT NULL, applied INTEGER NOT NULL)`); err != nil {
+		return fmt.Errorf("store: %s: %w", path, err)
+	}
+	var have int
+	if err := w.QueryRow("SELECT COALESCE(MAX(version), 0) FROM schema_migrations").Scan(&have); err != nil {
+		return fmt.Errorf("store: %s: %w", path, err)
+	}
+	if have > len(ms) {
+		return fmt.Errorf("store: %s has schema version %d but this lotwatch knows only up to %d; use a newer lotwatch: %w", path, have, len(ms), ErrNewerSchema)
+	}
+	for _, m := range ms[have:] {
+		tx, err := w.Begin()
+		if err != nil {
+			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
+		}
+		if _, err := tx.Exec(m.sql); err != nil {
+			tx.Rollback()
+			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
+		}
+		if _, err := tx.Exec("INSERT INTO schema_migrations (version, name, applied) VALUES (?, ?, ?)", m.version, m.name, time.Now().UnixNano()); err != nil {
+			tx.Rollback()
+			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
+		}
+		if _, err := tx.Exec(fmt.Sprintf("PRAGMA user_version = %d", m.version)); err != nil {
+			tx.Rollback()
+			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
+		}
+		if err := tx.Commit(); err != nil {
+			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
+		}
+	}
+	return nil
+}
+
+// Path is the database file.
+func (db *DB) Path() string { return db.path }
+
+// Close waits for queued writes, then closes the connections.
+func (db *DB) Close() error {
+	var err error
+	db.closeOnce.Do(func() {
+		db.mu.Lock()
+		db.closed = true
+		db.mu.Unlock()
+		close(db.quit)
+		<-db.done
+		err = errors.Join(db.r.Close(), db.w.Close())
+	})
+	return err
+}
+
+// job is one unit of work for the writer: fn runs inside the batch's
+// transaction, in its own savepoint.
+type job struct {
+	fn   func(*wtx) error
+	err  chan error
+	post func() // runs after the commit succeeded (e.g. fill results)
+}
+
+// wtx is the writer transaction handed to a job.
+type wtx struct {
+	*sql.Tx
+	db  *DB
+	now time.Time
+}
+
+const maxBatch = 128
+
+func (db *DB) writer() {
+	defer close(db.done)
+	for {
+		var first *job
+		select {
+		case first = <-db.jobs:
+		case <-db.quit:
+			// Drain what was queued before Close.
+			for {
+				select {
+				case j := <-db.jobs:
+					db.runBatch([]*job{j})
+				default:
+					return
+				}
+			}
+		}
+		batch := []*job{first}
+	fill:
+		for len(batch) < maxBatch {
+			select {
+			case j := <-db.jobs:
+				batch = append(batch, j)
+			default:
+				break fill
+			}
+		}
+		db.runBatch(batch)
+	}
+}
+
+func (db *DB) runBatch(batch []*job) {
+	errs := make([]error, len(batch))
+	fail := func(err error) {
+		for _, j := range batch {
+			j.err <- err
+		}
+	}
+	tx, err := db.w.Begin()
+	if err != nil {
+		fail(fmt.Errorf("store: begin: %w", err))
+		return
+	}
+	w := &wtx{Tx: tx, db: db, now: time.Now()}
+	saved := db.chain
+	for i, j := range batch {
+		before := db.chain
+		if _, err := tx.Exec("SAVEPOINT job"); err != nil {
+			errs[i] = err
+			continue
+		}
+		errs[i] = j.fn(w)
+		if errs[i] != nil {
+			db.chain = before
+			if _, err := tx.Exec("ROLLBACK TO job"); err != nil {
+				tx.Rollback()
+				db.chain = saved
+				fail(fmt.Errorf("store: rollback to savepoint: %w", err))
+				return
+			}
+		}
+		if _, err := tx.Exec("RELEASE job"); err != nil {
+			tx.Rollback()
+			db.chain = saved
+			fail(fmt.Errorf("store: release savepoint: %w", err))
+			return
+		}
+	}
+	if err := tx.Commit(); err != nil {
+		db.chain = saved
+		fail(fmt.Errorf("store: commit: %w", err))
+		return
+	}
+	for i, j := range batch {
+		if errs[i] == nil && j.post != nil {
+			j.post()
+		}
+		j.err <- errs[i]
+	}
+}
+
+// write runs fn in the writer transaction and returns once it is committed
+// (or failed). A write once queued is carried out even if ctx ends, so
+// the caller waits for its outcome.
+func (db *DB) write(ctx context.Context, fn func(*wtx) error) error {
+	j := &job{fn: fn, err: make(chan error, 1)}
+	db.mu.RLock()
+	if db.closed {
+		db.mu.RUnlock()
+		return ErrClosed
+	}
+	select {
+	case db.jobs <- j:
+	case <-ctx.Done():
+		db.mu.RUnlock()
+		return ctx.Err()
+	}
+	db.mu.RUnlock()
+	return <-j.err
+}
+
+// isUnique reports a UNIQUE constraint failure.
+func isUnique(err error) bool {
+	var se sqlite3.Error
+	return errors.As(err, &se) && se.ExtendedCode == sqlite3.ErrConstraintUnique
+}
+
+func nanos(t time.Time) int64 {
+	if t.IsZero() {
+		return 0
+	}
+	return t.UnixNano()
+}
+
+func fromNanos(n int64, loc *time.Location) time.Time {
+	if n == 0 {
+		return time.Time{}
+	}
+	if loc == nil {
+		loc = time.UTC
+	}
+	return time.Unix(0, n).In(loc)
+}

@@ -1,0 +1,611 @@
+package store
+
+import (
+	"context"
+	"crypto/sha256"
+	"database/sql"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"sort"
+	"strings"
+	"time"
+
+	"lotwatch/spc"
+)
+
+// LotInput is a lot as logged: by the form, the API or an imported file.
+type LotInput struct {
+	Lot        string
+	Time       time.Time // zero → now
+	Shift      string
+	Inspected  int64
+	Count      int64            // defective (p, np) or defects (u, c)
+	Categories map[string]int64 // counts by defect category; a category left out was not recorded
+	Inspector  string
+	Note       string
+}
+
+// Lot is a stored lot in its current revision.
+type Lot struct {
+	ID        int64
+	ProcessID int64
+	LotInput
+	Revision   int  // 1 for the lot as first logged
+	Voided     bool // voided lots are left out of Lots and charts
+	Recorded   time.Time
+	RecordedBy string
+	Reason     string // why this revision was made ("" for the first)
+}
+
+// Lots manages the lots of processes.
+type Lots interface {
+	AddLots(ctx context.Context, actor string, processID int64, in []LotInput) ([]Lot, error)
+	Lots(ctx context.Context, processID int64, from, to time.Time) ([]Lot, error)
+	EachLot(ctx context.Context, processID int64, from, to time.Time, fn func(Lot) error) error
+	LotByID(ctx context.Context, id int64) (Lot, error)
+	CorrectLot(ctx context.Context, actor, reason string, id int64, in LotInput) (Lot, error)
+	VoidLot(ctx context.Context, actor, reason string, id int64) error
+	LotHistory(ctx context.Context, id int64) ([]Lot, error)
+}
+
+// maxFuture is how far ahead of now a lot time may lie (clock skew
+// between an inspection station and the server; common practice, no
+// source).
+const maxFuture = 24 * time.Hour
+
+var earliest = time.Date(1970, 1, 2, 0, 0, 0, 0, time.UTC)
+
+// CountField is the name of the count field for the chart: "defective"
+// for p and np, "defects" for u and c.
+func CountField(c spc.Chart) string {
+	if c.CountsUnits() {
+		return "defective"
+	}
+	return "defects"
+}
+
+// ValidateLot is the one validation routine for a lot, shared by the form,
+// the API and import: the counts by spc.CheckLot; each category count
+// must be one of the process's categories, not negative and, for p and
+// np, at most the number inspected; text fields must be clean UTF-8 (lot
+// code, shift and inspector without surrounding spaces or control
+// characters); the time must not be before 1970 nor more than a day ahead.
+// Problems name the field as the lot file's column does.
+func ValidateLot(p Process, in LotInput) []Problem {
+	return validateLot(p, in, time.Now())
+}
+
+func validateLot(p Process, in LotInput, now time.Time) []Problem {
+	var ps []Problem
+	if in.Lot == "" {
+		ps = append(ps, Problem{Field: "lot", Reason: "is empty: every lot needs its lot code"})
+	} else {
+		ps = append(ps, checkText("lot", in.Lot, 100, true)...)
+	}
+	ps = append(ps, checkText("shift", in.Shift, 100, true)...)
+	ps = append(ps, checkText("inspector", in.Inspector, 100, true)...)
+	ps = append(ps, checkText("note", in.Note, 4000, false)...)
+	if err := spc.CheckLot(p.Chart, in.Inspected, in.Count); err != nil {
+		var fe *spc.FieldError
+		if errors.As(err, &fe) {
+			ps = append(ps, Problem{Field: fe.Field, Value: fe.Value, Reason: fe.Reason})
+		} else {
+			ps = append(ps, Problem{Field: CountField(p.Chart), Reason: err.Error()})
+		}
+	}
+	if !in.Time.IsZero() {
+		switch {
+		case in.Time.Before(earliest):
+			ps = append(ps, Problem{Field: "time", Value: in.Time.Format(time.RFC3339), Reason: "is before 1970"})
+		case in.Time.After(now.Add(maxFuture)):
+			ps = append(ps, Problem{Field: "time", Value: in.Time.Format(time.RFC3339), Reason: "is more than a day in the future"})
+		}
+	}
+	if len(in.Categories) > 0 {
+		names := make([]string, 0, len(in.Categories))
+		for c := range in.Categories {
+			names = append(names, c)
+		}
+		sort.Strings(names)
+		for _, c := range names {
+			n := in.Categories[c]
+			known := false
+			for _, pc := range p.Categories {
+				if pc == c {
+					known = true
+					break
+				}
+			}
+			switch {
+			case !known:
+				ps = append(ps, Problem{Field: c, Value: fmt.Sprint(n), Reason: fmt.Sprintf("is not a defect category of process %q (it has: %s)", p.Name, strings.Join(p.Categories, ", "))})
+			case n < 0:
+				ps = append(ps, Problem{Field: c, Value: fmt.Sprint(n), Reason: "must not be negative"})
+			case p.Chart.CountsUnits() && n > in.Inspected && in.Inspected > 0:
+				ps = append(ps, Problem{Field: c, Value: fmt.Sprint(n), Reason: fmt.Sprintf("is more than the %d units inspected", in.Inspected)})
+			}
+		}
+	}
+	return ps
+}
+
+// encodeCategories is the stored form: JSON with sorted keys, "" for none.
+func encodeCategories(m map[string]int64) string {
+	if len(m) == 0 {
+		return ""
+	}
+	b, _ := json.Marshal(m) // sorts the keys
+	return string(b)
+}
+
+func decodeCategories(s string) (map[string]int64, error) {
+	if s == "" {
+		return nil, nil
+	}
+	m := map[string]int64{}
+	err := json.Unmarshal([]byte(s), &m)
+	return m, err
+}
+
+// lotContent is the canonical content of a lot for the audit trail.
+type lotContent struct {
+	Lot        string           `json:"lot"`
+	Time       string           `json:"time"`
+	Shift      string           `json:"shift"`
+	Inspected  int64            `json:"inspected"`
+	Count      int64            `json:"count"`
+	Categories map[string]int64 `json:"categories,omitempty"`
+	Inspector  string           `json:"inspector"`
+	Note       string           `json:"note"`
+	Voided     bool             `json:"voided,omitempty"`
+}
+
+func contentOf(in LotInput, voided bool) lotContent {
+	return lotContent{in.Lot, in.Time.UTC().Format(time.RFC3339Nano), in.Shift, in.Inspected, in.Count, in.Categories, in.Inspector, in.Note, voided}
+}
+
+// differs lists the fields in which the input differs from the stored lot.
+// A zero input time, and (when cats is false) the categories, are not
+// compared: the input does not state them.
+func differs(stored Lot, in LotInput, f compareFields) []string {
+	var d []string
+	if stored.Voided {
+		d = append(d, "voided")
+	}
+	if f.time && !in.Time.IsZero() && !stored.Time.Equal(in.Time) {
+		d = append(d, "time")
+	}
+	if f.shift && stored.Shift != in.Shift {
+		d = append(d, "shift")
+	}
+	if stored.Inspected != in.Inspected {
+		d = append(d, "inspected")
+	}
+	if stored.Count != in.Count {
+		d = append(d, "count")
+	}
+	for _, c := range f.categories {
+		sv, sok := stored.Categories[c]
+		iv, iok := in.Categories[c]
+		if sok != iok || sv != iv {
+			d = append(d, c)
+		}
+	}
+	if f.inspector && stored.Inspector != in.Inspector {
+		d = append(d, "inspector")
+	}
+	if f.note && stored.Note != in.Note {
+		d = append(d, "note")
+	}
+	return d
+}
+
+// compareFields says which optional fields an input states.
+type compareFields struct {
+	time, shift, inspector, note bool
+	categories                   []string
+}
+
+func allFields(p Process) compareFields {
+	return compareFields{true, true, true, true, p.Categories}
+}
+
+const lotCols = "id, process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason"
+
+func scanLot(s interface{ Scan(...any) error }, l *Lot, loc *time.Location) error {
+	var t, rec int64
+	var cats string
+	if err := s.Scan(&l.ID, &l.ProcessID, &l.Lot, &t, &l.Shift, &l.Inspected, &l.Count, &cats, &l.Inspector, &l.Note, &l.Revision, &l.Voided, &rec, &l.RecordedBy, &l.Reason); err != nil {
+		return err
+	}
+	l.Time = fromNanos(t, loc)
+	l.Recorded = fromNanos(rec, loc)
+	var err error
+	l.Categories, err = decodeCategories(cats)
+	return err
+}
+
+// lotAdder inserts lots in the writer transaction; import and AddLots use it.
+type lotAdder struct {
+	w      *wtx
+	p      Process
+	actor  string
+	ins    *sql.Stmt
+	get    *sql.Stmt
+	digest []byte
+	h      hashWriter
+	first  int64
+	last   int64
+	n      int
+}
+
+type hashWriter interface {
+	Write([]byte) (int, error)
+	Sum([]byte) []byte
+}
+
+func (w *wtx) newLotAdder(actor string, p Process) (*lotAdder, error) {
+	ins, err := w.Prepare(`INSERT INTO lots (process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, 1, 0, ?, ?) ON CONFLICT (process_id, lot) DO NOTHING`)
+	if err != nil {
+		return nil, err
+	}
+	get, err := w.Prepare("SELECT " + lotCols + " FROM lots WHERE process_id = ? AND lot = ?")
+	if err != nil {
+		ins.Close()
+		return nil, err
+	}
+	return &lotAdder{w: w, p: p, actor: actor, ins: ins, get: get, h: sha256.New()}, nil
+}
+
+func (a *lotAdder) close() { a.ins.Close(); a.get.Close() }
+
+// add inserts in (already valid). When the lot code is stored, it returns
+// the stored lot and added false.
+func (a *lotAdder) add(in *LotInput) (id int64, added bool, err error) {
+	if in.Time.IsZero() {
+		in.Time = a.w.now
+	}
+	res, err := a.ins.Exec(a.p.ID, in.Lot, in.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, a.w.now.UnixNano(), a.actor)
+	if err != nil {
+		return 0, false, fmt.Errorf("store: add lot %q: %w", in.Lot, err)
+	}
+	if n, _ := res.RowsAffected(); n == 0 {
+		return 0, false, nil
+	}
+	id, _ = res.LastInsertId()
+	if a.n == 0 {
+		a.first = id
+	}
+	a.last = id
+	a.n++
+	b, _ := json.Marshal(contentOf(*in, false))
+	a.h.Write(b)
+	a.h.Write([]byte{'\n'})
+	return id, true, nil
+}
+
+func (a *lotAdder) stored(code string) (Lot, error) {
+	var l Lot
+	err := scanLot(a.get.QueryRow(a.p.ID, code), &l, a.p.Location())
+	return l, err
+}
+
+// finish writes the audit entry of the lots added: the ids, their number
+// and the SHA-256 over their canonical content (one JSON line each);
+// small batches carry the full content.
+func (a *lotAdder) finish(how string, lots []LotInput, extra map[string]any) error {
+	if a.n == 0 {
+		return nil
+	}
+	rec := map[string]any{"process_id": a.p.ID, "first_id": a.first, "last_id": a.last, "count": a.n,
+		"sha256": hex.EncodeToString(a.h.Sum(nil))}
+	for k, v := range extra {
+		rec[k] = v
+	}
+	if len(lots) > 0 && len(lots) <= 20 {
+		cs := make([]lotContent, len(lots))
+		for i, in := range lots {
+			cs[i] = contentOf(in, false)
+		}
+		rec["lots"] = cs
+	}
+	return a.w.audit(a.actor, how, "lot", a.first, a.last, nil, rec, "")
+}
+
+func (w *wtx) activeProcess(id int64) (Process, error) {
+	p, err := processByID(w.Tx, id)
+	if err != nil {
+		return Process{}, err
+	}
+	if !p.Active {
+		return Process{}, invalid(Problem{Field: "process", Value: p.Name, Reason: "is retired: it takes no new lots"})
+	}
+	return p, nil
+}
+
+// AddLots logs lots of a process, all or nothing: any invalid lot gives a
+// *ValidationError (Problem.Line is the 1-based position in `in`), a lot
+// code already stored with other values gives a *ConflictError
+// (errors.Is ErrConflict); nothing is then written. A lot identical to the
+// stored one (a repeated submission) is no error: its stored lot is
+// returned. Lots with a zero Time get the time of the commit.
+//
+// Concurrent calls are committed together (group commit) and each call
+// returns only once its lots are durable.
+func (db *DB) AddLots(ctx context.Context, actor string, processID int64, in []LotInput) ([]Lot, error) {
+	if len(in) == 0 {
+		return nil, nil
+	}
+	in = append([]LotInput(nil), in...)
+	var out []Lot
+	err := db.write(ctx, func(w *wtx) error {
+		p, err := w.activeProcess(processID)
+		if err != nil {
+			return err
+		}
+		var ps []Problem
+		seen := make(map[string]int, len(in))
+		for i, l := range in {
+			for _, pr := range validateLot(p, l, w.now) {
+				pr.Line = i + 1
+				ps = append(ps, pr)
+			}
+			if j, dup := seen[l.Lot]; dup && l.Lot != "" {
+				ps = append(ps, Problem{Line: i + 1, Field: "lot", Value: l.Lot, Reason: fmt.Sprintf("is given twice (also at %d)", j+1)})
+			}
+			seen[l.Lot] = i
+		}
+		if len(ps) > 0 {
+			return invalid(ps...)
+		}
+		a, err := w.newLotAdder(actor, p)
+		if err != nil {
+			return err
+		}
+		defer a.close()
+		out = make([]Lot, len(in))
+		var conflicts []Conflict
+		loc := p.Location()
+		for i := range in {
+			id, added, err := a.add(&in[i])
+			if err != nil {
+				return err
+			}
+			if added {
+				out[i] = Lot{ID: id, ProcessID: p.ID, LotInput: in[i], Revision: 1, Recorded: w.now.In(loc), RecordedBy: actor}
+				out[i].Time = out[i].Time.In(loc)
+				continue
+			}
+			s, err := a.stored(in[i].Lot)
+			if err != nil {
+				return err
+			}
+			if d := differs(s, in[i], allFields(p)); len(d) > 0 {
+				conflicts = append(conflicts, Conflict{Line: i + 1, Lot: in[i].Lot, Fields: d})
+			}
+			out[i] = s
+		}
+		if len(conflicts) > 0 {
+			return &ConflictError{Conflicts: conflicts}
+		}
+		return a.finish("add", in, nil)
+	})
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
+// Lots returns the lots of a process that are not voided, in time order
+// (then id), with from ≤ time < to; a zero bound is open.
+func (db *DB) Lots(ctx context.Context, processID int64, from, to time.Time) ([]Lot, error) {
+	var out []Lot
+	err := db.EachLot(ctx, processID, from, to, func(l Lot) error {
+		out = append(out, l)
+		return nil
+	})
+	return out, err
+}
+
+// EachLot calls fn with each lot that Lots would return, streaming, so
+// memory does not grow with the number of lots. fn may keep the Lot (each
+// has its own Categories map); an error from fn stops the walk and is
+// returned.
+func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, fn func(Lot) error) error {
+	p, err := db.Process(ctx, processID)
+	if err != nil {
+		return err
+	}
+	loc := p.Location()
+	lo, hi := int64(-1<<63), int64(1<<63-1)
+	if !from.IsZero() {
+		lo = from.UnixNano()
+	}
+	if !to.IsZero() {
+		hi = to.UnixNano() - 1
+	}
+	rows, err := db.r.QueryContext(ctx, `SELECT id, lot, time, shift, inspected, count, categories, inspector, note, revision, recorded, recorded_by, reason
+		FROM lots WHERE process_id = ? AND time BETWEEN ? AND ? AND voided = 0 ORDER BY time, id`, processID, lo, hi)
+	if err != nil {
+		return err
+	}
+	defer rows.Close()
+	var l Lot
+	var t, rec int64
+	var cats sql.RawBytes
+	l.ProcessID = processID
+	for rows.Next() {
+		if err := rows.Scan(&l.ID, &l.Lot, &t, &l.Shift, &l.Inspected, &l.Count, &cats, &l.Inspector, &l.Note, &l.Revision, &rec, &l.RecordedBy, &l.Reason); err != nil {
+			return err
+		}
+		l.Time = time.Unix(0, t).In(loc)
+		l.Recorded = time.Unix(0, rec).In(loc)
+		l.Categories = nil
+		if len(cats) > 0 {
+			l.Categories = map[string]int64{}
+			if err := json.Unmarshal(cats, &l.Categories); err != nil {
+				return fmt.Errorf("store: lot %d: categories: %w", l.ID, err)
+			}
+		}
+		if err := fn(l); err != nil {
+			return err
+		}
+	}
+	return rows.Err()
+}
+
+// LotByID returns a lot in its current revision (voided or not).
+func (db *DB) LotByID(ctx context.Context, id int64) (Lot, error) {
+	return lotByID(ctx, db.r, id)
+}
+
+type ctxQueryer interface {
+	QueryRowContext(ctx context.Context, query string, args ...any) *sql.Row
+}
+
+func lotByID(ctx context.Context, q ctxQueryer, id int64) (Lot, error) {
+	var l Lot
+	var tz string
+	row := q.QueryRowContext(ctx, `SELECT l.id, l.process_id, l.lot, l.time, l.shift, l.inspected, l.count, l.categories, l.inspector, l.note,
+		l.revision, l.voided, l.recorded, l.recorded_by, l.reason, p.time_zone FROM lots l JOIN processes p ON p.id = l.process_id WHERE l.id = ?`, id)
+	var t, rec int64
+	var cats string
+	err := row.Scan(&l.ID, &l.ProcessID, &l.Lot, &t, &l.Shift, &l.Inspected, &l.Count, &cats, &l.Inspector, &l.Note, &l.Revision, &l.Voided, &rec, &l.RecordedBy, &l.Reason, &tz)
+	if errors.Is(err, sql.ErrNoRows) {
+		return Lot{}, fmt.Errorf("lot %d: %w", id, ErrNotFound)
+	}
+	if err != nil {
+		return Lot{}, err
+	}
+	loc := Process{TimeZone: tz}.Location()
+	l.Time, l.Recorded = fromNanos(t, loc), fromNanos(rec, loc)
+	l.Categories, err = decodeCategories(cats)
+	return l, err
+}
+
+// keepRevision copies the current revision of a lot to lot_revisions.
+func (w *wtx) keepRevision(id int64) error {
+	_, err := w.Exec(`INSERT INTO lot_revisions (lot_id, revision, lot, time, shift, inspected, count, categories, inspector, note, voided, recorded, recorded_by, reason)
+		SELECT id, revision, lot, time, shift, inspected, count, categories, inspector, note, voided, recorded, recorded_by, reason FROM lots WHERE id = ?`, id)
+	return err
+}
+
+func needReason(reason string) error {
+	if strings.TrimSpace(reason) == "" {
+		return invalid(Problem{Field: "reason", Reason: "is empty: say why the lot changes"})
+	}
+	return nil
+}
+
+// CorrectLot replaces the values of a lot with in and records why. The
+// earlier revision is kept (LotHistory). A voided lot cannot be corrected.
+// A zero in.Time keeps the lot's time.
+func (db *DB) CorrectLot(ctx context.Context, actor, reason string, id int64, in LotInput) (Lot, error) {
+	if err := needReason(reason); err != nil {
+		return Lot{}, err
+	}
+	var out Lot
+	err := db.write(ctx, func(w *wtx) error {
+		old, err := lotByID(ctx, w.Tx, id)
+		if err != nil {
+			return err
+		}
+		if old.Voided {
+			return invalid(Problem{Field: "lot", Value: old.Lot, Reason: "is voided and cannot be corrected"})
+		}
+		p, err := processByID(w.Tx, old.ProcessID)
+		if err != nil {
+			return err
+		}
+		if in.Time.IsZero() {
+			in.Time = old.Time
+		}
+		if ps := validateLot(p, in, w.now); len(ps) > 0 {
+			return invalid(ps...)
+		}
+		if err := w.keepRevision(id); err != nil {
+			return err
+		}
+		_, err = w.Exec(`UPDATE lots SET lot = ?, time = ?, shift = ?, inspected = ?, count = ?, categories = ?, inspector = ?, note = ?,
+			revision = revision + 1, recorded = ?, recorded_by = ?, reason = ? WHERE id = ?`,
+			in.Lot, in.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, w.now.UnixNano(), actor, reason, id)
+		if isUnique(err) {
+			return &ConflictError{Conflicts: []Conflict{{Lot: in.Lot, Fields: []string{"lot"}}}}
+		}
+		if err != nil {
+			return err
+		}
+		loc := p.Location()
+		out = Lot{ID: id, ProcessID: p.ID, LotInput: in, Revision: old.Revision + 1, Recorded: w.now.In(loc), RecordedBy: actor, Reason: reason}
+		out.Time = in.Time.In(loc)
+		return w.audit(actor, "correct", "lot", id, id, contentOf(old.LotInput, false), contentOf(in, false), reason)
+	})
+	if err != nil {
+		return Lot{}, err
+	}
+	return out, nil
+}
+
+// VoidLot takes a lot out of the charts and records why; its values stay
+// (LotHistory). Voiding a voided lot is an error.
+func (db *DB) VoidLot(ctx context.Context, actor, reason string, id int64) error {
+	if err := needReason(reason); err != nil {
+		return err
+	}
+	return db.write(ctx, func(w *wtx) error {
+		old, err := lotByID(ctx, w.Tx, id)
+		if err != nil {
+			return err
+		}
+		if old.Voided {
+			return invalid(Problem{Field: "lot", Value: old.Lot, Reason: "is already voided"})
+		}
+		if err := w.keepRevision(id); err != nil {
+			return err
+		}
+		if _, err := w.Exec("UPDATE lots SET voided = 1, revision = revision + 1, recorded = ?, recorded_by = ?, reason = ? WHERE id = ?", w.now.UnixNano(), actor, reason, id); err != nil {
+			return err
+		}
+		return w.audit(actor, "void", "lot", id, id, contentOf(old.LotInput, false), contentOf(old.LotInput, true), reason)
+	})
+}
+
+// LotHistory returns every revision of a lot, oldest first; the last is
+// the current one.
+func (db *DB) LotHistory(ctx context.Context, id int64) ([]Lot, error) {
+	tx, err := db.r.BeginTx(ctx, &sql.TxOptions{ReadOnly: true})
+	if err != nil {
+		return nil, err
+	}
+	defer tx.Rollback()
+	cur, err := lotByID(ctx, tx, id)
+	if err != nil {
+		return nil, err
+	}
+	var tz string
+	if err := tx.QueryRowContext(ctx, "SELECT time_zone FROM processes WHERE id = ?", cur.ProcessID).Scan(&tz); err != nil {
+		return nil, err
+	}
+	loc := Process{TimeZone: tz}.Location()
+	rows, err := tx.QueryContext(ctx, `SELECT lot_id, ?, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason
+		FROM lot_revisions WHERE lot_id = ? ORDER BY revision`, cur.ProcessID, id)
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	var out []Lot
+	for rows.Next() {
+		var l Lot
+		if err := scanLot(rows, &l, loc); err != nil {
+			return nil, err
+		}
+		out = append(out, l)
+	}
+	if err := rows.Err(); err != nil {
+		return nil, err
+	}
+	return append(out, cur), nil
+}

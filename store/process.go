@@ -1,0 +1,334 @@
+package store
+
+import (
+	"context"
+	"database/sql"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"regexp"
+	"strings"
+	"sync"
+	"time"
+	"unicode"
+	"unicode/utf8"
+
+	"lotwatch/spc"
+	"lotwatch/store/lotcsv"
+)
+
+// Process is one inspection point whose lots make one control chart.
+type Process struct {
+	ID          int64
+	Name        string
+	Description string
+	Chart       spc.Chart
+	Method      spc.Method
+	K           float64
+	// Rules is the run-rule set: "we", "nelson", "none" or a list like
+	// "we1,nelson3".
+	Rules      string
+	Categories []string // defect categories, in display order
+	TimeZone   string   // IANA, e.g. "Europe/Berlin"
+	Active     bool     // false once retired
+	Created    time.Time
+}
+
+var locCache sync.Map // zone name → *time.Location
+
+func loadLocation(name string) (*time.Location, error) {
+	if l, ok := locCache.Load(name); ok {
+		return l.(*time.Location), nil
+	}
+	l, err := time.LoadLocation(name)
+	if err != nil {
+		return nil, err
+	}
+	locCache.Store(name, l)
+	return l, nil
+}
+
+// Location is the plant's time zone of the process (UTC if unknown).
+func (p Process) Location() *time.Location {
+	if l, err := loadLocation(p.TimeZone); err == nil && p.TimeZone != "" {
+		return l
+	}
+	return time.UTC
+}
+
+// Processes manages processes.
+type Processes interface {
+	AddProcess(ctx context.Context, actor string, p Process) (Process, error)
+	UpdateProcess(ctx context.Context, actor, reason string, p Process) (Process, error)
+	Processes(ctx context.Context, includeRetired bool) ([]Process, error)
+	Process(ctx context.Context, id int64) (Process, error)
+	ProcessByName(ctx context.Context, name string) (Process, error)
+}
+
+var ruleItem = regexp.MustCompile(`^(we[1-8]|nelson[1-8])$`)
+
+// CheckRules reports whether s is a rule set: "we" (Western Electric),
+// "nelson" (Nelson), "none", or a comma list of single rules such as
+// "we1,nelson3".
+func CheckRules(s string) error {
+	switch s {
+	case "we", "nelson", "none":
+		return nil
+	}
+	if s == "" {
+		return errors.New("is empty (want we, nelson, none or a list like we1,nelson3)")
+	}
+	for _, it := range strings.Split(s, ",") {
+		if !ruleItem.MatchString(it) {
+			return fmt.Errorf("has %q, which is not a rule (want we, nelson, none or a list like we1,nelson3)", it)
+		}
+	}
+	return nil
+}
+
+var reservedColumns = map[string]bool{lotcsv.ColLot: true, lotcsv.ColTime: true, lotcsv.ColShift: true,
+	lotcsv.ColInspected: true, lotcsv.ColDefective: true, lotcsv.ColDefects: true, lotcsv.ColInspector: true, lotcsv.ColNote: true}
+
+func checkText(field, v string, max int, trimmed bool) []Problem {
+	switch {
+	case !utf8.ValidString(v):
+		return []Problem{{Field: field, Value: strings.ToValidUTF8(v, "\uFFFD"), Reason: "is not valid UTF-8 text"}}
+	case len(v) > max:
+		return []Problem{{Field: field, Value: v[:32] + "…", Reason: fmt.Sprintf("is longer than %d bytes", max)}}
+	case trimmed && strings.TrimSpace(v) != v:
+		return []Problem{{Field: field, Value: v, Reason: "must not start or end with spaces"}}
+	case trimmed && strings.IndexFunc(v, unicode.IsControl) >= 0:
+		return []Problem{{Field: field, Value: v, Reason: "must not contain control characters (tabs, line breaks)"}}
+	case strings.IndexByte(v, 0) >= 0:
+		return []Problem{{Field: field, Value: strings.ReplaceAll(v, "\x00", `\0`), Reason: "must not contain NUL characters"}}
+	}
+	return nil
+}
+
+// normalize fills defaults and checks a process.
+func normalizeProcess(p *Process) []Problem {
+	var ps []Problem
+	if p.Name == "" {
+		ps = append(ps, Problem{Field: "name", Reason: "is empty"})
+	}
+	ps = append(ps, checkText("name", p.Name, 100, true)...)
+	ps = append(ps, checkText("description", p.Description, 4000, false)...)
+	if _, err := spc.ParseChart(string(p.Chart)); err != nil {
+		ps = append(ps, Problem{Field: "chart", Value: string(p.Chart), Reason: "is not p, np, u or c"})
+	}
+	if p.Method == "" {
+		p.Method = spc.MethodSigma
+	}
+	if _, err := spc.ParseMethod(string(p.Method)); err != nil {
+		ps = append(ps, Problem{Field: "limits", Value: string(p.Method), Reason: "is not sigma, exact or laney"})
+	}
+	if p.K == 0 {
+		p.K = 3 // Shewhart's three-sigma limits
+	}
+	if math.IsNaN(p.K) || p.K <= 0 || p.K > 10 {
+		ps = append(ps, Problem{Field: "sigma", Value: fmt.Sprint(p.K), Reason: "must be greater than 0 and at most 10"})
+	}
+	if p.Rules == "" {
+		p.Rules = "we"
+	}
+	if err := CheckRules(p.Rules); err != nil {
+		ps = append(ps, Problem{Field: "rules", Value: p.Rules, Reason: err.Error()})
+	}
+	if p.TimeZone == "" {
+		p.TimeZone = "UTC"
+	}
+	if _, err := loadLocation(p.TimeZone); err != nil || p.TimeZone == "Local" {
+		ps = append(ps, Problem{Field: "tz", Value: p.TimeZone, Reason: "is not an IANA time zone name (e.g. Europe/Berlin, America/Chicago, UTC)"})
+	}
+	seen := map[string]bool{}
+	for _, c := range p.Categories {
+		key := strings.ToLower(c)
+		switch {
+		case c == "":
+			ps = append(ps, Problem{Field: "categories", Reason: "has an empty category name"})
+		case strings.ContainsAny(c, ",\"") || strings.TrimSpace(c) != c || strings.IndexFunc(c, unicode.IsControl) >= 0 || !utf8.ValidString(c):
+			ps = append(ps, Problem{Field: "categories", Value: c, Reason: "must not contain commas, quotes or control characters, nor start or end with spaces"})
+		case reservedColumns[key]:
+			ps = append(ps, Problem{Field: "categories", Value: c, Reason: "is the name of a standard lot column"})
+		case seen[key]:
+			ps = append(ps, Problem{Field: "categories", Value: c, Reason: "is given twice"})
+		case len(c) > 64:
+			ps = append(ps, Problem{Field: "categories", Value: c, Reason: "is longer than 64 bytes"})
+		}
+		seen[key] = true
+	}
+	if p.Categories == nil {
+		p.Categories = []string{}
+	}
+	return ps
+}
+
+type processAudit struct {
+	Name        string    `json:"name"`
+	Description string    `json:"description"`
+	Chart       spc.Chart `json:"chart"`
+	Method      string    `json:"method"`
+	K           float64   `json:"k"`
+	Rules       string    `json:"rules"`
+	Categories  []string  `json:"categories"`
+	TimeZone    string    `json:"time_zone"`
+	Active      bool      `json:"active"`
+}
+
+func auditProcess(p Process) processAudit {
+	return processAudit{p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active}
+}
+
+// AddProcess creates an active process. Defaults: limits sigma, k 3,
+// rules "we", time zone UTC.
+func (db *DB) AddProcess(ctx context.Context, actor string, p Process) (Process, error) {
+	if ps := normalizeProcess(&p); len(ps) > 0 {
+		return Process{}, invalid(ps...)
+	}
+	p.Active = true
+	err := db.write(ctx, func(w *wtx) error {
+		np, err := w.addProcess(actor, p)
+		p = np
+		return err
+	})
+	if err != nil {
+		return Process{}, err
+	}
+	return p, nil
+}
+
+func (w *wtx) addProcess(actor string, p Process) (Process, error) {
+	cats, _ := json.Marshal(p.Categories)
+	p.Created = w.now.UTC()
+	res, err := w.Exec(`INSERT INTO processes (name, description, chart, method, k, rules, categories, time_zone, active, created)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`, p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, w.now.UnixNano())
+	if isUnique(err) {
+		return p, fmt.Errorf("process %q already exists: %w", p.Name, ErrConflict)
+	}
+	if err != nil {
+		return p, err
+	}
+	p.ID, _ = res.LastInsertId()
+	return p, w.audit(actor, "add", "process", p.ID, p.ID, nil, auditProcess(p), "")
+}
+
+// UpdateProcess changes a process (looked up by p.ID) and records why.
+// The chart type cannot change once lots are logged, and categories can
+// only be added (lots keep their counts by category name); retiring is
+// Active = false.
+func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process) (Process, error) {
+	if ps := normalizeProcess(&p); len(ps) > 0 {
+		return Process{}, invalid(ps...)
+	}
+	if strings.TrimSpace(reason) == "" {
+		return Process{}, invalid(Problem{Field: "reason", Reason: "is empty: say why the process changes"})
+	}
+	err := db.write(ctx, func(w *wtx) error {
+		old, err := processByID(w.Tx, p.ID)
+		if err != nil {
+			return err
+		}
+		p.Created = old.Created
+		if p.Chart != old.Chart {
+			var n int
+			if err := w.QueryRow("SELECT COUNT(*) FROM lots WHERE process_id = ?", p.ID).Scan(&n); err != nil {
+				return err
+			}
+			if n > 0 {
+				return invalid(Problem{Field: "chart", Value: string(p.Chart), Reason: fmt.Sprintf("cannot change from %s: the process has %d lots", old.Chart, n)})
+			}
+		}
+		have := map[string]bool{}
+		for _, c := range p.Categories {
+			have[c] = true
+		}
+		for _, c := range old.Categories {
+			if !have[c] {
+				return invalid(Problem{Field: "categories", Value: c, Reason: "cannot be removed or renamed: lots keep their counts under it"})
+			}
+		}
+		cats, _ := json.Marshal(p.Categories)
+		_, err = w.Exec(`UPDATE processes SET name = ?, description = ?, chart = ?, method = ?, k = ?, rules = ?, categories = ?, time_zone = ?, active = ? WHERE id = ?`,
+			p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, p.ID)
+		if isUnique(err) {
+			return fmt.Errorf("process %q already exists: %w", p.Name, ErrConflict)
+		}
+		if err != nil {
+			return err
+		}
+		return w.audit(actor, "update", "process", p.ID, p.ID, auditProcess(old), auditProcess(p), reason)
+	})
+	if err != nil {
+		return Process{}, err
+	}
+	return p, nil
+}
+
+const processCols = "id, name, description, chart, method, k, rules, categories, time_zone, active, created"
+
+type queryer interface {
+	QueryRow(query string, args ...any) *sql.Row
+}
+
+func scanProcess(s interface{ Scan(...any) error }) (Process, error) {
+	var p Process
+	var cats string
+	var created int64
+	if err := s.Scan(&p.ID, &p.Name, &p.Description, &p.Chart, &p.Method, &p.K, &p.Rules, &cats, &p.TimeZone, &p.Active, &created); err != nil {
+		return Process{}, err
+	}
+	if err := json.Unmarshal([]byte(cats), &p.Categories); err != nil {
+		return Process{}, fmt.Errorf("store: process %d: categories: %w", p.ID, err)
+	}
+	p.Created = fromNanos(created, time.UTC)
+	return p, nil
+}
+
+func processByID(q queryer, id int64) (Process, error) {
+	p, err := scanProcess(q.QueryRow("SELECT "+processCols+" FROM processes WHERE id = ?", id))
+	if errors.Is(err, sql.ErrNoRows) {
+		return Process{}, fmt.Errorf("process %d: %w", id, ErrNotFound)
+	}
+	return p, err
+}
+
+// Processes lists processes by name; retired ones only when asked.
+func (db *DB) Processes(ctx context.Context, includeRetired bool) ([]Process, error) {
+	q := "SELECT " + processCols + " FROM processes"
+	if !includeRetired {
+		q += " WHERE active = 1"
+	}
+	rows, err := db.r.QueryContext(ctx, q+" ORDER BY name")
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	var out []Process
+	for rows.Next() {
+		p, err := scanProcess(rows)
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, p)
+	}
+	return out, rows.Err()
+}
+
+// Process returns the process with the id, or ErrNotFound.
+func (db *DB) Process(ctx context.Context, id int64) (Process, error) {
+	p, err := scanProcess(db.r.QueryRowContext(ctx, "SELECT "+processCols+" FROM processes WHERE id = ?", id))
+	if errors.Is(err, sql.ErrNoRows) {
+		return Process{}, fmt.Errorf("process %d: %w", id, ErrNotFound)
+	}
+	return p, err
+}
+
+// ProcessByName returns the process with the name, or ErrNotFound.
+func (db *DB) ProcessByName(ctx context.Context, name string) (Process, error) {
+	p, err := scanProcess(db.r.QueryRowContext(ctx, "SELECT "+processCols+" FROM processes WHERE name = ?", name))
+	if errors.Is(err, sql.ErrNoRows) {
+		return Process{}, fmt.Errorf("process %q: %w", name, ErrNotFound)
+	}
+	return p, err
+}
