@@ -64,8 +64,8 @@ func tick(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) }
 // ParetoSVG draws the Pareto chart of bars: counts as bars, largest first,
 // with the cumulative percent as a line on a 0–100% scale at the right.
 func ParetoSVG(bars []spc.ParetoBar, title string) template.HTML {
-	const w, h = 640, 300
-	const left, right, top, bottom = 50.0, 50.0, 30.0, 90.0
+	const w, h = 640, 280
+	const left, right, top, bottom = 50.0, 50.0, 30.0, 70.0
 	var s svgWriter
 	s.open(w, h, title)
 	s.text(w/2, 18, "middle", "13", colourAxis, title, "")
