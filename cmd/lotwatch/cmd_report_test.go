@@ -159,3 +159,46 @@ func TestReportHelp(t *testing.T) {
 		}
 	}
 }
+
+func TestPlanFromProcess(t *testing.T) {
+	path := reportDB(t)
+	code, out, errs := runStats("plan", "--process", "housing", "--db", path, "--n", "400", "--p1", "0.06", "--format", "json")
+	if code != exitOK {
+		t.Fatalf("exit %d, stderr %s", code, errs)
+	}
+	var got struct {
+		P0       float64 `json:"p0"`
+		UCLCount int64   `json:"ucl_count"`
+		ARL0     float64 `json:"arl0"`
+		ARL1     float64 `json:"arl1"`
+		P0Source string  `json:"p0_source"`
+	}
+	if err := json.Unmarshal([]byte(out), &got); err != nil {
+		t.Fatal(err)
+	}
+	// No limit set frozen: p̄ = 42/2000 = 0.021 over the four lots. At
+	// n = 400, 3σ: n·UCL = 17.003, so 17 (hand arithmetic); ARL1 =
+	// 1/binom.sf(17, 400, 0.06) = 1.08762920015 and ARL0 =
+	// 1/binom.sf(17, 400, 0.021) = 421.489615557 (scipy.stats.binom).
+	if got.P0 != 0.021 || got.UCLCount != 17 || !strings.Contains(got.P0Source, "trial centre") {
+		t.Errorf("plan from process: %+v", got)
+	}
+	if math.Abs(got.ARL1-1.0876292001524368) > 1e-9 || math.Abs(got.ARL0/421.48961555725333-1) > 1e-9 {
+		t.Errorf("ARLs %v %v", got.ARL0, got.ARL1)
+	}
+	for _, c := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--process", "panel", "--db", path, "--n", "400"}, "u chart"},
+		{[]string{"--process", "housing", "--n", "400"}, "needs --db"},
+		{[]string{"--db", path, "--n", "400"}, "needs --process"},
+		{[]string{"--process", "housing", "--db", path, "--p0", "0.1", "--n", "400"}, "not both"},
+		{[]string{"--process", "nope", "--db", path, "--n", "400"}, `--process "nope"`},
+	} {
+		code, out, errs := runStats(append([]string{"plan"}, c.args...)...)
+		if code != exitUsage || out != "" || !strings.Contains(errs, c.want) {
+			t.Errorf("plan %v: exit %d, stdout %q, stderr %q; want exit 2 naming %q", c.args, code, out, errs, c.want)
+		}
+	}
+}
