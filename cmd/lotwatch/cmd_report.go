@@ -142,10 +142,7 @@ func runReport(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	case "json":
 		err = r.WriteJSON(&b)
 	default:
-		err = r.WriteText(&b)
-		if err == nil {
-			b.WriteString("\n" + caution)
-		}
+		err = r.WriteText(&b) // carries review.Caution, which covers caution
 	}
 	if err != nil {
 		fmt.Fprintf(stderr, "lotwatch report: %v\n", err)
