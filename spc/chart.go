@@ -222,6 +222,7 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 	minN, maxN := lots[0].Inspected, lots[0].Inspected
 	m := 0
 	excluding := len(cfg.Exclude) > 0
+	var excluded []bool // nil when no lot is excluded
 	for i := range lots {
 		l := &lots[i]
 		if err := CheckLot(cfg.Chart, l.Inspected, l.Count); err != nil {
@@ -231,7 +232,10 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 		maxN = max(maxN, l.Inspected)
 		allN += float64(l.Inspected)
 		if excluding && cfg.Exclude[l.ID] {
-			pts[i].Excluded = true
+			if excluded == nil {
+				excluded = make([]bool, len(lots))
+			}
+			excluded[i] = true
 			continue
 		}
 		sumN += float64(l.Inspected)
@@ -271,13 +275,13 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 	// point in one pass.
 	laney := cfg.Method == MethodLaney
 	var sigmaZ float64
-	var lclZero int
+	var cnt pointCounts
 	if laney {
 		var st stats
 		for i := range lots {
 			n := float64(lots[i].Inspected)
 			v, ctr, sig := model(cfg.Chart, rate, n, float64(lots[i].Count))
-			st.add(zOf(v-ctr, sig), !pts[i].Excluded)
+			st.add(zOf(v-ctr, sig), excluded == nil || !excluded[i])
 		}
 		a.SigmaZ = st.sigmaZ()
 		a.Dispersion.ChiSquare, a.Dispersion.DF = st.chi, st.df(cfg.Standard != nil)
@@ -287,14 +291,14 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 		} else if st.nmr == 0 {
 			return nil, errors.New("Laney limits need at least 2 lots in the baseline to estimate σ_z")
 		}
-		lclZero = finishPoints(a, lots, cfg, rate, sigmaZ, e, nil)
+		cnt = finishPoints(a, lots, excluded, maxN, cfg, rate, sigmaZ, e, nil)
 	} else {
 		var st stats
-		lclZero = finishPoints(a, lots, cfg, rate, 1, e, &st)
+		cnt = finishPoints(a, lots, excluded, maxN, cfg, rate, 1, e, &st)
 		a.SigmaZ = st.sigmaZ()
 		a.Dispersion.ChiSquare, a.Dispersion.DF = st.chi, st.df(cfg.Standard != nil)
 	}
-	diagnose(a, lots, cfg, minN, maxN, sigmaZ, lclZero)
+	diagnose(a, cfg, minN, maxN, sigmaZ, cnt)
 	return a, nil
 }
 
@@ -318,7 +322,13 @@ func model(ch Chart, rate, n, c float64) (v, ctr, sig float64) {
 func zOf(diff, sigma float64) float64 {
 	if sigma > 0 {
 		z := diff / sigma
-		return max(-ZLimit, min(ZLimit, z))
+		if z > ZLimit {
+			return ZLimit
+		}
+		if z < -ZLimit {
+			return -ZLimit
+		}
+		return z
 	}
 	switch {
 	case diff > 0:
@@ -372,69 +382,107 @@ func (s *stats) df(standard bool) int {
 // 1). When st is not nil the sigma-method z of the baseline lots are
 // accumulated into it. It returns the number of lots whose lower limit
 // is 0 in the chart's units.
-func finishPoints(a *Analysis, lots []Lot, cfg Config, rate, sz float64, e *ruleEngine, st *stats) (lclZero int) {
+func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Config, rate, sz float64, e *ruleEngine, st *stats) (cnt pointCounts) {
 	pts := a.Points
 	k := cfg.K
 	exact := cfg.Method == MethodExact
-	dc := newDistCache(cfg.Chart, rate, a.Alpha/2)
+	dc := newDistCache(cfg.Chart, rate, a.Alpha/2, maxN)
 	units := cfg.Chart.CountsUnits()
 	perUnit := cfg.Chart == ChartP || cfg.Chart == ChartU
 	stepping := e != nil && e.set != 0
 	for i := range pts {
-		p := &pts[i]
 		l := &lots[i]
-		n := float64(l.Inspected)
-		v, ctr, sig := model(cfg.Chart, rate, n, float64(l.Count))
+		// Write each field of the fresh point once and never read it
+		// back before: the slice is new memory.
+		q := &pts[i]
+		q.Lot = *l
+		q.Excluded = excluded != nil && excluded[i]
+		d := dc.get(l.Inspected)
+		if !d.ready {
+			// Everything that depends on the lot size alone, once per size.
+			n := float64(l.Inspected)
+			_, d.ctr, d.sig = model(cfg.Chart, rate, n, 0)
+			d.small = smallExpected(cfg.Chart, n, rate)
+			if exact {
+				d.limits()
+				d.uclV, d.lclV = float64(d.ucl), float64(d.lcl)
+				if perUnit {
+					d.uclV /= n
+					d.lclV /= n
+				}
+			} else {
+				s := d.sig * sz
+				d.uclV = d.ctr + k*s
+				d.lclV = max(0, d.ctr-k*s)
+				if units {
+					top := 1.0
+					if cfg.Chart == ChartNP {
+						top = n
+					}
+					d.uclV = min(d.uclV, top)
+				}
+			}
+			d.ready = true
+		}
+		v := float64(l.Count)
+		if perUnit {
+			v /= float64(l.Inspected)
+		}
+		ctr, sig := d.ctr, d.sig
 		z := zOf(v-ctr, sig)
 		if st != nil {
-			st.add(z, !p.Excluded)
+			st.add(z, !q.Excluded)
 		}
-		sig *= sz
+		if d.small {
+			cnt.small++
+		}
 		if sz != 1 {
+			sig *= sz
 			z = zOf(v-ctr, sig)
 		}
-		d := dc.get(l.Inspected)
-		var ucl, lcl float64
+		ucl, lcl := d.uclV, d.lclV
 		if exact {
-			d.limits()
-			ucl, lcl = float64(d.ucl), float64(d.lcl)
-			if perUnit {
-				ucl /= n
-				lcl /= n
-			}
-			p.Above = l.Count > d.ucl
-			p.Below = l.Count < d.lcl
+			q.Above = l.Count > d.ucl
+			q.Below = l.Count < d.lcl
 		} else {
-			ucl = ctr + k*sig
-			lcl = max(0, ctr-k*sig)
-			if units {
-				top := 1.0
-				if cfg.Chart == ChartNP {
-					top = n
-				}
-				ucl = min(ucl, top)
-			}
-			p.Above = v > ucl
-			p.Below = v < lcl
+			q.Above = v > ucl
+			q.Below = v < lcl
 		}
 		if lcl <= 0 {
-			lclZero++
+			cnt.lclZero++
 		}
-		p.Lot = *l
-		p.TailP = d.tail(l.Count)
+		q.TailP = d.tail(l.Count)
 		if cfg.Standardized {
 			if exact {
 				ucl, lcl = zOf(ucl-ctr, sig), zOf(lcl-ctr, sig)
 			} else {
 				ucl, lcl = k, -k
 			}
-			p.Value, p.Center, p.UCL, p.LCL, p.Sigma, p.Z = z, 0, ucl, lcl, 1, z
+			q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z = z, 0, ucl, lcl, 1, z
 		} else {
-			p.Value, p.Center, p.UCL, p.LCL, p.Sigma, p.Z = v, ctr, ucl, lcl, sig, z
+			q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z = v, ctr, ucl, lcl, sig, z
 		}
 		if stepping {
-			e.step(i, p, k)
+			e.step(i, q, k)
 		}
 	}
-	return lclZero
+	return cnt
+}
+
+// pointCounts are the per-lot diagnostics gathered while finishing points.
+type pointCounts struct {
+	lclZero int // lower limit 0 in the chart's units
+	small   int // expected counts too small for the normal approximation
+}
+
+// smallExpected reports nᵢp̄ < 5 or nᵢ(1−p̄) < 5 (p, np), nᵢū < 5 (u),
+// c̄ < 5 (c): common practice, no source.
+func smallExpected(ch Chart, n, r float64) bool {
+	switch ch {
+	case ChartP, ChartNP:
+		return n*r < minExpected || n*(1-r) < minExpected
+	case ChartU:
+		return n*r < minExpected
+	}
+	return r < minExpected
 }

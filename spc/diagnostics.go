@@ -66,7 +66,7 @@ func plural(n int, one, many string) string {
 
 // diagnose adds the warnings and the dispersion check. sigmaZ is the σ_z
 // in use for Laney limits (0 otherwise).
-func diagnose(a *Analysis, lots []Lot, cfg Config, minN, maxN int64, sigmaZ float64, lclZero int) {
+func diagnose(a *Analysis, cfg Config, minN, maxN int64, sigmaZ float64, cnt pointCounts) {
 	ch, r, k := cfg.Chart, a.Rate, cfg.K
 	if minN != maxN {
 		switch ch {
@@ -92,25 +92,7 @@ func diagnose(a *Analysis, lots []Lot, cfg Config, minN, maxN int64, sigmaZ floa
 			"Only %s in the baseline; trial limits are usually set from 20 to 25 lots, so these limits are rough (common practice, no source).", plural(a.Baseline, "lot", "lots"))})
 	}
 
-	// Small expected counts and zero lower limits.
-	small := 0
-	for i := range a.Points {
-		n := float64(lots[i].Inspected)
-		switch ch {
-		case ChartP, ChartNP:
-			if n*r < minExpected || n*(1-r) < minExpected {
-				small++
-			}
-		case ChartU:
-			if n*r < minExpected {
-				small++
-			}
-		default:
-			if r < minExpected {
-				small++
-			}
-		}
-	}
+	small, lclZero := cnt.small, cnt.lclZero
 	if small > 0 && cfg.Method != MethodExact && !zeroSpread {
 		rule := "n·p̄ or n·(1−p̄) below 5"
 		switch ch {

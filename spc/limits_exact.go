@@ -10,12 +10,20 @@ type distCache struct {
 	rate   float64
 	alpha2 float64
 	byN    map[int64]*countDist
+	dense  []*countDist // indexed by lot size when the largest is small
 	lastN  int64
 	last   *countDist
 }
 
-func newDistCache(ch Chart, rate, alpha2 float64) *distCache {
-	return &distCache{chart: ch, rate: rate, alpha2: alpha2, byN: make(map[int64]*countDist), lastN: -1}
+// denseSizes is the largest lot size indexed directly rather than hashed.
+const denseSizes = 1 << 16
+
+func newDistCache(ch Chart, rate, alpha2 float64, maxN int64) *distCache {
+	c := &distCache{chart: ch, rate: rate, alpha2: alpha2, byN: make(map[int64]*countDist), lastN: -1}
+	if ch != ChartC && maxN < denseSizes {
+		c.dense = make([]*countDist, maxN+1)
+	}
+	return c
 }
 
 // get returns the count distribution of a lot of n inspected.
@@ -26,6 +34,11 @@ func (c *distCache) get(n int64) *countDist {
 	}
 	if key == c.lastN {
 		return c.last
+	}
+	if key < int64(len(c.dense)) {
+		if d := c.dense[key]; d != nil {
+			return d
+		}
 	}
 	d := c.byN[key]
 	if d == nil {
@@ -43,6 +56,9 @@ func (c *distCache) get(n int64) *countDist {
 			d.sd = math.Sqrt(d.mean)
 		}
 		c.byN[key] = d
+		if key < int64(len(c.dense)) {
+			c.dense[key] = d
+		}
 	}
 	c.last, c.lastN = d, key
 	return d

@@ -87,9 +87,9 @@ func TestExactLimitsReference(t *testing.T) {
 		// SciPy binom/poisson sf and cdf searched directly (engine_reference.py)
 		var d *countDist
 		if c.Dist == "binomial" {
-			d = newDistCache(ChartNP, c.P, AlphaForK(c.K)/2).get(c.N)
+			d = newDistCache(ChartNP, c.P, AlphaForK(c.K)/2, c.N).get(c.N)
 		} else {
-			d = newDistCache(ChartC, c.Lambda, AlphaForK(c.K)/2).get(1)
+			d = newDistCache(ChartC, c.Lambda, AlphaForK(c.K)/2, 1).get(1)
 		}
 		d.limits()
 		if d.ucl != c.UCL || d.lcl != c.LCL {

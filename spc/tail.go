@@ -18,6 +18,14 @@ type countDist struct {
 
 	lcl, ucl int64 // exact limits; lcl < 0 until computed
 
+	// Per lot size, filled by finishPoints once ready is set: centre and
+	// σᵢ of the plotted statistic, the limits in plotted units, and
+	// whether the expected counts are too small for normal limits.
+	ready      bool
+	ctr, sig   float64
+	uclV, lclV float64
+	small      bool
+
 	tailLo int64     // tails[i] is the TailP of count tailLo+i
 	tails  []float64 // NaN until computed; nil until first use
 	noWin  bool      // window too wide to cache
@@ -86,6 +94,15 @@ func (d *countDist) tailDirect(count int64) float64 {
 
 // tail returns tailDirect(count), cached per count near the mean.
 func (d *countDist) tail(count int64) float64 {
+	if i := uint64(count - d.tailLo); i < uint64(len(d.tails)) {
+		if t := d.tails[i]; t == t {
+			return t
+		}
+	}
+	return d.tailSlow(count)
+}
+
+func (d *countDist) tailSlow(count int64) float64 {
 	if d.tails == nil && !d.noWin {
 		lo := max(0, int64(math.Floor(d.mean-12*d.sd-16)))
 		hi := int64(math.Ceil(d.mean + 12*d.sd + 16))
