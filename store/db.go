@@ -134,6 +134,7 @@ func Open(path string) (*DB, error) {
 	rparams.Set("_busy_timeout", "10000")
 	rparams.Set("_foreign_keys", "on")
 	rparams.Set("_query_only", "1")
+	rparams.Set("_cache_size", "-16384") // KiB: 16 MiB per reader
 	r, err := sql.Open("sqlite3", dsn(path, rparams.Encode()))
 	if err != nil {
 		w.Close()

@@ -1,6 +1,7 @@
 package store
 
 import (
+	"bytes"
 	"context"
 	"crypto/sha256"
 	"database/sql"
@@ -8,7 +9,9 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"maps"
 	"sort"
+	"strconv"
 	"strings"
 	"time"
 
@@ -131,13 +134,46 @@ func validateLot(p Process, in LotInput, now time.Time) []Problem {
 	return ps
 }
 
-// encodeCategories is the stored form: JSON with sorted keys, "" for none.
+// encodeCategories is the stored form: a JSON object with sorted keys,
+// "" for none. Plain names are written directly (this runs once per
+// imported lot); others go through encoding/json.
 func encodeCategories(m map[string]int64) string {
 	if len(m) == 0 {
 		return ""
 	}
-	b, _ := json.Marshal(m) // sorts the keys
-	return string(b)
+	var keys [16]string
+	ks := keys[:0]
+	for k := range m {
+		if !plainKey(k) {
+			b, _ := json.Marshal(m)
+			return string(b)
+		}
+		ks = append(ks, k)
+	}
+	sort.Strings(ks)
+	buf := make([]byte, 0, 16*len(ks)+2)
+	buf = append(buf, '{')
+	for i, k := range ks {
+		if i > 0 {
+			buf = append(buf, ',')
+		}
+		buf = append(buf, '"')
+		buf = append(buf, k...)
+		buf = append(buf, '"', ':')
+		buf = strconv.AppendInt(buf, m[k], 10)
+	}
+	buf = append(buf, '}')
+	return string(buf)
+}
+
+func plainKey(k string) bool {
+	for i := 0; i < len(k); i++ {
+		c := k[i]
+		if c < 0x20 || c >= 0x7f || c == '"' || c == '\\' || c == '<' || c == '>' || c == '&' {
+			return false
+		}
+	}
+	return k != ""
 }
 
 func decodeCategories(s string) (map[string]int64, error) {
@@ -147,6 +183,66 @@ func decodeCategories(s string) (map[string]int64, error) {
 	m := map[string]int64{}
 	err := json.Unmarshal([]byte(s), &m)
 	return m, err
+}
+
+// decodeCategoriesInto fills m (cleared) from the stored form b, naming
+// the keys with the strings of names where they match (no allocation per
+// lot); anything unusual goes through encoding/json.
+func decodeCategoriesInto(m map[string]int64, b []byte, names []string) error {
+	clear(m)
+	if len(b) < 2 || b[0] != '{' || b[len(b)-1] != '}' {
+		return json.Unmarshal(b, &m)
+	}
+	i := 1
+	for i < len(b)-1 {
+		if b[i] != '"' {
+			return json.Unmarshal(b, &m)
+		}
+		j := i + 1
+		for j < len(b) && b[j] != '"' && b[j] != '\\' {
+			j++
+		}
+		if j+1 >= len(b) || b[j] != '"' || b[j+1] != ':' {
+			clear(m)
+			return json.Unmarshal(b, &m)
+		}
+		key := b[i+1 : j]
+		neg := false
+		j += 2
+		if j < len(b) && b[j] == '-' {
+			neg = true
+			j++
+		}
+		start := j
+		var n int64
+		for j < len(b) && b[j] >= '0' && b[j] <= '9' {
+			n = n*10 + int64(b[j]-'0')
+			j++
+		}
+		if j == start || j-start > 18 {
+			clear(m)
+			return json.Unmarshal(b, &m)
+		}
+		if neg {
+			n = -n
+		}
+		name := ""
+		for _, nm := range names {
+			if nm == string(key) {
+				name = nm
+				break
+			}
+		}
+		if name == "" {
+			name = string(key)
+		}
+		m[name] = n
+		if b[j] == ',' {
+			j++
+		}
+		i = j
+	}
+	return nil
 }
 
 // lotContent is the canonical content of a lot for the audit trail.
@@ -239,6 +335,29 @@ type lotAdder struct {
 	first  int64
 	last   int64
 	n      int
+	buf    []byte
+}
+
+// appendCanonical appends the canonical line of a lot for the digest of a
+// batch: its fields in a fixed order, NUL-separated, times as nanoseconds
+// since 1970, categories in their stored form, ending in a newline.
+func appendCanonical(b []byte, in *LotInput) []byte {
+	b = append(b, in.Lot...)
+	b = append(b, 0)
+	b = strconv.AppendInt(b, in.Time.UnixNano(), 10)
+	b = append(b, 0)
+	b = append(b, in.Shift...)
+	b = append(b, 0)
+	b = strconv.AppendInt(b, in.Inspected, 10)
+	b = append(b, 0)
+	b = strconv.AppendInt(b, in.Count, 10)
+	b = append(b, 0)
+	b = append(b, encodeCategories(in.Categories)...)
+	b = append(b, 0)
+	b = append(b, in.Inspector...)
+	b = append(b, 0)
+	b = append(b, in.Note...)
+	return append(b, '\n')
 }
 
 type hashWriter interface {
@@ -281,9 +400,8 @@ func (a *lotAdder) add(in *LotInput) (id int64, added bool, err error) {
 	}
 	a.last = id
 	a.n++
-	b, _ := json.Marshal(contentOf(*in, false))
-	a.h.Write(b)
-	a.h.Write([]byte{'\n'})
+	a.buf = appendCanonical(a.buf[:0], in)
+	a.h.Write(a.buf)
 	return id, true, nil
 }
 
@@ -294,8 +412,9 @@ func (a *lotAdder) stored(code string) (Lot, error) {
 }
 
 // finish writes the audit entry of the lots added: the ids, their number
-// and the SHA-256 over their canonical content (one JSON line each);
-// small batches carry the full content.
+// and the SHA-256 over their canonical content;
+// small batches carry the full content. The digest is over the lines of
+// appendCanonical, in id order.
 func (a *lotAdder) finish(how string, lots []LotInput, extra map[string]any) error {
 	if a.n == 0 {
 		return nil
@@ -404,6 +523,7 @@ func (db *DB) AddLots(ctx context.Context, actor string, processID int64, in []L
 func (db *DB) Lots(ctx context.Context, processID int64, from, to time.Time) ([]Lot, error) {
 	var out []Lot
 	err := db.EachLot(ctx, processID, from, to, func(l Lot) error {
+		l.Categories = maps.Clone(l.Categories)
 		out = append(out, l)
 		return nil
 	})
@@ -411,9 +531,12 @@ func (db *DB) Lots(ctx context.Context, processID int64, from, to time.Time) ([]
 }
 
 // EachLot calls fn with each lot that Lots would return, streaming, so
-// memory does not grow with the number of lots. fn may keep the Lot (each
-// has its own Categories map); an error from fn stops the walk and is
-// returned.
+// memory does not grow with the number of lots. For speed the Lot passed
+// to fn reuses its Categories map between calls: fn must copy the map
+// (maps.Clone) to keep it. An error from fn stops the walk and is returned.
+//
+// The text fields travel from SQLite as one NUL-joined column (fewer
+// column fetches per row); lotwatch never stores NUL in them (checkText).
 func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, fn func(Lot) error) error {
 	p, err := db.Process(ctx, processID)
 	if err != nil {
@@ -427,7 +550,8 @@ func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, 
 	if !to.IsZero() {
 		hi = to.UnixNano() - 1
 	}
-	rows, err := db.r.QueryContext(ctx, `SELECT id, lot, time, shift, inspected, count, categories, inspector, note, revision, recorded, recorded_by, reason
+	rows, err := db.r.QueryContext(ctx, `SELECT id, time, inspected, count, revision, recorded,
+		lot || char(0) || shift || char(0) || inspector || char(0) || note || char(0) || recorded_by || char(0) || reason || char(0) || categories
 		FROM lots WHERE process_id = ? AND time BETWEEN ? AND ? AND voided = 0 ORDER BY time, id`, processID, lo, hi)
 	if err != nil {
 		return err
@@ -435,26 +559,67 @@ func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, 
 	defer rows.Close()
 	var l Lot
 	var t, rec int64
-	var cats sql.RawBytes
+	var packed sql.RawBytes
 	l.ProcessID = processID
+	cats := map[string]int64{}
+	words := newInterner()
 	for rows.Next() {
-		if err := rows.Scan(&l.ID, &l.Lot, &t, &l.Shift, &l.Inspected, &l.Count, &cats, &l.Inspector, &l.Note, &l.Revision, &rec, &l.RecordedBy, &l.Reason); err != nil {
+		if err := rows.Scan(&l.ID, &t, &l.Inspected, &l.Count, &l.Revision, &rec, &packed); err != nil {
 			return err
 		}
+		var f [7][]byte
+		rest := packed
+		for i := 0; i < 6; i++ {
+			k := bytes.IndexByte(rest, 0)
+			if k < 0 {
+				return fmt.Errorf("store: lot %d: unexpected NUL in its text", l.ID)
+			}
+			f[i], rest = rest[:k], rest[k+1:]
+		}
+		f[6] = rest
+		if bytes.IndexByte(rest, 0) >= 0 {
+			return fmt.Errorf("store: lot %d: unexpected NUL in its text", l.ID)
+		}
+		l.Lot = string(f[0])
+		l.Shift = words.get(f[1])
+		l.Inspector = words.get(f[2])
+		l.Note = words.get(f[3])
+		l.RecordedBy = words.get(f[4])
+		l.Reason = words.get(f[5])
 		l.Time = time.Unix(0, t).In(loc)
 		l.Recorded = time.Unix(0, rec).In(loc)
 		l.Categories = nil
-		if len(cats) > 0 {
-			l.Categories = map[string]int64{}
-			if err := json.Unmarshal(cats, &l.Categories); err != nil {
+		if len(f[6]) > 0 {
+			if err := decodeCategoriesInto(cats, f[6], p.Categories); err != nil {
 				return fmt.Errorf("store: lot %d: categories: %w", l.ID, err)
 			}
+			l.Categories = cats
 		}
 		if err := fn(l); err != nil {
 			return err
 		}
 	}
 	return rows.Err()
+}
+
+// interner shares the strings of short, repeating fields (shift,
+// inspector, …) so a long walk allocates each once.
+type interner struct{ m map[string]string }
+
+func newInterner() *interner { return &interner{m: map[string]string{}} }
+
+func (in *interner) get(b []byte) string {
+	if len(b) == 0 {
+		return ""
+	}
+	if s, ok := in.m[string(b)]; ok {
+		return s
+	}
+	s := string(b)
+	if len(in.m) < 4096 && len(b) <= 64 {
+		in.m[s] = s
+	}
+	return s
 }
 
 // LotByID returns a lot in its current revision (voided or not).

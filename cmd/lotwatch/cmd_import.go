@@ -1,0 +1,151 @@
+package main
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"os"
+	"time"
+
+	"golang.org/x/term"
+
+	"lotwatch/store"
+)
+
+func init() {
+	register(command{
+		name:    "import",
+		summary: "read a CSV file of lots into a process (all or nothing)",
+		run:     runImport,
+	})
+}
+
+const importHelp = `Usage: lotwatch import --db FILE --process NAME [options] FILE.csv
+
+Reads a CSV file of lots into a process. The whole file is checked first:
+if any row is wrong, every problem is listed with its line and nothing is
+written. Importing the same file again adds nothing; a lot code already
+stored with other values is reported as a conflict and left as it is.
+
+Columns (header names in any letter case, in any order):
+  lot        the lot code (required; unique within the process)
+  inspected  units inspected (required; a whole number above 0)
+  defective  nonconforming units, for p and np charts   } exactly one
+  defects    defects found, for u and c charts          } of these two
+  time       RFC 3339 (2025-03-05T14:30:00+01:00), or YYYY-MM-DD HH:MM in
+             the process's time zone; without it the lot gets the import time
+  shift, inspector, note   optional text
+  any other column named like one of the process's defect categories holds
+  that category's count; other columns are ignored
+The file may be UTF-8 with or without a byte-order mark, with CRLF line
+ends and quoted fields. A leading single quote that lotwatch's export put
+before text starting with = + - @ tab or CR is removed again.
+
+Options:
+  --db FILE        the lotwatch database file
+  --process NAME   the process the lots belong to
+  --create         make the process if it does not exist: a p chart for a
+                   defective column, a u chart for defects, its defect
+                   categories from the extra columns
+  --tz ZONE        time zone of a process made with --create (default UTC)
+  --as NAME        the name recorded in the audit trail (default: your user
+                   name on this computer)
+FILE.csv is the file to read; - reads standard input.
+
+Exit status: 0 when imported (a summary of lots added, unchanged and in
+conflict is printed), 2 for bad input (each problem on standard error as
+FILE:LINE: column, value and reason; nothing written), 1 when the database
+fails. A progress line is shown on a terminal for long files.
+`
+
+func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
+	fs := cliFlags("import")
+	dbPath := fs.String("db", "", "")
+	process := fs.String("process", "", "")
+	create := fs.Bool("create", false, "")
+	tz := fs.String("tz", "UTC", "")
+	as := fs.String("as", "", "")
+	pos, code, done := cliParse(fs, args, importHelp, stdout, stderr)
+	if done {
+		return code
+	}
+	probs := cliRequire("import", "db", *dbPath, "process", *process)
+	switch len(pos) {
+	case 0:
+		probs = append(probs, "name the CSV file to read (or - for standard input)")
+	case 1:
+	default:
+		probs = append(probs, fmt.Sprintf("one file at a time: unexpected argument %q", pos[1]))
+	}
+	if len(probs) > 0 {
+		return cliProblems(stderr, "import", probs...)
+	}
+	file := pos[0]
+	in := stdin
+	name := file
+	if file == "-" {
+		name = "stdin"
+	} else {
+		f, err := os.Open(file)
+		if err != nil {
+			return cliProblems(stderr, "import", fmt.Sprintf("%s: cannot read the file: %v", file, err))
+		}
+		defer f.Close()
+		in = f
+	}
+	db, code, ok := cliOpen(stderr, "import", *dbPath)
+	if !ok {
+		return code
+	}
+	defer db.Close()
+	opt := store.ImportOptions{Process: *process, Create: *create, TimeZone: *tz}
+	var progressShown bool
+	if f, ok := stderr.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
+		last := time.Now()
+		opt.Progress = func(rows int, bytes int64) {
+			if time.Since(last) < 200*time.Millisecond {
+				return
+			}
+			last = time.Now()
+			progressShown = true
+			fmt.Fprintf(stderr, "\r%s: %d rows read (%.1f MB)…", name, rows, float64(bytes)/1e6)
+		}
+	}
+	res, err := db.Import(context.Background(), cliActor(*as), in, opt)
+	if progressShown {
+		fmt.Fprint(stderr, "\r\033[K")
+	}
+	if err != nil {
+		return cliStoreError(stderr, "import", name, err)
+	}
+	if res.Created {
+		fmt.Fprintf(stdout, "created process %q: %s chart, categories %v, time zone %s\n", res.Process.Name, res.Process.Chart, res.Process.Categories, res.Process.TimeZone)
+	}
+	nc := len(res.Conflicts) + res.MoreConflicts
+	fmt.Fprintf(stdout, "%s: %d rows, %d added, %d unchanged, %d %s\n", name, res.Rows, res.Added, res.Unchanged, nc, plural(nc, "conflict", "conflicts"))
+	for _, c := range res.Conflicts {
+		fmt.Fprintf(stdout, "conflict: %s:%d: lot %q is stored with other values (%v); the stored lot is kept\n", name, c.Line, c.Lot, joinFields(c.Fields))
+	}
+	if res.MoreConflicts > 0 {
+		fmt.Fprintf(stdout, "conflict: … and %d more\n", res.MoreConflicts)
+	}
+	return exitOK
+}
+
+func plural(n int, one, many string) string {
+	if n == 1 {
+		return one
+	}
+	return many
+}
+
+func joinFields(fs []string) string {
+	s := ""
+	for i, f := range fs {
+		if i > 0 {
+			s += ", "
+		}
+		s += f
+	}
+	return s
+}

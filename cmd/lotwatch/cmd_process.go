@@ -1,0 +1,331 @@
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"os/user"
+	"strconv"
+	"strings"
+	"text/tabwriter"
+	"time"
+
+	"lotwatch/spc"
+	"lotwatch/store"
+)
+
+func init() {
+	register(command{
+		name:    "process",
+		summary: "add or list the processes (one control chart each)",
+		run:     runProcess,
+	})
+}
+
+const processHelp = `Usage:
+  lotwatch process add --db FILE --name NAME [options]
+  lotwatch process list --db FILE [--format text|json]
+
+A process is one inspection point whose lots make one control chart.
+
+Options of "add":
+  --db FILE          the lotwatch database file (created if missing)
+  --name NAME        the process name, unique in the database
+  --chart KIND       p (fraction nonconforming, the default), np (number
+                     nonconforming, constant lot size), u (defects per unit)
+                     or c (defects per lot, constant lot size)
+  --categories LIST  defect categories counted per lot, comma-separated,
+                     e.g. dent,scratch,burr (each becomes a column of the
+                     lot file)
+  --tz ZONE          the plant's time zone, an IANA name such as
+                     Europe/Berlin (default UTC); lot times written without
+                     an offset are read in it
+  --description TEXT what the process is
+  --limits METHOD    how control limits are computed: sigma (centre ± k·σ,
+                     the default), exact (binomial or Poisson quantiles) or
+                     laney (Laney p′/u′ for overdispersed data)
+  --sigma K          k, the width of the limits in sigmas (default 3)
+  --rules SET        run rules: we (Western Electric, the default), nelson,
+                     none, or a list such as we1,nelson3
+  --as NAME          the name recorded in the audit trail (default: your
+                     user name on this computer)
+
+Options of "list":
+  --db FILE          the lotwatch database file
+  --all              include retired processes
+  --format F         text (the default) or json
+
+Exit status: 0 when done, 2 for bad input (each problem on standard error,
+nothing on standard output), 1 when the database fails.
+`
+
+// cliFlags makes a flag set that reports to stderr only through cliUsage.
+func cliFlags(name string) *flag.FlagSet {
+	fs := flag.NewFlagSet(name, flag.ContinueOnError)
+	fs.SetOutput(io.Discard)
+	return fs
+}
+
+// cliParse parses flags anywhere among the arguments and returns the
+// positional ones ("-" counts as positional; "--" ends the flags). For -h
+// it prints help on stdout and returns done with exitOK; for a bad flag it
+// prints one line on stderr and returns done with exitUsage.
+func cliParse(fs *flag.FlagSet, args []string, help string, stdout, stderr io.Writer) (pos []string, code int, done bool) {
+	for {
+		if err := fs.Parse(args); err != nil {
+			if errors.Is(err, flag.ErrHelp) {
+				fmt.Fprint(stdout, help)
+				return nil, exitOK, true
+			}
+			fmt.Fprintf(stderr, "lotwatch %s: %v (run \"lotwatch %s -h\" for the options)\n", fs.Name(), err, strings.Fields(fs.Name())[0])
+			return nil, exitUsage, true
+		}
+		rest := fs.Args()
+		if len(rest) == 0 {
+			return pos, 0, false
+		}
+		if len(args) > 0 && len(rest) < len(args) && args[len(args)-len(rest)-1] == "--" {
+			return append(pos, rest...), 0, false
+		}
+		pos = append(pos, rest[0])
+		args = rest[1:]
+	}
+}
+
+// cliProblems prints one line per problem and returns exitUsage.
+func cliProblems(stderr io.Writer, cmd string, lines ...string) int {
+	for _, l := range lines {
+		fmt.Fprintf(stderr, "lotwatch %s: %s\n", cmd, l)
+	}
+	return exitUsage
+}
+
+// cliRequire reports the required flags left empty.
+func cliRequire(cmd string, pairs ...string) []string {
+	var out []string
+	for i := 0; i+1 < len(pairs); i += 2 {
+		if pairs[i+1] == "" {
+			out = append(out, fmt.Sprintf("--%s is required", pairs[i]))
+		}
+	}
+	return out
+}
+
+// cliActor is the name recorded in the audit trail for a change made from
+// the command line: --as, else the operating-system user.
+func cliActor(as string) string {
+	if as != "" {
+		return as
+	}
+	if u, err := user.Current(); err == nil && u.Username != "" {
+		return u.Username
+	}
+	if n := os.Getenv("USER"); n != "" {
+		return n
+	}
+	return "cli"
+}
+
+// cliStoreError prints a store error. Bad input (invalid, unknown,
+// conflicting) gives exitUsage with one line per problem; anything else
+// exitFail.
+func cliStoreError(stderr io.Writer, cmd, file string, err error) int {
+	var ve *store.ValidationError
+	if errors.As(err, &ve) {
+		for _, p := range ve.Problems {
+			fmt.Fprintf(stderr, "lotwatch %s: %s\n", cmd, cliProblem(file, p))
+		}
+		if ve.More > 0 {
+			fmt.Fprintf(stderr, "lotwatch %s: … and %d more\n", cmd, ve.More)
+		}
+		return exitUsage
+	}
+	fmt.Fprintf(stderr, "lotwatch %s: %v\n", cmd, err)
+	if errors.Is(err, store.ErrNotFound) || errors.Is(err, store.ErrConflict) || errors.Is(err, store.ErrInvalid) || errors.Is(err, store.ErrNewerSchema) {
+		return exitUsage
+	}
+	return exitFail
+}
+
+// cliProblem formats a problem as FILE:LINE: column C, value "V": reason.
+func cliProblem(file string, p store.Problem) string {
+	var b strings.Builder
+	if file != "" {
+		b.WriteString(file)
+		if p.Line > 0 {
+			fmt.Fprintf(&b, ":%d", p.Line)
+		}
+		b.WriteString(": ")
+	} else if p.Line > 0 {
+		fmt.Fprintf(&b, "line %d: ", p.Line)
+	}
+	if p.Field != "" {
+		fmt.Fprintf(&b, "%s %s", map[bool]string{true: "column", false: "option"}[file != ""], p.Field)
+		if p.Value != "" {
+			fmt.Fprintf(&b, ", value %q", p.Value)
+		}
+		b.WriteString(": ")
+	} else if p.Value != "" {
+		fmt.Fprintf(&b, "value %q: ", p.Value)
+	}
+	b.WriteString(p.Reason)
+	return b.String()
+}
+
+// cliOpen opens the database or prints why not.
+func cliOpen(stderr io.Writer, cmd, path string) (*store.DB, int, bool) {
+	db, err := store.Open(path)
+	if err != nil {
+		return nil, cliStoreError(stderr, cmd, "", err), false
+	}
+	return db, 0, true
+}
+
+func runProcess(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
+	if len(args) == 0 {
+		return cliProblems(stderr, "process", `say "add" or "list" (run "lotwatch process -h" for the options)`)
+	}
+	switch args[0] {
+	case "-h", "--help", "help":
+		fmt.Fprint(stdout, processHelp)
+		return exitOK
+	case "add":
+		return runProcessAdd(args[1:], stdout, stderr)
+	case "list":
+		return runProcessList(args[1:], stdout, stderr)
+	}
+	return cliProblems(stderr, "process", fmt.Sprintf("unknown action %q: say add or list", args[0]))
+}
+
+func runProcessAdd(args []string, stdout, stderr io.Writer) int {
+	fs := cliFlags("process add")
+	dbPath := fs.String("db", "", "")
+	name := fs.String("name", "", "")
+	chart := fs.String("chart", "p", "")
+	cats := fs.String("categories", "", "")
+	tz := fs.String("tz", "UTC", "")
+	desc := fs.String("description", "", "")
+	limits := fs.String("limits", "sigma", "")
+	sigma := fs.String("sigma", "3", "")
+	rules := fs.String("rules", "we", "")
+	as := fs.String("as", "", "")
+	pos, code, done := cliParse(fs, args, processHelp, stdout, stderr)
+	if done {
+		return code
+	}
+	probs := cliRequire("process add", "db", *dbPath, "name", *name)
+	if len(pos) > 0 {
+		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
+	}
+	p := store.Process{Name: *name, Description: *desc, Rules: *rules, TimeZone: *tz}
+	if c, err := spc.ParseChart(*chart); err != nil {
+		probs = append(probs, fmt.Sprintf("--chart %q: want p, np, u or c", *chart))
+	} else {
+		p.Chart = c
+	}
+	if m, err := spc.ParseMethod(*limits); err != nil {
+		probs = append(probs, fmt.Sprintf("--limits %q: want sigma, exact or laney", *limits))
+	} else {
+		p.Method = m
+	}
+	if k, err := strconv.ParseFloat(*sigma, 64); err != nil || !(k > 0 && k <= 10) {
+		probs = append(probs, fmt.Sprintf("--sigma %q: want a number greater than 0 and at most 10", *sigma))
+	} else {
+		p.K = k
+	}
+	if _, err := time.LoadLocation(*tz); err != nil || *tz == "" || *tz == "Local" {
+		probs = append(probs, fmt.Sprintf("--tz %q: want an IANA time zone name such as Europe/Berlin or UTC", *tz))
+	}
+	if *cats != "" {
+		for _, c := range strings.Split(*cats, ",") {
+			p.Categories = append(p.Categories, strings.TrimSpace(c))
+		}
+	}
+	if len(probs) > 0 {
+		return cliProblems(stderr, "process add", probs...)
+	}
+	db, code, ok := cliOpen(stderr, "process add", *dbPath)
+	if !ok {
+		return code
+	}
+	defer db.Close()
+	p, err := db.AddProcess(context.Background(), cliActor(*as), p)
+	if err != nil {
+		return cliStoreError(stderr, "process add", "", err)
+	}
+	fmt.Fprintf(stdout, "added process %q (id %d): %s chart, limits %s k=%g, rules %s, categories [%s], time zone %s\n",
+		p.Name, p.ID, p.Chart, p.Method, p.K, p.Rules, strings.Join(p.Categories, ", "), p.TimeZone)
+	return exitOK
+}
+
+type processJSON struct {
+	ID          int64     `json:"id"`
+	Name        string    `json:"name"`
+	Description string    `json:"description"`
+	Chart       spc.Chart `json:"chart"`
+	Limits      string    `json:"limits"`
+	Sigma       float64   `json:"sigma"`
+	Rules       string    `json:"rules"`
+	Categories  []string  `json:"categories"`
+	TimeZone    string    `json:"tz"`
+	Active      bool      `json:"active"`
+	Created     string    `json:"created"`
+}
+
+func runProcessList(args []string, stdout, stderr io.Writer) int {
+	fs := cliFlags("process list")
+	dbPath := fs.String("db", "", "")
+	all := fs.Bool("all", false, "")
+	format := fs.String("format", "text", "")
+	pos, code, done := cliParse(fs, args, processHelp, stdout, stderr)
+	if done {
+		return code
+	}
+	probs := cliRequire("process list", "db", *dbPath)
+	if *format != "text" && *format != "json" {
+		probs = append(probs, fmt.Sprintf("--format %q: want text or json", *format))
+	}
+	if len(pos) > 0 {
+		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
+	}
+	if len(probs) > 0 {
+		return cliProblems(stderr, "process list", probs...)
+	}
+	if _, err := os.Stat(*dbPath); err != nil {
+		return cliProblems(stderr, "process list", fmt.Sprintf("--db %s: no such database file", *dbPath))
+	}
+	db, code, ok := cliOpen(stderr, "process list", *dbPath)
+	if !ok {
+		return code
+	}
+	defer db.Close()
+	ps, err := db.Processes(context.Background(), *all)
+	if err != nil {
+		return cliStoreError(stderr, "process list", "", err)
+	}
+	if *format == "json" {
+		out := make([]processJSON, 0, len(ps))
+		for _, p := range ps {
+			out = append(out, processJSON{p.ID, p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Created.Format("2006-01-02T15:04:05Z07:00")})
+		}
+		enc := json.NewEncoder(stdout)
+		enc.SetIndent("", "  ")
+		enc.Encode(out)
+		return exitOK
+	}
+	tw := tabwriter.NewWriter(stdout, 0, 4, 2, ' ', 0)
+	fmt.Fprintln(tw, "NAME\tCHART\tLIMITS\tRULES\tCATEGORIES\tTIME ZONE\tSTATE")
+	for _, p := range ps {
+		state := "active"
+		if !p.Active {
+			state = "retired"
+		}
+		fmt.Fprintf(tw, "%s\t%s\t%s k=%g\t%s\t%s\t%s\t%s\n", p.Name, p.Chart, p.Method, p.K, p.Rules, strings.Join(p.Categories, ","), p.TimeZone, state)
+	}
+	tw.Flush()
+	return exitOK
+}

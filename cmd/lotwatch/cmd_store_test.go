@@ -1,0 +1,193 @@
+package main
+
+import (
+	"bytes"
+	"database/sql"
+	"encoding/json"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	_ "github.com/mattn/go-sqlite3"
+)
+
+// runCLI runs lotwatch with args and stdin and returns the exit status,
+// stdout and stderr.
+func runCLI(t *testing.T, stdin string, args ...string) (int, string, string) {
+	t.Helper()
+	var out, errb bytes.Buffer
+	code := run(args, strings.NewReader(stdin), &out, &errb)
+	return code, out.String(), errb.String()
+}
+
+func writeFile(t *testing.T, dir, name, content string) string {
+	t.Helper()
+	p := filepath.Join(dir, name)
+	if err := os.WriteFile(p, []byte(content), 0o600); err != nil {
+		t.Fatal(err)
+	}
+	return p
+}
+
+func TestCLIImportExportRoundTrip(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "a.db")
+	csv := writeFile(t, dir, "lots.csv", "lot,time,shift,inspected,defects,run,sag,note\r\n"+
+		"P1,2025-04-01 07:00,early,12,3,2,1,=cmd\r\n"+
+		"P2,2025-04-01 15:00,late,10,0,,,\"a, b\"\r\n")
+	code, out, errs := runCLI(t, "", "import", "--db", db, "--process", "paint", "--create", "--tz", "Europe/Berlin", "--as", "kim", csv)
+	if code != exitOK || !strings.Contains(out, "2 added, 0 unchanged, 0 conflicts") || !strings.Contains(out, "u chart") {
+		t.Fatalf("import: %d %q %q", code, out, errs)
+	}
+	code, out, _ = runCLI(t, "", "import", "--db", db, "--process", "paint", csv)
+	if code != exitOK || !strings.Contains(out, "0 added, 2 unchanged") {
+		t.Fatalf("re-import: %d %q", code, out)
+	}
+	code, exported, errs := runCLI(t, "", "export", "--db", db, "--process", "paint")
+	if code != exitOK || !strings.Contains(exported, "'=cmd") {
+		t.Fatalf("export: %d %q %q", code, exported, errs)
+	}
+	// Into a second database through stdin, then out again: the same text.
+	db2 := filepath.Join(dir, "b.db")
+	code, out, errs = runCLI(t, exported, "import", "--db", db2, "--process", "paint", "--create", "--tz", "Europe/Berlin", "-")
+	if code != exitOK || !strings.Contains(out, "2 added") {
+		t.Fatalf("import from stdin: %d %q %q", code, out, errs)
+	}
+	if _, again, _ := runCLI(t, "", "export", "--db", db2, "--process", "paint"); again != exported {
+		t.Errorf("round trip differs:\n%s\n%s", exported, again)
+	}
+	code, js, _ := runCLI(t, "", "export", "--db", db, "--process", "paint", "--format", "json", "--from", "2025-04-01", "--to", "2025-04-01")
+	var doc struct {
+		Lots []map[string]any `json:"lots"`
+	}
+	if code != exitOK || json.Unmarshal([]byte(js), &doc) != nil || len(doc.Lots) != 2 {
+		t.Errorf("json export: %d %q", code, js)
+	}
+	if _, out, _ := runCLI(t, "", "export", "--db", db, "--process", "paint", "--from", "2025-04-02"); strings.Count(out, "\n") != 1 {
+		t.Errorf("date range export: %q", out)
+	}
+}
+
+// Bad input: exit 2, nothing on stdout, one line per problem naming the
+// file, line, column and value.
+func TestCLIImportProblems(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "a.db")
+	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "weld", "--categories", "dent", "--as", "t"); code != exitOK {
+		t.Fatal(errs)
+	}
+	csv := writeFile(t, dir, "bad.csv", "lot,inspected,defective,dent\nQ1,10,11,\nQ2,1.5,0,\nQ3,10,1,x\n")
+	code, out, errs := runCLI(t, "", "import", "--db", db, "--process", "weld", csv)
+	if code != exitUsage || out != "" {
+		t.Fatalf("exit %d, stdout %q", code, out)
+	}
+	lines := strings.Split(strings.TrimSpace(errs), "\n")
+	want := []string{csv + `:2: column defective, value "11"`, csv + `:3: column inspected, value "1.5"`, csv + `:4: column dent, value "x"`}
+	if len(lines) != len(want) {
+		t.Fatalf("stderr %q", errs)
+	}
+	for i, w := range want {
+		if !strings.Contains(lines[i], w) {
+			t.Errorf("line %d: %q, want it to contain %q", i, lines[i], w)
+		}
+	}
+	if _, out, _ := runCLI(t, "", "export", "--db", db, "--process", "weld"); strings.Count(out, "\n") != 1 {
+		t.Errorf("refused import wrote lots: %q", out)
+	}
+	for _, args := range [][]string{
+		{"import", "--db", db, "--process", "weld"},
+		{"import", "--db", db, "--process", "nope", csv},
+		{"import", "--db", db, "--bogus", csv},
+		{"export", "--db", db, "--process", "weld", "--format", "xml"},
+		{"export", "--db", db, "--process", "weld", "--from", "yesterday"},
+		{"process", "add", "--db", db, "--name", "x", "--chart", "z"},
+		{"process", "add", "--db", db, "--name", "y", "--tz", "Nowhere/Town"},
+		{"process", "add", "--db", db, "--name", "weld"},
+		{"user", "add", "--db", db, "--name", "bo", "--role", "chief"},
+		{"token", "revoke", "--db", db, "--id", "x"},
+		{"audit", "verify"},
+	} {
+		code, out, errs := runCLI(t, "password1\n", args...)
+		if code != exitUsage || out != "" || errs == "" {
+			t.Errorf("%v: exit %d, stdout %q, stderr %q", args, code, out, errs)
+		}
+	}
+}
+
+func TestCLIHelp(t *testing.T) {
+	cases := map[string][]string{
+		"process": {"--db", "--name", "--chart", "--categories", "--tz", "--description", "--limits", "--sigma", "--rules", "--as", "--format"},
+		"import":  {"--db", "--process", "--create", "--tz", "--as"},
+		"export":  {"--db", "--process", "--from", "--to", "--format"},
+		"backup":  {"--db", "--to"},
+		"restore": {"--db", "--from"},
+		"audit":   {"--db"},
+		"user":    {"--db", "--name", "--role", "--as", "--format"},
+		"token":   {"--db", "--user", "--label", "--id", "--as"},
+	}
+	for cmd, flags := range cases {
+		code, out, _ := runCLI(t, "", cmd, "-h")
+		if code != exitOK {
+			t.Errorf("%s -h: exit %d", cmd, code)
+		}
+		for _, f := range flags {
+			if !strings.Contains(out, f) {
+				t.Errorf("%s -h does not explain %s", cmd, f)
+			}
+		}
+	}
+}
+
+func TestCLIUsersTokensAuditBackup(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "a.db")
+	if code, out, errs := runCLI(t, "s3cret-pass\n", "user", "add", "--db", db, "--name", "ana", "--role", "admin", "--as", "root"); code != exitOK {
+		t.Fatalf("user add: %d %q %q", code, out, errs)
+	}
+	if code, _, _ := runCLI(t, "short\n", "user", "add", "--db", db, "--name", "bo", "--role", "viewer"); code != exitUsage {
+		t.Errorf("short password: exit %d", code)
+	}
+	code, out, _ := runCLI(t, "", "user", "list", "--db", db, "--format", "json")
+	if code != exitOK || !strings.Contains(out, `"name": "ana"`) {
+		t.Errorf("user list: %q", out)
+	}
+	code, tok, _ := runCLI(t, "", "token", "create", "--db", db, "--user", "ana", "--label", "line 3")
+	if code != exitOK || !strings.HasPrefix(tok, "lw_") || strings.Count(tok, "\n") != 1 {
+		t.Fatalf("token create: %q", tok)
+	}
+	if code, out, _ := runCLI(t, "", "token", "list", "--db", db); code != exitOK || strings.Contains(out, strings.TrimSpace(tok)) || !strings.Contains(out, "line 3") {
+		t.Errorf("token list: %q", out)
+	}
+	if code, _, errs := runCLI(t, "", "token", "revoke", "--db", db, "--id", "1"); code != exitOK {
+		t.Errorf("revoke: %q", errs)
+	}
+	if code, out, _ := runCLI(t, "", "audit", "verify", "--db", db); code != exitOK || !strings.Contains(out, "3 entries") {
+		t.Errorf("verify: %d %q", code, out)
+	}
+	bk := filepath.Join(dir, "bk.db")
+	if code, _, errs := runCLI(t, "", "backup", "--db", db, "--to", bk); code != exitOK {
+		t.Fatalf("backup: %q", errs)
+	}
+	// Tamper with the live file behind lotwatch's back.
+	raw, err := sql.Open("sqlite3", "file:"+db)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := raw.Exec("UPDATE audit SET actor = 'mallory' WHERE seq = 1"); err != nil {
+		t.Fatal(err)
+	}
+	raw.Close()
+	if code, out, _ := runCLI(t, "", "audit", "verify", "--db", db); code != exitFail || !strings.Contains(out, "entry 1") {
+		t.Errorf("verify after tampering: %d %q", code, out)
+	}
+	if code, out, errs := runCLI(t, "", "restore", "--db", db, "--from", bk); code != exitOK {
+		t.Fatalf("restore: %d %q %q", code, out, errs)
+	}
+	if code, _, _ := runCLI(t, "", "audit", "verify", "--db", db); code != exitOK {
+		t.Errorf("verify after restore: %d", code)
+	}
+	if code, out, _ := runCLI(t, "", "restore", "--db", db, "--from", filepath.Join(dir, "missing.db")); code != exitUsage || out != "" {
+		t.Errorf("restore from a missing file: %d %q", code, out)
+	}
+}

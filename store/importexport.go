@@ -1,0 +1,361 @@
+package store
+
+import (
+	"bufio"
+	"context"
+	"crypto/sha256"
+	"database/sql"
+	"encoding/csv"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"strconv"
+	"time"
+
+	"lotwatch/spc"
+	"lotwatch/store/lotcsv"
+)
+
+// ImportOptions says where a lot file goes.
+type ImportOptions struct {
+	Process string // process name
+	// Create makes the process when it does not exist: p chart for a
+	// defective column, u chart for defects, categories from the extra
+	// columns, time zone TimeZone (default UTC).
+	Create   bool
+	TimeZone string
+	// MaxProblems caps the problems listed (0 means 100); the rest are
+	// counted in ValidationError.More.
+	MaxProblems int
+	// Progress, if set, is called every few thousand rows with the rows
+	// and bytes read so far.
+	Progress func(rows int, bytes int64)
+}
+
+// ImportResult is what an import did.
+type ImportResult struct {
+	Process       Process
+	Created       bool // the process was made by this import
+	Rows          int
+	Added         int
+	Unchanged     int        // already stored with the same values
+	Conflicts     []Conflict // stored with other values: reported, left as they are
+	MoreConflicts int        // conflicts beyond the cap
+	FileSHA256    string
+}
+
+type countingReader struct {
+	r io.Reader
+	n int64
+}
+
+func (c *countingReader) Read(p []byte) (int, error) {
+	n, err := c.r.Read(p)
+	c.n += int64(n)
+	return n, err
+}
+
+// bitset marks lot ids met during an import (to tell a code repeated in
+// the file); it costs one bit per stored lot, not per row of the file.
+type bitset []uint64
+
+func (b *bitset) set(i int64) bool {
+	w := int(i / 64)
+	for len(*b) <= w {
+		*b = append(*b, 0)
+	}
+	m := uint64(1) << (i % 64)
+	was := (*b)[w]&m != 0
+	(*b)[w] |= m
+	return was
+}
+
+// Import reads a lot file (see package lotcsv for the columns) into a
+// process in one transaction, streaming: memory does not grow with the
+// file. The whole file is validated (lotcsv for the form of each cell,
+// ValidateLot for the rules) and any problem gives a *ValidationError with
+// every problem and its line (up to the cap) and writes nothing. A lot
+// code given twice in the file is a problem. A lot already stored with the
+// same values is counted as unchanged (so importing a file again adds
+// nothing); stored with other values, it is a conflict, reported in the
+// result and never overwritten. Only the columns the file has are
+// compared (a file without a time column does not conflict on time). Lots
+// without a time get the time of the import.
+func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportOptions) (ImportResult, error) {
+	max := opt.MaxProblems
+	if max <= 0 {
+		max = 100
+	}
+	var res ImportResult
+	err := db.write(ctx, func(w *wtx) error {
+		res = ImportResult{}
+		h := sha256.New()
+		cr := &countingReader{r: io.TeeReader(r, h)}
+		p, err := processByName(w, opt.Process)
+		create := false
+		if errors.Is(err, ErrNotFound) && opt.Create {
+			create = true
+		} else if err != nil {
+			return err
+		}
+		ropt := lotcsv.Options{Chart: p.Chart, Categories: p.Categories, Location: p.Location(), MaxProblems: max}
+		if create {
+			tz := opt.TimeZone
+			if tz == "" {
+				tz = "UTC"
+			}
+			p = Process{Name: opt.Process, TimeZone: tz}
+			ropt = lotcsv.Options{CategoriesFromHeader: true, Location: p.Location(), MaxProblems: max}
+		}
+		rd, err := lotcsv.NewReader(cr, ropt)
+		if err != nil {
+			var ps lotcsv.Problems
+			if errors.As(err, &ps) {
+				return &ValidationError{Problems: ps}
+			}
+			return err
+		}
+		if create {
+			p.Chart = spc.ChartP
+			if rd.CountColumn() == lotcsv.ColDefects {
+				p.Chart = spc.ChartU
+			}
+			p.Categories = append([]string(nil), rd.Categories()...)
+			if ps := normalizeProcess(&p); len(ps) > 0 {
+				return invalid(ps...)
+			}
+			p.Active = true
+			if p, err = w.addProcess(actor, p); err != nil {
+				return err
+			}
+			res.Created = true
+		} else if !p.Active {
+			return invalid(Problem{Field: "process", Value: p.Name, Reason: "is retired: it takes no new lots"})
+		}
+		res.Process = p
+		a, err := w.newLotAdder(actor, p)
+		if err != nil {
+			return err
+		}
+		defer a.close()
+		cmp := compareFields{time: rd.Has(lotcsv.ColTime), shift: rd.Has(lotcsv.ColShift), inspector: rd.Has(lotcsv.ColInspector),
+			note: rd.Has(lotcsv.ColNote), categories: rd.Categories()}
+		ve := &ValidationError{}
+		problem := func(pr Problem) {
+			if len(ve.Problems) < max {
+				ve.Problems = append(ve.Problems, pr)
+			} else {
+				ve.More++
+			}
+		}
+		var met bitset
+		for {
+			if err := ctx.Err(); err != nil {
+				return err
+			}
+			row, err := rd.Next()
+			if err == io.EOF {
+				break
+			}
+			res.Rows++
+			if opt.Progress != nil && res.Rows%8192 == 0 {
+				opt.Progress(res.Rows, cr.n)
+			}
+			var rps lotcsv.Problems
+			if errors.As(err, &rps) {
+				for _, pr := range rps {
+					problem(pr)
+				}
+				continue
+			}
+			if err != nil {
+				return fmt.Errorf("store: import: %w", err)
+			}
+			in := LotInput{Lot: row.Lot, Time: row.Time, Shift: row.Shift, Inspected: row.Inspected, Count: row.Count,
+				Categories: row.Categories, Inspector: row.Inspector, Note: row.Note}
+			if ps := validateLot(p, in, w.now); len(ps) > 0 {
+				for _, pr := range ps {
+					if pr.Field == "defective" || pr.Field == "defects" {
+						pr.Field = rd.CountColumn()
+					}
+					pr.Line = row.Line
+					problem(pr)
+				}
+				continue
+			}
+			id, added, err := a.add(&in)
+			if err != nil {
+				return err
+			}
+			if added {
+				met.set(id)
+				res.Added++
+				continue
+			}
+			s, err := a.stored(in.Lot)
+			if err != nil {
+				return err
+			}
+			if met.set(s.ID) {
+				problem(Problem{Line: row.Line, Field: "lot", Value: in.Lot, Reason: "appears more than once in the file"})
+				continue
+			}
+			if d := differs(s, in, cmp); len(d) > 0 {
+				if len(res.Conflicts) < max {
+					res.Conflicts = append(res.Conflicts, Conflict{Line: row.Line, Lot: in.Lot, Fields: d})
+				} else {
+					res.MoreConflicts++
+				}
+				continue
+			}
+			res.Unchanged++
+		}
+		if opt.Progress != nil {
+			opt.Progress(res.Rows, cr.n)
+		}
+		if len(ve.Problems) > 0 {
+			return ve
+		}
+		res.FileSHA256 = hex.EncodeToString(h.Sum(nil))
+		return a.finish("import", nil, map[string]any{"file_sha256": res.FileSHA256, "rows": res.Rows,
+			"unchanged": res.Unchanged, "conflicts": len(res.Conflicts) + res.MoreConflicts})
+	})
+	if err != nil {
+		return ImportResult{}, err
+	}
+	return res, nil
+}
+
+func processByName(w *wtx, name string) (Process, error) {
+	var id int64
+	err := w.QueryRow("SELECT id FROM processes WHERE name = ?", name).Scan(&id)
+	if errors.Is(err, sql.ErrNoRows) {
+		return Process{}, fmt.Errorf("process %q: %w", name, ErrNotFound)
+	}
+	if err != nil {
+		return Process{}, err
+	}
+	return processByID(w.Tx, id)
+}
+
+// ExportOptions selects what Export writes.
+type ExportOptions struct {
+	From, To time.Time // from ≤ time < to; zero is open
+	Format   string    // "csv" (default) or "json"
+}
+
+// Export writes the lots of a process (not voided, in time order) as CSV
+// or JSON, streaming.
+//
+// CSV has the columns lot, time, shift, inspected, defective or defects,
+// one per category, inspector and note; times are RFC 3339 in the
+// process's time zone with all the digits stored, so Import reads the
+// file back to the same lots. A text cell that a spreadsheet would run as
+// a formula (starting with = + - @, tab or CR) is written with a leading
+// single quote, which lotcsv removes again on import (see
+// lotcsv.Neutralise and lotcsv.Restore).
+//
+// JSON is one object {"process": …, "lots": [ … ]} with the same fields
+// per lot ("count" named as the CSV column) and no quoting of formulas.
+func (db *DB) Export(ctx context.Context, out io.Writer, processID int64, opt ExportOptions) error {
+	p, err := db.Process(ctx, processID)
+	if err != nil {
+		return err
+	}
+	bw := bufio.NewWriterSize(out, 64<<10)
+	switch opt.Format {
+	case "", "csv":
+		err = exportCSV(ctx, db, bw, p, opt)
+	case "json":
+		err = exportJSON(ctx, db, bw, p, opt)
+	default:
+		return invalid(Problem{Field: "format", Value: opt.Format, Reason: "is not csv or json"})
+	}
+	if err != nil {
+		return err
+	}
+	return bw.Flush()
+}
+
+func exportCSV(ctx context.Context, db *DB, out io.Writer, p Process, opt ExportOptions) error {
+	cw := csv.NewWriter(out)
+	head := []string{lotcsv.ColLot, lotcsv.ColTime, lotcsv.ColShift, lotcsv.ColInspected, CountField(p.Chart)}
+	head = append(head, p.Categories...)
+	head = append(head, lotcsv.ColInspector, lotcsv.ColNote)
+	if err := cw.Write(head); err != nil {
+		return err
+	}
+	rec := make([]string, len(head))
+	nc := len(p.Categories)
+	err := db.EachLot(ctx, p.ID, opt.From, opt.To, func(l Lot) error {
+		rec[0] = lotcsv.Neutralise(l.Lot)
+		rec[1] = l.Time.Format(time.RFC3339Nano)
+		rec[2] = lotcsv.Neutralise(l.Shift)
+		rec[3] = strconv.FormatInt(l.Inspected, 10)
+		rec[4] = strconv.FormatInt(l.Count, 10)
+		for i, c := range p.Categories {
+			if n, ok := l.Categories[c]; ok {
+				rec[5+i] = strconv.FormatInt(n, 10)
+			} else {
+				rec[5+i] = ""
+			}
+		}
+		rec[5+nc] = lotcsv.Neutralise(l.Inspector)
+		rec[6+nc] = lotcsv.Neutralise(l.Note)
+		return cw.Write(rec)
+	})
+	if err != nil {
+		return err
+	}
+	cw.Flush()
+	return cw.Error()
+}
+
+type jsonLot struct {
+	Lot        string           `json:"lot"`
+	Time       string           `json:"time"`
+	Shift      string           `json:"shift,omitempty"`
+	Inspected  int64            `json:"inspected"`
+	Defective  *int64           `json:"defective,omitempty"`
+	Defects    *int64           `json:"defects,omitempty"`
+	Categories map[string]int64 `json:"categories,omitempty"`
+	Inspector  string           `json:"inspector,omitempty"`
+	Note       string           `json:"note,omitempty"`
+}
+
+func exportJSON(ctx context.Context, db *DB, out io.Writer, p Process, opt ExportOptions) error {
+	head, _ := json.Marshal(map[string]any{"name": p.Name, "chart": p.Chart, "categories": p.Categories, "time_zone": p.TimeZone})
+	if _, err := fmt.Fprintf(out, "{\"process\":%s,\"lots\":[", head); err != nil {
+		return err
+	}
+	first := true
+	err := db.EachLot(ctx, p.ID, opt.From, opt.To, func(l Lot) error {
+		jl := jsonLot{Lot: l.Lot, Time: l.Time.Format(time.RFC3339Nano), Shift: l.Shift, Inspected: l.Inspected,
+			Categories: l.Categories, Inspector: l.Inspector, Note: l.Note}
+		c := l.Count
+		if p.Chart.CountsUnits() {
+			jl.Defective = &c
+		} else {
+			jl.Defects = &c
+		}
+		b, err := json.Marshal(jl)
+		if err != nil {
+			return err
+		}
+		if !first {
+			if _, err := io.WriteString(out, ","); err != nil {
+				return err
+			}
+		}
+		first = false
+		_, err = fmt.Fprintf(out, "\n%s", b)
+		return err
+	})
+	if err != nil {
+		return err
+	}
+	_, err = io.WriteString(out, "\n]}\n")
+	return err
+}
