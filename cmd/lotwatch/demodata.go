@@ -74,7 +74,7 @@ type shift struct {
 
 var demoShifts = []shift{{"early", 6}, {"late", 14}, {"night", 22}}
 
-var demoInspectors = []string{"inspector A. Ruml", "inspector B. Okafor", "inspector C. Lindqvist", "inspector D. Sato"}
+var demoInspectors = []string{"badge 114", "badge 207", "badge 318", "badge 425"} // inspectors by badge number
 
 // demoPlant generates the demo plant's processes and lots for the
 // demoWeeks weeks that end on the day of end (in the plant's zone). The

@@ -1,0 +1,104 @@
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"log/slog"
+	"os"
+	"os/signal"
+	"syscall"
+
+	"lotwatch/store"
+	"lotwatch/web"
+)
+
+func init() {
+	register(command{
+		name:    "serve",
+		summary: "serve the pages and the JSON API for inspection stations",
+		run:     runServe,
+	})
+}
+
+func runServe(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
+	fs := flag.NewFlagSet("serve", flag.ContinueOnError)
+	fs.SetOutput(stderr)
+	dbPath := fs.String("db", "", "database `file` (required)")
+	addr := fs.String("addr", "127.0.0.1:8080", "listen `address` (host:port)")
+	cert := fs.String("cert", "", "TLS certificate `file` (PEM); with --key, serve HTTPS")
+	key := fs.String("key", "", "TLS private key `file` (PEM)")
+	secure := fs.Bool("behind-tls", false, "the server is reached over HTTPS through a proxy: mark cookies Secure and send HSTS")
+	fs.Usage = func() {
+		fmt.Fprint(stderr, `Usage: lotwatch serve --db FILE [--addr 127.0.0.1:8080] [--cert FILE --key FILE]
+
+Serves the pages (sign-in, processes, control charts) and the JSON API under
+/api/v1/ until interrupted (SIGINT or SIGTERM); requests in flight are
+finished and the database closed cleanly before it exits.
+
+Options:
+`)
+		fs.PrintDefaults()
+		fmt.Fprint(stderr, "\n"+caution)
+	}
+	if err := fs.Parse(args); err != nil {
+		if errors.Is(err, flag.ErrHelp) {
+			return exitOK
+		}
+		return exitUsage
+	}
+	if fs.NArg() > 0 {
+		fmt.Fprintf(stderr, "lotwatch serve: unexpected argument %q\n", fs.Arg(0))
+		return exitUsage
+	}
+	if *dbPath == "" {
+		fmt.Fprintln(stderr, "lotwatch serve: --db FILE is required")
+		return exitUsage
+	}
+	if (*cert == "") != (*key == "") {
+		fmt.Fprintln(stderr, "lotwatch serve: give both --cert and --key, or neither")
+		return exitUsage
+	}
+	for _, f := range []string{*cert, *key} {
+		if f == "" {
+			continue
+		}
+		if _, err := os.Stat(f); err != nil {
+			fmt.Fprintf(stderr, "lotwatch serve: %v\n", err)
+			return exitUsage
+		}
+	}
+	if _, err := os.Stat(*dbPath); err != nil {
+		fmt.Fprintf(stderr, "lotwatch serve: database %s: %v (create it first, e.g. with `lotwatch demo`)\n", *dbPath, err)
+		return exitUsage
+	}
+	logger := slog.New(slog.NewTextHandler(stderr, nil))
+	db, err := store.Open(*dbPath)
+	if err != nil {
+		fmt.Fprintf(stderr, "lotwatch serve: %v\n", err)
+		return exitFail
+	}
+	srv, err := web.NewServer(web.Config{DB: db, Addr: *addr, CertFile: *cert, KeyFile: *key, Secure: *secure, Logger: logger})
+	if err != nil {
+		db.Close()
+		fmt.Fprintf(stderr, "lotwatch serve: %v\n", err)
+		return exitUsage
+	}
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	serveErr := srv.ListenAndServe(ctx)
+	// Shutdown has waited for every request in flight; only now close the
+	// database, so that no acknowledged write is lost.
+	closeErr := db.Close()
+	if serveErr != nil {
+		fmt.Fprintf(stderr, "lotwatch serve: %v\n", serveErr)
+		return exitFail
+	}
+	if closeErr != nil {
+		fmt.Fprintf(stderr, "lotwatch serve: closing the database: %v\n", closeErr)
+		return exitFail
+	}
+	return exitOK
+}

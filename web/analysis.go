@@ -1,0 +1,211 @@
+package web
+
+import (
+	"context"
+	"fmt"
+	"net/url"
+	"sort"
+	"strconv"
+	"time"
+
+	"lotwatch/spc"
+	"lotwatch/store"
+)
+
+// processChart is one process's lots judged against its limit sets: the
+// lots before the first set (all of them when there is none) against trial
+// limits estimated from themselves, the lots from each set's EffectiveFrom
+// on against that frozen set, with the run rules running across the joins.
+type processChart struct {
+	proc  store.Process
+	lots  []store.Lot // not voided, in time order
+	sets  []store.LimitSet
+	setOf []int // per lot: the number of the limit set judging it, 0 for trial limits
+	a     *spc.Analysis
+}
+
+// analyzeProcess loads and judges every lot of the process. Lots are
+// judged on the whole record, whatever window is shown afterwards, so that
+// a lot's verdict does not depend on what else is on the screen.
+func (s *Server) analyzeProcess(ctx context.Context, p store.Process) (*processChart, error) {
+	lots, err := s.db.Lots(ctx, p.ID, time.Time{}, time.Time{})
+	if err != nil {
+		return nil, err
+	}
+	sets, err := s.db.LimitSets(ctx, p.ID)
+	if err != nil {
+		return nil, err
+	}
+	return judge(p, lots, sets)
+}
+
+// judge builds the phases from the limit sets and runs the analysis.
+func judge(p store.Process, lots []store.Lot, sets []store.LimitSet) (*processChart, error) {
+	rules, err := parseProcessRules(p.Rules)
+	if err != nil {
+		return nil, fmt.Errorf("process %q: rules: %w", p.Name, err)
+	}
+	sets = append([]store.LimitSet(nil), sets...)
+	sort.SliceStable(sets, func(i, j int) bool {
+		if !sets[i].EffectiveFrom.Equal(sets[j].EffectiveFrom) {
+			return sets[i].EffectiveFrom.Before(sets[j].EffectiveFrom)
+		}
+		return sets[i].Number < sets[j].Number
+	})
+	pc := &processChart{proc: p, lots: lots, sets: sets, setOf: make([]int, len(lots))}
+	if len(lots) == 0 {
+		return pc, nil
+	}
+	in := make([]spc.Lot, len(lots))
+	for i, l := range lots {
+		in[i] = spc.Lot{ID: l.Lot, Inspected: l.Inspected, Count: l.Count}
+	}
+	trial := spc.Config{Chart: p.Chart, Method: p.Method, K: p.K, Rules: rules}
+	var phases []spc.Phase
+	for _, ls := range sets {
+		i := sort.Search(len(lots), func(i int) bool { return !lots[i].Time.Before(ls.EffectiveFrom) })
+		if i >= len(lots) {
+			break // in force only after the last lot
+		}
+		if len(phases) == 0 && i > 0 {
+			phases = append(phases, spc.Phase{Start: 0, Config: trial})
+		}
+		cfg := spc.Config{Chart: p.Chart, Method: ls.Method, K: ls.K, Rules: rules,
+			Standard: &spc.Standard{Center: ls.Center, SigmaZ: ls.SigmaZ}}
+		if n := len(phases); n > 0 && phases[n-1].Start == i {
+			phases[n-1].Config = cfg // a later set starting at the same lot replaces the earlier
+		} else {
+			phases = append(phases, spc.Phase{Start: i, Config: cfg})
+		}
+		for j := i; j < len(lots); j++ {
+			pc.setOf[j] = ls.Number
+		}
+	}
+	if len(phases) == 0 {
+		a, err := spc.Analyze(in, trial)
+		if err != nil {
+			return nil, fmt.Errorf("process %q: %w", p.Name, err)
+		}
+		pc.a = a
+		return pc, nil
+	}
+	a, err := spc.AnalyzePhases(in, phases, rules)
+	if err != nil {
+		return nil, fmt.Errorf("process %q: %w", p.Name, err)
+	}
+	pc.a = a
+	return pc, nil
+}
+
+// window is the part of the record to show; zero ends are open.
+type window struct{ from, to time.Time }
+
+// contains reports whether t falls in the window (both ends inclusive;
+// a date-only "to" was moved to the last instant of that day).
+func (w window) contains(t time.Time) bool {
+	return (w.from.IsZero() || !t.Before(w.from)) && (w.to.IsZero() || !t.After(w.to))
+}
+
+// paramError is a bad query parameter.
+type paramError struct{ name, value, reason string }
+
+func (e *paramError) Error() string {
+	return fmt.Sprintf("parameter %q: %q %s", e.name, e.value, e.reason)
+}
+
+// parseWindow reads from= and to=, each an RFC 3339 time or a date
+// YYYY-MM-DD in the process's time zone ("to" meaning the end of that day).
+func parseWindow(q url.Values, loc *time.Location) (window, error) {
+	var w window
+	var err error
+	if w.from, err = parseWhen("from", q.Get("from"), loc, false); err != nil {
+		return w, err
+	}
+	if w.to, err = parseWhen("to", q.Get("to"), loc, true); err != nil {
+		return w, err
+	}
+	if !w.from.IsZero() && !w.to.IsZero() && w.to.Before(w.from) {
+		return w, &paramError{"to", q.Get("to"), "is before \"from\""}
+	}
+	return w, nil
+}
+
+func parseWhen(name, v string, loc *time.Location, endOfDay bool) (time.Time, error) {
+	if v == "" {
+		return time.Time{}, nil
+	}
+	if t, err := time.Parse(time.RFC3339Nano, v); err == nil {
+		return t, nil
+	}
+	if d, err := time.ParseInLocation(time.DateOnly, v, loc); err == nil {
+		if endOfDay {
+			d = d.AddDate(0, 0, 1).Add(-time.Nanosecond)
+		}
+		return d, nil
+	}
+	return time.Time{}, &paramError{name, v, "is not a date (YYYY-MM-DD) or an RFC 3339 time (2006-01-02T15:04:05Z07:00)"}
+}
+
+// chartJSON renders the lots of the chart that fall in the window, with
+// the signals that touch them.
+func (pc *processChart) chartJSON(w window) *ChartJSON {
+	loc := pc.proc.Location()
+	if pc.a == nil {
+		return &ChartJSON{Chart: string(pc.proc.Chart), Method: string(pc.proc.Method), Sigma: Num(pc.proc.K),
+			Lots: []LotJSON{}, Signals: []SignalJSON{}, Warnings: []string{}}
+	}
+	out := AnalysisJSON(pc.a)
+	lo, hi := 0, len(pc.lots)
+	if !w.from.IsZero() {
+		lo = sort.Search(len(pc.lots), func(i int) bool { return !pc.lots[i].Time.Before(w.from) })
+	}
+	if !w.to.IsZero() {
+		hi = sort.Search(len(pc.lots), func(i int) bool { return pc.lots[i].Time.After(w.to) })
+	}
+	if hi < lo {
+		hi = lo
+	}
+	for i := lo; i < hi; i++ {
+		l := &out.Lots[i]
+		l.ID = pc.lots[i].ID
+		l.Time = pc.lots[i].Time.In(loc).Format(time.RFC3339)
+		if n := pc.setOf[i]; n > 0 {
+			l.Limits, l.LimitSet = "frozen", n
+		} else {
+			l.Limits = "trial"
+		}
+	}
+	out.Lots = out.Lots[lo:hi]
+	sigs := out.Signals[:0]
+	for _, sg := range out.Signals {
+		if sg.Last < lo || sg.First >= hi {
+			continue
+		}
+		sg.First = max(sg.First-lo, 0)
+		sg.Last = min(sg.Last-lo, hi-lo-1)
+		sigs = append(sigs, sg)
+	}
+	out.Signals = sigs
+	return out
+}
+
+// lotIndex returns the position of the lot with the store id, or -1.
+func (pc *processChart) lotIndex(id int64) int {
+	for i := len(pc.lots) - 1; i >= 0; i-- {
+		if pc.lots[i].ID == id {
+			return i
+		}
+	}
+	return -1
+}
+
+func formatID(id int64) string { return strconv.FormatInt(id, 10) }
+
+// parseProcessRules reads a process's rule list; an empty list applies
+// no run rule (the limits are still judged).
+func parseProcessRules(s string) (spc.RuleSet, error) {
+	if s == "" {
+		return spc.RulesNone, nil
+	}
+	return spc.ParseRules(s)
+}

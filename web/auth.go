@@ -1,0 +1,208 @@
+package web
+
+import (
+	"errors"
+	"net/http"
+	"strings"
+
+	"lotwatch/store"
+)
+
+// cookieName is the session cookie's name. Under HTTPS the __Host- prefix
+// makes browsers insist on Secure, Path=/ and no Domain, so that no other
+// host can plant or read it.
+func (s *Server) cookieName() string {
+	if s.secure {
+		return "__Host-lotwatch_session"
+	}
+	return "lotwatch_session"
+}
+
+// setSessionCookie gives the browser its session id. The cookie has no
+// Max-Age: the server decides expiry (SessionIdle, SessionAbsolute), and
+// closing the browser ends it too.
+func (s *Server) setSessionCookie(w http.ResponseWriter, raw string) {
+	http.SetCookie(w, &http.Cookie{
+		Name:     s.cookieName(),
+		Value:    raw,
+		Path:     "/",
+		HttpOnly: true,
+		Secure:   s.secure,
+		SameSite: http.SameSiteLaxMode,
+	})
+}
+
+func (s *Server) clearSessionCookie(w http.ResponseWriter) {
+	http.SetCookie(w, &http.Cookie{
+		Name:     s.cookieName(),
+		Value:    "",
+		Path:     "/",
+		MaxAge:   -1,
+		HttpOnly: true,
+		Secure:   s.secure,
+		SameSite: http.SameSiteLaxMode,
+	})
+}
+
+// safeNext returns the local path to go to after sign-in, refusing
+// anything that could lead to another site.
+func safeNext(next string) string {
+	if next == "" || !strings.HasPrefix(next, "/") || strings.HasPrefix(next, "//") ||
+		strings.HasPrefix(next, "/\\") || strings.ContainsAny(next, "\r\n\t") {
+		return "/"
+	}
+	return next
+}
+
+type signInData struct {
+	Name    string
+	Next    string
+	Problem string
+}
+
+func (s *Server) signInPage(w http.ResponseWriter, r *http.Request) {
+	if who(r) != nil {
+		http.Redirect(w, r, safeNext(r.URL.Query().Get("next")), http.StatusSeeOther)
+		return
+	}
+	s.render(w, r, http.StatusOK, "signin.html", "Sign in", signInData{Next: safeNext(r.URL.Query().Get("next"))})
+}
+
+// signIn checks a user name and password. Attempts are limited per user
+// name and per client address before the password is even looked at; on
+// success any earlier session of this browser is ended and a new session
+// id is issued, so that an id planted before sign-in is worthless.
+func (s *Server) signIn(w http.ResponseWriter, r *http.Request) {
+	name := strings.TrimSpace(r.PostFormValue("name"))
+	password := r.PostFormValue("password")
+	data := signInData{Name: name, Next: safeNext(r.PostFormValue("next"))}
+	nameKey, addrKey := "name:"+strings.ToLower(name), "addr:"+clientAddr(r)
+	if wait := s.limiter.wait(nameKey, addrKey); wait > 0 {
+		w.Header().Set("Retry-After", retryAfter(wait))
+		data.Problem = "Too many sign-in attempts. Wait " + retryAfter(wait) + " seconds and try again."
+		s.render(w, r, http.StatusTooManyRequests, "signin.html", "Sign in", data)
+		return
+	}
+	if name == "" || password == "" {
+		data.Problem = "Enter your user name and password."
+		s.render(w, r, http.StatusBadRequest, "signin.html", "Sign in", data)
+		return
+	}
+	u, err := s.db.Authenticate(r.Context(), name, password)
+	if err == nil && !u.Active {
+		err = store.ErrBadCredentials
+	}
+	if errors.Is(err, store.ErrBadCredentials) {
+		s.log.Warn("sign-in refused", "name", name, "addr", clientAddr(r))
+		data.Problem = "The user name or password is not right."
+		if wait := s.limiter.fail(nameKey, addrKey); wait > 0 {
+			data.Problem += " Too many failed attempts: wait " + retryAfter(wait) + " seconds before the next."
+		}
+		s.render(w, r, http.StatusUnauthorized, "signin.html", "Sign in", data)
+		return
+	}
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	if p := who(r); p != nil && p.session != "" {
+		if err := s.db.DeleteSession(r.Context(), p.session); err != nil {
+			s.internalError(w, r, err)
+			return
+		}
+	} else if c, err := r.Cookie(s.cookieName()); err == nil && c.Value != "" {
+		_ = s.db.DeleteSession(r.Context(), c.Value)
+	}
+	raw, err := s.db.CreateSession(r.Context(), u.ID, s.now())
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	s.limiter.reset(nameKey)
+	s.setSessionCookie(w, raw)
+	s.log.Info("signed in", "user", u.Name, "addr", clientAddr(r))
+	http.Redirect(w, r, data.Next, http.StatusSeeOther)
+}
+
+func (s *Server) signOut(w http.ResponseWriter, r *http.Request) {
+	if p := who(r); p.session != "" {
+		if err := s.db.DeleteSession(r.Context(), p.session); err != nil {
+			s.internalError(w, r, err)
+			return
+		}
+	}
+	s.clearSessionCookie(w)
+	http.Redirect(w, r, "/signin", http.StatusSeeOther)
+}
+
+type passwordData struct {
+	Problem string
+	Done    bool
+}
+
+func (s *Server) passwordPage(w http.ResponseWriter, r *http.Request) {
+	s.render(w, r, http.StatusOK, "password.html", "Change password", passwordData{Done: r.URL.Query().Get("done") == "1"})
+}
+
+// changePassword sets a new password after checking the current one. All
+// the user's sessions end, and this browser gets a fresh one, so that a
+// session stolen before the change stops working.
+func (s *Server) changePassword(w http.ResponseWriter, r *http.Request) {
+	p := who(r)
+	current := r.PostFormValue("current")
+	next := r.PostFormValue("new")
+	confirm := r.PostFormValue("confirm")
+	fail := func(status int, msg string) {
+		s.render(w, r, status, "password.html", "Change password", passwordData{Problem: msg})
+	}
+	if p.token {
+		writeError(w, http.StatusForbidden, "a password cannot be changed with an API token")
+		return
+	}
+	nameKey, addrKey := "name:"+strings.ToLower(p.user.Name), "addr:"+clientAddr(r)
+	if wait := s.limiter.wait(nameKey, addrKey); wait > 0 {
+		w.Header().Set("Retry-After", retryAfter(wait))
+		fail(http.StatusTooManyRequests, "Too many attempts. Wait "+retryAfter(wait)+" seconds and try again.")
+		return
+	}
+	switch {
+	case current == "":
+		fail(http.StatusBadRequest, "Enter your current password.")
+		return
+	case next == "":
+		fail(http.StatusBadRequest, "Enter a new password.")
+		return
+	case next != confirm:
+		fail(http.StatusBadRequest, "The new password and its confirmation differ.")
+		return
+	}
+	if _, err := s.db.Authenticate(r.Context(), p.user.Name, current); err != nil {
+		if errors.Is(err, store.ErrBadCredentials) {
+			s.limiter.fail(nameKey, addrKey)
+			fail(http.StatusUnauthorized, "The current password is not right.")
+			return
+		}
+		s.internalError(w, r, err)
+		return
+	}
+	if err := s.db.SetPassword(r.Context(), p.user.Name, p.user.Name, next); err != nil {
+		if errors.Is(err, store.ErrInvalid) {
+			fail(http.StatusBadRequest, "The new password was refused: "+err.Error())
+			return
+		}
+		s.internalError(w, r, err)
+		return
+	}
+	if err := s.db.DeleteUserSessions(r.Context(), p.user.ID); err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	raw, err := s.db.CreateSession(r.Context(), p.user.ID, s.now())
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	s.setSessionCookie(w, raw)
+	s.log.Info("password changed", "user", p.user.Name)
+	http.Redirect(w, r, "/password?done=1", http.StatusSeeOther)
+}

@@ -1,0 +1,169 @@
+package web
+
+import (
+	"bytes"
+	"context"
+	"fmt"
+	"io"
+	"net/http"
+	"net/http/httptest"
+	"slices"
+	"sync"
+	"testing"
+	"time"
+
+	"lotwatch/store"
+)
+
+// benchLots is the size of the process the chart benchmarks draw.
+const benchLots = 10000
+
+func benchEnv(b *testing.B, lots int) *testEnv {
+	b.Helper()
+	e := newTestEnv(b)
+	// A stable process with an occasional bad lot.
+	e.addLots(b, lots, func(i int) int64 { return int64(3+i%5) + int64(15*btoi(i%997 == 0)) })
+	return e
+}
+
+// BenchmarkChartJSON: GET /api/v1/processes/{id}/chart for 10,000 lots.
+func BenchmarkChartJSON(b *testing.B) {
+	e := benchEnv(b, benchLots)
+	path := fmt.Sprintf("/api/v1/processes/%d/chart", e.proc.ID)
+	tok := e.tokens[store.RoleViewer]
+	b.ResetTimer()
+	start := time.Now()
+	for b.Loop() {
+		rec := e.do(req{method: "GET", path: path, token: tok})
+		if rec.Code != 200 {
+			b.Fatalf("status %d", rec.Code)
+		}
+	}
+	b.ReportMetric(float64(time.Since(start).Milliseconds())/float64(b.N), "ms/req")
+}
+
+// BenchmarkChartPage: the chart page (go-echarts options embedded) for
+// 10,000 lots.
+func BenchmarkChartPage(b *testing.B) {
+	e := benchEnv(b, benchLots)
+	path := fmt.Sprintf("/processes/%d", e.proc.ID)
+	c := e.signIn(b, "viewer1", testPassword)
+	b.ResetTimer()
+	start := time.Now()
+	var size int
+	for b.Loop() {
+		// Keep the session from idling out on the fake clock.
+		rec := e.do(req{method: "GET", path: path, cookie: c})
+		if rec.Code != 200 {
+			b.Fatalf("status %d", rec.Code)
+		}
+		size = rec.Body.Len()
+	}
+	b.ReportMetric(float64(time.Since(start).Milliseconds())/float64(b.N), "ms/req")
+	b.ReportMetric(float64(size)/1024, "KiB/page")
+}
+
+// BenchmarkAPIPostLots: 32 concurrent inspection stations post single
+// lots over loopback to a real server; every acknowledged lot must be
+// stored and no request may fail. Beside it, the store's own durable
+// single-lot insert rate (AddLots with one lot, serially) is measured in
+// the same run; "ratio" is the API throughput over that rate.
+func BenchmarkAPIPostLots(b *testing.B) {
+	const (
+		clients   = 32
+		perClient = 25
+		serial    = 200
+	)
+	for b.Loop() {
+		b.StopTimer()
+		// Baseline: the store alone.
+		base := newTestEnv(b)
+		t0 := time.Now()
+		for i := range serial {
+			_, err := base.db.AddLots(context.Background(), "bench", base.proc.ID, []store.LotInput{{Lot: fmt.Sprintf("S%05d", i), Inspected: 200, Count: 3}})
+			if err != nil {
+				b.Fatal(err)
+			}
+		}
+		storeRate := serial / time.Since(t0).Seconds()
+
+		e := benchEnv(b, 200)
+		ts := httptest.NewServer(e.h)
+		client := ts.Client()
+		client.Transport.(*http.Transport).MaxIdleConnsPerHost = clients
+		url := ts.URL + lotsPath(e)
+		tok := e.tokens[store.RoleInspector]
+		var (
+			mu       sync.Mutex
+			lat      []time.Duration
+			errs     []error
+			acked    []string
+			wg       sync.WaitGroup
+			startAll = make(chan struct{})
+		)
+		for c := range clients {
+			wg.Add(1)
+			go func() {
+				defer wg.Done()
+				<-startAll
+				for k := range perClient {
+					code := fmt.Sprintf("W%02d-%04d", c, k)
+					body := fmt.Sprintf(`{"lot":%q,"inspected":200,"defective":%d,"shift":"A"}`, code, 2+k%5)
+					r, _ := http.NewRequest("POST", url, bytes.NewReader([]byte(body)))
+					r.Header.Set("Authorization", "Bearer "+tok)
+					r.Header.Set("Content-Type", "application/json")
+					t := time.Now()
+					res, err := client.Do(r)
+					d := time.Since(t)
+					if err == nil {
+						io.Copy(io.Discard, res.Body)
+						res.Body.Close()
+						if res.StatusCode != http.StatusCreated {
+							err = fmt.Errorf("lot %s: status %d", code, res.StatusCode)
+						}
+					}
+					mu.Lock()
+					if err != nil {
+						errs = append(errs, err)
+					} else {
+						lat = append(lat, d)
+						acked = append(acked, code)
+					}
+					mu.Unlock()
+				}
+			}()
+		}
+		b.StartTimer()
+		t1 := time.Now()
+		close(startAll)
+		wg.Wait()
+		elapsed := time.Since(t1)
+		b.StopTimer()
+		ts.Close()
+		if len(errs) > 0 {
+			b.Fatalf("%d requests failed, first: %v", len(errs), errs[0])
+		}
+		stored, err := e.db.Lots(context.Background(), e.proc.ID, time.Time{}, time.Time{})
+		if err != nil {
+			b.Fatal(err)
+		}
+		have := map[string]bool{}
+		for _, l := range stored {
+			have[l.Lot] = true
+		}
+		for _, code := range acked {
+			if !have[code] {
+				b.Fatalf("acknowledged lot %s is not stored", code)
+			}
+		}
+		slices.Sort(lat)
+		p99 := lat[(len(lat)*99+99)/100-1]
+		rate := float64(len(acked)) / elapsed.Seconds()
+		b.ReportMetric(rate, "lots/s")
+		b.ReportMetric(float64(p99.Microseconds())/1000, "p99-ms")
+		b.ReportMetric(storeRate, "store-lots/s")
+		b.ReportMetric(rate/storeRate, "ratio")
+		b.ReportMetric(float64(len(errs)), "errors")
+		b.StartTimer()
+	}
+}

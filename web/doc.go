@@ -1,0 +1,45 @@
+// Package web is lotwatch's HTTP server: sign-in with server-side
+// sessions, roles checked on every route from one table, CSRF defence,
+// the JSON API under /api/v1/ for inspection stations, and the pages,
+// whose control charts are drawn by ECharts served from the binary itself
+// (no page loads anything from another origin).
+//
+// Security choices:
+//   - Sessions: a random id (store.CreateSession) in an HttpOnly,
+//     SameSite=Lax cookie (Secure and __Host- prefixed under TLS); it
+//     ends after SessionIdle (30 min) without a request and SessionAbsolute
+//     (12 h) after sign-in. Each sign-in issues a new id and ends the
+//     browser's previous session; a password change ends all the user's
+//     sessions and gives this browser a new one.
+//   - Roles: the least role of each route is in Server.routes and checked
+//     by Server.guard, nowhere else.
+//   - CSRF: http.CrossOriginProtection refuses cross-origin POSTs (by
+//     Sec-Fetch-Site, else Origin against Host), on top of SameSite
+//     cookies. Bearer-token API calls carry no ambient credentials.
+//   - Sign-in: after 5 failed attempts within a minute, per user name and
+//     per client address (RemoteAddr; forwarding headers are not trusted),
+//     further attempts get 429 with Retry-After for 1 minute, doubling on
+//     each repeat up to 15 minutes. Successful sign-ins are not counted.
+//   - Every page goes through html/template; the chart options travel as a
+//     JSON data block read by /static/charts.js, so the Content-Security-
+//     Policy forbids inline scripts and styles.
+//
+// API (JSON; errors are {"error": "..."} with "problems" for bad lots):
+//
+//	GET  /api/v1/me                         who the token or session is
+//	GET  /api/v1/processes                  [{"id","name","chart",...}]
+//	GET  /api/v1/processes/{id}             one process
+//	GET  /api/v1/processes/{id}/chart       the analyze JSON shape (ChartJSON)
+//	GET  /api/v1/processes/{id}/lots        stored lots
+//	POST /api/v1/processes/{id}/lots        log lots (inspector+)
+//	GET  /api/v1/processes/{id}/signals     run-rule signals with annotations
+//	GET  /api/v1/processes/{id}/limits      frozen limit sets
+//	GET  /api/v1/users                      users (admin)
+//
+// from= and to= take an RFC 3339 time or a date (YYYY-MM-DD, in the
+// process's time zone; "to" then means the end of that day), both ends
+// inclusive. A lot posted again with identical values is not stored twice:
+// the answer is 201 with the stored lot (same id). A lot posted without a
+// time gets the time of the commit, and re-posting it without a time is
+// still identical.
+package web

@@ -1,0 +1,66 @@
+package web
+
+import (
+	"encoding/json"
+	"math"
+	"net/http"
+	"strconv"
+	"strings"
+)
+
+// isAPI reports whether the request is for the JSON API, whose errors are
+// JSON and whose callers are not redirected to the sign-in page.
+func isAPI(r *http.Request) bool {
+	return r.URL.Path == "/api" || strings.HasPrefix(r.URL.Path, "/api/")
+}
+
+// apiError is the body of every API error response.
+type apiError struct {
+	Error    string       `json:"error"`
+	Problems []apiProblem `json:"problems,omitempty"`
+}
+
+// apiProblem is one thing wrong with one field of a request. Index is the
+// position of the lot in a posted array (0 for a single object).
+type apiProblem struct {
+	Index  *int   `json:"index,omitempty"`
+	Field  string `json:"field"`
+	Value  string `json:"value,omitempty"`
+	Reason string `json:"reason"`
+}
+
+// writeJSON writes v as the response body with the given status.
+func writeJSON(w http.ResponseWriter, status int, v any) {
+	body, err := json.Marshal(v)
+	if err != nil {
+		status = http.StatusInternalServerError
+		body = []byte(`{"error":"internal error: the response could not be encoded"}`)
+	}
+	h := w.Header()
+	h.Set("Content-Type", "application/json; charset=utf-8")
+	h.Set("Cache-Control", "no-store")
+	w.WriteHeader(status)
+	w.Write(body)
+	w.Write([]byte("\n"))
+}
+
+// writeError writes {"error": msg} with the given status.
+func writeError(w http.ResponseWriter, status int, msg string) {
+	writeJSON(w, status, apiError{Error: msg})
+}
+
+// Num is a float64 that encodes NaN and ±Inf (an undefined limit, say) as
+// JSON null instead of failing; every other value is a JSON number.
+type Num float64
+
+// MarshalJSON implements json.Marshaler.
+func (n Num) MarshalJSON() ([]byte, error) {
+	f := float64(n)
+	if math.IsNaN(f) || math.IsInf(f, 0) {
+		return []byte("null"), nil
+	}
+	return strconv.AppendFloat(make([]byte, 0, 24), f, 'g', -1, 64), nil
+}
+
+// nan marks a number that is not defined (a lot not on the chart).
+var nan = math.NaN()

@@ -1,0 +1,202 @@
+package web
+
+import (
+	"context"
+	"errors"
+	"net/http"
+	"net/url"
+	"strings"
+
+	"github.com/go-chi/chi/v5"
+	"github.com/go-chi/chi/v5/middleware"
+
+	"lotwatch/store"
+)
+
+// anyone marks a route open without sign-in.
+const anyone store.Role = ""
+
+// route is one entry of the route table: the least role a caller must
+// have (anyone for open routes) is checked by Server.guard before the
+// handler runs, the same way for every route.
+type route struct {
+	method  string
+	pattern string
+	min     store.Role
+	handle  func(w http.ResponseWriter, r *http.Request)
+}
+
+// routes is the route table. Roles: a viewer reads; an inspector also
+// logs lots and annotates; an engineer also manages processes and limit
+// sets; an admin also manages users and tokens.
+func (s *Server) routes() []route {
+	return []route{
+		// Static files and sign-in are open.
+		{"GET", "/static/*", anyone, serveStatic},
+		{"GET", "/signin", anyone, s.signInPage},
+		{"POST", "/signin", anyone, s.signIn},
+		{"GET", "/healthz", anyone, s.healthz},
+
+		// Pages.
+		{"POST", "/signout", store.RoleViewer, s.signOut},
+		{"GET", "/password", store.RoleViewer, s.passwordPage},
+		{"POST", "/password", store.RoleViewer, s.changePassword},
+		{"GET", "/", store.RoleViewer, s.processesPage},
+		{"GET", "/processes/{id}", store.RoleViewer, s.chartPage},
+
+		// JSON API.
+		{"GET", "/api/v1/me", store.RoleViewer, s.apiMe},
+		{"GET", "/api/v1/processes", store.RoleViewer, s.apiProcesses},
+		{"GET", "/api/v1/processes/{id}", store.RoleViewer, s.apiProcess},
+		{"GET", "/api/v1/processes/{id}/chart", store.RoleViewer, s.apiChart},
+		{"GET", "/api/v1/processes/{id}/lots", store.RoleViewer, s.apiLots},
+		{"POST", "/api/v1/processes/{id}/lots", store.RoleInspector, s.apiPostLots},
+		{"GET", "/api/v1/processes/{id}/signals", store.RoleViewer, s.apiSignals},
+		{"GET", "/api/v1/processes/{id}/limits", store.RoleViewer, s.apiLimitSets},
+		{"GET", "/api/v1/users", store.RoleAdmin, s.apiUsers},
+	}
+}
+
+// buildHandler assembles the router from the route table and wraps it in
+// the cross-origin guard and the security headers.
+func (s *Server) buildHandler() http.Handler {
+	r := chi.NewRouter()
+	r.Use(middleware.GetHead) // HEAD is answered like GET, with no body
+	for _, rt := range s.routes() {
+		r.Method(rt.method, rt.pattern, s.guard(rt))
+	}
+	r.NotFound(func(w http.ResponseWriter, r *http.Request) {
+		if isAPI(r) {
+			writeError(w, http.StatusNotFound, "no such resource: "+r.URL.Path)
+			return
+		}
+		s.pageError(w, r, http.StatusNotFound, "There is no page at this address.")
+	})
+	r.MethodNotAllowed(func(w http.ResponseWriter, r *http.Request) {
+		if isAPI(r) {
+			writeError(w, http.StatusMethodNotAllowed, "method "+r.Method+" is not allowed on "+r.URL.Path)
+			return
+		}
+		s.pageError(w, r, http.StatusMethodNotAllowed, "This address does not accept that request.")
+	})
+	var h http.Handler = r
+	h = http.MaxBytesHandler(h, 8<<20)
+	h = crossOriginGuard(h)
+	h = securityHeaders(s.secure, h)
+	return h
+}
+
+// principal is who is making a request.
+type principal struct {
+	user    store.User
+	session string // raw session id, when signed in with a cookie
+	token   bool   // authenticated with a Bearer token
+}
+
+type principalKey struct{}
+
+// who returns the request's principal, or nil for an anonymous request.
+func who(r *http.Request) *principal {
+	p, _ := r.Context().Value(principalKey{}).(*principal)
+	return p
+}
+
+// errBadToken is a Bearer token that is unknown, revoked or malformed.
+var errBadToken = errors.New("the API token is not valid (unknown, revoked, or its user is disabled)")
+
+// guard authenticates the request and enforces the route's least role.
+func (s *Server) guard(rt route) http.Handler {
+	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		p, err := s.identify(w, r)
+		if err != nil {
+			if errors.Is(err, errBadToken) {
+				w.Header().Set("WWW-Authenticate", `Bearer error="invalid_token"`)
+				writeError(w, http.StatusUnauthorized, err.Error())
+				return
+			}
+			s.internalError(w, r, err)
+			return
+		}
+		if p != nil {
+			r = r.WithContext(context.WithValue(r.Context(), principalKey{}, p))
+		}
+		if rt.min == anyone {
+			rt.handle(w, r)
+			return
+		}
+		if p == nil {
+			if isAPI(r) {
+				w.Header().Set("WWW-Authenticate", `Bearer`)
+				writeError(w, http.StatusUnauthorized, "authentication required: send an API token as \"Authorization: Bearer TOKEN\"")
+				return
+			}
+			next := r.URL.Path
+			if r.Method == http.MethodGet && r.URL.RawQuery != "" {
+				next += "?" + r.URL.RawQuery
+			}
+			http.Redirect(w, r, "/signin?next="+url.QueryEscape(next), http.StatusSeeOther)
+			return
+		}
+		if !p.user.Role.AtLeast(rt.min) {
+			msg := "this needs the " + string(rt.min) + " role; " + p.user.Name + " is " + string(p.user.Role)
+			if isAPI(r) {
+				writeError(w, http.StatusForbidden, msg)
+				return
+			}
+			s.pageError(w, r, http.StatusForbidden, msg)
+			return
+		}
+		rt.handle(w, r)
+	})
+}
+
+// identify finds the caller: an API request may carry a Bearer token
+// (which then decides, and a bad one is an error); otherwise the session
+// cookie is used. A missing or expired session is anonymous.
+func (s *Server) identify(w http.ResponseWriter, r *http.Request) (*principal, error) {
+	ctx := r.Context()
+	if authz := r.Header.Get("Authorization"); authz != "" && isAPI(r) {
+		scheme, raw, ok := strings.Cut(authz, " ")
+		raw = strings.TrimSpace(raw)
+		if !ok || !strings.EqualFold(scheme, "Bearer") || raw == "" {
+			return nil, errBadToken
+		}
+		u, err := s.db.TokenUser(ctx, raw)
+		if errors.Is(err, store.ErrNotFound) || (err == nil && !u.Active) {
+			return nil, errBadToken
+		}
+		if err != nil {
+			return nil, err
+		}
+		return &principal{user: u, token: true}, nil
+	}
+	c, err := r.Cookie(s.cookieName())
+	if err != nil || c.Value == "" {
+		return nil, nil
+	}
+	u, err := s.db.SessionUser(ctx, c.Value, s.now(), SessionIdle, SessionAbsolute)
+	if errors.Is(err, store.ErrNotFound) || (err == nil && !u.Active) {
+		s.clearSessionCookie(w)
+		return nil, nil
+	}
+	if err != nil {
+		return nil, err
+	}
+	return &principal{user: u, session: c.Value}, nil
+}
+
+// internalError logs err and answers 500 without details.
+func (s *Server) internalError(w http.ResponseWriter, r *http.Request, err error) {
+	s.log.Error("request failed", "method", r.Method, "path", r.URL.Path, "err", err)
+	if isAPI(r) {
+		writeError(w, http.StatusInternalServerError, "internal error; the server log has the details")
+		return
+	}
+	s.pageError(w, r, http.StatusInternalServerError, "Something went wrong on the server; the server log has the details.")
+}
+
+func (s *Server) healthz(w http.ResponseWriter, r *http.Request) {
+	w.Header().Set("Content-Type", "text/plain; charset=utf-8")
+	w.Header().Set("Cache-Control", "no-store")
+	w.Write([]byte("ok\n"))
+}
