@@ -230,7 +230,11 @@ func TestReferenceFake(t *testing.T) {
 }
 
 // TestReferenceWithStore runs the reference review end to end on a real
-// store in a temporary directory.
+// store in a temporary directory. The reference lots include, every week,
+// one at Monday 00:10 and one at Sunday 23:30 on the plant's clocks, and
+// the window (2026-W37 to W48) spans the end of summer time in Berlin
+// (25 October) and of daylight time in Chicago (1 November); the week of
+// each lot was found by Python's zoneinfo and isocalendar.
 func TestReferenceWithStore(t *testing.T) {
 	ref := loadReference(t)
 	db, err := store.Open(filepath.Join(t.TempDir(), "review.db"))
