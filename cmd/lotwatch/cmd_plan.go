@@ -21,6 +21,7 @@ func init() {
 }
 
 const planHelp = `Usage: lotwatch plan --p0 P [--p1 P] [--n N] [--arl1 T] [--sigma K] [options]
+       lotwatch plan --process NAME --db FILE [--p1 P] [--n N] [--arl1 T] [options]
 
 Shows how a p or np chart with K-sigma limits behaves for lots of N units:
 how many nonconforming units make a lot signal, and the average number of
@@ -33,6 +34,10 @@ finds the smallest lot size whose ARL at P1 is at most the target.
 
 Options:
   --p0 P      usual (in-control) fraction nonconforming, between 0 and 1; required
+              unless --process is given
+  --process NAME  take P0 from this p or np process: the centre of its latest
+              frozen limit set, else the trial centre of all its lots
+  --db FILE   the lotwatch database holding --process
   --p1 P      shifted fraction nonconforming to detect, between 0 and 1, not P0
   --n N       units per lot, a whole number greater than 0
   --arl1 T    target: a shift to P1 should signal within T lots on average
@@ -68,6 +73,7 @@ type planJSON struct {
 	UCL             float64  `json:"ucl"`
 	LCL             float64  `json:"lcl"`
 	TargetARL1      *float64 `json:"arl1_target,omitempty"`
+	P0Source        string   `json:"p0_source,omitempty"`
 }
 
 func finiteOrNil(x float64) *float64 {
@@ -86,6 +92,8 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	sigmas := fs.String("sigma", "3", "")
 	maxNs := fs.String("max-n", "100000", "")
 	format := fs.String("format", "text", "")
+	procName := fs.String("process", "", "")
+	dbPath := fs.String("db", "", "")
 	pos, code := statsParse(fs, args, planHelp, stdout, stderr)
 	if code >= 0 {
 		return code
@@ -102,7 +110,10 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	}
 	var p0, p1, target float64 = math.NaN(), math.NaN(), math.NaN()
 	var n int64
-	if *p0s == "" {
+	var p0Source string
+	if *procName != "" || *dbPath != "" {
+		p0, p0Source = planProcessCentre(u, *procName, *dbPath, *p0s)
+	} else if *p0s == "" {
 		u.addf("--p0 is required: the usual fraction nonconforming, such as 0.02")
 	} else {
 		p0 = fraction("p0", *p0s)
@@ -167,7 +178,7 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		out := planJSON{
 			N: pl.N, UCLCount: pl.UCLCount, LCLCount: pl.LCLCount,
 			ARL0: finiteOrNil(pl.ARL0), MinNPositiveLCL: pl.MinNPositiveLCL,
-			P0: p0, Sigma: k, UCL: pl.UCL, LCL: pl.LCL,
+			P0: p0, Sigma: k, UCL: pl.UCL, LCL: pl.LCL, P0Source: p0Source,
 		}
 		if *p1s != "" {
 			out.P1, out.ARL1 = &p1, finiteOrNil(pl.ARL1)
@@ -179,6 +190,9 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	}
 
 	var b strings.Builder
+	if p0Source != "" {
+		fmt.Fprintf(&b, "Usual fraction nonconforming of process %q: %s, the %s.\n\n", *procName, statsRate(p0), p0Source)
+	}
 	if searched {
 		fmt.Fprintf(&b, "Smallest lot size that detects a shift to %s within %s lots on average: %d units.\n\n",
 			statsRate(p1), strconv.FormatFloat(target, 'g', -1, 64), n)
