@@ -6,6 +6,7 @@ import (
 	"encoding/json"
 	"fmt"
 	"io"
+	"lotwatch/store/lotcsv"
 	"math"
 	"strconv"
 	"strings"
@@ -464,11 +465,13 @@ func (r *Review) WriteCSV(w io.Writer) error {
 		if len(pr.Pareto) > 0 {
 			top = pr.Pareto[0].Category
 		}
-		row := []string{r.Week, pr.Process.Name, string(pr.Process.Chart), string(pr.Method), num(r.Level),
+		// text typed by users is guarded against spreadsheet formulas;
+		// numbers (a negative difference starts with "-") are not.
+		row := []string{r.Week, lotcsv.Neutralise(pr.Process.Name), string(pr.Process.Chart), string(pr.Method), num(r.Level),
 			strconv.Itoa(cur.Lots), strconv.FormatInt(cur.Inspected, 10), strconv.FormatInt(cur.Count, 10), num(cur.Rate), num(cur.Lower), num(cur.Upper),
 			prev.Week, strconv.Itoa(prev.Lots), strconv.FormatInt(prev.Inspected, 10), strconv.FormatInt(prev.Count, 10), num(prev.Rate), num(prev.Lower), num(prev.Upper),
 			num(c.Difference), num(c.Lower), num(c.Upper), num(c.PValue), c.Verdict,
-			strconv.Itoa(len(pr.OutOfLimits)), strconv.Itoa(len(pr.Signals)), top}
+			strconv.Itoa(len(pr.OutOfLimits)), strconv.Itoa(len(pr.Signals)), lotcsv.Neutralise(top)}
 		if err := cw.Write(row); err != nil {
 			return err
 		}
