@@ -43,6 +43,9 @@ Options:
   --arl1 T    target: a shift to P1 should signal within T lots on average
               (a number, 1 or more; needs --p1)
   --sigma K   width of the limits in standard deviations (default 3)
+  --min-arl0 A  when searching, also require at least A lots on average between
+              false alarms at P0 (default 0: no floor; small lots can meet the
+              ARL1 target only by signalling often in control too)
   --max-n N   largest lot size tried when searching (default 100000,
               at most 10000000)
   --format F  text (default) or json
@@ -91,6 +94,7 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	arl1s := fs.String("arl1", "", "")
 	sigmas := fs.String("sigma", "3", "")
 	maxNs := fs.String("max-n", "100000", "")
+	minARL0s := fs.String("min-arl0", "0", "")
 	format := fs.String("format", "text", "")
 	procName := fs.String("process", "", "")
 	dbPath := fs.String("db", "", "")
@@ -158,7 +162,12 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 
 	searched := *ns == ""
 	if searched {
-		n, err = spc.SmallestN(p0, p1, k, target, maxN)
+		minARL0, perr := strconv.ParseFloat(*minARL0s, 64)
+		if perr != nil || !(minARL0 >= 0) {
+			fmt.Fprintf(stderr, "lotwatch plan: --min-arl0 %q must be a number of lots, 0 or more\n", *minARL0s)
+			return exitUsage
+		}
+		n, err = spc.SmallestNWithARL0(p0, p1, k, target, minARL0, maxN)
 		if errors.Is(err, spc.ErrNoPlan) {
 			fmt.Fprintf(stderr, "lotwatch plan: no lot size up to %d units detects a shift to %s within %s lots on average; try a larger --max-n or a smaller --sigma\n",
 				maxN, *p1s, *arl1s)
@@ -221,6 +230,9 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 			fmt.Fprintf(&b, "  this %s the target of %s lots.\n", verdict, strconv.FormatFloat(target, 'g', -1, 64))
 		}
 	}
+	if pl.ARL0 < planFewLotsARL0 {
+		fmt.Fprintf(&b, "\nNote: at this size an in-control process gives a false alarm every %.0f lots or so;\nif that is too often, search with --min-arl0 (e.g. --min-arl0 200) or use a larger --n.\n", pl.ARL0)
+	}
 	if searched {
 		b.WriteString("\nBecause counts are whole numbers, some larger lot sizes may miss the target again;\ncheck the size you choose with --n.\n")
 	}
@@ -228,6 +240,11 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	fmt.Fprint(stdout, b.String())
 	return exitOK
 }
+
+// planFewLotsARL0 is the ARL0 below which the text output points out
+// frequent false alarms (common practice, no source: a 3-sigma chart of a
+// normal statistic gives about 370).
+const planFewLotsARL0 = 100
 
 // planRunLength says an average run length in words.
 func planRunLength(arl float64) string {
