@@ -166,19 +166,17 @@ func ParseRules(s string) (RuleSet, error) {
 // overlapping or touching the open signal of the same rule extends that
 // signal instead of adding another.
 type ruleEngine struct {
-	set RuleSet
-	// shift registers of the last lots, bit 0 = current lot
-	hi2, lo2, hi1, lo1 uint8
-	runAbove, runBelow int
-	runUp, runDown     int
-	alt                int
-	lastDir            int8
-	runInside          int
-	runOutside         int
-	prevZ              float64
-	havePrev           bool
-	open               [numRules]int
-	signals            []Signal
+	set            RuleSet
+	regs           ruleRegs
+	runUp, runDown int
+	alt            int
+	lastDir        int8
+	runInside      int
+	runOutside     int
+	prevZ          float64
+	havePrev       bool
+	open           [numRules]int
+	signals        []Signal
 
 	// Which state the selected rules need, fixed by reset, so that a
 	// lot costs only the work of the rules chosen.
@@ -232,27 +230,54 @@ func (e *ruleEngine) step(i int, p *Point, k float64) {
 	if k != e.zk {
 		e.zk, e.z1, e.z2 = k, k/3, 2*k/3
 	}
-	z1, z2 := e.z1, e.z2
-	may := e.beyond & (b2u(p.Above) | b2u(p.Below))
-	if e.zones {
-		e.hi2 = e.hi2<<1 | b2u(z > z2)
-		e.lo2 = e.lo2<<1 | b2u(z < -z2)
-		e.hi1 = e.hi1<<1 | b2u(z > z1)
-		e.lo1 = e.lo1<<1 | b2u(z < -z1)
-		may |= twoOfThree[e.hi2&7] | twoOfThree[e.lo2&7] | fourOfFive[e.hi1&31] | fourOfFive[e.lo1&31]
-	}
-	if e.sides {
-		e.runAbove = (e.runAbove + 1) * int(b2u(z > 0))
-		e.runBelow = (e.runBelow + 1) * int(b2u(z < 0))
-		may |= b2u(e.runAbove >= 8) | b2u(e.runBelow >= 8)
-	}
+	var may uint8
+	e.regs, may = e.regs.advance(z, e.z1, e.z2, e.zones, e.sides)
+	may |= e.beyond & (b2u(p.Above) | b2u(p.Below))
 	if e.nelson {
-		e.stepNelson(z, z1)
+		e.stepNelson(z, e.z1)
 		may |= b2u(e.runUp >= 5) | b2u(e.runDown >= 5) | b2u(e.alt >= 13) | b2u(e.runInside >= 15) | b2u(e.runOutside >= 8)
 	}
 	if may != 0 {
 		e.fire(i, p, k)
 	}
+}
+
+// ruleRegs is the state of the zone and same-side rules (Western
+// Electric 2–4, Nelson 2, 5 and 6), small enough for a loop to keep in
+// registers.
+type ruleRegs struct {
+	// zones holds four shift registers of the last lots, bit 0 = the
+	// current lot, one per byte: beyond +2σ, beyond −2σ, beyond +1σ,
+	// beyond −1σ.
+	zones              uint32
+	runAbove, runBelow int
+}
+
+// The bytes of ruleRegs.zones.
+const (
+	hi2Shift = 0
+	lo2Shift = 8
+	hi1Shift = 16
+	lo1Shift = 24
+)
+
+// advance takes in the z of the next lot, updating the zone registers
+// when zones is set and the same-side runs when sides is set, and
+// reports 1 when a zone or same-side rule may be met at this lot.
+func (r ruleRegs) advance(z, z1, z2 float64, zones, sides bool) (ruleRegs, uint8) {
+	var may uint8
+	if zones {
+		r.zones = r.zones<<1&0xfefefefe | uint32(b2u(z > z2))<<hi2Shift | uint32(b2u(z < -z2))<<lo2Shift |
+			uint32(b2u(z > z1))<<hi1Shift | uint32(b2u(z < -z1))<<lo1Shift
+		may = twoOfThree[r.zones>>hi2Shift&7] | twoOfThree[r.zones>>lo2Shift&7] |
+			fourOfFive[r.zones>>hi1Shift&31] | fourOfFive[r.zones>>lo1Shift&31]
+	}
+	if sides {
+		r.runAbove = (r.runAbove + 1) * int(b2u(z > 0))
+		r.runBelow = (r.runBelow + 1) * int(b2u(z < 0))
+		may |= b2u(r.runAbove >= 8) | b2u(r.runBelow >= 8)
+	}
+	return r, may
 }
 
 // stepNelson updates the trend, alternation and zone-run counts.
@@ -297,27 +322,27 @@ func (e *ruleEngine) fire(i int, p *Point, k float64) {
 		e.emitBoth(RuleWE1, RuleNelson1, i, i, side, 1, k)
 	}
 	if s&(RuleWE2.Set()|RuleNelson5.Set()) != 0 {
-		e.window(RuleWE2, RuleNelson5, i, e.hi2, 0b111, 2, 1, k)
-		e.window(RuleWE2, RuleNelson5, i, e.lo2, 0b111, 2, -1, k)
+		e.window(RuleWE2, RuleNelson5, i, uint8(e.regs.zones>>hi2Shift), 0b111, 2, 1, k)
+		e.window(RuleWE2, RuleNelson5, i, uint8(e.regs.zones>>lo2Shift), 0b111, 2, -1, k)
 	}
 	if s&(RuleWE3.Set()|RuleNelson6.Set()) != 0 {
-		e.window(RuleWE3, RuleNelson6, i, e.hi1, 0b11111, 4, 1, k)
-		e.window(RuleWE3, RuleNelson6, i, e.lo1, 0b11111, 4, -1, k)
+		e.window(RuleWE3, RuleNelson6, i, uint8(e.regs.zones>>hi1Shift), 0b11111, 4, 1, k)
+		e.window(RuleWE3, RuleNelson6, i, uint8(e.regs.zones>>lo1Shift), 0b11111, 4, -1, k)
 	}
-	if e.runAbove >= 8 {
+	if e.regs.runAbove >= 8 {
 		if s.Has(RuleWE4) {
-			e.emit(RuleWE4, i-e.runAbove+1, i, 1, 1, k)
+			e.emit(RuleWE4, i-e.regs.runAbove+1, i, 1, 1, k)
 		}
-		if e.runAbove >= 9 && s.Has(RuleNelson2) {
-			e.emit(RuleNelson2, i-e.runAbove+1, i, 1, 1, k)
+		if e.regs.runAbove >= 9 && s.Has(RuleNelson2) {
+			e.emit(RuleNelson2, i-e.regs.runAbove+1, i, 1, 1, k)
 		}
 	}
-	if e.runBelow >= 8 {
+	if e.regs.runBelow >= 8 {
 		if s.Has(RuleWE4) {
-			e.emit(RuleWE4, i-e.runBelow+1, i, -1, 1, k)
+			e.emit(RuleWE4, i-e.regs.runBelow+1, i, -1, 1, k)
 		}
-		if e.runBelow >= 9 && s.Has(RuleNelson2) {
-			e.emit(RuleNelson2, i-e.runBelow+1, i, -1, 1, k)
+		if e.regs.runBelow >= 9 && s.Has(RuleNelson2) {
+			e.emit(RuleNelson2, i-e.regs.runBelow+1, i, -1, 1, k)
 		}
 	}
 	if s.Has(RuleNelson3) {
