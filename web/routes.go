@@ -41,8 +41,17 @@ func (s *Server) routes() []route {
 		{"POST", "/signout", store.RoleViewer, s.signOut},
 		{"GET", "/password", store.RoleViewer, s.passwordPage},
 		{"POST", "/password", store.RoleViewer, s.changePassword},
-		{"GET", "/", store.RoleViewer, s.processesPage},
+		{"GET", "/", store.RoleViewer, s.boardPage},
 		{"GET", "/processes/{id}", store.RoleViewer, s.chartPage},
+		{"GET", "/processes/{id}/chart.csv", store.RoleViewer, s.chartCSV},
+		{"GET", "/log", store.RoleInspector, s.chooseProcessPage},
+		{"GET", "/processes/{id}/log", store.RoleInspector, s.lotFormPage},
+		{"POST", "/processes/{id}/lots", store.RoleInspector, s.postLot},
+		{"GET", "/lots/{lot}", store.RoleViewer, s.lotPage},
+		{"POST", "/lots/{lot}/causes", store.RoleInspector, s.postCause},
+		{"POST", "/lots/{lot}/causes/{ann}/close", store.RoleInspector, s.closeCause},
+		{"POST", "/lots/{lot}/correct", store.RoleInspector, s.correctLot},
+		{"POST", "/lots/{lot}/void", store.RoleInspector, s.voidLot},
 
 		// JSON API.
 		{"GET", "/api/v1/me", store.RoleViewer, s.apiMe},
