@@ -56,7 +56,7 @@ func (s *Server) boardPage(w http.ResponseWriter, r *http.Request) {
 		})
 	}
 	wg.Wait()
-	d := boardData{Rows: rows, Now: fmtWhen(s.now()), Empty: len(ps) == 0}
+	d := boardData{Rows: rows, Now: s.now().Format("2006-01-02 15:04 MST"), Empty: len(ps) == 0}
 	for _, row := range rows {
 		switch row.State {
 		case "out":

@@ -301,15 +301,19 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 		v.Signals = append(v.Signals, vs)
 	}
 	v.SignalCount = len(v.Signals)
+	seenNote := map[string]bool{}
 	for _, w := range a.Warnings {
-		v.Notes = append(v.Notes, w.Message)
+		if !seenNote[w.Message] {
+			seenNote[w.Message] = true
+			v.Notes = append(v.Notes, w.Message)
+		}
 	}
-	if d := a.Dispersion; d.Overdispersed && d.Advice != "" {
+	if d := a.Dispersion; d.Overdispersed && d.Advice != "" && !seenNote[d.Advice] {
 		v.Notes = append(v.Notes, d.Advice)
 	}
 	switch {
 	case len(pc.sets) == 0:
-		v.Limits = "trial limits — not frozen: estimated from the lots themselves; an engineer freezes a limit set once a clean baseline is found"
+		v.Limits = "estimated from the lots themselves; an engineer freezes a limit set once a clean baseline is found"
 	default:
 		last := pc.sets[len(pc.sets)-1]
 		v.Limits = fmt.Sprintf("limit set %d, in force from %s (%s, k = %s)", last.Number,

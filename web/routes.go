@@ -52,6 +52,12 @@ func (s *Server) routes() []route {
 		{"POST", "/lots/{lot}/causes/{ann}/close", store.RoleInspector, s.closeCause},
 		{"POST", "/lots/{lot}/correct", store.RoleInspector, s.correctLot},
 		{"POST", "/lots/{lot}/void", store.RoleInspector, s.voidLot},
+		{"GET", "/processes/{id}/limits", store.RoleEngineer, s.limitsPage},
+		{"POST", "/processes/{id}/limits", store.RoleEngineer, s.freezeLimits},
+		{"GET", "/settings/processes", store.RoleEngineer, s.processListPage},
+		{"POST", "/settings/processes", store.RoleEngineer, s.addProcess},
+		{"GET", "/processes/{id}/settings", store.RoleEngineer, s.processSettingsPage},
+		{"POST", "/processes/{id}/settings", store.RoleEngineer, s.updateProcess},
 
 		// JSON API.
 		{"GET", "/api/v1/me", store.RoleViewer, s.apiMe},

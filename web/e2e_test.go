@@ -1,0 +1,236 @@
+package web
+
+import (
+	"context"
+	"fmt"
+	"net/http/httptest"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/chromedp/chromedp"
+
+	"lotwatch/store"
+)
+
+// chromiumPath finds a Chromium to drive: $LOTWATCH_CHROMIUM, Debian's
+// /usr/bin/chromium, or one on $PATH.
+func chromiumPath() string {
+	if p := os.Getenv("LOTWATCH_CHROMIUM"); p != "" {
+		return p
+	}
+	for _, name := range []string{"/usr/bin/chromium", "chromium", "chromium-browser", "google-chrome"} {
+		if p, err := exec.LookPath(name); err == nil {
+			return p
+		}
+	}
+	return ""
+}
+
+// skipE2E skips a browser test, or fails it under CI=true, where a skipped
+// browser test would hide a broken set-up.
+func skipE2E(t *testing.T, why string) {
+	t.Helper()
+	if os.Getenv("CI") == "true" {
+		t.Fatal("browser test cannot run under CI=true: " + why)
+	}
+	t.Skip("browser test skipped: " + why)
+}
+
+// browser starts headless Chromium with a fresh profile and returns a
+// chromedp context on it.
+func browser(t *testing.T) context.Context {
+	t.Helper()
+	path := chromiumPath()
+	if path == "" {
+		skipE2E(t, "no Chromium found (install Debian's chromium or set LOTWATCH_CHROMIUM)")
+	}
+	opts := []chromedp.ExecAllocatorOption{
+		chromedp.ExecPath(path),
+		chromedp.UserDataDir(t.TempDir()),
+		chromedp.Flag("headless", true),
+		chromedp.Flag("no-sandbox", true),
+		chromedp.Flag("disable-gpu", true),
+		chromedp.Flag("disable-quic", true),
+		chromedp.Flag("no-first-run", true),
+		chromedp.Flag("disable-background-networking", true),
+		chromedp.Flag("disable-component-update", true),
+		chromedp.Flag("disable-sync", true),
+		chromedp.Flag("disable-dev-shm-usage", true),
+		chromedp.NoDefaultBrowserCheck,
+	}
+	actx, cancelA := chromedp.NewExecAllocator(context.Background(), opts...)
+	ctx, cancelB := chromedp.NewContext(actx)
+	t.Cleanup(func() { cancelB(); cancelA() })
+	// Start the browser without a deadline: a timeout on the first run
+	// would stop the browser itself.
+	if err := chromedp.Do(ctx, chromedp.Navigate("about:blank")); err != nil {
+		skipE2E(t, "Chromium at "+path+" does not start: "+err.Error())
+	}
+	return ctx
+}
+
+// step runs browser actions with a bound on how long they may take.
+func step(t *testing.T, ctx context.Context, what string, actions ...chromedp.Action[chromedp.Void]) {
+	t.Helper()
+	sctx, cancel := context.WithTimeout(ctx, 20*time.Second)
+	defer cancel()
+	if err := chromedp.Do(sctx, actions...); err != nil {
+		t.Fatalf("%s: %v", what, err)
+	}
+}
+
+// text returns the text of the first element matching the CSS selector.
+func text(t *testing.T, ctx context.Context, sel string) string {
+	t.Helper()
+	sctx, cancel := context.WithTimeout(ctx, 20*time.Second)
+	defer cancel()
+	s, err := chromedp.Run(sctx, chromedp.Text(chromedp.CSS(sel)))
+	if err != nil {
+		t.Fatalf("text of %s: %v", sel, err)
+	}
+	return s
+}
+
+// screenshotDir is where the screenshots go: $LOTWATCH_SCREENSHOTS or a
+// temporary directory.
+func screenshotDir(t *testing.T) string {
+	dir := os.Getenv("LOTWATCH_SCREENSHOTS")
+	if dir == "" {
+		var err error
+		if dir, err = os.MkdirTemp("", "lotwatch-screens-"); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	return dir
+}
+
+// shoot saves full-page screenshots of the current page at desktop and
+// tablet widths.
+func shoot(t *testing.T, ctx context.Context, dir, name string) {
+	t.Helper()
+	for _, w := range []int64{1280, 800} {
+		sctx, cancel := context.WithTimeout(ctx, 20*time.Second)
+		err := chromedp.Do(sctx, chromedp.EmulateViewport(w, 900), chromedp.Sleep(150*time.Millisecond))
+		var png []byte
+		if err == nil {
+			png, err = chromedp.Run(sctx, chromedp.FullScreenshot(100))
+		}
+		cancel()
+		if err != nil {
+			t.Fatalf("screenshot %s at %d px: %v", name, w, err)
+		}
+		if err := os.WriteFile(filepath.Join(dir, fmt.Sprintf("%s-%d.png", name, w)), png, 0o644); err != nil {
+			t.Fatal(err)
+		}
+		// no horizontal scrolling at this width
+		sctx, cancel = context.WithTimeout(ctx, 20*time.Second)
+		wide, err := chromedp.Run(sctx, chromedp.Evaluate[bool](`document.documentElement.scrollWidth > document.documentElement.clientWidth + 1`))
+		cancel()
+		if err != nil {
+			t.Fatal(err)
+		}
+		if wide {
+			t.Errorf("%s at %d px scrolls sideways", name, w)
+		}
+	}
+	step(t, ctx, "viewport back", chromedp.EmulateViewport(1280, 900))
+}
+
+// seedE2E logs 48 lots in control, one an hour up to an hour ago.
+func seedE2E(t *testing.T, e *testEnv) {
+	t.Helper()
+	counts := []int64{3, 5, 2, 6, 4, 3, 5, 4, 2, 6, 4, 5}
+	in := make([]store.LotInput, 48)
+	start := e.clock.Now().Add(-49 * time.Hour)
+	for i := range in {
+		in[i] = store.LotInput{Lot: fmt.Sprintf("L%03d", i), Time: start.Add(time.Duration(i) * time.Hour), Shift: []string{"early", "late", "night"}[(i/8)%3],
+			Inspected: 200, Count: counts[i%len(counts)], Categories: map[string]int64{"scratch": counts[i%len(counts)]}}
+	}
+	if _, err := e.db.AddLots(t.Context(), "setup", e.proc.ID, in); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// TestE2E drives the pages in a real browser: sign in, log a lot outside
+// the limits, see it flagged on the chart, record its cause, see the
+// status board change, freeze a limit set and upload a CSV file with an
+// error.
+func TestE2E(t *testing.T) {
+	if testing.Short() && os.Getenv("CI") != "true" {
+		t.Skip("browser test skipped in -short mode")
+	}
+	ctx := browser(t)
+	e := newTestEnv(t)
+	seedE2E(t, e)
+	ts := httptest.NewServer(e.h)
+	defer ts.Close()
+	dir := screenshotDir(t)
+	t.Log("screenshots in ", dir)
+	id := fmt.Sprint(e.proc.ID)
+	u := func(p string) string { return ts.URL + p }
+
+	step(t, ctx, "sign in", chromedp.EmulateViewport(1280, 900),
+		chromedp.Navigate(u("/")),
+		chromedp.WaitVisible(chromedp.CSS(`input[name=name]`)),
+		chromedp.SendKeys(chromedp.CSS(`input[name=name]`), "inspector1"),
+		chromedp.SendKeys(chromedp.CSS(`input[name=password]`), testPassword),
+		chromedp.Submit(chromedp.CSS(`input[name=password]`)),
+		chromedp.WaitVisible(chromedp.CSS(`ul.board`)))
+	before := text(t, ctx, `ul.board .verdict`)
+	if !strings.Contains(before, "in control today") && !strings.Contains(before, "no lots today") {
+		t.Fatalf("status board before: %q, want in control or no lots today", before)
+	}
+	shoot(t, ctx, dir, "board")
+
+	step(t, ctx, "open the lot form", chromedp.Navigate(u("/processes/"+id+"/log")), chromedp.WaitVisible(chromedp.CSS(`#f-lot`)))
+	shoot(t, ctx, dir, "lot-form")
+	step(t, ctx, "log a bad lot",
+		chromedp.SendKeys(chromedp.CSS(`#f-lot`), "E2E-OUT"),
+		chromedp.SendKeys(chromedp.CSS(`#f-inspected`), "200"),
+		chromedp.SendKeys(chromedp.CSS(`#f-count`), "40"),
+		chromedp.SendKeys(chromedp.CSS(`#f-cat0`), "40"),
+		chromedp.Click(chromedp.CSS(`form.card-form button[type=submit]`)),
+		chromedp.WaitVisible(chromedp.CSS(`#verdict`)))
+	if v := text(t, ctx, `#verdict .big`); !strings.Contains(v, "Outside the control limits") {
+		t.Fatalf("verdict after logging: %q", v)
+	}
+
+	step(t, ctx, "today's chart", chromedp.Navigate(u("/processes/"+id+"?period=7d")),
+		chromedp.WaitVisible(chromedp.CSS(`#chart[data-chart-ready]`)))
+	if row := text(t, ctx, `table.data tbody tr:first-child`); !strings.Contains(row, "E2E-OUT") || !strings.Contains(row, "outside limits") {
+		t.Fatalf("chart table's newest row: %q", row)
+	}
+	// the chart drew the lot as an out-of-limits mark
+	sctx, cancel := context.WithTimeout(ctx, 20*time.Second)
+	marked, err := chromedp.Run(sctx, chromedp.Evaluate[bool](`(function(){var c=echarts.getInstanceByDom(document.getElementById('chart'));
+var s=c.getOption().series.find(function(x){return x.name==='out of limits'});
+return s.data.some(function(d){return d && d.name==='E2E-OUT' && d.value!=='-'});})()`))
+	cancel()
+	if err != nil || !marked {
+		t.Fatalf("the chart does not mark E2E-OUT out of limits (err %v)", err)
+	}
+	shoot(t, ctx, dir, "chart")
+
+	step(t, ctx, "record the cause", chromedp.Click(chromedp.CSS(`table.data tbody tr:first-child a`)),
+		chromedp.WaitVisible(chromedp.CSS(`#c-cause`)),
+		chromedp.SendKeys(chromedp.CSS(`#c-cause`), "Worn fixture clamp scratched the parts"),
+		chromedp.SendKeys(chromedp.CSS(`#c-action`), "Clamp pad replaced"),
+		chromedp.Click(chromedp.CSS(`#cause button[type=submit]`)),
+		chromedp.WaitVisible(chromedp.CSS(`.cause-item`)))
+	if c := text(t, ctx, `.cause-item`); !strings.Contains(c, "Worn fixture clamp") || !strings.Contains(c, "Open") {
+		t.Fatalf("recorded cause: %q", c)
+	}
+
+	step(t, ctx, "board again", chromedp.Navigate(u("/")), chromedp.WaitVisible(chromedp.CSS(`ul.board`)))
+	after := text(t, ctx, `ul.board li`)
+	if !strings.Contains(after, "1 lot out of limits today") || !strings.Contains(after, "1 open") {
+		t.Fatalf("status board after: %q", after)
+	}
+}
