@@ -43,6 +43,7 @@ var templateFuncs = template.FuncMap{
 	"plural":     plural,
 	"thousands":  func(n int) string { return thousands(int64(n)) },
 	"ruleName":   ruleName,
+	"sub":        func(a, b int) int { return a - b },
 	"valueShort": func(c spc.Chart) string { return valueShort(string(c)) },
 }
 
