@@ -233,4 +233,72 @@ return s.data.some(function(d){return d && d.name==='E2E-OUT' && d.value!=='-'})
 	if !strings.Contains(after, "1 lot out of limits today") || !strings.Contains(after, "1 open") {
 		t.Fatalf("status board after: %q", after)
 	}
+
+	// An engineer freezes a limit set from the baseline, leaving out the
+	// bad lot with its reason.
+	step(t, ctx, "sign out", chromedp.Click(chromedp.CSS(`header .who button`)), chromedp.WaitVisible(chromedp.CSS(`input[name=name]`)))
+	step(t, ctx, "sign in as engineer",
+		chromedp.SendKeys(chromedp.CSS(`input[name=name]`), "engineer1"),
+		chromedp.SendKeys(chromedp.CSS(`input[name=password]`), testPassword),
+		chromedp.Submit(chromedp.CSS(`input[name=password]`)),
+		chromedp.WaitVisible(chromedp.CSS(`ul.board`)),
+		chromedp.Navigate(u("/processes/"+id+"/limits")),
+		chromedp.WaitVisible(chromedp.CSS(`#ex-E2E-OUT`)),
+		chromedp.Click(chromedp.CSS(`#ex-E2E-OUT`)),
+		chromedp.SendKeys(chromedp.CSS(`#why-E2E-OUT`), "worn clamp, cause recorded"),
+		chromedp.Click(chromedp.CSS(`form.card-form button.secondary`)),
+		chromedp.WaitVisible(chromedp.CSS(`#l-reason`)))
+	if sum := text(t, ctx, `section.summary`); !strings.Contains(sum, "1 left out") {
+		t.Fatalf("trial limits after leaving the lot out: %q", sum)
+	}
+	shoot(t, ctx, dir, "limits")
+	step(t, ctx, "freeze",
+		chromedp.SendKeys(chromedp.CSS(`#l-reason`), "Stable two days after the clamp fix"),
+		chromedp.Click(chromedp.CSS(`#l-reason`)),
+		chromedp.Submit(chromedp.CSS(`#l-reason`)),
+		chromedp.WaitVisible(chromedp.CSS(`p.notice`)))
+	if n := text(t, ctx, `p.notice`); !strings.Contains(n, "Limit set 1 is frozen") {
+		t.Fatalf("after freezing: %q", n)
+	}
+	sets, err := e.db.LimitSets(t.Context(), e.proc.ID)
+	if err != nil || len(sets) != 1 || sets[0].Excluded["E2E-OUT"] == "" {
+		t.Fatalf("stored limit sets %+v (err %v), want one with E2E-OUT left out", sets, err)
+	}
+
+	// A CSV file with a bad row: the problem names its line, nothing is
+	// stored.
+	csvPath := filepath.Join(t.TempDir(), "lots.csv")
+	csvBody := "lot,inspected,defective\nU-1,200,3\nU-2,200,300\nU-3,200,4\n"
+	if err := os.WriteFile(csvPath, []byte(csvBody), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	before48 := e.lotCount(t)
+	step(t, ctx, "upload a CSV with an error", chromedp.Navigate(u("/upload?process="+id)),
+		chromedp.WaitVisible(chromedp.CSS(`#u-file`)),
+		chromedp.SetUploadFiles(chromedp.CSS(`#u-file`), []string{csvPath}),
+		chromedp.Click(chromedp.CSS(`form.card-form button[type=submit]`)),
+		chromedp.WaitVisible(chromedp.CSS(`#problems`)))
+	if p := text(t, ctx, `#problems`); !strings.Contains(p, "line 3") || !strings.Contains(p, "defective") {
+		t.Fatalf("upload problems: %q", p)
+	}
+	shoot(t, ctx, dir, "upload-problem")
+	if n := e.lotCount(t); n != before48 {
+		t.Fatalf("a rejected upload stored lots: %d, want %d", n, before48)
+	}
+	// The corrected file previews, then imports on confirmation.
+	if err := os.WriteFile(csvPath, []byte(strings.Replace(csvBody, "300", "5", 1)), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	step(t, ctx, "upload the corrected CSV",
+		chromedp.SetUploadFiles(chromedp.CSS(`#u-file`), []string{csvPath}),
+		chromedp.Click(chromedp.CSS(`form.card-form button[type=submit]`)),
+		chromedp.WaitVisible(chromedp.CSS(`section[aria-label=Preview] button`)))
+	if n := e.lotCount(t); n != before48 {
+		t.Fatalf("the preview stored lots: %d, want %d", n, before48)
+	}
+	step(t, ctx, "confirm the import", chromedp.Click(chromedp.CSS(`section[aria-label=Preview] button`)),
+		chromedp.WaitVisible(chromedp.CSS(`p.notice`)))
+	if n := e.lotCount(t); n != before48+3 {
+		t.Fatalf("after the import: %d lots, want %d", n, before48+3)
+	}
 }
