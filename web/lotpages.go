@@ -35,6 +35,7 @@ type lotForm struct {
 	Shifts     []string
 	Correcting bool
 	LotID      int64
+	unread     map[string]bool // fields whose text was not a number or time
 }
 
 // Problem returns the message for a field, for the template.
@@ -48,7 +49,7 @@ func countLabel(c spc.Chart) string {
 }
 
 func newLotForm(p store.Process, vals map[string]string) lotForm {
-	f := lotForm{Proc: p, CountLabel: countLabel(p.Chart), Values: vals, Problems: map[string]string{}}
+	f := lotForm{Proc: p, CountLabel: countLabel(p.Chart), Values: vals, Problems: map[string]string{}, unread: map[string]bool{}}
 	for i, c := range p.Categories {
 		in := "cat" + strconv.Itoa(i)
 		f.Cats = append(f.Cats, catField{Name: c, Input: in, Value: vals[in]})
@@ -70,13 +71,17 @@ func (f *lotForm) addProblems(ps []store.Problem) {
 		placed := false
 		for i := range f.Cats {
 			if f.Cats[i].Name == pr.Field {
-				f.Cats[i].Problem = joinMsg(f.Cats[i].Problem, msg)
+				if f.Cats[i].Problem == "" { // a number that could not be read says so already
+					f.Cats[i].Problem = msg
+				}
 				placed = true
 			}
 		}
 		switch field {
 		case "lot", "time", "shift", "inspected", "count", "inspector", "note", "reason":
-			f.Problems[field] = joinMsg(f.Problems[field], msg)
+			if _, ok := f.Problems[field]; !ok || !f.unread[field] {
+				f.Problems[field] = joinMsg(f.Problems[field], msg)
+			}
 			placed = true
 		}
 		if !placed {
@@ -110,11 +115,13 @@ func readLotForm(r *http.Request, p store.Process) (store.LotInput, lotForm) {
 		v = strings.TrimSpace(v)
 		if v == "" {
 			f.Problems[field] = "is empty: enter a whole number"
+			f.unread[field] = true
 			return 0
 		}
 		n, err := strconv.ParseInt(v, 10, 64)
 		if err != nil {
 			f.Problems[field] = strconv.Quote(v) + " is not a whole number"
+			f.unread[field] = true
 		}
 		return n
 	}
@@ -142,6 +149,7 @@ func readLotForm(r *http.Request, p store.Process) (store.LotInput, lotForm) {
 		}
 		if err != nil {
 			f.Problems["time"] = strconv.Quote(t) + " is not a date and time (YYYY-MM-DD HH:MM)"
+			f.unread["time"] = true
 		}
 		in.Time = tt
 	}
@@ -225,12 +233,10 @@ func (s *Server) postLot(w http.ResponseWriter, r *http.Request) {
 	fail := func() {
 		s.render(w, r, http.StatusBadRequest, "lotform.html", "Log a lot — "+p.Name, f)
 	}
+	// every problem at once: the shared validation runs even when a
+	// number could not be read (that field keeps its own message)
+	f.addProblems(store.ValidateLot(p, in))
 	if f.hasProblems() {
-		fail()
-		return
-	}
-	if ps := store.ValidateLot(p, in); len(ps) > 0 {
-		f.addProblems(ps)
 		fail()
 		return
 	}
@@ -470,9 +476,7 @@ func (s *Server) correctLot(w http.ResponseWriter, r *http.Request) {
 	if in.Time.IsZero() {
 		in.Time = l.Time
 	}
-	if !f.hasProblems() {
-		f.addProblems(store.ValidateLot(p, in))
-	}
+	f.addProblems(store.ValidateLot(p, in))
 	if f.hasProblems() {
 		s.showLot(w, r, http.StatusBadRequest, "The correction was not saved; see the fields marked below.", nil, &f)
 		return
