@@ -14,7 +14,7 @@ import (
 
 // tableRows is the most rows the chart page's table lists (newest
 // first); the CSV download has every point of the period.
-const tableRows = 500
+const tableRows = 200
 
 type chartPageData struct {
 	View        *chartView

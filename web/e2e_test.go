@@ -129,6 +129,16 @@ func shoot(t *testing.T, ctx context.Context, dir, name string) {
 		if err := os.WriteFile(filepath.Join(dir, fmt.Sprintf("%s-%d.png", name, w)), png, 0o644); err != nil {
 			t.Fatal(err)
 		}
+		// and the first screen alone, as a user sees it on opening the page
+		sctx, cancel = context.WithTimeout(ctx, 20*time.Second)
+		png, err = chromedp.Run(sctx, chromedp.CaptureScreenshot())
+		cancel()
+		if err != nil {
+			t.Fatalf("screenshot %s at %d px: %v", name, w, err)
+		}
+		if err := os.WriteFile(filepath.Join(dir, fmt.Sprintf("%s-%d-first-screen.png", name, w)), png, 0o644); err != nil {
+			t.Fatal(err)
+		}
 		// no horizontal scrolling at this width
 		sctx, cancel = context.WithTimeout(ctx, 20*time.Second)
 		wide, err := chromedp.Run(sctx, chromedp.Evaluate[bool](`document.documentElement.scrollWidth > document.documentElement.clientWidth + 1`))
@@ -244,6 +254,7 @@ return s.data.some(function(d){return d && d.name==='E2E-OUT' && d.value!=='-'})
 		chromedp.WaitVisible(chromedp.CSS(`ul.board`)),
 		chromedp.Navigate(u("/processes/"+id+"/limits")),
 		chromedp.WaitVisible(chromedp.CSS(`#ex-E2E-OUT`)),
+		chromedp.WaitVisible(chromedp.CSS(`#chart[data-chart-ready]`)), // the layout is settled
 		chromedp.Click(chromedp.CSS(`#ex-E2E-OUT`)),
 		chromedp.SendKeys(chromedp.CSS(`#why-E2E-OUT`), "worn clamp, cause recorded"),
 		chromedp.Click(chromedp.CSS(`form.card-form button.secondary`)),
@@ -300,5 +311,80 @@ return s.data.some(function(d){return d && d.name==='E2E-OUT' && d.value!=='-'})
 		chromedp.WaitVisible(chromedp.CSS(`p.notice`)))
 	if n := e.lotCount(t); n != before48+3 {
 		t.Fatalf("after the import: %d lots, want %d", n, before48+3)
+	}
+}
+
+// TestScreensOfRunningServer photographs the pages of a running lotwatch
+// (for example `lotwatch demo`) named by $LOTWATCH_SCREENS_URL, signed in
+// as $LOTWATCH_SCREENS_USER (default admin, password demo-admin).
+func TestScreensOfRunningServer(t *testing.T) {
+	base := os.Getenv("LOTWATCH_SCREENS_URL")
+	if base == "" {
+		t.Skip("set LOTWATCH_SCREENS_URL to photograph a running server")
+	}
+	user := os.Getenv("LOTWATCH_SCREENS_USER")
+	if user == "" {
+		user = "admin"
+	}
+	ctx := browser(t)
+	dir := screenshotDir(t)
+	t.Log("screenshots in ", dir)
+	step(t, ctx, "sign in", chromedp.EmulateViewport(1280, 900), chromedp.Navigate(base+"/signin"),
+		chromedp.WaitVisible(chromedp.CSS(`input[name=name]`)),
+		chromedp.SendKeys(chromedp.CSS(`input[name=name]`), user),
+		chromedp.SendKeys(chromedp.CSS(`input[name=password]`), "demo-"+user),
+		chromedp.Submit(chromedp.CSS(`input[name=password]`)),
+		chromedp.WaitVisible(chromedp.CSS(`ul.board`)))
+	shoot(t, ctx, dir, "demo-board")
+	sctx, cancel := context.WithTimeout(ctx, 20*time.Second)
+	links, err := chromedp.Run(sctx, chromedp.Evaluate[[]string](`Array.from(document.querySelectorAll('ul.board h2 a')).map(function(a){return a.getAttribute('href')})`))
+	cancel()
+	if err != nil {
+		t.Fatal(err)
+	}
+	for i, l := range links {
+		step(t, ctx, "chart "+l, chromedp.Navigate(base+l), chromedp.WaitVisible(chromedp.CSS(`#chart[data-chart-ready]`)))
+		shoot(t, ctx, dir, fmt.Sprintf("demo-chart-%d", i))
+	}
+	for _, p := range []string{"/review", "/plan?process=1", "/admin/users", "/settings/processes", "/upload", "/log"} {
+		step(t, ctx, p, chromedp.Navigate(base+p), chromedp.WaitVisible(chromedp.CSS(`main h1`)))
+		shoot(t, ctx, dir, "demo"+strings.NewReplacer("/", "-", "?", "-", "=", "-").Replace(p))
+	}
+}
+
+// TestE2ELargeChart opens the chart of a process with 10,000 lots in the
+// browser: the page says that the series is thinned for drawing, and the
+// chart starts.
+func TestE2ELargeChart(t *testing.T) {
+	if testing.Short() && os.Getenv("CI") != "true" {
+		t.Skip("browser test skipped in -short mode")
+	}
+	ctx := browser(t)
+	e := newTestEnv(t)
+	e.addLots(t, 10000, func(i int) int64 { return int64(3+i%5) + int64(15*btoi(i%997 == 0)) })
+	ts := httptest.NewServer(e.h)
+	defer ts.Close()
+	step(t, ctx, "sign in", chromedp.EmulateViewport(1280, 900),
+		chromedp.Navigate(ts.URL+"/signin"),
+		chromedp.SendKeys(chromedp.CSS(`input[name=name]`), "viewer1"),
+		chromedp.SendKeys(chromedp.CSS(`input[name=password]`), testPassword),
+		chromedp.Submit(chromedp.CSS(`input[name=password]`)),
+		chromedp.WaitVisible(chromedp.CSS(`ul.board`)))
+	t0 := time.Now()
+	step(t, ctx, "the whole record", chromedp.Navigate(fmt.Sprintf("%s/processes/%d?period=all", ts.URL, e.proc.ID)),
+		chromedp.WaitVisible(chromedp.CSS(`#chart[data-chart-ready]`)))
+	t.Logf("chart of 10,000 lots loaded and drawn in %v", time.Since(t0))
+	if n := text(t, ctx, `p.notice[role=note]`); !strings.Contains(n, "10,000 lots drawn as") {
+		t.Fatalf("no thinning notice: %q", n)
+	}
+	sctx, cancel := context.WithTimeout(ctx, 20*time.Second)
+	defer cancel()
+	marked, err := chromedp.Run(sctx, chromedp.Evaluate[int](`(function(){var c=echarts.getInstanceByDom(document.getElementById('chart'));
+return c.getOption().series.find(function(x){return x.name==='out of limits'}).data.filter(function(d){return d && d.value!=='-'}).length;})()`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if want := 10000/997 + 1; marked != want {
+		t.Errorf("%d lots marked out of limits on the thinned chart, want all %d", marked, want)
 	}
 }
