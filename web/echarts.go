@@ -79,7 +79,7 @@ func chartOptions(title string, v *chartView, idx []int) (options map[string]any
 		charts.WithTooltipOpts(opts.Tooltip{Show: opts.Bool(true), Trigger: "axis"}),
 		charts.WithLegendOpts(opts.Legend{Show: opts.Bool(true), Top: "28"}),
 		charts.WithGridOpts(opts.Grid{Left: "64", Right: "24", Top: "72", Bottom: "84"}),
-		charts.WithXAxisOpts(opts.XAxis{Type: "category", Name: v.Unit, Data: codes}),
+		charts.WithXAxisOpts(opts.XAxis{Type: "category", Name: v.Unit, NameLocation: "middle", NameGap: 28, Data: codes}),
 		charts.WithYAxisOpts(opts.YAxis{Type: "value", Name: valueName(string(v.Proc.Chart)), Scale: opts.Bool(true)}),
 		charts.WithDataZoomOpts(opts.DataZoom{Type: "inside"}, opts.DataZoom{Type: "slider"}),
 	)

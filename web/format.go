@@ -18,12 +18,13 @@ func fmtFloat(f float64) string {
 }
 
 // fmtWhen shows a time as the plant reads it: date and minute in the
-// time's own zone.
+// time's own zone, with the zone named so that a reader on another clock
+// is not misled.
 func fmtWhen(t time.Time) string {
 	if t.IsZero() {
 		return "—"
 	}
-	return t.Format("2006-01-02 15:04")
+	return t.Format("2006-01-02 15:04 MST")
 }
 
 // plural is "1 lot", "2 lots".
