@@ -54,6 +54,13 @@ type Lot struct {
 	Count     int64
 }
 
+// MaxInspected is the largest number of units (or inspection units) one
+// lot may have: 10¹². It is far beyond any inspected lot, and it keeps
+// every figure computed for a lot exact: beyond about 10¹³ the binomial
+// and Poisson tail computations lose accuracy and the expected counts no
+// longer fit the arithmetic the limits are made of.
+const MaxInspected = 1_000_000_000_000
+
 // CheckLot reports what is wrong with a lot's numbers for the chart, or
 // nil. It is the one validation rule for counts shared by the command
 // line, the store, the form and the API. The returned error names the
@@ -66,6 +73,10 @@ func CheckLot(chart Chart, inspected, count int64) error {
 	switch {
 	case inspected <= 0:
 		return &FieldError{Field: "inspected", Value: fmt.Sprint(inspected), Reason: "must be a whole number greater than 0"}
+	case inspected > MaxInspected:
+		return &FieldError{Field: "inspected", Value: fmt.Sprint(inspected), Reason: fmt.Sprintf("is more than %d, the most one lot may have", int64(MaxInspected))}
+	case count > MaxInspected:
+		return &FieldError{Field: countField, Value: fmt.Sprint(count), Reason: fmt.Sprintf("is more than %d, the most one lot may have", int64(MaxInspected))}
 	case count < 0:
 		return &FieldError{Field: countField, Value: fmt.Sprint(count), Reason: "must not be negative"}
 	case chart.CountsUnits() && count > inspected:

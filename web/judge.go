@@ -2,6 +2,7 @@ package web
 
 import (
 	"context"
+	"fmt"
 	"sync"
 	"time"
 
@@ -73,7 +74,7 @@ func (s *Server) freshChart(ctx context.Context, p store.Process) (*processChart
 func (s *Server) fly(pf *procFlights, f *flight) {
 	for f != nil {
 		ctx, cancel := context.WithTimeout(context.Background(), judgeTimeout)
-		f.pc, f.err = s.analyzeProcess(ctx, f.proc)
+		f.pc, f.err = s.safeAnalyze(ctx, f.proc)
 		cancel()
 		close(f.done)
 		s.judges.mu.Lock()
@@ -81,4 +82,16 @@ func (s *Server) fly(pf *procFlights, f *flight) {
 		pf.running, pf.next = f, nil
 		s.judges.mu.Unlock()
 	}
+}
+
+// safeAnalyze runs analyzeProcess on the flight's own goroutine, where the
+// HTTP server's recovery does not reach: a panic becomes the error of this
+// analysis instead of ending the whole server.
+func (s *Server) safeAnalyze(ctx context.Context, p store.Process) (pc *processChart, err error) {
+	defer func() {
+		if r := recover(); r != nil {
+			pc, err = nil, fmt.Errorf("process %q: analysis failed: %v", p.Name, r)
+		}
+	}()
+	return s.analyzeProcess(ctx, p)
 }

@@ -1,0 +1,70 @@
+package spc
+
+import (
+	"errors"
+	"math"
+	"testing"
+)
+
+// TestCheckLot holds the shared validation rule to its definition: a
+// count of units cannot be negative or exceed the units inspected
+// (definition of a fraction nonconforming, any SPC text), defects may, and
+// no lot is larger than MaxInspected (the project's own bound, where the
+// tail arithmetic stays exact).
+func TestCheckLot(t *testing.T) {
+	tests := []struct {
+		chart    Chart
+		n, count int64
+		field    string // "" when valid
+	}{
+		{ChartP, 50, 0, ""},
+		{ChartP, 50, 50, ""},
+		{ChartP, 50, 51, "defective"},
+		{ChartNP, 50, -1, "defective"},
+		{ChartP, 0, 0, "inspected"},
+		{ChartU, -3, 1, "inspected"},
+		{ChartU, 10, 25, ""},
+		{ChartC, 10, -1, "defects"},
+		{ChartP, MaxInspected, MaxInspected, ""},
+		{ChartP, MaxInspected + 1, 1, "inspected"},
+		{ChartP, math.MaxInt64, math.MaxInt64, "inspected"},
+		{ChartU, 10, MaxInspected + 1, "defects"},
+	}
+	for _, tt := range tests {
+		err := CheckLot(tt.chart, tt.n, tt.count)
+		var fe *FieldError
+		switch {
+		case tt.field == "" && err != nil:
+			t.Errorf("%s %d/%d: unexpected %v", tt.chart, tt.count, tt.n, err)
+		case tt.field != "" && (!errors.As(err, &fe) || fe.Field != tt.field):
+			t.Errorf("%s %d/%d: got %v, want a problem with %s", tt.chart, tt.count, tt.n, err, tt.field)
+		}
+	}
+}
+
+// TestAnalyzeLargestLots checks that the largest lots allowed give finite
+// results with tail probabilities in [0, 1] (a probability's definition).
+func TestAnalyzeLargestLots(t *testing.T) {
+	for _, c := range []Chart{ChartP, ChartNP, ChartU, ChartC} {
+		lots := []Lot{{"a", MaxInspected, 1}, {"b", MaxInspected, 3}, {"c", MaxInspected, MaxInspected / 2}, {"d", 7, 0}}
+		if c == ChartNP || c == ChartC {
+			lots[3].Inspected = MaxInspected
+		}
+		for _, m := range []Method{MethodSigma, MethodExact, MethodLaney} {
+			a, err := Analyze(lots, Config{Chart: c, Method: m, Rules: RulesWE})
+			if err != nil {
+				t.Fatalf("%s %s: %v", c, m, err)
+			}
+			for _, p := range a.Points {
+				for _, v := range []float64{p.Value, p.Center, p.UCL, p.LCL, p.Z, p.TailP} {
+					if math.IsNaN(v) || math.IsInf(v, 0) {
+						t.Errorf("%s %s lot %s: non-finite value in %+v", c, m, p.Lot.ID, p)
+					}
+				}
+				if p.TailP < 0 || p.TailP > 1 {
+					t.Errorf("%s %s lot %s: tail probability %v", c, m, p.Lot.ID, p.TailP)
+				}
+			}
+		}
+	}
+}
