@@ -434,7 +434,7 @@ func csvProblem(err error) Problems {
 		if errors.Is(pe.Err, csv.ErrQuote) && pe.Line != pe.StartLine {
 			reason = fmt.Sprintf("has a quoted field opened on line %d that is never closed", pe.StartLine)
 		}
-		return Problems{{Line: pe.Line, Field: fmt.Sprintf("column %d", pe.Column), Reason: reason}}
+		return Problems{{Line: pe.Line, Field: fmt.Sprintf("byte %d of the line", pe.Column), Reason: reason}}
 	}
 	return Problems{{Reason: err.Error()}}
 }
