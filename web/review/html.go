@@ -29,6 +29,8 @@ const Stylesheet = `.lw-review{font-family:sans-serif;color:#222;max-width:60rem
 .lw-review .lw-chart{max-width:100%;height:auto;display:block;margin:.3rem 0}
 @media print{
 .lw-review{max-width:none;font-size:10pt}
+.lw-review,.lw-review table,.lw-review .caution,.lw-review svg{max-width:100%;box-sizing:border-box}
+.lw-review h2,.lw-review h3{break-after:avoid;page-break-after:avoid}
 .lw-process+.lw-process{break-before:page;page-break-before:always}
 .lw-review table,.lw-review .lw-chart{break-inside:avoid;page-break-inside:avoid}
 }
