@@ -116,7 +116,7 @@ func TestLotFormBadInput(t *testing.T) {
 			if rec.Code != http.StatusBadRequest {
 				t.Fatalf("status %d, want 400\n%s", rec.Code, trim(body))
 			}
-			// finding F3 (BENCHMARKS.md): a problem in a category count
+			// finding B1 (BENCHMARKS.md, Bad input): a problem in a category count
 			// alone shows no alert above the form
 			if !strings.HasPrefix(tc.field, "cat") && !strings.Contains(body, "The lot was not saved") {
 				t.Error("the form does not say that the lot was not saved")
@@ -128,7 +128,7 @@ func TestLotFormBadInput(t *testing.T) {
 			if !strings.Contains(msg, tc.reason) {
 				t.Errorf("beside %s: %q, want it to contain %q", tc.field, msg, tc.reason)
 			}
-			// finding F4 (BENCHMARKS.md): the note's message is not tied
+			// finding B2 (BENCHMARKS.md, Bad input): the note's message is not tied
 			// to the note
 			if tc.field != "note" && !strings.Contains(body, `aria-invalid="true" aria-describedby="e-`+tc.field+`"`) {
 				t.Errorf("the field %s is not tied to its message (aria-describedby)", tc.field)
