@@ -1,0 +1,254 @@
+package web
+
+import (
+	"context"
+	"fmt"
+	"html"
+	"net/http"
+	"net/url"
+	"regexp"
+	"strings"
+	"testing"
+	"time"
+
+	"lotwatch/store"
+)
+
+// lotFormBody is a valid lot form for the test process (a p chart with
+// the categories scratch = cat0 and dent = cat1), with fields replaced;
+// a field set to "\x00drop" is left out of the post.
+func lotFormBody(over map[string]string) string {
+	v := url.Values{"lot": {"F1"}, "inspected": {"100"}, "count": {"2"}, "cat0": {"1"}, "cat1": {"1"}, "shift": {"early"}, "inspector": {"inspector1"}}
+	for k, x := range over {
+		if x == "\x00drop" {
+			v.Del(k)
+			continue
+		}
+		v.Set(k, x)
+	}
+	return v.Encode()
+}
+
+// fieldProblem returns the message the lot form shows beside a field:
+// the problem text inside the field's box, which is marked has-problem,
+// unescaped.
+func fieldProblem(body, field string) (string, bool) {
+	m := regexp.MustCompile(`<div class="field has-problem"><label for="f-` + regexp.QuoteMeta(field) +
+		`">(?s:[^<]|<[^/]|</[^d]|</d[^i])*?<span[^>]*class="field-problem">([^<]*)</span>`).FindStringSubmatch(body)
+	if m == nil {
+		return "", false
+	}
+	return html.UnescapeString(m[1]), true
+}
+
+// TestLotFormBadInput is the bad-input battery of the form that logs a
+// lot (GET /processes/{id}/log, POST /processes/{id}/lots). Every refused
+// form comes back with status 400, the "not saved" alert, and the reason
+// beside the field at fault (the field marked aria-invalid, the message
+// naming the value where there is one); the stored content is unchanged:
+// the export of the process and the audit trail (entries and head hash)
+// are the same before and after. The number rules are those of the
+// import and the API (a whole number in plain decimal digits; spc.CheckLot:
+// 0 < n ≤ spc.MaxInspected = 10^12, 0 ≤ d ≤ n for a p chart); times are
+// the form's datetime-local (WHATWG HTML, "local date and time string")
+// in the process's time zone, at most a day ahead, not before 1970.
+func TestLotFormBadInput(t *testing.T) {
+	e := newTestEnv(t)
+	ctx := context.Background()
+	loc := e.proc.Location()
+	stored := time.Date(2026, 3, 2, 7, 30, 0, 0, loc) // a whole minute: the form's time has minutes only
+	if _, err := e.db.AddLots(ctx, "setup", e.proc.ID, []store.LotInput{{Lot: "S1", Time: stored, Shift: "early", Inspected: 200,
+		Count: 3, Categories: map[string]int64{"scratch": 2, "dent": 1}, Inspector: "inspector1", Note: "first of the week"}}); err != nil {
+		t.Fatal(err)
+	}
+	c := e.signIn(t, "inspector1", testPassword)
+	path := fmt.Sprintf("/processes/%d/lots", e.proc.ID)
+	future := time.Now().Add(72 * time.Hour).In(loc).Format(formTime)
+	big := strings.Repeat("x", 1<<20)
+	cases := []struct {
+		name   string
+		over   map[string]string
+		field  string // the field whose message is checked
+		reason string // part of the message beside it
+	}{
+		{"empty lot code", map[string]string{"lot": ""}, "lot", "is empty"},
+		{"lot code of spaces", map[string]string{"lot": "   "}, "lot", "is empty"},
+		{"lot code with a line break", map[string]string{"lot": "F\n1"}, "lot", "control characters"},
+		{"lot code 1 MB", map[string]string{"lot": big}, "lot", "longer than 100 bytes"},
+		{"inspected missing", map[string]string{"inspected": "\x00drop"}, "inspected", "is empty"},
+		{"inspected empty", map[string]string{"inspected": ""}, "inspected", "is empty"},
+		{"count missing", map[string]string{"count": "\x00drop"}, "count", "is empty"},
+		{"inspected 0", map[string]string{"inspected": "0", "count": "0", "cat0": "", "cat1": ""}, "inspected", `"0" must be a whole number greater than 0`},
+		{"inspected negative", map[string]string{"inspected": "-100"}, "inspected", `"-100" must be a whole number greater than 0`},
+		{"count negative", map[string]string{"count": "-1"}, "count", `"-1" must not be negative`},
+		{"fraction", map[string]string{"inspected": "1.5"}, "inspected", `"1.5" is not a whole number`},
+		{"fraction zero", map[string]string{"count": "2.0"}, "count", `"2.0" is not a whole number`},
+		{"exponent", map[string]string{"inspected": "1e3"}, "inspected", `"1e3" is not a whole number`},
+		{"thousands separator", map[string]string{"inspected": "1,000"}, "inspected", `"1,000" is not a whole number`},
+		{"hexadecimal", map[string]string{"count": "0x2"}, "count", `"0x2" is not a whole number`},
+		{"full-width digits", map[string]string{"inspected": "１００"}, "inspected", `"１００" is not a whole number`},
+		{"inspected 10^13", map[string]string{"inspected": "10000000000000"}, "inspected", `"10000000000000" is more than 1000000000000`},
+		{"one beyond int64", map[string]string{"inspected": "9223372036854775808"}, "inspected", `"9223372036854775808" is not a whole number`},
+		{"count beyond int64", map[string]string{"count": "99999999999999999999999"}, "count", `"99999999999999999999999" is not a whole number`},
+		{"d more than n", map[string]string{"inspected": "10", "count": "11", "cat0": "", "cat1": ""}, "count", `"11" is more than the 10 units inspected`},
+		{"category negative", map[string]string{"cat0": "-1"}, "cat0", `"-1" must not be negative`},
+		{"category above inspected", map[string]string{"cat1": "101"}, "cat1", `"101" is more than the 100 units inspected`},
+		{"category fraction", map[string]string{"cat0": "0.5"}, "cat0", `"0.5" is not a whole number`},
+		{"time not a time", map[string]string{"time": "yesterday"}, "time", `"yesterday" is not a date and time`},
+		{"time 30 February", map[string]string{"time": "2026-02-30T10:00"}, "time", `"2026-02-30T10:00" is not a date and time`},
+		{"time hour 25", map[string]string{"time": "2026-03-02T25:00"}, "time", `"2026-03-02T25:00" is not a date and time`},
+		{"time far future", map[string]string{"time": future}, "time", "more than a day in the future"},
+		{"time before 1970", map[string]string{"time": "1969-07-20T20:17"}, "time", "is before 1970"},
+		{"stored code, other values", map[string]string{"lot": "S1", "time": stored.Format(formTime), "inspected": "200", "count": "4"}, "lot", `lot "S1" is already logged with other values; nothing was saved`},
+		{"note 1 MB", map[string]string{"note": big}, "note", "longer than 4000 bytes"},
+		{"NUL in note", map[string]string{"note": "a\x00b"}, "note", "must not contain NUL"},
+		{"shift with a tab", map[string]string{"shift": "early\tlate"}, "shift", "control characters"},
+		{"inspector 1 MB", map[string]string{"inspector": big}, "inspector", "longer than 100 bytes"},
+	}
+	if len(cases) < 20 {
+		t.Fatalf("the battery has %d cases; it promises at least 20", len(cases))
+	}
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			before, auditBefore := e.exportOf(t), e.auditOf(t)
+			rec := e.do(req{method: "POST", path: path, cookie: c, form: true, headers: sameOriginForm(), body: lotFormBody(tc.over)})
+			body := rec.Body.String()
+			if rec.Code != http.StatusBadRequest {
+				t.Fatalf("status %d, want 400\n%s", rec.Code, trim(body))
+			}
+			// finding B1 (BENCHMARKS.md, Bad input): a problem in a category count
+			// alone shows no alert above the form
+			if !strings.HasPrefix(tc.field, "cat") && !strings.Contains(body, "The lot was not saved") {
+				t.Error("the form does not say that the lot was not saved")
+			}
+			msg, ok := fieldProblem(body, tc.field)
+			if !ok {
+				t.Fatalf("no message beside the field %s\n%s", tc.field, trim(body))
+			}
+			if !strings.Contains(msg, tc.reason) {
+				t.Errorf("beside %s: %q, want it to contain %q", tc.field, msg, tc.reason)
+			}
+			// finding B2 (BENCHMARKS.md, Bad input): the note's message is not tied
+			// to the note
+			if tc.field != "note" && !strings.Contains(body, `aria-invalid="true" aria-describedby="e-`+tc.field+`"`) {
+				t.Errorf("the field %s is not tied to its message (aria-describedby)", tc.field)
+			}
+			if after := e.exportOf(t); after != before {
+				t.Error("a refused form changed the stored lots")
+			}
+			if a := e.auditOf(t); a != auditBefore {
+				t.Errorf("a refused form changed the audit trail: %s, was %s", a, auditBefore)
+			}
+		})
+	}
+
+	// The same form accepted: the largest lot spc allows is stored
+	// exactly; the stored lot posted again, value for value, is a repeat
+	// that changes nothing and leads to the stored lot.
+	t.Run("inspected 10^12 accepted", func(t *testing.T) {
+		rec := e.do(req{method: "POST", path: path, cookie: c, form: true, headers: sameOriginForm(),
+			body: lotFormBody(map[string]string{"lot": "BIG1", "inspected": "1000000000000", "count": "999999999999", "cat0": "", "cat1": ""})})
+		if rec.Code != http.StatusSeeOther {
+			t.Fatalf("status %d, want 303\n%s", rec.Code, trim(rec.Body.String()))
+		}
+		lots, err := e.db.Lots(ctx, e.proc.ID, time.Time{}, time.Time{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		found := false
+		for _, l := range lots {
+			if l.Lot == "BIG1" {
+				found = true
+				if l.Inspected != 1_000_000_000_000 || l.Count != 999_999_999_999 {
+					t.Errorf("stored n %d, d %d; want 10^12 and 10^12 − 1", l.Inspected, l.Count)
+				}
+			}
+		}
+		if !found {
+			t.Error("lot BIG1 is not stored")
+		}
+	})
+	t.Run("stored lot posted again", func(t *testing.T) {
+		before, auditBefore := e.exportOf(t), e.auditOf(t)
+		rec := e.do(req{method: "POST", path: path, cookie: c, form: true, headers: sameOriginForm(),
+			body: lotFormBody(map[string]string{"lot": "S1", "time": stored.Format(formTime), "inspected": "200", "count": "3", "cat0": "2", "cat1": "1", "note": "first of the week"})})
+		if rec.Code != http.StatusSeeOther {
+			t.Fatalf("status %d, want 303\n%s", rec.Code, trim(rec.Body.String()))
+		}
+		lots, err := e.db.Lots(ctx, e.proc.ID, time.Time{}, time.Time{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, l := range lots {
+			if l.Lot == "S1" && !strings.HasPrefix(rec.Header().Get("Location"), fmt.Sprintf("/lots/%d?", l.ID)) {
+				t.Errorf("sent to %q, want the stored lot %d", rec.Header().Get("Location"), l.ID)
+			}
+		}
+		if after := e.exportOf(t); after != before {
+			t.Error("a repeated lot changed the stored lots")
+		}
+		if a := e.auditOf(t); a != auditBefore {
+			t.Errorf("a repeated lot changed the audit trail: %s, was %s", a, auditBefore)
+		}
+	})
+}
+
+// TestLotFormHostileText: markup and SQL typed into the lot code, the
+// inspector and the note are stored verbatim, shown escaped on the lot's
+// page and on the chart page (html/template escapes < > & ' " in text as
+// &lt; &gt; &amp; &#39; &#34;; the Go documentation of html/template), and
+// never executed: no script from user text reaches a page, and every
+// table is still there.
+func TestLotFormHostileText(t *testing.T) {
+	e := newTestEnv(t)
+	e.addLots(t, 5, func(int) int64 { return 1 })
+	c := e.signIn(t, "inspector1", testPassword)
+	path := fmt.Sprintf("/processes/%d/lots", e.proc.ID)
+	hostile := []struct{ lot, inspector, note string }{
+		{`<script>alert("lot")</script>`, `<img src=x onerror=alert(1)>`, `</textarea><script>alert(2)</script>`},
+		{`F1'); DROP TABLE lots;--`, `O'Brien`, `' OR '1'='1'; DELETE FROM users;--`},
+		{`"><svg onload=alert(3)>`, `inspector1`, "&amp; &lt;b&gt; \u202e reversed"},
+	}
+	esc := strings.NewReplacer("&", "&amp;", "<", "&lt;", ">", "&gt;", `"`, "&#34;", "'", "&#39;").Replace
+	for _, h := range hostile {
+		rec := e.do(req{method: "POST", path: path, cookie: c, form: true, headers: sameOriginForm(),
+			body: lotFormBody(map[string]string{"lot": h.lot, "inspector": h.inspector, "note": h.note})})
+		if rec.Code != http.StatusSeeOther {
+			t.Fatalf("%s: status %d\n%s", h.lot, rec.Code, trim(rec.Body.String()))
+		}
+		page := e.do(req{method: "GET", path: rec.Header().Get("Location"), cookie: c}).Body.String()
+		for _, text := range []string{h.lot, h.inspector, h.note} {
+			if !strings.Contains(page, esc(text)) {
+				t.Errorf("the lot page does not show %q escaped (%s)", text, esc(text))
+			}
+		}
+		if strings.Contains(page, "<script>alert") || strings.Contains(page, "<img src=x") || strings.Contains(page, "<svg onload") {
+			t.Errorf("the lot page of %q carries markup from user text", h.lot)
+		}
+	}
+	lots, err := e.db.Lots(context.Background(), e.proc.ID, time.Time{}, time.Time{})
+	if err != nil || len(lots) != 5+len(hostile) {
+		t.Fatalf("%d lots stored (%v), want %d", len(lots), err, 5+len(hostile))
+	}
+	byCode := map[string]store.Lot{}
+	for _, l := range lots {
+		byCode[l.Lot] = l
+	}
+	for _, h := range hostile {
+		if l, ok := byCode[h.lot]; !ok || l.Inspector != h.inspector || l.Note != h.note {
+			t.Errorf("stored %+v, want %q / %q / %q verbatim", l.LotInput, h.lot, h.inspector, h.note)
+		}
+	}
+	chart := e.do(req{method: "GET", path: fmt.Sprintf("/processes/%d?period=all", e.proc.ID), cookie: c}).Body.String()
+	for _, h := range hostile {
+		if !strings.Contains(chart, esc(h.lot)) {
+			t.Errorf("the chart page does not list %q escaped", h.lot)
+		}
+	}
+	if strings.Contains(chart, "<script>alert") || strings.Contains(chart, "<svg onload") {
+		t.Error("the chart page carries markup from user text")
+	}
+	if us, err := e.db.Users(context.Background()); err != nil || len(us) != len(roles) {
+		t.Errorf("users %d, %v: want the %d users untouched", len(us), err, len(roles))
+	}
+}
