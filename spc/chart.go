@@ -227,7 +227,7 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 	for i := range lots {
 		l := &lots[i]
 		// The conditions of CheckLot, tested inline; CheckLot words the error.
-		if l.Inspected <= 0 || l.Count < 0 || (units && l.Count > l.Inspected) {
+		if l.Inspected <= 0 || l.Inspected > MaxInspected || l.Count < 0 || l.Count > MaxInspected || (units && l.Count > l.Inspected) {
 			if err := CheckLot(cfg.Chart, l.Inspected, l.Count); err != nil {
 				return nil, fmt.Errorf("lot %d (%q): %w", offset+i+1, l.ID, err)
 			}

@@ -55,10 +55,12 @@ type Lot struct {
 }
 
 // MaxInspected is the largest number of units (or inspection units) one
-// lot may have: 10¹². It is far beyond any inspected lot, and it keeps
-// every figure computed for a lot exact: beyond about 10¹³ the binomial
-// and Poisson tail computations lose accuracy and the expected counts no
-// longer fit the arithmetic the limits are made of.
+// lot may have, and the largest count: 10¹². It is far beyond any
+// inspected lot. Up to it the limits are exact and a lot's tail
+// probability is within 0.2 % of its value (within 10⁻⁶ up to 10⁹ units);
+// beyond about 10¹³ the incomplete-beta arithmetic behind the binomial
+// tails fails and the expected counts outgrow the tables of the exact
+// limits.
 const MaxInspected = 1_000_000_000_000
 
 // CheckLot reports what is wrong with a lot's numbers for the chart, or

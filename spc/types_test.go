@@ -43,8 +43,15 @@ func TestCheckLot(t *testing.T) {
 }
 
 // TestAnalyzeLargestLots checks that the largest lots allowed give finite
-// results with tail probabilities in [0, 1] (a probability's definition).
+// results with tail probabilities in [0, 1] (a probability's definition),
+// and that Analyze itself refuses larger ones.
 func TestAnalyzeLargestLots(t *testing.T) {
+	if _, err := Analyze([]Lot{{"a", math.MaxInt64, math.MaxInt64}, {"b", 1, 0}}, Config{Chart: ChartP}); err == nil {
+		t.Error("Analyze accepted a lot beyond MaxInspected")
+	}
+	if _, err := Analyze([]Lot{{"a", 10, MaxInspected + 1}, {"b", 1, 0}}, Config{Chart: ChartU}); err == nil {
+		t.Error("Analyze accepted a defect count beyond MaxInspected")
+	}
 	for _, c := range []Chart{ChartP, ChartNP, ChartU, ChartC} {
 		lots := []Lot{{"a", MaxInspected, 1}, {"b", MaxInspected, 3}, {"c", MaxInspected, MaxInspected / 2}, {"d", 7, 0}}
 		if c == ChartNP || c == ChartC {

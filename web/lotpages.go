@@ -2,6 +2,7 @@ package web
 
 import (
 	"errors"
+	"fmt"
 	"net/http"
 	"sort"
 	"strconv"
@@ -12,6 +13,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/store/lotcsv"
 )
 
 // formTime is the layout of an <input type="datetime-local">.
@@ -108,7 +110,22 @@ func readLotForm(r *http.Request, p store.Process) (store.LotInput, lotForm) {
 		k := "cat" + strconv.Itoa(i)
 		vals[k] = r.PostFormValue(k)
 	}
+	vals["categories"] = r.PostFormValue("categories")
 	f := newLotForm(p, vals)
+	// The category inputs are named by position; a form opened before an
+	// engineer changed the process's categories would put a count under
+	// the wrong one. The form carries the list it was drawn with.
+	if sent, ok := r.PostForm["categories"]; ok && (len(sent) != 1 || sent[0] != categoryList(p.Categories)) {
+		f.Other = append(f.Other, "the defect categories of this process changed since the form was opened; check the counts by category and save again")
+	}
+	for k := range r.PostForm {
+		if strings.HasPrefix(k, "cat") && k != "categories" {
+			if i, err := strconv.Atoi(k[3:]); err != nil || i < 0 || i >= len(p.Categories) || "cat"+strconv.Itoa(i) != k {
+				f.Other = append(f.Other, fmt.Sprintf("field %q is not a defect category of this process", k))
+			}
+		}
+	}
+	sort.Strings(f.Other)
 	in := store.LotInput{Lot: strings.TrimSpace(vals["lot"]), Shift: strings.TrimSpace(vals["shift"]),
 		Inspector: strings.TrimSpace(vals["inspector"]), Note: vals["note"]}
 	whole := func(field, v string) int64 {
@@ -118,9 +135,9 @@ func readLotForm(r *http.Request, p store.Process) (store.LotInput, lotForm) {
 			f.unread[field] = true
 			return 0
 		}
-		n, err := strconv.ParseInt(v, 10, 64)
+		n, err := lotcsv.ParseCount(v) // the rules of lot files: digits only
 		if err != nil {
-			f.Problems[field] = strconv.Quote(v) + " is not a whole number"
+			f.Problems[field] = strconv.Quote(v) + " " + err.Error()
 			f.unread[field] = true
 		}
 		return n
@@ -132,9 +149,9 @@ func readLotForm(r *http.Request, p store.Process) (store.LotInput, lotForm) {
 		if v == "" {
 			continue // not recorded
 		}
-		n, err := strconv.ParseInt(v, 10, 64)
+		n, err := lotcsv.ParseCount(v)
 		if err != nil {
-			f.Cats[i].Problem = strconv.Quote(v) + " is not a whole number"
+			f.Cats[i].Problem = strconv.Quote(v) + " " + err.Error()
 			continue
 		}
 		if in.Categories == nil {
@@ -155,6 +172,10 @@ func readLotForm(r *http.Request, p store.Process) (store.LotInput, lotForm) {
 	}
 	return in, f
 }
+
+// HasProblems reports whether the form found anything wrong, for the
+// template's "not saved" notice.
+func (f lotForm) HasProblems() bool { return f.hasProblems() }
 
 // hasProblems reports whether the form found anything wrong.
 func (f lotForm) hasProblems() bool {
@@ -517,3 +538,6 @@ func (s *Server) voidLot(w http.ResponseWriter, r *http.Request) {
 	}
 	http.Redirect(w, r, "/lots/"+formatID(l.ID)+"?done=voided#history", http.StatusSeeOther)
 }
+
+// categoryList is the process's categories as the form carries them.
+func categoryList(cats []string) string { return strings.Join(cats, "\x1f") }

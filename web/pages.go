@@ -40,6 +40,7 @@ var templateFuncs = template.FuncMap{
 	},
 	"num":        fmtFloat,
 	"when":       fmtWhen,
+	"catlist":    categoryList,
 	"plural":     plural,
 	"thousands":  func(n int) string { return thousands(int64(n)) },
 	"ruleName":   ruleName,
