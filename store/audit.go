@@ -79,19 +79,30 @@ func toJSON(v any) string {
 // audit appends one entry to the chain inside the writer transaction.
 func (w *wtx) audit(actor, action, entity string, id, to int64, old, new any, reason string) error {
 	db := w.db
-	e := AuditEntry{Seq: db.chain.seq + 1, At: w.now, Actor: actor, Action: action, Entity: entity,
-		EntityID: id, EntityTo: to, Old: toJSON(old), New: toJSON(new), Reason: reason, PrevHash: db.chain.hash}
-	e.Hash = entryHash(&e)
-	if _, err := w.Exec(`INSERT INTO audit (seq, at, actor, action, entity, entity_id, entity_to, old, new, reason, prev_hash, hash)
+	e := AuditEntry{At: w.now, Actor: actor, Action: action, Entity: entity,
+		EntityID: id, EntityTo: to, Old: toJSON(old), New: toJSON(new), Reason: reason}
+	head, err := appendAudit(w.Tx, db.chain, &e)
+	if err != nil {
+		return err
+	}
+	db.chain = head
+	return nil
+}
+
+// appendAudit writes e as the entry after head (filling Seq, PrevHash and
+// Hash) and moves the chain head in audit_head; it returns the new head.
+func appendAudit(tx *sql.Tx, head chainHead, e *AuditEntry) (chainHead, error) {
+	e.Seq, e.PrevHash = head.seq+1, head.hash
+	e.Hash = entryHash(e)
+	if _, err := tx.Exec(`INSERT INTO audit (seq, at, actor, action, entity, entity_id, entity_to, old, new, reason, prev_hash, hash)
 		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
 		e.Seq, e.At.UnixNano(), e.Actor, e.Action, e.Entity, e.EntityID, e.EntityTo, e.Old, e.New, e.Reason, e.PrevHash, e.Hash); err != nil {
-		return fmt.Errorf("store: audit: %w", err)
+		return head, fmt.Errorf("store: audit: %w", err)
 	}
-	if _, err := w.Exec("UPDATE audit_head SET seq = ?, hash = ? WHERE id = 1", e.Seq, e.Hash); err != nil {
-		return fmt.Errorf("store: audit head: %w", err)
+	if _, err := tx.Exec("UPDATE audit_head SET seq = ?, hash = ? WHERE id = 1", e.Seq, e.Hash); err != nil {
+		return head, fmt.Errorf("store: audit head: %w", err)
 	}
-	db.chain = chainHead{e.Seq, e.Hash}
-	return nil
+	return chainHead{e.Seq, e.Hash}, nil
 }
 
 const auditCols = "seq, at, actor, action, entity, entity_id, entity_to, old, new, reason, prev_hash, hash"

@@ -177,6 +177,12 @@ func migrate(w *sql.DB, path string) error {
 			tx.Rollback()
 			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
 		}
+		if up := upgrades[m.version]; up != nil {
+			if err := up(tx, m); err != nil {
+				tx.Rollback()
+				return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
+			}
+		}
 		if _, err := tx.Exec("INSERT INTO schema_migrations (version, name, applied) VALUES (?, ?, ?)", m.version, m.name, time.Now().UnixNano()); err != nil {
 			tx.Rollback()
 			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
