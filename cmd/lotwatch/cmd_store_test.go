@@ -191,3 +191,28 @@ func TestCLIUsersTokensAuditBackup(t *testing.T) {
 		t.Errorf("restore from a missing file: %d %q", code, out)
 	}
 }
+
+// `lotwatch audit verify` names a lot edited with plain SQL and fails.
+func TestCLIAuditVerifyNamesEditedLot(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "a.db")
+	csv := writeFile(t, dir, "lots.csv", "lot,time,inspected,defective\nH2-1,2025-04-01T07:00:00Z,50,1\nH2-2,2025-04-01T08:00:00Z,50,2\n")
+	if code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "Line 2", "--create", "--as", "kim", csv); code != exitOK {
+		t.Fatalf("import: %q", errs)
+	}
+	if code, out, _ := runCLI(t, "", "audit", "verify", "--db", db); code != exitOK {
+		t.Fatalf("verify before: %d %q", code, out)
+	}
+	raw, err := sql.Open("sqlite3", "file:"+db)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := raw.Exec("UPDATE lots SET count = 0 WHERE lot = 'H2-2'"); err != nil {
+		t.Fatal(err)
+	}
+	raw.Close()
+	code, out, _ := runCLI(t, "", "audit", "verify", "--db", db)
+	if code != exitFail || !strings.Contains(out, `lot 2 (process "Line 2", lot code H2-2): stored values differ from the audit trail`) {
+		t.Errorf("verify after the edit: %d %q", code, out)
+	}
+}
