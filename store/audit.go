@@ -85,7 +85,7 @@ func (w *wtx) audit(actor, action, entity string, id, to int64, old, new any, re
 	db := w.db
 	e := AuditEntry{At: w.now, Actor: actor, Action: action, Entity: entity,
 		EntityID: id, EntityTo: to, Old: toJSON(old), New: toJSON(new), Reason: reason}
-	head, err := appendAudit(w.Tx, db.chain, &e)
+	head, err := db.appendAudit(w.Tx, db.chain, &e)
 	if err != nil {
 		return err
 	}
@@ -95,15 +95,15 @@ func (w *wtx) audit(actor, action, entity string, id, to int64, old, new any, re
 
 // appendAudit writes e as the entry after head (filling Seq, PrevHash and
 // Hash) and moves the chain head in audit_head; it returns the new head.
-func appendAudit(tx *sql.Tx, head chainHead, e *AuditEntry) (chainHead, error) {
+// db may be nil (during a migration).
+func (db *DB) appendAudit(tx *sql.Tx, head chainHead, e *AuditEntry) (chainHead, error) {
 	e.Seq, e.PrevHash = head.seq+1, head.hash
 	e.Hash = entryHash(e)
-	if _, err := tx.Exec(`INSERT INTO audit (seq, at, actor, action, entity, entity_id, entity_to, old, new, reason, prev_hash, hash)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
+	if _, err := db.execIn(tx, qAuditInsert,
 		e.Seq, e.At.UnixNano(), e.Actor, e.Action, e.Entity, e.EntityID, e.EntityTo, e.Old, e.New, e.Reason, e.PrevHash, e.Hash); err != nil {
 		return head, fmt.Errorf("store: audit: %w", err)
 	}
-	if _, err := tx.Exec("UPDATE audit_head SET seq = ?, hash = ? WHERE id = 1", e.Seq, e.Hash); err != nil {
+	if _, err := db.execIn(tx, qHeadUpdate, e.Seq, e.Hash); err != nil {
 		return head, fmt.Errorf("store: audit head: %w", err)
 	}
 	return chainHead{e.Seq, e.Hash}, nil

@@ -369,20 +369,12 @@ type hashWriter interface {
 }
 
 func (w *wtx) newLotAdder(actor string, p Process) (*lotAdder, error) {
-	ins, err := w.Prepare(`INSERT INTO lots (process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, packed)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, 1, 0, ?, ?, ?) ON CONFLICT (process_id, lot) DO NOTHING`)
-	if err != nil {
-		return nil, err
-	}
-	get, err := w.Prepare("SELECT " + lotCols + " FROM lots WHERE process_id = ? AND lot = ?")
-	if err != nil {
-		ins.Close()
-		return nil, err
-	}
+	ins, get := w.db.stmt(w.Tx, qLotInsert), w.db.stmt(w.Tx, qLotByCode)
 	return &lotAdder{w: w, p: p, actor: actor, ins: ins, get: get, h: sha256.New()}, nil
 }
 
-func (a *lotAdder) close() { a.ins.Close(); a.get.Close() }
+// close ends the adder (its statements belong to the transaction).
+func (a *lotAdder) close() {}
 
 // add inserts in (already valid). When the lot code is stored, it returns
 // the stored lot and added false.
@@ -443,7 +435,10 @@ func (a *lotAdder) finish(how string, lots []LotInput, extra map[string]any) err
 }
 
 func (w *wtx) activeProcess(id int64) (Process, error) {
-	p, err := processByID(w.Tx, id)
+	p, err := scanProcess(w.db.queryRowIn(w.Tx, qProcessByID, id))
+	if errors.Is(err, sql.ErrNoRows) {
+		return Process{}, fmt.Errorf("process %d: %w", id, ErrNotFound)
+	}
 	if err != nil {
 		return Process{}, err
 	}
@@ -552,7 +547,6 @@ func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, 
 	if err != nil {
 		return err
 	}
-	loc := p.Location()
 	lo, hi := int64(-1<<63), int64(1<<63-1)
 	if !from.IsZero() {
 		lo = from.UnixNano()
@@ -560,6 +554,32 @@ func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, 
 	if !to.IsZero() {
 		hi = to.UnixNano() - 1
 	}
+	return db.walkPacked(ctx, p, `SELECT id, packed FROM lots INDEXED BY lots_read
+		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ? ORDER BY time, id`, fn, processID, lo, hi)
+}
+
+// LotsAddedAfter returns the lots of a process with an id above afterID
+// that are not voided, in time order (then id): with LotsVersion, what a
+// reader holding the lots up to afterID lacks when only lots were added.
+func (db *DB) LotsAddedAfter(ctx context.Context, processID, afterID int64) ([]Lot, error) {
+	p, err := db.Process(ctx, processID)
+	if err != nil {
+		return nil, err
+	}
+	var out []Lot
+	err = db.walkPacked(ctx, p, `SELECT id, packed FROM lots
+		WHERE id > ? AND process_id = ? AND voided = 0 ORDER BY time, id`, func(l Lot) error {
+		l.Categories = maps.Clone(l.Categories)
+		out = append(out, l)
+		return nil
+	}, afterID, processID)
+	return out, err
+}
+
+// walkPacked runs query (selecting id and packed) and calls fn with each
+// lot, as EachLot describes.
+func (db *DB) walkPacked(ctx context.Context, p Process, query string, fn func(Lot) error, args ...any) error {
+	loc := p.Location()
 	conn, err := db.r.Conn(ctx)
 	if err != nil {
 		return err
@@ -572,15 +592,17 @@ func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, 
 		if !ok {
 			return errors.New("store: the SQLite driver cannot query")
 		}
-		rows, err := q.QueryContext(ctx, `SELECT id, packed FROM lots INDEXED BY lots_read
-			WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ? ORDER BY time, id`,
-			[]driver.NamedValue{{Ordinal: 1, Value: processID}, {Ordinal: 2, Value: lo}, {Ordinal: 3, Value: hi}})
+		named := make([]driver.NamedValue, len(args))
+		for i, a := range args {
+			named[i] = driver.NamedValue{Ordinal: i + 1, Value: a}
+		}
+		rows, err := q.QueryContext(ctx, query, named)
 		if err != nil {
 			return err
 		}
 		defer rows.Close()
 		var l Lot
-		l.ProcessID = processID
+		l.ProcessID = p.ID
 		lr := newLotReader(p.Categories, loc)
 		dest := make([]driver.Value, 2)
 		for {

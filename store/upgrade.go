@@ -103,6 +103,6 @@ func upgradePackedLots(tx *sql.Tx, m migration) error {
 	e := AuditEntry{At: time.Now(), Actor: "lotwatch", Action: "migrate", Entity: "schema", EntityID: int64(m.version), EntityTo: int64(m.version),
 		New:    toJSON(map[string]any{"migration": m.name, "lots_packed": n, "sha256": hex.EncodeToString(h.Sum(nil))}),
 		Reason: "schema upgrade: a packed copy of each lot for chart reads"}
-	_, err = appendAudit(tx, head, &e)
+	_, err = (*DB)(nil).appendAudit(tx, head, &e)
 	return err
 }

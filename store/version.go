@@ -37,7 +37,6 @@ func (w *wtx) bumpVersion(processID int64, rewrite bool) error {
 	if rewrite {
 		r = 1
 	}
-	_, err := w.Exec(`INSERT INTO lot_versions (process_id, version, rewrites) VALUES (?, 1, ?)
-		ON CONFLICT (process_id) DO UPDATE SET version = version + 1, rewrites = rewrites + excluded.rewrites`, processID, r)
+	_, err := w.db.execIn(w.Tx, qBumpVersion, processID, r)
 	return err
 }
