@@ -576,6 +576,11 @@ func (db *DB) LotsAddedAfter(ctx context.Context, processID, afterID int64) ([]L
 	return out, err
 }
 
+// readMmap is the memory map a walk of lots asks of its read connection
+// (SQLite maps at most this much of the file; 1 GiB holds the lots_read
+// index of some ten million lots).
+const readMmap = "PRAGMA mmap_size = 1073741824"
+
 // walkPacked runs query (selecting id and packed) and calls fn with each
 // lot, as EachLot describes.
 func (db *DB) walkPacked(ctx context.Context, p Process, query string, fn func(Lot) error, args ...any) error {
@@ -591,6 +596,11 @@ func (db *DB) walkPacked(ctx context.Context, p Process, query string, fn func(L
 		q, ok := dc.(driver.QueryerContext)
 		if !ok {
 			return errors.New("store: the SQLite driver cannot query")
+		}
+		// Map the file for the walk: index pages are then read in place
+		// instead of being copied through the page cache by read calls.
+		if ex, ok := dc.(driver.ExecerContext); ok {
+			ex.ExecContext(ctx, readMmap, nil)
 		}
 		named := make([]driver.NamedValue, len(args))
 		for i, a := range args {
