@@ -216,3 +216,94 @@ func TestCLIAuditVerifyNamesEditedLot(t *testing.T) {
 		t.Errorf("verify after the edit: %d %q", code, out)
 	}
 }
+
+// `lotwatch process update` changes only what it is given, records why,
+// refuses a removed category and needs a reason; --retire stops new lots.
+func TestCLIProcessUpdate(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "a.db")
+	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "Line 2", "--categories", "dent,scratch", "--as", "ana"); code != exitOK {
+		t.Fatalf("add: %q", errs)
+	}
+	code, out, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "Line 2", "--sigma", "2.5", "--rules", "nelson",
+		"--categories", "dent,scratch,burr", "--description", "press line", "--reason", "agreed in review", "--as", "ana")
+	if code != exitOK || !strings.Contains(out, "k=2.5, rules nelson, categories [dent, scratch, burr], time zone UTC, active") {
+		t.Fatalf("update: %d %q %q", code, out, errs)
+	}
+	code, out, _ = runCLI(t, "", "process", "list", "--db", db, "--format", "json")
+	var ps []map[string]any
+	if code != exitOK || json.Unmarshal([]byte(out), &ps) != nil || len(ps) != 1 || ps[0]["description"] != "press line" || ps[0]["limits"] != "sigma" || ps[0]["sigma"] != 2.5 {
+		t.Fatalf("list after update: %q", out)
+	}
+	bad := []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--sigma", "2"}, "--reason is required"},
+		{[]string{"--reason", "x"}, "nothing to change"},
+		{[]string{"--categories", "dent", "--reason", "x"}, "cannot be removed or renamed"},
+		{[]string{"--sigma", "11", "--reason", "x"}, `--sigma "11"`},
+		{[]string{"--tz", "Mars/Base", "--reason", "x"}, `--tz "Mars/Base"`},
+		{[]string{"--retire", "--activate", "--reason", "x"}, "exclude each other"},
+	}
+	for _, b := range bad {
+		args := append([]string{"process", "update", "--db", db, "--name", "Line 2"}, b.args...)
+		if code, out, errs := runCLI(t, "", args...); code != exitUsage || out != "" || !strings.Contains(errs, b.want) {
+			t.Errorf("%v: %d %q %q, want %q", b.args, code, out, errs, b.want)
+		}
+	}
+	if code, _, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "Nope", "--sigma", "2", "--reason", "x"); code != exitUsage || !strings.Contains(errs, "not found") {
+		t.Errorf("unknown process: %d %q", code, errs)
+	}
+	if code, out, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "Line 2", "--retire", "--reason", "line closed"); code != exitOK || !strings.Contains(out, "retired") {
+		t.Fatalf("retire: %d %q %q", code, out, errs)
+	}
+	csv := writeFile(t, dir, "lots.csv", "lot,inspected,defective\nA1,50,1\n")
+	if code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "Line 2", csv); code != exitUsage || !strings.Contains(errs, "retired") {
+		t.Errorf("import into a retired process: %d %q", code, errs)
+	}
+	if code, _, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "Line 2", "--activate", "--reason", "reopened"); code != exitOK {
+		t.Fatalf("activate: %q", errs)
+	}
+	if code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "Line 2", csv); code != exitOK {
+		t.Errorf("import after activate: %q", errs)
+	}
+	if code, out, _ := runCLI(t, "", "audit", "verify", "--db", db); code != exitOK || !strings.Contains(out, "5 entries") {
+		t.Errorf("verify: %d %q", code, out)
+	}
+}
+
+// `lotwatch token list --format json` lists the tokens' records, never a
+// token itself.
+func TestCLITokenListJSON(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "a.db")
+	if code, _, errs := runCLI(t, "correct horse battery\n", "user", "add", "--db", db, "--name", "ana", "--role", "inspector"); code != exitOK {
+		t.Fatalf("user add: %q", errs)
+	}
+	_, tok1, _ := runCLI(t, "", "token", "create", "--db", db, "--user", "ana", "--label", "line 3")
+	_, tok2, _ := runCLI(t, "", "token", "create", "--db", db, "--user", "ana", "--label", "line 4")
+	runCLI(t, "", "token", "revoke", "--db", db, "--id", "1")
+	code, out, errs := runCLI(t, "", "token", "list", "--db", db, "--format", "json")
+	var ts []struct {
+		ID      int64  `json:"id"`
+		User    string `json:"user"`
+		Label   string `json:"label"`
+		Created string `json:"created"`
+		Revoked bool   `json:"revoked"`
+	}
+	if code != exitOK || json.Unmarshal([]byte(out), &ts) != nil {
+		t.Fatalf("token list: %d %q %q", code, out, errs)
+	}
+	if len(ts) != 2 || ts[0].ID != 1 || !ts[0].Revoked || ts[1].Revoked || ts[1].Label != "line 4" || ts[0].User != "ana" || ts[0].Created == "" {
+		t.Errorf("tokens %+v", ts)
+	}
+	for _, tok := range []string{tok1, tok2} {
+		if tok == "" || strings.Contains(out, strings.TrimSpace(tok)) {
+			t.Errorf("the list shows a token: %q", out)
+		}
+	}
+	if code, _, errs := runCLI(t, "", "token", "list", "--db", db, "--format", "xml"); code != exitUsage || !strings.Contains(errs, `--format "xml"`) {
+		t.Errorf("bad format: %d %q", code, errs)
+	}
+}
