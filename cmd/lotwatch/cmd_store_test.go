@@ -307,3 +307,44 @@ func TestCLITokenListJSON(t *testing.T) {
 		t.Errorf("bad format: %d %q", code, errs)
 	}
 }
+
+// `lotwatch import` reads the JSON that `lotwatch export --format json`
+// writes (by the .json name or --format json), all or nothing and
+// idempotent, with problems named by file and line.
+func TestCLIImportJSON(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "a.db")
+	csv := writeFile(t, dir, "lots.csv", "lot,time,shift,inspected,defects,run,sag,note\n"+
+		"P1,2025-04-01 07:00,early,12,3,2,1,=cmd\nP2,2025-04-01 15:00,late,10,0,,,\"a, b\"\n")
+	if code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "paint", "--create", "--tz", "Europe/Berlin", csv); code != exitOK {
+		t.Fatalf("import csv: %q", errs)
+	}
+	code, js, errs := runCLI(t, "", "export", "--db", db, "--process", "paint", "--format", "json")
+	if code != exitOK {
+		t.Fatalf("export: %q", errs)
+	}
+	file := writeFile(t, dir, "paint.json", js)
+	db2 := filepath.Join(dir, "b.db")
+	code, out, errs := runCLI(t, "", "import", "--db", db2, "--create", "--as", "kim", file)
+	if code != exitOK || !strings.Contains(out, `created process "paint": u chart, categories [run sag], time zone Europe/Berlin`) || !strings.Contains(out, "2 rows, 2 added, 0 unchanged, 0 conflicts") {
+		t.Fatalf("import json: %d %q %q", code, out, errs)
+	}
+	if code, again, _ := runCLI(t, "", "export", "--db", db2, "--process", "paint", "--format", "json"); code != exitOK || again != js {
+		t.Errorf("export of the imported lots differs:\n%s\n%s", again, js)
+	}
+	code, out, errs = runCLI(t, js, "import", "--db", db2, "--process", "paint", "--format", "json", "-")
+	if code != exitOK || !strings.Contains(out, "2 rows, 0 added, 2 unchanged, 0 conflicts") {
+		t.Errorf("import json again from stdin: %d %q %q", code, out, errs)
+	}
+	bad := writeFile(t, dir, "bad.json", strings.Replace(js, `"inspected":10`, `"inspected":0`, 1))
+	code, out, errs = runCLI(t, "", "import", "--db", db2, bad)
+	if code != exitUsage || out != "" || !strings.Contains(errs, "bad.json:3: column inspected") {
+		t.Errorf("bad json: %d %q %q", code, out, errs)
+	}
+	if code, _, errs := runCLI(t, "", "import", "--db", db2, "--format", "yaml", file); code != exitUsage || !strings.Contains(errs, `--format "yaml"`) {
+		t.Errorf("format yaml: %d %q", code, errs)
+	}
+	if code, _, errs := runCLI(t, "", "import", "--db", db2, csv); code != exitUsage || !strings.Contains(errs, "--process is required") {
+		t.Errorf("csv without --process: %d %q", code, errs)
+	}
+}
