@@ -223,10 +223,14 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 	m := 0
 	excluding := len(cfg.Exclude) > 0
 	var excluded []bool // nil when no lot is excluded
+	units := cfg.Chart.CountsUnits()
 	for i := range lots {
 		l := &lots[i]
-		if err := CheckLot(cfg.Chart, l.Inspected, l.Count); err != nil {
-			return nil, fmt.Errorf("lot %d (%q): %w", offset+i+1, l.ID, err)
+		// The conditions of CheckLot, tested inline; CheckLot words the error.
+		if l.Inspected <= 0 || l.Count < 0 || (units && l.Count > l.Inspected) {
+			if err := CheckLot(cfg.Chart, l.Inspected, l.Count); err != nil {
+				return nil, fmt.Errorf("lot %d (%q): %w", offset+i+1, l.ID, err)
+			}
 		}
 		minN = min(minN, l.Inspected)
 		maxN = max(maxN, l.Inspected)
@@ -382,91 +386,159 @@ func (s *stats) df(standard bool) int {
 // 1). When st is not nil the sigma-method z of the baseline lots are
 // accumulated into it. It returns the number of lots whose lower limit
 // is 0 in the chart's units.
+//
+// Everything that depends on the lot size alone — σᵢ, the limits, the
+// fields written to the point — is computed once per distinct size (see
+// prepare), so that a lot costs its value, its z, a cached tail
+// probability and a step of the rule engine.
 func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Config, rate, sz float64, e *ruleEngine, st *stats) (cnt pointCounts) {
 	pts := a.Points
 	k := cfg.K
 	exact := cfg.Method == MethodExact
 	dc := newDistCache(cfg.Chart, rate, a.Alpha/2, maxN)
-	units := cfg.Chart.CountsUnits()
+	dense := dc.dense
 	perUnit := cfg.Chart == ChartP || cfg.Chart == ChartU
 	stepping := e != nil && e.set != 0
-	for i := range pts {
+	laney := sz != 1
+	std := cfg.Standardized
+	// The baseline statistics, kept in registers rather than in *st.
+	accumulate := st != nil
+	var chi, mr, prev float64
+	var m, nmr int
+	var havePrev bool
+	if accumulate {
+		chi, mr, prev, m, nmr, havePrev = st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev
+	}
+	// Without the Nelson trend rules the engine's per-lot state fits in
+	// registers: the loop advances it and calls the engine only when a
+	// rule may be met.
+	fast := stepping && !e.nelson
+	var regs ruleRegs
+	var z1, z2 float64
+	var beyond uint8
+	if fast {
+		regs, z1, z2, beyond = e.regs, k/3, 2*k/3, e.beyond
+	}
+	_ = pts[:len(lots)]
+	for i := range lots {
 		l := &lots[i]
 		// Write each field of the fresh point once and never read it
 		// back before: the slice is new memory.
 		q := &pts[i]
 		q.Lot = *l
-		q.Excluded = excluded != nil && excluded[i]
-		d := dc.get(l.Inspected)
-		if !d.ready {
-			// Everything that depends on the lot size alone, once per size.
-			n := float64(l.Inspected)
-			_, d.ctr, d.sig = model(cfg.Chart, rate, n, 0)
-			d.small = smallExpected(cfg.Chart, n, rate)
-			if exact {
-				d.limits()
-				d.uclV, d.lclV = float64(d.ucl), float64(d.lcl)
-				if perUnit {
-					d.uclV /= n
-					d.lclV /= n
-				}
-			} else {
-				s := d.sig * sz
-				d.uclV = d.ctr + k*s
-				d.lclV = max(0, d.ctr-k*s)
-				if units {
-					top := 1.0
-					if cfg.Chart == ChartNP {
-						top = n
-					}
-					d.uclV = min(d.uclV, top)
-				}
+		ex := excluded != nil && excluded[i]
+		q.Excluded = ex
+		var d *countDist
+		if uint64(l.Inspected) < uint64(len(dense)) {
+			d = dense[l.Inspected]
+		}
+		if d == nil || !d.ready {
+			d = dc.get(l.Inspected)
+			if !d.ready {
+				d.prepare(cfg, rate, sz, float64(l.Inspected), exact, perUnit)
 			}
-			d.ready = true
 		}
 		v := float64(l.Count)
 		if perUnit {
 			v /= float64(l.Inspected)
 		}
-		ctr, sig := d.ctr, d.sig
-		z := zOf(v-ctr, sig)
-		if st != nil {
-			st.add(z, !q.Excluded)
+		z := zOf(v-d.ctr, d.sig)
+		if accumulate && !ex {
+			m++
+			chi += z * z
+			if havePrev {
+				mr += math.Abs(z - prev)
+				nmr++
+			}
+			prev, havePrev = z, true
 		}
-		if d.small {
-			cnt.small++
+		cnt.small += d.smallLot
+		cnt.lclZero += d.lclZeroLot
+		if laney {
+			z = zOf(v-d.ctr, d.sigS)
 		}
-		if sz != 1 {
-			sig *= sz
-			z = zOf(v-ctr, sig)
-		}
-		ucl, lcl := d.uclV, d.lclV
 		if exact {
 			q.Above = l.Count > d.ucl
 			q.Below = l.Count < d.lcl
 		} else {
-			q.Above = v > ucl
-			q.Below = v < lcl
+			q.Above = v > d.uclV
+			q.Below = v < d.lclV
 		}
-		if lcl <= 0 {
-			cnt.lclZero++
-		}
-		q.TailP = d.tail(l.Count)
-		if cfg.Standardized {
-			if exact {
-				ucl, lcl = zOf(ucl-ctr, sig), zOf(lcl-ctr, sig)
-			} else {
-				ucl, lcl = k, -k
-			}
-			q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z = z, 0, ucl, lcl, 1, z
+		// d.tail, inlined.
+		if t, j := d.tails, uint64(l.Count-d.tailLo); j < uint64(len(t)) && t[j] == t[j] {
+			q.TailP = t[j]
 		} else {
-			q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z = v, ctr, ucl, lcl, sig, z
+			q.TailP = d.tailSlow(l.Count)
 		}
-		if stepping {
+		if std {
+			v = z
+		}
+		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z = v, d.outCtr, d.outUCL, d.outLCL, d.outSig, z
+		if fast {
+			var may uint8
+			regs, may = regs.advance(z, z1, z2, e.zones, e.sides)
+			if may|beyond&(b2u(q.Above)|b2u(q.Below)) != 0 {
+				e.regs = regs
+				e.fire(i, q, k)
+			}
+		} else if stepping {
 			e.step(i, q, k)
 		}
 	}
+	if fast {
+		e.regs = regs
+	}
+	if accumulate {
+		st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev = chi, mr, prev, m, nmr, havePrev
+	}
 	return cnt
+}
+
+// prepare computes, once per lot size, everything of a point that does
+// not depend on the count: centre, σᵢ (and σᵢ scaled by sz), the limits
+// in plotted units and the values written to the point's Center, UCL,
+// LCL and Sigma.
+func (d *countDist) prepare(cfg Config, rate, sz, n float64, exact, perUnit bool) {
+	k := cfg.K
+	_, d.ctr, d.sig = model(cfg.Chart, rate, n, 0)
+	d.sigS = d.sig
+	if sz != 1 {
+		d.sigS = d.sig * sz
+	}
+	if smallExpected(cfg.Chart, n, rate) {
+		d.smallLot = 1
+	}
+	if exact {
+		d.limits()
+		d.uclV, d.lclV = float64(d.ucl), float64(d.lcl)
+		if perUnit {
+			d.uclV /= n
+			d.lclV /= n
+		}
+	} else {
+		s := d.sig * sz
+		d.uclV = d.ctr + k*s
+		d.lclV = max(0, d.ctr-k*s)
+		if cfg.Chart.CountsUnits() {
+			top := 1.0
+			if cfg.Chart == ChartNP {
+				top = n
+			}
+			d.uclV = min(d.uclV, top)
+		}
+	}
+	if d.lclV <= 0 {
+		d.lclZeroLot = 1
+	}
+	switch {
+	case !cfg.Standardized:
+		d.outCtr, d.outUCL, d.outLCL, d.outSig = d.ctr, d.uclV, d.lclV, d.sigS
+	case exact:
+		d.outCtr, d.outUCL, d.outLCL, d.outSig = 0, zOf(d.uclV-d.ctr, d.sigS), zOf(d.lclV-d.ctr, d.sigS), 1
+	default:
+		d.outCtr, d.outUCL, d.outLCL, d.outSig = 0, k, -k, 1
+	}
+	d.ready = true
 }
 
 // pointCounts are the per-lot diagnostics gathered while finishing points.

@@ -188,9 +188,11 @@ func dispersion(a *Analysis, cfg Config, sigmaZ float64, zeroSpread bool) {
 	case d.Overdispersed:
 		d.Advice = fmt.Sprintf("The lots vary more than %s sampling alone explains (%s). Limits from %s sampling will flag many ordinary lots; Laney limits, which widen them by σ_z, suit this process better (common practice: switch when p < 0.01 and the ratio is above 1.5).", model, test, model)
 		a.Warnings = append(a.Warnings, Warning{Code: "overdispersion", Message: d.Advice})
+	case d.PValue < 0.05:
+		d.Advice = fmt.Sprintf("The lots vary somewhat more than %s sampling alone explains (%s), but the excess is small, so limits from %s sampling still serve (common practice: widen with Laney limits when p < 0.01 and the ratio is above 1.5).", model, test, model)
 	case low < overdispersionP:
 		d.Advice = fmt.Sprintf("The lots vary less than %s sampling would predict (%s); check that the counts are independent and were not adjusted.", model, test)
 	default:
-		d.Advice = fmt.Sprintf("The spread of the lots agrees with %s sampling (%s).", model, test)
+		d.Advice = fmt.Sprintf("The spread of the lots is within what %s sampling alone produces (%s).", model, test)
 	}
 }

@@ -139,6 +139,18 @@ func MinNPositiveLCL(p0, k float64) int64 {
 // beta evaluations per n). A larger n than the one returned may fail the
 // target again.
 func SmallestN(p0, p1, k, targetARL1 float64, maxN int64) (int64, error) {
+	return SmallestNWithARL0(p0, p1, k, targetARL1, 0, maxN)
+}
+
+// SmallestNWithARL0 is SmallestN with a floor on false alarms: the lot
+// size must also give ARL0 ≥ minARL0 at p0. Small lots can meet an ARL1
+// target only because their upper limit count is so low that in-control
+// lots signal often too (p0 = 0.012, p1 = 0.03, target 5 lots: n = 52 with
+// ARL0 ≈ 40); a floor keeps the plan honest about false alarms.
+func SmallestNWithARL0(p0, p1, k, targetARL1, minARL0 float64, maxN int64) (int64, error) {
+	if !(minARL0 >= 0) {
+		return 0, &FieldError{Field: "min-arl0", Value: strconv.FormatFloat(minARL0, 'g', -1, 64), Reason: "must be a number of lots, 0 or more"}
+	}
 	if err := CheckPlanInput(p0, 1, k); err != nil {
 		return 0, err
 	}
@@ -153,9 +165,13 @@ func SmallestN(p0, p1, k, targetARL1 float64, maxN int64) (int64, error) {
 		return 0, &FieldError{Field: "max-n", Value: strconv.FormatInt(maxN, 10), Reason: "must be a whole number greater than 0"}
 	}
 	for n := int64(1); n <= maxN; n++ {
-		if PlanLimits(p0, n, k).WithShift(p1).ARL1 <= targetARL1 {
+		pl := PlanLimits(p0, n, k).WithShift(p1)
+		if pl.ARL1 <= targetARL1 && pl.ARL0 >= minARL0 {
 			return n, nil
 		}
+	}
+	if minARL0 > 0 {
+		return 0, fmt.Errorf("%w: no n up to %d has ARL1 ≤ %g lots with ARL0 ≥ %g lots", ErrNoPlan, maxN, targetARL1, minARL0)
 	}
 	return 0, fmt.Errorf("%w: ARL1 stays above %g lots for every n up to %d", ErrNoPlan, targetARL1, maxN)
 }

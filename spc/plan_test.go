@@ -125,3 +125,40 @@ func TestARLNotMonotone(t *testing.T) {
 		t.Error("ARL1 never rises with n; the scan in SmallestN would be unneeded")
 	}
 }
+
+// TestSmallestNWithARL0 checks the false-alarm floor by exhaustion: the n
+// returned meets both targets and no smaller n does (the ARL values
+// themselves are checked against SciPy's binomial in the tests above).
+func TestSmallestNWithARL0(t *testing.T) {
+	tests := []struct{ p0, p1, k, arl1, minARL0 float64 }{
+		{0.012, 0.03, 3, 5, 200},
+		{0.05, 0.1, 3, 10, 100},
+		{0.02, 0.05, 2.5, 3, 50},
+	}
+	for _, tt := range tests {
+		n, err := SmallestNWithARL0(tt.p0, tt.p1, tt.k, tt.arl1, tt.minARL0, 100000)
+		if err != nil {
+			t.Fatalf("%+v: %v", tt, err)
+		}
+		ok := func(n int64) bool {
+			pl := PlanLimits(tt.p0, n, tt.k).WithShift(tt.p1)
+			return pl.ARL1 <= tt.arl1 && pl.ARL0 >= tt.minARL0
+		}
+		if !ok(n) {
+			t.Errorf("%+v: n = %d misses a target", tt, n)
+		}
+		for m := int64(1); m < n; m++ {
+			if ok(m) {
+				t.Errorf("%+v: n = %d returned but %d already meets both targets", tt, n, m)
+				break
+			}
+		}
+		plain, _ := SmallestN(tt.p0, tt.p1, tt.k, tt.arl1, 100000)
+		if plain > n {
+			t.Errorf("%+v: the floor made the lot smaller (%d < %d)", tt, n, plain)
+		}
+	}
+	if _, err := SmallestNWithARL0(0.01, 0.02, 3, 2, 1e12, 500); !errors.Is(err, ErrNoPlan) {
+		t.Errorf("an unreachable floor should give ErrNoPlan, got %v", err)
+	}
+}

@@ -2,6 +2,7 @@ package spc
 
 import (
 	"fmt"
+	"math"
 	"math/bits"
 	"strconv"
 	"strings"
@@ -165,19 +166,24 @@ func ParseRules(s string) (RuleSet, error) {
 // overlapping or touching the open signal of the same rule extends that
 // signal instead of adding another.
 type ruleEngine struct {
-	set RuleSet
-	// shift registers of the last lots, bit 0 = current lot
-	hi2, lo2, hi1, lo1 uint8
-	runAbove, runBelow int
-	runUp, runDown     int
-	alt                int
-	lastDir            int8
-	runInside          int
-	runOutside         int
-	prevZ              float64
-	havePrev           bool
-	open               [numRules]int
-	signals            []Signal
+	set            RuleSet
+	regs           ruleRegs
+	runUp, runDown int
+	alt            int
+	lastDir        int8
+	runInside      int
+	runOutside     int
+	prevZ          float64
+	havePrev       bool
+	open           [numRules]int
+	signals        []Signal
+
+	// Which state the selected rules need, fixed by reset, so that a
+	// lot costs only the work of the rules chosen.
+	zones, sides, nelson bool
+	beyond               uint8 // 1 when rule 1 (WE or Nelson) is selected
+	// z1 and z2 are the zone boundaries K/3 and 2K/3 of zk.
+	zk, z1, z2 float64
 }
 
 func (e *ruleEngine) reset(set RuleSet) {
@@ -185,6 +191,11 @@ func (e *ruleEngine) reset(set RuleSet) {
 	for i := range e.open {
 		e.open[i] = -1
 	}
+	e.zones = set&(RuleWE2.Set()|RuleNelson5.Set()|RuleWE3.Set()|RuleNelson6.Set()) != 0
+	e.sides = set&(RuleWE4.Set()|RuleNelson2.Set()) != 0
+	e.nelson = set&(RuleNelson3.Set()|RuleNelson4.Set()|RuleNelson7.Set()|RuleNelson8.Set()) != 0
+	e.beyond = b2u(set&(RuleWE1.Set()|RuleNelson1.Set()) != 0)
+	e.zk = math.NaN()
 }
 
 func b2u(b bool) uint8 {
@@ -194,27 +205,83 @@ func b2u(b bool) uint8 {
 	return 0
 }
 
+// twoOfThree[w] is 1 when the current lot (bit 0) is beyond the zone and
+// at least 2 of the 3 lots in w are; fourOfFive likewise for 4 of 5.
+var twoOfThree, fourOfFive = func() (a [8]uint8, b [32]uint8) {
+	for w := range a {
+		a[w] = b2u(w&1 != 0 && bits.OnesCount8(uint8(w)) >= 2)
+	}
+	for w := range b {
+		b[w] = b2u(w&1 != 0 && bits.OnesCount8(uint8(w)) >= 4)
+	}
+	return
+}()
+
 // step judges point i. k is the limit width in σ that sets the zones.
+//
+// The state of every selected rule is updated without branching on z;
+// only when some selected rule may be met at this lot does fire look at
+// the rules one by one.
 func (e *ruleEngine) step(i int, p *Point, k float64) {
 	if e.set == 0 {
 		return
 	}
 	z := p.Z
-	z1, z2 := k/3, 2*k/3
-	e.hi2 = e.hi2<<1 | b2u(z > z2)
-	e.lo2 = e.lo2<<1 | b2u(z < -z2)
-	e.hi1 = e.hi1<<1 | b2u(z > z1)
-	e.lo1 = e.lo1<<1 | b2u(z < -z1)
-	switch {
-	case z > 0:
-		e.runAbove++
-		e.runBelow = 0
-	case z < 0:
-		e.runBelow++
-		e.runAbove = 0
-	default:
-		e.runAbove, e.runBelow = 0, 0
+	if k != e.zk {
+		e.zk, e.z1, e.z2 = k, k/3, 2*k/3
 	}
+	var may uint8
+	e.regs, may = e.regs.advance(z, e.z1, e.z2, e.zones, e.sides)
+	may |= e.beyond & (b2u(p.Above) | b2u(p.Below))
+	if e.nelson {
+		e.stepNelson(z, e.z1)
+		may |= b2u(e.runUp >= 5) | b2u(e.runDown >= 5) | b2u(e.alt >= 13) | b2u(e.runInside >= 15) | b2u(e.runOutside >= 8)
+	}
+	if may != 0 {
+		e.fire(i, p, k)
+	}
+}
+
+// ruleRegs is the state of the zone and same-side rules (Western
+// Electric 2–4, Nelson 2, 5 and 6), small enough for a loop to keep in
+// registers.
+type ruleRegs struct {
+	// zones holds four shift registers of the last lots, bit 0 = the
+	// current lot, one per byte: beyond +2σ, beyond −2σ, beyond +1σ,
+	// beyond −1σ.
+	zones              uint32
+	runAbove, runBelow int
+}
+
+// The bytes of ruleRegs.zones.
+const (
+	hi2Shift = 0
+	lo2Shift = 8
+	hi1Shift = 16
+	lo1Shift = 24
+)
+
+// advance takes in the z of the next lot, updating the zone registers
+// when zones is set and the same-side runs when sides is set, and
+// reports 1 when a zone or same-side rule may be met at this lot.
+func (r ruleRegs) advance(z, z1, z2 float64, zones, sides bool) (ruleRegs, uint8) {
+	var may uint8
+	if zones {
+		r.zones = r.zones<<1&0xfefefefe | uint32(b2u(z > z2))<<hi2Shift | uint32(b2u(z < -z2))<<lo2Shift |
+			uint32(b2u(z > z1))<<hi1Shift | uint32(b2u(z < -z1))<<lo1Shift
+		may = twoOfThree[r.zones>>hi2Shift&7] | twoOfThree[r.zones>>lo2Shift&7] |
+			fourOfFive[r.zones>>hi1Shift&31] | fourOfFive[r.zones>>lo1Shift&31]
+	}
+	if sides {
+		r.runAbove = (r.runAbove + 1) * int(b2u(z > 0))
+		r.runBelow = (r.runBelow + 1) * int(b2u(z < 0))
+		may |= b2u(r.runAbove >= 8) | b2u(r.runBelow >= 8)
+	}
+	return r, may
+}
+
+// stepNelson updates the trend, alternation and zone-run counts.
+func (e *ruleEngine) stepNelson(z, z1 float64) {
 	if e.havePrev {
 		var dir int8
 		switch {
@@ -240,17 +307,12 @@ func (e *ruleEngine) step(i int, p *Point, k float64) {
 		e.lastDir = dir
 	}
 	e.prevZ, e.havePrev = z, true
-	if z < z1 && z > -z1 {
-		e.runInside++
-	} else {
-		e.runInside = 0
-	}
-	if z > z1 || z < -z1 {
-		e.runOutside++
-	} else {
-		e.runOutside = 0
-	}
+	e.runInside = (e.runInside + 1) * int(b2u(z < z1 && z > -z1))
+	e.runOutside = (e.runOutside + 1) * int(b2u(z > z1 || z < -z1))
+}
 
+// fire emits the signals of the selected rules met at lot i.
+func (e *ruleEngine) fire(i int, p *Point, k float64) {
 	s := e.set
 	if s&(RuleWE1.Set()|RuleNelson1.Set()) != 0 && (p.Above || p.Below) {
 		side := int8(1)
@@ -260,27 +322,27 @@ func (e *ruleEngine) step(i int, p *Point, k float64) {
 		e.emitBoth(RuleWE1, RuleNelson1, i, i, side, 1, k)
 	}
 	if s&(RuleWE2.Set()|RuleNelson5.Set()) != 0 {
-		e.window(RuleWE2, RuleNelson5, i, e.hi2, 0b111, 2, 1, k)
-		e.window(RuleWE2, RuleNelson5, i, e.lo2, 0b111, 2, -1, k)
+		e.window(RuleWE2, RuleNelson5, i, uint8(e.regs.zones>>hi2Shift), 0b111, 2, 1, k)
+		e.window(RuleWE2, RuleNelson5, i, uint8(e.regs.zones>>lo2Shift), 0b111, 2, -1, k)
 	}
 	if s&(RuleWE3.Set()|RuleNelson6.Set()) != 0 {
-		e.window(RuleWE3, RuleNelson6, i, e.hi1, 0b11111, 4, 1, k)
-		e.window(RuleWE3, RuleNelson6, i, e.lo1, 0b11111, 4, -1, k)
+		e.window(RuleWE3, RuleNelson6, i, uint8(e.regs.zones>>hi1Shift), 0b11111, 4, 1, k)
+		e.window(RuleWE3, RuleNelson6, i, uint8(e.regs.zones>>lo1Shift), 0b11111, 4, -1, k)
 	}
-	if e.runAbove >= 8 {
+	if e.regs.runAbove >= 8 {
 		if s.Has(RuleWE4) {
-			e.emit(RuleWE4, i-e.runAbove+1, i, 1, 1, k)
+			e.emit(RuleWE4, i-e.regs.runAbove+1, i, 1, 1, k)
 		}
-		if e.runAbove >= 9 && s.Has(RuleNelson2) {
-			e.emit(RuleNelson2, i-e.runAbove+1, i, 1, 1, k)
+		if e.regs.runAbove >= 9 && s.Has(RuleNelson2) {
+			e.emit(RuleNelson2, i-e.regs.runAbove+1, i, 1, 1, k)
 		}
 	}
-	if e.runBelow >= 8 {
+	if e.regs.runBelow >= 8 {
 		if s.Has(RuleWE4) {
-			e.emit(RuleWE4, i-e.runBelow+1, i, -1, 1, k)
+			e.emit(RuleWE4, i-e.regs.runBelow+1, i, -1, 1, k)
 		}
-		if e.runBelow >= 9 && s.Has(RuleNelson2) {
-			e.emit(RuleNelson2, i-e.runBelow+1, i, -1, 1, k)
+		if e.regs.runBelow >= 9 && s.Has(RuleNelson2) {
+			e.emit(RuleNelson2, i-e.regs.runBelow+1, i, -1, 1, k)
 		}
 	}
 	if s.Has(RuleNelson3) {
@@ -341,29 +403,51 @@ func (e *ruleEngine) emit(r Rule, first, last int, side int8, hits int, k float6
 }
 
 // finish fills in the lots and descriptions of the signals and marks the
-// points taking part in them.
+// points taking part in them. The lot IDs of all signals share one
+// backing array (each Lots slice is capped, so appending to one copies
+// it) and the descriptions one string, so that the cost in allocations
+// does not grow with the number of signals.
 func (e *ruleEngine) finish(pts []Point) []Signal {
+	if len(e.signals) == 0 {
+		return e.signals
+	}
+	total := 0
+	for si := range e.signals {
+		total += e.signals[si].Last - e.signals[si].First + 1
+	}
+	ids := make([]string, 0, total)
+	text := make([]byte, 0, 64*len(e.signals))
+	ends := make([]int, len(e.signals))
 	for si := range e.signals {
 		sg := &e.signals[si]
-		sg.Lots = make([]string, 0, sg.Last-sg.First+1)
+		start := len(ids)
 		bit := sg.Rule.Set()
 		for j := sg.First; j <= sg.Last; j++ {
-			sg.Lots = append(sg.Lots, pts[j].Lot.ID)
+			ids = append(ids, pts[j].Lot.ID)
 			pts[j].Rules |= bit
 		}
-		sg.Description = sg.describe()
+		sg.Lots = ids[start:len(ids):len(ids)]
+		text = sg.appendDescription(text)
+		ends[si] = len(text)
+	}
+	all := string(text)
+	from := 0
+	for si := range e.signals {
+		e.signals[si].Description = all[from:ends[si]]
+		from = ends[si]
 	}
 	return e.signals
 }
 
-func (sg *Signal) describe() string {
+// appendDescription appends the signal in plain words to b.
+func (sg *Signal) appendDescription(b []byte) []byte {
 	n := sg.Last - sg.First + 1
 	where := "above"
 	if sg.Side < 0 {
 		where = "below"
 	}
-	zone1 := strconv.FormatFloat(sg.k/3, 'g', 3, 64) + "σ"
-	zone2 := strconv.FormatFloat(2*sg.k/3, 'g', 3, 64) + "σ"
+	num := func(b []byte, v int) []byte { return strconv.AppendInt(b, int64(v), 10) }
+	zone := func(b []byte, z float64) []byte { return append(strconv.AppendFloat(b, z, 'g', 3, 64), "σ"...) }
 	switch sg.Rule {
 	case RuleWE1, RuleNelson1:
 		limit := "upper"
@@ -371,32 +455,36 @@ func (sg *Signal) describe() string {
 			limit = "lower"
 		}
 		if n == 1 {
-			return "1 lot " + where + " the " + limit + " control limit"
+			return append(append(append(append(append(b, "1 lot "...), where...), " the "...), limit...), " control limit"...)
 		}
-		return fmt.Sprintf("%d lots in a row %s the %s control limit", n, where, limit)
-	case RuleWE2, RuleNelson5:
-		if n <= 3 {
-			return fmt.Sprintf("%d of %d lots in a row more than %s %s the centre line", sg.hits, n, zone2, where)
+		b = append(num(b, n), " lots in a row "...)
+		return append(append(append(append(b, where...), " the "...), limit...), " control limit"...)
+	case RuleWE2, RuleNelson5, RuleWE3, RuleNelson6:
+		z, tail := 2*sg.k/3, ", at least 2 in every 3"
+		wide := n > 3
+		if sg.Rule == RuleWE3 || sg.Rule == RuleNelson6 {
+			z, tail, wide = sg.k/3, ", at least 4 in every 5", n > 5
 		}
-		return fmt.Sprintf("%d of %d lots in a row more than %s %s the centre line, at least 2 in every 3", sg.hits, n, zone2, where)
-	case RuleWE3, RuleNelson6:
-		if n <= 5 {
-			return fmt.Sprintf("%d of %d lots in a row more than %s %s the centre line", sg.hits, n, zone1, where)
+		b = append(num(b, sg.hits), " of "...)
+		b = append(num(b, n), " lots in a row more than "...)
+		b = append(append(append(zone(b, z), ' '), where...), " the centre line"...)
+		if wide {
+			b = append(b, tail...)
 		}
-		return fmt.Sprintf("%d of %d lots in a row more than %s %s the centre line, at least 4 in every 5", sg.hits, n, zone1, where)
+		return b
 	case RuleWE4, RuleNelson2:
-		return fmt.Sprintf("%d lots in a row %s the centre line", n, where)
+		return append(append(append(num(b, n), " lots in a row "...), where...), " the centre line"...)
 	case RuleNelson3:
 		if sg.Side > 0 {
-			return fmt.Sprintf("%d lots in a row each higher than the one before", n)
+			return append(num(b, n), " lots in a row each higher than the one before"...)
 		}
-		return fmt.Sprintf("%d lots in a row each lower than the one before", n)
+		return append(num(b, n), " lots in a row each lower than the one before"...)
 	case RuleNelson4:
-		return fmt.Sprintf("%d lots in a row alternating up and down", n)
+		return append(num(b, n), " lots in a row alternating up and down"...)
 	case RuleNelson7:
-		return fmt.Sprintf("%d lots in a row within %s of the centre line", n, zone1)
+		return append(zone(append(num(b, n), " lots in a row within "...), sg.k/3), " of the centre line"...)
 	case RuleNelson8:
-		return fmt.Sprintf("%d lots in a row more than %s from the centre line", n, zone1)
+		return append(zone(append(num(b, n), " lots in a row more than "...), sg.k/3), " from the centre line"...)
 	}
-	return sg.Rule.Describe()
+	return append(b, sg.Rule.Describe()...)
 }

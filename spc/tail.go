@@ -18,13 +18,16 @@ type countDist struct {
 
 	lcl, ucl int64 // exact limits; lcl < 0 until computed
 
-	// Per lot size, filled by finishPoints once ready is set: centre and
-	// σᵢ of the plotted statistic, the limits in plotted units, and
-	// whether the expected counts are too small for normal limits.
-	ready      bool
-	ctr, sig   float64
-	uclV, lclV float64
-	small      bool
+	// Per lot size, filled by prepare, which sets ready: centre, σᵢ and
+	// scaled σᵢ of the plotted statistic, the limits in plotted units,
+	// 1 when the expected counts are too small for normal limits and 1
+	// when the lower limit is 0, and the values a point of this size
+	// gets for Center, UCL, LCL and Sigma.
+	ready                          bool
+	ctr, sig, sigS                 float64
+	uclV, lclV                     float64
+	smallLot, lclZeroLot           int
+	outCtr, outUCL, outLCL, outSig float64
 
 	tailLo int64     // tails[i] is the TailP of count tailLo+i
 	tails  []float64 // NaN until computed; nil until first use
@@ -94,10 +97,8 @@ func (d *countDist) tailDirect(count int64) float64 {
 
 // tail returns tailDirect(count), cached per count near the mean.
 func (d *countDist) tail(count int64) float64 {
-	if i := uint64(count - d.tailLo); i < uint64(len(d.tails)) {
-		if t := d.tails[i]; t == t {
-			return t
-		}
+	if t, i := d.tails, uint64(count-d.tailLo); i < uint64(len(t)) && t[i] == t[i] {
+		return t[i]
 	}
 	return d.tailSlow(count)
 }

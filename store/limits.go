@@ -21,7 +21,7 @@ type LimitSet struct {
 	Number        int // 1, 2, … within the process
 	Method        spc.Method
 	K             float64
-	Center        float64 // p̄, n·p̄, ū or c̄ as spc computed it
+	Center        float64 // the per-unit rate spc.Analysis.Rate: p̄ (p and np), ū (u) or c̄ (c)
 	SigmaZ        float64 // Laney σ_z (1 for the other methods)
 
 	BaselineFrom, BaselineTo time.Time

@@ -24,6 +24,26 @@
 //     JSON data block read by /static/charts.js, so the Content-Security-
 //     Policy forbids inline scripts and styles.
 //
+// Pages (server-rendered; least role in brackets):
+//
+//	/                               status board: every active process, today's lots and signals, open causes (viewer)
+//	/processes/{id}                 control chart; period=today|shift|7d|30d|all|custom (from, to), by=lot|shift|day (viewer)
+//	/processes/{id}/chart.csv       the chart's points as CSV (viewer)
+//	/log, /processes/{id}/log       log a lot; saving shows its verdict on the chart at once (inspector)
+//	/lots/{lot}                     a lot: verdict, assignable causes, correction, void, history and audit (viewer; changes inspector)
+//	/processes/{id}/limits          baseline, trial limits, exclusions with reasons, freeze (engineer)
+//	/settings/processes, /processes/{id}/settings   add and edit processes (engineer)
+//	/upload                         CSV upload: preview with line-numbered problems, import on confirmation (inspector)
+//	/review?week=2026-W48, /plan    weekly review (downloads as HTML, CSV, JSON) and lot-size planning (viewer)
+//	/admin/users                    users and API tokens (admin)
+//
+// A chart of more than 2,000 points is thinned for drawing (per stretch the
+// lowest and highest point, and every point outside its limits or in a
+// signal); the page says so, and its table and CSV keep every point. An
+// uploaded file waits on the server (a temporary file under a random key
+// bound to the session) between the preview and the confirmation, so that
+// the bytes imported are the bytes checked.
+//
 // API (JSON; errors are {"error": "..."} with "problems" for bad lots):
 //
 //	GET  /api/v1/me                         who the token or session is

@@ -9,8 +9,8 @@ import (
 	"math"
 	"net/http"
 	"path"
-	"time"
 
+	"lotwatch/spc"
 	"lotwatch/store"
 )
 
@@ -38,6 +38,13 @@ var templateFuncs = template.FuncMap{
 		}
 		return fmt.Sprintf("%.4g", f)
 	},
+	"num":        fmtFloat,
+	"when":       fmtWhen,
+	"plural":     plural,
+	"thousands":  func(n int) string { return thousands(int64(n)) },
+	"ruleName":   ruleName,
+	"sub":        func(a, b int) int { return a - b },
+	"valueShort": func(c spc.Chart) string { return valueShort(string(c)) },
 }
 
 func loadPages() (*pageSet, error) {
@@ -48,10 +55,10 @@ func loadPages() (*pageSet, error) {
 	ps := &pageSet{pages: map[string]*template.Template{}}
 	for _, n := range names {
 		base := path.Base(n)
-		if base == "layout.html" {
+		if base == "layout.html" || base == "partials.html" {
 			continue
 		}
-		t, err := template.New(base).Funcs(templateFuncs).ParseFS(templatesFS, "templates/layout.html", n)
+		t, err := template.New(base).Funcs(templateFuncs).ParseFS(templatesFS, "templates/layout.html", "templates/partials.html", n)
 		if err != nil {
 			return nil, fmt.Errorf("web: template %s: %w", base, err)
 		}
@@ -66,6 +73,12 @@ type page struct {
 	User    *store.User
 	Caution string
 	Data    any
+}
+
+// Can reports whether the signed-in user has at least the role, for the
+// templates to show only what the user may use (the routes check again).
+func (p page) Can(role string) bool {
+	return p.User != nil && p.User.Role.AtLeast(store.Role(role))
 }
 
 // render executes the page into a buffer first, so that a template error
@@ -101,75 +114,4 @@ func (s *Server) pageError(w http.ResponseWriter, r *http.Request, status int, m
 		Status int
 		Text   string
 	}{status, msg})
-}
-
-type processRow struct {
-	ID          int64
-	Name        string
-	Description string
-	Chart       string
-}
-
-func (s *Server) processesPage(w http.ResponseWriter, r *http.Request) {
-	ps, err := s.db.Processes(r.Context(), false)
-	if err != nil {
-		s.internalError(w, r, err)
-		return
-	}
-	rows := make([]processRow, len(ps))
-	for i, p := range ps {
-		rows[i] = processRow{ID: p.ID, Name: p.Name, Description: p.Description, Chart: string(p.Chart)}
-	}
-	s.render(w, r, http.StatusOK, "processes.html", "Processes", rows)
-}
-
-type chartPageData struct {
-	Process  store.Process
-	From, To string
-	Chart    *ChartJSON
-	Options  map[string]any
-	Recent   []LotJSON
-	OutCount int
-	Limits   string
-}
-
-// recentRows is how many of the latest lots the chart page lists.
-const recentRows = 30
-
-func (s *Server) chartPage(w http.ResponseWriter, r *http.Request) {
-	p, ok := s.pathProcess(w, r)
-	if !ok {
-		return
-	}
-	q := r.URL.Query()
-	win, err := parseWindow(q, p.Location())
-	if err != nil {
-		s.pageError(w, r, http.StatusBadRequest, err.Error())
-		return
-	}
-	pc, err := s.freshChart(r.Context(), p)
-	if err != nil {
-		s.internalError(w, r, err)
-		return
-	}
-	c := pc.chartJSON(win)
-	d := chartPageData{Process: p, From: q.Get("from"), To: q.Get("to"), Chart: c,
-		Options: chartOptions(p.Name+" — "+c.Chart+" chart", c)}
-	for _, l := range c.Lots {
-		if l.OutOfLimits {
-			d.OutCount++
-		}
-	}
-	for i := len(c.Lots) - 1; i >= 0 && len(d.Recent) < recentRows; i-- {
-		d.Recent = append(d.Recent, c.Lots[i])
-	}
-	switch {
-	case len(pc.sets) == 0:
-		d.Limits = "trial limits estimated from the lots themselves (no limit set frozen yet)"
-	default:
-		last := pc.sets[len(pc.sets)-1]
-		d.Limits = fmt.Sprintf("limit set %d in force from %s (earlier lots: trial limits or earlier sets)",
-			last.Number, last.EffectiveFrom.In(p.Location()).Format(time.DateOnly))
-	}
-	s.render(w, r, http.StatusOK, "chart.html", p.Name, d)
 }

@@ -15,8 +15,17 @@ import (
 // manages processes and limit sets; an admin also manages users.
 func TestRouteRoles(t *testing.T) {
 	e := newTestEnv(t)
-	e.addLots(t, 30, func(i int) int64 { return int64(4 + i%3) })
+	lots := e.addLots(t, 30, func(i int) int64 { return int64(4 + i%3) })
 	id := fmt.Sprint(e.proc.ID)
+	lot := fmt.Sprint(lots[1].ID)
+	if _, err := e.db.AddUser(t.Context(), "setup", "spare", store.RoleViewer, testPassword); err != nil {
+		t.Fatal(err)
+	}
+	_, spareTok, err := e.db.CreateToken(t.Context(), "setup", "spare", "spare")
+	if err != nil {
+		t.Fatal(err)
+	}
+	tok := fmt.Sprint(spareTok.ID)
 	anon := store.Role("anonymous")
 	const (
 		ok      = http.StatusOK
@@ -30,46 +39,100 @@ func TestRouteRoles(t *testing.T) {
 	all := func(anonStatus, status int) want {
 		return want{anon: anonStatus, store.RoleViewer: status, store.RoleInspector: status, store.RoleEngineer: status, store.RoleAdmin: status}
 	}
+	// least gives status to the roles from min up, forbid below, and sends
+	// an anonymous browser to the sign-in page.
+	least := func(min store.Role, status int) want {
+		w := want{anon: see}
+		for _, r := range roles {
+			w[r] = forbid
+			if r.AtLeast(min) {
+				w[r] = status
+			}
+		}
+		return w
+	}
+	const notFound = http.StatusNotFound
 	seq := 0
+	fresh := func(format string) func() string {
+		return func() string { seq++; return fmt.Sprintf(format, seq) }
+	}
 	cases := []struct {
 		method, path string
 		body         func() string // a fresh body per call
 		form         bool
 		want         want
+		pattern      string // the route pattern, when the path does not give it
 	}{
-		{"GET", "/static/charts.js", nil, false, all(ok, ok)},
-		{"GET", "/static/echarts.min.js", nil, false, all(ok, ok)},
-		{"GET", "/healthz", nil, false, all(ok, ok)},
-		{"GET", "/signin", nil, false, all(ok, see)}, // signed in: sent on
-		{"POST", "/signin", func() string { return "name=&password=" }, true, all(bad, bad)},
-		{"GET", "/", nil, false, all(see, ok)},
-		{"GET", "/processes/" + id, nil, false, all(see, ok)},
-		{"GET", "/password", nil, false, all(see, ok)},
-		{"POST", "/password", func() string { return "" }, true, all(see, bad)},
-		{"GET", "/api/v1/me", nil, false, all(unauth, ok)},
-		{"GET", "/api/v1/processes", nil, false, all(unauth, ok)},
-		{"GET", "/api/v1/processes/" + id, nil, false, all(unauth, ok)},
-		{"GET", "/api/v1/processes/" + id + "/chart", nil, false, all(unauth, ok)},
-		{"GET", "/api/v1/processes/" + id + "/lots", nil, false, all(unauth, ok)},
-		{"GET", "/api/v1/processes/" + id + "/signals", nil, false, all(unauth, ok)},
-		{"GET", "/api/v1/processes/" + id + "/limits", nil, false, all(unauth, ok)},
+		// Pages: the handler ran when the status is not 403 (a 400 or 404
+		// comes from the handler itself, after the role check).
+		{"GET", "/processes/" + id + "/chart.csv", nil, false, all(see, ok), ""},
+		{"GET", "/processes/" + id + "?period=7d&by=shift", nil, false, all(see, ok), "/processes/{id}"},
+		{"GET", "/log", nil, false, least(store.RoleInspector, ok), ""},
+		{"GET", "/processes/" + id + "/log", nil, false, least(store.RoleInspector, ok), ""},
+		{"POST", "/processes/" + id + "/lots", fresh("lot=F%03d&inspected=100&count=2"), true, least(store.RoleInspector, see), ""},
+		{"GET", "/lots/" + lot, nil, false, all(see, ok), "/lots/{lot}"},
+		{"POST", "/lots/" + lot + "/causes", fresh("cause=cause+%d"), true, least(store.RoleInspector, see), "/lots/{lot}/causes"},
+		{"POST", "/lots/" + lot + "/causes/999999/close", func() string { return "action=x" }, true, least(store.RoleInspector, notFound), "/lots/{lot}/causes/{ann}/close"},
+		{"POST", "/lots/" + lot + "/correct", fresh("lot=" + lots[1].Lot + "&inspected=200&count=5&reason=recount+%d"), true, least(store.RoleInspector, see), "/lots/{lot}/correct"},
+		{"POST", "/lots/" + lot + "/void", func() string { return "reason=" }, true, least(store.RoleInspector, bad), "/lots/{lot}/void"},
+		{"GET", "/processes/" + id + "/limits", nil, false, least(store.RoleEngineer, ok), ""},
+		{"POST", "/processes/" + id + "/limits", func() string { return "reason=" }, true, least(store.RoleEngineer, bad), ""},
+		{"GET", "/processes/" + id + "/settings", nil, false, least(store.RoleEngineer, ok), ""},
+		{"POST", "/processes/" + id + "/settings", func() string { return "name=x&reason=" }, true, least(store.RoleEngineer, bad), ""},
+		{"GET", "/settings/processes", nil, false, least(store.RoleEngineer, ok), ""},
+		{"POST", "/settings/processes", fresh("name=Press+%d&chart=c&method=sigma&k=3&rules=we&tz=UTC"), true, least(store.RoleEngineer, see), ""},
+		{"GET", "/upload", nil, false, least(store.RoleInspector, ok), ""},
+		{"POST", "/upload", func() string { return "process=" + id }, true, least(store.RoleInspector, bad), ""},
+		{"POST", "/upload/0123456789abcdef", func() string { return "" }, true, least(store.RoleInspector, notFound), "/upload/{key}"},
+		{"GET", "/review", nil, false, all(see, ok), ""},
+		{"GET", "/review/download?format=json", nil, false, all(see, ok), "/review/download"},
+		{"GET", "/review/review.css", nil, false, all(ok, ok), ""},
+		{"GET", "/plan?process=" + id, nil, false, all(see, ok), "/plan"},
+		{"GET", "/admin/users", nil, false, least(store.RoleAdmin, ok), ""},
+		{"POST", "/admin/users", fresh("name=new%03d&role=viewer&password=" + testPassword), true, least(store.RoleAdmin, see), ""},
+		{"POST", "/admin/users/viewer1/password", func() string { return "password=" }, true, least(store.RoleAdmin, bad), "/admin/users/{name}/password"},
+		{"POST", "/admin/users/spare/active", func() string { return "active=1" }, true, least(store.RoleAdmin, see), "/admin/users/{name}/active"},
+		{"POST", "/admin/tokens", func() string { return "user=spare&label=station" }, true, least(store.RoleAdmin, ok), ""},
+		{"POST", "/admin/tokens/" + tok + "/revoke", func() string { return "" }, true, least(store.RoleAdmin, see), "/admin/tokens/{tok}/revoke"},
+
+		{"GET", "/static/charts.js", nil, false, all(ok, ok), ""},
+		{"GET", "/static/echarts.min.js", nil, false, all(ok, ok), ""},
+		{"GET", "/healthz", nil, false, all(ok, ok), ""},
+		{"GET", "/signin", nil, false, all(ok, see), ""}, // signed in: sent on
+		{"POST", "/signin", func() string { return "name=&password=" }, true, all(bad, bad), ""},
+		{"GET", "/", nil, false, all(see, ok), ""},
+		{"GET", "/processes/" + id, nil, false, all(see, ok), ""},
+		{"GET", "/password", nil, false, all(see, ok), ""},
+		{"POST", "/password", func() string { return "" }, true, all(see, bad), ""},
+		{"GET", "/api/v1/me", nil, false, all(unauth, ok), ""},
+		{"GET", "/api/v1/processes", nil, false, all(unauth, ok), ""},
+		{"GET", "/api/v1/processes/" + id, nil, false, all(unauth, ok), ""},
+		{"GET", "/api/v1/processes/" + id + "/chart", nil, false, all(unauth, ok), ""},
+		{"GET", "/api/v1/processes/" + id + "/lots", nil, false, all(unauth, ok), ""},
+		{"GET", "/api/v1/processes/" + id + "/signals", nil, false, all(unauth, ok), ""},
+		{"GET", "/api/v1/processes/" + id + "/limits", nil, false, all(unauth, ok), ""},
 		{"POST", "/api/v1/processes/" + id + "/lots", func() string {
 			seq++
 			return fmt.Sprintf(`{"lot":"R%03d","inspected":100,"defective":2}`, seq)
-		}, false, want{anon: unauth, store.RoleViewer: forbid, store.RoleInspector: created, store.RoleEngineer: created, store.RoleAdmin: created}},
-		{"GET", "/api/v1/users", nil, false, want{anon: unauth, store.RoleViewer: forbid, store.RoleInspector: forbid, store.RoleEngineer: forbid, store.RoleAdmin: ok}},
-		{"POST", "/signout", func() string { return "" }, true, all(see, see)},
+		}, false, want{anon: unauth, store.RoleViewer: forbid, store.RoleInspector: created, store.RoleEngineer: created, store.RoleAdmin: created}, ""},
+		{"GET", "/api/v1/users", nil, false, want{anon: unauth, store.RoleViewer: forbid, store.RoleInspector: forbid, store.RoleEngineer: forbid, store.RoleAdmin: ok}, ""},
+		{"POST", "/signout", func() string { return "" }, true, all(see, see), ""},
 	}
 	// Every route of the table must be covered here.
 	covered := map[string]bool{}
 	for _, c := range cases {
-		covered[c.method+" "+patternOf(c.path, id)] = true
+		pat := c.pattern
+		if pat == "" {
+			pat = patternOf(c.path, id)
+		}
+		covered[c.method+" "+pat] = true
 	}
 	for _, rt := range e.srv.routes() {
 		if !covered[rt.method+" "+rt.pattern] {
 			t.Errorf("route %s %s has no case in the role table", rt.method, rt.pattern)
 		}
 	}
+	cookies := map[store.Role]*http.Cookie{}
 	for _, c := range cases {
 		for _, role := range append([]store.Role{anon}, roles...) {
 			r := req{method: c.method, path: c.path, form: c.form, headers: map[string]string{"Sec-Fetch-Site": "same-origin"}}
@@ -79,8 +142,13 @@ func TestRouteRoles(t *testing.T) {
 			if role != anon {
 				if strings.HasPrefix(c.path, "/api/") {
 					r.token = e.tokens[role]
-				} else {
+				} else if c.path == "/signout" {
 					r.cookie = e.signIn(t, string(role)+"1", testPassword)
+				} else {
+					if cookies[role] == nil {
+						cookies[role] = e.signIn(t, string(role)+"1", testPassword)
+					}
+					r.cookie = cookies[role]
 				}
 			}
 			rec := e.do(r)

@@ -51,6 +51,7 @@ type Server struct {
 	limiter *attemptLimiter
 	pages   *pageSet
 	judges  judgeGroup
+	uploads uploads
 	handler http.Handler
 }
 

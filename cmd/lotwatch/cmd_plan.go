@@ -21,6 +21,7 @@ func init() {
 }
 
 const planHelp = `Usage: lotwatch plan --p0 P [--p1 P] [--n N] [--arl1 T] [--sigma K] [options]
+       lotwatch plan --process NAME --db FILE [--p1 P] [--n N] [--arl1 T] [options]
 
 Shows how a p or np chart with K-sigma limits behaves for lots of N units:
 how many nonconforming units make a lot signal, and the average number of
@@ -33,11 +34,18 @@ finds the smallest lot size whose ARL at P1 is at most the target.
 
 Options:
   --p0 P      usual (in-control) fraction nonconforming, between 0 and 1; required
+              unless --process is given
+  --process NAME  take P0 from this p or np process: the centre of its latest
+              frozen limit set, else the trial centre of all its lots
+  --db FILE   the lotwatch database holding --process
   --p1 P      shifted fraction nonconforming to detect, between 0 and 1, not P0
   --n N       units per lot, a whole number greater than 0
   --arl1 T    target: a shift to P1 should signal within T lots on average
               (a number, 1 or more; needs --p1)
   --sigma K   width of the limits in standard deviations (default 3)
+  --min-arl0 A  when searching, also require at least A lots on average between
+              false alarms at P0 (default 0: no floor; small lots can meet the
+              ARL1 target only by signalling often in control too)
   --max-n N   largest lot size tried when searching (default 100000,
               at most 10000000)
   --format F  text (default) or json
@@ -68,6 +76,7 @@ type planJSON struct {
 	UCL             float64  `json:"ucl"`
 	LCL             float64  `json:"lcl"`
 	TargetARL1      *float64 `json:"arl1_target,omitempty"`
+	P0Source        string   `json:"p0_source,omitempty"`
 }
 
 func finiteOrNil(x float64) *float64 {
@@ -85,7 +94,10 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	arl1s := fs.String("arl1", "", "")
 	sigmas := fs.String("sigma", "3", "")
 	maxNs := fs.String("max-n", "100000", "")
+	minARL0s := fs.String("min-arl0", "0", "")
 	format := fs.String("format", "text", "")
+	procName := fs.String("process", "", "")
+	dbPath := fs.String("db", "", "")
 	pos, code := statsParse(fs, args, planHelp, stdout, stderr)
 	if code >= 0 {
 		return code
@@ -102,7 +114,10 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	}
 	var p0, p1, target float64 = math.NaN(), math.NaN(), math.NaN()
 	var n int64
-	if *p0s == "" {
+	var p0Source string
+	if *procName != "" || *dbPath != "" {
+		p0, p0Source = planProcessCentre(u, *procName, *dbPath, *p0s)
+	} else if *p0s == "" {
 		u.addf("--p0 is required: the usual fraction nonconforming, such as 0.02")
 	} else {
 		p0 = fraction("p0", *p0s)
@@ -147,7 +162,12 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 
 	searched := *ns == ""
 	if searched {
-		n, err = spc.SmallestN(p0, p1, k, target, maxN)
+		minARL0, perr := strconv.ParseFloat(*minARL0s, 64)
+		if perr != nil || !(minARL0 >= 0) {
+			fmt.Fprintf(stderr, "lotwatch plan: --min-arl0 %q must be a number of lots, 0 or more\n", *minARL0s)
+			return exitUsage
+		}
+		n, err = spc.SmallestNWithARL0(p0, p1, k, target, minARL0, maxN)
 		if errors.Is(err, spc.ErrNoPlan) {
 			fmt.Fprintf(stderr, "lotwatch plan: no lot size up to %d units detects a shift to %s within %s lots on average; try a larger --max-n or a smaller --sigma\n",
 				maxN, *p1s, *arl1s)
@@ -167,7 +187,7 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		out := planJSON{
 			N: pl.N, UCLCount: pl.UCLCount, LCLCount: pl.LCLCount,
 			ARL0: finiteOrNil(pl.ARL0), MinNPositiveLCL: pl.MinNPositiveLCL,
-			P0: p0, Sigma: k, UCL: pl.UCL, LCL: pl.LCL,
+			P0: p0, Sigma: k, UCL: pl.UCL, LCL: pl.LCL, P0Source: p0Source,
 		}
 		if *p1s != "" {
 			out.P1, out.ARL1 = &p1, finiteOrNil(pl.ARL1)
@@ -179,6 +199,9 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	}
 
 	var b strings.Builder
+	if p0Source != "" {
+		fmt.Fprintf(&b, "Usual fraction nonconforming of process %q: %s, the %s.\n\n", *procName, statsRate(p0), p0Source)
+	}
 	if searched {
 		fmt.Fprintf(&b, "Smallest lot size that detects a shift to %s within %s lots on average: %d units.\n\n",
 			statsRate(p1), strconv.FormatFloat(target, 'g', -1, 64), n)
@@ -207,6 +230,9 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 			fmt.Fprintf(&b, "  this %s the target of %s lots.\n", verdict, strconv.FormatFloat(target, 'g', -1, 64))
 		}
 	}
+	if pl.ARL0 < planFewLotsARL0 {
+		fmt.Fprintf(&b, "\nNote: at this size an in-control process gives a false alarm every %.0f lots or so;\nif that is too often, search with --min-arl0 (e.g. --min-arl0 200) or use a larger --n.\n", pl.ARL0)
+	}
 	if searched {
 		b.WriteString("\nBecause counts are whole numbers, some larger lot sizes may miss the target again;\ncheck the size you choose with --n.\n")
 	}
@@ -214,6 +240,11 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	fmt.Fprint(stdout, b.String())
 	return exitOK
 }
+
+// planFewLotsARL0 is the ARL0 below which the text output points out
+// frequent false alarms (common practice, no source: a 3-sigma chart of a
+// normal statistic gives about 370).
+const planFewLotsARL0 = 100
 
 // planRunLength says an average run length in words.
 func planRunLength(arl float64) string {

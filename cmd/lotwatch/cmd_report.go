@@ -1,0 +1,199 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"math"
+	"os"
+	"strings"
+
+	"lotwatch/spc"
+	"lotwatch/store"
+	"lotwatch/web/review"
+)
+
+func init() {
+	register(command{
+		name:    "report",
+		summary: "weekly review: rates with intervals, change from last week, signals, Pareto, trend",
+		run:     runReport,
+	})
+}
+
+const reportHelp = `Usage: lotwatch report --db FILE [--week YYYY-Www] [--process NAME]... [options]
+
+Writes the weekly review of one ISO 8601 week (Monday to Sunday on each
+plant's own clocks) for every active process, or for the processes named:
+lots, units inspected, nonconforming units (p, np) or defects (u, c), the
+rate with its confidence interval, the previous week beside it, the change
+with its interval and test, the week's lots outside their control limits
+and run-rule signals with their recorded causes, a Pareto of the defect
+categories, a trend of the weekly rate and the dispersion check.
+
+Options:
+  --db FILE        the lotwatch database; required, must exist
+  --week W         ISO week such as 2026-W48 (default: the last week that
+                   is complete in every chosen process's time zone)
+  --process NAME   a process to review; repeat the option or give a comma
+                   list (default: every active process)
+  --method NAME    interval for the fraction nonconforming of p and np
+                   processes (default wilson): wilson, clopper-pearson,
+                   agresti-coull, jeffreys or wald. u and c processes always
+                   get the exact Poisson interval.
+  --level L        confidence level, between 0 and 1 (default 0.95)
+  --format F       text (default), html (a self-contained file that opens
+                   when mailed: no scripts, no external references, charts
+                   inline), csv (one row per process) or json
+  -h               show this help
+
+Rates are fractions in csv and json, percentages (or defects per 100 units)
+in text and html.
+
+Exit status: 0 when done, 1 when the database cannot be read, 2 for bad
+input (nothing is printed on standard output then; each problem is named
+on standard error).
+`
+
+// processList collects --process values, repeated or comma-separated.
+type processList []string
+
+func (l *processList) String() string { return strings.Join(*l, ",") }
+
+func (l *processList) Set(v string) error {
+	for _, name := range strings.Split(v, ",") {
+		name = strings.TrimSpace(name)
+		if name == "" {
+			return fmt.Errorf("%q holds an empty process name", v)
+		}
+		*l = append(*l, name)
+	}
+	return nil
+}
+
+func runReport(args []string, _ io.Reader, stdout, stderr io.Writer) int {
+	fs := flag.NewFlagSet("report", flag.ContinueOnError)
+	dbPath := fs.String("db", "", "")
+	week := fs.String("week", "", "")
+	var procs processList
+	fs.Var(&procs, "process", "")
+	method := fs.String("method", "wilson", "")
+	levels := fs.String("level", "0.95", "")
+	format := fs.String("format", "text", "")
+	pos, code := statsParse(fs, args, reportHelp, stdout, stderr)
+	if code >= 0 {
+		return code
+	}
+	u := &statsUsage{cmd: "report"}
+	if *dbPath == "" {
+		u.addf("--db is required: the lotwatch database file")
+	} else if st, err := os.Stat(*dbPath); err != nil || st.IsDir() {
+		u.addf("--db %q is not a lotwatch database file (no such file)", *dbPath)
+	}
+	if *week != "" {
+		if _, _, err := spc.ParseISOWeek(*week); err != nil {
+			u.addf("--week %q %s", *week, strings.TrimPrefix(err.Error(), fmt.Sprintf("week %q ", *week)))
+		}
+	}
+	m, err := spc.ParseIntervalMethod(*method)
+	if err != nil || m == spc.IntervalPoissonExact {
+		u.addf("--method %q must be wilson, clopper-pearson, agresti-coull, jeffreys or wald (u and c processes always get the exact Poisson interval)", *method)
+	}
+	level := u.level(*levels)
+	switch *format {
+	case "text", "html", "csv", "json":
+	default:
+		u.addf("--format %q must be text, html, csv or json", *format)
+	}
+	if len(pos) > 0 {
+		u.addf("unexpected argument %q: report takes options only", pos[0])
+	}
+	if c := u.report(stderr); c >= 0 {
+		return c
+	}
+
+	db, err := store.Open(*dbPath)
+	if err != nil {
+		fmt.Fprintf(stderr, "lotwatch report: --db %q: %v\n", *dbPath, err)
+		return exitFail
+	}
+	defer db.Close()
+	r, err := review.Build(context.Background(), db, review.Options{Week: *week, Processes: procs, Method: m, Level: level})
+	var oe *review.OptionError
+	switch {
+	case errors.As(err, &oe):
+		fmt.Fprintf(stderr, "lotwatch report: --%s %q %s\n", oe.Option, oe.Value, oe.Reason)
+		return exitUsage
+	case err != nil:
+		fmt.Fprintf(stderr, "lotwatch report: %v\n", err)
+		return exitFail
+	}
+
+	// Render in full before writing, so a failure prints nothing.
+	var b bytes.Buffer
+	switch *format {
+	case "html":
+		err = r.WriteHTML(&b)
+	case "csv":
+		err = r.WriteCSV(&b)
+	case "json":
+		err = r.WriteJSON(&b)
+	default:
+		err = r.WriteText(&b) // carries review.Caution, which covers caution
+	}
+	if err != nil {
+		fmt.Fprintf(stderr, "lotwatch report: %v\n", err)
+		return exitFail
+	}
+	if _, err := stdout.Write(b.Bytes()); err != nil {
+		fmt.Fprintf(stderr, "lotwatch report: writing the report: %v\n", err)
+		return exitFail
+	}
+	return exitOK
+}
+
+// planProcessCentre reads P0 for `lotwatch plan --process NAME --db FILE`
+// (review.CurrentCentre), adding a usage problem to u for bad input. It
+// returns NaN and "" when there is a problem.
+func planProcessCentre(u *statsUsage, name, dbPath, p0s string) (float64, string) {
+	switch {
+	case p0s != "":
+		u.addf("--p0 %q and --process %q: give one of them, not both", p0s, name)
+		return math.NaN(), ""
+	case name == "":
+		u.addf("--db %q needs --process, the process whose centre is P0", dbPath)
+		return math.NaN(), ""
+	case dbPath == "":
+		u.addf("--process %q needs --db, the lotwatch database holding it", name)
+		return math.NaN(), ""
+	}
+	if st, err := os.Stat(dbPath); err != nil || st.IsDir() {
+		u.addf("--db %q is not a lotwatch database file (no such file)", dbPath)
+		return math.NaN(), ""
+	}
+	db, err := store.Open(dbPath)
+	if err != nil {
+		u.addf("--db %q: %v", dbPath, err)
+		return math.NaN(), ""
+	}
+	defer db.Close()
+	ctx := context.Background()
+	p, err := db.ProcessByName(ctx, name)
+	if err != nil {
+		u.addf("--process %q: %v", name, err)
+		return math.NaN(), ""
+	}
+	c, err := review.CurrentCentre(ctx, db, p)
+	if err != nil {
+		u.addf("--process %q: %v", name, err)
+		return math.NaN(), ""
+	}
+	if err := spc.CheckPlanInput(c.P0, 1, 3); err != nil {
+		u.addf("--process %q: its %s is %s; a plan needs a fraction between 0 and 1, exclusive", name, c.Source, statsRate(c.P0))
+		return math.NaN(), ""
+	}
+	return c.P0, c.Source
+}

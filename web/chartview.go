@@ -1,0 +1,429 @@
+package web
+
+import (
+	"fmt"
+	"math"
+	"net/url"
+	"sort"
+	"strings"
+	"time"
+
+	"lotwatch/spc"
+	"lotwatch/store"
+)
+
+// Subgroupings of the chart page: each lot on its own, or the lots of a
+// shift or of a day pooled into one subgroup (Σd over Σn).
+const (
+	byLot   = "lot"
+	byShift = "shift"
+	byDay   = "day"
+)
+
+// shiftSpan is the longest a run of lots of one shift name may last and
+// still count as one shift (a night shift crosses midnight).
+const shiftSpan = 12 * time.Hour
+
+// viewPoint is one plotted subgroup (one lot, or the lots of a shift or a
+// day) with everything the tooltip and the table show.
+type viewPoint struct {
+	Label     string
+	LotID     int64 // the lot, when a point is one lot
+	LotIDs    []int64
+	Time      time.Time
+	Shift     string
+	Lots      int
+	Inspected int64
+	Count     int64
+	Value     float64
+	Center    float64
+	UCL, LCL  float64
+	Z, TailP  float64
+	Above     bool
+	Below     bool
+	Rules     []string
+	Limits    string // "trial limits" or "limit set N"
+	Notes     []string
+	Excluded  bool
+}
+
+// Out reports a point beyond a limit.
+func (v viewPoint) Out() bool { return v.Above || v.Below }
+
+// Verdict says the point's state in words.
+func (v viewPoint) Verdict() string {
+	switch {
+	case v.Above && len(v.Rules) > 0:
+		return "above the UCL; " + strings.Join(v.Rules, ", ")
+	case v.Above:
+		return "above the UCL"
+	case v.Below:
+		return "below the LCL"
+	case len(v.Rules) > 0:
+		return "within limits; in signal " + strings.Join(v.Rules, ", ")
+	}
+	return "within limits"
+}
+
+// viewSignal is a run-rule signal as the page lists it.
+type viewSignal struct {
+	Rule        string
+	Description string
+	First, Last string // labels
+	LastLotID   int64
+	Causes      []store.Annotation
+}
+
+// setMark is where a limit set starts within the shown points.
+type setMark struct {
+	Index int
+	Label string
+}
+
+// chartView is one process's chart for a period and a subgrouping.
+type chartView struct {
+	Proc        store.Process
+	Period      string
+	PeriodWords string
+	From, To    string
+	Subgroup    string
+	Unit        string // "lot" or "subgroup"
+	Points      []viewPoint
+	Signals     []viewSignal
+	Marks       []setMark
+	Notes       []string
+	Limits      string
+	Trial       bool
+	OutCount    int
+	SignalCount int
+	Method      string
+	K           float64
+	Rate        float64
+}
+
+// periodOf reads the period of the chart page: today, the latest shift,
+// the last 7 or 30 days, all, or custom from/to dates. The default is 30
+// days, long enough for the run rules to mean something.
+func periodOf(q url.Values, pc *processChart, now time.Time) (window, string, string, error) {
+	loc := pc.proc.Location()
+	period := q.Get("period")
+	if period == "" && (q.Get("from") != "" || q.Get("to") != "") {
+		period = "custom"
+	}
+	if period == "" {
+		period = "30d"
+	}
+	now = now.In(loc)
+	midnight := time.Date(now.Year(), now.Month(), now.Day(), 0, 0, 0, 0, loc)
+	switch period {
+	case "today":
+		return window{from: midnight}, period, "today, " + midnight.Format("Monday 2 January 2006"), nil
+	case "shift":
+		if len(pc.lots) == 0 {
+			return window{from: midnight}, period, "the latest shift (no lots yet)", nil
+		}
+		i := shiftStart(pc.lots, len(pc.lots)-1)
+		first, last := pc.lots[i], pc.lots[len(pc.lots)-1]
+		name := last.Shift
+		if name == "" {
+			name = "without a shift name"
+		}
+		return window{from: first.Time}, period, fmt.Sprintf("the latest shift (%s, since %s)", name, fmtWhen(first.Time.In(loc))), nil
+	case "7d":
+		return window{from: now.AddDate(0, 0, -7)}, period, "the last 7 days", nil
+	case "30d":
+		return window{from: now.AddDate(0, 0, -30)}, period, "the last 30 days", nil
+	case "all":
+		return window{}, period, "the whole record", nil
+	case "custom":
+		w, err := parseWindow(q, loc)
+		if err != nil {
+			return w, period, "", err
+		}
+		words := "from " + orDash(q.Get("from"), "the first lot") + " to " + orDash(q.Get("to"), "the latest lot")
+		return w, period, words, nil
+	}
+	return window{}, period, "", &paramError{"period", period, "is not one of today, shift, 7d, 30d, all or custom"}
+}
+
+func orDash(s, empty string) string {
+	if s == "" {
+		return empty
+	}
+	return s
+}
+
+// shiftStart returns the index of the first lot of the shift run that
+// holds lot i: the lots before it with the same shift name, back to at
+// most shiftSpan before lot i.
+func shiftStart(lots []store.Lot, i int) int {
+	j := i
+	for j > 0 && lots[j-1].Shift == lots[i].Shift && lots[i].Time.Sub(lots[j-1].Time) <= shiftSpan {
+		j--
+	}
+	return j
+}
+
+// groups splits the lots into subgroups: per lot, per shift run or per
+// day in the process's zone. Each group is a range [start, end).
+func groups(lots []store.Lot, by string, loc *time.Location) [][2]int {
+	var out [][2]int
+	for i := 0; i < len(lots); {
+		j := i + 1
+		switch by {
+		case byShift:
+			for j < len(lots) && lots[j].Shift == lots[i].Shift && lots[j].Time.Sub(lots[i].Time) <= shiftSpan {
+				j++
+			}
+		case byDay:
+			y, m, d := lots[i].Time.In(loc).Date()
+			for j < len(lots) {
+				y2, m2, d2 := lots[j].Time.In(loc).Date()
+				if y2 != y || m2 != m || d2 != d {
+					break
+				}
+				j++
+			}
+		}
+		out = append(out, [2]int{i, j})
+		i = j
+	}
+	return out
+}
+
+// buildView judges the subgroups and keeps those in the window. Lots are
+// judged on the whole record (pc); pooled subgroups are judged again,
+// each against the limit set in force at its first lot, with trial limits
+// estimated from the pooled subgroups before the first set.
+func buildView(pc *processChart, win window, by string, anns []store.Annotation) (*chartView, error) {
+	p := pc.proc
+	loc := p.Location()
+	v := &chartView{Proc: p, Subgroup: by, Unit: "lot", Method: string(p.Method), K: p.K}
+	if len(pc.lots) == 0 || pc.a == nil {
+		v.Limits = "no lots yet"
+		return v, nil
+	}
+	byLotID := map[int64][]store.Annotation{}
+	for _, a := range anns {
+		byLotID[a.LotID] = append(byLotID[a.LotID], a)
+	}
+	a, setOf := pc.a, pc.setOf
+	var gs [][2]int
+	if by == byLot {
+		gs = groups(pc.lots, byLot, loc)
+	} else {
+		v.Unit = "subgroup"
+		gs = groups(pc.lots, by, loc)
+		pooled := make([]store.Lot, len(gs))
+		for k, g := range gs {
+			first := pc.lots[g[0]]
+			var n, c int64
+			for i := g[0]; i < g[1]; i++ {
+				n += pc.lots[i].Inspected
+				c += pc.lots[i].Count
+			}
+			label := first.Time.In(loc).Format("2006-01-02")
+			if by == byShift {
+				label += " " + orDash(first.Shift, "(no shift)")
+			}
+			pooled[k] = store.Lot{ID: int64(k), LotInput: store.LotInput{Lot: label, Time: first.Time, Shift: first.Shift, Inspected: n, Count: c}}
+		}
+		pg, err := judge(p, pooled, pc.sets)
+		if err != nil {
+			return nil, err
+		}
+		a, setOf = pg.a, pg.setOf
+	}
+	v.Method, v.K, v.Rate = string(a.Method), a.K, a.Rate
+	lo := sort.Search(len(gs), func(k int) bool { return win.from.IsZero() || !pc.lots[gs[k][0]].Time.Before(win.from) })
+	hi := sort.Search(len(gs), func(k int) bool { return !win.to.IsZero() && pc.lots[gs[k][0]].Time.After(win.to) })
+	if hi < lo {
+		hi = lo
+	}
+	prevSet := -1
+	if lo > 0 {
+		prevSet = setOf[lo-1]
+	}
+	for k := lo; k < hi; k++ {
+		g, pt := gs[k], a.Points[k]
+		first := pc.lots[g[0]]
+		vp := viewPoint{Label: pt.Lot.ID, Time: first.Time.In(loc), Shift: first.Shift, Lots: g[1] - g[0],
+			Inspected: pt.Lot.Inspected, Count: pt.Lot.Count, Value: pt.Value, Center: pt.Center, UCL: pt.UCL, LCL: pt.LCL,
+			Z: pt.Z, TailP: pt.TailP, Above: pt.Above, Below: pt.Below, Rules: ruleNames(pt.Rules), Excluded: pt.Excluded}
+		if by == byLot {
+			vp.LotID = first.ID
+		}
+		for i := g[0]; i < g[1]; i++ {
+			vp.LotIDs = append(vp.LotIDs, pc.lots[i].ID)
+			for _, an := range byLotID[pc.lots[i].ID] {
+				state := "open"
+				if an.Closed {
+					state = "closed"
+				}
+				note := "cause (" + state + "): " + an.Cause
+				if by != byLot {
+					note = pc.lots[i].Lot + " " + note
+				}
+				vp.Notes = append(vp.Notes, note)
+			}
+		}
+		n := setOf[k]
+		if n > 0 {
+			vp.Limits = fmt.Sprintf("limit set %d", n)
+		} else {
+			vp.Limits = "trial limits"
+			v.Trial = true
+		}
+		if n != prevSet && n > 0 {
+			v.Marks = append(v.Marks, setMark{Index: k - lo, Label: fmt.Sprintf("limit set %d from %s", n, setFrom(pc.sets, n, loc))})
+		}
+		prevSet = n
+		if vp.Out() {
+			v.OutCount++
+		}
+		v.Points = append(v.Points, vp)
+	}
+	for _, sg := range a.Signals {
+		if sg.Last < lo || sg.First >= hi {
+			continue
+		}
+		vs := viewSignal{Rule: ruleName(sg.Rule), Description: sg.Description,
+			First: a.Points[sg.First].Lot.ID, Last: a.Points[sg.Last].Lot.ID}
+		lastGroup := gs[sg.Last]
+		vs.LastLotID = pc.lots[lastGroup[1]-1].ID
+		for i := gs[sg.First][0]; i < lastGroup[1]; i++ {
+			for _, an := range byLotID[pc.lots[i].ID] {
+				if an.Rule == "" || an.Rule == vs.Rule {
+					vs.Causes = append(vs.Causes, an)
+				}
+			}
+		}
+		v.Signals = append(v.Signals, vs)
+	}
+	v.SignalCount = len(v.Signals)
+	seenNote := map[string]bool{}
+	for _, w := range a.Warnings {
+		if !seenNote[w.Message] {
+			seenNote[w.Message] = true
+			v.Notes = append(v.Notes, w.Message)
+		}
+	}
+	if d := a.Dispersion; d.Overdispersed && d.Advice != "" && !seenNote[d.Advice] {
+		v.Notes = append(v.Notes, d.Advice)
+	}
+	switch {
+	case len(pc.sets) == 0:
+		v.Limits = "estimated from the lots themselves; an engineer freezes a limit set once a clean baseline is found"
+	default:
+		last := pc.sets[len(pc.sets)-1]
+		v.Limits = fmt.Sprintf("limit set %d, in force from %s (%s, k = %s)", last.Number,
+			fmtWhen(last.EffectiveFrom.In(loc)), last.Method, fmtFloat(last.K))
+		if v.Trial {
+			v.Limits += "; lots before the first set are on trial limits — not frozen"
+		}
+	}
+	return v, nil
+}
+
+func setFrom(sets []store.LimitSet, n int, loc *time.Location) string {
+	for _, s := range sets {
+		if s.Number == n {
+			return s.EffectiveFrom.In(loc).Format("2006-01-02")
+		}
+	}
+	return "?"
+}
+
+// maxDrawn is the most points drawn on a chart before it is thinned;
+// above it a browser's canvas chart becomes slow to pan and hover
+// (common practice, no source).
+const maxDrawn = 2000
+
+// thin chooses the points to draw: all when there are at most maxDrawn;
+// else, per bucket of consecutive points, the lowest and the highest, and
+// every point outside its limits or in a signal (those are never dropped).
+func thin(ps []viewPoint) (idx []int, thinned bool) {
+	if len(ps) <= maxDrawn {
+		idx = make([]int, len(ps))
+		for i := range idx {
+			idx[i] = i
+		}
+		return idx, false
+	}
+	buckets := maxDrawn / 4
+	size := (len(ps) + buckets - 1) / buckets
+	for b := 0; b < len(ps); b += size {
+		e := min(b+size, len(ps))
+		lo, hi := b, b
+		for i := b; i < e; i++ {
+			if ps[i].Value < ps[lo].Value {
+				lo = i
+			}
+			if ps[i].Value > ps[hi].Value {
+				hi = i
+			}
+		}
+		for i := b; i < e; i++ {
+			if i == lo || i == hi || ps[i].Out() || len(ps[i].Rules) > 0 {
+				idx = append(idx, i)
+			}
+		}
+	}
+	return idx, true
+}
+
+// tooltip is the lines a point's tooltip shows, in plain words.
+func (v *chartView) tooltip(p viewPoint) []string {
+	lines := []string{p.Label + " · " + fmtWhen(p.Time)}
+	if v.Subgroup != byLot {
+		lines = append(lines, plural(p.Lots, "lot", "lots")+" pooled")
+	}
+	lines = append(lines,
+		fmt.Sprintf("n = %s, count = %s, %s = %s", thousands(p.Inspected), thousands(p.Count), valueShort(string(v.Proc.Chart)), fmtFloat(p.Value)),
+		fmt.Sprintf("limits %s … %s (centre %s, %s)", fmtFloat(p.LCL), fmtFloat(p.UCL), fmtFloat(p.Center), p.Limits),
+		fmt.Sprintf("z = %s; %s", fmtFloat(p.Z), p.Verdict()))
+	unit := "lots"
+	if v.Subgroup != byLot {
+		unit = "subgroups of this size"
+	}
+	if w := tailWords(p.TailP, p.Value >= p.Center, unit); w != "" {
+		lines = append(lines, w)
+	}
+	lines = append(lines, p.Notes...)
+	return lines
+}
+
+func valueShort(chart string) string {
+	switch chart {
+	case "p":
+		return "fraction"
+	case "np":
+		return "count"
+	case "u":
+		return "per unit"
+	}
+	return "count"
+}
+
+// finite is f, or NaN turned into "-" by chartValue later.
+func finite(f float64) Num {
+	if math.IsInf(f, 0) {
+		return Num(math.NaN())
+	}
+	return Num(f)
+}
+
+// chartKind names the chart with its statistic.
+func chartKind(c spc.Chart) string {
+	switch c {
+	case spc.ChartP:
+		return "p chart (fraction nonconforming)"
+	case spc.ChartNP:
+		return "np chart (nonconforming units)"
+	case spc.ChartU:
+		return "u chart (defects per unit)"
+	case spc.ChartC:
+		return "c chart (defects per lot)"
+	}
+	return string(c) + " chart"
+}

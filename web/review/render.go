@@ -1,0 +1,481 @@
+package review
+
+import (
+	"bufio"
+	"encoding/csv"
+	"encoding/json"
+	"fmt"
+	"io"
+	"lotwatch/store/lotcsv"
+	"math"
+	"strconv"
+	"strings"
+	"time"
+
+	"lotwatch/spc"
+	"lotwatch/store"
+)
+
+// dateOnly formats the local date of a time.
+const dateOnly = "2006-01-02"
+
+// UnitWord names what a process counts: "nonconforming" (p, np) or
+// "defects" (u, c).
+func UnitWord(ch spc.Chart) string {
+	if ch.CountsUnits() {
+		return "nonconforming"
+	}
+	return "defects"
+}
+
+// FormatRate formats a rate for people: a percent for a fraction
+// nonconforming ("2.31%"), defects per 100 units for u and c ("2.31 per
+// 100 units"), "—" when there is none.
+func FormatRate(ch spc.Chart, x float64) string {
+	if math.IsNaN(x) {
+		return "—"
+	}
+	v := percent(x)
+	if ch.CountsUnits() {
+		return v + "%"
+	}
+	return v + " per 100 units"
+}
+
+// percent writes 100·x with two decimals, or three significant digits
+// when two decimals would hide it.
+func percent(x float64) string {
+	y := 100 * x
+	if y != 0 && math.Abs(y) < 0.01 {
+		return strconv.FormatFloat(y, 'g', 3, 64)
+	}
+	return strconv.FormatFloat(y, 'f', 2, 64)
+}
+
+// formatDiff formats a change of rate: percentage points for p, per 100
+// units for u and c, with its sign.
+func formatDiff(ch spc.Chart, x float64) string {
+	if math.IsNaN(x) {
+		return "—"
+	}
+	s := percent(x)
+	if x > 0 {
+		s = "+" + s
+	}
+	if ch.CountsUnits() {
+		return s + " points"
+	}
+	return s + " per 100 units"
+}
+
+func levelPercent(level float64) string {
+	return strconv.FormatFloat(level*100, 'g', 6, 64) + "%"
+}
+
+// Interval describes the interval of a week's rate, e.g. "95% Wilson
+// interval 1.80% to 2.95%".
+func (pr *ProcessReview) interval(level float64, st WeekStat) string {
+	if !st.HasLots() {
+		return "no lots inspected"
+	}
+	ch := pr.Process.Chart
+	return fmt.Sprintf("%s %s interval %s to %s", levelPercent(level), pr.Method, FormatRate(ch, st.Lower), FormatRate(ch, st.Upper))
+}
+
+// VerdictText is the verdict with the too-little-data reason, as written
+// in the text and HTML renderings.
+func (c Change) VerdictText() string {
+	if c.Detail != "" {
+		return c.Detail
+	}
+	return c.Verdict
+}
+
+// WriteText writes the review as plain text.
+func (r *Review) WriteText(w io.Writer) error {
+	b := bufio.NewWriter(w)
+	fmt.Fprintf(b, "Weekly review %s (Monday %s to Sunday %s, each process on its own clocks)\n",
+		r.Week, r.FirstDay.Format(dateOnly), r.LastDay.Format(dateOnly))
+	fmt.Fprintf(b, "Intervals at %s; rates of p and np processes by the %s interval, of u and c processes by the %s interval.\n",
+		levelPercent(r.Level), r.Method, spc.IntervalPoissonExact)
+	if c := r.Method.Caveat(); c != "" {
+		fmt.Fprintf(b, "Note: %s\n", c)
+	}
+	if len(r.Processes) == 0 {
+		b.WriteString("\nNo processes to review.\n")
+	}
+	for _, pr := range r.Processes {
+		pr.writeText(b, r)
+	}
+	fmt.Fprintf(b, "\nCaution: %s\n", Caution)
+	return b.Flush()
+}
+
+func (pr *ProcessReview) writeText(b *bufio.Writer, r *Review) {
+	p := pr.Process
+	ch := p.Chart
+	loc := p.Location()
+	fmt.Fprintf(b, "\n== %s (%s chart, %s) ==\n", p.Name, ch, p.TimeZone)
+	for _, st := range []WeekStat{pr.Current, pr.Previous} {
+		fmt.Fprintf(b, "%s: %d lots, %d inspected, %d %s", st.Week, st.Lots, st.Inspected, st.Count, UnitWord(ch))
+		if st.HasLots() {
+			fmt.Fprintf(b, ", rate %s (%s)", FormatRate(ch, st.Rate), pr.interval(r.Level, st))
+		}
+		b.WriteString("\n")
+	}
+	c := pr.Change
+	if c.Compared {
+		fmt.Fprintf(b, "Change: %s (%s %s interval %s to %s; %s %s)\n", formatDiff(ch, c.Difference),
+			levelPercent(r.Level), c.Interval, formatDiff(ch, c.Lower), formatDiff(ch, c.Upper), c.Test, FormatP(c.PValue))
+	}
+	fmt.Fprintf(b, "Verdict: %s\n", c.VerdictText())
+
+	b.WriteString("\nLots outside their control limits:\n")
+	if len(pr.OutOfLimits) == 0 {
+		b.WriteString("  none\n")
+	}
+	for _, o := range pr.OutOfLimits {
+		side := "above the upper limit"
+		lim := o.UCL
+		if !o.Above {
+			side, lim = "below the lower limit", o.LCL
+		}
+		fmt.Fprintf(b, "  %s (%s): %d of %d, %s %s (%s); %s\n", o.Lot.Lot, o.Lot.Time.In(loc).Format("Mon 2006-01-02 15:04"),
+			o.Lot.Count, o.Lot.Inspected, side, plotted(ch, lim), o.Limits, CauseStatus(o.Annotations))
+		writeAnnotations(b, o.Annotations, loc)
+	}
+	b.WriteString("\nRun-rule signals touching the week:\n")
+	if len(pr.Signals) == 0 {
+		b.WriteString("  none\n")
+	}
+	for _, s := range pr.Signals {
+		fmt.Fprintf(b, "  %s: %s; lots %s; %s\n", s.Rule, s.Description, lotList(s.Lots), CauseStatus(s.Annotations))
+		writeAnnotations(b, s.Annotations, loc)
+	}
+
+	b.WriteString("\nDefect categories (Pareto):\n")
+	if len(pr.Pareto) == 0 {
+		b.WriteString("  none recorded\n")
+	} else {
+		fmt.Fprintf(b, "  %-24s %8s %8s %8s\n", "category", "count", "percent", "cum. %")
+		for _, bar := range pr.Pareto {
+			fmt.Fprintf(b, "  %-24s %8d %7.1f%% %7.1f%%\n", bar.Category, bar.Count, bar.Percent, bar.CumulativePercent)
+		}
+	}
+	if pr.Uncategorized > 0 {
+		fmt.Fprintf(b, "  (%d %s not split into categories)\n", pr.Uncategorized, UnitWord(ch))
+	}
+
+	fmt.Fprintf(b, "\nTrend (%d weeks):\n", len(pr.Trend))
+	for _, st := range pr.Trend {
+		if !st.HasLots() {
+			fmt.Fprintf(b, "  %s  no lots\n", st.Week)
+			continue
+		}
+		fmt.Fprintf(b, "  %s  %4d lots  %-22s %s to %s\n", st.Week, st.Lots, FormatRate(ch, st.Rate), FormatRate(ch, st.Lower), FormatRate(ch, st.Upper))
+	}
+
+	if pr.Dispersion != nil {
+		fmt.Fprintf(b, "\nSpread of the week's lots: %s\n", pr.Dispersion.Advice)
+	}
+	for _, w := range pr.Warnings {
+		fmt.Fprintf(b, "Warning: %s\n", w.Message)
+	}
+	for _, n := range pr.Notes {
+		fmt.Fprintf(b, "Note: %s\n", n)
+	}
+}
+
+// plotted formats a value in the chart's plotted units.
+func plotted(ch spc.Chart, v float64) string {
+	switch ch {
+	case spc.ChartP:
+		return percent(v) + "%"
+	case spc.ChartU:
+		return strconv.FormatFloat(v, 'g', 4, 64) + " per unit"
+	}
+	return strconv.FormatFloat(v, 'g', 4, 64)
+}
+
+func lotList(lots []string) string {
+	if len(lots) <= 6 {
+		return strings.Join(lots, ", ")
+	}
+	return strings.Join(lots[:2], ", ") + fmt.Sprintf(" … (%d lots) … ", len(lots)-4) + strings.Join(lots[len(lots)-2:], ", ")
+}
+
+func writeAnnotations(b *bufio.Writer, as []store.Annotation, loc *time.Location) {
+	for _, a := range as {
+		state := "open"
+		if a.Closed {
+			state = "closed"
+			if !a.ClosedAt.IsZero() {
+				state += " " + a.ClosedAt.In(loc).Format(dateOnly)
+			}
+			if a.ClosedBy != "" {
+				state += " by " + a.ClosedBy
+			}
+		}
+		fmt.Fprintf(b, "    cause: %s", a.Cause)
+		if a.Action != "" {
+			fmt.Fprintf(b, "; action: %s", a.Action)
+		}
+		fmt.Fprintf(b, " (%s, %s)\n", a.By, state)
+	}
+}
+
+// JSON: the field names are a contract read by outside checks.
+
+// NullFloat is a number that encodes NaN and ±Inf as null.
+type NullFloat float64
+
+// MarshalJSON encodes the number, or null when it is not finite.
+func (f NullFloat) MarshalJSON() ([]byte, error) {
+	x := float64(f)
+	if math.IsNaN(x) || math.IsInf(x, 0) {
+		return []byte("null"), nil
+	}
+	return strconv.AppendFloat(nil, x, 'g', -1, 64), nil
+}
+
+type jsonReview struct {
+	Week       string        `json:"week"`
+	From       string        `json:"from"`
+	To         string        `json:"to"`
+	Method     string        `json:"method"`
+	Level      float64       `json:"level"`
+	TrendWeeks int           `json:"trend_weeks"`
+	Generated  string        `json:"generated"`
+	Processes  []jsonProcess `json:"processes"`
+	Caution    string        `json:"caution"`
+}
+
+type jsonProcess struct {
+	Process   string    `json:"process"`
+	Chart     string    `json:"chart"`
+	TimeZone  string    `json:"time_zone"`
+	Start     string    `json:"start"`
+	End       string    `json:"end"`
+	Method    string    `json:"method"`
+	Lots      int       `json:"lots"`
+	Inspected int64     `json:"inspected"`
+	Count     int64     `json:"count"`
+	Rate      NullFloat `json:"rate"`
+	Lower     NullFloat `json:"lower"`
+	Upper     NullFloat `json:"upper"`
+	Previous  jsonWeek  `json:"previous"`
+	Change    struct {
+		Difference NullFloat `json:"difference"`
+		Lower      NullFloat `json:"lower"`
+		Upper      NullFloat `json:"upper"`
+		PValue     NullFloat `json:"p_value"`
+		Verdict    string    `json:"verdict"`
+		Detail     string    `json:"detail,omitempty"`
+		Interval   string    `json:"interval"`
+		Test       string    `json:"test"`
+	} `json:"change"`
+	Signals       []jsonSignal     `json:"signals"`
+	OutOfLimits   []jsonOutOfLimit `json:"out_of_limits"`
+	Pareto        []jsonPareto     `json:"pareto"`
+	Uncategorized int64            `json:"uncategorized"`
+	Trend         []jsonWeek       `json:"trend"`
+	Dispersion    *jsonDispersion  `json:"dispersion"`
+	Warnings      []jsonWarning    `json:"warnings"`
+	Notes         []string         `json:"notes"`
+}
+
+type jsonWeek struct {
+	Week      string    `json:"week"`
+	Lots      int       `json:"lots"`
+	Inspected int64     `json:"inspected"`
+	Count     int64     `json:"count"`
+	Rate      NullFloat `json:"rate"`
+	Lower     NullFloat `json:"lower"`
+	Upper     NullFloat `json:"upper"`
+}
+
+type jsonAnnotation struct {
+	Lot      string `json:"lot,omitempty"`
+	Rule     string `json:"rule,omitempty"`
+	Cause    string `json:"cause"`
+	Action   string `json:"action"`
+	Closed   bool   `json:"closed"`
+	By       string `json:"by"`
+	At       string `json:"at"`
+	ClosedBy string `json:"closed_by,omitempty"`
+	ClosedAt string `json:"closed_at,omitempty"`
+}
+
+type jsonSignal struct {
+	Rule        string           `json:"rule"`
+	Description string           `json:"description"`
+	Side        int8             `json:"side"`
+	Lots        []string         `json:"lots"`
+	First       string           `json:"first"`
+	Last        string           `json:"last"`
+	Status      string           `json:"status"`
+	Annotations []jsonAnnotation `json:"annotations"`
+}
+
+type jsonOutOfLimit struct {
+	Lot         string           `json:"lot"`
+	Time        string           `json:"time"`
+	Inspected   int64            `json:"inspected"`
+	Count       int64            `json:"count"`
+	Value       NullFloat        `json:"value"`
+	UCL         NullFloat        `json:"ucl"`
+	LCL         NullFloat        `json:"lcl"`
+	Side        string           `json:"side"`
+	Limits      string           `json:"limits"`
+	Status      string           `json:"status"`
+	Annotations []jsonAnnotation `json:"annotations"`
+}
+
+type jsonPareto struct {
+	Category          string  `json:"category"`
+	Count             int64   `json:"count"`
+	Percent           float64 `json:"percent"`
+	CumulativePercent float64 `json:"cumulative_percent"`
+}
+
+type jsonDispersion struct {
+	ChiSquare     NullFloat `json:"chi_square"`
+	DF            int       `json:"df"`
+	Ratio         NullFloat `json:"ratio"`
+	PValue        NullFloat `json:"p_value"`
+	SigmaZ        NullFloat `json:"sigma_z"`
+	Overdispersed bool      `json:"overdispersed"`
+	Advice        string    `json:"advice"`
+}
+
+type jsonWarning struct {
+	Code    string `json:"code"`
+	Message string `json:"message"`
+}
+
+func weekJSON(st WeekStat) jsonWeek {
+	return jsonWeek{Week: st.Week, Lots: st.Lots, Inspected: st.Inspected, Count: st.Count,
+		Rate: NullFloat(st.Rate), Lower: NullFloat(st.Lower), Upper: NullFloat(st.Upper)}
+}
+
+func annotationsJSON(as []store.Annotation, lotCode map[int64]string, loc *time.Location) []jsonAnnotation {
+	out := make([]jsonAnnotation, 0, len(as))
+	for _, a := range as {
+		j := jsonAnnotation{Lot: lotCode[a.LotID], Rule: a.Rule, Cause: a.Cause, Action: a.Action, Closed: a.Closed,
+			By: a.By, At: stamp(a.At, loc), ClosedBy: a.ClosedBy, ClosedAt: stamp(a.ClosedAt, loc)}
+		out = append(out, j)
+	}
+	return out
+}
+
+func stamp(t time.Time, loc *time.Location) string {
+	if t.IsZero() {
+		return ""
+	}
+	return t.In(loc).Format(time.RFC3339)
+}
+
+// jsonValue is the review in its JSON form.
+func (r *Review) jsonValue() jsonReview {
+	out := jsonReview{Week: r.Week, From: r.FirstDay.Format(dateOnly), To: r.LastDay.Format(dateOnly),
+		Method: string(r.Method), Level: r.Level, TrendWeeks: r.TrendWeeks, Generated: r.Generated.UTC().Format(time.RFC3339),
+		Processes: make([]jsonProcess, 0, len(r.Processes)), Caution: Caution}
+	for _, pr := range r.Processes {
+		loc := pr.Process.Location()
+		cur := pr.Current
+		j := jsonProcess{Process: pr.Process.Name, Chart: string(pr.Process.Chart), TimeZone: loc.String(),
+			Start: stamp(cur.Start, loc), End: stamp(cur.End, loc), Method: string(pr.Method),
+			Lots: cur.Lots, Inspected: cur.Inspected, Count: cur.Count,
+			Rate: NullFloat(cur.Rate), Lower: NullFloat(cur.Lower), Upper: NullFloat(cur.Upper),
+			Previous: weekJSON(pr.Previous), Uncategorized: pr.Uncategorized,
+			Signals: []jsonSignal{}, OutOfLimits: []jsonOutOfLimit{}, Pareto: []jsonPareto{},
+			Warnings: []jsonWarning{}, Notes: append([]string{}, pr.Notes...)}
+		c := pr.Change
+		j.Change.Difference, j.Change.Lower, j.Change.Upper, j.Change.PValue = NullFloat(c.Difference), NullFloat(c.Lower), NullFloat(c.Upper), NullFloat(c.PValue)
+		j.Change.Verdict, j.Change.Detail, j.Change.Interval, j.Change.Test = c.Verdict, c.Detail, c.Interval, c.Test
+		lotCode := map[int64]string{}
+		for _, o := range pr.OutOfLimits {
+			lotCode[o.Lot.ID] = o.Lot.Lot
+		}
+		for _, o := range pr.OutOfLimits {
+			side := "above"
+			if !o.Above {
+				side = "below"
+			}
+			j.OutOfLimits = append(j.OutOfLimits, jsonOutOfLimit{Lot: o.Lot.Lot, Time: stamp(o.Lot.Time, loc),
+				Inspected: o.Lot.Inspected, Count: o.Lot.Count, Value: NullFloat(o.Value), UCL: NullFloat(o.UCL), LCL: NullFloat(o.LCL),
+				Side: side, Limits: o.Limits, Status: CauseStatus(o.Annotations), Annotations: annotationsJSON(o.Annotations, lotCode, loc)})
+		}
+		for _, s := range pr.Signals {
+			j.Signals = append(j.Signals, jsonSignal{Rule: s.Rule, Description: s.Description, Side: s.Side,
+				Lots: append([]string{}, s.Lots...), First: stamp(s.First, loc), Last: stamp(s.Last, loc),
+				Status: CauseStatus(s.Annotations), Annotations: annotationsJSON(s.Annotations, nil, loc)})
+		}
+		for _, b := range pr.Pareto {
+			j.Pareto = append(j.Pareto, jsonPareto{b.Category, b.Count, b.Percent, b.CumulativePercent})
+		}
+		for _, st := range pr.Trend {
+			j.Trend = append(j.Trend, weekJSON(st))
+		}
+		if d := pr.Dispersion; d != nil {
+			j.Dispersion = &jsonDispersion{NullFloat(d.ChiSquare), d.DF, NullFloat(d.Ratio), NullFloat(d.PValue),
+				NullFloat(d.SigmaZ), d.Overdispersed, d.Advice}
+		}
+		for _, w := range pr.Warnings {
+			j.Warnings = append(j.Warnings, jsonWarning{w.Code, w.Message})
+		}
+		out.Processes = append(out.Processes, j)
+	}
+	return out
+}
+
+// WriteJSON writes the review as JSON. Rates are fractions (defects per
+// unit for u and c), null when a week has no lots; "count" is the number
+// of nonconforming units for p and np processes and of defects for u and
+// c; "from" and "to" are the Monday and the Sunday of the week, and each
+// process's "start" and "end" the instants bounding it on the plant's
+// clocks ("end" excluded).
+func (r *Review) WriteJSON(w io.Writer) error {
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	return enc.Encode(r.jsonValue())
+}
+
+// CSVHeader is the header row of WriteCSV.
+var CSVHeader = []string{"week", "process", "chart", "method", "level", "lots", "inspected", "count", "rate", "lower", "upper",
+	"previous_week", "previous_lots", "previous_inspected", "previous_count", "previous_rate", "previous_lower", "previous_upper",
+	"difference", "difference_lower", "difference_upper", "p_value", "verdict", "out_of_limits", "signals", "top_category"}
+
+// WriteCSV writes one row per process under CSVHeader: rates as
+// fractions, empty where a week has no lots.
+func (r *Review) WriteCSV(w io.Writer) error {
+	cw := csv.NewWriter(w)
+	if err := cw.Write(CSVHeader); err != nil {
+		return err
+	}
+	num := func(x float64) string {
+		if math.IsNaN(x) || math.IsInf(x, 0) {
+			return ""
+		}
+		return strconv.FormatFloat(x, 'g', -1, 64)
+	}
+	for _, pr := range r.Processes {
+		cur, prev, c := pr.Current, pr.Previous, pr.Change
+		top := ""
+		if len(pr.Pareto) > 0 {
+			top = pr.Pareto[0].Category
+		}
+		// text typed by users is guarded against spreadsheet formulas;
+		// numbers (a negative difference starts with "-") are not.
+		row := []string{r.Week, lotcsv.Neutralise(pr.Process.Name), string(pr.Process.Chart), string(pr.Method), num(r.Level),
+			strconv.Itoa(cur.Lots), strconv.FormatInt(cur.Inspected, 10), strconv.FormatInt(cur.Count, 10), num(cur.Rate), num(cur.Lower), num(cur.Upper),
+			prev.Week, strconv.Itoa(prev.Lots), strconv.FormatInt(prev.Inspected, 10), strconv.FormatInt(prev.Count, 10), num(prev.Rate), num(prev.Lower), num(prev.Upper),
+			num(c.Difference), num(c.Lower), num(c.Upper), num(c.PValue), c.Verdict,
+			strconv.Itoa(len(pr.OutOfLimits)), strconv.Itoa(len(pr.Signals)), lotcsv.Neutralise(top)}
+		if err := cw.Write(row); err != nil {
+			return err
+		}
+	}
+	cw.Flush()
+	return cw.Error()
+}

@@ -1,0 +1,133 @@
+package review
+
+import (
+	"bytes"
+	"encoding/csv"
+	"math"
+	"os"
+	"regexp"
+	"strings"
+	"testing"
+	"time"
+
+	"lotwatch/spc"
+	"lotwatch/store"
+)
+
+// signalSource is the reference data with a frozen limit set and a
+// recorded cause on the reviewed week's worst lot.
+func signalSource(t *testing.T) (*fakeSource, *Review) {
+	t.Helper()
+	ref := loadReference(t)
+	f := ref.fake()
+	// Freeze the first process's limits at its usual 3% (the rate the
+	// reference data was drawn at), in force from 2026-W40.
+	berlin, _ := time.LoadLocation("Europe/Berlin")
+	f.sets = map[int64][]store.LimitSet{1: {{ID: 1, ProcessID: 1, Number: 1, Method: spc.MethodSigma, K: 3, Center: 0.03, SigmaZ: 1,
+		EffectiveFrom: time.Date(2026, 9, 28, 0, 0, 0, 0, berlin)}}}
+	r, err := Build(ctx, f, Options{Week: ref.Week})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pr := r.Processes[0]
+	if len(pr.OutOfLimits) == 0 {
+		t.Fatalf("no lot of %s beyond limits at a centre of 0.03; lots %v", pr.Current.Week, f.lots[1][len(f.lots[1])-4:])
+	}
+	worst := pr.OutOfLimits[0].Lot
+	f.notes = map[int64][]store.Annotation{1: {{ID: 7, ProcessID: 1, LotID: worst.ID, Cause: "worn deburring tool",
+		Action: "tool replaced", Closed: true, By: "ana", At: worst.Time.Add(time.Hour), ClosedBy: "ana", ClosedAt: worst.Time.Add(2 * time.Hour)}}}
+	if r, err = Build(ctx, f, Options{Week: ref.Week}); err != nil {
+		t.Fatal(err)
+	}
+	return f, r
+}
+
+func TestSignalsAndCauses(t *testing.T) {
+	_, r := signalSource(t)
+	pr := r.Processes[0]
+	o := pr.OutOfLimits[0]
+	if o.Limits != "limit set 1" || !o.Above || CauseStatus(o.Annotations) != "cause closed" {
+		t.Errorf("out-of-limit lot %+v", o)
+	}
+	// p̄ = 0.03, UCL = 0.03 + 3·√(0.03·0.97/n) (Montgomery, ch. 7).
+	near(t, "UCL", o.UCL, 0.03+3*sqrt(0.03*0.97/float64(o.Lot.Inspected)), 1e-12)
+	found := false
+	for _, s := range pr.Signals {
+		if s.Rule == "we1" {
+			for _, l := range s.Lots {
+				found = found || l == o.Lot.Lot
+			}
+		}
+		if s.Last.Before(pr.Current.Start) {
+			t.Errorf("signal %+v ends before the week", s)
+		}
+	}
+	if !found {
+		t.Errorf("no we1 signal on %s among %+v", o.Lot.Lot, pr.Signals)
+	}
+}
+
+// TestHTMLSelfContained checks that the mailed HTML file refers to nothing
+// outside itself and needs no script.
+func TestHTMLSelfContained(t *testing.T) {
+	_, r := signalSource(t)
+	var b bytes.Buffer
+	if err := r.WriteHTML(&b); err != nil {
+		t.Fatal(err)
+	}
+	doc := b.String()
+	for _, bad := range []string{"http:", "https:", "//", "src=", "href=", "url(", "<script", "javascript:", "@import", "<link", "<img", "<iframe", "<object"} {
+		if i := strings.Index(strings.ToLower(doc), bad); i >= 0 {
+			t.Errorf("HTML holds %q: …%s…", bad, doc[max(0, i-60):min(len(doc), i+60)])
+		}
+	}
+	for _, want := range []string{"<!DOCTYPE html>", "<style>", "@media print", "page-break-before", "<svg", "polyline",
+		"housing-check", "panel-finish", "worn deburring tool", "cause closed", "a rise unlikely from sampling alone",
+		"within what sampling alone produces", "sampling variation only", "release or acceptance procedure", "no lots"} {
+		if !strings.Contains(doc, want) {
+			t.Errorf("HTML lacks %q", want)
+		}
+	}
+	if os.Getenv("REVIEW_WRITE_SAMPLE") != "" {
+		os.WriteFile(os.Getenv("REVIEW_WRITE_SAMPLE"), b.Bytes(), 0o644)
+	}
+	frag, err := r.HTMLFragment()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if strings.Contains(string(frag), "style=") || strings.Contains(string(frag), "<style") {
+		t.Error("the fragment carries inline style, which a strict content security policy blocks")
+	}
+}
+
+func TestTextAndCSV(t *testing.T) {
+	_, r := signalSource(t)
+	var b bytes.Buffer
+	if err := r.WriteText(&b); err != nil {
+		t.Fatal(err)
+	}
+	text := b.String()
+	// 67 of 1200 in 2026-W48 (review_reference.json): 5.58%.
+	for _, want := range []string{"Weekly review 2026-W48", "2026-W48: 4 lots, 1200 inspected, 67 nonconforming, rate 5.58%",
+		"worn deburring tool", "Verdict: a rise unlikely from sampling alone (p < 0.001)", "Caution:"} {
+		if !strings.Contains(text, want) {
+			t.Errorf("text lacks %q:\n%s", want, text)
+		}
+	}
+	b.Reset()
+	if err := r.WriteCSV(&b); err != nil {
+		t.Fatal(err)
+	}
+	rows, err := csv.NewReader(&b).ReadAll()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(rows) != 3 || len(rows[0]) != len(CSVHeader) || rows[1][1] != "housing-check" || rows[1][7] != "67" {
+		t.Errorf("CSV rows %v", rows)
+	}
+	if !regexp.MustCompile(`^0\.0558`).MatchString(rows[1][8]) {
+		t.Errorf("CSV rate %q, want the fraction 0.0558…", rows[1][8])
+	}
+}
+
+func sqrt(x float64) float64 { return math.Sqrt(x) }

@@ -1,0 +1,616 @@
+// Package review assembles and renders the weekly review of inspected
+// lots: for one ISO week and each process, the rate with its confidence
+// interval beside the previous week's, the change between them with its
+// interval and test, the week's out-of-limit lots and run-rule signals with
+// their recorded causes, a Pareto of the defect categories, a trend of the
+// weekly rate and the dispersion check of the week's lots.
+//
+// It reads lots through Source (which *store.DB satisfies) and renders as
+// text, a self-contained HTML document, an HTML fragment for the web
+// pages, CSV or JSON.
+package review
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"lotwatch/spc"
+	"lotwatch/store"
+)
+
+// Source is what the review reads from the store.
+type Source interface {
+	Processes(ctx context.Context, includeRetired bool) ([]store.Process, error)
+	Lots(ctx context.Context, processID int64, from, to time.Time) ([]store.Lot, error)
+	LimitSets(ctx context.Context, processID int64) ([]store.LimitSet, error)
+	Annotations(ctx context.Context, processID int64) ([]store.Annotation, error)
+}
+
+var _ Source = (*store.DB)(nil)
+
+// DefaultTrendWeeks is the length of the trend and of the window over
+// which the lots are judged, long enough for the longest run rule (15
+// lots) even at one or two lots a week.
+const DefaultTrendWeeks = 12
+
+// maxTrendWeeks bounds Options.TrendWeeks (two years).
+const maxTrendWeeks = 104
+
+// Options chooses what the review covers.
+type Options struct {
+	// Week is the ISO 8601 week, "2026-W48" (or "2026W48"). "" means the
+	// last week that is complete, as of Now, in every chosen process's
+	// time zone.
+	Week string
+	// Now is the current time, for the default week; zero means time.Now().
+	Now time.Time
+	// Processes names the processes to review; none means every active
+	// process. A named process is reviewed even when retired.
+	Processes []string
+	// Method is the interval method for p and np processes (one of
+	// spc.ProportionMethods); "" means Wilson. The rates of u and c
+	// processes always get the exact Poisson interval.
+	Method spc.IntervalMethod
+	// Level is the confidence level of every interval; 0 means 0.95.
+	Level float64
+	// TrendWeeks is the number of weeks, ending with the reviewed one, of
+	// the trend and of the window in which lots are judged; 0 means
+	// DefaultTrendWeeks. At least 2, at most 104.
+	TrendWeeks int
+}
+
+// OptionError is a bad option of the review, naming it and its value.
+type OptionError struct {
+	Option, Value, Reason string
+}
+
+func (e *OptionError) Error() string {
+	return fmt.Sprintf("%s %q %s", e.Option, e.Value, e.Reason)
+}
+
+// Review is the weekly review of a set of processes.
+type Review struct {
+	Week       string    // "2026-W48"
+	Year, Num  int       // ISO year and week number
+	FirstDay   time.Time // Monday of the week (a date; midnight UTC)
+	LastDay    time.Time // Sunday of the week
+	Method     spc.IntervalMethod
+	Level      float64
+	TrendWeeks int
+	Generated  time.Time
+	Processes  []*ProcessReview
+}
+
+// ProcessReview is the review of one process.
+type ProcessReview struct {
+	Process store.Process
+	// Method is the interval method used for this process's rates.
+	Method spc.IntervalMethod
+	// Current and Previous are the reviewed week and the one before.
+	Current, Previous WeekStat
+	Change            Change
+	// Signals are the run-rule signals that touch the week.
+	Signals []Signal
+	// OutOfLimits are the week's lots beyond a control limit.
+	OutOfLimits []OutOfLimit
+	// Pareto is the week's defect categories, largest first.
+	Pareto []spc.ParetoBar
+	// Uncategorized is the part of the week's count not split into
+	// categories (the lots' category counts may cover less than Count).
+	Uncategorized int64
+	// Trend is the weekly rate over TrendWeeks weeks, oldest first,
+	// ending with the reviewed week.
+	Trend []WeekStat
+	// Dispersion is the check of the week's lots against binomial or
+	// Poisson sampling; nil when it could not be run (see Notes).
+	Dispersion *spc.Dispersion
+	// Warnings are the engine's diagnostics of the week's lots.
+	Warnings []spc.Warning
+	// Notes are problems met while reviewing, in plain words.
+	Notes []string
+}
+
+// WeekStat sums the lots of one ISO week of a process.
+type WeekStat struct {
+	Week      string
+	Start     time.Time // Monday 00:00 local
+	End       time.Time // the next Monday 00:00 local (exclusive)
+	Lots      int
+	Inspected int64
+	Count     int64
+	// Rate is Count/Inspected: a fraction nonconforming (p, np) or defects
+	// per unit (u, c). Rate, Lower and Upper are NaN when Lots is 0.
+	Rate, Lower, Upper float64
+}
+
+// HasLots reports whether any lot was inspected in the week.
+func (w WeekStat) HasLots() bool { return w.Lots > 0 && w.Inspected > 0 }
+
+// Change compares the reviewed week with the previous one (current minus
+// previous).
+type Change struct {
+	// Compared is false when either week has no lots; the numbers are
+	// then NaN.
+	Compared                            bool
+	Difference, Lower, Upper, PValue, Z float64
+	// Interval and Test name the methods used.
+	Interval, Test string
+	// Verdict says in plain words what the change means; Detail adds the
+	// reason when there is too little data.
+	Verdict, Detail string
+}
+
+// Signal is a run-rule signal touching the reviewed week.
+type Signal struct {
+	Rule        string // e.g. "we1", "nelson2"
+	Description string
+	Side        int8
+	Lots        []string // lot codes, in time order
+	First, Last time.Time
+	// Annotations are the recorded causes on the signal's lots (those
+	// naming this rule or no rule).
+	Annotations []store.Annotation
+}
+
+// OutOfLimit is a lot of the week beyond a control limit.
+type OutOfLimit struct {
+	Lot             store.Lot
+	Value, UCL, LCL float64
+	Above           bool
+	Limits          string // "trial limits" or "limit set 2"
+	Annotations     []store.Annotation
+}
+
+// CauseStatus says whether causes are recorded and closed: "no cause
+// recorded", "cause open" (any annotation still open) or "cause closed".
+func CauseStatus(as []store.Annotation) string {
+	if len(as) == 0 {
+		return "no cause recorded"
+	}
+	for _, a := range as {
+		if !a.Closed {
+			return "cause open"
+		}
+	}
+	return "cause closed"
+}
+
+// Build assembles the review from src.
+func Build(ctx context.Context, src Source, opt Options) (*Review, error) {
+	method := opt.Method
+	if method == "" {
+		method = spc.IntervalWilson
+	}
+	if m, err := spc.ParseIntervalMethod(string(method)); err != nil || m == spc.IntervalPoissonExact {
+		return nil, &OptionError{"method", string(method), "is not a method for a proportion (want wilson, clopper-pearson, agresti-coull, jeffreys or wald; u and c processes always get the exact Poisson interval)"}
+	}
+	level := opt.Level
+	if level == 0 {
+		level = 0.95
+	}
+	if !(level > 0 && level < 1) {
+		return nil, &OptionError{"level", strconv.FormatFloat(level, 'g', -1, 64), "must be a number between 0 and 1, such as 0.95"}
+	}
+	weeks := opt.TrendWeeks
+	if weeks == 0 {
+		weeks = DefaultTrendWeeks
+	}
+	if weeks < 2 || weeks > maxTrendWeeks {
+		return nil, &OptionError{"trend weeks", strconv.Itoa(weeks), fmt.Sprintf("must be from 2 to %d", maxTrendWeeks)}
+	}
+	now := opt.Now
+	if now.IsZero() {
+		now = time.Now()
+	}
+
+	all, err := src.Processes(ctx, len(opt.Processes) > 0)
+	if err != nil {
+		return nil, fmt.Errorf("review: reading processes: %w", err)
+	}
+	procs, err := choose(all, opt.Processes)
+	if err != nil {
+		return nil, err
+	}
+
+	var year, week int
+	if opt.Week == "" {
+		year, week = LastCompleteWeek(now, procs)
+	} else if year, week, err = spc.ParseISOWeek(opt.Week); err != nil {
+		return nil, &OptionError{"week", opt.Week, strings.TrimPrefix(err.Error(), fmt.Sprintf("week %q ", opt.Week))}
+	}
+	first, _ := spc.ISOWeekRange(year, week, time.UTC)
+	r := &Review{
+		Week: spc.FormatISOWeek(year, week), Year: year, Num: week,
+		FirstDay: first, LastDay: first.AddDate(0, 0, 6),
+		Method: method, Level: level, TrendWeeks: weeks, Generated: now,
+	}
+	for _, p := range procs {
+		pr, err := buildProcess(ctx, src, p, year, week, method, level, weeks)
+		if err != nil {
+			return nil, fmt.Errorf("review of process %q: %w", p.Name, err)
+		}
+		r.Processes = append(r.Processes, pr)
+	}
+	return r, nil
+}
+
+// choose picks the named processes (any, retired or not) in the order
+// named, or every active one, by name.
+func choose(all []store.Process, names []string) ([]store.Process, error) {
+	if len(names) == 0 {
+		var out []store.Process
+		for _, p := range all {
+			if p.Active {
+				out = append(out, p)
+			}
+		}
+		sort.Slice(out, func(i, j int) bool { return out[i].Name < out[j].Name })
+		return out, nil
+	}
+	byName := make(map[string]store.Process, len(all))
+	for _, p := range all {
+		byName[p.Name] = p
+	}
+	var out []store.Process
+	seen := map[string]bool{}
+	for _, n := range names {
+		p, ok := byName[n]
+		if !ok {
+			known := make([]string, 0, len(all))
+			for _, p := range all {
+				known = append(known, p.Name)
+			}
+			sort.Strings(known)
+			why := "is not a process"
+			if len(known) > 0 {
+				why += " (known: " + strings.Join(known, ", ") + ")"
+			}
+			return nil, &OptionError{"process", n, why}
+		}
+		if !seen[n] {
+			seen[n] = true
+			out = append(out, p)
+		}
+	}
+	return out, nil
+}
+
+// LastCompleteWeek returns the latest ISO week that has ended, as of now,
+// on the clocks of every process given (UTC when none): the week before
+// the current one in the zone that is furthest behind.
+func LastCompleteWeek(now time.Time, procs []store.Process) (year, week int) {
+	locs := []*time.Location{time.UTC}
+	if len(procs) > 0 {
+		locs = locs[:0]
+		for _, p := range procs {
+			locs = append(locs, p.Location())
+		}
+	}
+	for i, loc := range locs {
+		y, w := spc.PreviousISOWeek(spc.ISOWeekOf(now, loc))
+		if i == 0 || y < year || (y == year && w < week) {
+			year, week = y, w
+		}
+	}
+	return year, week
+}
+
+// buildProcess reviews one process.
+func buildProcess(ctx context.Context, src Source, p store.Process, year, week int, method spc.IntervalMethod, level float64, nweeks int) (*ProcessReview, error) {
+	loc := p.Location()
+	pr := &ProcessReview{Process: p, Method: method}
+	if !p.Chart.CountsUnits() {
+		pr.Method = spc.IntervalPoissonExact
+	}
+
+	// The weeks of the trend, oldest first; the last is the reviewed one.
+	pr.Trend = make([]WeekStat, nweeks)
+	index := make(map[string]int, nweeks)
+	y, w := year, week
+	for i := nweeks - 1; i >= 0; i-- {
+		st := &pr.Trend[i]
+		st.Week = spc.FormatISOWeek(y, w)
+		st.Start, st.End = spc.ISOWeekRange(y, w, loc)
+		index[st.Week] = i
+		y, w = spc.PreviousISOWeek(y, w)
+	}
+	winFrom, winTo := pr.Trend[0].Start, pr.Trend[nweeks-1].End
+
+	lots, err := src.Lots(ctx, p.ID, winFrom, winTo)
+	if err != nil {
+		return nil, fmt.Errorf("reading lots: %w", err)
+	}
+	sort.SliceStable(lots, func(i, j int) bool { return lots[i].Time.Before(lots[j].Time) })
+	sets, err := src.LimitSets(ctx, p.ID)
+	if err != nil {
+		return nil, fmt.Errorf("reading limit sets: %w", err)
+	}
+	notes, err := src.Annotations(ctx, p.ID)
+	if err != nil {
+		return nil, fmt.Errorf("reading annotations: %w", err)
+	}
+
+	// Sum each week; the week of a lot is read on the plant's clocks.
+	weekLo, weekHi := -1, -1 // the reviewed week's lots are lots[weekLo:weekHi]
+	categories := map[string]int64{}
+	var categorized int64
+	for i, l := range lots {
+		j, ok := index[spc.FormatISOWeek(spc.ISOWeekOf(l.Time, loc))]
+		if !ok {
+			continue // outside the window (a source that ignores the bounds)
+		}
+		st := &pr.Trend[j]
+		st.Lots++
+		st.Inspected += l.Inspected
+		st.Count += l.Count
+		if j == nweeks-1 {
+			if weekLo < 0 {
+				weekLo = i
+			}
+			weekHi = i + 1
+			for c, n := range l.Categories {
+				categories[c] += n
+				categorized += n
+			}
+		}
+	}
+	for i := range pr.Trend {
+		if err := pr.Trend[i].estimate(p.Chart, pr.Method, level); err != nil {
+			return nil, fmt.Errorf("week %s: %w", pr.Trend[i].Week, err)
+		}
+	}
+	pr.Current, pr.Previous = pr.Trend[nweeks-1], pr.Trend[nweeks-2]
+	pr.Change = compare(p.Chart, pr.Current, pr.Previous, level)
+
+	if pr.Pareto, err = spc.Pareto(categories); err != nil {
+		return nil, fmt.Errorf("defect categories of %s: %w", pr.Current.Week, err)
+	}
+	pr.Uncategorized = max(0, pr.Current.Count-categorized)
+
+	if weekLo >= 0 {
+		pr.judge(lots, sets, notes, weekLo, weekHi)
+		pr.checkWeek(lots[weekLo:weekHi])
+	}
+	return pr, nil
+}
+
+// estimate sets the rate and its interval.
+func (st *WeekStat) estimate(ch spc.Chart, m spc.IntervalMethod, level float64) error {
+	st.Rate, st.Lower, st.Upper = math.NaN(), math.NaN(), math.NaN()
+	if !st.HasLots() {
+		return nil
+	}
+	var iv spc.Interval
+	var err error
+	if ch.CountsUnits() {
+		iv, err = spc.ProportionInterval(st.Count, st.Inspected, level, m)
+	} else {
+		iv, err = spc.PoissonInterval(st.Count, float64(st.Inspected), level)
+	}
+	if err != nil {
+		return err
+	}
+	st.Rate, st.Lower, st.Upper = iv.Estimate, iv.Lower, iv.Upper
+	return nil
+}
+
+// compare compares the reviewed week with the previous one.
+func compare(ch spc.Chart, cur, prev WeekStat, level float64) Change {
+	nan := math.NaN()
+	c := Change{Difference: nan, Lower: nan, Upper: nan, PValue: nan, Z: nan}
+	if ch.CountsUnits() {
+		c.Interval = "Newcombe hybrid score"
+		c.Test = "two-proportion z test"
+	} else {
+		c.Interval = "MOVER from Poisson score limits"
+		c.Test = "exact conditional test"
+	}
+	switch {
+	case !cur.HasLots():
+		c.Verdict = VerdictNoLots
+		c.Detail = fmt.Sprintf("too little data: no lots inspected in %s", cur.Week)
+		return c
+	case !prev.HasLots():
+		c.Verdict = VerdictNoLots
+		c.Detail = fmt.Sprintf("too little data to compare: no lots inspected in %s", prev.Week)
+		return c
+	}
+	var d spc.Difference
+	var err error
+	if ch.CountsUnits() {
+		d, err = spc.CompareProportions(cur.Count, cur.Inspected, prev.Count, prev.Inspected, level)
+	} else {
+		d, err = spc.ComparePoissonRates(cur.Count, float64(cur.Inspected), prev.Count, float64(prev.Inspected), level)
+	}
+	if err != nil {
+		c.Verdict = VerdictNoLots
+		c.Detail = "too little data: " + err.Error()
+		return c
+	}
+	c.Compared = true
+	c.Difference, c.Lower, c.Upper, c.PValue, c.Z = d.Difference, d.Lower, d.Upper, d.PValue, d.Z
+	c.Verdict = Verdict(d.Difference, d.PValue, 1-level)
+	return c
+}
+
+// VerdictNoLots is the verdict when a week has no lots to compare.
+const VerdictNoLots = "no lots inspected"
+
+// Verdict says in plain words what a change of diff with two-sided
+// p-value p means at significance alpha. It claims only what the test
+// supports: a change unlikely from sampling alone, or one within what
+// sampling alone produces. It never says the process got better or worse
+// (the test cannot tell a real change from a change in how lots were
+// sampled or inspected) nor that nothing changed (a large p-value only
+// says the data cannot tell).
+func Verdict(diff, p, alpha float64) string {
+	switch {
+	case p < alpha && diff > 0:
+		return "a rise unlikely from sampling alone (" + FormatP(p) + ")"
+	case p < alpha && diff < 0:
+		return "a fall unlikely from sampling alone (" + FormatP(p) + ")"
+	}
+	return "within what sampling alone produces (" + FormatP(p) + ")"
+}
+
+// FormatP formats a p-value for reading: "p = 0.003", "p = 0.41",
+// "p < 0.001".
+func FormatP(p float64) string {
+	switch {
+	case math.IsNaN(p):
+		return "p not available"
+	case p < 0.001:
+		return "p < 0.001"
+	case p >= 0.995:
+		return "p = 1"
+	}
+	return "p = " + strconv.FormatFloat(p, 'g', 2, 64)
+}
+
+// judge judges the window's lots against the limit sets in force and
+// keeps what touches the reviewed week, lots[lo:hi].
+func (pr *ProcessReview) judge(lots []store.Lot, sets []store.LimitSet, notes []store.Annotation, lo, hi int) {
+	p := pr.Process
+	rules := spc.RulesNone
+	if p.Rules != "" {
+		var err error
+		if rules, err = spc.ParseRules(p.Rules); err != nil {
+			pr.Notes = append(pr.Notes, fmt.Sprintf("The run rules %q of the process cannot be read (%v); only the limits were judged.", p.Rules, err))
+			rules = spc.RulesNone
+		}
+	}
+	a, setOf, err := Judge(p, lots, sets, rules)
+	if err != nil {
+		pr.Notes = append(pr.Notes, "The lots could not be judged against their limits: "+err.Error()+".")
+		return
+	}
+	byLot := map[int64][]store.Annotation{}
+	for _, n := range notes {
+		if n.LotID != 0 {
+			byLot[n.LotID] = append(byLot[n.LotID], n)
+		}
+	}
+	for i := lo; i < hi; i++ {
+		pt := a.Points[i]
+		if !pt.OutOfLimits() {
+			continue
+		}
+		lim := "trial limits"
+		if setOf[i] > 0 {
+			lim = "limit set " + strconv.Itoa(setOf[i])
+		}
+		pr.OutOfLimits = append(pr.OutOfLimits, OutOfLimit{Lot: lots[i], Value: pt.Value, UCL: pt.UCL, LCL: pt.LCL,
+			Above: pt.Above, Limits: lim, Annotations: byLot[lots[i].ID]})
+	}
+	for _, sg := range a.Signals {
+		if sg.Last < lo || sg.First >= hi {
+			continue
+		}
+		s := Signal{Rule: sg.Rule.String(), Description: sg.Description, Side: sg.Side,
+			First: lots[sg.First].Time, Last: lots[sg.Last].Time}
+		for i := sg.First; i <= sg.Last; i++ {
+			s.Lots = append(s.Lots, lots[i].Lot)
+			for _, n := range byLot[lots[i].ID] {
+				if n.Rule == "" || n.Rule == s.Rule {
+					s.Annotations = append(s.Annotations, n)
+				}
+			}
+		}
+		pr.Signals = append(pr.Signals, s)
+	}
+}
+
+// Judge judges lots (in time order) of process p against its limit sets:
+// the lots before the first set's EffectiveFrom against trial limits
+// estimated from themselves, the lots from each set's EffectiveFrom on
+// against that frozen set (its centre and σ_z as the standard), with the
+// run rules running across the joins (spc.AnalyzePhases). setOf gives for
+// each lot the Number of the set judging it, 0 for trial limits.
+func Judge(p store.Process, lots []store.Lot, sets []store.LimitSet, rules spc.RuleSet) (a *spc.Analysis, setOf []int, err error) {
+	if len(lots) == 0 {
+		return nil, nil, errors.New("no lots")
+	}
+	sets = append([]store.LimitSet(nil), sets...)
+	sort.SliceStable(sets, func(i, j int) bool {
+		if !sets[i].EffectiveFrom.Equal(sets[j].EffectiveFrom) {
+			return sets[i].EffectiveFrom.Before(sets[j].EffectiveFrom)
+		}
+		return sets[i].Number < sets[j].Number
+	})
+	in := spcLots(lots)
+	setOf = make([]int, len(lots))
+	trial := spc.Config{Chart: p.Chart, Method: p.Method, K: p.K}
+	var phases []spc.Phase
+	for _, ls := range sets {
+		i := sort.Search(len(lots), func(i int) bool { return !lots[i].Time.Before(ls.EffectiveFrom) })
+		if i >= len(lots) {
+			break // in force only after the last lot
+		}
+		if len(phases) == 0 && i > 0 {
+			phases = append(phases, spc.Phase{Start: 0, Config: trial})
+		}
+		cfg := spc.Config{Chart: p.Chart, Method: ls.Method, K: ls.K,
+			Standard: &spc.Standard{Center: ls.Center, SigmaZ: ls.SigmaZ}}
+		if n := len(phases); n > 0 && phases[n-1].Start == i {
+			phases[n-1].Config = cfg // a later set from the same lot replaces the earlier
+		} else {
+			phases = append(phases, spc.Phase{Start: i, Config: cfg})
+		}
+		for j := i; j < len(lots); j++ {
+			setOf[j] = ls.Number
+		}
+	}
+	if len(phases) == 0 {
+		trial.Rules = rules
+		a, err = spc.Analyze(in, trial)
+	} else {
+		a, err = spc.AnalyzePhases(in, phases, rules)
+	}
+	return a, setOf, err
+}
+
+func spcLots(lots []store.Lot) []spc.Lot {
+	in := make([]spc.Lot, len(lots))
+	for i, l := range lots {
+		in[i] = spc.Lot{ID: l.Lot, Inspected: l.Inspected, Count: l.Count}
+	}
+	return in
+}
+
+// checkWeek runs the engine on the week's lots alone, centre estimated
+// from them, for the dispersion check and the diagnostics of the week.
+func (pr *ProcessReview) checkWeek(lots []store.Lot) {
+	p := pr.Process
+	cfg := spc.Config{Chart: p.Chart, Method: p.Method, K: p.K}
+	if cfg.Method == spc.MethodLaney && len(lots) < 2 {
+		cfg.Method = spc.MethodSigma // σ_z needs two lots; the check itself does not
+	}
+	a, err := spc.Analyze(spcLots(lots), cfg)
+	if err != nil {
+		pr.Notes = append(pr.Notes, "The spread of the week's lots could not be checked: "+err.Error()+".")
+		return
+	}
+	d := a.Dispersion
+	pr.Dispersion = &d
+	for _, w := range a.Warnings {
+		// The week's centre is estimated here only to check the spread;
+		// the advice on how many lots trial limits need does not apply,
+		// and the overdispersion advice is already in Dispersion.
+		if w.Code == "few-lots" || w.Code == "overdispersion" {
+			continue
+		}
+		pr.Warnings = append(pr.Warnings, w)
+	}
+}
+
+// Caution is carried by every rendering of the review.
+const Caution = "The intervals describe sampling variation only: they do not allow for bias " +
+	"from how lots were sampled or inspected. A stable rate is no proof that the product " +
+	"meets its specification. This review does not replace the plant's release or acceptance " +
+	"procedure; defer to the quality system, customer requirements and local regulations."

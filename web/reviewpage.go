@@ -1,0 +1,200 @@
+package web
+
+import (
+	"bytes"
+	"errors"
+	"fmt"
+	"html/template"
+	"net/http"
+	"strconv"
+	"strings"
+
+	"lotwatch/store"
+	"lotwatch/web/review"
+)
+
+type reviewPageData struct {
+	Week     string
+	Problem  string
+	Fragment template.HTML
+	Query    string
+}
+
+// reviewOptions reads the week (ISO 8601, "2026-W48"; default the last
+// complete week) of a review request.
+func (s *Server) reviewOptions(r *http.Request) review.Options {
+	return review.Options{Week: strings.TrimSpace(r.URL.Query().Get("week")), Now: s.now()}
+}
+
+// reviewPage shows the weekly review inside the site's layout, with links
+// to download it as a self-contained HTML document, CSV or JSON. The
+// review's charts are inline SVG, so that they print.
+func (s *Server) reviewPage(w http.ResponseWriter, r *http.Request) {
+	opt := s.reviewOptions(r)
+	d := reviewPageData{Week: opt.Week}
+	rv, err := review.Build(r.Context(), s.db, opt)
+	var oe *review.OptionError
+	switch {
+	case errors.As(err, &oe):
+		d.Problem = oe.Error() + " (write the week as 2026-W48)"
+		s.render(w, r, http.StatusBadRequest, "review.html", "Weekly review", d)
+		return
+	case err != nil:
+		s.internalError(w, r, err)
+		return
+	}
+	d.Week = rv.Week
+	d.Query = "week=" + rv.Week
+	if d.Fragment, err = rv.HTMLFragment(); err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	s.render(w, r, http.StatusOK, "review.html", "Weekly review "+rv.Week, d)
+}
+
+// reviewDownload answers the review as a file: html (self-contained), csv
+// or json.
+func (s *Server) reviewDownload(w http.ResponseWriter, r *http.Request) {
+	format := r.URL.Query().Get("format")
+	ctype := map[string]string{"html": "text/html; charset=utf-8", "csv": "text/csv; charset=utf-8", "json": "application/json; charset=utf-8"}[format]
+	if ctype == "" {
+		s.badRequest(w, r, (&paramError{"format", format, "is not html, csv or json"}).Error())
+		return
+	}
+	rv, err := review.Build(r.Context(), s.db, s.reviewOptions(r))
+	var oe *review.OptionError
+	if errors.As(err, &oe) {
+		s.badRequest(w, r, oe.Error())
+		return
+	}
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	var b bytes.Buffer
+	switch format {
+	case "html":
+		err = rv.WriteHTML(&b)
+	case "csv":
+		err = rv.WriteCSV(&b)
+	case "json":
+		err = rv.WriteJSON(&b)
+	}
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	h := w.Header()
+	h.Set("Content-Type", ctype)
+	h.Set("Content-Disposition", fmt.Sprintf(`attachment; filename="lotwatch-review-%s.%s"`, rv.Week, format))
+	h.Set("Cache-Control", "no-store")
+	w.Write(b.Bytes())
+}
+
+// reviewCSS serves the review's style sheet (the CSP allows styles from
+// this origin only, never inline).
+func reviewCSS(w http.ResponseWriter, r *http.Request) {
+	h := w.Header()
+	h.Set("Content-Type", "text/css; charset=utf-8")
+	h.Set("Cache-Control", "public, max-age=3600")
+	w.Write([]byte(review.Stylesheet))
+}
+
+type planPageData struct {
+	Processes []store.Process
+	Selected  int64
+	Values    map[string]string
+	Problem   string
+	Centre    *review.Centre
+	Result    *review.PlanResult
+	SVG       template.HTML
+}
+
+// planPage plans lot sizes for a p or np process: the limits and ARLs at
+// a lot size, the smallest lot size that detects a shift soon enough on
+// average, and the ARL1 curve against lot size.
+func (s *Server) planPage(w http.ResponseWriter, r *http.Request) {
+	ctx := r.Context()
+	all, err := s.db.Processes(ctx, false)
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	d := planPageData{Values: map[string]string{}}
+	for _, p := range all {
+		if p.Chart.CountsUnits() {
+			d.Processes = append(d.Processes, p)
+		}
+	}
+	q := r.URL.Query()
+	for _, k := range []string{"process", "p1", "n", "arl1"} {
+		d.Values[k] = strings.TrimSpace(q.Get(k))
+	}
+	if d.Values["process"] == "" {
+		s.render(w, r, http.StatusOK, "plan.html", "Planning", d)
+		return
+	}
+	fail := func(msg string) {
+		d.Problem = msg
+		s.render(w, r, http.StatusBadRequest, "plan.html", "Planning", d)
+	}
+	d.Selected, _ = strconv.ParseInt(d.Values["process"], 10, 64)
+	var proc *store.Process
+	for i := range d.Processes {
+		if d.Processes[i].ID == d.Selected {
+			proc = &d.Processes[i]
+		}
+	}
+	if proc == nil {
+		fail("Choose a process with a p or np chart.")
+		return
+	}
+	c, err := review.CurrentCentre(ctx, s.db, *proc)
+	if err != nil {
+		fail(err.Error())
+		return
+	}
+	d.Centre = &c
+	req := review.PlanRequest{}
+	num := func(name string, dst *float64) bool {
+		v := d.Values[name]
+		if v == "" {
+			return true
+		}
+		f, err := strconv.ParseFloat(strings.TrimSuffix(v, "%"), 64)
+		if err != nil {
+			fail(fmt.Sprintf("%s %q is not a number", name, v))
+			return false
+		}
+		if strings.HasSuffix(v, "%") {
+			f /= 100
+		}
+		*dst = f
+		return true
+	}
+	var n float64
+	if !num("p1", &req.P1) || !num("n", &n) || !num("arl1", &req.TargetARL1) {
+		return
+	}
+	if d.Values["p1"] == "" {
+		req.P1 = 2 * c.P0 // a doubling of the rate, unless told otherwise
+		d.Values["p1"] = strconv.FormatFloat(req.P1, 'g', 4, 64)
+	}
+	if n != float64(int64(n)) {
+		fail(fmt.Sprintf("n %q is not a whole number", d.Values["n"]))
+		return
+	}
+	req.N = int64(n)
+	if req.N == 0 && req.TargetARL1 == 0 {
+		req.TargetARL1 = 10
+		d.Values["arl1"] = "10"
+	}
+	res, err := review.PlanFor(c, req)
+	if err != nil {
+		fail(err.Error())
+		return
+	}
+	d.Result = res
+	d.SVG = review.PlanSVG(res.Curve, req.TargetARL1, max(req.N, res.Smallest))
+	s.render(w, r, http.StatusOK, "plan.html", "Planning — "+proc.Name, d)
+}

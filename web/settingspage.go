@@ -1,0 +1,188 @@
+package web
+
+import (
+	"errors"
+	"net/http"
+	"strconv"
+	"strings"
+
+	"lotwatch/spc"
+	"lotwatch/store"
+)
+
+// processForm is the add / edit form of a process.
+type processForm struct {
+	Proc     store.Process
+	Editing  bool
+	Values   map[string]string
+	Problems map[string]string
+	Other    []string
+	Charts   []option
+	Methods  []option
+	Zones    []string
+	HasLots  bool
+	Done     bool
+}
+
+// Problem returns the message for a field, for the template.
+func (f processForm) Problem(field string) string { return f.Problems[field] }
+
+// commonZones are suggested in the time zone field (any IANA name works).
+var commonZones = []string{"UTC", "Europe/London", "Europe/Berlin", "Europe/Paris", "Europe/Warsaw", "America/New_York",
+	"America/Chicago", "America/Los_Angeles", "America/Mexico_City", "America/Sao_Paulo", "Asia/Shanghai", "Asia/Tokyo",
+	"Asia/Kolkata", "Asia/Singapore", "Australia/Sydney"}
+
+func newProcessForm(vals map[string]string) processForm {
+	return processForm{Values: vals, Problems: map[string]string{}, Zones: commonZones,
+		Charts: options(vals["chart"], "p", "p — fraction nonconforming (n varies)", "np", "np — nonconforming units (n constant)",
+			"u", "u — defects per unit", "c", "c — defects per lot (equal lots)"),
+		Methods: options(vals["method"], "sigma", "sigma — k·σ from the normal approximation", "exact",
+			"exact — binomial or Poisson quantiles (small counts)", "laney", "laney — p′/u′ widened for lot-to-lot variation")}
+}
+
+func processValues(p store.Process) map[string]string {
+	return map[string]string{"name": p.Name, "description": p.Description, "chart": string(p.Chart),
+		"method": string(p.Method), "k": strconv.FormatFloat(p.K, 'g', -1, 64), "rules": p.Rules,
+		"categories": strings.Join(p.Categories, ", "), "tz": p.TimeZone, "retired": map[bool]string{true: "", false: "1"}[p.Active]}
+}
+
+// readProcessForm reads the posted form into a process.
+func readProcessForm(r *http.Request, f *processForm) store.Process {
+	for _, k := range []string{"name", "description", "chart", "method", "k", "rules", "categories", "tz", "retired", "reason"} {
+		f.Values[k] = r.PostFormValue(k)
+	}
+	*f = newProcessFormKeep(*f)
+	p := store.Process{Name: strings.TrimSpace(f.Values["name"]), Description: strings.TrimSpace(f.Values["description"]),
+		Chart: spc.Chart(f.Values["chart"]), Method: spc.Method(f.Values["method"]), Rules: strings.TrimSpace(f.Values["rules"]),
+		TimeZone: strings.TrimSpace(f.Values["tz"]), Active: f.Values["retired"] != "1"}
+	if k := strings.TrimSpace(f.Values["k"]); k != "" {
+		v, err := strconv.ParseFloat(k, 64)
+		if err != nil {
+			f.Problems["k"] = strconv.Quote(k) + " is not a number"
+		}
+		p.K = v
+	}
+	p.Categories = []string{}
+	for _, c := range strings.Split(f.Values["categories"], ",") {
+		if c = strings.TrimSpace(c); c != "" {
+			p.Categories = append(p.Categories, c)
+		}
+	}
+	return p
+}
+
+func newProcessFormKeep(f processForm) processForm {
+	n := newProcessForm(f.Values)
+	n.Proc, n.Editing, n.Problems, n.HasLots = f.Proc, f.Editing, f.Problems, f.HasLots
+	return n
+}
+
+// place puts store problems beside the form's fields.
+func (f *processForm) place(ps []store.Problem) {
+	field := map[string]string{"limits": "method", "sigma": "k"}
+	for _, pr := range ps {
+		k := pr.Field
+		if m, ok := field[k]; ok {
+			k = m
+		}
+		msg := pr.Reason
+		if pr.Value != "" {
+			msg = strconv.Quote(pr.Value) + " " + pr.Reason
+		}
+		switch k {
+		case "name", "description", "chart", "method", "k", "rules", "categories", "tz", "reason":
+			f.Problems[k] = joinMsg(f.Problems[k], msg)
+		default:
+			f.Other = append(f.Other, pr.String())
+		}
+	}
+}
+
+type processListData struct {
+	Processes []store.Process
+	Form      processForm
+}
+
+func (s *Server) processListPage(w http.ResponseWriter, r *http.Request) {
+	s.showProcessList(w, r, http.StatusOK, newProcessForm(map[string]string{"chart": "p", "method": "sigma", "k": "3", "rules": "we", "tz": "UTC"}))
+}
+
+func (s *Server) showProcessList(w http.ResponseWriter, r *http.Request, status int, f processForm) {
+	ps, err := s.db.Processes(r.Context(), true)
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	s.render(w, r, status, "processlist.html", "Processes", processListData{Processes: ps, Form: f})
+}
+
+func (s *Server) addProcess(w http.ResponseWriter, r *http.Request) {
+	f := newProcessForm(map[string]string{})
+	p := readProcessForm(r, &f)
+	if len(f.Problems) == 0 {
+		np, err := s.db.AddProcess(r.Context(), who(r).user.Name, p)
+		var ve *store.ValidationError
+		switch {
+		case errors.As(err, &ve):
+			f.place(ve.Problems)
+		case errors.Is(err, store.ErrConflict):
+			f.Problems["name"] = "a process named " + strconv.Quote(p.Name) + " already exists"
+		case err != nil:
+			s.internalError(w, r, err)
+			return
+		default:
+			http.Redirect(w, r, "/processes/"+formatID(np.ID)+"/settings?done=1", http.StatusSeeOther)
+			return
+		}
+	}
+	s.showProcessList(w, r, http.StatusBadRequest, f)
+}
+
+func (s *Server) processSettingsPage(w http.ResponseWriter, r *http.Request) {
+	p, ok := s.pathProcess(w, r)
+	if !ok {
+		return
+	}
+	f := newProcessForm(processValues(p))
+	f.Proc, f.Editing, f.Done = p, true, r.URL.Query().Get("done") == "1"
+	f.HasLots = s.hasLots(r, p)
+	s.render(w, r, http.StatusOK, "processform.html", "Settings — "+p.Name, f)
+}
+
+func (s *Server) hasLots(r *http.Request, p store.Process) bool {
+	pc, err := s.freshChart(r.Context(), p)
+	return err == nil && len(pc.lots) > 0
+}
+
+func (s *Server) updateProcess(w http.ResponseWriter, r *http.Request) {
+	old, ok := s.pathProcess(w, r)
+	if !ok {
+		return
+	}
+	f := newProcessForm(map[string]string{})
+	f.Proc, f.Editing = old, true
+	p := readProcessForm(r, &f)
+	p.ID = old.ID
+	reason := strings.TrimSpace(f.Values["reason"])
+	if reason == "" {
+		f.Problems["reason"] = "is empty: say why the process changes"
+	}
+	if len(f.Problems) == 0 {
+		_, err := s.db.UpdateProcess(r.Context(), who(r).user.Name, reason, p)
+		var ve *store.ValidationError
+		switch {
+		case errors.As(err, &ve):
+			f.place(ve.Problems)
+		case errors.Is(err, store.ErrConflict):
+			f.Problems["name"] = "a process named " + strconv.Quote(p.Name) + " already exists"
+		case err != nil:
+			s.internalError(w, r, err)
+			return
+		default:
+			http.Redirect(w, r, "/processes/"+formatID(p.ID)+"/settings?done=1", http.StatusSeeOther)
+			return
+		}
+	}
+	f.HasLots = s.hasLots(r, old)
+	s.render(w, r, http.StatusBadRequest, "processform.html", "Settings — "+old.Name, f)
+}

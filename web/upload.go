@@ -1,0 +1,336 @@
+package web
+
+import (
+	"crypto/rand"
+	"encoding/hex"
+	"errors"
+	"fmt"
+	"io"
+	"net/http"
+	"os"
+	"strconv"
+	"sync"
+	"time"
+
+	"github.com/go-chi/chi/v5"
+
+	"lotwatch/store"
+	"lotwatch/store/lotcsv"
+)
+
+// uploadTTL is how long an uploaded file waits for its confirmation.
+const uploadTTL = time.Hour
+
+// maxUpload is the largest lot file the page takes (the request limit of
+// the whole server is 8 MiB).
+const maxUpload = 7 << 20
+
+// pendingUpload is an uploaded lot file kept on the server between the
+// preview and the confirmation, bound to the session that uploaded it.
+// The browser holds only the random key; the bytes imported are the bytes
+// previewed.
+type pendingUpload struct {
+	path      string
+	processID int64
+	session   string
+	name      string
+	created   time.Time
+}
+
+// uploads holds the pending uploads.
+type uploads struct {
+	mu      sync.Mutex
+	pending map[string]*pendingUpload
+}
+
+func (u *uploads) put(p *pendingUpload, now time.Time) (string, error) {
+	b := make([]byte, 16)
+	if _, err := rand.Read(b); err != nil {
+		return "", err
+	}
+	key := hex.EncodeToString(b)
+	u.mu.Lock()
+	defer u.mu.Unlock()
+	if u.pending == nil {
+		u.pending = map[string]*pendingUpload{}
+	}
+	u.sweepLocked(now)
+	u.pending[key] = p
+	return key, nil
+}
+
+// take removes and returns the upload of the key if this session made it.
+func (u *uploads) take(key, session string, now time.Time) (*pendingUpload, bool) {
+	u.mu.Lock()
+	defer u.mu.Unlock()
+	u.sweepLocked(now)
+	p, ok := u.pending[key]
+	if !ok || p.session != session {
+		return nil, false
+	}
+	delete(u.pending, key)
+	return p, true
+}
+
+func (u *uploads) sweepLocked(now time.Time) {
+	for k, p := range u.pending {
+		if now.Sub(p.created) > uploadTTL {
+			os.Remove(p.path)
+			delete(u.pending, k)
+		}
+	}
+}
+
+type uploadData struct {
+	Processes []store.Process
+	Selected  int64
+	Problem   string
+	// preview
+	Proc      *store.Process
+	FileName  string
+	Key       string
+	Rows      int
+	New       int
+	Unchanged int
+	Conflicts []string
+	Problems  []store.Problem
+	More      int
+	Sample    []lotcsv.Row
+	Ignored   []string
+	CountCol  string
+	Cats      []string
+	// result
+	Result *store.ImportResult
+}
+
+func (s *Server) uploadPage(w http.ResponseWriter, r *http.Request) {
+	ps, err := s.db.Processes(r.Context(), false)
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	sel, _ := strconv.ParseInt(r.URL.Query().Get("process"), 10, 64)
+	s.render(w, r, http.StatusOK, "upload.html", "Upload a lot file", uploadData{Processes: ps, Selected: sel})
+}
+
+// postUpload keeps the uploaded file on the server and previews it: every
+// row checked by the rules of the import (lotcsv for the cells,
+// store.ValidateLot for the values, a code twice in the file), each
+// problem with its line; lots already stored are counted as unchanged or
+// listed as conflicts. Nothing is saved until the preview is confirmed.
+func (s *Server) postUpload(w http.ResponseWriter, r *http.Request) {
+	ps, err := s.db.Processes(r.Context(), false)
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	d := uploadData{Processes: ps}
+	fail := func(status int, msg string) {
+		d.Problem = msg
+		s.render(w, r, status, "upload.html", "Upload a lot file", d)
+	}
+	if err := r.ParseMultipartForm(1 << 20); err != nil {
+		var tooBig *http.MaxBytesError
+		if errors.As(err, &tooBig) {
+			fail(http.StatusRequestEntityTooLarge, "The file is larger than the server accepts (8 MiB). Split it, or use `lotwatch import`.")
+			return
+		}
+		fail(http.StatusBadRequest, "The upload could not be read: choose a process and a CSV file.")
+		return
+	}
+	defer r.MultipartForm.RemoveAll()
+	pid, _ := strconv.ParseInt(r.FormValue("process"), 10, 64)
+	d.Selected = pid
+	var proc *store.Process
+	for i := range ps {
+		if ps[i].ID == pid {
+			proc = &ps[i]
+		}
+	}
+	if proc == nil {
+		fail(http.StatusBadRequest, "Choose the process the lots belong to.")
+		return
+	}
+	file, hdr, err := r.FormFile("file")
+	if err != nil {
+		fail(http.StatusBadRequest, "Choose a CSV file to upload.")
+		return
+	}
+	defer file.Close()
+	tmp, err := os.CreateTemp("", "lotwatch-upload-*.csv")
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	n, err := io.Copy(tmp, io.LimitReader(file, maxUpload+1))
+	if cerr := tmp.Close(); err == nil {
+		err = cerr
+	}
+	if err != nil {
+		os.Remove(tmp.Name())
+		s.internalError(w, r, err)
+		return
+	}
+	if n > maxUpload {
+		os.Remove(tmp.Name())
+		fail(http.StatusRequestEntityTooLarge, fmt.Sprintf("The file is larger than %d MiB. Split it, or use `lotwatch import`.", maxUpload>>20))
+		return
+	}
+	d.Proc, d.FileName = proc, hdr.Filename
+	if err := s.previewFile(r, tmp.Name(), *proc, &d); err != nil {
+		os.Remove(tmp.Name())
+		s.internalError(w, r, err)
+		return
+	}
+	if len(d.Problems) > 0 || d.Rows == 0 {
+		os.Remove(tmp.Name())
+		status := http.StatusBadRequest
+		if d.Rows == 0 && len(d.Problems) == 0 {
+			d.Problem = "The file has a header but no lots."
+		}
+		s.render(w, r, status, "upload.html", "Upload a lot file", d)
+		return
+	}
+	key, err := s.uploads.put(&pendingUpload{path: tmp.Name(), processID: proc.ID, session: who(r).session, name: hdr.Filename, created: s.now()}, s.now())
+	if err != nil {
+		os.Remove(tmp.Name())
+		s.internalError(w, r, err)
+		return
+	}
+	d.Key = key
+	s.render(w, r, http.StatusOK, "upload.html", "Upload a lot file", d)
+}
+
+// previewSample is how many rows the preview shows.
+const previewSample = 8
+
+func (s *Server) previewFile(r *http.Request, path string, p store.Process, d *uploadData) error {
+	f, err := os.Open(path)
+	if err != nil {
+		return err
+	}
+	defer f.Close()
+	const max = 100
+	add := func(pr store.Problem) {
+		if len(d.Problems) < max {
+			d.Problems = append(d.Problems, pr)
+		} else {
+			d.More++
+		}
+	}
+	rd, err := lotcsv.NewReader(f, lotcsv.Options{Chart: p.Chart, Categories: p.Categories, Location: p.Location(), MaxProblems: max})
+	var hps lotcsv.Problems
+	if errors.As(err, &hps) {
+		for _, pr := range hps {
+			add(pr)
+		}
+		return nil
+	}
+	if err != nil {
+		return err
+	}
+	d.Ignored, d.CountCol, d.Cats = rd.Ignored(), rd.CountColumn(), rd.Categories()
+	pc, err := s.freshChart(r.Context(), p)
+	if err != nil {
+		return err
+	}
+	stored := make(map[string]store.Lot, len(pc.lots))
+	for _, l := range pc.lots {
+		stored[l.Lot] = l
+	}
+	seen := map[string]int{}
+	for {
+		row, err := rd.Next()
+		if err == io.EOF {
+			break
+		}
+		var rps lotcsv.Problems
+		if errors.As(err, &rps) {
+			d.Rows++
+			for _, pr := range rps {
+				add(pr)
+			}
+			continue
+		}
+		if err != nil {
+			return err
+		}
+		d.Rows++
+		in := store.LotInput{Lot: row.Lot, Time: row.Time, Shift: row.Shift, Inspected: row.Inspected, Count: row.Count,
+			Categories: row.Categories, Inspector: row.Inspector, Note: row.Note}
+		bad := false
+		for _, pr := range store.ValidateLot(p, in) {
+			if pr.Field == "defective" || pr.Field == "defects" {
+				pr.Field = rd.CountColumn()
+			}
+			pr.Line = row.Line
+			add(pr)
+			bad = true
+		}
+		if first, dup := seen[row.Lot]; dup {
+			add(store.Problem{Line: row.Line, Field: "lot", Value: row.Lot, Reason: fmt.Sprintf("appears more than once in the file (first on line %d)", first)})
+			bad = true
+		}
+		seen[row.Lot] = row.Line
+		if bad {
+			continue
+		}
+		if len(d.Sample) < previewSample {
+			d.Sample = append(d.Sample, row)
+		}
+		if l, ok := stored[row.Lot]; ok {
+			if l.Inspected == row.Inspected && l.Count == row.Count && (!rd.Has(lotcsv.ColTime) || l.Time.Equal(row.Time)) {
+				d.Unchanged++
+			} else if len(d.Conflicts) < max {
+				d.Conflicts = append(d.Conflicts, fmt.Sprintf("line %d: lot %q is already stored with other values; it will be left as it is", row.Line, row.Lot))
+			}
+			continue
+		}
+		d.New++
+	}
+	return nil
+}
+
+// confirmUpload imports the previewed file with the store's import (all
+// or nothing; it checks everything again).
+func (s *Server) confirmUpload(w http.ResponseWriter, r *http.Request) {
+	pu, ok := s.uploads.take(chi.URLParam(r, "key"), who(r).session, s.now())
+	if !ok {
+		s.pageError(w, r, http.StatusNotFound, "This upload is no longer waiting (it was imported, it expired after an hour, or it belongs to another session). Upload the file again.")
+		return
+	}
+	defer os.Remove(pu.path)
+	p, err := s.db.Process(r.Context(), pu.processID)
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	f, err := os.Open(pu.path)
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	defer f.Close()
+	res, err := s.db.Import(r.Context(), who(r).user.Name, f, store.ImportOptions{Process: p.Name})
+	d := uploadData{Proc: &p, FileName: pu.name}
+	var ve *store.ValidationError
+	switch {
+	case errors.As(err, &ve):
+		d.Problems, d.More = ve.Problems, ve.More
+		d.Problem = "Nothing was imported: the file no longer passes the checks."
+		s.render(w, r, http.StatusBadRequest, "upload.html", "Upload a lot file", d)
+		return
+	case errors.Is(err, store.ErrInvalid):
+		d.Problem = "Nothing was imported: " + err.Error()
+		s.render(w, r, http.StatusBadRequest, "upload.html", "Upload a lot file", d)
+		return
+	case err != nil:
+		s.internalError(w, r, err)
+		return
+	}
+	d.Result = &res
+	for _, c := range res.Conflicts {
+		d.Conflicts = append(d.Conflicts, c.String())
+	}
+	s.render(w, r, http.StatusOK, "upload.html", "Upload a lot file", d)
+}
