@@ -339,6 +339,7 @@ type lotAdder struct {
 	buf     []byte
 	packed  []byte
 	scratch Lot
+	next    int64 // the id of the next lot added
 }
 
 // appendCanonical appends the canonical line of a lot for the digest of a
@@ -370,7 +371,13 @@ type hashWriter interface {
 
 func (w *wtx) newLotAdder(actor string, p Process) (*lotAdder, error) {
 	ins, get := w.db.stmt(w.Tx, qLotInsert), w.db.stmt(w.Tx, qLotByCode)
-	return &lotAdder{w: w, p: p, actor: actor, ins: ins, get: get, h: sha256.New()}, nil
+	a := &lotAdder{w: w, p: p, actor: actor, ins: ins, get: get, h: sha256.New()}
+	// Ids are given here, as SQLite would (one above the highest), so that
+	// the packed copy can carry its lot's id.
+	if err := w.db.queryRowIn(w.Tx, qLotNextID).Scan(&a.next); err != nil {
+		return nil, err
+	}
+	return a, nil
 }
 
 // close ends the adder (its statements belong to the transaction).
@@ -382,16 +389,17 @@ func (a *lotAdder) add(in *LotInput) (id int64, added bool, err error) {
 	if in.Time.IsZero() {
 		in.Time = a.w.now
 	}
-	a.scratch = Lot{LotInput: *in, Revision: 1, Recorded: a.w.now, RecordedBy: a.actor}
+	a.scratch = Lot{ID: a.next, LotInput: *in, Revision: 1, Recorded: a.w.now, RecordedBy: a.actor}
 	a.packed = appendPacked(a.packed[:0], &a.scratch, a.p.Categories)
-	res, err := a.ins.Exec(a.p.ID, in.Lot, in.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, a.w.now.UnixNano(), a.actor, a.packed)
+	res, err := a.ins.Exec(a.next, a.p.ID, in.Lot, in.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, a.w.now.UnixNano(), a.actor, a.packed)
 	if err != nil {
 		return 0, false, fmt.Errorf("store: add lot %q: %w", in.Lot, err)
 	}
 	if n, _ := res.RowsAffected(); n == 0 {
 		return 0, false, nil
 	}
-	id, _ = res.LastInsertId()
+	id = a.next
+	a.next++
 	if a.n == 0 {
 		a.first = id
 	}
@@ -541,7 +549,7 @@ func (db *DB) Lots(ctx context.Context, processID int64, from, to time.Time) ([]
 //
 // The lots are read from the covering index lots_read, whose packed
 // column carries every value of a lot (see appendPacked): one index scan,
-// two columns per lot, no lookup in the table.
+// one column per lot, no lookup in the table.
 func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, fn func(Lot) error) error {
 	p, err := db.Process(ctx, processID)
 	if err != nil {
@@ -554,7 +562,7 @@ func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, 
 	if !to.IsZero() {
 		hi = to.UnixNano() - 1
 	}
-	return db.walkPacked(ctx, p, `SELECT id, packed FROM lots INDEXED BY lots_read
+	return db.walkPacked(ctx, p, `SELECT packed FROM lots INDEXED BY lots_read
 		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ? ORDER BY time, id`, fn, processID, lo, hi)
 }
 
@@ -567,7 +575,7 @@ func (db *DB) LotsAddedAfter(ctx context.Context, processID, afterID int64) ([]L
 		return nil, err
 	}
 	var out []Lot
-	err = db.walkPacked(ctx, p, `SELECT id, packed FROM lots
+	err = db.walkPacked(ctx, p, `SELECT packed FROM lots
 		WHERE id > ? AND process_id = ? AND voided = 0 ORDER BY time, id`, func(l Lot) error {
 		l.Categories = maps.Clone(l.Categories)
 		out = append(out, l)
@@ -581,7 +589,7 @@ func (db *DB) LotsAddedAfter(ctx context.Context, processID, afterID int64) ([]L
 // index of some ten million lots).
 const readMmap = "PRAGMA mmap_size = 1073741824"
 
-// walkPacked runs query (selecting id and packed) and calls fn with each
+// walkPacked runs query (selecting packed) and calls fn with each
 // lot, as EachLot describes.
 func (db *DB) walkPacked(ctx context.Context, p Process, query string, fn func(Lot) error, args ...any) error {
 	loc := p.Location()
@@ -614,21 +622,19 @@ func (db *DB) walkPacked(ctx context.Context, p Process, query string, fn func(L
 		var l Lot
 		l.ProcessID = p.ID
 		lr := newLotReader(p.Categories, loc)
-		dest := make([]driver.Value, 2)
+		dest := make([]driver.Value, 1)
 		for {
 			if err := rows.Next(dest); err == io.EOF {
 				return nil
 			} else if err != nil {
 				return err
 			}
-			id, ok1 := dest[0].(int64)
-			packed, ok2 := dest[1].([]byte)
-			if !ok1 || !ok2 {
-				return fmt.Errorf("store: lot %v: packed copy missing", dest[0])
+			packed, ok := dest[0].([]byte)
+			if !ok {
+				return fmt.Errorf("store: a lot of process %d after lot %d has no packed copy", p.ID, l.ID)
 			}
-			l.ID = id
 			if err := lr.unpack(packed, &l); err != nil {
-				return fmt.Errorf("store: lot %d: %w", l.ID, err)
+				return fmt.Errorf("store: the lot after lot %d: %w", l.ID, err)
 			}
 			if err := fn(l); err != nil {
 				return err
@@ -782,7 +788,7 @@ func (db *DB) VoidLot(ctx context.Context, actor, reason string, id int64) error
 		if err != nil {
 			return err
 		}
-		nw := Lot{LotInput: old.LotInput, Revision: old.Revision + 1, Voided: true, Recorded: w.now, RecordedBy: actor, Reason: reason}
+		nw := Lot{ID: id, LotInput: old.LotInput, Revision: old.Revision + 1, Voided: true, Recorded: w.now, RecordedBy: actor, Reason: reason}
 		if _, err := w.Exec("UPDATE lots SET voided = 1, revision = revision + 1, recorded = ?, recorded_by = ?, reason = ?, packed = ? WHERE id = ?",
 			w.now.UnixNano(), actor, reason, appendPacked(nil, &nw, p.Categories), id); err != nil {
 			return err

@@ -13,7 +13,7 @@ import (
 const packedVersion = 1
 
 // appendPacked appends the packed form of a lot's stored values: a
-// version byte, time and recorded as 8-byte little-endian nanoseconds,
+// version byte, the id as a uvarint, time and recorded as 8-byte little-endian nanoseconds,
 // varints (encoding/binary) for inspected, count and revision,
 // length-prefixed strings for lot, shift,
 // inspector, note, recorded_by and reason, and the category counts — each
@@ -23,6 +23,7 @@ const packedVersion = 1
 // sorted, so the packed form of given values is always the same bytes.
 func appendPacked(b []byte, l *Lot, cats []string) []byte {
 	b = append(b, packedVersion)
+	b = binary.AppendUvarint(b, uint64(l.ID))
 	b = binary.LittleEndian.AppendUint64(b, uint64(l.Time.UnixNano()))
 	b = binary.LittleEndian.AppendUint64(b, uint64(nanos(l.Recorded)))
 	b = binary.AppendVarint(b, l.Inspected)
@@ -157,14 +158,20 @@ func (lr *lotReader) code(b []byte) string {
 	return unsafe.String(&lr.block[start], len(b))
 }
 
-// unpack fills l (but ID and ProcessID) from the packed lot b.
+// unpack fills l (but ProcessID) from the packed lot b.
 func (lr *lotReader) unpack(b []byte, l *Lot) error {
-	if len(b) < 17 || b[0] != packedVersion {
+	if len(b) < 1 || b[0] != packedVersion {
 		return errPacked
 	}
-	t := int64(binary.LittleEndian.Uint64(b[1:]))
-	rec := int64(binary.LittleEndian.Uint64(b[9:]))
-	r := packedReader{b: b[17:]}
+	id, k := binary.Uvarint(b[1:])
+	if k <= 0 || len(b) < 1+k+16 {
+		return errPacked
+	}
+	b = b[1+k:]
+	l.ID = int64(id)
+	t := int64(binary.LittleEndian.Uint64(b))
+	rec := int64(binary.LittleEndian.Uint64(b[8:]))
+	r := packedReader{b: b[16:]}
 	l.Inspected = r.varint()
 	l.Count = r.varint()
 	l.Revision = int(r.uvarint())

@@ -539,7 +539,7 @@ func (d *dataTrail) checkLots(ctx context.Context, tx *sql.Tx, procs map[int64]p
 				return differ(b.seq, name), nil
 			}
 		}
-		l := Lot{LotInput: cur.in, Revision: cur.revision, Voided: cur.voided, Recorded: time.Unix(0, cur.recorded), RecordedBy: cur.recordedBy, Reason: cur.reason}
+		l := Lot{ID: id, LotInput: cur.in, Revision: cur.revision, Voided: cur.voided, Recorded: time.Unix(0, cur.recorded), RecordedBy: cur.recordedBy, Reason: cur.reason}
 		if cur.cats == "" {
 			l.Categories = nil
 		} else {
