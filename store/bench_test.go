@@ -267,3 +267,67 @@ func BenchmarkReadLots(b *testing.B) {
 	b.ReportMetric(bare, "bare-scan-lots/s")
 	b.ReportMetric(rate/bare, "read/bare")
 }
+
+// BenchmarkVerifyAudit checks the audit trail and every data row of a
+// database holding the benchmark lots, imported in one file and added
+// one by one (a tenth of them, as stations post them), and reports the
+// rate in lots checked per second beside the rate of a bare scan of the
+// lots table (all columns, through database/sql) in the same run.
+func BenchmarkVerifyAudit(b *testing.B) {
+	n := benchLots(b)
+	db, p := benchDB(b)
+	defer db.Close()
+	if _, err := db.Import(ctx, "bench", csvSource(n), ImportOptions{Process: "weld"}); err != nil {
+		b.Fatal(err)
+	}
+	single := max(n/10, 1)
+	var wg sync.WaitGroup
+	for w := range 8 {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for i := w; i < single; i += 8 {
+				l := benchLot(n + i)
+				if _, err := db.AddLots(ctx, "station", p.ID, []LotInput{l}); err != nil {
+					b.Error(err)
+					return
+				}
+			}
+		}()
+	}
+	wg.Wait()
+	total := n + single
+	b.ResetTimer()
+	var verifyNs, bareNs time.Duration
+	for i := 0; i < b.N; i++ {
+		t := time.Now()
+		chk, err := db.VerifyAudit(ctx)
+		verifyNs += time.Since(t)
+		if err != nil || !chk.OK {
+			b.Fatalf("verify: %+v %v", chk, err)
+		}
+		b.StopTimer()
+		t = time.Now()
+		rows, err := db.r.Query("SELECT " + lotCols + " FROM lots ORDER BY id")
+		if err != nil {
+			b.Fatal(err)
+		}
+		var l Lot
+		k := 0
+		for rows.Next() {
+			if err := scanLot(rows, &l, time.UTC); err != nil {
+				b.Fatal(err)
+			}
+			k++
+		}
+		rows.Close()
+		bareNs += time.Since(t)
+		if k != total {
+			b.Fatalf("scanned %d lots, want %d", k, total)
+		}
+		b.StartTimer()
+	}
+	b.ReportMetric(float64(total*b.N)/verifyNs.Seconds(), "lots/s")
+	b.ReportMetric(float64(total*b.N)/bareNs.Seconds(), "bare-scan-lots/s")
+	b.ReportMetric(bareNs.Seconds()/verifyNs.Seconds(), "verify/bare")
+}
