@@ -649,14 +649,6 @@ type interner struct{ m map[string]string }
 
 func newInterner() *interner { return &interner{m: map[string]string{}} }
 
-// same returns prev when b holds the same text (no lookup), else get(b).
-func (in *interner) same(prev string, b []byte) string {
-	if string(b) == prev {
-		return prev
-	}
-	return in.get(b)
-}
-
 func (in *interner) get(b []byte) string {
 	if len(b) == 0 {
 		return ""

@@ -129,6 +129,8 @@ type lotReader struct {
 	cats  map[string]int64
 	mask  uint64 // which of names the map holds now (when it holds only those)
 	block []byte
+	// recent holds, per repeating text field, the strings met last.
+	recent [5]recentWords
 	// combos hands out one map per combination of category counts met
 	// (lots repeat them: mostly small counts of a few categories), so a
 	// lot's counts cost one lookup; beyond maxCombos, cats is refilled.
@@ -176,14 +178,13 @@ func (lr *lotReader) unpack(b []byte, l *Lot) error {
 	l.Count = r.varint()
 	l.Revision = int(r.uvarint())
 	l.Lot = lr.code(r.bytes())
-	// The other text repeats from lot to lot: keep the string of the lot
-	// before when the bytes are the same (l holds it), else share.
-	words := lr.words
-	l.Shift = words.same(l.Shift, r.bytes())
-	l.Inspector = words.same(l.Inspector, r.bytes())
-	l.Note = words.same(l.Note, r.bytes())
-	l.RecordedBy = words.same(l.RecordedBy, r.bytes())
-	l.Reason = words.same(l.Reason, r.bytes())
+	// The other text repeats from lot to lot (a few shifts, inspectors):
+	// the strings met last are compared first, then the shared ones.
+	l.Shift = lr.recent[0].get(lr.words, r.bytes())
+	l.Inspector = lr.recent[1].get(lr.words, r.bytes())
+	l.Note = lr.recent[2].get(lr.words, r.bytes())
+	l.RecordedBy = lr.recent[3].get(lr.words, r.bytes())
+	l.Reason = lr.recent[4].get(lr.words, r.bytes())
 	n := r.uvarint()
 	l.Categories = nil
 	if n > 0 && r.err == nil {
@@ -251,4 +252,23 @@ func (lr *lotReader) categories(r *packedReader, n uint64) error {
 		lr.mask = ^uint64(0) // a name outside the list: clear next time
 	}
 	return r.err
+}
+
+// recentWords is a field's last few distinct strings, tried before a map
+// lookup (comparing a few short strings costs less than hashing).
+type recentWords struct {
+	s    [4]string
+	next int
+}
+
+func (rw *recentWords) get(words *interner, b []byte) string {
+	for _, s := range rw.s {
+		if string(b) == s {
+			return s
+		}
+	}
+	s := words.get(b)
+	rw.s[rw.next] = s
+	rw.next = (rw.next + 1) % len(rw.s)
+	return s
 }
