@@ -35,11 +35,15 @@ type AuditEntry struct {
 
 // AuditCheck is the outcome of VerifyAudit. FirstBroken is the seq of the
 // first entry that does not hold (0 when OK, or when the break is in the
-// chain head: then Why says so).
+// chain head: then Why says so). When the chain holds but a data row does
+// not agree with it, Entity names the row (e.g. `lot 1234 (process "Line
+// 2", lot code H2-17)`), FirstBroken is the entry the row disagrees with
+// (0 for a row no entry mentions) and Why is the whole sentence.
 type AuditCheck struct {
 	OK          bool
 	Entries     int
 	FirstBroken int64
+	Entity      string
 	Why         string
 	Head        string // hash of the last entry
 }
@@ -79,19 +83,30 @@ func toJSON(v any) string {
 // audit appends one entry to the chain inside the writer transaction.
 func (w *wtx) audit(actor, action, entity string, id, to int64, old, new any, reason string) error {
 	db := w.db
-	e := AuditEntry{Seq: db.chain.seq + 1, At: w.now, Actor: actor, Action: action, Entity: entity,
-		EntityID: id, EntityTo: to, Old: toJSON(old), New: toJSON(new), Reason: reason, PrevHash: db.chain.hash}
-	e.Hash = entryHash(&e)
-	if _, err := w.Exec(`INSERT INTO audit (seq, at, actor, action, entity, entity_id, entity_to, old, new, reason, prev_hash, hash)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
-		e.Seq, e.At.UnixNano(), e.Actor, e.Action, e.Entity, e.EntityID, e.EntityTo, e.Old, e.New, e.Reason, e.PrevHash, e.Hash); err != nil {
-		return fmt.Errorf("store: audit: %w", err)
+	e := AuditEntry{At: w.now, Actor: actor, Action: action, Entity: entity,
+		EntityID: id, EntityTo: to, Old: toJSON(old), New: toJSON(new), Reason: reason}
+	head, err := db.appendAudit(w.Tx, db.chain, &e)
+	if err != nil {
+		return err
 	}
-	if _, err := w.Exec("UPDATE audit_head SET seq = ?, hash = ? WHERE id = 1", e.Seq, e.Hash); err != nil {
-		return fmt.Errorf("store: audit head: %w", err)
-	}
-	db.chain = chainHead{e.Seq, e.Hash}
+	db.chain = head
 	return nil
+}
+
+// appendAudit writes e as the entry after head (filling Seq, PrevHash and
+// Hash) and moves the chain head in audit_head; it returns the new head.
+// db may be nil (during a migration).
+func (db *DB) appendAudit(tx *sql.Tx, head chainHead, e *AuditEntry) (chainHead, error) {
+	e.Seq, e.PrevHash = head.seq+1, head.hash
+	e.Hash = entryHash(e)
+	if _, err := db.execIn(tx, qAuditInsert,
+		e.Seq, e.At.UnixNano(), e.Actor, e.Action, e.Entity, e.EntityID, e.EntityTo, e.Old, e.New, e.Reason, e.PrevHash, e.Hash); err != nil {
+		return head, fmt.Errorf("store: audit: %w", err)
+	}
+	if _, err := db.execIn(tx, qHeadUpdate, e.Seq, e.Hash); err != nil {
+		return head, fmt.Errorf("store: audit head: %w", err)
+	}
+	return chainHead{e.Seq, e.Hash}, nil
 }
 
 const auditCols = "seq, at, actor, action, entity, entity_id, entity_to, old, new, reason, prev_hash, hash"
@@ -108,7 +123,12 @@ func scanAudit(rows *sql.Rows) (AuditEntry, error) {
 // a gap, each entry must name the hash of the one before and its own hash
 // must recompute from its content, and the last entry must match the chain
 // head kept in audit_head. So an entry edited, inserted or removed with
-// plain SQL is found — also the last one. Limit: someone who rewrites the
+// plain SQL is found — also the last one. Then every data row the trail
+// covers (lots with their category counts and revisions, processes, limit
+// sets, annotations, users' role and active state, tokens) must hold the
+// values of the latest entry about it, so a row edited, added or removed
+// with plain SQL is found and named too (see dataTrail). It reads the
+// whole database in one snapshot. Limit: someone who rewrites the
 // whole chain and the head with recomputed hashes is not detected from the
 // file alone; compare Head with a value noted elsewhere (it is printed by
 // `lotwatch audit verify`) to anchor it.
@@ -136,6 +156,7 @@ func verifyAudit(ctx context.Context, q *sql.DB) (AuditCheck, error) {
 	defer rows.Close()
 	var c AuditCheck
 	prev := chainHead{}
+	trail := newDataTrail()
 	for rows.Next() {
 		e, err := scanAudit(rows)
 		if err != nil {
@@ -153,6 +174,9 @@ func verifyAudit(ctx context.Context, q *sql.DB) (AuditCheck, error) {
 		if c.FirstBroken != 0 {
 			return c, nil
 		}
+		if err := trail.note(&e); err != nil {
+			return AuditCheck{}, err
+		}
 		prev = chainHead{e.Seq, e.Hash}
 	}
 	if err := rows.Err(); err != nil {
@@ -168,6 +192,19 @@ func verifyAudit(ctx context.Context, q *sql.DB) (AuditCheck, error) {
 			c.FirstBroken = head.seq
 		}
 		c.Why = fmt.Sprintf("the chain ends at entry %d but the chain head records entry %d (an entry was removed or added behind lotwatch's back)", prev.seq, head.seq)
+		return c, nil
+	}
+	rows.Close()
+	rb, err := trail.checkRows(ctx, tx)
+	if err != nil {
+		return AuditCheck{}, err
+	}
+	if rb != nil {
+		c.FirstBroken, c.Entity = rb.seq, rb.entity
+		c.Why = rb.entity + ": " + rb.why
+		if rb.seq > 0 {
+			c.Why += fmt.Sprintf(" (entry %d)", rb.seq)
+		}
 		return c, nil
 	}
 	c.OK, c.Head = true, head.hash

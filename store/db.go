@@ -78,6 +78,65 @@ type DB struct {
 
 	// chain is the audit chain head, owned by the writer goroutine.
 	chain chainHead
+	// hot holds the writer's most frequent statements, prepared once on
+	// its connection (preparing costs about as much as running them).
+	hot map[string]*sql.Stmt
+}
+
+// Statements the writer runs for nearly every job.
+const (
+	qSavepoint   = "SAVEPOINT job"
+	qRelease     = "RELEASE job"
+	qHeadSelect  = "SELECT seq, hash FROM audit_head WHERE id = 1"
+	qHeadUpdate  = "UPDATE audit_head SET seq = ?, hash = ? WHERE id = 1"
+	qAuditInsert = `INSERT INTO audit (seq, at, actor, action, entity, entity_id, entity_to, old, new, reason, prev_hash, hash)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`
+	qBumpVersion = `INSERT INTO lot_versions (process_id, version, rewrites) VALUES (?, 1, ?)
+		ON CONFLICT (process_id) DO UPDATE SET version = version + 1, rewrites = rewrites + excluded.rewrites`
+	qLotInsert = `INSERT INTO lots (id, process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, packed)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 1, 0, ?, ?, ?) ON CONFLICT (process_id, lot) DO NOTHING`
+	qLotNextID   = "SELECT COALESCE(MAX(id), 0) + 1 FROM lots"
+	qLotByCode   = "SELECT " + lotCols + " FROM lots WHERE process_id = ? AND lot = ?"
+	qProcessByID = "SELECT " + processCols + " FROM processes WHERE id = ?"
+)
+
+var hotQueries = []string{qSavepoint, qRelease, qHeadSelect, qHeadUpdate, qAuditInsert, qBumpVersion, qLotInsert, qLotNextID, qLotByCode, qProcessByID}
+
+func (db *DB) prepareHot() error {
+	db.hot = map[string]*sql.Stmt{}
+	for _, q := range hotQueries {
+		st, err := db.w.Prepare(q)
+		if err != nil {
+			return fmt.Errorf("store: prepare %q: %w", q, err)
+		}
+		db.hot[q] = st
+	}
+	return nil
+}
+
+// stmt returns the hot statement q for use in tx, or nil when there is
+// none (then the caller runs q itself).
+func (db *DB) stmt(tx *sql.Tx, q string) *sql.Stmt {
+	if db == nil || db.hot[q] == nil {
+		return nil
+	}
+	return tx.Stmt(db.hot[q])
+}
+
+// execIn runs q in tx, through its prepared statement when it is hot.
+func (db *DB) execIn(tx *sql.Tx, q string, args ...any) (sql.Result, error) {
+	if st := db.stmt(tx, q); st != nil {
+		return st.Exec(args...)
+	}
+	return tx.Exec(q, args...)
+}
+
+// queryRowIn is execIn for a query of one row.
+func (db *DB) queryRowIn(tx *sql.Tx, q string, args ...any) *sql.Row {
+	if st := db.stmt(tx, q); st != nil {
+		return st.QueryRow(args...)
+	}
+	return tx.QueryRow(q, args...)
 }
 
 // Store is what the rest of lotwatch needs of a store. *DB implements it
@@ -148,6 +207,11 @@ func Open(path string) (*DB, error) {
 		db.r.Close()
 		return nil, err
 	}
+	if err := db.prepareHot(); err != nil {
+		db.w.Close()
+		db.r.Close()
+		return nil, err
+	}
 	go db.writer()
 	return db, nil
 }
@@ -177,6 +241,12 @@ func migrate(w *sql.DB, path string) error {
 			tx.Rollback()
 			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
 		}
+		if up := upgrades[m.version]; up != nil {
+			if err := up(tx, m); err != nil {
+				tx.Rollback()
+				return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
+			}
+		}
 		if _, err := tx.Exec("INSERT INTO schema_migrations (version, name, applied) VALUES (?, ?, ?)", m.version, m.name, time.Now().UnixNano()); err != nil {
 			tx.Rollback()
 			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
@@ -204,6 +274,9 @@ func (db *DB) Close() error {
 		db.mu.Unlock()
 		close(db.quit)
 		<-db.done
+		for _, st := range db.hot {
+			st.Close()
+		}
 		err = errors.Join(db.r.Close(), db.w.Close())
 	})
 	return err
@@ -270,10 +343,18 @@ func (db *DB) runBatch(batch []*job) {
 		return
 	}
 	w := &wtx{Tx: tx, db: db, now: time.Now()}
+	// Another program (a command-line import while the server runs) may
+	// have written since: take the chain head as the file has it now,
+	// under this transaction's write lock.
+	if err := db.queryRowIn(tx, qHeadSelect).Scan(&db.chain.seq, &db.chain.hash); err != nil {
+		tx.Rollback()
+		fail(fmt.Errorf("store: audit head: %w", err))
+		return
+	}
 	saved := db.chain
 	for i, j := range batch {
 		before := db.chain
-		if _, err := tx.Exec("SAVEPOINT job"); err != nil {
+		if _, err := db.execIn(tx, qSavepoint); err != nil {
 			errs[i] = err
 			continue
 		}
@@ -287,7 +368,7 @@ func (db *DB) runBatch(batch []*job) {
 				return
 			}
 		}
-		if _, err := tx.Exec("RELEASE job"); err != nil {
+		if _, err := db.execIn(tx, qRelease); err != nil {
 			tx.Rollback()
 			db.chain = saved
 			fail(fmt.Errorf("store: release savepoint: %w", err))

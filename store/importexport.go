@@ -32,6 +32,9 @@ type ImportOptions struct {
 	// Progress, if set, is called every few thousand rows with the rows
 	// and bytes read so far.
 	Progress func(rows int, bytes int64)
+	// Format is "csv" (the default) or "json" (what Export writes with
+	// Format "json"; Process may then be empty to take the file's).
+	Format string
 }
 
 // ImportResult is what an import did.
@@ -72,8 +75,8 @@ func (b *bitset) set(i int64) bool {
 	return was
 }
 
-// Import reads a lot file (see package lotcsv for the columns) into a
-// process in one transaction, streaming: memory does not grow with the
+// Import reads a lot file (see package lotcsv for the columns; or JSON,
+// see importJSON) into a process in one transaction, streaming: memory does not grow with the
 // file. The whole file is validated (lotcsv for the form of each cell,
 // ValidateLot for the rules) and any problem gives a *ValidationError with
 // every problem and its line (up to the cap) and writes nothing. A lot
@@ -87,6 +90,13 @@ func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportO
 	max := opt.MaxProblems
 	if max <= 0 {
 		max = 100
+	}
+	switch opt.Format {
+	case "", "csv":
+	case "json":
+		return db.importJSON(ctx, actor, r, opt, max)
+	default:
+		return ImportResult{}, invalid(Problem{Field: "format", Value: opt.Format, Reason: "is not csv or json"})
 	}
 	var res ImportResult
 	err := db.write(ctx, func(w *wtx) error {

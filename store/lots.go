@@ -1,14 +1,15 @@
 package store
 
 import (
-	"bytes"
 	"context"
 	"crypto/sha256"
 	"database/sql"
+	"database/sql/driver"
 	"encoding/hex"
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
 	"maps"
 	"sort"
 	"strconv"
@@ -325,17 +326,20 @@ func scanLot(s interface{ Scan(...any) error }, l *Lot, loc *time.Location) erro
 
 // lotAdder inserts lots in the writer transaction; import and AddLots use it.
 type lotAdder struct {
-	w      *wtx
-	p      Process
-	actor  string
-	ins    *sql.Stmt
-	get    *sql.Stmt
-	digest []byte
-	h      hashWriter
-	first  int64
-	last   int64
-	n      int
-	buf    []byte
+	w       *wtx
+	p       Process
+	actor   string
+	ins     *sql.Stmt
+	get     *sql.Stmt
+	digest  []byte
+	h       hashWriter
+	first   int64
+	last    int64
+	n       int
+	buf     []byte
+	packed  []byte
+	scratch Lot
+	next    int64 // the id of the next lot added
 }
 
 // appendCanonical appends the canonical line of a lot for the digest of a
@@ -366,20 +370,18 @@ type hashWriter interface {
 }
 
 func (w *wtx) newLotAdder(actor string, p Process) (*lotAdder, error) {
-	ins, err := w.Prepare(`INSERT INTO lots (process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, 1, 0, ?, ?) ON CONFLICT (process_id, lot) DO NOTHING`)
-	if err != nil {
+	ins, get := w.db.stmt(w.Tx, qLotInsert), w.db.stmt(w.Tx, qLotByCode)
+	a := &lotAdder{w: w, p: p, actor: actor, ins: ins, get: get, h: sha256.New()}
+	// Ids are given here, as SQLite would (one above the highest), so that
+	// the packed copy can carry its lot's id.
+	if err := w.db.queryRowIn(w.Tx, qLotNextID).Scan(&a.next); err != nil {
 		return nil, err
 	}
-	get, err := w.Prepare("SELECT " + lotCols + " FROM lots WHERE process_id = ? AND lot = ?")
-	if err != nil {
-		ins.Close()
-		return nil, err
-	}
-	return &lotAdder{w: w, p: p, actor: actor, ins: ins, get: get, h: sha256.New()}, nil
+	return a, nil
 }
 
-func (a *lotAdder) close() { a.ins.Close(); a.get.Close() }
+// close ends the adder (its statements belong to the transaction).
+func (a *lotAdder) close() {}
 
 // add inserts in (already valid). When the lot code is stored, it returns
 // the stored lot and added false.
@@ -387,14 +389,17 @@ func (a *lotAdder) add(in *LotInput) (id int64, added bool, err error) {
 	if in.Time.IsZero() {
 		in.Time = a.w.now
 	}
-	res, err := a.ins.Exec(a.p.ID, in.Lot, in.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, a.w.now.UnixNano(), a.actor)
+	a.scratch = Lot{ID: a.next, LotInput: *in, Revision: 1, Recorded: a.w.now, RecordedBy: a.actor}
+	a.packed = appendPacked(a.packed[:0], &a.scratch, a.p.Categories)
+	res, err := a.ins.Exec(a.next, a.p.ID, in.Lot, in.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, a.w.now.UnixNano(), a.actor, a.packed)
 	if err != nil {
 		return 0, false, fmt.Errorf("store: add lot %q: %w", in.Lot, err)
 	}
 	if n, _ := res.RowsAffected(); n == 0 {
 		return 0, false, nil
 	}
-	id, _ = res.LastInsertId()
+	id = a.next
+	a.next++
 	if a.n == 0 {
 		a.first = id
 	}
@@ -419,6 +424,9 @@ func (a *lotAdder) finish(how string, lots []LotInput, extra map[string]any) err
 	if a.n == 0 {
 		return nil
 	}
+	if err := a.w.bumpVersion(a.p.ID, false); err != nil {
+		return err
+	}
 	rec := map[string]any{"process_id": a.p.ID, "first_id": a.first, "last_id": a.last, "count": a.n,
 		"sha256": hex.EncodeToString(a.h.Sum(nil))}
 	for k, v := range extra {
@@ -435,7 +443,10 @@ func (a *lotAdder) finish(how string, lots []LotInput, extra map[string]any) err
 }
 
 func (w *wtx) activeProcess(id int64) (Process, error) {
-	p, err := processByID(w.Tx, id)
+	p, err := scanProcess(w.db.queryRowIn(w.Tx, qProcessByID, id))
+	if errors.Is(err, sql.ErrNoRows) {
+		return Process{}, fmt.Errorf("process %d: %w", id, ErrNotFound)
+	}
 	if err != nil {
 		return Process{}, err
 	}
@@ -532,17 +543,18 @@ func (db *DB) Lots(ctx context.Context, processID int64, from, to time.Time) ([]
 
 // EachLot calls fn with each lot that Lots would return, streaming, so
 // memory does not grow with the number of lots. For speed the Lot passed
-// to fn reuses its Categories map between calls: fn must copy the map
-// (maps.Clone) to keep it. An error from fn stops the walk and is returned.
+// to fn shares its Categories map with other lots of the walk: fn must not
+// change it, and must copy it (maps.Clone) to keep it. An error from fn
+// stops the walk and is returned.
 //
-// The text fields travel from SQLite as one NUL-joined column (fewer
-// column fetches per row); lotwatch never stores NUL in them (checkText).
+// The lots are read from the covering index lots_read, whose packed
+// column carries every value of a lot (see appendPacked): one index scan,
+// one column per lot, no lookup in the table.
 func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, fn func(Lot) error) error {
 	p, err := db.Process(ctx, processID)
 	if err != nil {
 		return err
 	}
-	loc := p.Location()
 	lo, hi := int64(-1<<63), int64(1<<63-1)
 	if !from.IsZero() {
 		lo = from.UnixNano()
@@ -550,56 +562,85 @@ func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, 
 	if !to.IsZero() {
 		hi = to.UnixNano() - 1
 	}
-	rows, err := db.r.QueryContext(ctx, `SELECT id, time, inspected, count, revision, recorded,
-		lot || char(0) || shift || char(0) || inspector || char(0) || note || char(0) || recorded_by || char(0) || reason || char(0) || categories
-		FROM lots WHERE process_id = ? AND time BETWEEN ? AND ? AND voided = 0 ORDER BY time, id`, processID, lo, hi)
+	return db.walkPacked(ctx, p, `SELECT packed FROM lots INDEXED BY lots_read
+		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ? ORDER BY time, id`, fn, processID, lo, hi)
+}
+
+// LotsAddedAfter returns the lots of a process with an id above afterID
+// that are not voided, in time order (then id): with LotsVersion, what a
+// reader holding the lots up to afterID lacks when only lots were added.
+func (db *DB) LotsAddedAfter(ctx context.Context, processID, afterID int64) ([]Lot, error) {
+	p, err := db.Process(ctx, processID)
+	if err != nil {
+		return nil, err
+	}
+	var out []Lot
+	err = db.walkPacked(ctx, p, `SELECT packed FROM lots
+		WHERE id > ? AND process_id = ? AND voided = 0 ORDER BY time, id`, func(l Lot) error {
+		l.Categories = maps.Clone(l.Categories)
+		out = append(out, l)
+		return nil
+	}, afterID, processID)
+	return out, err
+}
+
+// readMmap is the memory map a walk of lots asks of its read connection
+// (SQLite maps at most this much of the file; 1 GiB holds the lots_read
+// index of some ten million lots).
+const readMmap = "PRAGMA mmap_size = 1073741824"
+
+// walkPacked runs query (selecting packed) and calls fn with each
+// lot, as EachLot describes.
+func (db *DB) walkPacked(ctx context.Context, p Process, query string, fn func(Lot) error, args ...any) error {
+	loc := p.Location()
+	conn, err := db.r.Conn(ctx)
 	if err != nil {
 		return err
 	}
-	defer rows.Close()
-	var l Lot
-	var t, rec int64
-	var packed sql.RawBytes
-	l.ProcessID = processID
-	cats := map[string]int64{}
-	words := newInterner()
-	for rows.Next() {
-		if err := rows.Scan(&l.ID, &t, &l.Inspected, &l.Count, &l.Revision, &rec, &packed); err != nil {
+	defer conn.Close()
+	// The rows are read from the driver directly: database/sql's locking
+	// and conversions per row cost as much as SQLite's own step.
+	return conn.Raw(func(dc any) error {
+		q, ok := dc.(driver.QueryerContext)
+		if !ok {
+			return errors.New("store: the SQLite driver cannot query")
+		}
+		// Map the file for the walk: index pages are then read in place
+		// instead of being copied through the page cache by read calls.
+		if ex, ok := dc.(driver.ExecerContext); ok {
+			ex.ExecContext(ctx, readMmap, nil)
+		}
+		named := make([]driver.NamedValue, len(args))
+		for i, a := range args {
+			named[i] = driver.NamedValue{Ordinal: i + 1, Value: a}
+		}
+		rows, err := q.QueryContext(ctx, query, named)
+		if err != nil {
 			return err
 		}
-		var f [7][]byte
-		rest := packed
-		for i := 0; i < 6; i++ {
-			k := bytes.IndexByte(rest, 0)
-			if k < 0 {
-				return fmt.Errorf("store: lot %d: unexpected NUL in its text", l.ID)
+		defer rows.Close()
+		var l Lot
+		l.ProcessID = p.ID
+		lr := newLotReader(p.Categories, loc)
+		dest := make([]driver.Value, 1)
+		for {
+			if err := rows.Next(dest); err == io.EOF {
+				return nil
+			} else if err != nil {
+				return err
 			}
-			f[i], rest = rest[:k], rest[k+1:]
-		}
-		f[6] = rest
-		if bytes.IndexByte(rest, 0) >= 0 {
-			return fmt.Errorf("store: lot %d: unexpected NUL in its text", l.ID)
-		}
-		l.Lot = string(f[0])
-		l.Shift = words.get(f[1])
-		l.Inspector = words.get(f[2])
-		l.Note = words.get(f[3])
-		l.RecordedBy = words.get(f[4])
-		l.Reason = words.get(f[5])
-		l.Time = time.Unix(0, t).In(loc)
-		l.Recorded = time.Unix(0, rec).In(loc)
-		l.Categories = nil
-		if len(f[6]) > 0 {
-			if err := decodeCategoriesInto(cats, f[6], p.Categories); err != nil {
-				return fmt.Errorf("store: lot %d: categories: %w", l.ID, err)
+			packed, ok := dest[0].([]byte)
+			if !ok {
+				return fmt.Errorf("store: a lot of process %d after lot %d has no packed copy", p.ID, l.ID)
 			}
-			l.Categories = cats
+			if err := lr.unpack(packed, &l); err != nil {
+				return fmt.Errorf("store: the lot after lot %d: %w", l.ID, err)
+			}
+			if err := fn(l); err != nil {
+				return err
+			}
 		}
-		if err := fn(l); err != nil {
-			return err
-		}
-	}
-	return rows.Err()
+	})
 }
 
 // interner shares the strings of short, repeating fields (shift,
@@ -694,18 +735,22 @@ func (db *DB) CorrectLot(ctx context.Context, actor, reason string, id int64, in
 		if err := w.keepRevision(id); err != nil {
 			return err
 		}
+		loc := p.Location()
+		out = Lot{ID: id, ProcessID: p.ID, LotInput: in, Revision: old.Revision + 1, Recorded: w.now.In(loc), RecordedBy: actor, Reason: reason}
+		out.Time = in.Time.In(loc)
 		_, err = w.Exec(`UPDATE lots SET lot = ?, time = ?, shift = ?, inspected = ?, count = ?, categories = ?, inspector = ?, note = ?,
-			revision = revision + 1, recorded = ?, recorded_by = ?, reason = ? WHERE id = ?`,
-			in.Lot, in.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, w.now.UnixNano(), actor, reason, id)
+			revision = revision + 1, recorded = ?, recorded_by = ?, reason = ?, packed = ? WHERE id = ?`,
+			in.Lot, in.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, w.now.UnixNano(), actor, reason,
+			appendPacked(nil, &out, p.Categories), id)
 		if isUnique(err) {
 			return &ConflictError{Conflicts: []Conflict{{Lot: in.Lot, Fields: []string{"lot"}}}}
 		}
 		if err != nil {
 			return err
 		}
-		loc := p.Location()
-		out = Lot{ID: id, ProcessID: p.ID, LotInput: in, Revision: old.Revision + 1, Recorded: w.now.In(loc), RecordedBy: actor, Reason: reason}
-		out.Time = in.Time.In(loc)
+		if err := w.bumpVersion(p.ID, true); err != nil {
+			return err
+		}
 		return w.audit(actor, "correct", "lot", id, id, contentOf(old.LotInput, false), contentOf(in, false), reason)
 	})
 	if err != nil {
@@ -731,7 +776,16 @@ func (db *DB) VoidLot(ctx context.Context, actor, reason string, id int64) error
 		if err := w.keepRevision(id); err != nil {
 			return err
 		}
-		if _, err := w.Exec("UPDATE lots SET voided = 1, revision = revision + 1, recorded = ?, recorded_by = ?, reason = ? WHERE id = ?", w.now.UnixNano(), actor, reason, id); err != nil {
+		p, err := processByID(w.Tx, old.ProcessID)
+		if err != nil {
+			return err
+		}
+		nw := Lot{ID: id, LotInput: old.LotInput, Revision: old.Revision + 1, Voided: true, Recorded: w.now, RecordedBy: actor, Reason: reason}
+		if _, err := w.Exec("UPDATE lots SET voided = 1, revision = revision + 1, recorded = ?, recorded_by = ?, reason = ?, packed = ? WHERE id = ?",
+			w.now.UnixNano(), actor, reason, appendPacked(nil, &nw, p.Categories), id); err != nil {
+			return err
+		}
+		if err := w.bumpVersion(p.ID, true); err != nil {
 			return err
 		}
 		return w.audit(actor, "void", "lot", id, id, contentOf(old.LotInput, false), contentOf(old.LotInput, true), reason)

@@ -257,6 +257,9 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 		if err != nil {
 			return err
 		}
+		if err := w.bumpVersion(p.ID, true); err != nil {
+			return err
+		}
 		return w.audit(actor, "update", "process", p.ID, p.ID, auditProcess(old), auditProcess(p), reason)
 	})
 	if err != nil {

@@ -209,3 +209,44 @@ func parseProcessRules(s string) (spc.RuleSet, error) {
 	}
 	return spc.ParseRules(s)
 }
+
+// mergeLots returns the lots of have and added (each in time order, then
+// id) in that order, and the highest id of added. have is not changed: it
+// may be shared with charts still in use. When grow is set and added
+// comes after have, the result may use the spare capacity of have's
+// array (only one caller may do so for a given have); otherwise it is a
+// new slice.
+func mergeLots(have, added []store.Lot, grow bool) ([]store.Lot, int64) {
+	var hi int64
+	for _, l := range added {
+		hi = max(hi, l.ID)
+	}
+	if len(added) == 0 {
+		return have, hi
+	}
+	before := func(a, b *store.Lot) bool {
+		if !a.Time.Equal(b.Time) {
+			return a.Time.Before(b.Time)
+		}
+		return a.ID < b.ID
+	}
+	if len(have) == 0 || before(&have[len(have)-1], &added[0]) {
+		if !grow {
+			have = have[:len(have):len(have)]
+		}
+		return append(have, added...), hi
+	}
+	out := make([]store.Lot, 0, len(have)+len(added))
+	i, j := 0, 0
+	for i < len(have) && j < len(added) {
+		if before(&added[j], &have[i]) {
+			out = append(out, added[j])
+			j++
+		} else {
+			out = append(out, have[i])
+			i++
+		}
+	}
+	out = append(out, have[i:]...)
+	return append(out, added[j:]...), hi
+}

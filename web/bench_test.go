@@ -82,11 +82,19 @@ func BenchmarkChartPage(b *testing.B) {
 }
 
 // BenchmarkAPIPostLots: 32 concurrent inspection stations post single
-// lots over loopback to a real server; every acknowledged lot must be
-// stored and no request may fail. Beside it, the store's own durable
-// single-lot insert rate (AddLots with one lot, serially) is measured in
-// the same run; "ratio" is the API throughput over that rate.
+// lots over loopback to a real server, to a process holding 200 lots and
+// to one holding 10,000 (each verdict is judged on the whole record);
+// every acknowledged lot must be stored and no request may fail. Beside
+// it, the store's own durable single-lot insert rate (AddLots with one
+// lot, serially) is measured in the same run; "ratio" is the API
+// throughput over that rate.
 func BenchmarkAPIPostLots(b *testing.B) {
+	for _, size := range []int{200, benchLots} {
+		b.Run(fmt.Sprintf("lots=%d", size), func(b *testing.B) { benchAPIPostLots(b, size) })
+	}
+}
+
+func benchAPIPostLots(b *testing.B, size int) {
 	const (
 		clients   = 32
 		perClient = 25
@@ -105,7 +113,7 @@ func BenchmarkAPIPostLots(b *testing.B) {
 		}
 		storeRate := serial / time.Since(t0).Seconds()
 
-		e := benchEnv(b, 200)
+		e := benchEnv(b, size)
 		ts := httptest.NewServer(e.h)
 		client := ts.Client()
 		client.Transport.(*http.Transport).MaxIdleConnsPerHost = clients

@@ -20,15 +20,19 @@ const auditHelp = `Usage: lotwatch audit verify --db FILE
 Checks the audit trail, the append-only record of every change: each entry
 carries the SHA-256 of the one before and of its own content, and the last
 one is noted separately. An entry edited, inserted or removed behind
-lotwatch's back (also the last one) breaks the chain. The hash of the last
-entry is printed: note it elsewhere (e.g. in the weekly review) to tell
-later whether the whole trail was rewritten.
+lotwatch's back (also the last one) breaks the chain. Then every stored
+row the trail covers — lots with their category counts and revisions,
+processes, limit sets, annotations, users' role and active state, tokens —
+is compared with the latest entry about it, so that a row edited, added or
+removed with plain SQL is named. The hash of the last entry is printed:
+note it elsewhere (e.g. in the weekly review) to tell later whether the
+whole trail was rewritten.
 
 Options:
   --db FILE   the lotwatch database file
 
-Exit status: 0 when the chain holds, 1 when it is broken (the first broken
-entry is named), 2 for bad input.
+Exit status: 0 when the chain and the rows hold, 1 when not (the first
+broken entry or row is named), 2 for bad input.
 `
 
 func runAudit(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
@@ -67,6 +71,10 @@ func runAudit(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	chk, err := db.VerifyAudit(context.Background())
 	if err != nil {
 		fmt.Fprintf(stderr, "lotwatch audit verify: %v\n", err)
+		return exitFail
+	}
+	if !chk.OK && chk.Entity != "" {
+		fmt.Fprintf(stdout, "audit trail BROKEN: %s\n", chk.Why)
 		return exitFail
 	}
 	if !chk.OK {

@@ -5,6 +5,8 @@ import (
 	"fmt"
 	"io"
 	"os"
+	"path/filepath"
+	"strings"
 	"time"
 
 	"golang.org/x/term"
@@ -15,12 +17,13 @@ import (
 func init() {
 	register(command{
 		name:    "import",
-		summary: "read a CSV file of lots into a process (all or nothing)",
+		summary: "read a CSV or JSON file of lots into a process (all or nothing)",
 		run:     runImport,
 	})
 }
 
 const importHelp = `Usage: lotwatch import --db FILE --process NAME [options] FILE.csv
+       lotwatch import --db FILE [--process NAME] [options] FILE.json
 
 Reads a CSV file of lots into a process. The whole file is checked first:
 if any row is wrong, every problem is listed with its line and nothing is
@@ -41,16 +44,26 @@ The file may be UTF-8 with or without a byte-order mark, with CRLF line
 ends and quoted fields. A leading single quote that lotwatch's export put
 before text starting with = + - @ tab or CR is removed again.
 
+A JSON file is what "lotwatch export --format json" writes: an object
+{"process": {"name", "chart", "categories", "time_zone"}, "lots": [...]},
+each lot with lot, time, shift, inspected, defective or defects, categories
+(an object of counts), inspector and note; a field left out is empty (a lot
+without time gets the import time). Without --process the lots go to the
+process the file names. Problems name the line of the file.
+
 Options:
   --db FILE        the lotwatch database file
   --process NAME   the process the lots belong to
   --create         make the process if it does not exist: a p chart for a
                    defective column, a u chart for defects, its defect
                    categories from the extra columns
-  --tz ZONE        time zone of a process made with --create (default UTC)
+  --tz ZONE        time zone of a process made with --create (default UTC,
+                   or for JSON the file's)
+  --format F       csv or json (default: json for a FILE ending in .json,
+                   else csv)
   --as NAME        the name recorded in the audit trail (default: your user
                    name on this computer)
-FILE.csv is the file to read; - reads standard input.
+FILE is the file to read; - reads standard input.
 
 Exit status: 0 when imported (a summary of lots added, unchanged and in
 conflict is printed), 2 for bad input (each problem on standard error as
@@ -63,16 +76,33 @@ func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	dbPath := fs.String("db", "", "")
 	process := fs.String("process", "", "")
 	create := fs.Bool("create", false, "")
-	tz := fs.String("tz", "UTC", "")
+	tz := fs.String("tz", "", "")
 	as := fs.String("as", "", "")
+	format := fs.String("format", "", "")
 	pos, code, done := cliParse(fs, args, importHelp, stdout, stderr)
 	if done {
 		return code
 	}
-	probs := cliRequire("import", "db", *dbPath, "process", *process)
+	if *format == "" {
+		*format = "csv"
+		if len(pos) > 0 && strings.EqualFold(filepath.Ext(pos[0]), ".json") {
+			*format = "json"
+		}
+	}
+	probs := cliRequire("import", "db", *dbPath)
+	switch *format {
+	case "csv":
+		probs = append(probs, cliRequire("import", "process", *process)...)
+		if *tz == "" {
+			*tz = "UTC"
+		}
+	case "json":
+	default:
+		probs = append(probs, fmt.Sprintf("--format %q: want csv or json", *format))
+	}
 	switch len(pos) {
 	case 0:
-		probs = append(probs, "name the CSV file to read (or - for standard input)")
+		probs = append(probs, "name the file to read (or - for standard input)")
 	case 1:
 	default:
 		probs = append(probs, fmt.Sprintf("one file at a time: unexpected argument %q", pos[1]))
@@ -98,7 +128,7 @@ func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		return code
 	}
 	defer db.Close()
-	opt := store.ImportOptions{Process: *process, Create: *create, TimeZone: *tz}
+	opt := store.ImportOptions{Process: *process, Create: *create, TimeZone: *tz, Format: *format}
 	var progressShown bool
 	if f, ok := stderr.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
 		last := time.Now()

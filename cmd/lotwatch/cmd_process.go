@@ -21,13 +21,14 @@ import (
 func init() {
 	register(command{
 		name:    "process",
-		summary: "add or list the processes (one control chart each)",
+		summary: "add, change or list the processes (one control chart each)",
 		run:     runProcess,
 	})
 }
 
 const processHelp = `Usage:
   lotwatch process add --db FILE --name NAME [options]
+  lotwatch process update --db FILE --name NAME [changes] --reason TEXT
   lotwatch process list --db FILE [--format text|json]
 
 A process is one inspection point whose lots make one control chart.
@@ -53,6 +54,19 @@ Options of "add":
                      none, or a list such as we1,nelson3
   --as NAME          the name recorded in the audit trail (default: your
                      user name on this computer)
+
+Options of "update" (only the options given change; the change and its
+reason go to the audit trail):
+  --db FILE, --name NAME   the database and the process to change
+  --description TEXT, --limits METHOD, --sigma K, --rules SET, --tz ZONE
+                     as for "add"
+  --categories LIST  the whole new list of defect categories: categories
+                     may be added, but none removed or renamed (the lots
+                     keep their counts under them)
+  --retire           the process takes no more lots (its record stays)
+  --activate         a retired process takes lots again
+  --reason TEXT      why the process changes (required)
+  --as NAME          the name recorded in the audit trail
 
 Options of "list":
   --db FILE          the lotwatch database file
@@ -187,7 +201,7 @@ func cliOpen(stderr io.Writer, cmd, path string) (*store.DB, int, bool) {
 
 func runProcess(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	if len(args) == 0 {
-		return cliProblems(stderr, "process", `say "add" or "list" (run "lotwatch process -h" for the options)`)
+		return cliProblems(stderr, "process", `say "add", "update" or "list" (run "lotwatch process -h" for the options)`)
 	}
 	switch args[0] {
 	case "-h", "--help", "help":
@@ -195,10 +209,12 @@ func runProcess(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		return exitOK
 	case "add":
 		return runProcessAdd(args[1:], stdout, stderr)
+	case "update":
+		return runProcessUpdate(args[1:], stdout, stderr)
 	case "list":
 		return runProcessList(args[1:], stdout, stderr)
 	}
-	return cliProblems(stderr, "process", fmt.Sprintf("unknown action %q: say add or list", args[0]))
+	return cliProblems(stderr, "process", fmt.Sprintf("unknown action %q: say add, update or list", args[0]))
 }
 
 func runProcessAdd(args []string, stdout, stderr io.Writer) int {
@@ -259,6 +275,124 @@ func runProcessAdd(args []string, stdout, stderr io.Writer) int {
 	}
 	fmt.Fprintf(stdout, "added process %q (id %d): %s chart, limits %s k=%g, rules %s, categories [%s], time zone %s\n",
 		p.Name, p.ID, p.Chart, p.Method, p.K, p.Rules, strings.Join(p.Categories, ", "), p.TimeZone)
+	return exitOK
+}
+
+func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
+	fs := cliFlags("process update")
+	dbPath := fs.String("db", "", "")
+	name := fs.String("name", "", "")
+	desc := fs.String("description", "", "")
+	limits := fs.String("limits", "", "")
+	sigma := fs.String("sigma", "", "")
+	rules := fs.String("rules", "", "")
+	cats := fs.String("categories", "", "")
+	tz := fs.String("tz", "", "")
+	retire := fs.Bool("retire", false, "")
+	activate := fs.Bool("activate", false, "")
+	reason := fs.String("reason", "", "")
+	as := fs.String("as", "", "")
+	pos, code, done := cliParse(fs, args, processHelp, stdout, stderr)
+	if done {
+		return code
+	}
+	set := map[string]bool{}
+	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
+	probs := cliRequire("process update", "db", *dbPath, "name", *name)
+	if strings.TrimSpace(*reason) == "" {
+		probs = append(probs, "--reason is required: say why the process changes")
+	}
+	if len(pos) > 0 {
+		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
+	}
+	if *retire && *activate {
+		probs = append(probs, "--retire and --activate exclude each other")
+	}
+	changes := 0
+	for _, f := range []string{"description", "limits", "sigma", "rules", "categories", "tz", "retire", "activate"} {
+		if set[f] {
+			changes++
+		}
+	}
+	if changes == 0 {
+		probs = append(probs, "nothing to change: give --description, --limits, --sigma, --rules, --categories, --tz, --retire or --activate")
+	}
+	var method spc.Method
+	if set["limits"] {
+		m, err := spc.ParseMethod(*limits)
+		if err != nil {
+			probs = append(probs, fmt.Sprintf("--limits %q: want sigma, exact or laney", *limits))
+		}
+		method = m
+	}
+	var k float64
+	if set["sigma"] {
+		v, err := strconv.ParseFloat(*sigma, 64)
+		if err != nil || !(v > 0 && v <= 10) {
+			probs = append(probs, fmt.Sprintf("--sigma %q: want a number greater than 0 and at most 10", *sigma))
+		}
+		k = v
+	}
+	if set["tz"] {
+		if _, err := time.LoadLocation(*tz); err != nil || *tz == "" || *tz == "Local" {
+			probs = append(probs, fmt.Sprintf("--tz %q: want an IANA time zone name such as Europe/Berlin or UTC", *tz))
+		}
+	}
+	if len(probs) > 0 {
+		return cliProblems(stderr, "process update", probs...)
+	}
+	if _, err := os.Stat(*dbPath); err != nil {
+		return cliProblems(stderr, "process update", fmt.Sprintf("--db %s: no such database file", *dbPath))
+	}
+	db, code, ok := cliOpen(stderr, "process update", *dbPath)
+	if !ok {
+		return code
+	}
+	defer db.Close()
+	ctx := context.Background()
+	p, err := db.ProcessByName(ctx, *name)
+	if err != nil {
+		return cliStoreError(stderr, "process update", "", err)
+	}
+	if set["description"] {
+		p.Description = *desc
+	}
+	if set["limits"] {
+		p.Method = method
+	}
+	if set["sigma"] {
+		p.K = k
+	}
+	if set["rules"] {
+		p.Rules = *rules
+	}
+	if set["tz"] {
+		p.TimeZone = *tz
+	}
+	if set["categories"] {
+		p.Categories = []string{}
+		if *cats != "" {
+			for _, c := range strings.Split(*cats, ",") {
+				p.Categories = append(p.Categories, strings.TrimSpace(c))
+			}
+		}
+	}
+	if *retire {
+		p.Active = false
+	}
+	if *activate {
+		p.Active = true
+	}
+	p, err = db.UpdateProcess(ctx, cliActor(*as), *reason, p)
+	if err != nil {
+		return cliStoreError(stderr, "process update", "", err)
+	}
+	state := "active"
+	if !p.Active {
+		state = "retired"
+	}
+	fmt.Fprintf(stdout, "updated process %q (id %d): %s chart, limits %s k=%g, rules %s, categories [%s], time zone %s, %s\n",
+		p.Name, p.ID, p.Chart, p.Method, p.K, p.Rules, strings.Join(p.Categories, ", "), p.TimeZone, state)
 	return exitOK
 }
 

@@ -191,3 +191,160 @@ func TestCLIUsersTokensAuditBackup(t *testing.T) {
 		t.Errorf("restore from a missing file: %d %q", code, out)
 	}
 }
+
+// `lotwatch audit verify` names a lot edited with plain SQL and fails.
+func TestCLIAuditVerifyNamesEditedLot(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "a.db")
+	csv := writeFile(t, dir, "lots.csv", "lot,time,inspected,defective\nH2-1,2025-04-01T07:00:00Z,50,1\nH2-2,2025-04-01T08:00:00Z,50,2\n")
+	if code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "Line 2", "--create", "--as", "kim", csv); code != exitOK {
+		t.Fatalf("import: %q", errs)
+	}
+	if code, out, _ := runCLI(t, "", "audit", "verify", "--db", db); code != exitOK {
+		t.Fatalf("verify before: %d %q", code, out)
+	}
+	raw, err := sql.Open("sqlite3", "file:"+db)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := raw.Exec("UPDATE lots SET count = 0 WHERE lot = 'H2-2'"); err != nil {
+		t.Fatal(err)
+	}
+	raw.Close()
+	code, out, _ := runCLI(t, "", "audit", "verify", "--db", db)
+	if code != exitFail || !strings.Contains(out, `lot 2 (process "Line 2", lot code H2-2): stored values differ from the audit trail`) {
+		t.Errorf("verify after the edit: %d %q", code, out)
+	}
+}
+
+// `lotwatch process update` changes only what it is given, records why,
+// refuses a removed category and needs a reason; --retire stops new lots.
+func TestCLIProcessUpdate(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "a.db")
+	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "Line 2", "--categories", "dent,scratch", "--as", "ana"); code != exitOK {
+		t.Fatalf("add: %q", errs)
+	}
+	code, out, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "Line 2", "--sigma", "2.5", "--rules", "nelson",
+		"--categories", "dent,scratch,burr", "--description", "press line", "--reason", "agreed in review", "--as", "ana")
+	if code != exitOK || !strings.Contains(out, "k=2.5, rules nelson, categories [dent, scratch, burr], time zone UTC, active") {
+		t.Fatalf("update: %d %q %q", code, out, errs)
+	}
+	code, out, _ = runCLI(t, "", "process", "list", "--db", db, "--format", "json")
+	var ps []map[string]any
+	if code != exitOK || json.Unmarshal([]byte(out), &ps) != nil || len(ps) != 1 || ps[0]["description"] != "press line" || ps[0]["limits"] != "sigma" || ps[0]["sigma"] != 2.5 {
+		t.Fatalf("list after update: %q", out)
+	}
+	bad := []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--sigma", "2"}, "--reason is required"},
+		{[]string{"--reason", "x"}, "nothing to change"},
+		{[]string{"--categories", "dent", "--reason", "x"}, "cannot be removed or renamed"},
+		{[]string{"--sigma", "11", "--reason", "x"}, `--sigma "11"`},
+		{[]string{"--tz", "Mars/Base", "--reason", "x"}, `--tz "Mars/Base"`},
+		{[]string{"--retire", "--activate", "--reason", "x"}, "exclude each other"},
+	}
+	for _, b := range bad {
+		args := append([]string{"process", "update", "--db", db, "--name", "Line 2"}, b.args...)
+		if code, out, errs := runCLI(t, "", args...); code != exitUsage || out != "" || !strings.Contains(errs, b.want) {
+			t.Errorf("%v: %d %q %q, want %q", b.args, code, out, errs, b.want)
+		}
+	}
+	if code, _, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "Nope", "--sigma", "2", "--reason", "x"); code != exitUsage || !strings.Contains(errs, "not found") {
+		t.Errorf("unknown process: %d %q", code, errs)
+	}
+	if code, out, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "Line 2", "--retire", "--reason", "line closed"); code != exitOK || !strings.Contains(out, "retired") {
+		t.Fatalf("retire: %d %q %q", code, out, errs)
+	}
+	csv := writeFile(t, dir, "lots.csv", "lot,inspected,defective\nA1,50,1\n")
+	if code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "Line 2", csv); code != exitUsage || !strings.Contains(errs, "retired") {
+		t.Errorf("import into a retired process: %d %q", code, errs)
+	}
+	if code, _, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "Line 2", "--activate", "--reason", "reopened"); code != exitOK {
+		t.Fatalf("activate: %q", errs)
+	}
+	if code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "Line 2", csv); code != exitOK {
+		t.Errorf("import after activate: %q", errs)
+	}
+	if code, out, _ := runCLI(t, "", "audit", "verify", "--db", db); code != exitOK || !strings.Contains(out, "5 entries") {
+		t.Errorf("verify: %d %q", code, out)
+	}
+}
+
+// `lotwatch token list --format json` lists the tokens' records, never a
+// token itself.
+func TestCLITokenListJSON(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "a.db")
+	if code, _, errs := runCLI(t, "correct horse battery\n", "user", "add", "--db", db, "--name", "ana", "--role", "inspector"); code != exitOK {
+		t.Fatalf("user add: %q", errs)
+	}
+	_, tok1, _ := runCLI(t, "", "token", "create", "--db", db, "--user", "ana", "--label", "line 3")
+	_, tok2, _ := runCLI(t, "", "token", "create", "--db", db, "--user", "ana", "--label", "line 4")
+	runCLI(t, "", "token", "revoke", "--db", db, "--id", "1")
+	code, out, errs := runCLI(t, "", "token", "list", "--db", db, "--format", "json")
+	var ts []struct {
+		ID      int64  `json:"id"`
+		User    string `json:"user"`
+		Label   string `json:"label"`
+		Created string `json:"created"`
+		Revoked bool   `json:"revoked"`
+	}
+	if code != exitOK || json.Unmarshal([]byte(out), &ts) != nil {
+		t.Fatalf("token list: %d %q %q", code, out, errs)
+	}
+	if len(ts) != 2 || ts[0].ID != 1 || !ts[0].Revoked || ts[1].Revoked || ts[1].Label != "line 4" || ts[0].User != "ana" || ts[0].Created == "" {
+		t.Errorf("tokens %+v", ts)
+	}
+	for _, tok := range []string{tok1, tok2} {
+		if tok == "" || strings.Contains(out, strings.TrimSpace(tok)) {
+			t.Errorf("the list shows a token: %q", out)
+		}
+	}
+	if code, _, errs := runCLI(t, "", "token", "list", "--db", db, "--format", "xml"); code != exitUsage || !strings.Contains(errs, `--format "xml"`) {
+		t.Errorf("bad format: %d %q", code, errs)
+	}
+}
+
+// `lotwatch import` reads the JSON that `lotwatch export --format json`
+// writes (by the .json name or --format json), all or nothing and
+// idempotent, with problems named by file and line.
+func TestCLIImportJSON(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "a.db")
+	csv := writeFile(t, dir, "lots.csv", "lot,time,shift,inspected,defects,run,sag,note\n"+
+		"P1,2025-04-01 07:00,early,12,3,2,1,=cmd\nP2,2025-04-01 15:00,late,10,0,,,\"a, b\"\n")
+	if code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "paint", "--create", "--tz", "Europe/Berlin", csv); code != exitOK {
+		t.Fatalf("import csv: %q", errs)
+	}
+	code, js, errs := runCLI(t, "", "export", "--db", db, "--process", "paint", "--format", "json")
+	if code != exitOK {
+		t.Fatalf("export: %q", errs)
+	}
+	file := writeFile(t, dir, "paint.json", js)
+	db2 := filepath.Join(dir, "b.db")
+	code, out, errs := runCLI(t, "", "import", "--db", db2, "--create", "--as", "kim", file)
+	if code != exitOK || !strings.Contains(out, `created process "paint": u chart, categories [run sag], time zone Europe/Berlin`) || !strings.Contains(out, "2 rows, 2 added, 0 unchanged, 0 conflicts") {
+		t.Fatalf("import json: %d %q %q", code, out, errs)
+	}
+	if code, again, _ := runCLI(t, "", "export", "--db", db2, "--process", "paint", "--format", "json"); code != exitOK || again != js {
+		t.Errorf("export of the imported lots differs:\n%s\n%s", again, js)
+	}
+	code, out, errs = runCLI(t, js, "import", "--db", db2, "--process", "paint", "--format", "json", "-")
+	if code != exitOK || !strings.Contains(out, "2 rows, 0 added, 2 unchanged, 0 conflicts") {
+		t.Errorf("import json again from stdin: %d %q %q", code, out, errs)
+	}
+	bad := writeFile(t, dir, "bad.json", strings.Replace(js, `"inspected":10`, `"inspected":0`, 1))
+	code, out, errs = runCLI(t, "", "import", "--db", db2, bad)
+	if code != exitUsage || out != "" || !strings.Contains(errs, "bad.json:3: column inspected") {
+		t.Errorf("bad json: %d %q %q", code, out, errs)
+	}
+	if code, _, errs := runCLI(t, "", "import", "--db", db2, "--format", "yaml", file); code != exitUsage || !strings.Contains(errs, `--format "yaml"`) {
+		t.Errorf("format yaml: %d %q", code, errs)
+	}
+	if code, _, errs := runCLI(t, "", "import", "--db", db2, csv); code != exitUsage || !strings.Contains(errs, "--process is required") {
+		t.Errorf("csv without --process: %d %q", code, errs)
+	}
+}

@@ -58,7 +58,7 @@ Exit status: 0 when done, 2 for bad input (each problem on standard error),
 
 const tokenHelp = `Usage:
   lotwatch token create --db FILE --user NAME [--label TEXT] [--as NAME]
-  lotwatch token list --db FILE
+  lotwatch token list --db FILE [--format text|json]
   lotwatch token revoke --db FILE --id N [--as NAME]
 
 An API token lets a program (e.g. a line terminal) use the web API as a
@@ -70,6 +70,7 @@ Options:
   --user NAME   the user the token acts as
   --label TEXT  what the token is for, e.g. "line 3 terminal"
   --id N        the token number shown by list
+  --format F    text (the default) or json, for list
   --as NAME     the name recorded in the audit trail (default: your user
                 name on this computer)
 
@@ -237,11 +238,17 @@ func runToken(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	label := fs.String("label", "", "")
 	id := fs.String("id", "", "")
 	as := fs.String("as", "", "")
+	format := fs.String("format", "text", "")
 	pos, code, done := cliParse(fs, args[1:], tokenHelp, stdout, stderr)
 	if done {
 		return code
 	}
 	probs := cliRequire(cmd, "db", *dbPath)
+	if *format != "text" && *format != "json" {
+		probs = append(probs, fmt.Sprintf("--format %q: want text or json", *format))
+	} else if *format != "text" && action != "list" {
+		probs = append(probs, "--format is for list only")
+	}
 	var tokenID int64
 	switch action {
 	case "create":
@@ -288,6 +295,24 @@ func runToken(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		ts, err := db.Tokens(ctx)
 		if err != nil {
 			return cliStoreError(stderr, cmd, "", err)
+		}
+		if *format == "json" {
+			// Never the token itself: only its record.
+			type tj struct {
+				ID      int64  `json:"id"`
+				User    string `json:"user"`
+				Label   string `json:"label"`
+				Created string `json:"created"`
+				Revoked bool   `json:"revoked"`
+			}
+			out := []tj{}
+			for _, t := range ts {
+				out = append(out, tj{t.ID, t.User, t.Label, t.Created.Format(time.RFC3339), t.Revoked})
+			}
+			enc := json.NewEncoder(stdout)
+			enc.SetIndent("", "  ")
+			enc.Encode(out)
+			return exitOK
 		}
 		tw := tabwriter.NewWriter(stdout, 0, 4, 2, ' ', 0)
 		fmt.Fprintln(tw, "ID\tUSER\tLABEL\tCREATED\tSTATE")

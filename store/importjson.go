@@ -1,0 +1,374 @@
+package store
+
+import (
+	"bytes"
+	"context"
+	"crypto/sha256"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"strings"
+
+	"lotwatch/spc"
+	"lotwatch/store/lotcsv"
+)
+
+// jsonLotIn is one lot of a JSON lot file, as Export writes it; pointers
+// tell a field left out from a zero.
+type jsonLotIn struct {
+	Lot        *string          `json:"lot"`
+	Time       *string          `json:"time"`
+	Shift      string           `json:"shift"`
+	Inspected  *int64           `json:"inspected"`
+	Defective  *int64           `json:"defective"`
+	Defects    *int64           `json:"defects"`
+	Categories map[string]int64 `json:"categories"`
+	Inspector  string           `json:"inspector"`
+	Note       string           `json:"note"`
+}
+
+// jsonProcessIn is the "process" object of a JSON lot file.
+type jsonProcessIn struct {
+	Name       string   `json:"name"`
+	Chart      string   `json:"chart"`
+	Categories []string `json:"categories"`
+	TimeZone   string   `json:"time_zone"`
+}
+
+// lineTracker counts the lines of what a json.Decoder has consumed: it
+// notes where the newlines are in the bytes read ahead and forgets them
+// once the decoder has passed them, so memory stays with the read-ahead.
+type lineTracker struct {
+	r       io.Reader
+	read    int64   // bytes handed to the decoder
+	pending []int64 // offsets of newlines not yet passed
+	lines   int     // newlines passed
+}
+
+func (lt *lineTracker) Read(p []byte) (int, error) {
+	n, err := lt.r.Read(p)
+	for i, b := range p[:n] {
+		if b == '\n' {
+			lt.pending = append(lt.pending, lt.read+int64(i))
+		}
+	}
+	lt.read += int64(n)
+	return n, err
+}
+
+// lineAt returns the 1-based line of the byte at offset off (offsets only
+// grow from call to call).
+func (lt *lineTracker) lineAt(off int64) int {
+	k := 0
+	for k < len(lt.pending) && lt.pending[k] < off {
+		k++
+	}
+	lt.lines += k
+	lt.pending = lt.pending[k:]
+	return lt.lines + 1
+}
+
+// importJSON is Import for the JSON that Export writes:
+// {"process": {"name", "chart", "categories", "time_zone"}, "lots": [ … ]},
+// each lot with lot, time (RFC 3339), shift, inspected, defective or
+// defects, categories, inspector and note. It is read as a stream (the
+// token API of encoding/json, one lot at a time). opt.Process may be
+// empty: then the file's process name is used. A field left out is the
+// empty value (Export leaves out empty ones), but for time, which is then
+// the time of the import and not compared with a stored lot.
+func (db *DB) importJSON(ctx context.Context, actor string, r io.Reader, opt ImportOptions, max int) (ImportResult, error) {
+	var res ImportResult
+	err := db.write(ctx, func(w *wtx) error {
+		res = ImportResult{}
+		h := sha256.New()
+		cr := &countingReader{r: io.TeeReader(r, h)}
+		lt := &lineTracker{r: cr}
+		dec := json.NewDecoder(lt)
+		ve := &ValidationError{}
+		problem := func(pr Problem) {
+			if len(ve.Problems) < max {
+				ve.Problems = append(ve.Problems, pr)
+			} else {
+				ve.More++
+			}
+		}
+		syntax := func(err error) error {
+			line := lt.lineAt(dec.InputOffset())
+			var se *json.SyntaxError
+			if errors.As(err, &se) {
+				line = lt.lineAt(se.Offset - 1)
+			}
+			if err == io.EOF || errors.Is(err, io.ErrUnexpectedEOF) {
+				err = errors.New("the file ends early")
+			}
+			return invalid(Problem{Line: line, Reason: "is not the JSON of a lot file: " + strings.TrimPrefix(err.Error(), "json: ")})
+		}
+		delim := func(want json.Delim, what string) error {
+			tok, err := dec.Token()
+			if err != nil {
+				return syntax(err)
+			}
+			if d, ok := tok.(json.Delim); !ok || d != want {
+				return invalid(Problem{Line: lt.lineAt(dec.InputOffset()), Reason: fmt.Sprintf("is not the JSON of a lot file: want %s, found %v", what, tok)})
+			}
+			return nil
+		}
+		if err := delim('{', `an object {"process": …, "lots": […]}`); err != nil {
+			return err
+		}
+		var (
+			p       Process
+			a       *lotAdder
+			header  *jsonProcessIn
+			sawLots bool
+			met     bitset
+		)
+		defer func() {
+			if a != nil {
+				a.close()
+			}
+		}()
+		// resolve finds (or with Create makes) the process once its name
+		// is known: from the options, else from the file.
+		resolve := func() error {
+			name := opt.Process
+			if name == "" && header != nil {
+				name = header.Name
+			}
+			if name == "" {
+				return invalid(Problem{Field: "process", Reason: `is not named: give the process, or put the "process" object before "lots"`})
+			}
+			var err error
+			p, err = processByName(w, name)
+			switch {
+			case errors.Is(err, ErrNotFound) && opt.Create:
+				p = Process{Name: name, Chart: spc.ChartP, TimeZone: opt.TimeZone}
+				if header != nil {
+					if header.Chart != "" {
+						p.Chart = spc.Chart(header.Chart)
+					}
+					p.Categories = append([]string(nil), header.Categories...)
+					if p.TimeZone == "" {
+						p.TimeZone = header.TimeZone
+					}
+				}
+				if ps := normalizeProcess(&p); len(ps) > 0 {
+					return invalid(ps...)
+				}
+				p.Active = true
+				if p, err = w.addProcess(actor, p); err != nil {
+					return err
+				}
+				res.Created = true
+			case err != nil:
+				return err
+			case !p.Active:
+				return invalid(Problem{Field: "process", Value: p.Name, Reason: "is retired: it takes no new lots"})
+			}
+			if header != nil && header.Chart != "" && spc.Chart(header.Chart) != p.Chart {
+				return invalid(Problem{Field: "chart", Value: header.Chart, Reason: fmt.Sprintf("is not the chart of process %q (%s): its lots are counted otherwise", p.Name, p.Chart)})
+			}
+			res.Process = p
+			a, err = w.newLotAdder(actor, p)
+			return err
+		}
+		for dec.More() {
+			tok, err := dec.Token()
+			if err != nil {
+				return syntax(err)
+			}
+			key, _ := tok.(string)
+			switch key {
+			case "process":
+				if header != nil || sawLots {
+					return invalid(Problem{Line: lt.lineAt(dec.InputOffset()), Field: "process", Reason: `must come once, before "lots"`})
+				}
+				header = &jsonProcessIn{}
+				if err := dec.Decode(header); err != nil {
+					return syntax(err)
+				}
+			case "lots":
+				if sawLots {
+					return invalid(Problem{Line: lt.lineAt(dec.InputOffset()), Field: "lots", Reason: "is given twice"})
+				}
+				sawLots = true
+				if err := resolve(); err != nil {
+					return err
+				}
+				if err := delim('[', `an array of lots after "lots"`); err != nil {
+					return err
+				}
+				if err := importJSONLots(ctx, w, dec, lt, p, a, &met, &res, problem, max, opt.Progress, cr); err != nil {
+					return err
+				}
+				if err := delim(']', `the end of the array of lots`); err != nil {
+					return err
+				}
+			default:
+				return invalid(Problem{Line: lt.lineAt(dec.InputOffset()), Field: fmt.Sprint(tok), Reason: `is not a part of a lot file (want "process" and "lots")`})
+			}
+		}
+		if err := delim('}', "the end of the file's object"); err != nil {
+			return err
+		}
+		if _, err := dec.Token(); err != io.EOF {
+			return invalid(Problem{Line: lt.lineAt(dec.InputOffset()), Reason: "has more after the end of the file's object"})
+		}
+		if !sawLots {
+			return invalid(Problem{Field: "lots", Reason: "is missing: the file has no array of lots"})
+		}
+		if opt.Progress != nil {
+			opt.Progress(res.Rows, cr.n)
+		}
+		if len(ve.Problems) > 0 {
+			return ve
+		}
+		res.FileSHA256 = hex.EncodeToString(h.Sum(nil))
+		return a.finish("import", nil, map[string]any{"file_sha256": res.FileSHA256, "rows": res.Rows, "format": "json",
+			"unchanged": res.Unchanged, "conflicts": len(res.Conflicts) + res.MoreConflicts})
+	})
+	if err != nil {
+		return ImportResult{}, err
+	}
+	return res, nil
+}
+
+// importJSONLots reads the elements of the lots array.
+func importJSONLots(ctx context.Context, w *wtx, dec *json.Decoder, lt *lineTracker, p Process, a *lotAdder, met *bitset,
+	res *ImportResult, problem func(Problem), max int, progress func(int, int64), cr *countingReader) error {
+	countField, otherField := "defects", "defective"
+	if p.Chart.CountsUnits() {
+		countField, otherField = "defective", "defects"
+	}
+	cmp := allFields(p)
+	loc := p.Location()
+	for dec.More() {
+		if err := ctx.Err(); err != nil {
+			return err
+		}
+		var raw json.RawMessage
+		if err := dec.Decode(&raw); err != nil {
+			line := lt.lineAt(dec.InputOffset())
+			var se *json.SyntaxError
+			if errors.As(err, &se) {
+				line = lt.lineAt(se.Offset - 1)
+			}
+			if err == io.EOF || errors.Is(err, io.ErrUnexpectedEOF) {
+				err = errors.New("the file ends early")
+			}
+			return invalid(Problem{Line: line, Reason: "is not the JSON of a lot file: " + strings.TrimPrefix(err.Error(), "json: ")})
+		}
+		line := lt.lineAt(dec.InputOffset() - 1)
+		res.Rows++
+		if progress != nil && res.Rows%8192 == 0 {
+			progress(res.Rows, cr.n)
+		}
+		var jl jsonLotIn
+		ld := json.NewDecoder(bytes.NewReader(raw))
+		ld.DisallowUnknownFields()
+		if err := ld.Decode(&jl); err != nil {
+			var te *json.UnmarshalTypeError
+			switch {
+			case errors.As(err, &te):
+				problem(Problem{Line: line, Field: te.Field, Reason: fmt.Sprintf("must be a %s (the file has a %s)", jsonKind(te.Type.Kind().String()), te.Value)})
+			case strings.HasPrefix(err.Error(), "json: unknown field "):
+				f := strings.Trim(strings.TrimPrefix(err.Error(), "json: unknown field "), `"`)
+				problem(Problem{Line: line, Field: f, Reason: "is not a field of a lot (lot, time, shift, inspected, defective or defects, categories, inspector, note)"})
+			default:
+				problem(Problem{Line: line, Reason: "is not a lot: " + strings.TrimPrefix(err.Error(), "json: ")})
+			}
+			continue
+		}
+		var ps []Problem
+		in := LotInput{Shift: jl.Shift, Categories: jl.Categories, Inspector: jl.Inspector, Note: jl.Note}
+		if jl.Lot == nil {
+			ps = append(ps, Problem{Field: "lot", Reason: "is missing: every lot needs its lot code"})
+		} else {
+			in.Lot = *jl.Lot
+		}
+		if jl.Time != nil {
+			t, err := lotcsv.ParseTime(*jl.Time, loc)
+			if err != nil {
+				ps = append(ps, Problem{Field: "time", Value: *jl.Time, Reason: err.Error()})
+			}
+			in.Time = t
+		}
+		if jl.Inspected == nil {
+			ps = append(ps, Problem{Field: "inspected", Reason: "is missing"})
+		} else {
+			in.Inspected = *jl.Inspected
+		}
+		count, other := jl.Defective, jl.Defects
+		if countField == "defects" {
+			count, other = jl.Defects, jl.Defective
+		}
+		switch {
+		case other != nil:
+			ps = append(ps, Problem{Field: otherField, Value: fmt.Sprint(*other), Reason: fmt.Sprintf("is not counted on the %s chart of process %q: give %s", p.Chart, p.Name, countField)})
+		case count == nil:
+			ps = append(ps, Problem{Field: countField, Reason: "is missing"})
+		default:
+			in.Count = *count
+		}
+		if len(ps) == 0 {
+			for _, pr := range validateLot(p, in, w.now) {
+				switch pr.Field {
+				case "defective", "defects":
+					pr.Field = countField
+				case "lot", "time", "shift", "inspected", "inspector", "note":
+				default: // a category
+					pr.Field = "categories." + pr.Field
+				}
+				ps = append(ps, pr)
+			}
+		}
+		if len(ps) > 0 {
+			for _, pr := range ps {
+				pr.Line = line
+				problem(pr)
+			}
+			continue
+		}
+		id, added, err := a.add(&in)
+		if err != nil {
+			return err
+		}
+		if added {
+			met.set(id)
+			res.Added++
+			continue
+		}
+		s, err := a.stored(in.Lot)
+		if err != nil {
+			return err
+		}
+		if met.set(s.ID) {
+			problem(Problem{Line: line, Field: "lot", Value: in.Lot, Reason: "appears more than once in the file"})
+			continue
+		}
+		if d := differs(s, in, cmp); len(d) > 0 {
+			if len(res.Conflicts) < max {
+				res.Conflicts = append(res.Conflicts, Conflict{Line: line, Lot: in.Lot, Fields: d})
+			} else {
+				res.MoreConflicts++
+			}
+			continue
+		}
+		res.Unchanged++
+	}
+	return nil
+}
+
+func jsonKind(k string) string {
+	switch k {
+	case "int64":
+		return "whole number"
+	case "string":
+		return "text"
+	case "map":
+		return "object of category counts"
+	}
+	return k
+}

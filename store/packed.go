@@ -1,0 +1,274 @@
+package store
+
+import (
+	"encoding/binary"
+	"errors"
+	"maps"
+	"sort"
+	"time"
+	"unsafe"
+)
+
+// packedVersion is the first byte of a packed lot.
+const packedVersion = 1
+
+// appendPacked appends the packed form of a lot's stored values: a
+// version byte, the id as a uvarint, time and recorded as 8-byte little-endian nanoseconds,
+// varints (encoding/binary) for inspected, count and revision,
+// length-prefixed strings for lot, shift,
+// inspector, note, recorded_by and reason, and the category counts — each
+// a uvarint k (the category's position in the process's list, from 1; 0
+// for a name outside it, followed by the name) and a varint count. Known
+// categories come first in the process's order, other names after them
+// sorted, so the packed form of given values is always the same bytes.
+func appendPacked(b []byte, l *Lot, cats []string) []byte {
+	b = append(b, packedVersion)
+	b = binary.AppendUvarint(b, uint64(l.ID))
+	b = binary.LittleEndian.AppendUint64(b, uint64(l.Time.UnixNano()))
+	b = binary.LittleEndian.AppendUint64(b, uint64(nanos(l.Recorded)))
+	b = binary.AppendVarint(b, l.Inspected)
+	b = binary.AppendVarint(b, l.Count)
+	b = binary.AppendUvarint(b, uint64(l.Revision))
+	for _, s := range [...]string{l.Lot, l.Shift, l.Inspector, l.Note, l.RecordedBy, l.Reason} {
+		b = binary.AppendUvarint(b, uint64(len(s)))
+		b = append(b, s...)
+	}
+	b = binary.AppendUvarint(b, uint64(len(l.Categories)))
+	if len(l.Categories) == 0 {
+		return b
+	}
+	n := 0
+	for i, c := range cats {
+		if v, ok := l.Categories[c]; ok {
+			b = binary.AppendUvarint(b, uint64(i+1))
+			b = binary.AppendVarint(b, v)
+			n++
+		}
+	}
+	if n == len(l.Categories) {
+		return b
+	}
+	known := make(map[string]bool, len(cats))
+	for _, c := range cats {
+		known[c] = true
+	}
+	var other []string
+	for c := range l.Categories {
+		if !known[c] {
+			other = append(other, c)
+		}
+	}
+	sort.Strings(other)
+	for _, c := range other {
+		b = binary.AppendUvarint(b, 0)
+		b = binary.AppendUvarint(b, uint64(len(c)))
+		b = append(b, c...)
+		b = binary.AppendVarint(b, l.Categories[c])
+	}
+	return b
+}
+
+var errPacked = errors.New("packed lot is malformed")
+
+// packedReader decodes a packed lot without allocating beyond the
+// strings handed out.
+type packedReader struct {
+	b   []byte
+	err error
+}
+
+func (r *packedReader) varint() int64 {
+	if len(r.b) > 0 && r.b[0] < 0x80 { // one byte: most counts
+		u := r.b[0]
+		r.b = r.b[1:]
+		return int64(u>>1) ^ -int64(u&1)
+	}
+	v, n := binary.Varint(r.b)
+	if n <= 0 {
+		r.err, r.b = errPacked, nil
+		return 0
+	}
+	r.b = r.b[n:]
+	return v
+}
+
+func (r *packedReader) uvarint() uint64 {
+	if len(r.b) > 0 && r.b[0] < 0x80 {
+		u := r.b[0]
+		r.b = r.b[1:]
+		return uint64(u)
+	}
+	v, n := binary.Uvarint(r.b)
+	if n <= 0 {
+		r.err, r.b = errPacked, nil
+		return 0
+	}
+	r.b = r.b[n:]
+	return v
+}
+
+func (r *packedReader) bytes() []byte {
+	n := r.uvarint()
+	if n > uint64(len(r.b)) {
+		r.err, r.b = errPacked, nil
+		return nil
+	}
+	s := r.b[:n]
+	r.b = r.b[n:]
+	return s
+}
+
+// lotReader decodes the packed lots of one walk. It hands out the lot
+// codes from shared blocks of bytes (one allocation per some thousand
+// lots instead of one per lot), keeps the strings of repeating text, and
+// refills one Categories map in place.
+type lotReader struct {
+	names []string // the process's categories
+	loc   *time.Location
+	words *interner
+	cats  map[string]int64
+	mask  uint64 // which of names the map holds now (when it holds only those)
+	block []byte
+	// recent holds, per repeating text field, the strings met last.
+	recent [5]recentWords
+	// combos hands out one map per combination of category counts met
+	// (lots repeat them: mostly small counts of a few categories), so a
+	// lot's counts cost one lookup; beyond maxCombos, cats is refilled.
+	combos map[string]map[string]int64
+}
+
+const maxCombos = 4096
+
+func newLotReader(names []string, loc *time.Location) *lotReader {
+	return &lotReader{names: names, loc: loc, words: newInterner(), cats: map[string]int64{}, combos: map[string]map[string]int64{}}
+}
+
+// code returns b as a string that lives in the current block.
+func (lr *lotReader) code(b []byte) string {
+	if len(b) == 0 {
+		return ""
+	}
+	if len(b) > 256 {
+		return string(b)
+	}
+	if cap(lr.block)-len(lr.block) < len(b) {
+		lr.block = make([]byte, 0, 64<<10)
+	}
+	start := len(lr.block)
+	lr.block = append(lr.block, b...)
+	// The block is only appended to, so the bytes never change.
+	return unsafe.String(&lr.block[start], len(b))
+}
+
+// unpack fills l (but ProcessID) from the packed lot b.
+func (lr *lotReader) unpack(b []byte, l *Lot) error {
+	if len(b) < 1 || b[0] != packedVersion {
+		return errPacked
+	}
+	id, k := binary.Uvarint(b[1:])
+	if k <= 0 || len(b) < 1+k+16 {
+		return errPacked
+	}
+	b = b[1+k:]
+	l.ID = int64(id)
+	t := int64(binary.LittleEndian.Uint64(b))
+	rec := int64(binary.LittleEndian.Uint64(b[8:]))
+	r := packedReader{b: b[16:]}
+	l.Inspected = r.varint()
+	l.Count = r.varint()
+	l.Revision = int(r.uvarint())
+	l.Lot = lr.code(r.bytes())
+	// The other text repeats from lot to lot (a few shifts, inspectors):
+	// the strings met last are compared first, then the shared ones.
+	l.Shift = lr.recent[0].get(lr.words, r.bytes())
+	l.Inspector = lr.recent[1].get(lr.words, r.bytes())
+	l.Note = lr.recent[2].get(lr.words, r.bytes())
+	l.RecordedBy = lr.recent[3].get(lr.words, r.bytes())
+	l.Reason = lr.recent[4].get(lr.words, r.bytes())
+	n := r.uvarint()
+	l.Categories = nil
+	if n > 0 && r.err == nil {
+		// The counts are the last part of the packed lot.
+		if m, ok := lr.combos[string(r.b)]; ok {
+			l.Categories = m
+			r.b = nil
+		} else {
+			key := r.b
+			if err := lr.categories(&r, n); err != nil {
+				return err
+			}
+			l.Categories = lr.cats
+			if len(lr.combos) < maxCombos && len(r.b) == 0 {
+				m := maps.Clone(lr.cats)
+				lr.combos[string(key)] = m
+				l.Categories = m
+			}
+		}
+	}
+	if r.err != nil || len(r.b) != 0 {
+		return errPacked
+	}
+	l.Time = fromNanos(t, lr.loc)
+	l.Recorded = fromNanos(rec, lr.loc)
+	return nil
+}
+
+func (lr *lotReader) categories(r *packedReader, n uint64) error {
+	// Most lots name the same categories as the lot before: then only the
+	// counts are written over.
+	var mask uint64
+	rest := r.b
+	simple := len(lr.names) <= 64
+	for i := uint64(0); i < n && simple; i++ {
+		k := r.uvarint()
+		r.varint()
+		if k == 0 || k > uint64(len(lr.names)) {
+			simple = false
+		} else {
+			mask |= 1 << (k - 1)
+		}
+	}
+	r.b, r.err = rest, nil
+	if !simple || mask != lr.mask {
+		clear(lr.cats)
+		lr.mask = 0
+	}
+	for i := uint64(0); i < n && r.err == nil; i++ {
+		k := r.uvarint()
+		var name string
+		switch {
+		case k == 0:
+			name = string(r.bytes())
+		case k <= uint64(len(lr.names)):
+			name = lr.names[k-1]
+		default:
+			return errPacked
+		}
+		lr.cats[name] = r.varint()
+	}
+	if simple {
+		lr.mask = mask
+	} else {
+		lr.mask = ^uint64(0) // a name outside the list: clear next time
+	}
+	return r.err
+}
+
+// recentWords is a field's last few distinct strings, tried before a map
+// lookup (comparing a few short strings costs less than hashing).
+type recentWords struct {
+	s    [4]string
+	next int
+}
+
+func (rw *recentWords) get(words *interner, b []byte) string {
+	for _, s := range rw.s {
+		if string(b) == s {
+			return s
+		}
+	}
+	s := words.get(b)
+	rw.s[rw.next] = s
+	rw.next = (rw.next + 1) % len(rw.s)
+	return s
+}

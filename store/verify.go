@@ -1,0 +1,623 @@
+package store
+
+import (
+	"bytes"
+	"context"
+	"crypto/sha256"
+	"database/sql"
+	"encoding/hex"
+	"encoding/json"
+	"fmt"
+	"maps"
+	"sort"
+	"strconv"
+	"time"
+
+	"lotwatch/spc"
+)
+
+// The audit trail states the values of every data row it covers: a batch
+// entry of lots carries the SHA-256 over the lots' canonical lines (see
+// appendCanonical) and, for up to 20 lots, their content; every other
+// entry (a correction, a void, a process, limit set, annotation, user or
+// token written) carries the row's values in New, and its time, actor and
+// reason are the row's recorded time, author and reason. VerifyAudit, once
+// the chain holds, reads every current row and checks it against the
+// latest entry about it, so that a row edited, added or removed with plain
+// SQL is found and named. The packed copy of each lot (migration 0002) is
+// checked against the lot's columns as well.
+
+// dataTrail collects, while the chain is walked, what each row must hold.
+type dataTrail struct {
+	batches []lotBatch
+	edits   map[int64][]lotEdit
+	procs   map[int64]*rowTrail
+	sets    map[int64]*rowTrail
+	anns    map[int64]*rowTrail
+	users   map[int64]*rowTrail
+	tokens  map[int64]*rowTrail
+	actors  map[string]string
+}
+
+// lotBatch is an entry that added lots first..last.
+type lotBatch struct {
+	seq, first, last, pid, at int64
+	count                     int
+	actor                     string
+	sha                       string
+}
+
+// lotEdit is a correction or void of a lot: the values after it.
+type lotEdit struct {
+	seq, at             int64
+	actor, reason, next string
+}
+
+// rowTrail is what the entries say of one row.
+type rowTrail struct {
+	addSeq, addAt int64
+	addActor      string
+	addNew        string
+	seq, at       int64 // latest entry stating the row's values
+	actor, reason string
+	next          string // its New
+	closeSeq      int64  // annotations: the close entry
+	closeAt       int64
+	closeActor    string
+	revoked       bool // tokens
+}
+
+func newDataTrail() *dataTrail {
+	return &dataTrail{edits: map[int64][]lotEdit{}, procs: map[int64]*rowTrail{}, sets: map[int64]*rowTrail{},
+		anns: map[int64]*rowTrail{}, users: map[int64]*rowTrail{}, tokens: map[int64]*rowTrail{}, actors: map[string]string{}}
+}
+
+func (d *dataTrail) actor(s string) string {
+	if a, ok := d.actors[s]; ok {
+		return a
+	}
+	d.actors[s] = s
+	return s
+}
+
+// note takes in one entry of the chain (already checked).
+func (d *dataTrail) note(e *AuditEntry) error {
+	at := e.At.UnixNano()
+	added := func(m map[int64]*rowTrail) {
+		m[e.EntityID] = &rowTrail{addSeq: e.Seq, addAt: at, addActor: d.actor(e.Actor), addNew: e.New,
+			seq: e.Seq, at: at, actor: d.actor(e.Actor), reason: e.Reason, next: e.New}
+	}
+	changed := func(m map[int64]*rowTrail) *rowTrail {
+		t := m[e.EntityID]
+		if t == nil { // a change of a row never added: the row must not exist
+			t = &rowTrail{}
+			m[e.EntityID] = t
+		}
+		t.seq, t.at, t.actor, t.reason, t.next = e.Seq, at, d.actor(e.Actor), e.Reason, e.New
+		return t
+	}
+	switch e.Entity {
+	case "lot":
+		switch e.Action {
+		case "add", "import":
+			var rec struct {
+				ProcessID int64  `json:"process_id"`
+				FirstID   int64  `json:"first_id"`
+				LastID    int64  `json:"last_id"`
+				Count     int    `json:"count"`
+				SHA256    string `json:"sha256"`
+			}
+			if err := json.Unmarshal([]byte(e.New), &rec); err != nil {
+				return fmt.Errorf("entry %d: %w", e.Seq, err)
+			}
+			d.batches = append(d.batches, lotBatch{seq: e.Seq, first: rec.FirstID, last: rec.LastID, pid: rec.ProcessID,
+				at: at, count: rec.Count, actor: d.actor(e.Actor), sha: rec.SHA256})
+		case "correct", "void":
+			d.edits[e.EntityID] = append(d.edits[e.EntityID], lotEdit{seq: e.Seq, at: at, actor: d.actor(e.Actor), reason: e.Reason, next: e.New})
+		}
+	case "process":
+		switch e.Action {
+		case "add":
+			added(d.procs)
+		case "update":
+			changed(d.procs)
+		}
+	case "limitset":
+		if e.Action == "freeze" {
+			added(d.sets)
+		}
+	case "annotation":
+		switch e.Action {
+		case "add":
+			added(d.anns)
+		case "close":
+			t := changed(d.anns)
+			t.closeSeq, t.closeAt, t.closeActor = e.Seq, at, t.actor
+		}
+	case "user":
+		switch e.Action {
+		case "add":
+			added(d.users)
+		case "set active":
+			changed(d.users)
+		}
+	case "token":
+		switch e.Action {
+		case "add":
+			added(d.tokens)
+		case "revoke":
+			changed(d.tokens).revoked = true
+		}
+	}
+	return nil
+}
+
+// rowBreak is a data row that does not agree with the audit trail.
+type rowBreak struct {
+	seq    int64
+	entity string
+	why    string
+}
+
+func differ(seq int64, entity string) *rowBreak {
+	return &rowBreak{seq, entity, "stored values differ from the audit trail"}
+}
+
+func unrecorded(entity string) *rowBreak {
+	return &rowBreak{0, entity, "is not in the audit trail (added behind lotwatch's back)"}
+}
+
+func removed(seq int64, entity string) *rowBreak {
+	return &rowBreak{seq, entity, "was removed behind lotwatch's back"}
+}
+
+type procInfo struct {
+	name string
+	cats []string
+}
+
+// checkRows checks every covered row against the trail; nil when all hold.
+func (d *dataTrail) checkRows(ctx context.Context, tx *sql.Tx) (*rowBreak, error) {
+	procs := map[int64]procInfo{}
+	steps := []func(context.Context, *sql.Tx, map[int64]procInfo) (*rowBreak, error){
+		d.checkProcesses, d.checkUsers, d.checkTokens, d.checkLots, d.checkLimitSets, d.checkAnnotations}
+	for _, step := range steps {
+		if rb, err := step(ctx, tx, procs); rb != nil || err != nil {
+			return rb, err
+		}
+	}
+	return nil, nil
+}
+
+// leftover names a row the trail added that is not stored.
+func leftover(m map[int64]*rowTrail, seen map[int64]bool, name func(id int64) string) *rowBreak {
+	ids := make([]int64, 0)
+	for id := range m {
+		if !seen[id] {
+			ids = append(ids, id)
+		}
+	}
+	if len(ids) == 0 {
+		return nil
+	}
+	sort.Slice(ids, func(i, j int) bool { return ids[i] < ids[j] })
+	t := m[ids[0]]
+	return removed(max(t.addSeq, t.seq), name(ids[0]))
+}
+
+func (d *dataTrail) checkProcesses(ctx context.Context, tx *sql.Tx, procs map[int64]procInfo) (*rowBreak, error) {
+	rows, err := tx.QueryContext(ctx, "SELECT "+processCols+" FROM processes ORDER BY id")
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	seen := map[int64]bool{}
+	for rows.Next() {
+		p, err := scanProcess(rows)
+		if err != nil {
+			return nil, err
+		}
+		procs[p.ID] = procInfo{p.Name, p.Categories}
+		seen[p.ID] = true
+		name := fmt.Sprintf("process %d (%q)", p.ID, p.Name)
+		t := d.procs[p.ID]
+		switch {
+		case t == nil || t.addSeq == 0:
+			return unrecorded(name), nil
+		case toJSON(auditProcess(p)) != t.next || nanos(p.Created) != t.addAt:
+			return differ(t.seq, name), nil
+		}
+	}
+	if err := rows.Err(); err != nil {
+		return nil, err
+	}
+	return leftover(d.procs, seen, func(id int64) string { return fmt.Sprintf("process %d", id) }), nil
+}
+
+func (d *dataTrail) checkUsers(ctx context.Context, tx *sql.Tx, _ map[int64]procInfo) (*rowBreak, error) {
+	rows, err := tx.QueryContext(ctx, "SELECT "+userCols+" FROM users ORDER BY id")
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	seen := map[int64]bool{}
+	for rows.Next() {
+		u, err := scanUser(rows)
+		if err != nil {
+			return nil, err
+		}
+		seen[u.ID] = true
+		name := fmt.Sprintf("user %d (%q)", u.ID, u.Name)
+		t := d.users[u.ID]
+		switch {
+		case t == nil || t.addSeq == 0:
+			return unrecorded(name), nil
+		case toJSON(userAudit{u.Name, u.Role, u.Active}) != t.next || nanos(u.Created) != t.addAt:
+			return differ(t.seq, name), nil
+		}
+	}
+	if err := rows.Err(); err != nil {
+		return nil, err
+	}
+	return leftover(d.users, seen, func(id int64) string { return fmt.Sprintf("user %d", id) }), nil
+}
+
+func (d *dataTrail) checkTokens(ctx context.Context, tx *sql.Tx, _ map[int64]procInfo) (*rowBreak, error) {
+	rows, err := tx.QueryContext(ctx, `SELECT t.id, t.label, t.created, t.revoked, COALESCE(u.name, '')
+		FROM tokens t LEFT JOIN users u ON u.id = t.user_id ORDER BY t.id`)
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	seen := map[int64]bool{}
+	for rows.Next() {
+		var id, created int64
+		var label, user string
+		var revoked bool
+		if err := rows.Scan(&id, &label, &created, &revoked, &user); err != nil {
+			return nil, err
+		}
+		seen[id] = true
+		name := fmt.Sprintf("token %d (%q of user %q)", id, label, user)
+		t := d.tokens[id]
+		switch {
+		case t == nil || t.addSeq == 0:
+			return unrecorded(name), nil
+		case toJSON(map[string]any{"user": user, "label": label}) != t.addNew || created != t.addAt || revoked != t.revoked:
+			return differ(t.seq, name), nil
+		}
+	}
+	if err := rows.Err(); err != nil {
+		return nil, err
+	}
+	return leftover(d.tokens, seen, func(id int64) string { return fmt.Sprintf("token %d", id) }), nil
+}
+
+func (d *dataTrail) checkLimitSets(ctx context.Context, tx *sql.Tx, procs map[int64]procInfo) (*rowBreak, error) {
+	rows, err := tx.QueryContext(ctx, `SELECT id, process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason
+		FROM limit_sets ORDER BY id`)
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	seen := map[int64]bool{}
+	for rows.Next() {
+		var id, pid, bf, bt, ef, fa int64
+		var number, blots int
+		var method, excl, by, reason string
+		var k, center, sz float64
+		if err := rows.Scan(&id, &pid, &number, &method, &k, &center, &sz, &bf, &bt, &blots, &excl, &ef, &by, &fa, &reason); err != nil {
+			return nil, err
+		}
+		seen[id] = true
+		name := fmt.Sprintf("limit set %d (number %d of process %q)", id, number, procs[pid].name)
+		t := d.sets[id]
+		if t == nil || t.addSeq == 0 {
+			return unrecorded(name), nil
+		}
+		ex := map[string]string{}
+		if err := json.Unmarshal([]byte(excl), &ex); err != nil {
+			return differ(t.seq, name), nil
+		}
+		rec := map[string]any{"process_id": pid, "number": number, "method": spc.Method(method), "k": k, "center": center, "sigma_z": sz,
+			"baseline_from": bf, "baseline_to": bt, "baseline_lots": blots, "excluded": ex, "effective_from": ef}
+		if toJSON(rec) != t.next || by != t.actor || fa != t.at || reason != t.reason {
+			return differ(t.seq, name), nil
+		}
+	}
+	if err := rows.Err(); err != nil {
+		return nil, err
+	}
+	return leftover(d.sets, seen, func(id int64) string { return fmt.Sprintf("limit set %d", id) }), nil
+}
+
+func (d *dataTrail) checkAnnotations(ctx context.Context, tx *sql.Tx, procs map[int64]procInfo) (*rowBreak, error) {
+	rows, err := tx.QueryContext(ctx, `SELECT id, process_id, lot_id, rule, cause, action, closed, by, at, closed_by, closed_at FROM annotations ORDER BY id`)
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	seen := map[int64]bool{}
+	for rows.Next() {
+		var a annotationAudit
+		var id, at, closedAt int64
+		var lotID sql.NullInt64
+		var by, closedBy string
+		if err := rows.Scan(&id, &a.ProcessID, &lotID, &a.Rule, &a.Cause, &a.Action, &a.Closed, &by, &at, &closedBy, &closedAt); err != nil {
+			return nil, err
+		}
+		a.LotID = lotID.Int64
+		seen[id] = true
+		name := fmt.Sprintf("annotation %d (process %q)", id, procs[a.ProcessID].name)
+		t := d.anns[id]
+		if t == nil || t.addSeq == 0 {
+			return unrecorded(name), nil
+		}
+		wantBy, wantAt := "", int64(0)
+		switch {
+		case t.closeSeq != 0:
+			wantBy, wantAt = t.closeActor, t.closeAt
+		case a.Closed:
+			wantBy, wantAt = t.addActor, t.addAt
+		}
+		if toJSON(a) != t.next || by != t.addActor || at != t.addAt || closedBy != wantBy || closedAt != wantAt {
+			return differ(t.seq, name), nil
+		}
+	}
+	if err := rows.Err(); err != nil {
+		return nil, err
+	}
+	return leftover(d.anns, seen, func(id int64) string { return fmt.Sprintf("annotation %d", id) }), nil
+}
+
+// revRow is one stored revision of a lot (a row of lots or lot_revisions).
+type revRow struct {
+	revision   int
+	in         LotInput
+	cats       string // stored form
+	voided     bool
+	recorded   int64
+	recordedBy string
+	reason     string
+}
+
+func (r *revRow) canonical(b []byte) []byte {
+	b = append(b, r.in.Lot...)
+	b = append(b, 0)
+	b = appendInt(b, r.in.Time.UnixNano())
+	b = append(b, 0)
+	b = append(b, r.in.Shift...)
+	b = append(b, 0)
+	b = appendInt(b, r.in.Inspected)
+	b = append(b, 0)
+	b = appendInt(b, r.in.Count)
+	b = append(b, 0)
+	b = append(b, r.cats...)
+	b = append(b, 0)
+	b = append(b, r.in.Inspector...)
+	b = append(b, 0)
+	b = append(b, r.in.Note...)
+	return append(b, '\n')
+}
+
+// content is the JSON the audit trail holds of a lot after a correction
+// or void.
+func (r *revRow) content() string { return toJSON(contentOf(r.in, r.voided)) }
+
+func (d *dataTrail) checkLots(ctx context.Context, tx *sql.Tx, procs map[int64]procInfo) (*rowBreak, error) {
+	// Earlier revisions: few, held in memory.
+	revs := map[int64][]revRow{}
+	rrows, err := tx.QueryContext(ctx, `SELECT lot_id, revision, lot, time, shift, inspected, count, categories, inspector, note, voided, recorded, recorded_by, reason
+		FROM lot_revisions ORDER BY lot_id, revision`)
+	if err != nil {
+		return nil, err
+	}
+	for rrows.Next() {
+		var id, t int64
+		var r revRow
+		if err := rrows.Scan(&id, &r.revision, &r.in.Lot, &t, &r.in.Shift, &r.in.Inspected, &r.in.Count, &r.cats, &r.in.Inspector, &r.in.Note,
+			&r.voided, &r.recorded, &r.recordedBy, &r.reason); err != nil {
+			rrows.Close()
+			return nil, err
+		}
+		r.in.Time = time.Unix(0, t).UTC()
+		if r.in.Categories, err = decodeCategories(r.cats); err != nil {
+			r.in.Categories = map[string]int64{"\x00unreadable": 0}
+		}
+		revs[id] = append(revs[id], r)
+	}
+	rrows.Close()
+	if err := rrows.Err(); err != nil {
+		return nil, err
+	}
+
+	batches := d.batches
+	sort.SliceStable(batches, func(i, j int) bool { return batches[i].first < batches[j].first })
+	for i := 1; i < len(batches); i++ {
+		if batches[i].first <= batches[i-1].last {
+			return &rowBreak{batches[i].seq, fmt.Sprintf("lot %d", batches[i].first),
+				fmt.Sprintf("is claimed by entries %d and %d of the audit trail", batches[i-1].seq, batches[i].seq)}, nil
+		}
+	}
+	rows, err := tx.QueryContext(ctx, `SELECT id, process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason, packed
+		FROM lots ORDER BY id`)
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	lotName := func(id, pid int64, code string) string {
+		if code == "" {
+			return fmt.Sprintf("lot %d (process %q)", id, procs[pid].name)
+		}
+		return fmt.Sprintf("lot %d (process %q, lot code %s)", id, procs[pid].name, code)
+	}
+	var (
+		bi      int
+		open    bool
+		next    int64
+		n       int
+		h       = sha256.New()
+		line    []byte
+		packed  []byte
+		codes   []revRow // first revisions of the open batch, for naming (small batches only)
+		cur     revRow
+		pid     int64
+		stored  sql.RawBytes
+		t       int64
+		catsMap = map[string]int64{}
+	)
+	closeBatch := func() (*rowBreak, error) {
+		b := &batches[bi]
+		open = false
+		if n != b.count || next-1 != b.last {
+			return removed(b.seq, lotName(next, b.pid, "")), nil
+		}
+		if hex.EncodeToString(h.Sum(nil)) == b.sha {
+			return nil, nil
+		}
+		// Name the lot when the entry carries the lots' content.
+		var e struct {
+			Lots []json.RawMessage `json:"lots"`
+		}
+		var raw string
+		if err := tx.QueryRowContext(ctx, "SELECT new FROM audit WHERE seq = ?", b.seq).Scan(&raw); err != nil {
+			return nil, err
+		}
+		json.Unmarshal([]byte(raw), &e)
+		given := map[string]string{}
+		for _, l := range e.Lots {
+			var c lotContent
+			if json.Unmarshal(l, &c) == nil {
+				given[c.Lot] = string(l)
+			}
+		}
+		for i := range codes {
+			if g, ok := given[codes[i].in.Lot]; !ok || g != toJSON(contentOf(codes[i].in, false)) {
+				return differ(b.seq, lotName(b.first+int64(i), b.pid, codes[i].in.Lot)), nil
+			}
+		}
+		return &rowBreak{b.seq, fmt.Sprintf("lots %d–%d (process %q)", b.first, b.last, procs[b.pid].name), "stored values differ from the audit trail"}, nil
+	}
+	for rows.Next() {
+		var id int64
+		cur = revRow{}
+		if err := rows.Scan(&id, &pid, &cur.in.Lot, &t, &cur.in.Shift, &cur.in.Inspected, &cur.in.Count, &cur.cats, &cur.in.Inspector, &cur.in.Note,
+			&cur.revision, &cur.voided, &cur.recorded, &cur.recordedBy, &cur.reason, &stored); err != nil {
+			return nil, err
+		}
+		cur.in.Time = time.Unix(0, t).UTC()
+		name := lotName(id, pid, cur.in.Lot)
+		for open && batches[bi].last < id {
+			if rb, err := closeBatch(); rb != nil || err != nil {
+				return rb, err
+			}
+			bi++
+		}
+		if !open {
+			for bi < len(batches) && batches[bi].last < id {
+				// A batch none of whose lots is stored.
+				return removed(batches[bi].seq, lotName(batches[bi].first, batches[bi].pid, "")), nil
+			}
+			if bi >= len(batches) || id < batches[bi].first {
+				return unrecorded(name), nil
+			}
+			open, next, n, codes = true, batches[bi].first, 0, codes[:0]
+			h.Reset()
+		}
+		b := &batches[bi]
+		if id != next {
+			return removed(b.seq, lotName(next, b.pid, "")), nil
+		}
+		next++
+		n++
+		if pid != b.pid {
+			return differ(b.seq, name), nil
+		}
+		// The packed copy must hold the columns' values.
+		if cur.cats != "" {
+			if err := decodeCategoriesInto(catsMap, []byte(cur.cats), procs[pid].cats); err != nil {
+				return differ(b.seq, name), nil
+			}
+		}
+		l := Lot{ID: id, LotInput: cur.in, Revision: cur.revision, Voided: cur.voided, Recorded: time.Unix(0, cur.recorded), RecordedBy: cur.recordedBy, Reason: cur.reason}
+		if cur.cats == "" {
+			l.Categories = nil
+		} else {
+			l.Categories = catsMap
+		}
+		packed = appendPacked(packed[:0], &l, procs[pid].cats)
+		if !bytes.Equal(packed, stored) {
+			return differ(b.seq, name), nil
+		}
+		// The first revision is what the batch added; each later one is
+		// what a correction or void made it.
+		edits := d.edits[id]
+		rs := revs[id]
+		delete(revs, id)
+		if len(rs) != len(edits) || cur.revision != len(edits)+1 {
+			seq := b.seq
+			if len(edits) > 0 {
+				seq = edits[len(edits)-1].seq
+			}
+			return &rowBreak{seq, name, "its revisions differ from the audit trail"}, nil
+		}
+		chain := append(rs, cur)
+		first := &chain[0]
+		if first.revision != 1 || first.voided || first.recorded != b.at || first.recordedBy != b.actor || first.reason != "" {
+			return differ(b.seq, name), nil
+		}
+		for i, e := range edits {
+			r := &chain[i+1]
+			if r.revision != i+2 {
+				return &rowBreak{e.seq, name, "its revisions differ from the audit trail"}, nil
+			}
+			if cur.cats != "" && r == &chain[len(chain)-1] {
+				r.in.Categories = maps.Clone(catsMap)
+			} else if r.in.Categories == nil && r.cats != "" {
+				r.in.Categories, _ = decodeCategories(r.cats)
+			}
+			if r.content() != e.next || r.recorded != e.at || r.recordedBy != e.actor || r.reason != e.reason {
+				return differ(e.seq, name), nil
+			}
+		}
+		line = first.canonical(line[:0])
+		h.Write(line)
+		if b.count <= 20 {
+			c := *first
+			if c.cats != "" && c.in.Categories == nil {
+				c.in.Categories, _ = decodeCategories(c.cats)
+			}
+			codes = append(codes, c)
+		}
+	}
+	if err := rows.Err(); err != nil {
+		return nil, err
+	}
+	if open {
+		if rb, err := closeBatch(); rb != nil || err != nil {
+			return rb, err
+		}
+		bi++
+	}
+	if bi < len(batches) {
+		return removed(batches[bi].seq, lotName(batches[bi].first, batches[bi].pid, "")), nil
+	}
+	for id, rs := range revs {
+		return &rowBreak{0, fmt.Sprintf("lot %d", id), fmt.Sprintf("has %d earlier revisions stored but no current row", len(rs))}, nil
+	}
+	for id, es := range d.edits {
+		_ = es
+		// An edit of a lot that no batch added and that is not stored.
+		found := false
+		k := sort.Search(len(batches), func(i int) bool { return batches[i].last >= id })
+		if k < len(batches) && batches[k].first <= id {
+			found = true
+		}
+		if !found {
+			return removed(es[len(es)-1].seq, fmt.Sprintf("lot %d", id)), nil
+		}
+	}
+	return nil, nil
+}
+
+func appendInt(b []byte, v int64) []byte { return strconv.AppendInt(b, v, 10) }

@@ -1,0 +1,243 @@
+package store
+
+import (
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+	"time"
+)
+
+// fixtureCopy copies the schema-1 fixture to a temporary file.
+func fixtureCopy(t *testing.T) string {
+	t.Helper()
+	b, err := os.ReadFile(schema1Fixture)
+	if err != nil {
+		t.Fatal(err)
+	}
+	path := filepath.Join(t.TempDir(), "old.db")
+	if err := os.WriteFile(path, b, 0o600); err != nil {
+		t.Fatal(err)
+	}
+	return path
+}
+
+func verifyFile(t *testing.T, path string) AuditCheck {
+	t.Helper()
+	db, err := Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	chk, err := db.VerifyAudit(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return chk
+}
+
+// packedOf computes the packed copy of a stored lot as lotwatch would, so
+// that a test can change a lot's columns and its copy alike.
+func packedOf(t *testing.T, path, code string, change func(*Lot)) []byte {
+	t.Helper()
+	db, err := Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	var id int64
+	if err := db.r.QueryRow("SELECT id FROM lots WHERE lot = ?", code).Scan(&id); err != nil {
+		t.Fatal(err)
+	}
+	l, err := db.LotByID(ctx, id)
+	if err != nil {
+		t.Fatal(err)
+	}
+	p, err := db.Process(ctx, l.ProcessID)
+	if err != nil {
+		t.Fatal(err)
+	}
+	change(&l)
+	return appendPacked(nil, &l, p.Categories)
+}
+
+// The audit chain catches a data row edited, added or removed behind the
+// tool's back: each case changes one row with plain SQL, and verify must
+// fail naming that row; changes to what the trail does not cover
+// (password hashes, sessions) leave it holding.
+func TestAuditCatchesDataRows(t *testing.T) {
+	cases := []struct {
+		name string
+		sql  []string
+		args func(t *testing.T, path string) []any
+		want string // in Why; "" means verify must hold
+	}{
+		{name: "lot count in a large batch", sql: []string{"UPDATE lots SET count = count + 1 WHERE lot = 'H2-G0'"},
+			want: `process "Line 2 press", lot code H2-G0): stored values differ from the audit trail`},
+		{name: "lot count in a small batch", sql: []string{"UPDATE lots SET inspected = 201 WHERE lot = 'H2-B0'"},
+			want: `lot code H2-B0): stored values differ`},
+		{name: "lot count and its packed copy alike, small batch", sql: []string{"UPDATE lots SET count = 3, packed = ? WHERE lot = 'H2-B0'"},
+			args: func(t *testing.T, path string) []any {
+				return []any{packedOf(t, path, "H2-B0", func(l *Lot) { l.Count = 3 })}
+			},
+			want: `lot code H2-B0): stored values differ`},
+		{name: "lot count and its packed copy alike, large batch", sql: []string{"UPDATE lots SET count = 3, packed = ? WHERE lot = 'H2-G0'"},
+			args: func(t *testing.T, path string) []any {
+				return []any{packedOf(t, path, "H2-G0", func(l *Lot) { l.Count = 3 })}
+			},
+			want: `(process "Line 2 press"): stored values differ`},
+		{name: "only the packed copy", sql: []string{"UPDATE lots SET packed = ? WHERE lot = 'H2-H0'"},
+			args: func(t *testing.T, path string) []any {
+				return []any{packedOf(t, path, "H2-H0", func(l *Lot) { l.Count = 0; l.Inspected = 5000 })}
+			},
+			want: `lot code H2-H0): stored values differ`},
+		{name: "lot removed", sql: []string{"DELETE FROM lots WHERE lot = 'H2-K0'"},
+			want: `was removed behind lotwatch's back`},
+		{name: "category counts removed", sql: []string{"UPDATE lots SET categories = '' WHERE lot = 'H2-J0'"},
+			want: `lot code H2-J0): stored values differ`},
+		{name: "one category count changed", sql: []string{`UPDATE lots SET categories = '{"dent":0}' WHERE lot = 'H2-F0'`},
+			want: `lot code H2-F0): stored values differ`},
+		{name: "corrected lot edited", sql: []string{"UPDATE lots SET note = 'fine' WHERE lot = 'H2-C0'"},
+			want: `lot code H2-C0): stored values differ`},
+		{name: "voided lot revived", sql: []string{"UPDATE lots SET voided = 0 WHERE lot = 'H2-D0'"},
+			want: `lot code H2-D0): stored values differ`},
+		{name: "first revision edited", sql: []string{"UPDATE lot_revisions SET count = 0 WHERE revision = 1"},
+			want: `stored values differ`},
+		{name: "revision removed", sql: []string{"DELETE FROM lot_revisions"},
+			want: `its revisions differ from the audit trail`},
+		{name: "lot added", sql: []string{`INSERT INTO lots (process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason, packed)
+			SELECT process_id, 'H2-Z9', time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason, packed FROM lots WHERE lot = 'P-2'`},
+			want: `lot code H2-Z9): is not in the audit trail`},
+		{name: "process limits", sql: []string{"UPDATE processes SET k = 2 WHERE name = 'Line 2 press'"},
+			want: `process 1 ("Line 2 press"): stored values differ`},
+		{name: "process removed", sql: []string{"PRAGMA foreign_keys = OFF", "DELETE FROM processes WHERE name = 'Paint'"},
+			want: `process 2: was removed`},
+		{name: "user role", sql: []string{"UPDATE users SET role = 'admin' WHERE name = 'bo'"},
+			want: `user 2 ("bo"): stored values differ`},
+		{name: "user reactivated", sql: []string{"UPDATE users SET active = 1 WHERE name = 'bo'"},
+			want: `user 2 ("bo"): stored values differ`},
+		{name: "token unrevoked", sql: []string{"UPDATE tokens SET revoked = 0"},
+			want: `token 1 ("station 1" of user "ana"): stored values differ`},
+		{name: "limit set centre", sql: []string{"UPDATE limit_sets SET center = 0.01"},
+			want: `limit set 1 (number 1 of process "Line 2 press"): stored values differ`},
+		{name: "annotation reopened", sql: []string{"UPDATE annotations SET closed = 0 WHERE id = 1"},
+			want: `annotation 1 (process "Line 2 press"): stored values differ`},
+		{name: "annotation removed", sql: []string{"DELETE FROM annotations WHERE id = 2"},
+			want: `annotation 2: was removed`},
+		{name: "password hash (not covered)", sql: []string{"UPDATE users SET password_hash = 'x'"}},
+		{name: "sessions (not covered)", sql: []string{"DELETE FROM sessions"}},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			path := filepath.Join(t.TempDir(), "lotwatch.db")
+			writeSchema1Fixture(t, path) // verifies that the untouched database holds
+			var args []any
+			if c.args != nil {
+				args = c.args(t, path)
+			}
+			raw := rawSQL(t, path)
+			for _, q := range c.sql {
+				a := args
+				if !strings.Contains(q, "?") {
+					a = nil
+				}
+				if _, err := raw.Exec(q, a...); err != nil {
+					t.Fatalf("%s: %v", q, err)
+				}
+			}
+			raw.Close()
+			chk := verifyFile(t, path)
+			if c.want == "" {
+				if !chk.OK {
+					t.Fatalf("verify failed after a change it does not cover: %+v", chk)
+				}
+				return
+			}
+			t.Log(chk.Why)
+			if chk.OK || chk.Entity == "" || !strings.Contains(chk.Why, c.want) {
+				t.Fatalf("verify: %+v\nwant a failure saying %q", chk, c.want)
+			}
+		})
+	}
+}
+
+// A database written at schema 1 is upgraded by migration 0002: the packed
+// copies are filled, one migration entry is appended, and the trail holds
+// (the rows are checked against the entries they were written with).
+func TestMigration0002FromSchema1(t *testing.T) {
+	path := fixtureCopy(t)
+	raw := rawSQL(t, path)
+	var before int
+	var colsBefore []Lot
+	if err := raw.QueryRow("SELECT COUNT(*) FROM audit").Scan(&before); err != nil {
+		t.Fatal(err)
+	}
+	rows, err := raw.Query("SELECT " + lotCols + " FROM lots WHERE voided = 0 AND process_id = 1 ORDER BY time, id")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for rows.Next() {
+		var l Lot
+		if err := scanLot(rows, &l, time.UTC); err != nil {
+			t.Fatal(err)
+		}
+		colsBefore = append(colsBefore, l)
+	}
+	rows.Close()
+	raw.Close()
+
+	db, err := Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	chk, err := db.VerifyAudit(ctx)
+	if err != nil || !chk.OK || chk.Entries != before+1 {
+		t.Fatalf("after migration: %+v %v (had %d entries)", chk, err, before)
+	}
+	es, err := db.AuditFor(ctx, "schema", 2)
+	if err != nil || len(es) != 1 || es[0].Action != "migrate" || !strings.Contains(es[0].New, `"lots_packed":32`) {
+		t.Fatalf("migration entry: %+v %v", es, err)
+	}
+	lots, err := db.Lots(ctx, 1, time.Time{}, time.Time{})
+	if err != nil || len(lots) != len(colsBefore) {
+		t.Fatalf("lots after migration: %d (want %d) %v", len(lots), len(colsBefore), err)
+	}
+	for i, l := range lots {
+		w := colsBefore[i]
+		if l.ID != w.ID || l.Lot != w.Lot || !l.Time.Equal(w.Time) || l.Count != w.Count || l.Inspected != w.Inspected ||
+			len(l.Categories) != len(w.Categories) || l.Categories["dent"] != w.Categories["dent"] || l.Note != w.Note || l.Revision != w.Revision {
+			t.Errorf("lot %d after migration %+v, stored before %+v", i, l, w)
+		}
+	}
+	db.Close()
+	// Opening again applies nothing more.
+	if chk := verifyFile(t, path); !chk.OK || chk.Entries != before+1 {
+		t.Fatalf("reopened: %+v", chk)
+	}
+}
+
+// A row changed behind lotwatch's back before the upgrade is still found
+// after it: the migration does not bless what it finds.
+func TestMigration0002KeepsEarlierTamperingVisible(t *testing.T) {
+	path := fixtureCopy(t)
+	raw := rawSQL(t, path)
+	if _, err := raw.Exec("UPDATE lots SET count = 0 WHERE lot = 'H2-B0'"); err != nil {
+		t.Fatal(err)
+	}
+	raw.Close()
+	chk := verifyFile(t, path)
+	if chk.OK || !strings.Contains(chk.Why, "lot code H2-B0): stored values differ") {
+		t.Fatalf("verify: %+v", chk)
+	}
+}
+
+// A fresh database gets no migration entry: its trail starts with the
+// first change a user makes.
+func TestMigrationNewDatabaseNoEntry(t *testing.T) {
+	db, _ := openTemp(t)
+	chk, err := db.VerifyAudit(ctx)
+	if err != nil || !chk.OK || chk.Entries != 0 {
+		t.Fatalf("%+v %v", chk, err)
+	}
+}

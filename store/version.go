@@ -1,0 +1,42 @@
+package store
+
+import (
+	"context"
+	"database/sql"
+	"errors"
+)
+
+// LotsVersion is the change counter of what a process's chart is drawn
+// from (its lots, limit sets and settings), read from lot_versions.
+// Version grows with every such write and is 0 before the first; Rewrites
+// grows only with the writes that change a stored lot or the way lots are
+// judged (a correction, a void, a limit set, new process settings). So a
+// reader holding the lots as of an earlier value with the same Rewrites
+// needs only the lots added since (ids are handed out in increasing
+// order). Both are bumped in the transaction of the write, so any process
+// writing the file (the server, an import from the command line) is seen.
+type LotsVersion struct {
+	Version  int64
+	Rewrites int64
+}
+
+// LotsVersion returns the process's change counter.
+func (db *DB) LotsVersion(ctx context.Context, processID int64) (LotsVersion, error) {
+	var v LotsVersion
+	err := db.r.QueryRowContext(ctx, "SELECT version, rewrites FROM lot_versions WHERE process_id = ?", processID).Scan(&v.Version, &v.Rewrites)
+	if errors.Is(err, sql.ErrNoRows) {
+		return LotsVersion{}, nil
+	}
+	return v, err
+}
+
+// bumpVersion counts a change of the process's chart data in the writer
+// transaction.
+func (w *wtx) bumpVersion(processID int64, rewrite bool) error {
+	r := 0
+	if rewrite {
+		r = 1
+	}
+	_, err := w.db.execIn(w.Tx, qBumpVersion, processID, r)
+	return err
+}
