@@ -387,20 +387,20 @@ func (s *stats) df(standard bool) int {
 // accumulated into it. It returns the number of lots whose lower limit
 // is 0 in the chart's units.
 //
-// Everything that depends on the lot size alone — σᵢ, the limits, the
-// fields written to the point — is computed once per distinct size (see
-// prepare), so that a lot costs its value, its z, a cached tail
-// probability and a step of the rule engine.
+// Everything of a point but its lot, its index and its exclusion depends
+// on its lot size and count alone, so it is computed once per distinct
+// pair (see pointTable) and a lot costs two look-ups, the writes of its
+// point and a step of the rule engine.
 func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Config, rate, sz float64, e *ruleEngine, st *stats) (cnt pointCounts) {
 	pts := a.Points
 	k := cfg.K
-	exact := cfg.Method == MethodExact
-	dc := newDistCache(cfg.Chart, rate, a.Alpha/2, maxN)
-	dense := dc.dense
-	perUnit := cfg.Chart == ChartP || cfg.Chart == ChartU
 	stepping := e != nil && e.set != 0
-	laney := sz != 1
-	std := cfg.Standardized
+	// Without the Nelson trend rules the engine's per-lot state fits in
+	// registers: the loop advances it from the zone bits of the lot's
+	// record and calls the engine only when a rule may be met.
+	fast := stepping && !e.nelson
+	t := newPointTable(cfg, rate, sz, a.Alpha/2, maxN, e)
+	dense := t.dense
 	// The baseline statistics, kept in registers rather than in *st.
 	accumulate := st != nil
 	var chi, mr, prev float64
@@ -409,15 +409,10 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	if accumulate {
 		chi, mr, prev, m, nmr, havePrev = st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev
 	}
-	// Without the Nelson trend rules the engine's per-lot state fits in
-	// registers: the loop advances it and calls the engine only when a
-	// rule may be met.
-	fast := stepping && !e.nelson
 	var regs ruleRegs
-	var z1, z2 float64
 	var beyond uint8
 	if fast {
-		regs, z1, z2, beyond = e.regs, k/3, 2*k/3, e.beyond
+		regs, beyond = e.regs, e.beyond
 	}
 	_ = pts[:len(lots)]
 	for i := range lots {
@@ -428,22 +423,26 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 		q.Lot = *l
 		ex := excluded != nil && excluded[i]
 		q.Excluded = ex
-		var d *countDist
-		if uint64(l.Inspected) < uint64(len(dense)) {
-			d = dense[l.Inspected]
+		s := int32(-1)
+		if n := uint64(l.Inspected); n < uint64(len(dense)) {
+			s = dense[n] - 1
 		}
-		if d == nil || !d.ready {
-			d = dc.get(l.Inspected)
-			if !d.ready {
-				d.prepare(cfg, rate, sz, float64(l.Inspected), exact, perUnit)
-			}
+		if s < 0 {
+			s = t.slot(l.Inspected)
 		}
-		v := float64(l.Count)
-		if perUnit {
-			v /= float64(l.Inspected)
+		en := &t.sizes[s]
+		en.lots++
+		var r *pointRec
+		if j := uint64(l.Count - en.lo); j < uint64(len(en.recs)) && en.recs[j].flags&recReady != 0 {
+			r = &en.recs[j]
+		} else {
+			r = t.record(s, l.Count)
 		}
-		z := zOf(v-d.ctr, d.sig)
+		f := r.flags
+		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
+		q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
 		if accumulate && !ex {
+			z := r.zSigma
 			m++
 			chi += z * z
 			if havePrev {
@@ -452,32 +451,10 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 			}
 			prev, havePrev = z, true
 		}
-		cnt.small += d.smallLot
-		cnt.lclZero += d.lclZeroLot
-		if laney {
-			z = zOf(v-d.ctr, d.sigS)
-		}
-		if exact {
-			q.Above = l.Count > d.ucl
-			q.Below = l.Count < d.lcl
-		} else {
-			q.Above = v > d.uclV
-			q.Below = v < d.lclV
-		}
-		// d.tail, inlined.
-		if t, j := d.tails, uint64(l.Count-d.tailLo); j < uint64(len(t)) && t[j] == t[j] {
-			q.TailP = t[j]
-		} else {
-			q.TailP = d.tailSlow(l.Count)
-		}
-		if std {
-			v = z
-		}
-		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z = v, d.outCtr, d.outUCL, d.outLCL, d.outSig, z
 		if fast {
 			var may uint8
-			regs, may = regs.advance(z, z1, z2, e.zones, e.sides)
-			if may|beyond&(b2u(q.Above)|b2u(q.Below)) != 0 {
+			regs, may = regs.advanceBits(r.zones, f)
+			if may|beyond&(f>>recAboveBit|f>>recBelowBit) != 0 {
 				e.regs = regs
 				e.fire(i, q, k)
 			}
@@ -491,7 +468,162 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	if accumulate {
 		st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev = chi, mr, prev, m, nmr, havePrev
 	}
+	for si := range t.sizes {
+		en := &t.sizes[si]
+		d := t.dists[si]
+		cnt.small += en.lots * d.smallLot
+		cnt.lclZero += en.lots * d.lclZeroLot
+	}
 	return cnt
+}
+
+// pointRec is what a point of one lot size and count gets: its Value, Z
+// and TailP, its sigma-method z (for the baseline statistics), its bits
+// of ruleRegs.zones and its flags.
+type pointRec struct {
+	value, z, zSigma, tail float64
+	zones                  uint32
+	flags                  uint8
+}
+
+// The bits of pointRec.flags.
+const (
+	recReadyBit = iota // the record is filled in
+	recAboveBit        // beyond the UCL
+	recBelowBit        // below the LCL
+	recPosBit          // z > 0, when a same-side rule is selected
+	recNegBit          // z < 0, likewise
+
+	recReady = 1 << recReadyBit
+	recAbove = 1 << recAboveBit
+	recBelow = 1 << recBelowBit
+	recPos   = 1 << recPosBit
+	recNeg   = 1 << recNegBit
+)
+
+// sizeEntry is the part of pointTable for one lot size: the records of
+// the counts lo … lo+len(recs)−1, the Center, UCL, LCL and Sigma of its
+// points and the number of its lots.
+type sizeEntry struct {
+	recs               []pointRec
+	lo                 int64
+	ctr, ucl, lcl, sig float64
+	lots               int
+}
+
+// pointTable holds, per distinct lot size, a sizeEntry (in one
+// contiguous slice, found through dense for small sizes) and the count
+// distribution, and fills each record the first time its count is seen.
+type pointTable struct {
+	cfg                   Config
+	rate, sz              float64
+	exact, perUnit, laney bool
+	zones, sides          bool
+	z1, z2                float64
+	dc                    *distCache
+	dense                 []int32 // slot+1 by lot size; 0 until seen
+	byN                   map[int64]int32
+	lastKey               int64
+	lastSlot              int32
+	sizes                 []sizeEntry
+	dists                 []*countDist
+	ns                    []float64
+	scratch               pointRec // the record of a count outside the window
+}
+
+func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, e *ruleEngine) *pointTable {
+	t := &pointTable{
+		cfg: cfg, rate: rate, sz: sz,
+		exact:   cfg.Method == MethodExact,
+		perUnit: cfg.Chart == ChartP || cfg.Chart == ChartU,
+		laney:   sz != 1,
+		dc:      newDistCache(cfg.Chart, rate, alpha2, 0),
+		byN:     make(map[int64]int32),
+		lastKey: -1,
+	}
+	if e != nil && e.set != 0 && !e.nelson {
+		t.zones, t.sides = e.zones, e.sides
+		t.z1, t.z2 = cfg.K/3, 2*cfg.K/3
+	}
+	if cfg.Chart != ChartC && maxN < denseSizes {
+		t.dense = make([]int32, maxN+1)
+	}
+	return t
+}
+
+// slot returns the index in t.sizes of lots of n inspected, adding it
+// the first time.
+func (t *pointTable) slot(n int64) int32 {
+	key := n
+	if t.cfg.Chart == ChartC {
+		key = 0 // the same points whatever the lot size
+	}
+	if key == t.lastKey {
+		return t.lastSlot
+	}
+	s, ok := t.byN[key]
+	if !ok {
+		d := t.dc.get(n)
+		if !d.ready {
+			d.prepare(t.cfg, t.rate, t.sz, float64(n), t.exact, t.perUnit)
+		}
+		s = int32(len(t.sizes))
+		en := sizeEntry{ctr: d.outCtr, ucl: d.outUCL, lcl: d.outLCL, sig: d.outSig}
+		if lo, size, ok := d.window(); ok {
+			en.lo, en.recs = lo, make([]pointRec, size)
+		}
+		t.sizes = append(t.sizes, en)
+		t.dists = append(t.dists, d)
+		t.ns = append(t.ns, float64(n))
+		t.byN[key] = s
+		if key < int64(len(t.dense)) {
+			t.dense[key] = s + 1
+		}
+	}
+	t.lastKey, t.lastSlot = key, s
+	return s
+}
+
+// record returns the record of count in slot s, filling it in.
+func (t *pointTable) record(s int32, count int64) *pointRec {
+	d := t.dists[s]
+	v := float64(count)
+	if t.perUnit {
+		v /= t.ns[s]
+	}
+	var r pointRec
+	r.zSigma = zOf(v-d.ctr, d.sig)
+	r.z = r.zSigma
+	if t.laney {
+		r.z = zOf(v-d.ctr, d.sigS)
+	}
+	var above, below bool
+	if t.exact {
+		above, below = count > d.ucl, count < d.lcl
+	} else {
+		above, below = v > d.uclV, v < d.lclV
+	}
+	r.tail = d.tailDirect(count)
+	if t.cfg.Standardized {
+		v = r.z
+	}
+	r.value = v
+	z := r.z
+	if t.zones {
+		r.zones = uint32(b2u(z > t.z2))<<hi2Shift | uint32(b2u(z < -t.z2))<<lo2Shift |
+			uint32(b2u(z > t.z1))<<hi1Shift | uint32(b2u(z < -t.z1))<<lo1Shift
+	}
+	r.flags = recReady | b2u(above)<<recAboveBit | b2u(below)<<recBelowBit
+	if t.sides {
+		r.flags |= b2u(z > 0)<<recPosBit | b2u(z < 0)<<recNegBit
+	}
+	en := &t.sizes[s]
+	if j := uint64(count - en.lo); j < uint64(len(en.recs)) {
+		en.recs[j] = r
+		return &en.recs[j]
+	}
+	t.scratch = r
+	return &t.scratch
 }
 
 // prepare computes, once per lot size, everything of a point that does

@@ -280,6 +280,20 @@ func (r ruleRegs) advance(z, z1, z2 float64, zones, sides bool) (ruleRegs, uint8
 	return r, may
 }
 
+// advanceBits is advance for a lot whose comparisons of z are already
+// made: zones holds its bits of the zone registers (0 when no zone rule
+// is selected) and flags its recPos and recNeg bits (0 when no same-side
+// rule is selected).
+func (r ruleRegs) advanceBits(zones uint32, flags uint8) (ruleRegs, uint8) {
+	r.zones = r.zones<<1&0xfefefefe | zones
+	may := twoOfThree[r.zones>>hi2Shift&7] | twoOfThree[r.zones>>lo2Shift&7] |
+		fourOfFive[r.zones>>hi1Shift&31] | fourOfFive[r.zones>>lo1Shift&31]
+	r.runAbove = (r.runAbove + 1) * int(flags>>recPosBit&1)
+	r.runBelow = (r.runBelow + 1) * int(flags>>recNegBit&1)
+	may |= b2u(r.runAbove >= 8) | b2u(r.runBelow >= 8)
+	return r, may
+}
+
 // stepNelson updates the trend, alternation and zone-run counts.
 func (e *ruleEngine) stepNelson(z, z1 float64) {
 	if e.havePrev {
