@@ -400,6 +400,9 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	// record and calls the engine only when a rule may be met.
 	fast := stepping && !e.nelson
 	t := newPointTable(cfg, rate, sz, a.Alpha/2, maxN, e)
+	if stepping {
+		e.pts = pts
+	}
 	dense := t.dense
 	// The baseline statistics, kept in registers rather than in *st.
 	accumulate := st != nil
