@@ -224,7 +224,18 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 	excluding := len(cfg.Exclude) > 0
 	var excluded []bool // nil when no lot is excluded
 	units := cfg.Chart.CountsUnits()
+	whole := false
+	if !excluding {
+		var lo, hi int64
+		var n, c float64
+		if lo, hi, n, c, whole = sumWhole(lots, units); whole {
+			minN, maxN, allN, sumN, sumC, m = lo, hi, n, n, c, len(lots)
+		}
+	}
 	for i := range lots {
+		if whole {
+			break
+		}
 		l := &lots[i]
 		// The conditions of CheckLot, tested inline; CheckLot words the error.
 		if l.Inspected <= 0 || l.Count < 0 || (units && l.Count > l.Inspected) {
@@ -304,6 +315,35 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 	}
 	diagnose(a, cfg, minN, maxN, sigmaZ, cnt)
 	return a, nil
+}
+
+// sumWhole returns the smallest and largest lot size and the sums of the
+// sizes and counts of lots with none excluded, summed in integers. ok is
+// false when a lot fails the checks of CheckLot or when a running sum in
+// floating point might not be exact (the largest term times the number of
+// lots reaches 2⁵³), so that only then are the lots summed one by one as
+// floating-point numbers, which gives the same sums.
+func sumWhole(lots []Lot, units bool) (minN, maxN int64, sumN, sumC float64, ok bool) {
+	minN, maxN = lots[0].Inspected, lots[0].Inspected
+	var n, c, maxC int64
+	bad := false
+	for i := range lots {
+		l := &lots[i]
+		if l.Inspected <= 0 || l.Count < 0 || (units && l.Count > l.Inspected) {
+			bad = true
+		}
+		minN = min(minN, l.Inspected)
+		maxN = max(maxN, l.Inspected)
+		maxC = max(maxC, l.Count)
+		n += l.Inspected
+		c += l.Count
+	}
+	const exact = 1 << 53
+	m := float64(len(lots))
+	if bad || float64(maxN)*m >= exact || float64(maxC)*m >= exact {
+		return 0, 0, 0, 0, false
+	}
+	return minN, maxN, float64(n), float64(c), true
 }
 
 // model returns the plotted value, centre and σᵢ of a lot with n
@@ -445,7 +485,7 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
 		q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
 		if accumulate && !ex {
-			z := r.zSigma
+			z := r.z
 			m++
 			chi += z * z
 			if havePrev {
@@ -481,12 +521,13 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 }
 
 // pointRec is what a point of one lot size and count gets: its Value, Z
-// and TailP, its sigma-method z (for the baseline statistics), its bits
-// of ruleRegs.zones and its flags.
+// and TailP, its bits of ruleRegs.zones and its flags. Z is also the
+// sigma-method z of the baseline statistics, which are accumulated only
+// with σ_z = 1.
 type pointRec struct {
-	value, z, zSigma, tail float64
-	zones                  uint32
-	flags                  uint8
+	value, z, tail float64
+	zones          uint32
+	flags          uint8
 }
 
 // The bits of pointRec.flags.
@@ -595,8 +636,7 @@ func (t *pointTable) record(s int32, count int64) *pointRec {
 		v /= t.ns[s]
 	}
 	var r pointRec
-	r.zSigma = zOf(v-d.ctr, d.sig)
-	r.z = r.zSigma
+	r.z = zOf(v-d.ctr, d.sig)
 	if t.laney {
 		r.z = zOf(v-d.ctr, d.sigS)
 	}
