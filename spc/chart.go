@@ -443,7 +443,6 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	if stepping {
 		e.pts = pts
 	}
-	dense := t.dense
 	// The baseline statistics, kept in registers rather than in *st.
 	accumulate := st != nil
 	var chi, mr, prev float64
@@ -458,29 +457,97 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 		regs, beyond = e.regs, e.beyond
 	}
 	_ = pts[:len(lots)]
-	for i := range lots {
+	if fast || !stepping {
+		// The common case runs in runPoints, which makes no call and so
+		// keeps its state in registers; it stops at a lot that needs the
+		// table filled in, or after a lot at which a rule may be met.
+		rs := runState{chi: chi, mr: mr, prev: prev, m: m, nmr: nmr, havePrev: havePrev, regs: regs}
+		for i := 0; i < len(lots); {
+			var fire bool
+			i, fire = t.runPoints(lots, pts, excluded, i, &rs, accumulate, fast, beyond)
+			if fire {
+				e.regs = rs.regs
+				e.fire(i-1, &pts[i-1], k)
+				continue
+			}
+			if i < len(lots) {
+				// One lot the slow way, like the loop below.
+				rs.regs, fire = t.onePoint(lots, pts, excluded, i, &rs, accumulate, fast, beyond)
+				if fire {
+					e.regs = rs.regs
+					e.fire(i, &pts[i], k)
+				}
+				i++
+			}
+		}
+		chi, mr, prev, m, nmr, havePrev, regs = rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs
+	} else {
+		for i := range lots {
+			t.onePoint(lots, pts, excluded, i, nil, false, false, 0)
+			if accumulate && !(excluded != nil && excluded[i]) {
+				z := pts[i].Z
+				m++
+				chi += z * z
+				if havePrev {
+					mr += math.Abs(z - prev)
+					nmr++
+				}
+				prev, havePrev = z, true
+			}
+			e.step(i, &pts[i], k)
+		}
+	}
+	if fast {
+		e.regs = regs
+	}
+	if accumulate {
+		st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev = chi, mr, prev, m, nmr, havePrev
+	}
+	for si := range t.sizes {
+		en := &t.sizes[si]
+		d := t.dists[si]
+		cnt.small += en.lots * d.smallLot
+		cnt.lclZero += en.lots * d.lclZeroLot
+	}
+	return cnt
+}
+
+// runState is the state finishPoints carries from lot to lot: the
+// baseline statistics and the registers of the rule engine.
+type runState struct {
+	chi, mr, prev float64
+	m, nmr        int
+	havePrev      bool
+	regs          ruleRegs
+}
+
+// runPoints finishes lots from i on whose records are already filled in,
+// stopping before a lot whose record is not (or not in the table), and
+// after a lot at which a rule may be met (fire). It returns the index of
+// the next lot to finish.
+func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, accumulate, fast bool, beyond uint8) (next int, fire bool) {
+	dense, sizes := t.dense, t.sizes
+	chi, mr, prev, m, nmr, havePrev, regs := rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs
+	pts = pts[:len(lots)]
+	for ; i < len(lots); i++ {
 		l := &lots[i]
+		n := uint64(l.Inspected)
+		if n >= uint64(len(dense)) || dense[n] == 0 {
+			break
+		}
+		en := &sizes[dense[n]-1]
+		j := uint64(l.Count - en.lo)
+		if j >= uint64(len(en.recs)) || en.recs[j].flags&recReady == 0 {
+			break
+		}
+		r := &en.recs[j]
+		en.lots++
 		// Write each field of the fresh point once and never read it
 		// back before: the slice is new memory.
 		q := &pts[i]
 		q.Lot = *l
 		ex := excluded != nil && excluded[i]
 		q.Excluded = ex
-		s := int32(-1)
-		if n := uint64(l.Inspected); n < uint64(len(dense)) {
-			s = dense[n] - 1
-		}
-		if s < 0 {
-			s = t.slot(l.Inspected)
-		}
-		en := &t.sizes[s]
-		en.lots++
-		var r *pointRec
-		if j := uint64(l.Count - en.lo); j < uint64(len(en.recs)) && en.recs[j].flags&recReady != 0 {
-			r = &en.recs[j]
-		} else {
-			r = t.record(s, l.Count)
-		}
 		f := r.flags
 		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
 		q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
@@ -498,26 +565,55 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 			var may uint8
 			regs, may = regs.advanceBits(r.zones, f)
 			if may|beyond&(f>>recAboveBit|f>>recBelowBit) != 0 {
-				e.regs = regs
-				e.fire(i, q, k)
+				fire = true
+				i++
+				break
 			}
-		} else if stepping {
-			e.step(i, q, k)
 		}
 	}
-	if fast {
-		e.regs = regs
+	rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs = chi, mr, prev, m, nmr, havePrev, regs
+	return i, fire
+}
+
+// onePoint finishes lot i, filling in the table as needed, and, when rs
+// is not nil, steps its state as runPoints does, reporting whether a rule
+// may be met.
+func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, accumulate, fast bool, beyond uint8) (ruleRegs, bool) {
+	l := &lots[i]
+	s := t.slot(l.Inspected)
+	en := &t.sizes[s]
+	en.lots++
+	var r *pointRec
+	if j := uint64(l.Count - en.lo); j < uint64(len(en.recs)) && en.recs[j].flags&recReady != 0 {
+		r = &en.recs[j]
+	} else {
+		r = t.record(s, l.Count)
 	}
-	if accumulate {
-		st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev = chi, mr, prev, m, nmr, havePrev
+	q := &pts[i]
+	q.Lot = *l
+	ex := excluded != nil && excluded[i]
+	q.Excluded = ex
+	f := r.flags
+	q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
+	q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
+	if rs == nil {
+		return ruleRegs{}, false
 	}
-	for si := range t.sizes {
-		en := &t.sizes[si]
-		d := t.dists[si]
-		cnt.small += en.lots * d.smallLot
-		cnt.lclZero += en.lots * d.lclZeroLot
+	if accumulate && !ex {
+		z := r.z
+		rs.m++
+		rs.chi += z * z
+		if rs.havePrev {
+			rs.mr += math.Abs(z - rs.prev)
+			rs.nmr++
+		}
+		rs.prev, rs.havePrev = z, true
 	}
-	return cnt
+	if !fast {
+		return rs.regs, false
+	}
+	regs, may := rs.regs.advanceBits(r.zones, f)
+	return regs, may|beyond&(f>>recAboveBit|f>>recBelowBit) != 0
 }
 
 // pointRec is what a point of one lot size and count gets: its Value, Z
