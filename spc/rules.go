@@ -155,7 +155,8 @@ func ParseRules(s string) (RuleSet, error) {
 }
 
 // ruleEngine judges points one at a time with O(1) work and no allocation
-// per lot; it allocates only when a new signal starts.
+// per lot; it allocates only when a signal starts or grows, and then
+// only when a list of signals or lot IDs outgrows its capacity.
 //
 // Conventions (documented on Analyze): a pattern signals at the lot that
 // completes it, and that lot must itself take part in the pattern (for
