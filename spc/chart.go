@@ -224,7 +224,18 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 	excluding := len(cfg.Exclude) > 0
 	var excluded []bool // nil when no lot is excluded
 	units := cfg.Chart.CountsUnits()
+	whole := false
+	if !excluding {
+		var lo, hi int64
+		var n, c float64
+		if lo, hi, n, c, whole = sumWhole(lots, units); whole {
+			minN, maxN, allN, sumN, sumC, m = lo, hi, n, n, c, len(lots)
+		}
+	}
 	for i := range lots {
+		if whole {
+			break
+		}
 		l := &lots[i]
 		// The conditions of CheckLot, tested inline; CheckLot words the error.
 		if l.Inspected <= 0 || l.Inspected > MaxInspected || l.Count < 0 || l.Count > MaxInspected || (units && l.Count > l.Inspected) {
@@ -304,6 +315,35 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 	}
 	diagnose(a, cfg, minN, maxN, sigmaZ, cnt)
 	return a, nil
+}
+
+// sumWhole returns the smallest and largest lot size and the sums of the
+// sizes and counts of lots with none excluded, summed in integers. ok is
+// false when a lot fails the checks of CheckLot or when a running sum in
+// floating point might not be exact (the largest term times the number of
+// lots reaches 2⁵³), so that only then are the lots summed one by one as
+// floating-point numbers, which gives the same sums.
+func sumWhole(lots []Lot, units bool) (minN, maxN int64, sumN, sumC float64, ok bool) {
+	minN, maxN = lots[0].Inspected, lots[0].Inspected
+	var n, c, maxC int64
+	bad := false
+	for i := range lots {
+		l := &lots[i]
+		if l.Inspected <= 0 || l.Count < 0 || (units && l.Count > l.Inspected) {
+			bad = true
+		}
+		minN = min(minN, l.Inspected)
+		maxN = max(maxN, l.Inspected)
+		maxC = max(maxC, l.Count)
+		n += l.Inspected
+		c += l.Count
+	}
+	const exact = 1 << 53
+	m := float64(len(lots))
+	if bad || float64(maxN)*m >= exact || float64(maxC)*m >= exact {
+		return 0, 0, 0, 0, false
+	}
+	return minN, maxN, float64(n), float64(c), true
 }
 
 // model returns the plotted value, centre and σᵢ of a lot with n
@@ -387,20 +427,22 @@ func (s *stats) df(standard bool) int {
 // accumulated into it. It returns the number of lots whose lower limit
 // is 0 in the chart's units.
 //
-// Everything that depends on the lot size alone — σᵢ, the limits, the
-// fields written to the point — is computed once per distinct size (see
-// prepare), so that a lot costs its value, its z, a cached tail
-// probability and a step of the rule engine.
+// Everything of a point but its lot, its index and its exclusion depends
+// on its lot size and count alone, so it is computed once per distinct
+// pair (see pointTable) and a lot costs two look-ups, the writes of its
+// point and a step of the rule engine.
 func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Config, rate, sz float64, e *ruleEngine, st *stats) (cnt pointCounts) {
 	pts := a.Points
 	k := cfg.K
-	exact := cfg.Method == MethodExact
-	dc := newDistCache(cfg.Chart, rate, a.Alpha/2, maxN)
-	dense := dc.dense
-	perUnit := cfg.Chart == ChartP || cfg.Chart == ChartU
 	stepping := e != nil && e.set != 0
-	laney := sz != 1
-	std := cfg.Standardized
+	// Without the Nelson trend rules the engine's per-lot state fits in
+	// registers: the loop advances it from the zone bits of the lot's
+	// record and calls the engine only when a rule may be met.
+	fast := stepping && !e.nelson
+	t := newPointTable(cfg, rate, sz, a.Alpha/2, maxN, e)
+	if stepping {
+		e.pts = pts
+	}
 	// The baseline statistics, kept in registers rather than in *st.
 	accumulate := st != nil
 	var chi, mr, prev float64
@@ -409,80 +451,50 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	if accumulate {
 		chi, mr, prev, m, nmr, havePrev = st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev
 	}
-	// Without the Nelson trend rules the engine's per-lot state fits in
-	// registers: the loop advances it and calls the engine only when a
-	// rule may be met.
-	fast := stepping && !e.nelson
 	var regs ruleRegs
-	var z1, z2 float64
 	var beyond uint8
 	if fast {
-		regs, z1, z2, beyond = e.regs, k/3, 2*k/3, e.beyond
+		regs, beyond = e.regs, e.beyond
 	}
 	_ = pts[:len(lots)]
-	for i := range lots {
-		l := &lots[i]
-		// Write each field of the fresh point once and never read it
-		// back before: the slice is new memory.
-		q := &pts[i]
-		q.Lot = *l
-		ex := excluded != nil && excluded[i]
-		q.Excluded = ex
-		var d *countDist
-		if uint64(l.Inspected) < uint64(len(dense)) {
-			d = dense[l.Inspected]
-		}
-		if d == nil || !d.ready {
-			d = dc.get(l.Inspected)
-			if !d.ready {
-				d.prepare(cfg, rate, sz, float64(l.Inspected), exact, perUnit)
+	if fast || !stepping {
+		// The common case runs in runPoints, which makes no call and so
+		// keeps its state in registers; it stops at a lot that needs the
+		// table filled in, or after a lot at which a rule may be met.
+		rs := runState{chi: chi, mr: mr, prev: prev, m: m, nmr: nmr, havePrev: havePrev, regs: regs}
+		for i := 0; i < len(lots); {
+			var fire bool
+			i, fire = t.runPoints(lots, pts, excluded, i, &rs, accumulate, fast, beyond)
+			if fire {
+				e.regs = rs.regs
+				e.fire(i-1, &pts[i-1], k)
+				continue
+			}
+			if i < len(lots) {
+				// One lot the slow way, like the loop below.
+				rs.regs, fire = t.onePoint(lots, pts, excluded, i, &rs, accumulate, fast, beyond)
+				if fire {
+					e.regs = rs.regs
+					e.fire(i, &pts[i], k)
+				}
+				i++
 			}
 		}
-		v := float64(l.Count)
-		if perUnit {
-			v /= float64(l.Inspected)
-		}
-		z := zOf(v-d.ctr, d.sig)
-		if accumulate && !ex {
-			m++
-			chi += z * z
-			if havePrev {
-				mr += math.Abs(z - prev)
-				nmr++
+		chi, mr, prev, m, nmr, havePrev, regs = rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs
+	} else {
+		for i := range lots {
+			t.onePoint(lots, pts, excluded, i, nil, false, false, 0)
+			if accumulate && !(excluded != nil && excluded[i]) {
+				z := pts[i].Z
+				m++
+				chi += z * z
+				if havePrev {
+					mr += math.Abs(z - prev)
+					nmr++
+				}
+				prev, havePrev = z, true
 			}
-			prev, havePrev = z, true
-		}
-		cnt.small += d.smallLot
-		cnt.lclZero += d.lclZeroLot
-		if laney {
-			z = zOf(v-d.ctr, d.sigS)
-		}
-		if exact {
-			q.Above = l.Count > d.ucl
-			q.Below = l.Count < d.lcl
-		} else {
-			q.Above = v > d.uclV
-			q.Below = v < d.lclV
-		}
-		// d.tail, inlined.
-		if t, j := d.tails, uint64(l.Count-d.tailLo); j < uint64(len(t)) && t[j] == t[j] {
-			q.TailP = t[j]
-		} else {
-			q.TailP = d.tailSlow(l.Count)
-		}
-		if std {
-			v = z
-		}
-		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z = v, d.outCtr, d.outUCL, d.outLCL, d.outSig, z
-		if fast {
-			var may uint8
-			regs, may = regs.advance(z, z1, z2, e.zones, e.sides)
-			if may|beyond&(b2u(q.Above)|b2u(q.Below)) != 0 {
-				e.regs = regs
-				e.fire(i, q, k)
-			}
-		} else if stepping {
-			e.step(i, q, k)
+			e.step(i, &pts[i], k)
 		}
 	}
 	if fast {
@@ -491,7 +503,266 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	if accumulate {
 		st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev = chi, mr, prev, m, nmr, havePrev
 	}
+	for si := range t.sizes {
+		en := &t.sizes[si]
+		d := t.dists[si]
+		cnt.small += en.lots * d.smallLot
+		cnt.lclZero += en.lots * d.lclZeroLot
+	}
 	return cnt
+}
+
+// runState is the state finishPoints carries from lot to lot: the
+// baseline statistics and the registers of the rule engine.
+type runState struct {
+	chi, mr, prev float64
+	m, nmr        int
+	havePrev      bool
+	regs          ruleRegs
+}
+
+// runPoints finishes lots from i on whose records are already filled in,
+// stopping before a lot whose record is not (or not in the table), and
+// after a lot at which a rule may be met (fire). It returns the index of
+// the next lot to finish.
+func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, accumulate, fast bool, beyond uint8) (next int, fire bool) {
+	dense, sizes := t.dense, t.sizes
+	chi, mr, prev, m, nmr, havePrev, regs := rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs
+	pts = pts[:len(lots)]
+	for ; i < len(lots); i++ {
+		l := &lots[i]
+		n := uint64(l.Inspected)
+		if n >= uint64(len(dense)) || dense[n] == 0 {
+			break
+		}
+		en := &sizes[dense[n]-1]
+		j := uint64(l.Count - en.lo)
+		if j >= uint64(len(en.recs)) || en.recs[j].flags&recReady == 0 {
+			break
+		}
+		r := &en.recs[j]
+		en.lots++
+		// Write each field of the fresh point once and never read it
+		// back before: the slice is new memory.
+		q := &pts[i]
+		q.Lot = *l
+		ex := excluded != nil && excluded[i]
+		q.Excluded = ex
+		f := r.flags
+		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
+		q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
+		if accumulate && !ex {
+			z := r.z
+			m++
+			chi += z * z
+			if havePrev {
+				mr += math.Abs(z - prev)
+				nmr++
+			}
+			prev, havePrev = z, true
+		}
+		if fast {
+			var may uint8
+			regs, may = regs.advanceBits(r.zones, f)
+			if may|beyond&(f>>recAboveBit|f>>recBelowBit) != 0 {
+				fire = true
+				i++
+				break
+			}
+		}
+	}
+	rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs = chi, mr, prev, m, nmr, havePrev, regs
+	return i, fire
+}
+
+// onePoint finishes lot i, filling in the table as needed, and, when rs
+// is not nil, steps its state as runPoints does, reporting whether a rule
+// may be met.
+func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, accumulate, fast bool, beyond uint8) (ruleRegs, bool) {
+	l := &lots[i]
+	s := t.slot(l.Inspected)
+	en := &t.sizes[s]
+	en.lots++
+	var r *pointRec
+	if j := uint64(l.Count - en.lo); j < uint64(len(en.recs)) && en.recs[j].flags&recReady != 0 {
+		r = &en.recs[j]
+	} else {
+		r = t.record(s, l.Count)
+	}
+	q := &pts[i]
+	q.Lot = *l
+	ex := excluded != nil && excluded[i]
+	q.Excluded = ex
+	f := r.flags
+	q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
+	q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
+	if rs == nil {
+		return ruleRegs{}, false
+	}
+	if accumulate && !ex {
+		z := r.z
+		rs.m++
+		rs.chi += z * z
+		if rs.havePrev {
+			rs.mr += math.Abs(z - rs.prev)
+			rs.nmr++
+		}
+		rs.prev, rs.havePrev = z, true
+	}
+	if !fast {
+		return rs.regs, false
+	}
+	regs, may := rs.regs.advanceBits(r.zones, f)
+	return regs, may|beyond&(f>>recAboveBit|f>>recBelowBit) != 0
+}
+
+// pointRec is what a point of one lot size and count gets: its Value, Z
+// and TailP, its bits of ruleRegs.zones and its flags. Z is also the
+// sigma-method z of the baseline statistics, which are accumulated only
+// with σ_z = 1.
+type pointRec struct {
+	value, z, tail float64
+	zones          uint32
+	flags          uint8
+}
+
+// The bits of pointRec.flags.
+const (
+	recReadyBit = iota // the record is filled in
+	recAboveBit        // beyond the UCL
+	recBelowBit        // below the LCL
+	recPosBit          // z > 0, when a same-side rule is selected
+	recNegBit          // z < 0, likewise
+
+	recReady = 1 << recReadyBit
+	recAbove = 1 << recAboveBit
+	recBelow = 1 << recBelowBit
+	recPos   = 1 << recPosBit
+	recNeg   = 1 << recNegBit
+)
+
+// sizeEntry is the part of pointTable for one lot size: the records of
+// the counts lo … lo+len(recs)−1, the Center, UCL, LCL and Sigma of its
+// points and the number of its lots.
+type sizeEntry struct {
+	recs               []pointRec
+	lo                 int64
+	ctr, ucl, lcl, sig float64
+	lots               int
+}
+
+// pointTable holds, per distinct lot size, a sizeEntry (in one
+// contiguous slice, found through dense for small sizes) and the count
+// distribution, and fills each record the first time its count is seen.
+type pointTable struct {
+	cfg                   Config
+	rate, sz              float64
+	exact, perUnit, laney bool
+	zones, sides          bool
+	z1, z2                float64
+	dc                    *distCache
+	dense                 []int32 // slot+1 by lot size; 0 until seen
+	byN                   map[int64]int32
+	lastKey               int64
+	lastSlot              int32
+	sizes                 []sizeEntry
+	dists                 []*countDist
+	ns                    []float64
+	scratch               pointRec // the record of a count outside the window
+}
+
+func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, e *ruleEngine) *pointTable {
+	t := &pointTable{
+		cfg: cfg, rate: rate, sz: sz,
+		exact:   cfg.Method == MethodExact,
+		perUnit: cfg.Chart == ChartP || cfg.Chart == ChartU,
+		laney:   sz != 1,
+		dc:      newDistCache(cfg.Chart, rate, alpha2, 0),
+		byN:     make(map[int64]int32),
+		lastKey: -1,
+	}
+	if e != nil && e.set != 0 && !e.nelson {
+		t.zones, t.sides = e.zones, e.sides
+		t.z1, t.z2 = cfg.K/3, 2*cfg.K/3
+	}
+	if cfg.Chart != ChartC && maxN < denseSizes {
+		t.dense = make([]int32, maxN+1)
+	}
+	return t
+}
+
+// slot returns the index in t.sizes of lots of n inspected, adding it
+// the first time.
+func (t *pointTable) slot(n int64) int32 {
+	key := n
+	if t.cfg.Chart == ChartC {
+		key = 0 // the same points whatever the lot size
+	}
+	if key == t.lastKey {
+		return t.lastSlot
+	}
+	s, ok := t.byN[key]
+	if !ok {
+		d := t.dc.get(n)
+		if !d.ready {
+			d.prepare(t.cfg, t.rate, t.sz, float64(n), t.exact, t.perUnit)
+		}
+		s = int32(len(t.sizes))
+		en := sizeEntry{ctr: d.outCtr, ucl: d.outUCL, lcl: d.outLCL, sig: d.outSig}
+		if lo, size, ok := d.window(); ok {
+			en.lo, en.recs = lo, make([]pointRec, size)
+		}
+		t.sizes = append(t.sizes, en)
+		t.dists = append(t.dists, d)
+		t.ns = append(t.ns, float64(n))
+		t.byN[key] = s
+		if key < int64(len(t.dense)) {
+			t.dense[key] = s + 1
+		}
+	}
+	t.lastKey, t.lastSlot = key, s
+	return s
+}
+
+// record returns the record of count in slot s, filling it in.
+func (t *pointTable) record(s int32, count int64) *pointRec {
+	d := t.dists[s]
+	v := float64(count)
+	if t.perUnit {
+		v /= t.ns[s]
+	}
+	var r pointRec
+	r.z = zOf(v-d.ctr, d.sig)
+	if t.laney {
+		r.z = zOf(v-d.ctr, d.sigS)
+	}
+	var above, below bool
+	if t.exact {
+		above, below = count > d.ucl, count < d.lcl
+	} else {
+		above, below = v > d.uclV, v < d.lclV
+	}
+	r.tail = d.tailDirect(count)
+	if t.cfg.Standardized {
+		v = r.z
+	}
+	r.value = v
+	z := r.z
+	if t.zones {
+		r.zones = uint32(b2u(z > t.z2))<<hi2Shift | uint32(b2u(z < -t.z2))<<lo2Shift |
+			uint32(b2u(z > t.z1))<<hi1Shift | uint32(b2u(z < -t.z1))<<lo1Shift
+	}
+	r.flags = recReady | b2u(above)<<recAboveBit | b2u(below)<<recBelowBit
+	if t.sides {
+		r.flags |= b2u(z > 0)<<recPosBit | b2u(z < 0)<<recNegBit
+	}
+	en := &t.sizes[s]
+	if j := uint64(count - en.lo); j < uint64(len(en.recs)) {
+		en.recs[j] = r
+		return &en.recs[j]
+	}
+	t.scratch = r
+	return &t.scratch
 }
 
 // prepare computes, once per lot size, everything of a point that does

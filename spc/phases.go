@@ -72,6 +72,7 @@ func AnalyzePhases(lots []Lot, phases []Phase, rules RuleSet) (*Analysis, error)
 	}
 	var e ruleEngine
 	e.reset(rules)
+	e.pts = out.Points
 	j := 0
 	for i := range out.Points {
 		for j+1 < len(phases) && i >= phases[j+1].Start {

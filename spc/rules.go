@@ -155,7 +155,8 @@ func ParseRules(s string) (RuleSet, error) {
 }
 
 // ruleEngine judges points one at a time with O(1) work and no allocation
-// per lot; it allocates only when a new signal starts.
+// per lot; it allocates only when a signal starts or grows, and then
+// only when a list of signals or lot IDs outgrows its capacity.
 //
 // Conventions (documented on Analyze): a pattern signals at the lot that
 // completes it, and that lot must itself take part in the pattern (for
@@ -177,6 +178,12 @@ type ruleEngine struct {
 	havePrev       bool
 	open           [numRules]int
 	signals        []Signal
+
+	// pts are the points judged, when known while stepping: emit then
+	// marks their Rules and gathers the IDs of the lots of each rule's
+	// signals, in order, into ids; otherwise finish does.
+	pts []Point
+	ids [numRules][]string
 
 	// Which state the selected rules need, fixed by reset, so that a
 	// lot costs only the work of the rules chosen.
@@ -277,6 +284,20 @@ func (r ruleRegs) advance(z, z1, z2 float64, zones, sides bool) (ruleRegs, uint8
 		r.runBelow = (r.runBelow + 1) * int(b2u(z < 0))
 		may |= b2u(r.runAbove >= 8) | b2u(r.runBelow >= 8)
 	}
+	return r, may
+}
+
+// advanceBits is advance for a lot whose comparisons of z are already
+// made: zones holds its bits of the zone registers (0 when no zone rule
+// is selected) and flags its recPos and recNeg bits (0 when no same-side
+// rule is selected).
+func (r ruleRegs) advanceBits(zones uint32, flags uint8) (ruleRegs, uint8) {
+	r.zones = r.zones<<1&0xfefefefe | zones
+	may := twoOfThree[r.zones>>hi2Shift&7] | twoOfThree[r.zones>>lo2Shift&7] |
+		fourOfFive[r.zones>>hi1Shift&31] | fourOfFive[r.zones>>lo1Shift&31]
+	r.runAbove = (r.runAbove + 1) * int(flags>>recPosBit&1)
+	r.runBelow = (r.runBelow + 1) * int(flags>>recNegBit&1)
+	may |= b2u(r.runAbove >= 8) | b2u(r.runBelow >= 8)
 	return r, may
 }
 
@@ -386,13 +407,19 @@ func (e *ruleEngine) emitBoth(we, nelson Rule, first, last int, side int8, hits 
 // emit records that rule r is met over lots first..last. hits is the
 // number of lots taking part when a signal starts; an extension adds one
 // (the current lot).
+//
+// The lots newly covered are marked, and their IDs gathered, now, while
+// their points are still in the cache. A rule's open signal is its
+// latest, so its IDs are the end of the rule's list.
 func (e *ruleEngine) emit(r Rule, first, last int, side int8, hits int, k float64) {
 	if o := e.open[r]; o >= 0 {
 		sg := &e.signals[o]
 		if sg.Side == side && first <= sg.Last+1 {
 			if first < sg.First {
+				e.prepend(r, first, sg.First, sg.Last-sg.First+1)
 				sg.First = first
 			}
+			e.cover(r, sg.Last+1, last)
 			sg.Last = last
 			sg.hits++
 			return
@@ -400,41 +427,79 @@ func (e *ruleEngine) emit(r Rule, first, last int, side int8, hits int, k float6
 	}
 	e.open[r] = len(e.signals)
 	e.signals = append(e.signals, Signal{Rule: r, First: first, Last: last, Side: side, hits: hits, k: k})
+	e.cover(r, first, last)
 }
 
-// finish fills in the lots and descriptions of the signals and marks the
-// points taking part in them. The lot IDs of all signals share one
-// backing array (each Lots slice is capped, so appending to one copies
-// it) and the descriptions one string, so that the cost in allocations
-// does not grow with the number of signals.
+// cover marks lots from..to as taking part in rule r and appends their
+// IDs to the rule's list. It does nothing while the points are unknown.
+func (e *ruleEngine) cover(r Rule, from, to int) {
+	if e.pts == nil {
+		return
+	}
+	bit := r.Set()
+	for j := from; j <= to; j++ {
+		e.pts[j].Rules |= bit
+		e.ids[r] = append(e.ids[r], e.pts[j].Lot.ID)
+	}
+}
+
+// prepend puts the lots from up to before in front of the last have IDs
+// of rule r's list.
+func (e *ruleEngine) prepend(r Rule, from, before, have int) {
+	if e.pts == nil {
+		return
+	}
+	add := before - from
+	ids := e.ids[r]
+	at := len(ids) - have
+	ids = append(ids, make([]string, add)...)
+	copy(ids[at+add:], ids[at:at+have])
+	for j := from; j < before; j++ {
+		e.pts[j].Rules |= r.Set()
+		ids[at+j-from] = e.pts[j].Lot.ID
+	}
+	e.ids[r] = ids
+}
+
+// finish fills in the lots and descriptions of the signals of the points
+// pts, marking the points first if the engine did not know them. The lot IDs
+// of all signals share one backing array (each Lots slice is capped, so
+// appending to one copies it) and the descriptions one string, so that
+// the cost in allocations does not grow with the number of signals.
 func (e *ruleEngine) finish(pts []Point) []Signal {
 	if len(e.signals) == 0 {
 		return e.signals
 	}
+	if e.pts == nil {
+		e.pts = pts
+		for si := range e.signals {
+			sg := &e.signals[si]
+			e.cover(sg.Rule, sg.First, sg.Last)
+		}
+	}
 	total := 0
-	for si := range e.signals {
-		total += e.signals[si].Last - e.signals[si].First + 1
+	for r := range e.ids {
+		total += len(e.ids[r])
 	}
 	ids := make([]string, 0, total)
+	var from [numRules]int
 	text := make([]byte, 0, 64*len(e.signals))
 	ends := make([]int, len(e.signals))
 	for si := range e.signals {
 		sg := &e.signals[si]
 		start := len(ids)
-		bit := sg.Rule.Set()
-		for j := sg.First; j <= sg.Last; j++ {
-			ids = append(ids, pts[j].Lot.ID)
-			pts[j].Rules |= bit
-		}
+		n := sg.Last - sg.First + 1
+		ids = append(ids, e.ids[sg.Rule][from[sg.Rule]:from[sg.Rule]+n]...)
+		from[sg.Rule] += n
 		sg.Lots = ids[start:len(ids):len(ids)]
 		text = sg.appendDescription(text)
 		ends[si] = len(text)
 	}
 	all := string(text)
-	from := 0
+	at := 0
 	for si := range e.signals {
-		e.signals[si].Description = all[from:ends[si]]
-		from = ends[si]
+		e.signals[si].Description = all[at:ends[si]]
+		at = ends[si]
 	}
 	return e.signals
 }

@@ -28,15 +28,26 @@ type countDist struct {
 	uclV, lclV                     float64
 	smallLot, lclZeroLot           int
 	outCtr, outUCL, outLCL, outSig float64
-
-	tailLo int64     // tails[i] is the TailP of count tailLo+i
-	tails  []float64 // NaN until computed; nil until first use
-	noWin  bool      // window too wide to cache
 }
 
-// tailWindow bounds the counts whose tail probabilities are cached per
-// lot size; counts outside it are rare and computed directly.
+// tailWindow bounds the counts whose points are cached per lot size;
+// counts outside the window are rare and computed directly.
 const tailWindow = 4096
+
+// window returns the counts lo … lo+size−1 cached for this lot size: the
+// mean ± 12σ and 16 more on each side. ok is false when the window would
+// hold more than tailWindow counts.
+func (d *countDist) window() (lo int64, size int, ok bool) {
+	lo = max(0, int64(math.Floor(d.mean-12*d.sd-16)))
+	hi := int64(math.Ceil(d.mean + 12*d.sd + 16))
+	if d.binomial {
+		hi = min(hi, d.n)
+	}
+	if hi-lo+1 > tailWindow {
+		return 0, 0, false
+	}
+	return lo, int(hi - lo + 1), true
+}
 
 func (d *countDist) degenerate() bool {
 	if d.binomial {
@@ -93,43 +104,6 @@ func (d *countDist) tailDirect(count int64) float64 {
 		return d.upper(count)
 	}
 	return d.lower(count)
-}
-
-// tail returns tailDirect(count), cached per count near the mean.
-func (d *countDist) tail(count int64) float64 {
-	if t, i := d.tails, uint64(count-d.tailLo); i < uint64(len(t)) && t[i] == t[i] {
-		return t[i]
-	}
-	return d.tailSlow(count)
-}
-
-func (d *countDist) tailSlow(count int64) float64 {
-	if d.tails == nil && !d.noWin {
-		lo := max(0, int64(math.Floor(d.mean-12*d.sd-16)))
-		hi := int64(math.Ceil(d.mean + 12*d.sd + 16))
-		if d.binomial {
-			hi = min(hi, d.n)
-		}
-		if hi-lo+1 > tailWindow {
-			d.noWin = true
-		} else {
-			d.tailLo = lo
-			d.tails = make([]float64, hi-lo+1)
-			for i := range d.tails {
-				d.tails[i] = math.NaN()
-			}
-		}
-	}
-	i := count - d.tailLo
-	if d.noWin || i < 0 || i >= int64(len(d.tails)) {
-		return d.tailDirect(count)
-	}
-	t := d.tails[i]
-	if t != t { // NaN: not yet computed
-		t = d.tailDirect(count)
-		d.tails[i] = t
-	}
-	return t
 }
 
 // distNormalQ returns the standard normal quantile of 1 − q, the
