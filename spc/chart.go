@@ -329,7 +329,7 @@ func sumWhole(lots []Lot, units bool) (minN, maxN int64, sumN, sumC float64, ok 
 	bad := false
 	for i := range lots {
 		l := &lots[i]
-		if l.Inspected <= 0 || l.Count < 0 || (units && l.Count > l.Inspected) {
+		if l.Inspected <= 0 || l.Inspected > MaxInspected || l.Count < 0 || l.Count > MaxInspected || (units && l.Count > l.Inspected) {
 			bad = true
 		}
 		minN = min(minN, l.Inspected)
