@@ -10,6 +10,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/web/review"
 )
 
 // processChart is one process's lots judged against its limit sets: the
@@ -39,61 +40,22 @@ func (s *Server) analyzeProcess(ctx context.Context, p store.Process) (*processC
 	return judge(p, lots, sets)
 }
 
-// judge builds the phases from the limit sets and runs the analysis.
+// judge judges the lots against the process's limit sets (review.Judge:
+// trial limits before the first set, each set from its EffectiveFrom on).
 func judge(p store.Process, lots []store.Lot, sets []store.LimitSet) (*processChart, error) {
 	rules, err := parseProcessRules(p.Rules)
 	if err != nil {
 		return nil, fmt.Errorf("process %q: rules: %w", p.Name, err)
 	}
-	sets = append([]store.LimitSet(nil), sets...)
-	sort.SliceStable(sets, func(i, j int) bool {
-		if !sets[i].EffectiveFrom.Equal(sets[j].EffectiveFrom) {
-			return sets[i].EffectiveFrom.Before(sets[j].EffectiveFrom)
-		}
-		return sets[i].Number < sets[j].Number
-	})
-	pc := &processChart{proc: p, lots: lots, sets: sets, setOf: make([]int, len(lots))}
+	pc := &processChart{proc: p, lots: lots, sets: review.SortLimitSets(sets), setOf: make([]int, len(lots))}
 	if len(lots) == 0 {
 		return pc, nil
 	}
-	in := make([]spc.Lot, len(lots))
-	for i, l := range lots {
-		in[i] = spc.Lot{ID: l.Lot, Inspected: l.Inspected, Count: l.Count}
-	}
-	trial := spc.Config{Chart: p.Chart, Method: p.Method, K: p.K, Rules: rules}
-	var phases []spc.Phase
-	for _, ls := range sets {
-		i := sort.Search(len(lots), func(i int) bool { return !lots[i].Time.Before(ls.EffectiveFrom) })
-		if i >= len(lots) {
-			break // in force only after the last lot
-		}
-		if len(phases) == 0 && i > 0 {
-			phases = append(phases, spc.Phase{Start: 0, Config: trial})
-		}
-		cfg := spc.Config{Chart: p.Chart, Method: ls.Method, K: ls.K, Rules: rules,
-			Standard: &spc.Standard{Center: ls.Center, SigmaZ: ls.SigmaZ}}
-		if n := len(phases); n > 0 && phases[n-1].Start == i {
-			phases[n-1].Config = cfg // a later set starting at the same lot replaces the earlier
-		} else {
-			phases = append(phases, spc.Phase{Start: i, Config: cfg})
-		}
-		for j := i; j < len(lots); j++ {
-			pc.setOf[j] = ls.Number
-		}
-	}
-	if len(phases) == 0 {
-		a, err := spc.Analyze(in, trial)
-		if err != nil {
-			return nil, fmt.Errorf("process %q: %w", p.Name, err)
-		}
-		pc.a = a
-		return pc, nil
-	}
-	a, err := spc.AnalyzePhases(in, phases, rules)
+	a, setOf, err := review.Judge(p, lots, pc.sets, rules)
 	if err != nil {
 		return nil, fmt.Errorf("process %q: %w", p.Name, err)
 	}
-	pc.a = a
+	pc.a, pc.setOf = a, setOf
 	return pc, nil
 }
 

@@ -536,13 +536,7 @@ func Judge(p store.Process, lots []store.Lot, sets []store.LimitSet, rules spc.R
 	if len(lots) == 0 {
 		return nil, nil, errors.New("no lots")
 	}
-	sets = append([]store.LimitSet(nil), sets...)
-	sort.SliceStable(sets, func(i, j int) bool {
-		if !sets[i].EffectiveFrom.Equal(sets[j].EffectiveFrom) {
-			return sets[i].EffectiveFrom.Before(sets[j].EffectiveFrom)
-		}
-		return sets[i].Number < sets[j].Number
-	})
+	sets = SortLimitSets(sets)
 	in := spcLots(lots)
 	setOf = make([]int, len(lots))
 	trial := spc.Config{Chart: p.Chart, Method: p.Method, K: p.K}
@@ -573,6 +567,19 @@ func Judge(p store.Process, lots []store.Lot, sets []store.LimitSet, rules spc.R
 		a, err = spc.AnalyzePhases(in, phases, rules)
 	}
 	return a, setOf, err
+}
+
+// SortLimitSets returns a copy of the limit sets in the order they come
+// into force (EffectiveFrom, then Number).
+func SortLimitSets(sets []store.LimitSet) []store.LimitSet {
+	sets = append([]store.LimitSet(nil), sets...)
+	sort.SliceStable(sets, func(i, j int) bool {
+		if !sets[i].EffectiveFrom.Equal(sets[j].EffectiveFrom) {
+			return sets[i].EffectiveFrom.Before(sets[j].EffectiveFrom)
+		}
+		return sets[i].Number < sets[j].Number
+	})
+	return sets
 }
 
 func spcLots(lots []store.Lot) []spc.Lot {
