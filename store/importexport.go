@@ -195,32 +195,9 @@ func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportO
 				}
 				continue
 			}
-			id, added, err := a.add(&in)
-			if err != nil {
+			if err := a.place(&in, row.Line, cmp, &met, &res, problem, max); err != nil {
 				return err
 			}
-			if added {
-				met.set(id)
-				res.Added++
-				continue
-			}
-			s, err := a.stored(in.Lot)
-			if err != nil {
-				return err
-			}
-			if met.set(s.ID) {
-				problem(Problem{Line: row.Line, Field: "lot", Value: in.Lot, Reason: "appears more than once in the file"})
-				continue
-			}
-			if d := differs(s, in, cmp); len(d) > 0 {
-				if len(res.Conflicts) < max {
-					res.Conflicts = append(res.Conflicts, Conflict{Line: row.Line, Lot: in.Lot, Fields: d})
-				} else {
-					res.MoreConflicts++
-				}
-				continue
-			}
-			res.Unchanged++
 		}
 		if opt.Progress != nil {
 			opt.Progress(res.Rows, cr.n)
@@ -368,4 +345,37 @@ func exportJSON(ctx context.Context, db *DB, out io.Writer, p Process, opt Expor
 	}
 	_, err = io.WriteString(out, "\n]}\n")
 	return err
+}
+
+// place adds one valid lot of an import file, or, when its code is stored
+// already, counts it unchanged or reports the conflict (never an
+// overwrite). A code seen twice in the file is a problem of the file.
+func (a *lotAdder) place(in *LotInput, line int, cmp compareFields, met *bitset, res *ImportResult, problem func(Problem), max int) error {
+	id, added, err := a.add(in)
+	if err != nil {
+		return err
+	}
+	if added {
+		met.set(id)
+		res.Added++
+		return nil
+	}
+	s, err := a.stored(in.Lot)
+	if err != nil {
+		return err
+	}
+	if met.set(s.ID) {
+		problem(Problem{Line: line, Field: "lot", Value: in.Lot, Reason: "appears more than once in the file"})
+		return nil
+	}
+	if d := differs(s, *in, cmp); len(d) > 0 {
+		if len(res.Conflicts) < max {
+			res.Conflicts = append(res.Conflicts, Conflict{Line: line, Lot: in.Lot, Fields: d})
+		} else {
+			res.MoreConflicts++
+		}
+		return nil
+	}
+	res.Unchanged++
+	return nil
 }

@@ -331,32 +331,9 @@ func importJSONLots(ctx context.Context, w *wtx, dec *json.Decoder, lt *lineTrac
 			}
 			continue
 		}
-		id, added, err := a.add(&in)
-		if err != nil {
+		if err := a.place(&in, line, cmp, met, res, problem, max); err != nil {
 			return err
 		}
-		if added {
-			met.set(id)
-			res.Added++
-			continue
-		}
-		s, err := a.stored(in.Lot)
-		if err != nil {
-			return err
-		}
-		if met.set(s.ID) {
-			problem(Problem{Line: line, Field: "lot", Value: in.Lot, Reason: "appears more than once in the file"})
-			continue
-		}
-		if d := differs(s, in, cmp); len(d) > 0 {
-			if len(res.Conflicts) < max {
-				res.Conflicts = append(res.Conflicts, Conflict{Line: line, Lot: in.Lot, Fields: d})
-			} else {
-				res.MoreConflicts++
-			}
-			continue
-		}
-		res.Unchanged++
 	}
 	return nil
 }
