@@ -439,7 +439,7 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	// registers: the loop advances it from the zone bits of the lot's
 	// record and calls the engine only when a rule may be met.
 	fast := stepping && !e.nelson
-	t := newPointTable(cfg, rate, sz, a.Alpha/2, maxN, e)
+	t := newPointTable(cfg, rate, sz, a.Alpha/2, maxN, len(lots), e)
 	if stepping {
 		e.pts = pts
 	}
@@ -504,7 +504,7 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 		st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev = chi, mr, prev, m, nmr, havePrev
 	}
 	for si := range t.sizes {
-		en := &t.sizes[si]
+		en := t.sizes[si]
 		d := t.dists[si]
 		cnt.small += en.lots * d.smallLot
 		cnt.lclZero += en.lots * d.lclZeroLot
@@ -526,16 +526,17 @@ type runState struct {
 // after a lot at which a rule may be met (fire). It returns the index of
 // the next lot to finish.
 func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, accumulate, fast bool, beyond uint8) (next int, fire bool) {
-	dense, sizes := t.dense, t.sizes
+	dense := t.dense
 	chi, mr, prev, m, nmr, havePrev, regs := rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs
 	pts = pts[:len(lots)]
 	for ; i < len(lots); i++ {
 		l := &lots[i]
 		n := uint64(l.Inspected)
-		if n >= uint64(len(dense)) || dense[n] == 0 {
+		if n >= uint64(len(dense)) {
 			break
 		}
-		en := &sizes[dense[n]-1]
+		// A size not seen yet has no records.
+		en := &dense[n]
 		j := uint64(l.Count - en.lo)
 		if j >= uint64(len(en.recs)) || en.recs[j].flags&recReady == 0 {
 			break
@@ -581,7 +582,7 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, accumulate, fast bool, beyond uint8) (ruleRegs, bool) {
 	l := &lots[i]
 	s := t.slot(l.Inspected)
-	en := &t.sizes[s]
+	en := t.sizes[s]
 	en.lots++
 	var r *pointRec
 	if j := uint64(l.Count - en.lo); j < uint64(len(en.recs)) && en.recs[j].flags&recReady != 0 {
@@ -651,9 +652,11 @@ type sizeEntry struct {
 	lots               int
 }
 
-// pointTable holds, per distinct lot size, a sizeEntry (in one
-// contiguous slice, found through dense for small sizes) and the count
+// pointTable holds, per distinct lot size, a sizeEntry and the count
 // distribution, and fills each record the first time its count is seen.
+// When the largest lot size is small next to the number of lots, the
+// entries are held in dense, indexed by lot size, so that a lot's record
+// is found with one load for its entry rather than two.
 type pointTable struct {
 	cfg                   Config
 	rate, sz              float64
@@ -661,17 +664,17 @@ type pointTable struct {
 	zones, sides          bool
 	z1, z2                float64
 	dc                    *distCache
-	dense                 []int32 // slot+1 by lot size; 0 until seen
+	dense                 []sizeEntry // by lot size; no records until seen
 	byN                   map[int64]int32
 	lastKey               int64
 	lastSlot              int32
-	sizes                 []sizeEntry
+	sizes                 []*sizeEntry // by slot, into dense when there
 	dists                 []*countDist
 	ns                    []float64
 	scratch               pointRec // the record of a count outside the window
 }
 
-func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, e *ruleEngine) *pointTable {
+func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, lots int, e *ruleEngine) *pointTable {
 	t := &pointTable{
 		cfg: cfg, rate: rate, sz: sz,
 		exact:   cfg.Method == MethodExact,
@@ -685,8 +688,10 @@ func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, e *ruleEngi
 		t.zones, t.sides = e.zones, e.sides
 		t.z1, t.z2 = cfg.K/3, 2*cfg.K/3
 	}
-	if cfg.Chart != ChartC && maxN < denseSizes {
-		t.dense = make([]int32, maxN+1)
+	// dense costs 72 bytes per lot size up to the largest, so it is
+	// made only when that is small next to the 96 bytes of each point.
+	if cfg.Chart != ChartC && maxN < denseSizes && maxN < int64(lots/2)+1024 {
+		t.dense = make([]sizeEntry, maxN+1)
 	}
 	return t
 }
@@ -708,7 +713,13 @@ func (t *pointTable) slot(n int64) int32 {
 			d.prepare(t.cfg, t.rate, t.sz, float64(n), t.exact, t.perUnit)
 		}
 		s = int32(len(t.sizes))
-		en := sizeEntry{ctr: d.outCtr, ucl: d.outUCL, lcl: d.outLCL, sig: d.outSig}
+		var en *sizeEntry
+		if key < int64(len(t.dense)) {
+			en = &t.dense[key]
+		} else {
+			en = new(sizeEntry)
+		}
+		*en = sizeEntry{ctr: d.outCtr, ucl: d.outUCL, lcl: d.outLCL, sig: d.outSig}
 		if lo, size, ok := d.window(); ok {
 			en.lo, en.recs = lo, make([]pointRec, size)
 		}
@@ -716,9 +727,6 @@ func (t *pointTable) slot(n int64) int32 {
 		t.dists = append(t.dists, d)
 		t.ns = append(t.ns, float64(n))
 		t.byN[key] = s
-		if key < int64(len(t.dense)) {
-			t.dense[key] = s + 1
-		}
 	}
 	t.lastKey, t.lastSlot = key, s
 	return s
@@ -756,7 +764,7 @@ func (t *pointTable) record(s int32, count int64) *pointRec {
 	if t.sides {
 		r.flags |= b2u(z > 0)<<recPosBit | b2u(z < 0)<<recNegBit
 	}
-	en := &t.sizes[s]
+	en := t.sizes[s]
 	if j := uint64(count - en.lo); j < uint64(len(en.recs)) {
 		en.recs[j] = r
 		return &en.recs[j]
