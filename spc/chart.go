@@ -503,12 +503,7 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	if accumulate {
 		st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev = chi, mr, prev, m, nmr, havePrev
 	}
-	for si := range t.sizes {
-		en := t.sizes[si]
-		d := t.dists[si]
-		cnt.small += en.lots * d.smallLot
-		cnt.lclZero += en.lots * d.lclZeroLot
-	}
+	cnt.small, cnt.lclZero = t.small, t.lclZero
 	return cnt
 }
 
@@ -529,6 +524,7 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 	dense := t.dense
 	chi, mr, prev, m, nmr, havePrev, regs := rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs
 	pts = pts[:len(lots)]
+	var small, lclZero int
 	for ; i < len(lots); i++ {
 		l := &lots[i]
 		n := uint64(l.Inspected)
@@ -542,7 +538,6 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 			break
 		}
 		r := &en.recs[j]
-		en.lots++
 		// Write each field of the fresh point once and never read it
 		// back before: the slice is new memory.
 		q := &pts[i]
@@ -552,6 +547,8 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 		f := r.flags
 		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
 		q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
+		small += int(f >> recSmallBit & 1)
+		lclZero += int(f >> recLCLZeroBit & 1)
 		if accumulate && !ex {
 			z := r.z
 			m++
@@ -573,6 +570,8 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 		}
 	}
 	rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs = chi, mr, prev, m, nmr, havePrev, regs
+	t.small += small
+	t.lclZero += lclZero
 	return i, fire
 }
 
@@ -583,7 +582,6 @@ func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, r
 	l := &lots[i]
 	s := t.slot(l.Inspected)
 	en := t.sizes[s]
-	en.lots++
 	var r *pointRec
 	if j := uint64(l.Count - en.lo); j < uint64(len(en.recs)) && en.recs[j].flags&recReady != 0 {
 		r = &en.recs[j]
@@ -597,6 +595,8 @@ func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, r
 	f := r.flags
 	q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
 	q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
+	t.small += int(f >> recSmallBit & 1)
+	t.lclZero += int(f >> recLCLZeroBit & 1)
 	if rs == nil {
 		return ruleRegs{}, false
 	}
@@ -629,11 +629,13 @@ type pointRec struct {
 
 // The bits of pointRec.flags.
 const (
-	recReadyBit = iota // the record is filled in
-	recAboveBit        // beyond the UCL
-	recBelowBit        // below the LCL
-	recPosBit          // z > 0, when a same-side rule is selected
-	recNegBit          // z < 0, likewise
+	recReadyBit   = iota // the record is filled in
+	recAboveBit          // beyond the UCL
+	recBelowBit          // below the LCL
+	recPosBit            // z > 0, when a same-side rule is selected
+	recNegBit            // z < 0, likewise
+	recSmallBit          // the expected counts are too small for normal limits
+	recLCLZeroBit        // the lower limit is 0
 
 	recReady = 1 << recReadyBit
 	recAbove = 1 << recAboveBit
@@ -643,13 +645,12 @@ const (
 )
 
 // sizeEntry is the part of pointTable for one lot size: the records of
-// the counts lo … lo+len(recs)−1, the Center, UCL, LCL and Sigma of its
-// points and the number of its lots.
+// the counts lo … lo+len(recs)−1 and the Center, UCL, LCL and Sigma of
+// its points. It is 64 bytes, one cache line in dense.
 type sizeEntry struct {
 	recs               []pointRec
 	lo                 int64
 	ctr, ucl, lcl, sig float64
-	lots               int
 }
 
 // pointTable holds, per distinct lot size, a sizeEntry and the count
@@ -672,6 +673,7 @@ type pointTable struct {
 	dists                 []*countDist
 	ns                    []float64
 	scratch               pointRec // the record of a count outside the window
+	small, lclZero        int      // lots counted in pointCounts
 }
 
 func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, lots int, e *ruleEngine) *pointTable {
@@ -688,7 +690,7 @@ func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, lots int, e
 		t.zones, t.sides = e.zones, e.sides
 		t.z1, t.z2 = cfg.K/3, 2*cfg.K/3
 	}
-	// dense costs 72 bytes per lot size up to the largest, so it is
+	// dense costs 64 bytes per lot size up to the largest, so it is
 	// made only when that is small next to the 96 bytes of each point.
 	if cfg.Chart != ChartC && maxN < denseSizes && maxN < int64(lots/2)+1024 {
 		t.dense = make([]sizeEntry, maxN+1)
@@ -760,7 +762,8 @@ func (t *pointTable) record(s int32, count int64) *pointRec {
 		r.zones = uint32(b2u(z > t.z2))<<hi2Shift | uint32(b2u(z < -t.z2))<<lo2Shift |
 			uint32(b2u(z > t.z1))<<hi1Shift | uint32(b2u(z < -t.z1))<<lo1Shift
 	}
-	r.flags = recReady | b2u(above)<<recAboveBit | b2u(below)<<recBelowBit
+	r.flags = recReady | b2u(above)<<recAboveBit | b2u(below)<<recBelowBit |
+		uint8(d.smallLot)<<recSmallBit | uint8(d.lclZeroLot)<<recLCLZeroBit
 	if t.sides {
 		r.flags |= b2u(z > 0)<<recPosBit | b2u(z < 0)<<recNegBit
 	}
