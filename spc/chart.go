@@ -325,19 +325,24 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 // floating-point numbers, which gives the same sums.
 func sumWhole(lots []Lot, units bool) (minN, maxN int64, sumN, sumC float64, ok bool) {
 	minN, maxN = lots[0].Inspected, lots[0].Inspected
-	var n, c, maxC int64
-	bad := false
+	minC, maxC := lots[0].Count, lots[0].Count
+	over := lots[0].Count - lots[0].Inspected
+	var n, c int64
+	// The checks of CheckLot are made on the extremes after the loop,
+	// which then has no branch: a lot that fails one puts its size or
+	// count, or its count less its size, out of range. (The difference
+	// cannot overflow for a lot whose size and count are in range.)
 	for i := range lots {
 		l := &lots[i]
-		if l.Inspected <= 0 || l.Inspected > MaxInspected || l.Count < 0 || l.Count > MaxInspected || (units && l.Count > l.Inspected) {
-			bad = true
-		}
 		minN = min(minN, l.Inspected)
 		maxN = max(maxN, l.Inspected)
+		minC = min(minC, l.Count)
 		maxC = max(maxC, l.Count)
+		over = max(over, l.Count-l.Inspected)
 		n += l.Inspected
 		c += l.Count
 	}
+	bad := minN <= 0 || maxN > MaxInspected || minC < 0 || maxC > MaxInspected || (units && over > 0)
 	const exact = 1 << 53
 	m := float64(len(lots))
 	if bad || float64(maxN)*m >= exact || float64(maxC)*m >= exact {
