@@ -565,8 +565,15 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 			prev, havePrev = z, true
 		}
 		if fast {
-			var may uint8
-			regs, may = regs.advanceBits(r.zones, f)
+			// regs.advanceBits, written out: it is too large to be
+			// inlined, and a call would put this loop's state in memory.
+			zr := regs.zones<<1&0xfefefefe | r.zones
+			regs.zones = zr
+			may := twoOfThree[zr>>hi2Shift&7] | twoOfThree[zr>>lo2Shift&7] |
+				fourOfFive[zr>>hi1Shift&31] | fourOfFive[zr>>lo1Shift&31]
+			regs.runAbove = (regs.runAbove + 1) * int(f>>recPosBit&1)
+			regs.runBelow = (regs.runBelow + 1) * int(f>>recNegBit&1)
+			may |= b2u(regs.runAbove >= 8) | b2u(regs.runBelow >= 8)
 			if may|beyond&(f>>recAboveBit|f>>recBelowBit) != 0 {
 				fire = true
 				i++
