@@ -325,19 +325,24 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 // floating-point numbers, which gives the same sums.
 func sumWhole(lots []Lot, units bool) (minN, maxN int64, sumN, sumC float64, ok bool) {
 	minN, maxN = lots[0].Inspected, lots[0].Inspected
-	var n, c, maxC int64
-	bad := false
+	minC, maxC := lots[0].Count, lots[0].Count
+	over := lots[0].Count - lots[0].Inspected
+	var n, c int64
+	// The checks of CheckLot are made on the extremes after the loop,
+	// which then has no branch: a lot that fails one puts its size or
+	// count, or its count less its size, out of range. (The difference
+	// cannot overflow for a lot whose size and count are in range.)
 	for i := range lots {
 		l := &lots[i]
-		if l.Inspected <= 0 || l.Inspected > MaxInspected || l.Count < 0 || l.Count > MaxInspected || (units && l.Count > l.Inspected) {
-			bad = true
-		}
 		minN = min(minN, l.Inspected)
 		maxN = max(maxN, l.Inspected)
+		minC = min(minC, l.Count)
 		maxC = max(maxC, l.Count)
+		over = max(over, l.Count-l.Inspected)
 		n += l.Inspected
 		c += l.Count
 	}
+	bad := minN <= 0 || maxN > MaxInspected || minC < 0 || maxC > MaxInspected || (units && over > 0)
 	const exact = 1 << 53
 	m := float64(len(lots))
 	if bad || float64(maxN)*m >= exact || float64(maxC)*m >= exact {
@@ -439,7 +444,7 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	// registers: the loop advances it from the zone bits of the lot's
 	// record and calls the engine only when a rule may be met.
 	fast := stepping && !e.nelson
-	t := newPointTable(cfg, rate, sz, a.Alpha/2, maxN, e)
+	t := newPointTable(cfg, rate, sz, a.Alpha/2, maxN, len(lots), e)
 	if stepping {
 		e.pts = pts
 	}
@@ -503,12 +508,7 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	if accumulate {
 		st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev = chi, mr, prev, m, nmr, havePrev
 	}
-	for si := range t.sizes {
-		en := &t.sizes[si]
-		d := t.dists[si]
-		cnt.small += en.lots * d.smallLot
-		cnt.lclZero += en.lots * d.lclZeroLot
-	}
+	cnt.small, cnt.lclZero = t.small, t.lclZero
 	return cnt
 }
 
@@ -526,22 +526,23 @@ type runState struct {
 // after a lot at which a rule may be met (fire). It returns the index of
 // the next lot to finish.
 func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, accumulate, fast bool, beyond uint8) (next int, fire bool) {
-	dense, sizes := t.dense, t.sizes
+	dense := t.dense
 	chi, mr, prev, m, nmr, havePrev, regs := rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs
 	pts = pts[:len(lots)]
+	var small, lclZero int
 	for ; i < len(lots); i++ {
 		l := &lots[i]
 		n := uint64(l.Inspected)
-		if n >= uint64(len(dense)) || dense[n] == 0 {
+		if n >= uint64(len(dense)) {
 			break
 		}
-		en := &sizes[dense[n]-1]
+		// A size not seen yet has no records.
+		en := &dense[n]
 		j := uint64(l.Count - en.lo)
 		if j >= uint64(len(en.recs)) || en.recs[j].flags&recReady == 0 {
 			break
 		}
 		r := &en.recs[j]
-		en.lots++
 		// Write each field of the fresh point once and never read it
 		// back before: the slice is new memory.
 		q := &pts[i]
@@ -551,6 +552,8 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 		f := r.flags
 		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
 		q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
+		small += int(f >> recSmallBit & 1)
+		lclZero += int(f >> recLCLZeroBit & 1)
 		if accumulate && !ex {
 			z := r.z
 			m++
@@ -562,8 +565,15 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 			prev, havePrev = z, true
 		}
 		if fast {
-			var may uint8
-			regs, may = regs.advanceBits(r.zones, f)
+			// regs.advanceBits, written out: it is too large to be
+			// inlined, and a call would put this loop's state in memory.
+			zr := regs.zones<<1&0xfefefefe | r.zones
+			regs.zones = zr
+			may := twoOfThree[zr>>hi2Shift&7] | twoOfThree[zr>>lo2Shift&7] |
+				fourOfFive[zr>>hi1Shift&31] | fourOfFive[zr>>lo1Shift&31]
+			regs.runAbove = (regs.runAbove + 1) * int(f>>recPosBit&1)
+			regs.runBelow = (regs.runBelow + 1) * int(f>>recNegBit&1)
+			may |= b2u(regs.runAbove >= 8) | b2u(regs.runBelow >= 8)
 			if may|beyond&(f>>recAboveBit|f>>recBelowBit) != 0 {
 				fire = true
 				i++
@@ -572,6 +582,8 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 		}
 	}
 	rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs = chi, mr, prev, m, nmr, havePrev, regs
+	t.small += small
+	t.lclZero += lclZero
 	return i, fire
 }
 
@@ -581,8 +593,7 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, accumulate, fast bool, beyond uint8) (ruleRegs, bool) {
 	l := &lots[i]
 	s := t.slot(l.Inspected)
-	en := &t.sizes[s]
-	en.lots++
+	en := t.sizes[s]
 	var r *pointRec
 	if j := uint64(l.Count - en.lo); j < uint64(len(en.recs)) && en.recs[j].flags&recReady != 0 {
 		r = &en.recs[j]
@@ -596,6 +607,8 @@ func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, r
 	f := r.flags
 	q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
 	q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
+	t.small += int(f >> recSmallBit & 1)
+	t.lclZero += int(f >> recLCLZeroBit & 1)
 	if rs == nil {
 		return ruleRegs{}, false
 	}
@@ -628,11 +641,13 @@ type pointRec struct {
 
 // The bits of pointRec.flags.
 const (
-	recReadyBit = iota // the record is filled in
-	recAboveBit        // beyond the UCL
-	recBelowBit        // below the LCL
-	recPosBit          // z > 0, when a same-side rule is selected
-	recNegBit          // z < 0, likewise
+	recReadyBit   = iota // the record is filled in
+	recAboveBit          // beyond the UCL
+	recBelowBit          // below the LCL
+	recPosBit            // z > 0, when a same-side rule is selected
+	recNegBit            // z < 0, likewise
+	recSmallBit          // the expected counts are too small for normal limits
+	recLCLZeroBit        // the lower limit is 0
 
 	recReady = 1 << recReadyBit
 	recAbove = 1 << recAboveBit
@@ -642,18 +657,19 @@ const (
 )
 
 // sizeEntry is the part of pointTable for one lot size: the records of
-// the counts lo … lo+len(recs)−1, the Center, UCL, LCL and Sigma of its
-// points and the number of its lots.
+// the counts lo … lo+len(recs)−1 and the Center, UCL, LCL and Sigma of
+// its points. It is 64 bytes, one cache line in dense.
 type sizeEntry struct {
 	recs               []pointRec
 	lo                 int64
 	ctr, ucl, lcl, sig float64
-	lots               int
 }
 
-// pointTable holds, per distinct lot size, a sizeEntry (in one
-// contiguous slice, found through dense for small sizes) and the count
+// pointTable holds, per distinct lot size, a sizeEntry and the count
 // distribution, and fills each record the first time its count is seen.
+// When the largest lot size is small next to the number of lots, the
+// entries are held in dense, indexed by lot size, so that a lot's record
+// is found with one load for its entry rather than two.
 type pointTable struct {
 	cfg                   Config
 	rate, sz              float64
@@ -661,17 +677,18 @@ type pointTable struct {
 	zones, sides          bool
 	z1, z2                float64
 	dc                    *distCache
-	dense                 []int32 // slot+1 by lot size; 0 until seen
+	dense                 []sizeEntry // by lot size; no records until seen
 	byN                   map[int64]int32
 	lastKey               int64
 	lastSlot              int32
-	sizes                 []sizeEntry
+	sizes                 []*sizeEntry // by slot, into dense when there
 	dists                 []*countDist
 	ns                    []float64
 	scratch               pointRec // the record of a count outside the window
+	small, lclZero        int      // lots counted in pointCounts
 }
 
-func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, e *ruleEngine) *pointTable {
+func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, lots int, e *ruleEngine) *pointTable {
 	t := &pointTable{
 		cfg: cfg, rate: rate, sz: sz,
 		exact:   cfg.Method == MethodExact,
@@ -685,8 +702,10 @@ func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, e *ruleEngi
 		t.zones, t.sides = e.zones, e.sides
 		t.z1, t.z2 = cfg.K/3, 2*cfg.K/3
 	}
-	if cfg.Chart != ChartC && maxN < denseSizes {
-		t.dense = make([]int32, maxN+1)
+	// dense costs 64 bytes per lot size up to the largest, so it is
+	// made only when that is small next to the 96 bytes of each point.
+	if cfg.Chart != ChartC && maxN < denseSizes && maxN < int64(lots/2)+1024 {
+		t.dense = make([]sizeEntry, maxN+1)
 	}
 	return t
 }
@@ -708,7 +727,13 @@ func (t *pointTable) slot(n int64) int32 {
 			d.prepare(t.cfg, t.rate, t.sz, float64(n), t.exact, t.perUnit)
 		}
 		s = int32(len(t.sizes))
-		en := sizeEntry{ctr: d.outCtr, ucl: d.outUCL, lcl: d.outLCL, sig: d.outSig}
+		var en *sizeEntry
+		if key < int64(len(t.dense)) {
+			en = &t.dense[key]
+		} else {
+			en = new(sizeEntry)
+		}
+		*en = sizeEntry{ctr: d.outCtr, ucl: d.outUCL, lcl: d.outLCL, sig: d.outSig}
 		if lo, size, ok := d.window(); ok {
 			en.lo, en.recs = lo, make([]pointRec, size)
 		}
@@ -716,9 +741,6 @@ func (t *pointTable) slot(n int64) int32 {
 		t.dists = append(t.dists, d)
 		t.ns = append(t.ns, float64(n))
 		t.byN[key] = s
-		if key < int64(len(t.dense)) {
-			t.dense[key] = s + 1
-		}
 	}
 	t.lastKey, t.lastSlot = key, s
 	return s
@@ -752,11 +774,12 @@ func (t *pointTable) record(s int32, count int64) *pointRec {
 		r.zones = uint32(b2u(z > t.z2))<<hi2Shift | uint32(b2u(z < -t.z2))<<lo2Shift |
 			uint32(b2u(z > t.z1))<<hi1Shift | uint32(b2u(z < -t.z1))<<lo1Shift
 	}
-	r.flags = recReady | b2u(above)<<recAboveBit | b2u(below)<<recBelowBit
+	r.flags = recReady | b2u(above)<<recAboveBit | b2u(below)<<recBelowBit |
+		uint8(d.smallLot)<<recSmallBit | uint8(d.lclZeroLot)<<recLCLZeroBit
 	if t.sides {
 		r.flags |= b2u(z > 0)<<recPosBit | b2u(z < 0)<<recNegBit
 	}
-	en := &t.sizes[s]
+	en := t.sizes[s]
 	if j := uint64(count - en.lo); j < uint64(len(en.recs)) {
 		en.recs[j] = r
 		return &en.recs[j]
