@@ -135,12 +135,50 @@ type lotReader struct {
 	// (lots repeat them: mostly small counts of a few categories), so a
 	// lot's counts cost one lookup; beyond maxCombos, cats is refilled.
 	combos map[string]map[string]int64
+	// textCache and countsCache are small caches, indexed by a hash of the packed
+	// bytes, in front of recent and combos: most lots repeat a few
+	// combinations of text and of counts, so one short comparison finds
+	// them. lastText and lastCounts name the entries that the Lot being
+	// filled holds now (-1: none), so that a lot repeating them is not
+	// written over at all.
+	textCache   [64]textEntry
+	countsCache [256]countsEntry
+	lastText    int
+	lastCounts  int
+}
+
+// textEntry is the shift, inspector, note, recorded_by and reason of a
+// lot, keyed by their packed bytes.
+type textEntry struct {
+	key string
+	s   [5]string
+}
+
+// countsEntry is a shared Categories map, keyed by its packed bytes.
+type countsEntry struct {
+	key string
+	m   map[string]int64
+}
+
+// maxTextKey bounds the packed text kept as a key in texts.
+const maxTextKey = 128
+
+// shortHash is FNV-1a (Fowler, Noll, Vo) of b: a cheap spread of short
+// keys over the cache entries.
+func shortHash(b []byte) uint32 {
+	h := uint32(2166136261)
+	for _, c := range b {
+		h ^= uint32(c)
+		h *= 16777619
+	}
+	return h
 }
 
 const maxCombos = 4096
 
 func newLotReader(names []string, loc *time.Location) *lotReader {
-	return &lotReader{names: names, loc: loc, words: newInterner(), cats: map[string]int64{}, combos: map[string]map[string]int64{}}
+	return &lotReader{names: names, loc: loc, words: newInterner(), cats: map[string]int64{}, combos: map[string]map[string]int64{},
+		lastText: -1, lastCounts: -1}
 }
 
 // code returns b as a string that lives in the current block.
@@ -178,38 +216,90 @@ func (lr *lotReader) unpack(b []byte, l *Lot) error {
 	l.Count = r.varint()
 	l.Revision = int(r.uvarint())
 	l.Lot = lr.code(r.bytes())
-	// The other text repeats from lot to lot (a few shifts, inspectors):
-	// the strings met last are compared first, then the shared ones.
-	l.Shift = lr.recent[0].get(lr.words, r.bytes())
-	l.Inspector = lr.recent[1].get(lr.words, r.bytes())
-	l.Note = lr.recent[2].get(lr.words, r.bytes())
-	l.RecordedBy = lr.recent[3].get(lr.words, r.bytes())
-	l.Reason = lr.recent[4].get(lr.words, r.bytes())
+	// The other text repeats from lot to lot (a few shifts, inspectors).
+	text := r.b
+	var words [5][]byte
+	for i := range words {
+		words[i] = r.bytes()
+	}
+	text = text[:len(text)-len(r.b)]
+	if r.err != nil {
+		return errPacked
+	}
+	lr.text(l, text, &words)
 	n := r.uvarint()
-	l.Categories = nil
-	if n > 0 && r.err == nil {
-		// The counts are the last part of the packed lot.
-		if m, ok := lr.combos[string(r.b)]; ok {
-			l.Categories = m
-			r.b = nil
-		} else {
-			key := r.b
-			if err := lr.categories(&r, n); err != nil {
-				return err
-			}
-			l.Categories = lr.cats
-			if len(lr.combos) < maxCombos && len(r.b) == 0 {
-				m := maps.Clone(lr.cats)
-				lr.combos[string(key)] = m
-				l.Categories = m
-			}
-		}
+	if n == 0 || r.err != nil {
+		l.Categories = nil
+		lr.lastCounts = -1
+	} else if err := lr.counts(l, &r, n); err != nil {
+		return err
 	}
 	if r.err != nil || len(r.b) != 0 {
 		return errPacked
 	}
 	l.Time = fromNanos(t, lr.loc)
 	l.Recorded = fromNanos(rec, lr.loc)
+	return nil
+}
+
+// text sets the text fields of l from their packed bytes text (split
+// into words).
+func (lr *lotReader) text(l *Lot, text []byte, words *[5][]byte) {
+	h := -1
+	if len(text) <= maxTextKey {
+		h = int(shortHash(text) % uint32(len(lr.textCache)))
+		if e := &lr.textCache[h]; e.key == string(text) {
+			if lr.lastText != h {
+				l.Shift, l.Inspector, l.Note, l.RecordedBy, l.Reason = e.s[0], e.s[1], e.s[2], e.s[3], e.s[4]
+				lr.lastText = h
+			}
+			return
+		}
+	}
+	// The strings met last are compared first, then the shared ones.
+	var s [5]string
+	for i, w := range words {
+		s[i] = lr.recent[i].get(lr.words, w)
+	}
+	l.Shift, l.Inspector, l.Note, l.RecordedBy, l.Reason = s[0], s[1], s[2], s[3], s[4]
+	lr.lastText = -1
+	if h >= 0 {
+		lr.textCache[h] = textEntry{key: string(text), s: s}
+		lr.lastText = h
+	}
+}
+
+// counts sets l.Categories from the n packed category counts at r, the
+// last part of the packed lot.
+func (lr *lotReader) counts(l *Lot, r *packedReader, n uint64) error {
+	key := r.b
+	h := int(shortHash(key) % uint32(len(lr.countsCache)))
+	if e := &lr.countsCache[h]; e.m != nil && e.key == string(key) {
+		if lr.lastCounts != h {
+			l.Categories = e.m
+			lr.lastCounts = h
+		}
+		r.b = nil
+		return nil
+	}
+	lr.lastCounts = -1
+	if m, ok := lr.combos[string(key)]; ok {
+		l.Categories = m
+		r.b = nil
+	} else {
+		if err := lr.categories(r, n); err != nil {
+			return err
+		}
+		l.Categories = lr.cats
+		if len(lr.combos) >= maxCombos || len(r.b) != 0 {
+			return nil
+		}
+		m := maps.Clone(lr.cats)
+		lr.combos[string(key)] = m
+		l.Categories = m
+	}
+	lr.countsCache[h] = countsEntry{key: string(key), m: l.Categories}
+	lr.lastCounts = h
 	return nil
 }
 
