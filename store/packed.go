@@ -71,50 +71,61 @@ func appendPacked(b []byte, l *Lot, cats []string) []byte {
 var errPacked = errors.New("packed lot is malformed")
 
 // packedReader decodes a packed lot without allocating beyond the
-// strings handed out.
+// strings handed out. It keeps an offset into b rather than reslicing b,
+// so that reading a value writes no pointer (no write barrier while the
+// collector runs).
 type packedReader struct {
 	b   []byte
+	i   int // the next byte to read
 	err error
 }
 
+// rest returns the bytes not read yet.
+func (r *packedReader) rest() []byte { return r.b[r.i:] }
+
+// fail marks the packed lot malformed and stops reading.
+func (r *packedReader) fail() {
+	r.err, r.i = errPacked, len(r.b)
+}
+
 func (r *packedReader) varint() int64 {
-	if len(r.b) > 0 && r.b[0] < 0x80 { // one byte: most counts
-		u := r.b[0]
-		r.b = r.b[1:]
+	if r.i < len(r.b) && r.b[r.i] < 0x80 { // one byte: most counts
+		u := r.b[r.i]
+		r.i++
 		return int64(u>>1) ^ -int64(u&1)
 	}
-	v, n := binary.Varint(r.b)
+	v, n := binary.Varint(r.b[r.i:])
 	if n <= 0 {
-		r.err, r.b = errPacked, nil
+		r.fail()
 		return 0
 	}
-	r.b = r.b[n:]
+	r.i += n
 	return v
 }
 
 func (r *packedReader) uvarint() uint64 {
-	if len(r.b) > 0 && r.b[0] < 0x80 {
-		u := r.b[0]
-		r.b = r.b[1:]
+	if r.i < len(r.b) && r.b[r.i] < 0x80 {
+		u := r.b[r.i]
+		r.i++
 		return uint64(u)
 	}
-	v, n := binary.Uvarint(r.b)
+	v, n := binary.Uvarint(r.b[r.i:])
 	if n <= 0 {
-		r.err, r.b = errPacked, nil
+		r.fail()
 		return 0
 	}
-	r.b = r.b[n:]
+	r.i += n
 	return v
 }
 
 func (r *packedReader) bytes() []byte {
 	n := r.uvarint()
-	if n > uint64(len(r.b)) {
-		r.err, r.b = errPacked, nil
+	if n > uint64(len(r.b)-r.i) {
+		r.fail()
 		return nil
 	}
-	s := r.b[:n]
-	r.b = r.b[n:]
+	s := r.b[r.i : r.i+int(n)]
+	r.i += int(n)
 	return s
 }
 
@@ -217,12 +228,12 @@ func (lr *lotReader) unpack(b []byte, l *Lot) error {
 	l.Revision = int(r.uvarint())
 	l.Lot = lr.code(r.bytes())
 	// The other text repeats from lot to lot (a few shifts, inspectors).
-	text := r.b
+	start := r.i
 	var words [5][]byte
 	for i := range words {
 		words[i] = r.bytes()
 	}
-	text = text[:len(text)-len(r.b)]
+	text := r.b[start:r.i]
 	if r.err != nil {
 		return errPacked
 	}
@@ -234,7 +245,7 @@ func (lr *lotReader) unpack(b []byte, l *Lot) error {
 	} else if err := lr.counts(l, &r, n); err != nil {
 		return err
 	}
-	if r.err != nil || len(r.b) != 0 {
+	if r.err != nil || r.i != len(r.b) {
 		return errPacked
 	}
 	l.Time = fromNanos(t, lr.loc)
@@ -272,26 +283,26 @@ func (lr *lotReader) text(l *Lot, text []byte, words *[5][]byte) {
 // counts sets l.Categories from the n packed category counts at r, the
 // last part of the packed lot.
 func (lr *lotReader) counts(l *Lot, r *packedReader, n uint64) error {
-	key := r.b
+	key := r.rest()
 	h := int(shortHash(key) % uint32(len(lr.countsCache)))
 	if e := &lr.countsCache[h]; e.m != nil && e.key == string(key) {
 		if lr.lastCounts != h {
 			l.Categories = e.m
 			lr.lastCounts = h
 		}
-		r.b = nil
+		r.i = len(r.b)
 		return nil
 	}
 	lr.lastCounts = -1
 	if m, ok := lr.combos[string(key)]; ok {
 		l.Categories = m
-		r.b = nil
+		r.i = len(r.b)
 	} else {
 		if err := lr.categories(r, n); err != nil {
 			return err
 		}
 		l.Categories = lr.cats
-		if len(lr.combos) >= maxCombos || len(r.b) != 0 {
+		if len(lr.combos) >= maxCombos || r.i != len(r.b) {
 			return nil
 		}
 		m := maps.Clone(lr.cats)
@@ -307,7 +318,7 @@ func (lr *lotReader) categories(r *packedReader, n uint64) error {
 	// Most lots name the same categories as the lot before: then only the
 	// counts are written over.
 	var mask uint64
-	rest := r.b
+	rest := r.i
 	simple := len(lr.names) <= 64
 	for i := uint64(0); i < n && simple; i++ {
 		k := r.uvarint()
@@ -318,7 +329,7 @@ func (lr *lotReader) categories(r *packedReader, n uint64) error {
 			mask |= 1 << (k - 1)
 		}
 	}
-	r.b, r.err = rest, nil
+	r.i, r.err = rest, nil
 	if !simple || mask != lr.mask {
 		clear(lr.cats)
 		lr.mask = 0
