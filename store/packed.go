@@ -71,50 +71,61 @@ func appendPacked(b []byte, l *Lot, cats []string) []byte {
 var errPacked = errors.New("packed lot is malformed")
 
 // packedReader decodes a packed lot without allocating beyond the
-// strings handed out.
+// strings handed out. It keeps an offset into b rather than reslicing b,
+// so that reading a value writes no pointer (no write barrier while the
+// collector runs).
 type packedReader struct {
 	b   []byte
+	i   int // the next byte to read
 	err error
 }
 
+// rest returns the bytes not read yet.
+func (r *packedReader) rest() []byte { return r.b[r.i:] }
+
+// fail marks the packed lot malformed and stops reading.
+func (r *packedReader) fail() {
+	r.err, r.i = errPacked, len(r.b)
+}
+
 func (r *packedReader) varint() int64 {
-	if len(r.b) > 0 && r.b[0] < 0x80 { // one byte: most counts
-		u := r.b[0]
-		r.b = r.b[1:]
+	if r.i < len(r.b) && r.b[r.i] < 0x80 { // one byte: most counts
+		u := r.b[r.i]
+		r.i++
 		return int64(u>>1) ^ -int64(u&1)
 	}
-	v, n := binary.Varint(r.b)
+	v, n := binary.Varint(r.b[r.i:])
 	if n <= 0 {
-		r.err, r.b = errPacked, nil
+		r.fail()
 		return 0
 	}
-	r.b = r.b[n:]
+	r.i += n
 	return v
 }
 
 func (r *packedReader) uvarint() uint64 {
-	if len(r.b) > 0 && r.b[0] < 0x80 {
-		u := r.b[0]
-		r.b = r.b[1:]
+	if r.i < len(r.b) && r.b[r.i] < 0x80 {
+		u := r.b[r.i]
+		r.i++
 		return uint64(u)
 	}
-	v, n := binary.Uvarint(r.b)
+	v, n := binary.Uvarint(r.b[r.i:])
 	if n <= 0 {
-		r.err, r.b = errPacked, nil
+		r.fail()
 		return 0
 	}
-	r.b = r.b[n:]
+	r.i += n
 	return v
 }
 
 func (r *packedReader) bytes() []byte {
 	n := r.uvarint()
-	if n > uint64(len(r.b)) {
-		r.err, r.b = errPacked, nil
+	if n > uint64(len(r.b)-r.i) {
+		r.fail()
 		return nil
 	}
-	s := r.b[:n]
-	r.b = r.b[n:]
+	s := r.b[r.i : r.i+int(n)]
+	r.i += int(n)
 	return s
 }
 
@@ -135,12 +146,50 @@ type lotReader struct {
 	// (lots repeat them: mostly small counts of a few categories), so a
 	// lot's counts cost one lookup; beyond maxCombos, cats is refilled.
 	combos map[string]map[string]int64
+	// textCache and countsCache are small caches, indexed by a hash of the packed
+	// bytes, in front of recent and combos: most lots repeat a few
+	// combinations of text and of counts, so one short comparison finds
+	// them. lastText and lastCounts name the entries that the Lot being
+	// filled holds now (-1: none), so that a lot repeating them is not
+	// written over at all.
+	textCache   [64]textEntry
+	countsCache [256]countsEntry
+	lastText    int
+	lastCounts  int
+}
+
+// textEntry is the shift, inspector, note, recorded_by and reason of a
+// lot, keyed by their packed bytes.
+type textEntry struct {
+	key string
+	s   [5]string
+}
+
+// countsEntry is a shared Categories map, keyed by its packed bytes.
+type countsEntry struct {
+	key string
+	m   map[string]int64
+}
+
+// maxTextKey bounds the packed text kept as a key in texts.
+const maxTextKey = 128
+
+// shortHash is FNV-1a (Fowler, Noll, Vo) of b: a cheap spread of short
+// keys over the cache entries.
+func shortHash(b []byte) uint32 {
+	h := uint32(2166136261)
+	for _, c := range b {
+		h ^= uint32(c)
+		h *= 16777619
+	}
+	return h
 }
 
 const maxCombos = 4096
 
 func newLotReader(names []string, loc *time.Location) *lotReader {
-	return &lotReader{names: names, loc: loc, words: newInterner(), cats: map[string]int64{}, combos: map[string]map[string]int64{}}
+	return &lotReader{names: names, loc: loc, words: newInterner(), cats: map[string]int64{}, combos: map[string]map[string]int64{},
+		lastText: -1, lastCounts: -1}
 }
 
 // code returns b as a string that lives in the current block.
@@ -178,34 +227,25 @@ func (lr *lotReader) unpack(b []byte, l *Lot) error {
 	l.Count = r.varint()
 	l.Revision = int(r.uvarint())
 	l.Lot = lr.code(r.bytes())
-	// The other text repeats from lot to lot (a few shifts, inspectors):
-	// the strings met last are compared first, then the shared ones.
-	l.Shift = lr.recent[0].get(lr.words, r.bytes())
-	l.Inspector = lr.recent[1].get(lr.words, r.bytes())
-	l.Note = lr.recent[2].get(lr.words, r.bytes())
-	l.RecordedBy = lr.recent[3].get(lr.words, r.bytes())
-	l.Reason = lr.recent[4].get(lr.words, r.bytes())
-	n := r.uvarint()
-	l.Categories = nil
-	if n > 0 && r.err == nil {
-		// The counts are the last part of the packed lot.
-		if m, ok := lr.combos[string(r.b)]; ok {
-			l.Categories = m
-			r.b = nil
-		} else {
-			key := r.b
-			if err := lr.categories(&r, n); err != nil {
-				return err
-			}
-			l.Categories = lr.cats
-			if len(lr.combos) < maxCombos && len(r.b) == 0 {
-				m := maps.Clone(lr.cats)
-				lr.combos[string(key)] = m
-				l.Categories = m
-			}
-		}
+	// The other text repeats from lot to lot (a few shifts, inspectors).
+	start := r.i
+	var words [5][]byte
+	for i := range words {
+		words[i] = r.bytes()
 	}
-	if r.err != nil || len(r.b) != 0 {
+	text := r.b[start:r.i]
+	if r.err != nil {
+		return errPacked
+	}
+	lr.text(l, text, &words)
+	n := r.uvarint()
+	if n == 0 || r.err != nil {
+		l.Categories = nil
+		lr.lastCounts = -1
+	} else if err := lr.counts(l, &r, n); err != nil {
+		return err
+	}
+	if r.err != nil || r.i != len(r.b) {
 		return errPacked
 	}
 	l.Time = fromNanos(t, lr.loc)
@@ -213,11 +253,72 @@ func (lr *lotReader) unpack(b []byte, l *Lot) error {
 	return nil
 }
 
+// text sets the text fields of l from their packed bytes text (split
+// into words).
+func (lr *lotReader) text(l *Lot, text []byte, words *[5][]byte) {
+	h := -1
+	if len(text) <= maxTextKey {
+		h = int(shortHash(text) % uint32(len(lr.textCache)))
+		if e := &lr.textCache[h]; e.key == string(text) {
+			if lr.lastText != h {
+				l.Shift, l.Inspector, l.Note, l.RecordedBy, l.Reason = e.s[0], e.s[1], e.s[2], e.s[3], e.s[4]
+				lr.lastText = h
+			}
+			return
+		}
+	}
+	// The strings met last are compared first, then the shared ones.
+	var s [5]string
+	for i, w := range words {
+		s[i] = lr.recent[i].get(lr.words, w)
+	}
+	l.Shift, l.Inspector, l.Note, l.RecordedBy, l.Reason = s[0], s[1], s[2], s[3], s[4]
+	lr.lastText = -1
+	if h >= 0 {
+		lr.textCache[h] = textEntry{key: string(text), s: s}
+		lr.lastText = h
+	}
+}
+
+// counts sets l.Categories from the n packed category counts at r, the
+// last part of the packed lot.
+func (lr *lotReader) counts(l *Lot, r *packedReader, n uint64) error {
+	key := r.rest()
+	h := int(shortHash(key) % uint32(len(lr.countsCache)))
+	if e := &lr.countsCache[h]; e.m != nil && e.key == string(key) {
+		if lr.lastCounts != h {
+			l.Categories = e.m
+			lr.lastCounts = h
+		}
+		r.i = len(r.b)
+		return nil
+	}
+	lr.lastCounts = -1
+	if m, ok := lr.combos[string(key)]; ok {
+		l.Categories = m
+		r.i = len(r.b)
+	} else {
+		if err := lr.categories(r, n); err != nil {
+			return err
+		}
+		l.Categories = lr.cats
+		if len(lr.combos) >= maxCombos || r.i != len(r.b) {
+			return nil
+		}
+		m := maps.Clone(lr.cats)
+		lr.combos[string(key)] = m
+		l.Categories = m
+	}
+	lr.countsCache[h] = countsEntry{key: string(key), m: l.Categories}
+	lr.lastCounts = h
+	return nil
+}
+
 func (lr *lotReader) categories(r *packedReader, n uint64) error {
 	// Most lots name the same categories as the lot before: then only the
 	// counts are written over.
 	var mask uint64
-	rest := r.b
+	rest := r.i
 	simple := len(lr.names) <= 64
 	for i := uint64(0); i < n && simple; i++ {
 		k := r.uvarint()
@@ -228,7 +329,7 @@ func (lr *lotReader) categories(r *packedReader, n uint64) error {
 			mask |= 1 << (k - 1)
 		}
 	}
-	r.b, r.err = rest, nil
+	r.i, r.err = rest, nil
 	if !simple || mask != lr.mask {
 		clear(lr.cats)
 		lr.mask = 0
