@@ -55,13 +55,13 @@ type Lot struct {
 }
 
 // MaxInspected is the largest number of units (or inspection units) one
-// lot may have, and the largest count: 10¹². It is far beyond any
-// inspected lot. Up to it the limits are exact and a lot's tail
-// probability is within 0.2 % of its value (within 10⁻⁶ up to 10⁹ units);
-// beyond about 10¹³ the incomplete-beta arithmetic behind the binomial
-// tails fails and the expected counts outgrow the tables of the exact
-// limits.
-const MaxInspected = 1_000_000_000_000
+// lot may have, and the largest count: 10⁷, ten million, beyond any lot
+// that is inspected unit by unit. Up to it the binomial tail
+// probabilities agree with SciPy to 10⁻⁶ (relative) in the tails and to
+// 0.3 % at the centre (TestTailLargeLots); beyond about 3·10⁷ units the
+// incomplete-beta continued fraction behind gonum's binomial CDF fails
+// near the centre (it gave negative probabilities at 10⁹).
+const MaxInspected = 10_000_000
 
 // CheckLot reports what is wrong with a lot's numbers for the chart, or
 // nil. It is the one validation rule for counts shared by the command

@@ -1,8 +1,11 @@
 package spc
 
 import (
+	"encoding/json"
 	"errors"
 	"math"
+	"os"
+	"path/filepath"
 	"testing"
 )
 
@@ -72,6 +75,43 @@ func TestAnalyzeLargestLots(t *testing.T) {
 					t.Errorf("%s %s lot %s: tail probability %v", c, m, p.Lot.ID, p.TailP)
 				}
 			}
+		}
+	}
+}
+
+// TestTailLargeLots checks each lot's tail probability for lots up to
+// MaxInspected against SciPy (values recorded by
+// spc/testdata/tail_large_reference.py): within 10⁻⁶ relative in the
+// tails, within 0.5 % at the centre, where gonum's incomplete beta
+// converges worst for the largest lots.
+func TestTailLargeLots(t *testing.T) {
+	raw, err := os.ReadFile(filepath.Join("testdata", "tail_large_reference.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var ref struct {
+		Source string
+		Rows   []struct {
+			Chart    Chart
+			N, K     int64
+			Rate, SF float64
+		}
+	}
+	if err := json.Unmarshal(raw, &ref); err != nil {
+		t.Fatal(err)
+	}
+	for _, r := range ref.Rows {
+		a, err := Analyze([]Lot{{"a", r.N, r.K}}, Config{Chart: r.Chart, Standard: &Standard{Center: r.Rate}})
+		if err != nil {
+			t.Fatalf("%+v: %v", r, err)
+		}
+		got := a.Points[0].TailP
+		tol := 1e-6
+		if r.SF > 0.3 {
+			tol = 5e-3
+		}
+		if math.Abs(got-r.SF) > tol*r.SF {
+			t.Errorf("%s chart, n %d, rate %g, count %d: tail %v, want %v (%s)", r.Chart, r.N, r.Rate, r.K, got, r.SF, ref.Source)
 		}
 	}
 }

@@ -89,10 +89,11 @@ func TestImportBadInput(t *testing.T) {
 		{name: "1 MB count", file: head + "A1,2025-03-05 10:00," + strings.Repeat("9", 1<<20) + ",1,,,\n", want: []want{{2, "inspected", "999", "too large"}}},
 
 		// Numbers.
-		{name: "10^12 inspected accepted", file: head + "A1,2025-03-05 10:00,1000000000000,999999999999,,,\n",
+		{name: "10^12 inspected refused", file: head + "A1,2025-03-05 10:00,1000000000000,1,,,\n", want: []want{{2, "inspected", "1000000000000", "more than 10000000"}}},
+		{name: "10^7 inspected accepted", file: head + "A1,2025-03-05 10:00,10000000,9999999,,,\n",
 			check: func(t *testing.T, db *DB, p Process, res ImportResult) {
-				if l := lotNamed(t, db, p, "A1"); l.Inspected != 1_000_000_000_000 || l.Count != 999_999_999_999 {
-					t.Errorf("stored %d/%d, want 1000000000000/999999999999", l.Count, l.Inspected)
+				if l := lotNamed(t, db, p, "A1"); l.Inspected != 10_000_000 || l.Count != 9_999_999 {
+					t.Errorf("stored %d/%d, want 9999999/10000000", l.Count, l.Inspected)
 				}
 			}},
 		{name: "inspected one beyond int64", file: head + "A1,2025-03-05 10:00,9223372036854775808,1,,,\n", want: []want{{2, "inspected", "9223372036854775808", "too large"}}},

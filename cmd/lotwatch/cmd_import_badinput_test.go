@@ -14,7 +14,7 @@ import (
 // FILE:LINE: column C, value "V": reason; the export of the process and
 // the audit trail (entries and last hash, `lotwatch audit verify`) are
 // the same before and after. The number rules are those of spc.CheckLot
-// (0 < n ≤ spc.MaxInspected = 10^12, 0 ≤ d ≤ n on a p chart) and of the
+// (0 < n ≤ spc.MaxInspected = 10^7, 0 ≤ d ≤ n on a p chart) and of the
 // lot file: whole numbers in plain decimal digits.
 func TestCLIImportBadInput(t *testing.T) {
 	dir := t.TempDir()
@@ -50,7 +50,7 @@ func TestCLIImportBadInput(t *testing.T) {
 		{"thousands separator", head + "B1,\"1,000\",0\n", []problem{{2, "inspected", "1,000", "whole number"}}},
 		{"negative count", head + "B1,100,-1\n", []problem{{2, "defective", "-1", "negative"}}},
 		{"d more than n", head + "B1,10,11\n", []problem{{2, "defective", "11", "more than the 10 units inspected"}}},
-		{"inspected 10^13", head + "B1,10000000000000,0\n", []problem{{2, "inspected", "10000000000000", "more than 1000000000000"}}},
+		{"inspected 10^12", head + "B1,1000000000000,0\n", []problem{{2, "inspected", "1000000000000", "more than 10000000"}}},
 		{"one beyond int64", head + "B1,9223372036854775808,0\n", []problem{{2, "inspected", "9223372036854775808", "too large"}}},
 		{"category above n", "lot,inspected,defective,dent\nB1,10,1,11\n", []problem{{2, "dent", "11", "more than the 10 units inspected"}}},
 		{"time 30 February", "lot,time,inspected,defective\nB1,2026-02-30 10:00,100,1\n", []problem{{2, "time", "2026-02-30 10:00", "is not a time"}}},
