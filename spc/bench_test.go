@@ -1,3 +1,6 @@
+// The benchmarks of the engine make no check of values (the tests do,
+// against their named sources); their reference is the bare limits loop
+// baselineLimits, measured in the same run.
 package spc
 
 import (

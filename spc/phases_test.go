@@ -6,7 +6,8 @@ import (
 )
 
 func TestAnalyzePhases(t *testing.T) {
-	// Lots 0–9 judged against a frozen p = 0.10, lots 10–19 against a
+	// Source of the check: Nelson (1984) J. Quality Technology 16(4), test 2,
+	// and the p-chart limit definition (Montgomery, from memory). Lots 0–9 judged against a frozen p = 0.10, lots 10–19 against a
 	// revised p = 0.05, all n = 200. Lots 5–13 sit above their own centre
 	// line (24/200 > 0.10, 12/200 > 0.05): nine in a row across the change,
 	// Nelson test 2 (Nelson 1984) from lot 5 to lot 13.

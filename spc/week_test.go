@@ -15,8 +15,8 @@ func mustZone(t *testing.T, name string) *time.Location {
 	return loc
 }
 
-// TestISOWeekYearBoundaries checks weeks around New Year. The expected
-// values follow ISO 8601 (week 1 holds the first Thursday) and were checked
+// TestISOWeekYearBoundaries checks weeks around New Year. Source of the
+// expected values: ISO 8601 (week 1 holds the first Thursday) and were checked
 // against Go's time.Time.ISOWeek, a general-purpose implementation.
 func TestISOWeekYearBoundaries(t *testing.T) {
 	tests := []struct {
@@ -57,7 +57,8 @@ func TestISOWeekYearBoundaries(t *testing.T) {
 	}
 }
 
-// TestISOWeekRangeAgainstGo walks every day of 1999–2041 and checks that
+// TestISOWeekRangeAgainstGo (reference: the standard library's
+// time.ISOWeek) walks every day of 1999–2041 and checks that
 // the week Go's time.ISOWeek gives for it has a range holding the day,
 // starting on a Monday at midnight, seven calendar days long, and that
 // consecutive weeks join without gaps.
