@@ -181,22 +181,31 @@ func (s *Server) apiProcess(w http.ResponseWriter, r *http.Request) {
 	writeJSON(w, http.StatusOK, toProcessJSON(p))
 }
 
-func (s *Server) apiChart(w http.ResponseWriter, r *http.Request) {
+// apiWindowedChart reads the process of the path and its from=/to=
+// window, and judges the process's lots; it answers the request itself
+// (400, 404, 500) when it returns false.
+func (s *Server) apiWindowedChart(w http.ResponseWriter, r *http.Request) (*processChart, window, bool) {
 	p, ok := s.pathProcess(w, r)
 	if !ok {
-		return
+		return nil, window{}, false
 	}
 	win, err := parseWindow(r.URL.Query(), p.Location())
 	if err != nil {
 		writeError(w, http.StatusBadRequest, err.Error())
-		return
+		return nil, window{}, false
 	}
 	pc, err := s.freshChart(r.Context(), p)
 	if err != nil {
 		s.internalError(w, r, err)
-		return
+		return nil, window{}, false
 	}
-	writeJSON(w, http.StatusOK, pc.chartJSON(win))
+	return pc, win, true
+}
+
+func (s *Server) apiChart(w http.ResponseWriter, r *http.Request) {
+	if pc, win, ok := s.apiWindowedChart(w, r); ok {
+		writeJSON(w, http.StatusOK, pc.chartJSON(win))
+	}
 }
 
 func (s *Server) apiLots(w http.ResponseWriter, r *http.Request) {
@@ -342,21 +351,11 @@ func (pc *processChart) verdicts(stored []store.Lot) []verdictJSON {
 }
 
 func (s *Server) apiSignals(w http.ResponseWriter, r *http.Request) {
-	p, ok := s.pathProcess(w, r)
+	pc, win, ok := s.apiWindowedChart(w, r)
 	if !ok {
 		return
 	}
-	win, err := parseWindow(r.URL.Query(), p.Location())
-	if err != nil {
-		writeError(w, http.StatusBadRequest, err.Error())
-		return
-	}
-	pc, err := s.freshChart(r.Context(), p)
-	if err != nil {
-		s.internalError(w, r, err)
-		return
-	}
-	anns, err := s.db.Annotations(r.Context(), p.ID)
+	anns, err := s.db.Annotations(r.Context(), pc.proc.ID)
 	if err != nil {
 		s.internalError(w, r, err)
 		return
