@@ -469,7 +469,7 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 		rs := runState{chi: chi, mr: mr, prev: prev, m: m, nmr: nmr, havePrev: havePrev, regs: regs}
 		for i := 0; i < len(lots); {
 			var fire bool
-			i, fire = t.runPoints(lots, pts, excluded, i, &rs, accumulate, fast, beyond)
+			i, fire = t.runPoints(lots[:min(len(lots), i+maxRun)], pts, excluded, i, &rs, accumulate, fast, beyond)
 			if fire {
 				e.regs = rs.regs
 				e.fire(i-1, &pts[i-1], k)
@@ -524,12 +524,19 @@ type runState struct {
 // runPoints finishes lots from i on whose records are already filled in,
 // stopping before a lot whose record is not (or not in the table), and
 // after a lot at which a rule may be met (fire). It returns the index of
-// the next lot to finish.
+// the next lot to finish. It finishes none while the baseline statistics
+// are accumulated and have no previous z yet, so that every baseline lot
+// it finishes adds a moving range; it finishes at most maxRun lots.
 func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, accumulate, fast bool, beyond uint8) (next int, fire bool) {
+	if accumulate && !rs.havePrev {
+		return i, false
+	}
 	dense := t.dense
-	chi, mr, prev, m, nmr, havePrev, regs := rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs
+	chi, mr, prev, m, regs := rs.chi, rs.mr, rs.prev, rs.m, rs.regs
 	pts = pts[:len(lots)]
-	var small, lclZero int
+	// The lots counted in pointCounts, small ones in the low half and
+	// those with a lower limit of 0 in the high half.
+	var counts uint64
 	for ; i < len(lots); i++ {
 		l := &lots[i]
 		n := uint64(l.Inspected)
@@ -552,17 +559,13 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 		f := r.flags
 		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
 		q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
-		small += int(f >> recSmallBit & 1)
-		lclZero += int(f >> recLCLZeroBit & 1)
+		counts += countIncr[f>>recSmallBit&3]
 		if accumulate && !ex {
 			z := r.z
 			m++
 			chi += z * z
-			if havePrev {
-				mr += math.Abs(z - prev)
-				nmr++
-			}
-			prev, havePrev = z, true
+			mr += math.Abs(z - prev)
+			prev = z
 		}
 		if fast {
 			// regs.advanceBits, written out: it is too large to be
@@ -581,11 +584,20 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 			}
 		}
 	}
-	rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs = chi, mr, prev, m, nmr, havePrev, regs
-	t.small += small
-	t.lclZero += lclZero
+	rs.nmr += m - rs.m
+	rs.chi, rs.mr, rs.prev, rs.m, rs.regs = chi, mr, prev, m, regs
+	t.small += int(counts & (1<<32 - 1))
+	t.lclZero += int(counts >> 32)
 	return i, fire
 }
+
+// maxRun bounds the lots of one call of runPoints, whose counts of lots
+// are held in halves of 32 bits.
+const maxRun = 1 << 31
+
+// countIncr adds to the counts of runPoints a lot whose flags hold
+// recSmallBit and recLCLZeroBit (adjacent) as given by the index.
+var countIncr = [4]uint64{0, 1, 1 << 32, 1<<32 | 1}
 
 // onePoint finishes lot i, filling in the table as needed, and, when rs
 // is not nil, steps its state as runPoints does, reporting whether a rule
