@@ -177,7 +177,10 @@ type ruleEngine struct {
 	prevZ          float64
 	havePrev       bool
 	open           [numRules]int
-	signals        []Signal
+	// signals are the signals found so far, without their lots and
+	// descriptions, which finish adds; they hold no pointer, so that
+	// growing the list neither clears nor scans memory.
+	signals []finding
 
 	// pts are the points judged, when known while stepping: emit then
 	// marks their Rules and gathers the IDs of the lots of each rule's
@@ -426,7 +429,7 @@ func (e *ruleEngine) emit(r Rule, first, last int, side int8, hits int, k float6
 		}
 	}
 	e.open[r] = len(e.signals)
-	e.signals = append(e.signals, Signal{Rule: r, First: first, Last: last, Side: side, hits: hits, k: k})
+	e.signals = append(e.signals, finding{Rule: r, First: first, Last: last, Side: side, hits: hits, k: k})
 	e.cover(r, first, last)
 }
 
@@ -468,7 +471,7 @@ func (e *ruleEngine) prepend(r Rule, from, before, have int) {
 // the cost in allocations does not grow with the number of signals.
 func (e *ruleEngine) finish(pts []Point) []Signal {
 	if len(e.signals) == 0 {
-		return e.signals
+		return nil
 	}
 	if e.pts == nil {
 		e.pts = pts
@@ -485,8 +488,11 @@ func (e *ruleEngine) finish(pts []Point) []Signal {
 	var from [numRules]int
 	text := make([]byte, 0, 64*len(e.signals))
 	ends := make([]int, len(e.signals))
+	out := make([]Signal, len(e.signals))
 	for si := range e.signals {
-		sg := &e.signals[si]
+		f := &e.signals[si]
+		sg := &out[si]
+		*sg = Signal{Rule: f.Rule, First: f.First, Last: f.Last, Side: f.Side, hits: f.hits, k: f.k}
 		start := len(ids)
 		n := sg.Last - sg.First + 1
 		ids = append(ids, e.ids[sg.Rule][from[sg.Rule]:from[sg.Rule]+n]...)
@@ -497,11 +503,21 @@ func (e *ruleEngine) finish(pts []Point) []Signal {
 	}
 	all := string(text)
 	at := 0
-	for si := range e.signals {
-		e.signals[si].Description = all[at:ends[si]]
+	for si := range out {
+		out[si].Description = all[at:ends[si]]
 		at = ends[si]
 	}
-	return e.signals
+	return out
+}
+
+// finding is a Signal while the engine runs: its rule, lots, side, the
+// lots taking part and the limit width.
+type finding struct {
+	Rule        Rule
+	Side        int8
+	First, Last int
+	hits        int
+	k           float64
 }
 
 // appendDescription appends the signal in plain words to b.
