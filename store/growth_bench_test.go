@@ -9,8 +9,6 @@ import (
 	"path/filepath"
 	"runtime"
 	"strconv"
-	"sync"
-	"sync/atomic"
 	"testing"
 	"time"
 
@@ -75,33 +73,6 @@ func growthDB(b *testing.B) (*DB, Process) {
 	return db, p
 }
 
-// peakHeap samples the heap in use every 10 ms until stop is called and
-// returns the largest sample in MiB.
-func peakHeap() (stop func() float64) {
-	var peak atomic.Uint64
-	done := make(chan struct{})
-	var wg sync.WaitGroup
-	wg.Add(1)
-	go func() {
-		defer wg.Done()
-		var ms runtime.MemStats
-		tick := time.NewTicker(10 * time.Millisecond)
-		defer tick.Stop()
-		for {
-			runtime.ReadMemStats(&ms)
-			if ms.HeapInuse > peak.Load() {
-				peak.Store(ms.HeapInuse)
-			}
-			select {
-			case <-done:
-				return
-			case <-tick.C:
-			}
-		}
-	}()
-	return func() float64 { close(done); wg.Wait(); return float64(peak.Load()) / (1 << 20) }
-}
-
 // BenchmarkGrowth measures how the cost of the three things a plant does
 // with its record grows with the number of lots of one process: import a
 // file of n lots (validated, one transaction), read the n lots back in
@@ -120,13 +91,13 @@ func BenchmarkGrowth(b *testing.B) {
 				b.StopTimer()
 				db, _ := growthDB(b)
 				runtime.GC()
-				stop := peakHeap()
+				stop := heapPeak() // bench_test.go
 				b.StartTimer()
 				t0 := time.Now()
 				res, err := db.Import(ctx, "bench", growthCSV(n), ImportOptions{Process: "weld"})
 				total += time.Since(t0)
 				b.StopTimer()
-				peak = max(peak, stop())
+				peak = max(peak, float64(stop())/(1<<20))
 				if err != nil || res.Added != n {
 					b.Fatalf("import: %+v %v", res, err)
 				}
