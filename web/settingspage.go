@@ -121,17 +121,7 @@ func (s *Server) addProcess(w http.ResponseWriter, r *http.Request) {
 	p := readProcessForm(r, &f)
 	if len(f.Problems) == 0 {
 		np, err := s.db.AddProcess(r.Context(), who(r).user.Name, p)
-		var ve *store.ValidationError
-		switch {
-		case errors.As(err, &ve):
-			f.place(ve.Problems)
-		case errors.Is(err, store.ErrConflict):
-			f.Problems["name"] = "a process named " + strconv.Quote(p.Name) + " already exists"
-		case err != nil:
-			s.internalError(w, r, err)
-			return
-		default:
-			http.Redirect(w, r, "/processes/"+formatID(np.ID)+"/settings?done=1", http.StatusSeeOther)
+		if s.savedProcess(w, r, &f, np, err) {
 			return
 		}
 	}
@@ -168,21 +158,32 @@ func (s *Server) updateProcess(w http.ResponseWriter, r *http.Request) {
 		f.Problems["reason"] = "is empty: say why the process changes"
 	}
 	if len(f.Problems) == 0 {
-		_, err := s.db.UpdateProcess(r.Context(), who(r).user.Name, reason, p)
-		var ve *store.ValidationError
-		switch {
-		case errors.As(err, &ve):
-			f.place(ve.Problems)
-		case errors.Is(err, store.ErrConflict):
-			f.Problems["name"] = "a process named " + strconv.Quote(p.Name) + " already exists"
-		case err != nil:
-			s.internalError(w, r, err)
-			return
-		default:
-			http.Redirect(w, r, "/processes/"+formatID(p.ID)+"/settings?done=1", http.StatusSeeOther)
+		np, err := s.db.UpdateProcess(r.Context(), who(r).user.Name, reason, p)
+		if s.savedProcess(w, r, &f, np, err) {
 			return
 		}
 	}
 	f.HasLots = s.hasLots(r, old)
 	s.render(w, r, http.StatusBadRequest, "processform.html", "Settings — "+old.Name, f)
+}
+
+// savedProcess answers a saved process with a redirect to its settings
+// (true), or puts the store's refusal beside the form's fields (false:
+// the caller shows the form again); any other error is answered as an
+// internal error (true).
+func (s *Server) savedProcess(w http.ResponseWriter, r *http.Request, f *processForm, p store.Process, err error) bool {
+	var ve *store.ValidationError
+	switch {
+	case errors.As(err, &ve):
+		f.place(ve.Problems)
+		return false
+	case errors.Is(err, store.ErrConflict):
+		f.Problems["name"] = "a process named " + strconv.Quote(strings.TrimSpace(f.Values["name"])) + " already exists"
+		return false
+	case err != nil:
+		s.internalError(w, r, err)
+		return true
+	}
+	http.Redirect(w, r, "/processes/"+formatID(p.ID)+"/settings?done=1", http.StatusSeeOther)
+	return true
 }
