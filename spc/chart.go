@@ -457,19 +457,32 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 		chi, mr, prev, m, nmr, havePrev = st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev
 	}
 	var regs ruleRegs
-	var beyond uint8
 	if fast {
-		regs, beyond = e.regs, e.beyond
+		regs = e.regs
 	}
 	_ = pts[:len(lots)]
 	if fast || !stepping {
 		// The common case runs in runPoints, which makes no call and so
-		// keeps its state in registers; it stops at a lot that needs the
-		// table filled in, or after a lot at which a rule may be met.
+		// keeps its state in registers; it stops before a lot that needs
+		// the table filled in and after a lot at which a rule may be met.
+		// Excluded lots are finished one by one, so that runPoints never
+		// looks at exclusions. Without rules no record carries a bit that
+		// makes a rule fire, so e is then never called.
 		rs := runState{chi: chi, mr: mr, prev: prev, m: m, nmr: nmr, havePrev: havePrev, regs: regs}
+		nextEx := -1 // the first excluded lot at or after i, once found
 		for i := 0; i < len(lots); {
+			end := min(len(lots), i+maxRun)
+			if excluded != nil {
+				if nextEx < i {
+					nextEx = i
+					for nextEx < len(lots) && !excluded[nextEx] {
+						nextEx++
+					}
+				}
+				end = min(end, nextEx)
+			}
 			var fire bool
-			i, fire = t.runPoints(lots[:min(len(lots), i+maxRun)], pts, excluded, i, &rs, accumulate, fast, beyond)
+			i, fire = t.runPoints(lots[:end], pts, i, &rs)
 			if fire {
 				e.regs = rs.regs
 				e.fire(i-1, &pts[i-1], k)
@@ -477,7 +490,7 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 			}
 			if i < len(lots) {
 				// One lot the slow way, like the loop below.
-				rs.regs, fire = t.onePoint(lots, pts, excluded, i, &rs, accumulate, fast, beyond)
+				rs.regs, fire = t.onePoint(lots, pts, excluded, i, &rs, fast)
 				if fire {
 					e.regs = rs.regs
 					e.fire(i, &pts[i], k)
@@ -485,10 +498,13 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 				i++
 			}
 		}
-		chi, mr, prev, m, nmr, havePrev, regs = rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev, rs.regs
+		if accumulate {
+			chi, mr, prev, m, nmr, havePrev = rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev
+		}
+		regs = rs.regs
 	} else {
 		for i := range lots {
-			t.onePoint(lots, pts, excluded, i, nil, false, false, 0)
+			t.onePoint(lots, pts, excluded, i, nil, false)
 			if accumulate && !(excluded != nil && excluded[i]) {
 				z := pts[i].Z
 				m++
@@ -524,19 +540,53 @@ type runState struct {
 // runPoints finishes lots from i on whose records are already filled in,
 // stopping before a lot whose record is not (or not in the table), and
 // after a lot at which a rule may be met (fire). It returns the index of
-// the next lot to finish. It finishes none while the baseline statistics
-// are accumulated and have no previous z yet, so that every baseline lot
-// it finishes adds a moving range; it finishes at most maxRun lots.
-func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, accumulate, fast bool, beyond uint8) (next int, fire bool) {
-	if accumulate && !rs.havePrev {
+// the next lot to finish. It takes every lot as a baseline lot, not
+// excluded, and accumulates its z into the baseline statistics, which the
+// caller keeps only when they are wanted; it finishes none while there is
+// no previous z yet, so that every lot it finishes adds a moving range. It
+// finishes at most maxRun lots, and none while a same-side run is as long.
+//
+// The loop keeps its state in registers, so it holds no more than it
+// must: the two same-side runs share one word, and the counts of lots in
+// pointCounts another.
+func (t *pointTable) runPoints(lots []Lot, pts []Point, i int, rs *runState) (next int, fire bool) {
+	if !rs.havePrev || rs.regs.runAbove >= maxRun || rs.regs.runBelow >= maxRun {
 		return i, false
 	}
-	dense := t.dense
-	chi, mr, prev, m, regs := rs.chi, rs.mr, rs.prev, rs.m, rs.regs
+	in := loopRegs{
+		chi: rs.chi, mr: rs.mr, prev: rs.prev, zones: rs.regs.zones,
+		runs: uint64(rs.regs.runAbove)<<32 | uint64(rs.regs.runBelow),
+	}
+	next, fire, out := runLoop(lots, pts, t.dense, i, in)
+	done := next - i
+	rs.m += done
+	rs.nmr += done
+	rs.chi, rs.mr, rs.prev = out.chi, out.mr, out.prev
+	rs.regs = ruleRegs{zones: out.zones, runAbove: int(out.runs >> 32), runBelow: int(out.runs & (1<<32 - 1))}
+	t.small += int(out.counts & (1<<32 - 1))
+	t.lclZero += int(out.counts >> 32)
+	return next, fire
+}
+
+// loopRegs is the state runLoop carries from lot to lot, passed and
+// returned by value so that it stays in registers: the baseline
+// statistics, the zone registers, the same-side runs (above the centre
+// in the high half, below in the low half) and the lots counted in
+// pointCounts (small ones in the low half, those with a lower limit of 0
+// in the high half).
+type loopRegs struct {
+	chi, mr, prev float64
+	zones         uint32
+	runs, counts  uint64
+}
+
+// runLoop is the loop of runPoints. It holds no pointer but its slices,
+// so that its state fits in the machine's registers.
+func runLoop(lots []Lot, pts []Point, dense []sizeEntry, i int, in loopRegs) (next int, fire bool, out loopRegs) {
+	// The fields in locals: the compiler keeps a struct of this many
+	// fields in memory.
+	chi, mr, prev, zones, runs, counts := in.chi, in.mr, in.prev, in.zones, in.runs, in.counts
 	pts = pts[:len(lots)]
-	// The lots counted in pointCounts, small ones in the low half and
-	// those with a lower limit of 0 in the high half.
-	var counts uint64
 	for ; i < len(lots); i++ {
 		l := &lots[i]
 		n := uint64(l.Inspected)
@@ -551,45 +601,41 @@ func (t *pointTable) runPoints(lots []Lot, pts []Point, excluded []bool, i int, 
 		}
 		r := &en.recs[j]
 		// Write each field of the fresh point once and never read it
-		// back before: the slice is new memory.
+		// back before: the slice is new memory, so Excluded and Rules
+		// are already false and empty.
 		q := &pts[i]
 		q.Lot = *l
-		ex := excluded != nil && excluded[i]
-		q.Excluded = ex
 		f := r.flags
 		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
 		q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
 		counts += countIncr[f>>recSmallBit&3]
-		if accumulate && !ex {
-			z := r.z
-			m++
-			chi += z * z
-			mr += math.Abs(z - prev)
-			prev = z
-		}
-		if fast {
-			// regs.advanceBits, written out: it is too large to be
-			// inlined, and a call would put this loop's state in memory.
-			zr := regs.zones<<1&0xfefefefe | r.zones
-			regs.zones = zr
-			may := twoOfThree[zr>>hi2Shift&7] | twoOfThree[zr>>lo2Shift&7] |
-				fourOfFive[zr>>hi1Shift&31] | fourOfFive[zr>>lo1Shift&31]
-			regs.runAbove = (regs.runAbove + 1) * int(f>>recPosBit&1)
-			regs.runBelow = (regs.runBelow + 1) * int(f>>recNegBit&1)
-			may |= b2u(regs.runAbove >= 8) | b2u(regs.runBelow >= 8)
-			if may|beyond&(f>>recAboveBit|f>>recBelowBit) != 0 {
-				fire = true
-				i++
-				break
-			}
+		z := r.z
+		chi += z * z
+		mr += math.Abs(z - prev)
+		prev = z
+		// ruleRegs.advanceBits, written out for the packed runs: it is
+		// too large to be inlined, and a call would put this loop's
+		// state in memory.
+		zones = zones<<1&0xfefefefe | r.zones
+		may := twoOfThree[zones>>hi2Shift&7] | twoOfThree[zones>>lo2Shift&7] |
+			fourOfFive[zones>>hi1Shift&31] | fourOfFive[zones>>lo1Shift&31]
+		runs = (runs + (1<<32 | 1)) & runKeep[f>>recPosBit&3]
+		if uint64(may|f&recFire)|runs&runEight != 0 {
+			fire = true
+			i++
+			break
 		}
 	}
-	rs.nmr += m - rs.m
-	rs.chi, rs.mr, rs.prev, rs.m, rs.regs = chi, mr, prev, m, regs
-	t.small += int(counts & (1<<32 - 1))
-	t.lclZero += int(counts >> 32)
-	return i, fire
+	return i, fire, loopRegs{chi: chi, mr: mr, prev: prev, zones: zones, runs: runs, counts: counts}
 }
+
+// runKeep, indexed by a record's recPos and recNeg bits, keeps the half
+// of runPoints' packed runs that the lot extends and clears the other.
+var runKeep = [4]uint64{0, 0xffffffff << 32, 0xffffffff, 0xffffffff<<32 | 0xffffffff}
+
+// runEight has the bits of runPoints' packed runs that are set when a
+// run is at least 8 lots long (the runs stay below 2³¹, see maxRun).
+const runEight = 0x7ffffff8<<32 | 0x7ffffff8
 
 // maxRun bounds the lots of one call of runPoints, whose counts of lots
 // are held in halves of 32 bits.
@@ -600,9 +646,10 @@ const maxRun = 1 << 31
 var countIncr = [4]uint64{0, 1, 1 << 32, 1<<32 | 1}
 
 // onePoint finishes lot i, filling in the table as needed, and, when rs
-// is not nil, steps its state as runPoints does, reporting whether a rule
-// may be met.
-func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, accumulate, fast bool, beyond uint8) (ruleRegs, bool) {
+// is not nil, steps its state as runPoints does (accumulating the baseline
+// statistics unless the lot is excluded), reporting, when fast, whether a
+// rule may be met.
+func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, fast bool) (ruleRegs, bool) {
 	l := &lots[i]
 	s := t.slot(l.Inspected)
 	en := t.sizes[s]
@@ -624,7 +671,7 @@ func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, r
 	if rs == nil {
 		return ruleRegs{}, false
 	}
-	if accumulate && !ex {
+	if !ex {
 		z := r.z
 		rs.m++
 		rs.chi += z * z
@@ -638,7 +685,7 @@ func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, r
 		return rs.regs, false
 	}
 	regs, may := rs.regs.advanceBits(r.zones, f)
-	return regs, may|beyond&(f>>recAboveBit|f>>recBelowBit) != 0
+	return regs, may|f&recFire != 0
 }
 
 // pointRec is what a point of one lot size and count gets: its Value, Z
@@ -660,12 +707,14 @@ const (
 	recNegBit            // z < 0, likewise
 	recSmallBit          // the expected counts are too small for normal limits
 	recLCLZeroBit        // the lower limit is 0
+	recFireBit           // beyond a limit, when rule 1 is selected
 
 	recReady = 1 << recReadyBit
 	recAbove = 1 << recAboveBit
 	recBelow = 1 << recBelowBit
 	recPos   = 1 << recPosBit
 	recNeg   = 1 << recNegBit
+	recFire  = 1 << recFireBit
 )
 
 // sizeEntry is the part of pointTable for one lot size: the records of
@@ -687,6 +736,7 @@ type pointTable struct {
 	rate, sz              float64
 	exact, perUnit, laney bool
 	zones, sides          bool
+	beyond                uint8 // 1 when rule 1 is selected
 	z1, z2                float64
 	dc                    *distCache
 	dense                 []sizeEntry // by lot size; no records until seen
@@ -711,7 +761,7 @@ func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, lots int, e
 		lastKey: -1,
 	}
 	if e != nil && e.set != 0 && !e.nelson {
-		t.zones, t.sides = e.zones, e.sides
+		t.zones, t.sides, t.beyond = e.zones, e.sides, e.beyond
 		t.z1, t.z2 = cfg.K/3, 2*cfg.K/3
 	}
 	// dense costs 64 bytes per lot size up to the largest, so it is
@@ -735,6 +785,8 @@ func (t *pointTable) slot(n int64) int32 {
 	s, ok := t.byN[key]
 	if !ok {
 		d := t.dc.get(n)
+		// Dense entries are made only when there are many lots per size.
+		d.many = d.many || t.dense != nil
 		if !d.ready {
 			d.prepare(t.cfg, t.rate, t.sz, float64(n), t.exact, t.perUnit)
 		}
@@ -787,7 +839,8 @@ func (t *pointTable) record(s int32, count int64) *pointRec {
 			uint32(b2u(z > t.z1))<<hi1Shift | uint32(b2u(z < -t.z1))<<lo1Shift
 	}
 	r.flags = recReady | b2u(above)<<recAboveBit | b2u(below)<<recBelowBit |
-		uint8(d.smallLot)<<recSmallBit | uint8(d.lclZeroLot)<<recLCLZeroBit
+		uint8(d.smallLot)<<recSmallBit | uint8(d.lclZeroLot)<<recLCLZeroBit |
+		t.beyond&(b2u(above)|b2u(below))<<recFireBit
 	if t.sides {
 		r.flags |= b2u(z > 0)<<recPosBit | b2u(z < 0)<<recNegBit
 	}

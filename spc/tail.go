@@ -34,6 +34,9 @@ type countDist struct {
 	calls    int
 	tabTried bool
 	tab      *tailTable
+	// many reports that many lots of this size are expected, so that the
+	// table is built at the first count asked for.
+	many bool
 }
 
 // tailWindow bounds the counts whose points are cached per lot size;
@@ -111,7 +114,7 @@ func (d *countDist) tailDirect(count int64) float64 {
 		// (a step of a recurrence against a continued fraction), so it
 		// is built once the counts asked for suggest it pays.
 		d.calls++
-		if lo, size, ok := d.window(); ok && d.calls >= 4 && d.calls*32 >= size {
+		if lo, size, ok := d.window(); ok && (d.many || d.calls >= 4 && d.calls*32 >= size) {
 			d.tabTried = true
 			d.tab = newTailTable(d.n, d.p, lo, lo+int64(size)-1)
 		}
