@@ -465,10 +465,11 @@ func (e *ruleEngine) prepend(r Rule, from, before, have int) {
 }
 
 // finish fills in the lots and descriptions of the signals of the points
-// pts, marking the points first if the engine did not know them. The lot IDs
-// of all signals share one backing array (each Lots slice is capped, so
-// appending to one copies it) and the descriptions one string, so that
-// the cost in allocations does not grow with the number of signals.
+// pts, marking the points first if the engine did not know them. The lot
+// IDs of the signals of one rule share that rule's list (each Lots slice
+// is capped, so appending to one copies it) and the descriptions one
+// string, so that the cost in allocations does not grow with the number
+// of signals.
 func (e *ruleEngine) finish(pts []Point) []Signal {
 	if len(e.signals) == 0 {
 		return nil
@@ -480,11 +481,6 @@ func (e *ruleEngine) finish(pts []Point) []Signal {
 			e.cover(sg.Rule, sg.First, sg.Last)
 		}
 	}
-	total := 0
-	for r := range e.ids {
-		total += len(e.ids[r])
-	}
-	ids := make([]string, 0, total)
 	var from [numRules]int
 	text := make([]byte, 0, 64*len(e.signals))
 	ends := make([]int, len(e.signals))
@@ -493,11 +489,9 @@ func (e *ruleEngine) finish(pts []Point) []Signal {
 		f := &e.signals[si]
 		sg := &out[si]
 		*sg = Signal{Rule: f.Rule, First: f.First, Last: f.Last, Side: f.Side, hits: f.hits, k: f.k}
-		start := len(ids)
-		n := sg.Last - sg.First + 1
-		ids = append(ids, e.ids[sg.Rule][from[sg.Rule]:from[sg.Rule]+n]...)
+		at, n := from[sg.Rule], sg.Last-sg.First+1
+		sg.Lots = e.ids[sg.Rule][at : at+n : at+n]
 		from[sg.Rule] += n
-		sg.Lots = ids[start:len(ids):len(ids)]
 		text = sg.appendDescription(text)
 		ends[si] = len(text)
 	}
