@@ -740,6 +740,7 @@ type pointTable struct {
 	z1, z2                float64
 	dc                    *distCache
 	dense                 []sizeEntry // by lot size; no records until seen
+	many                  bool        // many lots per lot size are expected
 	byN                   map[int64]int32
 	lastKey               int64
 	lastSlot              int32
@@ -768,6 +769,9 @@ func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, lots int, e
 	// made only when that is small next to the 96 bytes of each point.
 	if cfg.Chart != ChartC && maxN < denseSizes && maxN < int64(lots/2)+1024 {
 		t.dense = make([]sizeEntry, maxN+1)
+		// With at least 4 lots for every size up to the largest, a size
+		// is worth its tail table and its records at once.
+		t.many = int64(lots) >= 4*(maxN+1)
 	}
 	return t
 }
@@ -785,8 +789,7 @@ func (t *pointTable) slot(n int64) int32 {
 	s, ok := t.byN[key]
 	if !ok {
 		d := t.dc.get(n)
-		// Dense entries are made only when there are many lots per size.
-		d.many = d.many || t.dense != nil
+		d.many = d.many || t.many
 		if !d.ready {
 			d.prepare(t.cfg, t.rate, t.sz, float64(n), t.exact, t.perUnit)
 		}
@@ -805,6 +808,17 @@ func (t *pointTable) slot(n int64) int32 {
 		t.dists = append(t.dists, d)
 		t.ns = append(t.ns, float64(n))
 		t.byN[key] = s
+		if d.many && en.recs != nil {
+			// Many lots of this size are to come: fill in at once the
+			// records whose tails come from the table, a few steps each,
+			// so that the lots find them ready.
+			d.buildTable()
+			if lo, hi, ok := d.tableCounts(); ok {
+				for c := max(lo, en.lo); c <= min(hi, en.lo+int64(len(en.recs))-1); c++ {
+					t.record(s, c)
+				}
+			}
+		}
 	}
 	t.lastKey, t.lastSlot = key, s
 	return s

@@ -114,9 +114,8 @@ func (d *countDist) tailDirect(count int64) float64 {
 		// (a step of a recurrence against a continued fraction), so it
 		// is built once the counts asked for suggest it pays.
 		d.calls++
-		if lo, size, ok := d.window(); ok && (d.many || d.calls >= 4 && d.calls*32 >= size) {
-			d.tabTried = true
-			d.tab = newTailTable(d.n, d.p, lo, lo+int64(size)-1)
+		if _, size, ok := d.window(); ok && (d.many || d.calls >= 4 && d.calls*32 >= size) {
+			d.buildTable()
 		}
 	}
 	if t := d.tab; t != nil && count > 0 && count < d.n {
@@ -131,6 +130,27 @@ func (d *countDist) tailDirect(count int64) float64 {
 		return d.upper(count)
 	}
 	return d.lower(count)
+}
+
+// buildTable makes the tail table of the counts of the window, once.
+func (d *countDist) buildTable() {
+	if d.tabTried || !d.binomial || d.n > tableMaxN {
+		return
+	}
+	d.tabTried = true
+	if lo, size, ok := d.window(); ok {
+		d.tab = newTailTable(d.n, d.p, lo, lo+int64(size)-1)
+	}
+}
+
+// tableCounts returns the counts lo … hi whose tails tailDirect takes
+// from the table; ok is false when there is no table.
+func (d *countDist) tableCounts() (lo, hi int64, ok bool) {
+	t := d.tab
+	if t == nil || len(t.upper) == 0 {
+		return 0, 0, false
+	}
+	return max(t.lo, 1), min(t.lo+int64(len(t.upper))-1, d.n-1), true
 }
 
 // distNormalQ returns the standard normal quantile of 1 − q, the
