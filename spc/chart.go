@@ -524,7 +524,13 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	if accumulate {
 		st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev = chi, mr, prev, m, nmr, havePrev
 	}
-	cnt.small, cnt.lclZero = t.small, t.lclZero
+	// The diagnostics count lots, and whether a lot counts depends on its
+	// size alone.
+	for s, en := range t.sizes {
+		d := t.dists[s]
+		cnt.small += int(en.lots) * d.smallLot
+		cnt.lclZero += int(en.lots) * d.lclZeroLot
+	}
 	return cnt
 }
 
@@ -547,45 +553,28 @@ type runState struct {
 // finishes at most maxRun lots, and none while a same-side run is as long.
 //
 // The loop keeps its state in registers, so it holds no more than it
-// must: the two same-side runs share one word, and the counts of lots in
-// pointCounts another.
+// must: the two same-side runs share one word, and the lots of each size
+// are counted in its entry rather than in a register.
 func (t *pointTable) runPoints(lots []Lot, pts []Point, i int, rs *runState) (next int, fire bool) {
 	if !rs.havePrev || rs.regs.runAbove >= maxRun || rs.regs.runBelow >= maxRun {
 		return i, false
 	}
-	in := loopRegs{
-		chi: rs.chi, mr: rs.mr, prev: rs.prev, zones: rs.regs.zones,
-		runs: uint64(rs.regs.runAbove)<<32 | uint64(rs.regs.runBelow),
-	}
-	next, fire, out := runLoop(lots, pts, t.dense, i, in)
+	runs := uint64(rs.regs.runAbove)<<32 | uint64(rs.regs.runBelow)
+	next, fire, chi, mr, prev, zones, runs := runLoop(lots, pts, t.dense, i, rs.chi, rs.mr, rs.prev, rs.regs.zones, runs)
 	done := next - i
 	rs.m += done
 	rs.nmr += done
-	rs.chi, rs.mr, rs.prev = out.chi, out.mr, out.prev
-	rs.regs = ruleRegs{zones: out.zones, runAbove: int(out.runs >> 32), runBelow: int(out.runs & (1<<32 - 1))}
-	t.small += int(out.counts & (1<<32 - 1))
-	t.lclZero += int(out.counts >> 32)
+	rs.chi, rs.mr, rs.prev = chi, mr, prev
+	rs.regs = ruleRegs{zones: zones, runAbove: int(runs >> 32), runBelow: int(runs & (1<<32 - 1))}
 	return next, fire
 }
 
-// loopRegs is the state runLoop carries from lot to lot, passed and
-// returned by value so that it stays in registers: the baseline
-// statistics, the zone registers, the same-side runs (above the centre
-// in the high half, below in the low half) and the lots counted in
-// pointCounts (small ones in the low half, those with a lower limit of 0
-// in the high half).
-type loopRegs struct {
-	chi, mr, prev float64
-	zones         uint32
-	runs, counts  uint64
-}
-
 // runLoop is the loop of runPoints. It holds no pointer but its slices,
-// so that its state fits in the machine's registers.
-func runLoop(lots []Lot, pts []Point, dense []sizeEntry, i int, in loopRegs) (next int, fire bool, out loopRegs) {
-	// The fields in locals: the compiler keeps a struct of this many
-	// fields in memory.
-	chi, mr, prev, zones, runs, counts := in.chi, in.mr, in.prev, in.zones, in.runs, in.counts
+// and takes and returns its state as plain values, so that the state
+// stays in registers: the baseline statistics, the zone registers and the
+// same-side runs (above the centre in the high half, below in the low
+// half).
+func runLoop(lots []Lot, pts []Point, dense []sizeEntry, i int, chi, mr, prev float64, zones uint32, runs uint64) (next int, fire bool, _, _, _ float64, _ uint32, _ uint64) {
 	pts = pts[:len(lots)]
 	for ; i < len(lots); i++ {
 		l := &lots[i]
@@ -595,11 +584,12 @@ func runLoop(lots []Lot, pts []Point, dense []sizeEntry, i int, in loopRegs) (ne
 		}
 		// A size not seen yet has no records.
 		en := &dense[n]
-		j := uint64(l.Count - en.lo)
+		j := uint64(l.Count - int64(en.lo))
 		if j >= uint64(len(en.recs)) || en.recs[j].flags&recReady == 0 {
 			break
 		}
 		r := &en.recs[j]
+		en.lots++
 		// Write each field of the fresh point once and never read it
 		// back before: the slice is new memory, so Excluded and Rules
 		// are already false and empty.
@@ -608,7 +598,6 @@ func runLoop(lots []Lot, pts []Point, dense []sizeEntry, i int, in loopRegs) (ne
 		f := r.flags
 		q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
 		q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
-		counts += countIncr[f>>recSmallBit&3]
 		z := r.z
 		chi += z * z
 		mr += math.Abs(z - prev)
@@ -626,7 +615,7 @@ func runLoop(lots []Lot, pts []Point, dense []sizeEntry, i int, in loopRegs) (ne
 			break
 		}
 	}
-	return i, fire, loopRegs{chi: chi, mr: mr, prev: prev, zones: zones, runs: runs, counts: counts}
+	return i, fire, chi, mr, prev, zones, runs
 }
 
 // runKeep, indexed by a record's recPos and recNeg bits, keeps the half
@@ -637,13 +626,9 @@ var runKeep = [4]uint64{0, 0xffffffff << 32, 0xffffffff, 0xffffffff<<32 | 0xffff
 // run is at least 8 lots long (the runs stay below 2³¹, see maxRun).
 const runEight = 0x7ffffff8<<32 | 0x7ffffff8
 
-// maxRun bounds the lots of one call of runPoints, whose counts of lots
+// maxRun bounds the lots of one call of runPoints, whose same-side runs
 // are held in halves of 32 bits.
 const maxRun = 1 << 31
-
-// countIncr adds to the counts of runPoints a lot whose flags hold
-// recSmallBit and recLCLZeroBit (adjacent) as given by the index.
-var countIncr = [4]uint64{0, 1, 1 << 32, 1<<32 | 1}
 
 // onePoint finishes lot i, filling in the table as needed, and, when rs
 // is not nil, steps its state as runPoints does (accumulating the baseline
@@ -654,7 +639,7 @@ func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, r
 	s := t.slot(l.Inspected)
 	en := t.sizes[s]
 	var r *pointRec
-	if j := uint64(l.Count - en.lo); j < uint64(len(en.recs)) && en.recs[j].flags&recReady != 0 {
+	if j := uint64(l.Count - int64(en.lo)); j < uint64(len(en.recs)) && en.recs[j].flags&recReady != 0 {
 		r = &en.recs[j]
 	} else {
 		r = t.record(s, l.Count)
@@ -666,8 +651,7 @@ func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, r
 	f := r.flags
 	q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
 	q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
-	t.small += int(f >> recSmallBit & 1)
-	t.lclZero += int(f >> recLCLZeroBit & 1)
+	en.lots++
 	if rs == nil {
 		return ruleRegs{}, false
 	}
@@ -700,14 +684,12 @@ type pointRec struct {
 
 // The bits of pointRec.flags.
 const (
-	recReadyBit   = iota // the record is filled in
-	recAboveBit          // beyond the UCL
-	recBelowBit          // below the LCL
-	recPosBit            // z > 0, when a same-side rule is selected
-	recNegBit            // z < 0, likewise
-	recSmallBit          // the expected counts are too small for normal limits
-	recLCLZeroBit        // the lower limit is 0
-	recFireBit           // beyond a limit, when rule 1 is selected
+	recReadyBit = iota // the record is filled in
+	recAboveBit        // beyond the UCL
+	recBelowBit        // below the LCL
+	recPosBit          // z > 0, when a same-side rule is selected
+	recNegBit          // z < 0, likewise
+	recFireBit         // beyond a limit, when rule 1 is selected
 
 	recReady = 1 << recReadyBit
 	recAbove = 1 << recAboveBit
@@ -718,11 +700,14 @@ const (
 )
 
 // sizeEntry is the part of pointTable for one lot size: the records of
-// the counts lo … lo+len(recs)−1 and the Center, UCL, LCL and Sigma of
-// its points. It is 64 bytes, one cache line in dense.
+// the counts lo … lo+len(recs)−1, the Center, UCL, LCL and Sigma of its
+// points and the number of lots finished. It is 64 bytes, one cache line
+// in dense. (lo is at most MaxInspected; lots of one size cannot reach
+// 2³² in memory.)
 type sizeEntry struct {
 	recs               []pointRec
-	lo                 int64
+	lo                 int32
+	lots               uint32
 	ctr, ucl, lcl, sig float64
 }
 
@@ -748,7 +733,6 @@ type pointTable struct {
 	dists                 []*countDist
 	ns                    []float64
 	scratch               pointRec // the record of a count outside the window
-	small, lclZero        int      // lots counted in pointCounts
 }
 
 func newPointTable(cfg Config, rate, sz, alpha2 float64, maxN int64, lots int, e *ruleEngine) *pointTable {
@@ -802,7 +786,7 @@ func (t *pointTable) slot(n int64) int32 {
 		}
 		*en = sizeEntry{ctr: d.outCtr, ucl: d.outUCL, lcl: d.outLCL, sig: d.outSig}
 		if lo, size, ok := d.window(); ok {
-			en.lo, en.recs = lo, make([]pointRec, size)
+			en.lo, en.recs = int32(lo), make([]pointRec, size)
 		}
 		t.sizes = append(t.sizes, en)
 		t.dists = append(t.dists, d)
@@ -814,7 +798,7 @@ func (t *pointTable) slot(n int64) int32 {
 			// so that the lots find them ready.
 			d.buildTable()
 			if lo, hi, ok := d.tableCounts(); ok {
-				for c := max(lo, en.lo); c <= min(hi, en.lo+int64(len(en.recs))-1); c++ {
+				for c := max(lo, int64(en.lo)); c <= min(hi, int64(en.lo)+int64(len(en.recs))-1); c++ {
 					t.record(s, c)
 				}
 			}
@@ -853,13 +837,12 @@ func (t *pointTable) record(s int32, count int64) *pointRec {
 			uint32(b2u(z > t.z1))<<hi1Shift | uint32(b2u(z < -t.z1))<<lo1Shift
 	}
 	r.flags = recReady | b2u(above)<<recAboveBit | b2u(below)<<recBelowBit |
-		uint8(d.smallLot)<<recSmallBit | uint8(d.lclZeroLot)<<recLCLZeroBit |
 		t.beyond&(b2u(above)|b2u(below))<<recFireBit
 	if t.sides {
 		r.flags |= b2u(z > 0)<<recPosBit | b2u(z < 0)<<recNegBit
 	}
 	en := t.sizes[s]
-	if j := uint64(count - en.lo); j < uint64(len(en.recs)) {
+	if j := uint64(count - int64(en.lo)); j < uint64(len(en.recs)) {
 		en.recs[j] = r
 		return &en.recs[j]
 	}
