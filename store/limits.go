@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"sort"
 	"strings"
 	"time"
 
@@ -79,14 +80,20 @@ func (db *DB) FreezeLimitSet(ctx context.Context, actor string, ls LimitSet) (Li
 	if ls.BaselineLots < 0 {
 		ps = append(ps, Problem{Field: "baseline_lots", Value: fmt.Sprint(ls.BaselineLots), Reason: "must not be negative"})
 	}
-	for code, why := range ls.Excluded {
+	codes := make([]string, 0, len(ls.Excluded))
+	for code := range ls.Excluded {
+		codes = append(codes, code)
+	}
+	sort.Strings(codes) // problems in a stable order
+	for _, code := range codes {
+		why := ls.Excluded[code]
 		if strings.TrimSpace(why) == "" {
 			ps = append(ps, Problem{Field: "excluded", Value: code, Reason: "has no reason for leaving the lot out of the baseline"})
+		} else if p := checkText("excluded", why, 4000, false); len(p) > 0 {
+			ps = append(ps, Problem{Field: "excluded", Value: code, Reason: "has a reason that " + p[0].Reason})
 		}
 	}
-	if strings.TrimSpace(ls.Reason) == "" {
-		ps = append(ps, Problem{Field: "reason", Reason: "is empty: say why the limits are frozen"})
-	}
+	ps = append(ps, checkReason(ls.Reason, "say why the limits are frozen")...)
 	if len(ps) > 0 {
 		return LimitSet{}, invalid(ps...)
 	}

@@ -700,8 +700,8 @@ func (w *wtx) keepRevision(id int64) error {
 }
 
 func needReason(reason string) error {
-	if strings.TrimSpace(reason) == "" {
-		return invalid(Problem{Field: "reason", Reason: "is empty: say why the lot changes"})
+	if ps := checkReason(reason, "say why the lot changes"); len(ps) > 0 {
+		return invalid(ps...)
 	}
 	return nil
 }

@@ -106,6 +106,16 @@ func checkText(field, v string, max int, trimmed bool) []Problem {
 	return nil
 }
 
+// checkReason checks the reason a user gives for a change: not empty
+// (empty completes the message), and clean text of at most 4000 bytes,
+// like a note.
+func checkReason(reason, empty string) []Problem {
+	if strings.TrimSpace(reason) == "" {
+		return []Problem{{Field: "reason", Reason: "is empty: " + empty}}
+	}
+	return checkText("reason", reason, 4000, false)
+}
+
 // normalize fills defaults and checks a process.
 func normalizeProcess(p *Process) []Problem {
 	var ps []Problem
@@ -221,8 +231,8 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 	if ps := normalizeProcess(&p); len(ps) > 0 {
 		return Process{}, invalid(ps...)
 	}
-	if strings.TrimSpace(reason) == "" {
-		return Process{}, invalid(Problem{Field: "reason", Reason: "is empty: say why the process changes"})
+	if ps := checkReason(reason, "say why the process changes"); len(ps) > 0 {
+		return Process{}, invalid(ps...)
 	}
 	err := db.write(ctx, func(w *wtx) error {
 		old, err := processByID(w.Tx, p.ID)

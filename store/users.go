@@ -198,6 +198,9 @@ func (db *DB) SetPassword(ctx context.Context, actor, name, newPassword string) 
 
 // SetUserActive activates or deactivates a user (users are never deleted).
 func (db *DB) SetUserActive(ctx context.Context, actor, name string, active bool, reason string) error {
+	if ps := checkText("reason", reason, 4000, false); len(ps) > 0 {
+		return invalid(ps...)
+	}
 	return db.write(ctx, func(w *wtx) error {
 		var id int64
 		var was bool
