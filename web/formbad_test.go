@@ -42,40 +42,31 @@ func fieldProblem(body, field string) (string, bool) {
 	return html.UnescapeString(m[1]), true
 }
 
-// TestLotFormBadInput is the bad-input battery of the form that logs a
-// lot (GET /processes/{id}/log, POST /processes/{id}/lots). Every refused
-// form comes back with status 400, the "not saved" alert, and the reason
-// beside the field at fault (the field marked aria-invalid, the message
-// naming the value where there is one); the stored content is unchanged:
-// the export of the process and the audit trail (entries and head hash)
-// are the same before and after. The number rules are those of the
-// import and the API (a whole number in plain decimal digits; spc.CheckLot:
-// 0 < n ≤ spc.MaxInspected = 10^7, 0 ≤ d ≤ n for a p chart); times are
-// the form's datetime-local (WHATWG HTML, "local date and time string")
-// in the process's time zone, at most a day ahead, not before 1970.
-func TestLotFormBadInput(t *testing.T) {
-	e := newTestEnv(t)
-	ctx := context.Background()
-	loc := e.proc.Location()
-	stored := time.Date(2026, 3, 2, 7, 30, 0, 0, loc) // a whole minute: the form's time has minutes only
-	if _, err := e.db.AddLots(ctx, "setup", e.proc.ID, []store.LotInput{{Lot: "S1", Time: stored, Shift: "early", Inspected: 200,
-		Count: 3, Categories: map[string]int64{"scratch": 2, "dent": 1}, Inspector: "inspector1", Note: "first of the week"}}); err != nil {
-		t.Fatal(err)
-	}
-	c := e.signIn(t, "inspector1", testPassword)
-	path := fmt.Sprintf("/processes/%d/lots", e.proc.ID)
+// lotFormCase is a refused lot form: the fields replaced in lotFormBody,
+// the field whose message is checked and part of the message beside it.
+type lotFormCase struct {
+	name   string
+	over   map[string]string
+	field  string
+	reason string
+}
+
+// lotFormCases are the refused forms that the form logging a lot and the
+// one correcting it share: the same fields, read by the same rules. The
+// number rules are those of the import and the API (a whole number in
+// plain decimal digits; spc.CheckLot: 0 < n ≤ spc.MaxInspected = 10^7,
+// 0 ≤ d ≤ n for a p chart); times are the form's datetime-local (WHATWG
+// HTML, "local date and time string") in the process's time zone, at most
+// a day ahead, not before 1970.
+func lotFormCases(loc *time.Location) []lotFormCase {
 	future := time.Now().Add(72 * time.Hour).In(loc).Format(formTime)
 	big := strings.Repeat("x", 1<<20)
-	cases := []struct {
-		name   string
-		over   map[string]string
-		field  string // the field whose message is checked
-		reason string // part of the message beside it
-	}{
+	return []lotFormCase{
 		{"empty lot code", map[string]string{"lot": ""}, "lot", "is empty"},
 		{"lot code of spaces", map[string]string{"lot": "   "}, "lot", "is empty"},
 		{"lot code with a line break", map[string]string{"lot": "F\n1"}, "lot", "control characters"},
 		{"lot code 1 MB", map[string]string{"lot": big}, "lot", "longer than 100 bytes"},
+		{"lot code not UTF-8", map[string]string{"lot": "F\xff1"}, "lot", "is not valid UTF-8"},
 		{"inspected missing", map[string]string{"inspected": "\x00drop"}, "inspected", "is empty"},
 		{"inspected empty", map[string]string{"inspected": ""}, "inspected", "is empty"},
 		{"count missing", map[string]string{"count": "\x00drop"}, "count", "is empty"},
@@ -100,12 +91,33 @@ func TestLotFormBadInput(t *testing.T) {
 		{"time hour 25", map[string]string{"time": "2026-03-02T25:00"}, "time", `"2026-03-02T25:00" is not a date and time`},
 		{"time far future", map[string]string{"time": future}, "time", "more than a day in the future"},
 		{"time before 1970", map[string]string{"time": "1969-07-20T20:17"}, "time", "is before 1970"},
-		{"stored code, other values", map[string]string{"lot": "S1", "time": stored.Format(formTime), "inspected": "200", "count": "4"}, "lot", `lot "S1" is already logged with other values; nothing was saved`},
 		{"note 1 MB", map[string]string{"note": big}, "note", "longer than 4000 bytes"},
 		{"NUL in note", map[string]string{"note": "a\x00b"}, "note", "must not contain NUL"},
 		{"shift with a tab", map[string]string{"shift": "early\tlate"}, "shift", "control characters"},
 		{"inspector 1 MB", map[string]string{"inspector": big}, "inspector", "longer than 100 bytes"},
 	}
+}
+
+// TestLotFormBadInput is the bad-input battery of the form that logs a
+// lot (GET /processes/{id}/log, POST /processes/{id}/lots). Every refused
+// form comes back with status 400, the "not saved" alert, and the reason
+// beside the field at fault (the field marked aria-invalid, the message
+// naming the value where there is one); the stored content is unchanged:
+// the export of the process and the audit trail (entries and head hash)
+// are the same before and after. The rules are those of lotFormCases.
+func TestLotFormBadInput(t *testing.T) {
+	e := newTestEnv(t)
+	ctx := context.Background()
+	loc := e.proc.Location()
+	stored := time.Date(2026, 3, 2, 7, 30, 0, 0, loc) // a whole minute: the form's time has minutes only
+	if _, err := e.db.AddLots(ctx, "setup", e.proc.ID, []store.LotInput{{Lot: "S1", Time: stored, Shift: "early", Inspected: 200,
+		Count: 3, Categories: map[string]int64{"scratch": 2, "dent": 1}, Inspector: "inspector1", Note: "first of the week"}}); err != nil {
+		t.Fatal(err)
+	}
+	c := e.signIn(t, "inspector1", testPassword)
+	path := fmt.Sprintf("/processes/%d/lots", e.proc.ID)
+	cases := append(lotFormCases(loc),
+		lotFormCase{"stored code, other values", map[string]string{"lot": "S1", "time": stored.Format(formTime), "inspected": "200", "count": "4"}, "lot", `lot "S1" is already logged with other values; nothing was saved`})
 	if len(cases) < 20 {
 		t.Fatalf("the battery has %d cases; it promises at least 20", len(cases))
 	}
@@ -186,6 +198,99 @@ func TestLotFormBadInput(t *testing.T) {
 		}
 		if a := e.auditOf(t); a != auditBefore {
 			t.Errorf("a repeated lot changed the audit trail: %s, was %s", a, auditBefore)
+		}
+	})
+}
+
+// TestCorrectionFormBadInput is the bad-input battery of the form that
+// corrects a lot (POST /lots/{lot}/correct): the cases of lotFormCases,
+// the reason the correction needs (not empty, clean text of at most 4000
+// bytes, like a note) and a lot code another lot has. Every refused
+// correction comes back with status 400, the "not saved" alert and the
+// reason beside the field at fault; the stored content is unchanged: the
+// export, the audit trail (entries and head hash) and the lot's history
+// are the same before and after. A valid correction then goes through.
+func TestCorrectionFormBadInput(t *testing.T) {
+	e := newTestEnv(t)
+	ctx := context.Background()
+	loc := e.proc.Location()
+	at := time.Date(2026, 3, 2, 7, 30, 0, 0, loc)
+	added, err := e.db.AddLots(ctx, "setup", e.proc.ID, []store.LotInput{
+		{Lot: "S1", Time: at, Shift: "early", Inspected: 200, Count: 3, Categories: map[string]int64{"scratch": 2, "dent": 1}, Inspector: "inspector1"},
+		{Lot: "F1", Time: at.Add(time.Hour), Shift: "early", Inspected: 100, Count: 2, Categories: map[string]int64{"scratch": 1, "dent": 1}, Inspector: "inspector1"},
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	id := added[1].ID
+	c := e.signIn(t, "inspector1", testPassword)
+	path := fmt.Sprintf("/lots/%d/correct", id)
+	history := func(t *testing.T) string {
+		t.Helper()
+		h, err := e.db.LotHistory(ctx, id)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return fmt.Sprintf("%+v", h)
+	}
+	cases := append(lotFormCases(loc),
+		lotFormCase{"reason empty", map[string]string{"reason": ""}, "reason", "is empty: say why the lot changes"},
+		lotFormCase{"reason missing", map[string]string{"reason": "\x00drop"}, "reason", "is empty"},
+		lotFormCase{"reason of spaces", map[string]string{"reason": "   "}, "reason", "is empty"},
+		lotFormCase{"reason 1 MB", map[string]string{"reason": strings.Repeat("y", 1<<20)}, "reason", "longer than 4000 bytes"},
+		lotFormCase{"NUL in reason", map[string]string{"reason": "miscount\x00ed"}, "reason", "must not contain NUL"},
+		lotFormCase{"reason not UTF-8", map[string]string{"reason": "mis\xffcount"}, "reason", "is not valid UTF-8"},
+		lotFormCase{"code of another lot", map[string]string{"lot": "S1"}, "lot", `another lot of this process already has the code "S1"`},
+	)
+	for _, tc := range cases {
+		t.Run(tc.name, func(t *testing.T) {
+			over := map[string]string{"reason": "count was misread"}
+			for k, v := range tc.over {
+				over[k] = v
+			}
+			before, auditBefore, histBefore := e.exportOf(t), e.auditOf(t), history(t)
+			rec := e.do(req{method: "POST", path: path, cookie: c, form: true, headers: sameOriginForm(), body: lotFormBody(over)})
+			body := rec.Body.String()
+			if rec.Code != http.StatusBadRequest {
+				t.Fatalf("status %d, want 400\n%s", rec.Code, trim(body))
+			}
+			if !strings.Contains(body, "The correction was not saved") {
+				t.Error("the page does not say that the correction was not saved")
+			}
+			msg, ok := fieldProblem(body, tc.field)
+			if !ok {
+				t.Fatalf("no message beside the field %s\n%s", tc.field, trim(body))
+			}
+			if !strings.Contains(msg, tc.reason) {
+				t.Errorf("beside %s: %q, want it to contain %q", tc.field, msg, tc.reason)
+			}
+			if !strings.Contains(body, `aria-invalid="true" aria-describedby="e-`+tc.field+`"`) {
+				t.Errorf("the field %s is not tied to its message (aria-describedby)", tc.field)
+			}
+			if after := e.exportOf(t); after != before {
+				t.Error("a refused correction changed the stored lots")
+			}
+			if a := e.auditOf(t); a != auditBefore {
+				t.Errorf("a refused correction changed the audit trail: %s, was %s", a, auditBefore)
+			}
+			if h := history(t); h != histBefore {
+				t.Errorf("a refused correction changed the lot's history:\n%s\nwas\n%s", h, histBefore)
+			}
+		})
+	}
+
+	t.Run("valid correction", func(t *testing.T) {
+		rec := e.do(req{method: "POST", path: path, cookie: c, form: true, headers: sameOriginForm(),
+			body: lotFormBody(map[string]string{"count": "3", "cat0": "2", "reason": "count was misread"})})
+		if rec.Code != http.StatusSeeOther {
+			t.Fatalf("status %d, want 303\n%s", rec.Code, trim(rec.Body.String()))
+		}
+		h, err := e.db.LotHistory(ctx, id)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(h) != 2 || h[0].Count != 2 || h[1].Count != 3 || h[1].Reason != "count was misread" {
+			t.Errorf("history %+v, want revision 1 with 2 and revision 2 with 3 and the reason", h)
 		}
 	})
 }
