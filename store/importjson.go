@@ -9,7 +9,10 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"sort"
+	"strconv"
 	"strings"
+	"unicode/utf8"
 
 	"lotwatch/spc"
 	"lotwatch/store/lotcsv"
@@ -281,6 +284,10 @@ func importJSONLots(ctx context.Context, w *wtx, dec *json.Decoder, lt *lineTrac
 			}
 			continue
 		}
+		if reason := JSONTextProblem(raw); reason != "" {
+			problem(Problem{Line: line, Field: jsonTextField(raw), Reason: reason})
+			continue
+		}
 		var ps []Problem
 		in := LotInput{Shift: jl.Shift, Categories: jl.Categories, Inspector: jl.Inspector, Note: jl.Note}
 		if jl.Lot == nil {
@@ -336,6 +343,71 @@ func importJSONLots(ctx context.Context, w *wtx, dec *json.Decoder, lt *lineTrac
 		}
 	}
 	return nil
+}
+
+// JSONTextProblem says why the strings of the JSON text raw cannot be
+// stored as sent, or returns "". encoding/json turns bytes that are not UTF-8 and
+// unpaired UTF-16 surrogate escapes (\ud800 alone) into U+FFFD, as RFC
+// 8259 §8.2 allows; stored, the text would differ from what was sent
+// without a word. raw must be valid JSON (json.Valid), so that a
+// backslash can only be an escape inside a string. The API and the JSON
+// import both refuse such text.
+func JSONTextProblem(raw []byte) string {
+	if !utf8.Valid(raw) {
+		return "is not valid UTF-8 text (RFC 8259 §8.1)"
+	}
+	hex4 := func(at int) (rune, bool) {
+		if at+4 > len(raw) {
+			return 0, false
+		}
+		n, err := strconv.ParseUint(string(raw[at:at+4]), 16, 32)
+		return rune(n), err == nil
+	}
+	for i := 0; i < len(raw); i++ {
+		if raw[i] != '\\' {
+			continue
+		}
+		i++ // the escaped character; only \u is followed by more
+		if i >= len(raw) || raw[i] != 'u' {
+			continue
+		}
+		r, ok := hex4(i + 1)
+		if !ok {
+			continue // json.Valid has checked every escape
+		}
+		i += 4
+		if r < 0xd800 || r >= 0xe000 {
+			continue
+		}
+		if r < 0xdc00 && i+2 < len(raw) && raw[i+1] == '\\' && raw[i+2] == 'u' {
+			if lo, ok := hex4(i + 3); ok && lo >= 0xdc00 && lo < 0xe000 {
+				i += 6 // a high and a low surrogate: one character
+				continue
+			}
+		}
+		return fmt.Sprintf("contains \\u%04x, half of a UTF-16 surrogate pair without its other half, which is not text (RFC 8259 §8.2)", r)
+	}
+	return ""
+}
+
+// jsonTextField names the field of the lot object raw whose text
+// JSONTextProblem refuses ("" when it is not one field's).
+func jsonTextField(raw json.RawMessage) string {
+	var m map[string]json.RawMessage
+	if json.Unmarshal(raw, &m) != nil {
+		return ""
+	}
+	names := make([]string, 0, len(m))
+	for k := range m {
+		names = append(names, k)
+	}
+	sort.Strings(names)
+	for _, k := range names {
+		if JSONTextProblem(m[k]) != "" {
+			return k
+		}
+	}
+	return ""
 }
 
 func jsonKind(k string) string {

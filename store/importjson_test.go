@@ -99,6 +99,12 @@ func TestImportJSONProblems(t *testing.T) {
 		{"other chart", `{"process":{"name":"press","chart":"u"},"lots":[]}`, []string{`chart "u" is not the chart of process "press"`}},
 		{"no lots", `{"process":{"name":"press"}}`, []string{"lots is missing"}},
 		{"unknown part", `{"process":{"name":"press"},"lots":[],"extra":1}`, []string{"line 1: extra is not a part of a lot file"}},
+		// encoding/json would read these as U+FFFD (RFC 8259 §8.2): refused
+		// rather than stored altered.
+		{"text that is not text", "{\"lots\":[\n{\"lot\":\"A1\",\"inspected\":10,\"defective\":1,\"note\":\"a\\ud800\"},\n" +
+			"{\"lot\":\"A2\",\"inspected\":10,\"defective\":1,\"inspector\":\"kim\xff\"},\n" +
+			"{\"lot\":\"A3\",\"inspected\":10,\"defective\":1,\"categories\":{\"d\\udc00\":1}}]}",
+			[]string{`line 2: note contains \ud800, half of a UTF-16 surrogate pair`, "line 3: inspector is not valid UTF-8", `line 4: categories contains \udc00`}},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {

@@ -89,6 +89,12 @@ func TestAPIPostBadInput(t *testing.T) {
 		{"lot code 1 MB", `{"lot":"` + big + `","inspected":100,"defective":1}`, 400, []apiWant{{-1, "lot", "xxxx", "longer than 100"}}},
 		{"note 1 MB", lot(`,"note":"` + big + `"`), 400, []apiWant{{-1, "note", "xxxx", "longer than 4000"}}},
 		{"NUL in note", lot(`,"note":"a\u0000b"`), 400, []apiWant{{-1, "note", `a\0b`, "NUL"}}},
+		// encoding/json would store these as U+FFFD (RFC 8259 §8.2 leaves
+		// them to the implementation): refused rather than altered.
+		{"lone high surrogate in note", lot(`,"note":"a\ud800b"`), 400, []apiWant{{-1, "note", "", `\ud800, half of a UTF-16 surrogate pair`}}},
+		{"lone low surrogate in lot code", `{"lot":"N\udc001","inspected":100,"defective":1}`, 400, []apiWant{{-1, "lot", "", `\udc00, half`}}},
+		{"surrogates in the wrong order", lot(`,"inspector":"\ude00\ud83d"`), 400, []apiWant{{-1, "inspector", "", `\ude00, half`}}},
+		{"byte that is not UTF-8 in shift", lot(",\"shift\":\"early\xff\""), 400, []apiWant{{-1, "shift", "", "not valid UTF-8"}}},
 		{"duplicate code in one array", `[{"lot":"N1","inspected":100,"defective":1},{"lot":"N1","inspected":100,"defective":1}]`, 400, []apiWant{{1, "lot", "N1", "twice"}}},
 		{"one bad lot in an array", `[{"lot":"N1","inspected":100,"defective":1},{"lot":"N2","inspected":100,"defective":200}]`, 400, []apiWant{{1, "defective", "200", "more than"}}},
 		{"stored code, other values", `{"lot":"L00001","inspected":100,"defective":2}`, 409, nil},
@@ -137,6 +143,27 @@ func TestAPIPostBadInput(t *testing.T) {
 // are stored verbatim, returned verbatim by the API, shown escaped on the
 // chart page (html/template), and neutralised in the CSV export when they
 // look like formulas; nothing is executed and no table is touched.
+// TestAPIPostTextKeptExactly: text posted through the API is stored as
+// sent, character for character: a surrogate pair escape is the one
+// character it encodes (RFC 8259 §7), and an escaped backslash before
+// "ud800" is plain text, not an escape.
+func TestAPIPostTextKeptExactly(t *testing.T) {
+	e := newTestEnv(t)
+	tok := e.tokens[store.RoleInspector]
+	body := `{"lot":"E1","inspected":100,"defective":1,"note":"smile \ud83d\ude00, path C:\\ud800, caf\u00e9"}`
+	rec := e.do(req{method: "POST", path: lotsPath(e), body: body, token: tok})
+	if rec.Code != http.StatusCreated {
+		t.Fatalf("status %d: %s", rec.Code, rec.Body.String())
+	}
+	lots, err := e.db.Lots(context.Background(), e.proc.ID, time.Time{}, time.Time{})
+	if err != nil || len(lots) != 1 {
+		t.Fatalf("%d lots stored (%v), want 1", len(lots), err)
+	}
+	if want := "smile \U0001F600, path C:\\ud800, café"; lots[0].Note != want {
+		t.Errorf("note stored as %q, want %q", lots[0].Note, want)
+	}
+}
+
 func TestAPIPostHostileText(t *testing.T) {
 	e := newTestEnv(t)
 	e.addLots(t, 5, func(int) int64 { return 1 })

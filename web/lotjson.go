@@ -153,6 +153,10 @@ func decodeLot(i int, raw json.RawMessage, loc *time.Location, lp *lotProblems) 
 				lp.add(i, key, truncate(string(v)), "must be a string")
 				continue
 			}
+			if problem := store.JSONTextProblem(v); problem != "" {
+				lp.add(i, key, truncate(s), problem)
+				continue
+			}
 			switch key {
 			case "lot":
 				in.Lot = s
