@@ -34,9 +34,7 @@ type Source interface {
 
 var _ Source = (*store.DB)(nil)
 
-// DefaultTrendWeeks is the length of the trend and of the window over
-// which the lots are judged, long enough for the longest run rule (15
-// lots) even at one or two lots a week.
+// DefaultTrendWeeks is the length of the trend in weeks.
 const DefaultTrendWeeks = 12
 
 // maxTrendWeeks bounds Options.TrendWeeks (two years).
@@ -60,8 +58,8 @@ type Options struct {
 	// Level is the confidence level of every interval; 0 means 0.95.
 	Level float64
 	// TrendWeeks is the number of weeks, ending with the reviewed one, of
-	// the trend and of the window in which lots are judged; 0 means
-	// DefaultTrendWeeks. At least 2, at most 104.
+	// the trend; 0 means DefaultTrendWeeks. At least 2, at most 104. (The
+	// lots are judged on the whole record whatever the trend's length.)
 	TrendWeeks int
 }
 
@@ -320,9 +318,11 @@ func buildProcess(ctx context.Context, src Source, p store.Process, year, week i
 		index[st.Week] = i
 		y, w = spc.PreviousISOWeek(y, w)
 	}
-	winFrom, winTo := pr.Trend[0].Start, pr.Trend[nweeks-1].End
-
-	lots, err := src.Lots(ctx, p.ID, winFrom, winTo)
+	// Every lot of the record is read: the lots are judged on the whole
+	// record, as on the chart page (trial limits from all lots before the
+	// first frozen set), so that a lot's verdict is the same wherever it
+	// is shown. The trend and the week are summed from their own lots.
+	lots, err := src.Lots(ctx, p.ID, time.Time{}, time.Time{})
 	if err != nil {
 		return nil, fmt.Errorf("reading lots: %w", err)
 	}
@@ -343,7 +343,7 @@ func buildProcess(ctx context.Context, src Source, p store.Process, year, week i
 	for i, l := range lots {
 		j, ok := index[spc.FormatISOWeek(spc.ISOWeekOf(l.Time, loc))]
 		if !ok {
-			continue // outside the window (a source that ignores the bounds)
+			continue // outside the trend's weeks
 		}
 		st := &pr.Trend[j]
 		st.Lots++
@@ -473,7 +473,7 @@ func FormatP(p float64) string {
 	return "p = " + strconv.FormatFloat(p, 'g', 2, 64)
 }
 
-// judge judges the window's lots against the limit sets in force and
+// judge judges the record's lots against the limit sets in force and
 // keeps what touches the reviewed week, lots[lo:hi].
 func (pr *ProcessReview) judge(lots []store.Lot, sets []store.LimitSet, notes []store.Annotation, lo, hi int) {
 	p := pr.Process

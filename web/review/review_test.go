@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/json"
 	"errors"
+	"fmt"
 	"math"
 	"os"
 	"path/filepath"
@@ -470,5 +471,59 @@ func TestBadOptions(t *testing.T) {
 		if !errors.As(err, &oe) || oe.Option != c.option || oe.Value != c.value {
 			t.Errorf("%+v: error %v, want an OptionError naming %s %q", c.opt, err, c.option, c.value)
 		}
+	}
+}
+
+// TestVerdictsOnWholeRecord: with trial limits (no frozen set) the review
+// judges the reviewed week's lots on the whole record, as the chart page
+// does, not on the weeks of its trend. Eighteen weeks at p = 0.08 and
+// twelve at 0.02 put p̄ = Σd/Σn of the record near 0.056 (Montgomery,
+// ch. 7: limits p̄ ± 3√(p̄(1−p̄)/n)); the lots of the last week, at 0.02
+// and 0.044, are then below the LCL and within the limits, where the
+// twelve weeks alone (p̄ near 0.021) would put the first within and the
+// second above.
+func TestVerdictsOnWholeRecord(t *testing.T) {
+	loc := time.UTC
+	var lots []store.Lot
+	var sn, sd float64
+	for w := 1; w <= 30; w++ {
+		start, _ := spc.ISOWeekRange(2026, w, loc)
+		d := int64(40)
+		if w > 18 {
+			d = 10
+		}
+		lots = append(lots, lot(fmt.Sprintf("W%02d", w), start.Add(8*time.Hour), 500, d))
+		if w == 30 {
+			lots = append(lots, lot("W30b", start.Add(9*time.Hour), 500, 22))
+		}
+	}
+	for _, l := range lots {
+		sn += float64(l.Inspected)
+		sd += float64(l.Count)
+	}
+	pb := sd / sn
+	s := math.Sqrt(pb * (1 - pb) / 500)
+	ucl, lcl := pb+3*s, pb-3*s
+	f := &fakeSource{}
+	f.add(store.Process{Name: "line", Chart: spc.ChartP, K: 3, Rules: "none", TimeZone: "UTC"}, lots...)
+	r, err := Build(ctx, f, Options{Week: "2026-W30"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	got := map[string]bool{} // lot code → above
+	for _, o := range r.Processes[0].OutOfLimits {
+		got[o.Lot.Lot] = o.Above
+		if math.Abs(o.UCL-ucl) > 1e-12 || math.Abs(o.LCL-lcl) > 1e-12 || o.Limits != "trial limits" {
+			t.Errorf("%s judged against %s %v … %v, want the record's trial limits %v … %v", o.Lot.Lot, o.Limits, o.LCL, o.UCL, lcl, ucl)
+		}
+	}
+	want := map[string]bool{}
+	for _, l := range lots[len(lots)-2:] {
+		if v := float64(l.Count) / 500; v > ucl || v < lcl {
+			want[l.Lot] = v > ucl
+		}
+	}
+	if fmt.Sprint(got) != fmt.Sprint(want) || len(want) != 1 {
+		t.Errorf("out of limits in the week: %v, want %v (p̄ %.4f, limits %.4f … %.4f)", got, want, pb, lcl, ucl)
 	}
 }
