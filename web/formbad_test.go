@@ -98,6 +98,30 @@ func lotFormCases(loc *time.Location) []lotFormCase {
 	}
 }
 
+// checkRefusedForm checks the answer to a refused lot form: status 400,
+// the alert that nothing was saved, and tc's message beside its field,
+// tied to the field for assistive technology (aria-describedby).
+func checkRefusedForm(t *testing.T, rec *httptest.ResponseRecorder, alert string, tc lotFormCase) {
+	t.Helper()
+	body := rec.Body.String()
+	if rec.Code != http.StatusBadRequest {
+		t.Fatalf("status %d, want 400\n%s", rec.Code, trim(body))
+	}
+	if !strings.Contains(body, alert) {
+		t.Errorf("the page does not say %q", alert)
+	}
+	msg, ok := fieldProblem(body, tc.field)
+	if !ok {
+		t.Fatalf("no message beside the field %s\n%s", tc.field, trim(body))
+	}
+	if !strings.Contains(msg, tc.reason) {
+		t.Errorf("beside %s: %q, want it to contain %q", tc.field, msg, tc.reason)
+	}
+	if !strings.Contains(body, `aria-invalid="true" aria-describedby="e-`+tc.field+`"`) {
+		t.Errorf("the field %s is not tied to its message (aria-describedby)", tc.field)
+	}
+}
+
 // TestLotFormBadInput is the bad-input battery of the form that logs a
 // lot (GET /processes/{id}/log, POST /processes/{id}/lots). Every refused
 // form comes back with status 400, the "not saved" alert, and the reason
@@ -125,23 +149,7 @@ func TestLotFormBadInput(t *testing.T) {
 		t.Run(tc.name, func(t *testing.T) {
 			before, auditBefore := e.exportOf(t), e.auditOf(t)
 			rec := e.do(req{method: "POST", path: path, cookie: c, form: true, headers: sameOriginForm(), body: lotFormBody(tc.over)})
-			body := rec.Body.String()
-			if rec.Code != http.StatusBadRequest {
-				t.Fatalf("status %d, want 400\n%s", rec.Code, trim(body))
-			}
-			if !strings.Contains(body, "The lot was not saved") {
-				t.Error("the form does not say that the lot was not saved")
-			}
-			msg, ok := fieldProblem(body, tc.field)
-			if !ok {
-				t.Fatalf("no message beside the field %s\n%s", tc.field, trim(body))
-			}
-			if !strings.Contains(msg, tc.reason) {
-				t.Errorf("beside %s: %q, want it to contain %q", tc.field, msg, tc.reason)
-			}
-			if !strings.Contains(body, `aria-invalid="true" aria-describedby="e-`+tc.field+`"`) {
-				t.Errorf("the field %s is not tied to its message (aria-describedby)", tc.field)
-			}
+			checkRefusedForm(t, rec, "The lot was not saved", tc)
 			if after := e.exportOf(t); after != before {
 				t.Error("a refused form changed the stored lots")
 			}
@@ -250,23 +258,7 @@ func TestCorrectionFormBadInput(t *testing.T) {
 			}
 			before, auditBefore, histBefore := e.exportOf(t), e.auditOf(t), history(t)
 			rec := e.do(req{method: "POST", path: path, cookie: c, form: true, headers: sameOriginForm(), body: lotFormBody(over)})
-			body := rec.Body.String()
-			if rec.Code != http.StatusBadRequest {
-				t.Fatalf("status %d, want 400\n%s", rec.Code, trim(body))
-			}
-			if !strings.Contains(body, "The correction was not saved") {
-				t.Error("the page does not say that the correction was not saved")
-			}
-			msg, ok := fieldProblem(body, tc.field)
-			if !ok {
-				t.Fatalf("no message beside the field %s\n%s", tc.field, trim(body))
-			}
-			if !strings.Contains(msg, tc.reason) {
-				t.Errorf("beside %s: %q, want it to contain %q", tc.field, msg, tc.reason)
-			}
-			if !strings.Contains(body, `aria-invalid="true" aria-describedby="e-`+tc.field+`"`) {
-				t.Errorf("the field %s is not tied to its message (aria-describedby)", tc.field)
-			}
+			checkRefusedForm(t, rec, "The correction was not saved", tc)
 			if after := e.exportOf(t); after != before {
 				t.Error("a refused correction changed the stored lots")
 			}
