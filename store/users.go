@@ -64,7 +64,6 @@ type Sessions interface {
 	CreateSession(ctx context.Context, userID int64, now time.Time) (string, error)
 	SessionUser(ctx context.Context, rawID string, now time.Time, idle, absolute time.Duration) (User, error)
 	DeleteSession(ctx context.Context, rawID string) error
-	DeleteUserSessions(ctx context.Context, userID int64) error
 }
 
 // Tokens manages API tokens.
@@ -334,14 +333,6 @@ func (db *DB) SessionUser(ctx context.Context, rawID string, now time.Time, idle
 func (db *DB) DeleteSession(ctx context.Context, rawID string) error {
 	return db.write(ctx, func(w *wtx) error {
 		_, err := w.Exec("DELETE FROM sessions WHERE id_hash = ?", secretHash(rawID))
-		return err
-	})
-}
-
-// DeleteUserSessions ends all sessions of a user.
-func (db *DB) DeleteUserSessions(ctx context.Context, userID int64) error {
-	return db.write(ctx, func(w *wtx) error {
-		_, err := w.Exec("DELETE FROM sessions WHERE user_id = ?", userID)
 		return err
 	})
 }

@@ -75,15 +75,8 @@ func (s *Server) addUser(w http.ResponseWriter, r *http.Request) {
 
 func (s *Server) resetPassword(w http.ResponseWriter, r *http.Request) {
 	name := chi.URLParam(r, "name")
-	err := s.db.SetPassword(r.Context(), who(r).user.Name, name, r.PostFormValue("password"))
-	if err == nil {
-		// a reset password ends the user's sessions
-		var u store.User
-		if u, err = s.db.UserByName(r.Context(), name); err == nil {
-			err = s.db.DeleteUserSessions(r.Context(), u.ID)
-		}
-	}
-	if err != nil {
+	// A reset password ends the user's sessions (store.SetPassword).
+	if err := s.db.SetPassword(r.Context(), who(r).user.Name, name, r.PostFormValue("password")); err != nil {
 		s.adminFail(w, r, err, nil)
 		return
 	}
@@ -101,14 +94,8 @@ func (s *Server) setUserActive(w http.ResponseWriter, r *http.Request) {
 	if reason == "" {
 		reason = "changed on the users page"
 	}
-	err := s.db.SetUserActive(r.Context(), who(r).user.Name, name, active, reason)
-	if err == nil && !active {
-		var u store.User
-		if u, err = s.db.UserByName(r.Context(), name); err == nil {
-			err = s.db.DeleteUserSessions(r.Context(), u.ID)
-		}
-	}
-	if err != nil {
+	// Deactivating ends the user's sessions (store.SetUserActive).
+	if err := s.db.SetUserActive(r.Context(), who(r).user.Name, name, active, reason); err != nil {
 		s.adminFail(w, r, err, nil)
 		return
 	}

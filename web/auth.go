@@ -193,10 +193,8 @@ func (s *Server) changePassword(w http.ResponseWriter, r *http.Request) {
 		s.internalError(w, r, err)
 		return
 	}
-	if err := s.db.DeleteUserSessions(r.Context(), p.user.ID); err != nil {
-		s.internalError(w, r, err)
-		return
-	}
+	// SetPassword ended every session of the user, this one too: a new
+	// one keeps the user signed in here.
 	raw, err := s.db.CreateSession(r.Context(), p.user.ID, s.now())
 	if err != nil {
 		s.internalError(w, r, err)

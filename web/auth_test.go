@@ -208,6 +208,40 @@ func TestChangePassword(t *testing.T) {
 	}
 }
 
+// TestAdminEndsSessions: an administrator who resets a user's password
+// or deactivates the user ends every session the user has (OWASP Session
+// Management Cheat Sheet, from memory: sessions end when credentials change or an
+// account is disabled); the user can sign in with the new password, and an
+// inactive user cannot.
+func TestAdminEndsSessions(t *testing.T) {
+	e := newTestEnv(t)
+	admin := e.signIn(t, "admin1", testPassword)
+	const newPassword = "a new password of the inspector"
+	post := func(path, body string) {
+		t.Helper()
+		rec := e.do(req{method: "POST", path: path, form: true, cookie: admin, headers: sameOrigin(), body: body})
+		if rec.Code != http.StatusSeeOther {
+			t.Fatalf("%s: status %d %s", path, rec.Code, trim(rec.Body.String()))
+		}
+	}
+	session := e.signIn(t, "inspector1", testPassword)
+	post("/admin/users/inspector1/password", url.Values{"password": {newPassword}}.Encode())
+	if rec := e.do(req{method: "GET", path: "/", cookie: session}); rec.Code != http.StatusSeeOther {
+		t.Errorf("the inspector's session survived the password reset: %d", rec.Code)
+	}
+	session = e.signIn(t, "inspector1", newPassword)
+	post("/admin/users/inspector1/active", url.Values{"active": {"0"}, "reason": {"left the line"}}.Encode())
+	if rec := e.do(req{method: "GET", path: "/", cookie: session}); rec.Code != http.StatusSeeOther {
+		t.Errorf("the inspector's session survived the deactivation: %d", rec.Code)
+	}
+	if _, err := e.db.Authenticate(t.Context(), "inspector1", newPassword); err == nil {
+		t.Error("an inactive user can still sign in")
+	}
+	if rec := e.do(req{method: "GET", path: "/", cookie: admin}); rec.Code != http.StatusOK {
+		t.Errorf("the administrator's own session ended: %d", rec.Code)
+	}
+}
+
 func TestSignInRateLimit(t *testing.T) {
 	e := newTestEnv(t)
 	try := func(name, pw, addr string) *http.Response {
