@@ -773,7 +773,7 @@ func (t *pointTable) slot(n int64) int32 {
 	s, ok := t.byN[key]
 	if !ok {
 		d := t.dc.get(n)
-		d.many = d.many || t.many
+		d.many = t.many
 		if !d.ready {
 			d.prepare(t.cfg, t.rate, t.sz, float64(n), t.exact, t.perUnit)
 		}
