@@ -346,10 +346,10 @@ func importJSONLots(ctx context.Context, w *wtx, dec *json.Decoder, lt *lineTrac
 }
 
 // JSONTextProblem says why the strings of the JSON text raw cannot be
-// stored as sent, or returns "". encoding/json turns bytes that are not UTF-8 and
-// unpaired UTF-16 surrogate escapes (\ud800 alone) into U+FFFD, as RFC
-// 8259 §8.2 allows; stored, the text would differ from what was sent
-// without a word. raw must be valid JSON (json.Valid), so that a
+// stored as sent, or returns "". encoding/json turns bytes that are not
+// UTF-8 and unpaired UTF-16 surrogate escapes (\ud800 alone) into U+FFFD,
+// as RFC 8259 §8.2 allows; stored, the text would differ from what was
+// sent without a word. raw must be valid JSON (json.Valid), so that a
 // backslash can only be an escape inside a string. The API and the JSON
 // import both refuse such text.
 func JSONTextProblem(raw []byte) string {
