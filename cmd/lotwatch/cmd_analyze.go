@@ -4,7 +4,6 @@ import (
 	"encoding/csv"
 	"encoding/json"
 	"errors"
-	"flag"
 	"fmt"
 	"io"
 	"os"
@@ -41,8 +40,7 @@ type analyzeOptions struct {
 
 func runAnalyze(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	var o analyzeOptions
-	fs := flag.NewFlagSet("analyze", flag.ContinueOnError)
-	fs.SetOutput(stderr)
+	fs := cliFlags("analyze")
 	fs.StringVar(&o.chart, "chart", "", "the chart: `p` (fraction nonconforming), np (number nonconforming, constant n),\nu (defects per unit) or c (defects per lot, constant n).\nDefault: p when the file has a defective column, u when it has defects")
 	fs.StringVar(&o.limits, "limits", "sigma", "how the limits are computed: `sigma` (centre ± K standard errors of each lot),\nexact (binomial or Poisson quantiles of each lot, for small n·p̄),\nor laney (Laney p′/u′, widened by the lot-to-lot variation σ_z)")
 	fs.Float64Var(&o.sigma, "sigma", 3, "the width of the limits in standard errors, `K`; exact limits use the same\ntwo-sided false-alarm probability (0.0027 for K = 3)")
@@ -59,8 +57,7 @@ func runAnalyze(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs.IntVar(&o.baseline, "baseline", 0, "estimate the centre (and σ_z) from the first `N` lots only, then judge every lot\nagainst those limits as if frozen; 0 uses all lots (trial limits)")
 	fs.StringVar(&o.format, "format", "text", "the output: `text`, json or csv")
 	fs.BoolVar(&o.standardized, "standardized", false, "plot the standardized values z with limits in z units")
-	fs.Usage = func() {
-		fmt.Fprint(fs.Output(), `Usage: lotwatch analyze [options] FILE.csv
+	help := cliHelp(fs, `Usage: lotwatch analyze [options] FILE.csv
 
 Reads inspected lots from FILE.csv (- reads standard input) and prints the
 control chart: the centre line, each lot's limits (they differ lot by lot when
@@ -72,21 +69,16 @@ The header names at least lot, inspected, and defective (p, np) or defects
 (u, c), in any case; other columns are ignored.
 
 Options:
-`)
-		fs.PrintDefaults()
-		fmt.Fprint(fs.Output(), "\nExit status: 0 when the analysis ran (whatever it found), 2 for bad input.\n\n"+caution)
+`, "\nExit status: 0 when the analysis ran (whatever it found), 2 for bad input.\n\n"+caution)
+	pos, code, done := cliParse(fs, args, help, stdout, stderr)
+	if done {
+		return code
 	}
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return exitOK
-		}
-		return exitUsage
-	}
-	if fs.NArg() != 1 {
+	if len(pos) != 1 {
 		fmt.Fprintln(stderr, "lotwatch analyze: want one FILE.csv (or - for standard input); run lotwatch analyze -h")
 		return exitUsage
 	}
-	file := fs.Arg(0)
+	file := pos[0]
 
 	cfg, problems := o.config()
 	if len(problems) > 0 {

@@ -54,9 +54,7 @@ func runAudit(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		return code
 	}
 	probs := cliRequire("audit", "db", *dbPath)
-	if len(pos) > 0 {
-		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
-	}
+	probs = append(probs, cliNoArgs(pos)...)
 	if len(probs) > 0 {
 		return cliProblems(stderr, "audit verify", probs...)
 	}

@@ -60,9 +60,7 @@ func runBackup(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		return code
 	}
 	probs := cliRequire("backup", "db", *dbPath, "to", *to)
-	if len(pos) > 0 {
-		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
-	}
+	probs = append(probs, cliNoArgs(pos)...)
 	if len(probs) > 0 {
 		return cliProblems(stderr, "backup", probs...)
 	}
@@ -91,9 +89,7 @@ func runRestore(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		return code
 	}
 	probs := cliRequire("restore", "db", *dbPath, "from", *from)
-	if len(pos) > 0 {
-		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
-	}
+	probs = append(probs, cliNoArgs(pos)...)
 	if len(probs) > 0 {
 		return cliProblems(stderr, "restore", probs...)
 	}

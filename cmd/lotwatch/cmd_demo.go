@@ -3,7 +3,6 @@ package main
 import (
 	"context"
 	"errors"
-	"flag"
 	"fmt"
 	"io"
 	"os"
@@ -38,13 +37,11 @@ var demoUsers = []struct {
 }
 
 func runDemo(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
-	fs := flag.NewFlagSet("demo", flag.ContinueOnError)
-	fs.SetOutput(stderr)
+	fs := cliFlags("demo")
 	dbPath := fs.String("db", "lotwatch-demo.db", "the demo database `file`; created with the demo plant when it does not exist")
 	addr := fs.String("addr", "127.0.0.1:8080", "the `address` to serve on (host:port)")
 	csvDir := fs.String("csv", "", "write the demo plant's lots as one CSV file per process into `dir` and stop, without a database or server")
-	fs.Usage = func() {
-		fmt.Fprint(fs.Output(), `Usage: lotwatch demo [--db FILE] [--addr HOST:PORT] [--csv DIR]
+	help := cliHelp(fs, `Usage: lotwatch demo [--db FILE] [--addr HOST:PORT] [--csv DIR]
 
 Builds the database of Quillmoor Works, an invented plant with four processes
 and thirteen weeks of lots drawn from a fixed seed (a drift on the harness line,
@@ -54,19 +51,13 @@ serves it. An existing database file is served as it is; delete it to start
 the demo afresh (the lots are placed so that the last of them is today).
 
 Options:
-`)
-		fs.PrintDefaults()
-		fmt.Fprint(fs.Output(), "\n"+caution)
+`, "\n"+caution)
+	pos, code, done := cliParse(fs, args, help, stdout, stderr)
+	if done {
+		return code
 	}
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return exitOK
-		}
-		return exitUsage
-	}
-	if fs.NArg() > 0 {
-		fmt.Fprintf(stderr, "lotwatch demo: unexpected argument %q\n", fs.Arg(0))
-		return exitUsage
+	if len(pos) > 0 {
+		return cliProblems(stderr, "demo", cliNoArgs(pos)...)
 	}
 	now := time.Now()
 	if *csvDir != "" {

@@ -110,6 +110,27 @@ func cliParse(fs *flag.FlagSet, args []string, help string, stdout, stderr io.Wr
 	}
 }
 
+// cliHelp is a command's help: head, the options as the flag package
+// lists them from their usage strings, then tail.
+func cliHelp(fs *flag.FlagSet, head, tail string) string {
+	var b strings.Builder
+	b.WriteString(head)
+	fs.SetOutput(&b)
+	fs.PrintDefaults()
+	fs.SetOutput(io.Discard)
+	b.WriteString(tail)
+	return b.String()
+}
+
+// cliNoArgs is the problem of positional arguments given to a command that
+// takes options only.
+func cliNoArgs(pos []string) []string {
+	if len(pos) == 0 {
+		return nil
+	}
+	return []string{fmt.Sprintf("unexpected argument %q", pos[0])}
+}
+
 // cliProblems prints one line per problem and returns exitUsage.
 func cliProblems(stderr io.Writer, cmd string, lines ...string) int {
 	for _, l := range lines {
@@ -234,9 +255,7 @@ func runProcessAdd(args []string, stdout, stderr io.Writer) int {
 		return code
 	}
 	probs := cliRequire("process add", "db", *dbPath, "name", *name)
-	if len(pos) > 0 {
-		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
-	}
+	probs = append(probs, cliNoArgs(pos)...)
 	p := store.Process{Name: *name, Description: *desc, Rules: *rules, TimeZone: *tz}
 	if c, err := spc.ParseChart(*chart); err != nil {
 		probs = append(probs, fmt.Sprintf("--chart %q: want p, np, u or c", *chart))
@@ -302,9 +321,7 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 	if strings.TrimSpace(*reason) == "" {
 		probs = append(probs, "--reason is required: say why the process changes")
 	}
-	if len(pos) > 0 {
-		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
-	}
+	probs = append(probs, cliNoArgs(pos)...)
 	if *retire && *activate {
 		probs = append(probs, "--retire and --activate exclude each other")
 	}
@@ -423,9 +440,7 @@ func runProcessList(args []string, stdout, stderr io.Writer) int {
 	if *format != "text" && *format != "json" {
 		probs = append(probs, fmt.Sprintf("--format %q: want text or json", *format))
 	}
-	if len(pos) > 0 {
-		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
-	}
+	probs = append(probs, cliNoArgs(pos)...)
 	if len(probs) > 0 {
 		return cliProblems(stderr, "process list", probs...)
 	}

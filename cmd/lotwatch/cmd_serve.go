@@ -2,8 +2,6 @@ package main
 
 import (
 	"context"
-	"errors"
-	"flag"
 	"fmt"
 	"io"
 	"log/slog"
@@ -24,34 +22,26 @@ func init() {
 }
 
 func runServe(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
-	fs := flag.NewFlagSet("serve", flag.ContinueOnError)
-	fs.SetOutput(stderr)
+	fs := cliFlags("serve")
 	dbPath := fs.String("db", "", "database `file` (required)")
 	addr := fs.String("addr", "127.0.0.1:8080", "listen `address` (host:port)")
 	cert := fs.String("cert", "", "TLS certificate `file` (PEM); with --key, serve HTTPS")
 	key := fs.String("key", "", "TLS private key `file` (PEM)")
 	secure := fs.Bool("behind-tls", false, "the server is reached over HTTPS through a proxy: mark cookies Secure and send HSTS")
-	fs.Usage = func() {
-		fmt.Fprint(stderr, `Usage: lotwatch serve --db FILE [--addr 127.0.0.1:8080] [--cert FILE --key FILE]
+	help := cliHelp(fs, `Usage: lotwatch serve --db FILE [--addr 127.0.0.1:8080] [--cert FILE --key FILE]
 
 Serves the pages (sign-in, processes, control charts) and the JSON API under
 /api/v1/ until interrupted (SIGINT or SIGTERM); requests in flight are
 finished and the database closed cleanly before it exits.
 
 Options:
-`)
-		fs.PrintDefaults()
-		fmt.Fprint(stderr, "\n"+caution)
+`, "\n"+caution)
+	pos, code, done := cliParse(fs, args, help, stdout, stderr)
+	if done {
+		return code
 	}
-	if err := fs.Parse(args); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			return exitOK
-		}
-		return exitUsage
-	}
-	if fs.NArg() > 0 {
-		fmt.Fprintf(stderr, "lotwatch serve: unexpected argument %q\n", fs.Arg(0))
-		return exitUsage
+	if len(pos) > 0 {
+		return cliProblems(stderr, "serve", cliNoArgs(pos)...)
 	}
 	if *dbPath == "" {
 		fmt.Fprintln(stderr, "lotwatch serve: --db FILE is required")

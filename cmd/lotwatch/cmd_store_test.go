@@ -348,3 +348,29 @@ func TestCLIImportJSON(t *testing.T) {
 		t.Errorf("csv without --process: %d %q", code, errs)
 	}
 }
+
+// TestEveryCommandHelpOnStdout: `lotwatch COMMAND -h` and `lotwatch help
+// COMMAND` print the command's usage on standard output, nothing on
+// standard error, and exit 0, for every registered command, so that the
+// help can be paged or saved (common practice, no source); a bad option is
+// one line on standard error and exit 2.
+func TestEveryCommandHelpOnStdout(t *testing.T) {
+	if len(commands) < 15 {
+		t.Fatalf("only %d commands registered", len(commands))
+	}
+	for name := range commands {
+		for _, args := range [][]string{{name, "-h"}, {"help", name}} {
+			code, out, errs := runCLI(t, "", args...)
+			if code != exitOK || errs != "" || !strings.Contains(out, "lotwatch "+name) {
+				t.Errorf("%v: exit %d, stderr %q, stdout %.60q", args, code, errs, out)
+			}
+		}
+		if name == "process" || name == "user" || name == "token" || name == "audit" {
+			continue // these take a subcommand first
+		}
+		code, out, errs := runCLI(t, "", name, "--no-such-option")
+		if code != exitUsage || out != "" || strings.Count(errs, "\n") != 1 || !strings.Contains(errs, "no-such-option") {
+			t.Errorf("%s --no-such-option: exit %d, stdout %q, stderr %q", name, code, out, errs)
+		}
+	}
+}

@@ -136,9 +136,7 @@ func runUserAdd(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	if err != nil && *role != "" {
 		probs = append(probs, fmt.Sprintf("--role %q: want viewer, inspector, engineer or admin", *role))
 	}
-	if len(pos) > 0 {
-		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
-	}
+	probs = append(probs, cliNoArgs(pos)...)
 	if len(probs) > 0 {
 		return cliProblems(stderr, "user add", probs...)
 	}
@@ -171,9 +169,7 @@ func runUserList(args []string, stdout, stderr io.Writer) int {
 	if *format != "text" && *format != "json" {
 		probs = append(probs, fmt.Sprintf("--format %q: want text or json", *format))
 	}
-	if len(pos) > 0 {
-		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
-	}
+	probs = append(probs, cliNoArgs(pos)...)
 	if len(probs) > 0 {
 		return cliProblems(stderr, "user list", probs...)
 	}
@@ -263,9 +259,7 @@ func runToken(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 			tokenID = n
 		}
 	}
-	if len(pos) > 0 {
-		probs = append(probs, fmt.Sprintf("unexpected argument %q", pos[0]))
-	}
+	probs = append(probs, cliNoArgs(pos)...)
 	if len(probs) > 0 {
 		return cliProblems(stderr, cmd, probs...)
 	}
