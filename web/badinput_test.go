@@ -104,7 +104,7 @@ func TestAPIPostBadInput(t *testing.T) {
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
-			before, auditBefore := e.exportOf(t), e.auditOf(t)
+			before := e.stored(t)
 			rec := e.do(req{method: "POST", path: lotsPath(e), body: c.body, token: tok})
 			if rec.Code != c.status {
 				t.Fatalf("status %d, want %d: %s", rec.Code, c.status, trim(rec.Body.String()))
@@ -129,20 +129,11 @@ func TestAPIPostBadInput(t *testing.T) {
 					t.Errorf("error message does not name %s: %s", w.field, trim(m.Error))
 				}
 			}
-			if after := e.exportOf(t); after != before {
-				t.Errorf("a refused post changed the stored lots")
-			}
-			if a := e.auditOf(t); a != auditBefore {
-				t.Errorf("a refused post changed the audit trail: %s, was %s", a, auditBefore)
-			}
+			before.unchanged(t, e, "a refused post")
 		})
 	}
 }
 
-// TestAPIPostHostileText: markup and SQL in lot codes, names and notes
-// are stored verbatim, returned verbatim by the API, shown escaped on the
-// chart page (html/template), and neutralised in the CSV export when they
-// look like formulas; nothing is executed and no table is touched.
 // TestAPIPostTextKeptExactly: text posted through the API is stored as
 // sent, character for character: a surrogate pair escape is the one
 // character it encodes (RFC 8259 §7), and an escaped backslash before
@@ -164,6 +155,10 @@ func TestAPIPostTextKeptExactly(t *testing.T) {
 	}
 }
 
+// TestAPIPostHostileText: markup and SQL in lot codes, names and notes
+// are stored verbatim, returned verbatim by the API, shown escaped on the
+// chart page (html/template), and neutralised in the CSV export when they
+// look like formulas; nothing is executed and no table is touched.
 func TestAPIPostHostileText(t *testing.T) {
 	e := newTestEnv(t)
 	e.addLots(t, 5, func(int) int64 { return 1 })
@@ -219,6 +214,27 @@ func TestAPIPostHostileText(t *testing.T) {
 	}
 	if _, err := e.db.Users(context.Background()); err != nil {
 		t.Errorf("the users table is gone: %v", err)
+	}
+}
+
+// storedState is the export of the test process and the audit trail's
+// length and head hash: what a refused input must leave as it was.
+type storedState struct{ export, audit string }
+
+func (e *testEnv) stored(t *testing.T) storedState {
+	t.Helper()
+	return storedState{e.exportOf(t), e.auditOf(t)}
+}
+
+// unchanged reports any change of the stored lots or the audit trail
+// since s, naming what was done.
+func (s storedState) unchanged(t *testing.T, e *testEnv, what string) {
+	t.Helper()
+	if e.exportOf(t) != s.export {
+		t.Errorf("%s changed the stored lots", what)
+	}
+	if a := e.auditOf(t); a != s.audit {
+		t.Errorf("%s changed the audit trail: %s, was %s", what, a, s.audit)
 	}
 }
 

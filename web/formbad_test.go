@@ -147,15 +147,10 @@ func TestLotFormBadInput(t *testing.T) {
 	}
 	for _, tc := range cases {
 		t.Run(tc.name, func(t *testing.T) {
-			before, auditBefore := e.exportOf(t), e.auditOf(t)
+			before := e.stored(t)
 			rec := e.do(req{method: "POST", path: path, cookie: c, form: true, headers: sameOriginForm(), body: lotFormBody(tc.over)})
 			checkRefusedForm(t, rec, "The lot was not saved", tc)
-			if after := e.exportOf(t); after != before {
-				t.Error("a refused form changed the stored lots")
-			}
-			if a := e.auditOf(t); a != auditBefore {
-				t.Errorf("a refused form changed the audit trail: %s, was %s", a, auditBefore)
-			}
+			before.unchanged(t, e, "a refused form")
 		})
 	}
 
@@ -186,7 +181,7 @@ func TestLotFormBadInput(t *testing.T) {
 		}
 	})
 	t.Run("stored lot posted again", func(t *testing.T) {
-		before, auditBefore := e.exportOf(t), e.auditOf(t)
+		before := e.stored(t)
 		rec := e.do(req{method: "POST", path: path, cookie: c, form: true, headers: sameOriginForm(),
 			body: lotFormBody(map[string]string{"lot": "S1", "time": stored.Format(formTime), "inspected": "200", "count": "3", "cat0": "2", "cat1": "1", "note": "first of the week"})})
 		if rec.Code != http.StatusSeeOther {
@@ -201,12 +196,7 @@ func TestLotFormBadInput(t *testing.T) {
 				t.Errorf("sent to %q, want the stored lot %d", rec.Header().Get("Location"), l.ID)
 			}
 		}
-		if after := e.exportOf(t); after != before {
-			t.Error("a repeated lot changed the stored lots")
-		}
-		if a := e.auditOf(t); a != auditBefore {
-			t.Errorf("a repeated lot changed the audit trail: %s, was %s", a, auditBefore)
-		}
+		before.unchanged(t, e, "a repeated lot")
 	})
 }
 
@@ -256,15 +246,10 @@ func TestCorrectionFormBadInput(t *testing.T) {
 			for k, v := range tc.over {
 				over[k] = v
 			}
-			before, auditBefore, histBefore := e.exportOf(t), e.auditOf(t), history(t)
+			before, histBefore := e.stored(t), history(t)
 			rec := e.do(req{method: "POST", path: path, cookie: c, form: true, headers: sameOriginForm(), body: lotFormBody(over)})
 			checkRefusedForm(t, rec, "The correction was not saved", tc)
-			if after := e.exportOf(t); after != before {
-				t.Error("a refused correction changed the stored lots")
-			}
-			if a := e.auditOf(t); a != auditBefore {
-				t.Errorf("a refused correction changed the audit trail: %s, was %s", a, auditBefore)
-			}
+			before.unchanged(t, e, "a refused correction")
 			if h := history(t); h != histBefore {
 				t.Errorf("a refused correction changed the lot's history:\n%s\nwas\n%s", h, histBefore)
 			}
