@@ -448,17 +448,14 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 	if stepping {
 		e.pts = pts
 	}
-	// The baseline statistics, kept in registers rather than in *st.
-	accumulate := st != nil
-	var chi, mr, prev float64
-	var m, nmr int
-	var havePrev bool
-	if accumulate {
-		chi, mr, prev, m, nmr, havePrev = st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev
+	// The baseline statistics are accumulated in rs whether they are
+	// wanted (st not nil) or not, so that the paths below need not ask.
+	var rs runState
+	if st != nil {
+		rs.stats = *st
 	}
-	var regs ruleRegs
 	if fast {
-		regs = e.regs
+		rs.regs = e.regs
 	}
 	_ = pts[:len(lots)]
 	if fast || !stepping {
@@ -468,7 +465,6 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 		// Excluded lots are finished one by one, so that runPoints never
 		// looks at exclusions. Without rules no record carries a bit that
 		// makes a rule fire, so e is then never called.
-		rs := runState{chi: chi, mr: mr, prev: prev, m: m, nmr: nmr, havePrev: havePrev, regs: regs}
 		nextEx := -1 // the first excluded lot at or after i, once found
 		for i := 0; i < len(lots); {
 			end := min(len(lots), i+maxRun)
@@ -498,31 +494,17 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 				i++
 			}
 		}
-		if accumulate {
-			chi, mr, prev, m, nmr, havePrev = rs.chi, rs.mr, rs.prev, rs.m, rs.nmr, rs.havePrev
+		if fast {
+			e.regs = rs.regs
 		}
-		regs = rs.regs
 	} else {
 		for i := range lots {
-			t.onePoint(lots, pts, excluded, i, nil, false)
-			if accumulate && !(excluded != nil && excluded[i]) {
-				z := pts[i].Z
-				m++
-				chi += z * z
-				if havePrev {
-					mr += math.Abs(z - prev)
-					nmr++
-				}
-				prev, havePrev = z, true
-			}
+			t.onePoint(lots, pts, excluded, i, &rs, false)
 			e.step(i, &pts[i], k)
 		}
 	}
-	if fast {
-		e.regs = regs
-	}
-	if accumulate {
-		st.chi, st.mr, st.prev, st.m, st.nmr, st.havePrev = chi, mr, prev, m, nmr, havePrev
+	if st != nil {
+		*st = rs.stats
 	}
 	// The diagnostics count lots, and whether a lot counts depends on its
 	// size alone.
@@ -537,10 +519,8 @@ func finishPoints(a *Analysis, lots []Lot, excluded []bool, maxN int64, cfg Conf
 // runState is the state finishPoints carries from lot to lot: the
 // baseline statistics and the registers of the rule engine.
 type runState struct {
-	chi, mr, prev float64
-	m, nmr        int
-	havePrev      bool
-	regs          ruleRegs
+	stats
+	regs ruleRegs
 }
 
 // runPoints finishes lots from i on whose records are already filled in,
@@ -630,10 +610,9 @@ const runEight = 0x7ffffff8<<32 | 0x7ffffff8
 // are held in halves of 32 bits.
 const maxRun = 1 << 31
 
-// onePoint finishes lot i, filling in the table as needed, and, when rs
-// is not nil, steps its state as runPoints does (accumulating the baseline
-// statistics unless the lot is excluded), reporting, when fast, whether a
-// rule may be met.
+// onePoint finishes lot i, filling in the table as needed, and steps rs
+// as runPoints does (accumulating the baseline statistics unless the lot
+// is excluded), reporting, when fast, whether a rule may be met.
 func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, rs *runState, fast bool) (ruleRegs, bool) {
 	l := &lots[i]
 	s := t.slot(l.Inspected)
@@ -652,19 +631,7 @@ func (t *pointTable) onePoint(lots []Lot, pts []Point, excluded []bool, i int, r
 	q.Value, q.Center, q.UCL, q.LCL, q.Sigma, q.Z, q.TailP = r.value, en.ctr, en.ucl, en.lcl, en.sig, r.z, r.tail
 	q.Above, q.Below = f&recAbove != 0, f&recBelow != 0
 	en.lots++
-	if rs == nil {
-		return ruleRegs{}, false
-	}
-	if !ex {
-		z := r.z
-		rs.m++
-		rs.chi += z * z
-		if rs.havePrev {
-			rs.mr += math.Abs(z - rs.prev)
-			rs.nmr++
-		}
-		rs.prev, rs.havePrev = z, true
-	}
+	rs.add(r.z, !ex)
 	if !fast {
 		return rs.regs, false
 	}
