@@ -183,6 +183,31 @@ const (
 	tableMinTail = 1e-20
 )
 
+// farTail sums the terms t·ρ₀, t·ρ₀ρ₁, … with ρᵢ = ratio(i), for the
+// steps i < steps away from the mode, until the rest cannot change the sum:
+// away from the mode the ratios fall, so the rest is at most t·ρ/(1−ρ).
+// The terms are added from the far end inward, so that a small tail is a
+// sum of small terms and keeps its relative accuracy. buf is scratch
+// space, returned for reuse.
+func farTail(t float64, steps int64, ratio func(step int64) float64, buf []float64) (float64, []float64) {
+	buf = buf[:0]
+	sum := 0.0
+	for i := int64(0); i < steps; i++ {
+		rho := ratio(i)
+		t *= rho
+		buf = append(buf, t)
+		sum += t
+		if rho < 1 && t*rho/(1-rho) < 0x1p-60*sum || t == 0 {
+			break
+		}
+	}
+	total := 0.0
+	for j := len(buf) - 1; j >= 0; j-- {
+		total += buf[j]
+	}
+	return total, buf
+}
+
 // newTailTable returns the tails of binomial(n, p) for the counts lo … hi
 // (clamped to those it can hold with full accuracy), or nil when it holds
 // none.
@@ -230,45 +255,20 @@ func newTailTable(n int64, p float64, lo, hi int64) *tailTable {
 	r = r[a : b+1]
 	lo += a
 	hi = lo + int64(len(r)) - 1
-	// The sums beyond hi and below lo, each from its far end: the terms
-	// are generated outward until the rest is below 2⁻⁶⁰ of the sum, then
-	// added in reverse.
-	var far []float64
-	above := 0.0
+	// The sums beyond hi and below lo (farTail).
+	var above, below float64
+	var buf []float64
 	if hi < n {
-		far = far[:0]
-		t, sum := r[len(r)-1], 0.0
-		for k := hi; k < n; k++ {
-			rho := float64(n-k) / float64(k+1) * q
-			t *= rho
-			far = append(far, t)
-			sum += t
-			// Beyond the mode the ratios fall, so the rest is at most
-			// t·ρ/(1−ρ).
-			if rho < 1 && t*rho/(1-rho) < 0x1p-60*sum || t == 0 {
-				break
-			}
-		}
-		for i := len(far) - 1; i >= 0; i-- {
-			above += far[i]
-		}
+		above, buf = farTail(r[len(r)-1], n-hi, func(step int64) float64 {
+			k := hi + step
+			return float64(n-k) / float64(k+1) * q // P(k+1)/P(k)
+		}, buf)
 	}
-	below := 0.0
 	if lo > 0 {
-		far = far[:0]
-		t, sum := r[0], 0.0
-		for k := lo; k > 0; k-- {
-			rho := float64(k) / (float64(n-k+1) * q) // P(k−1)/P(k)
-			t *= rho
-			far = append(far, t)
-			sum += t
-			if rho < 1 && t*rho/(1-rho) < 0x1p-60*sum || t == 0 {
-				break
-			}
-		}
-		for i := len(far) - 1; i >= 0; i-- {
-			below += far[i]
-		}
+		below, _ = farTail(r[0], lo, func(step int64) float64 {
+			k := lo - step
+			return float64(k) / (float64(n-k+1) * q) // P(k−1)/P(k)
+		}, buf)
 	}
 	tt := &tailTable{lo: lo, lower: make([]float64, len(r)), upper: make([]float64, len(r))}
 	s := below
