@@ -133,16 +133,12 @@ func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportO
 				p.Chart = spc.ChartU
 			}
 			p.Categories = append([]string(nil), rd.Categories()...)
-			if ps := normalizeProcess(&p); len(ps) > 0 {
-				return invalid(ps...)
-			}
-			p.Active = true
-			if p, err = w.addProcess(actor, p); err != nil {
+			if p, err = w.addActiveProcess(actor, p); err != nil {
 				return err
 			}
 			res.Created = true
 		} else if !p.Active {
-			return invalid(Problem{Field: "process", Value: p.Name, Reason: "is retired: it takes no new lots"})
+			return errRetired(p)
 		}
 		res.Process = p
 		a, err := w.newLotAdder(actor, p)

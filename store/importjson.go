@@ -157,18 +157,14 @@ func (db *DB) importJSON(ctx context.Context, actor string, r io.Reader, opt Imp
 						p.TimeZone = header.TimeZone
 					}
 				}
-				if ps := normalizeProcess(&p); len(ps) > 0 {
-					return invalid(ps...)
-				}
-				p.Active = true
-				if p, err = w.addProcess(actor, p); err != nil {
+				if p, err = w.addActiveProcess(actor, p); err != nil {
 					return err
 				}
 				res.Created = true
 			case err != nil:
 				return err
 			case !p.Active:
-				return invalid(Problem{Field: "process", Value: p.Name, Reason: "is retired: it takes no new lots"})
+				return errRetired(p)
 			}
 			if header != nil && header.Chart != "" && spc.Chart(header.Chart) != p.Chart {
 				return invalid(Problem{Field: "chart", Value: header.Chart, Reason: fmt.Sprintf("is not the chart of process %q (%s): its lots are counted otherwise", p.Name, p.Chart)})

@@ -451,7 +451,7 @@ func (w *wtx) activeProcess(id int64) (Process, error) {
 		return Process{}, err
 	}
 	if !p.Active {
-		return Process{}, invalid(Problem{Field: "process", Value: p.Name, Reason: "is retired: it takes no new lots"})
+		return Process{}, errRetired(p)
 	}
 	return p, nil
 }

@@ -193,19 +193,30 @@ func auditProcess(p Process) processAudit {
 // AddProcess creates an active process. Defaults: limits sigma, k 3,
 // rules "we", time zone UTC.
 func (db *DB) AddProcess(ctx context.Context, actor string, p Process) (Process, error) {
-	if ps := normalizeProcess(&p); len(ps) > 0 {
-		return Process{}, invalid(ps...)
-	}
-	p.Active = true
 	err := db.write(ctx, func(w *wtx) error {
-		np, err := w.addProcess(actor, p)
-		p = np
+		var err error
+		p, err = w.addActiveProcess(actor, p)
 		return err
 	})
 	if err != nil {
 		return Process{}, err
 	}
 	return p, nil
+}
+
+// addActiveProcess checks p, fills its defaults and adds it as active: for
+// AddProcess and for an import that creates its process.
+func (w *wtx) addActiveProcess(actor string, p Process) (Process, error) {
+	if ps := normalizeProcess(&p); len(ps) > 0 {
+		return Process{}, invalid(ps...)
+	}
+	p.Active = true
+	return w.addProcess(actor, p)
+}
+
+// errRetired refuses lots for the retired process p.
+func errRetired(p Process) error {
+	return invalid(Problem{Field: "process", Value: p.Name, Reason: "is retired: it takes no new lots"})
 }
 
 func (w *wtx) addProcess(actor string, p Process) (Process, error) {
