@@ -97,17 +97,7 @@ func (db *DB) importJSON(ctx context.Context, actor string, r io.Reader, opt Imp
 				ve.More++
 			}
 		}
-		syntax := func(err error) error {
-			line := lt.lineAt(dec.InputOffset())
-			var se *json.SyntaxError
-			if errors.As(err, &se) {
-				line = lt.lineAt(se.Offset - 1)
-			}
-			if err == io.EOF || errors.Is(err, io.ErrUnexpectedEOF) {
-				err = errors.New("the file ends early")
-			}
-			return invalid(Problem{Line: line, Reason: "is not the JSON of a lot file: " + strings.TrimPrefix(err.Error(), "json: ")})
-		}
+		syntax := func(err error) error { return jsonSyntaxError(lt, dec, err) }
 		delim := func(want json.Delim, what string) error {
 			tok, err := dec.Token()
 			if err != nil {
@@ -249,15 +239,7 @@ func importJSONLots(ctx context.Context, w *wtx, dec *json.Decoder, lt *lineTrac
 		}
 		var raw json.RawMessage
 		if err := dec.Decode(&raw); err != nil {
-			line := lt.lineAt(dec.InputOffset())
-			var se *json.SyntaxError
-			if errors.As(err, &se) {
-				line = lt.lineAt(se.Offset - 1)
-			}
-			if err == io.EOF || errors.Is(err, io.ErrUnexpectedEOF) {
-				err = errors.New("the file ends early")
-			}
-			return invalid(Problem{Line: line, Reason: "is not the JSON of a lot file: " + strings.TrimPrefix(err.Error(), "json: ")})
+			return jsonSyntaxError(lt, dec, err)
 		}
 		line := lt.lineAt(dec.InputOffset() - 1)
 		res.Rows++
@@ -404,6 +386,20 @@ func jsonTextField(raw json.RawMessage) string {
 		}
 	}
 	return ""
+}
+
+// jsonSyntaxError is the problem of a lot file that dec cannot read,
+// on the line of the fault.
+func jsonSyntaxError(lt *lineTracker, dec *json.Decoder, err error) error {
+	line := lt.lineAt(dec.InputOffset())
+	var se *json.SyntaxError
+	if errors.As(err, &se) {
+		line = lt.lineAt(se.Offset - 1)
+	}
+	if err == io.EOF || errors.Is(err, io.ErrUnexpectedEOF) {
+		err = errors.New("the file ends early")
+	}
+	return invalid(Problem{Line: line, Reason: "is not the JSON of a lot file: " + strings.TrimPrefix(err.Error(), "json: ")})
 }
 
 func jsonKind(k string) string {
