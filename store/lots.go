@@ -383,21 +383,24 @@ func (w *wtx) newLotAdder(actor string, p Process) (*lotAdder, error) {
 // close ends the adder (its statements belong to the transaction).
 func (a *lotAdder) close() {}
 
-// add inserts in (already valid). When the lot code is stored, it returns
-// the stored lot and added false.
+// add inserts in (already valid); a lot without a time gets the time of
+// the commit. When the lot code is stored, it returns added false and
+// leaves in as it was, so that a retry without a time is compared on the
+// fields it states.
 func (a *lotAdder) add(in *LotInput) (id int64, added bool, err error) {
-	if in.Time.IsZero() {
-		in.Time = a.w.now
-	}
 	a.scratch = Lot{ID: a.next, LotInput: *in, Revision: 1, Recorded: a.w.now, RecordedBy: a.actor}
+	if a.scratch.Time.IsZero() {
+		a.scratch.Time = a.w.now
+	}
 	a.packed = appendPacked(a.packed[:0], &a.scratch, a.p.Categories)
-	res, err := a.ins.Exec(a.next, a.p.ID, in.Lot, in.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, a.w.now.UnixNano(), a.actor, a.packed)
+	res, err := a.ins.Exec(a.next, a.p.ID, in.Lot, a.scratch.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, a.w.now.UnixNano(), a.actor, a.packed)
 	if err != nil {
 		return 0, false, fmt.Errorf("store: add lot %q: %w", in.Lot, err)
 	}
 	if n, _ := res.RowsAffected(); n == 0 {
 		return 0, false, nil
 	}
+	in.Time = a.scratch.Time
 	id = a.next
 	a.next++
 	if a.n == 0 {
@@ -498,6 +501,7 @@ func (db *DB) AddLots(ctx context.Context, actor string, processID int64, in []L
 		defer a.close()
 		out = make([]Lot, len(in))
 		var conflicts []Conflict
+		var fresh []LotInput // the lots added, for the audit entry
 		loc := p.Location()
 		for i := range in {
 			id, added, err := a.add(&in[i])
@@ -505,6 +509,7 @@ func (db *DB) AddLots(ctx context.Context, actor string, processID int64, in []L
 				return err
 			}
 			if added {
+				fresh = append(fresh, in[i])
 				out[i] = Lot{ID: id, ProcessID: p.ID, LotInput: in[i], Revision: 1, Recorded: w.now.In(loc), RecordedBy: actor}
 				out[i].Time = out[i].Time.In(loc)
 				continue
@@ -521,7 +526,7 @@ func (db *DB) AddLots(ctx context.Context, actor string, processID int64, in []L
 		if len(conflicts) > 0 {
 			return &ConflictError{Conflicts: conflicts}
 		}
-		return a.finish("add", in, nil)
+		return a.finish("add", fresh, nil)
 	})
 	if err != nil {
 		return nil, err

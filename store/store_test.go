@@ -424,3 +424,38 @@ func TestConcurrentWriters(t *testing.T) {
 		t.Errorf("audit %+v %v", chk, err)
 	}
 }
+
+// A retry of a lot posted without a time (the station lost the answer and
+// sends the same body again) is answered with the stored lot, alone or in
+// a batch with new lots, and a batch of only retries writes nothing. A
+// lot code with other values is still a conflict.
+func TestAddLotsRetryWithoutTime(t *testing.T) {
+	db, path := openTemp(t)
+	p := addProcess(t, db, "press", spc.ChartP)
+	r1 := LotInput{Lot: "R1", Inspected: 10, Count: 0}
+	first, err := db.AddLots(ctx, "station", p.ID, []LotInput{r1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	again, err := db.AddLots(ctx, "station", p.ID, []LotInput{r1})
+	if err != nil {
+		t.Fatalf("retry of a lot without a time: %v", err)
+	}
+	if again[0].ID != first[0].ID || !again[0].Time.Equal(first[0].Time) {
+		t.Errorf("retry answered %+v, want the stored lot %+v", again[0], first[0])
+	}
+	batch, err := db.AddLots(ctx, "station", p.ID, []LotInput{{Lot: "R2", Inspected: 10, Count: 1}, r1})
+	if err != nil {
+		t.Fatalf("batch with a retry: %v", err)
+	}
+	if batch[1].ID != first[0].ID || batch[0].ID == first[0].ID {
+		t.Errorf("batch answered ids %d, %d; want a new one and %d", batch[0].ID, batch[1].ID, first[0].ID)
+	}
+	var entries int
+	if err := rawSQL(t, path).QueryRow("SELECT COUNT(*) FROM audit WHERE entity = 'lot'").Scan(&entries); err != nil || entries != 2 {
+		t.Errorf("%d lot entries in the audit trail, want 2 (the retry adds none): %v", entries, err)
+	}
+	if _, err := db.AddLots(ctx, "station", p.ID, []LotInput{{Lot: "R1", Inspected: 10, Count: 1}}); !errors.Is(err, ErrConflict) {
+		t.Errorf("same code, other count: %v, want a conflict", err)
+	}
+}
