@@ -15,8 +15,15 @@ import (
 // Backup writes a consistent copy of the database to dest with SQLite's
 // online backup API while the store keeps serving: the copy is one
 // snapshot (a read transaction in WAL mode, so writers go on), written to
-// a temporary file beside dest, synced and renamed into place.
+// a temporary file beside dest, synced and renamed into place. Writing
+// over a database that a store has open (dest is a live database) is
+// refused with ErrInUse.
 func (db *DB) Backup(ctx context.Context, dest string) error {
+	lock, err := lockIfDatabase(dest)
+	if err != nil {
+		return err
+	}
+	defer lock.release()
 	tmp := dest + ".part"
 	os.Remove(tmp)
 	dst, err := sql.Open("sqlite3", dsn(tmp, "_journal_mode=DELETE&_synchronous=FULL"))
@@ -124,6 +131,11 @@ func CheckFile(ctx context.Context, path string) (AuditCheck, error) {
 // + a timestamp, and the backup is copied to a temporary file, synced and
 // renamed over path, so a crash leaves either the old or the new file.
 func Restore(ctx context.Context, path, from string) (kept string, err error) {
+	lock, err := lockExclusive(path)
+	if err != nil {
+		return "", err
+	}
+	defer lock.release()
 	chk, err := CheckFile(ctx, from)
 	if err != nil {
 		return "", err

@@ -68,6 +68,7 @@ type DB struct {
 	path string
 	w    *sql.DB // exactly one connection
 	r    *sql.DB // read-only pool
+	lock *dbLock // shared, while open (see lockShared)
 
 	jobs      chan *job
 	quit      chan struct{}
@@ -166,6 +167,20 @@ func dsn(path string, params string) string {
 // embedded migrations it lacks. A database written by a newer lotwatch is
 // refused with ErrNewerSchema.
 func Open(path string) (*DB, error) {
+	lock, err := lockShared(path)
+	if err != nil {
+		return nil, err
+	}
+	db, err := open(path)
+	if err != nil {
+		lock.release()
+		return nil, err
+	}
+	db.lock = lock
+	return db, nil
+}
+
+func open(path string) (*DB, error) {
 	wparams := url.Values{}
 	wparams.Set("_journal_mode", "WAL")
 	wparams.Set("_synchronous", "FULL")
@@ -278,6 +293,7 @@ func (db *DB) Close() error {
 			st.Close()
 		}
 		err = errors.Join(db.r.Close(), db.w.Close())
+		db.lock.release()
 	})
 	return err
 }

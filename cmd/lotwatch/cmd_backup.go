@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
 	"os"
@@ -41,14 +42,17 @@ Replaces the database with BACKUP. First BACKUP is checked: SQLite's
 integrity check must pass, it must be a lotwatch database no newer than
 this program, and its audit trail must be unbroken; if not, nothing is
 replaced. The replaced database is kept beside it as
-FILE.before-restore-TIME. Stop the server before restoring.
+FILE.before-restore-TIME. Stop the server before restoring: while any
+program has FILE open (a running lotwatch serve, or another command still
+working) the restore is refused and nothing is replaced.
 
 Options:
   --db FILE       the lotwatch database file to replace (made if missing)
   --from BACKUP   the backup file to restore
 
 Exit status: 0 when done, 2 for bad input or a backup that fails its
-checks (nothing replaced), 1 when replacing fails.
+checks (nothing replaced), 1 when FILE is in use (nothing replaced) or
+replacing fails.
 `
 
 func runBackup(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
@@ -102,6 +106,10 @@ func runRestore(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		return cliProblems(stderr, "restore", fmt.Sprintf("--from %s: audit trail broken at entry %d: %s; nothing replaced", *from, chk.FirstBroken, chk.Why))
 	}
 	kept, err := store.Restore(ctx, *dbPath, *from)
+	if errors.Is(err, store.ErrInUse) {
+		fmt.Fprintf(stderr, "lotwatch restore: --db %s is open in another program (a running lotwatch serve, or a command still working): stop it first; nothing was replaced\n", *dbPath)
+		return exitFail
+	}
 	if err != nil {
 		fmt.Fprintf(stderr, "lotwatch restore: %v\n", err)
 		return exitFail
