@@ -26,6 +26,9 @@ func (db *DB) Backup(ctx context.Context, dest string) error {
 	defer lock.release()
 	tmp := dest + ".part"
 	os.Remove(tmp)
+	if err := createPrivate(tmp); err != nil {
+		return err
+	}
 	dst, err := sql.Open("sqlite3", dsn(tmp, "_journal_mode=DELETE&_synchronous=FULL"))
 	if err != nil {
 		return err
@@ -165,6 +168,8 @@ func Restore(ctx context.Context, path, from string) (kept string, err error) {
 				return "", err
 			}
 		}
+		os.Chmod(kept, 0o600) // an earlier lotwatch made databases 0644
+
 	}
 	if err := os.Rename(tmp, path); err != nil {
 		return kept, err
@@ -180,8 +185,13 @@ func copyFile(from, to string) error {
 		return err
 	}
 	defer src.Close()
-	dst, err := os.OpenFile(to, os.O_CREATE|os.O_TRUNC|os.O_WRONLY, 0o600)
+	os.Remove(to)
+	dst, err := os.OpenFile(to, os.O_CREATE|os.O_EXCL|os.O_WRONLY, 0o600)
 	if err != nil {
+		return err
+	}
+	if err := dst.Chmod(0o600); err != nil {
+		dst.Close()
 		return err
 	}
 	if _, err := dst.ReadFrom(src); err != nil {

@@ -181,6 +181,9 @@ func Open(path string) (*DB, error) {
 }
 
 func open(path string) (*DB, error) {
+	if err := createPrivate(path); err != nil {
+		return nil, err
+	}
 	wparams := url.Values{}
 	wparams.Set("_journal_mode", "WAL")
 	wparams.Set("_synchronous", "FULL")

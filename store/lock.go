@@ -33,6 +33,9 @@ func lockPath(path string) string { return path + ".lock" }
 // nothing can replace the database there either.
 func lockShared(path string) (*dbLock, error) {
 	f, err := os.OpenFile(lockPath(path), os.O_RDWR|os.O_CREATE, 0o600)
+	if err == nil {
+		f.Chmod(0o600)
+	}
 	if err != nil {
 		if errors.Is(err, fs.ErrPermission) || errors.Is(err, syscall.EROFS) {
 			return nil, nil
@@ -74,6 +77,25 @@ func lockIfDatabase(path string) (*dbLock, error) {
 		return nil, nil
 	}
 	return lockExclusive(path)
+}
+
+// createPrivate makes an empty database file readable by its owner only
+// (mode 0600 whatever the umask: it will hold password and token hashes)
+// when there is none at path; SQLite gives its journal files the mode of
+// the database. An existing file is left as it is.
+func createPrivate(path string) error {
+	f, err := os.OpenFile(path, os.O_WRONLY|os.O_CREATE|os.O_EXCL, 0o600)
+	if errors.Is(err, fs.ErrExist) {
+		return nil
+	}
+	if err != nil {
+		return fmt.Errorf("store: %w", err)
+	}
+	if err := f.Chmod(0o600); err != nil {
+		f.Close()
+		return fmt.Errorf("store: %w", err)
+	}
+	return f.Close()
 }
 
 // release gives the lock up; a nil lock is no lock.
