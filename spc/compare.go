@@ -11,11 +11,29 @@ import (
 
 // Difference compares two rates, first minus second: the observed
 // difference, its confidence interval at Level, and the two-sided p-value
-// of the test of equal rates with its standard normal statistic Z.
+// of the test of equal rates named by Test, with the standard normal
+// statistic Z of the difference.
 type Difference struct {
 	Difference, Lower, Upper, PValue, Z float64
 	Level                               float64
+	// Test names the test behind PValue: TestPooledZ or TestFisherExact
+	// for proportions, TestConditionalPoisson for defect rates.
+	Test string
 }
+
+// Names of the tests of equal rates, as Difference.Test reports them.
+const (
+	TestPooledZ            = "two-proportion z test"
+	TestFisherExact        = "Fisher's exact test"
+	TestConditionalPoisson = "exact conditional test"
+)
+
+// minExpectedCount is the smallest expected count, in each of the four
+// cells of the two-by-two table, at which the pooled z test is used;
+// below it the normal approximation is poor and Fisher's exact test is
+// used instead (Cochran 1954, "Some methods for strengthening the common
+// χ² tests", Biometrics 10:417–451: every expected count at least 5).
+const minExpectedCount = 5
 
 // CompareProportions compares the proportions p1 = d1/n1 and p2 = d2/n2.
 //
@@ -28,11 +46,13 @@ type Difference struct {
 //	lower = p1 − p2 − √((p1−l1)² + (u2−p2)²)
 //	upper = p1 − p2 + √((u1−p1)² + (p2−l2)²).
 //
-// The p-value is that of the two-sided pooled two-proportion z test,
-// z = (p1 − p2)/√(p̄(1−p̄)(1/n1 + 1/n2)) with p̄ = (d1+d2)/(n1+n2) (e.g.
-// Fleiss, Levin & Paik 2003, Statistical Methods for Rates and Proportions,
-// §2.4; without continuity correction). When p̄ is 0 or 1 the two samples
-// agree completely and Z = 0, PValue = 1.
+// The p-value is that of the two-sided pooled two-proportion z test
+// (PooledZTest) when every expected count of the two-by-two table,
+// n1·p̄, n1·(1−p̄), n2·p̄ and n2·(1−p̄), is at least 5; otherwise, where few
+// nonconforming units are expected, that of Fisher's exact test
+// (FisherExact), since the z test then finds changes that sampling alone
+// produces often: 1 of 5 against 0 of 25 gives z-test p = 0.023 but
+// Fisher p = 0.17. Z is the z statistic whichever test gives the p-value.
 func CompareProportions(d1, n1, d2, n2 int64, level float64) (Difference, error) {
 	if err := checkProportionPair(d1, n1, "1"); err != nil {
 		return Difference{}, err
@@ -50,15 +70,63 @@ func CompareProportions(d1, n1, d2, n2 int64, level float64) (Difference, error)
 	diff.Lower = math.Max(-1, diff.Difference-math.Hypot(p1-l1, u2-p2))
 	diff.Upper = math.Min(1, diff.Difference+math.Hypot(u1-p1, p2-l2))
 
+	diff.Z, diff.PValue = PooledZTest(d1, n1, d2, n2)
+	diff.Test = TestPooledZ
+	pbar := float64(d1+d2) / float64(n1+n2)
+	smallest := float64(min(n1, n2)) * math.Min(pbar, 1-pbar)
+	if smallest < minExpectedCount {
+		diff.PValue, diff.Test = FisherExact(d1, n1, d2, n2), TestFisherExact
+	}
+	return diff, nil
+}
+
+// PooledZTest returns the statistic and two-sided p-value of the pooled
+// two-proportion z test of d1 of n1 against d2 of n2: z = (p1 − p2)/
+// √(p̄(1−p̄)(1/n1 + 1/n2)) with p̄ = (d1+d2)/(n1+n2) (e.g. Fleiss, Levin &
+// Paik 2003, Statistical Methods for Rates and Proportions, §2.4; without
+// continuity correction). When p̄ is 0 or 1 the two samples agree
+// completely and z = 0, p = 1. The counts must be valid (0 ≤ d ≤ n, n > 0).
+func PooledZTest(d1, n1, d2, n2 int64) (z, p float64) {
+	p1, p2 := float64(d1)/float64(n1), float64(d2)/float64(n2)
 	pbar := float64(d1+d2) / float64(n1+n2)
 	se := math.Sqrt(pbar * (1 - pbar) * (1/float64(n1) + 1/float64(n2)))
 	if se == 0 {
-		diff.Z, diff.PValue = 0, 1
-	} else {
-		diff.Z = (p1 - p2) / se
-		diff.PValue = math.Min(1, 2*distuv.UnitNormal.Survival(math.Abs(diff.Z)))
+		return 0, 1
 	}
-	return diff, nil
+	z = (p1 - p2) / se
+	return z, math.Min(1, 2*distuv.UnitNormal.Survival(math.Abs(z)))
+}
+
+// FisherExact returns the two-sided p-value of Fisher's exact test that d1
+// of n1 and d2 of n2 come from the same proportion (Fisher 1935, The
+// Design of Experiments, §2; Agresti 2002, Categorical Data Analysis,
+// §3.5.1). Given the margins, d1 is hypergeometric: d1+d2 nonconforming
+// units among n1+n2, n1 of them in the first group. The p-value sums the
+// probabilities of every table no more likely than the one observed, with
+// the relative tolerance 1e-7 for ties that scipy.stats.fisher_exact uses.
+// The counts must be valid (0 ≤ d ≤ n, n > 0).
+func FisherExact(d1, n1, d2, n2 int64) float64 {
+	total, bad := n1+n2, d1+d2
+	lo, hi := max(0, bad-n2), min(bad, n1)
+	logPMF := func(x int64) float64 {
+		return logChoose(bad, x) + logChoose(total-bad, n1-x) - logChoose(total, n1)
+	}
+	obs := logPMF(d1) + math.Log1p(1e-7)
+	var p float64
+	for x := lo; x <= hi; x++ {
+		if l := logPMF(x); l <= obs {
+			p += math.Exp(l)
+		}
+	}
+	return math.Min(1, p)
+}
+
+// logChoose returns ln C(n, k).
+func logChoose(n, k int64) float64 {
+	a, _ := math.Lgamma(float64(n + 1))
+	b, _ := math.Lgamma(float64(k + 1))
+	c, _ := math.Lgamma(float64(n - k + 1))
+	return a - b - c
 }
 
 func checkProportionPair(d, n int64, which string) error {
@@ -121,6 +189,7 @@ func ComparePoissonRates(c1 int64, e1 float64, c2 int64, e2 float64, level float
 	diff.Lower = diff.Difference - math.Hypot(r1-l1, u2-r2)
 	diff.Upper = diff.Difference + math.Hypot(u1-r1, r2-l2)
 
+	diff.Test = TestConditionalPoisson
 	total := c1 + c2
 	if total == 0 {
 		diff.Z, diff.PValue = 0, 1

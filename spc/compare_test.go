@@ -53,15 +53,20 @@ func TestCompareProportionsReference(t *testing.T) {
 		if r.PValue == nil {
 			// Pooled rate 0 or 1: statsmodels has no finite statistic; ours
 			// reports no evidence of a difference.
-			if got.Z != 0 || got.PValue != 1 {
+			if got.Z != 0 || got.PValue != 1 || got.Test != TestFisherExact {
 				t.Errorf("%d/%d − %d/%d: z %v p %v, want 0 and 1", r.D1, r.N1, r.D2, r.N2, got.Z, got.PValue)
 			}
 			continue
 		}
 		// Source: statsmodels proportions_ztest (pooled, two-sided).
-		if !intervalClose(got.Z, *r.Z, 1e-9) || math.Abs(got.PValue-*r.PValue) > 1e-9*math.Max(*r.PValue, 1e-6) {
+		z, p := PooledZTest(r.D1, r.N1, r.D2, r.N2)
+		if !intervalClose(z, *r.Z, 1e-9) || math.Abs(p-*r.PValue) > 1e-9*math.Max(*r.PValue, 1e-6) {
 			t.Errorf("%d/%d − %d/%d: z %.12g p %.12g, statsmodels z %.12g p %.12g",
-				r.D1, r.N1, r.D2, r.N2, got.Z, got.PValue, *r.Z, *r.PValue)
+				r.D1, r.N1, r.D2, r.N2, z, p, *r.Z, *r.PValue)
+		}
+		if got.Z != z || (got.Test == TestPooledZ && got.PValue != p) {
+			t.Errorf("%d/%d − %d/%d: CompareProportions z %v p %v (%s), PooledZTest z %v p %v",
+				r.D1, r.N1, r.D2, r.N2, got.Z, got.PValue, got.Test, z, p)
 		}
 	}
 }

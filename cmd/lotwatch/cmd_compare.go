@@ -34,8 +34,12 @@ Options:
   -h          show this help
 
 The interval is Newcombe's hybrid score interval (1998, method 10), built
-from the Wilson intervals of the two rates; the p-value is that of the
-two-sided two-proportion z test with the rates pooled.
+from the Wilson intervals of the two rates. The p-value is that of the
+two-sided two-proportion z test with the rates pooled when every expected
+count of the two-by-two table is at least 5 (Cochran 1954), else that of
+Fisher's exact test, since with few expected counts the z test finds
+differences that sampling alone produces often. A difference is stated
+only when the test and the interval agree.
 
 Exit status: 0 when done, 2 for bad input (nothing is printed on standard
 output then; each problem is named on standard error).
@@ -48,6 +52,7 @@ type compareJSON struct {
 	PValue     float64 `json:"p_value"`
 	Z          float64 `json:"z"`
 	Level      float64 `json:"level"`
+	Test       string  `json:"test"`
 }
 
 func runCompare(args []string, _ io.Reader, stdout, stderr io.Writer) int {
@@ -81,18 +86,23 @@ func runCompare(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		return exitUsage
 	}
 	if asJSON {
-		return statsJSON(stdout, compareJSON{diff.Difference, diff.Lower, diff.Upper, diff.PValue, diff.Z, diff.Level})
+		return statsJSON(stdout, compareJSON{diff.Difference, diff.Lower, diff.Upper, diff.PValue, diff.Z, diff.Level, diff.Test})
 	}
 	p1, p2 := float64(v[0])/float64(v[1]), float64(v[2])/float64(v[3])
 	fmt.Fprintf(stdout, "First:  %d nonconforming of %d inspected, fraction %s\n", v[0], v[1], statsRate(p1))
 	fmt.Fprintf(stdout, "Second: %d nonconforming of %d inspected, fraction %s\n", v[2], v[3], statsRate(p2))
 	fmt.Fprintf(stdout, "Difference, first minus second: %s\n", statsRate(diff.Difference))
 	fmt.Fprintf(stdout, "%s interval for the difference (Newcombe hybrid score): %s to %s\n", statsPercent(lv), statsRate(diff.Lower), statsRate(diff.Upper))
-	fmt.Fprintf(stdout, "Test of equal rates (two-proportion z test): z = %s, p-value = %s\n",
+	fmt.Fprintf(stdout, "Test of equal rates (%s): z = %s, p-value = %s\n", diff.Test,
 		strconv.FormatFloat(diff.Z, 'f', 2, 64), strconv.FormatFloat(diff.PValue, 'g', 3, 64))
-	if diff.Lower > 0 || diff.Upper < 0 {
-		fmt.Fprintf(stdout, "\nThe interval does not include 0: at %s confidence the two rates differ.\n", statsPercent(lv))
-	} else {
+	excludes0 := diff.Lower > 0 || diff.Upper < 0
+	switch {
+	case excludes0 && diff.PValue < 1-lv:
+		fmt.Fprintf(stdout, "\nThe interval does not include 0 and the test agrees: at %s confidence the two rates differ.\n", statsPercent(lv))
+	case excludes0 || diff.PValue < 1-lv:
+		fmt.Fprintf(stdout, "\nThe interval and the test disagree (the interval %s 0, p-value %s): too close to call; these counts do not show that the two rates differ.\n",
+			map[bool]string{true: "leaves out", false: "includes"}[excludes0], strconv.FormatFloat(diff.PValue, 'g', 3, 64))
+	default:
 		fmt.Fprintf(stdout, "\nThe interval includes 0: these counts do not show that the two rates differ.\n")
 	}
 	fmt.Fprint(stdout, "\n"+caution)

@@ -61,6 +61,11 @@ type Options struct {
 	// the trend; 0 means DefaultTrendWeeks. At least 2, at most 104. (The
 	// lots are judged on the whole record whatever the trend's length.)
 	TrendWeeks int
+	// FDR judges each change on its p-value adjusted for the false
+	// discovery rate across the processes of the review (Benjamini &
+	// Hochberg 1995) rather than on its own p-value. The adjusted values
+	// are computed and shown either way.
+	FDR bool
 }
 
 // OptionError is a bad option of the review, naming it and its value.
@@ -83,6 +88,46 @@ type Review struct {
 	TrendWeeks int
 	Generated  time.Time
 	Processes  []*ProcessReview
+	// FDR is true when the verdicts were judged on adjusted p-values.
+	FDR bool
+	// Chance counts the changes of the review and what chance alone
+	// would give (see Multiplicity).
+	Chance Multiplicity
+}
+
+// Multiplicity sums the verdicts of one review. Each comparison run at
+// significance Alpha states a change from sampling alone with probability
+// up to Alpha when nothing changed, so across Compared processes about
+// Compared·Alpha such verdicts are expected from chance alone.
+type Multiplicity struct {
+	Compared int     // processes whose two weeks were compared
+	Alpha    float64 // 1 − level
+	Expected float64 // Compared·Alpha
+	// Stated counts the verdicts, on each process's own p-value, of a
+	// change unlikely from sampling alone; AfterFDR those still stated
+	// when each p-value is adjusted for the false discovery rate.
+	Stated, AfterFDR int
+}
+
+// Sentence says the multiplicity in plain words, for every rendering.
+func (m Multiplicity) Sentence(fdr bool) string {
+	if m.Compared < 2 {
+		return ""
+	}
+	s := fmt.Sprintf("%s compared: %d show a change unlikely from sampling alone on its own p-value; chance alone would give about %s such verdicts across %d processes at the %s level even if no process changed.",
+		plural(m.Compared, "process", "processes"), m.Stated, strconv.FormatFloat(m.Expected, 'f', 1, 64), m.Compared, levelPercent(m.Alpha))
+	s += fmt.Sprintf(" With p-values adjusted for the false discovery rate across the review (Benjamini–Hochberg), %d remain", m.AfterFDR)
+	if fdr {
+		return s + "; the verdicts below use the adjusted p-values."
+	}
+	return s + "; the verdicts below use each process's own p-value."
+}
+
+func plural(n int, one, many string) string {
+	if n == 1 {
+		return "1 " + one
+	}
+	return strconv.Itoa(n) + " " + many
 }
 
 // ProcessReview is the review of one process.
@@ -137,6 +182,10 @@ type Change struct {
 	// then NaN.
 	Compared                            bool
 	Difference, Lower, Upper, PValue, Z float64
+	// AdjustedP is PValue adjusted for the false discovery rate across
+	// the processes compared in the review (Benjamini–Hochberg); NaN when
+	// not compared.
+	AdjustedP float64
 	// Interval and Test name the methods used.
 	Interval, Test string
 	// Verdict says in plain words what the change means; Detail adds the
@@ -235,7 +284,44 @@ func Build(ctx context.Context, src Source, opt Options) (*Review, error) {
 		}
 		r.Processes = append(r.Processes, pr)
 	}
+	r.adjust(opt.FDR)
 	return r, nil
+}
+
+// adjust adjusts the p-values of the changes for the false discovery rate
+// across the processes compared, counts the verdicts, and when fdr is set
+// judges each change on its adjusted p-value.
+func (r *Review) adjust(fdr bool) {
+	alpha := 1 - r.Level
+	ps := make([]float64, len(r.Processes))
+	for i, pr := range r.Processes {
+		ps[i] = math.NaN()
+		if pr.Change.Compared {
+			ps[i] = pr.Change.PValue
+		}
+	}
+	adj := spc.BenjaminiHochberg(ps)
+	r.FDR = fdr
+	r.Chance = Multiplicity{Alpha: alpha}
+	for i, pr := range r.Processes {
+		c := &pr.Change
+		if !c.Compared {
+			continue
+		}
+		c.AdjustedP = adj[i]
+		r.Chance.Compared++
+		if c.StatesChange() {
+			r.Chance.Stated++
+		}
+		onAdjusted := Verdict(c.Difference, c.Lower, c.Upper, c.AdjustedP, alpha)
+		if strings.Contains(onAdjusted, "unlikely from sampling alone") {
+			r.Chance.AfterFDR++
+		}
+		if fdr {
+			c.Verdict = strings.Replace(onAdjusted, FormatP(c.AdjustedP), FormatP(c.PValue)+", adjusted "+strings.TrimPrefix(FormatP(c.AdjustedP), "p "), 1)
+		}
+	}
+	r.Chance.Expected = float64(r.Chance.Compared) * alpha
 }
 
 // choose picks the named processes (any, retired or not) in the order
@@ -403,13 +489,13 @@ func (st *WeekStat) estimate(ch spc.Chart, m spc.IntervalMethod, level float64) 
 // compare compares the reviewed week with the previous one.
 func compare(ch spc.Chart, cur, prev WeekStat, level float64) Change {
 	nan := math.NaN()
-	c := Change{Difference: nan, Lower: nan, Upper: nan, PValue: nan, Z: nan}
+	c := Change{Difference: nan, Lower: nan, Upper: nan, PValue: nan, AdjustedP: nan, Z: nan}
 	if ch.CountsUnits() {
 		c.Interval = "Newcombe hybrid score"
-		c.Test = "two-proportion z test"
+		c.Test = spc.TestPooledZ + " (" + spc.TestFisherExact + " where few are expected)"
 	} else {
 		c.Interval = "MOVER from Poisson score limits"
-		c.Test = "exact conditional test"
+		c.Test = spc.TestConditionalPoisson
 	}
 	switch {
 	case !cur.HasLots():
@@ -435,28 +521,42 @@ func compare(ch spc.Chart, cur, prev WeekStat, level float64) Change {
 	}
 	c.Compared = true
 	c.Difference, c.Lower, c.Upper, c.PValue, c.Z = d.Difference, d.Lower, d.Upper, d.PValue, d.Z
-	c.Verdict = Verdict(d.Difference, d.PValue, 1-level)
+	c.Test = d.Test
+	c.Verdict = Verdict(d.Difference, d.Lower, d.Upper, d.PValue, 1-level)
 	return c
 }
 
 // VerdictNoLots is the verdict when a week has no lots to compare.
 const VerdictNoLots = "no lots inspected"
 
-// Verdict says in plain words what a change of diff with two-sided
-// p-value p means at significance alpha. It claims only what the test
-// supports: a change unlikely from sampling alone, or one within what
-// sampling alone produces. It never says the process got better or worse
+// Verdict says in plain words what a change of diff, with confidence
+// interval (lower, upper) at level 1 − alpha and two-sided p-value p,
+// means. It states a change only when the test and the interval agree
+// that sampling alone is unlikely to explain it: p below alpha and an
+// interval that leaves out 0. When they disagree (which a test and an
+// interval built by different methods can do near the boundary) it says
+// so rather than pick one. It never says the process got better or worse
 // (the test cannot tell a real change from a change in how lots were
 // sampled or inspected) nor that nothing changed (a large p-value only
 // says the data cannot tell).
-func Verdict(diff, p, alpha float64) string {
+func Verdict(diff, lower, upper, p, alpha float64) string {
+	excludes0 := lower > 0 || upper < 0
 	switch {
-	case p < alpha && diff > 0:
+	case p < alpha && excludes0 && diff > 0:
 		return "a rise unlikely from sampling alone (" + FormatP(p) + ")"
-	case p < alpha && diff < 0:
+	case p < alpha && excludes0 && diff < 0:
 		return "a fall unlikely from sampling alone (" + FormatP(p) + ")"
+	case p < alpha:
+		return "too close to call (" + FormatP(p) + ", but the interval includes no change)"
+	case excludes0:
+		return "too close to call (the interval leaves out no change, but " + FormatP(p) + ")"
 	}
 	return "within what sampling alone produces (" + FormatP(p) + ")"
+}
+
+// StatesChange reports whether the verdict states a rise or a fall.
+func (c Change) StatesChange() bool {
+	return c.Compared && strings.Contains(c.Verdict, "unlikely from sampling alone")
 }
 
 // FormatP formats a p-value for reading: "p = 0.003", "p = 0.41",

@@ -527,3 +527,140 @@ func TestVerdictsOnWholeRecord(t *testing.T) {
 		t.Errorf("out of limits in the week: %v, want %v (p̄ %.4f, limits %.4f … %.4f)", got, want, pb, lcl, ucl)
 	}
 }
+
+// TestVerdictsAgreeWithIntervals runs the verdict of every small-count
+// case of a table (the counts where the pooled z test and the interval
+// part ways) and checks each string against its own interval: a rise only
+// when the interval lies above 0 and p < 0.05, a fall only below 0, and
+// "within what sampling alone produces" only when the interval includes 0
+// and p ≥ 0.05. The first row is the measured case: 1 of 5 against 0 of 25,
+// Newcombe interval (−0.011, 0.625), z-test p = 0.023, Fisher's exact
+// p = 1/6 (scipy.stats.fisher_exact, spc/testdata/verdicts_reference.json).
+func TestVerdictsAgreeWithIntervals(t *testing.T) {
+	week := func(n, d int64) WeekStat { return WeekStat{Week: "w", Lots: 1, Inspected: n, Count: d} }
+	c := compare(spc.ChartP, week(5, 1), week(25, 0), 0.95)
+	if want := "within what sampling alone produces (p = 0.17)"; c.Verdict != want || c.Test != spc.TestFisherExact {
+		t.Errorf("1 of 5 vs 0 of 25: verdict %q by %s, want %q by Fisher's exact test", c.Verdict, c.Test, want)
+	}
+	sizes := []int64{2, 5, 10, 25, 60}
+	kinds := map[string]int{}
+	for _, ch := range []spc.Chart{spc.ChartP, spc.ChartU} {
+		for _, n1 := range sizes {
+			for _, n2 := range sizes {
+				for d1 := int64(0); d1 <= min(n1, 8); d1++ {
+					for d2 := int64(0); d2 <= min(n2, 8); d2++ {
+						c := compare(ch, week(n1, d1), week(n2, d2), 0.95)
+						name := fmt.Sprintf("%s %d/%d vs %d/%d", ch, d1, n1, d2, n2)
+						checkVerdict(t, name, c, 0.05)
+						kinds[strings.SplitN(c.Verdict, " (", 2)[0]]++
+					}
+				}
+			}
+		}
+	}
+	// The table must reach every wording, or it checks less than it seems.
+	for _, k := range []string{"a rise unlikely from sampling alone", "a fall unlikely from sampling alone",
+		"within what sampling alone produces", "too close to call"} {
+		if kinds[k] == 0 {
+			t.Errorf("no case of the table gave %q (%v)", k, kinds)
+		}
+	}
+}
+
+// checkVerdict checks one verdict string against its change's interval
+// and p-value at significance alpha.
+func checkVerdict(t *testing.T, name string, c Change, alpha float64) {
+	t.Helper()
+	v := c.Verdict
+	excludes0 := c.Lower > 0 || c.Upper < 0
+	switch {
+	case strings.HasPrefix(v, "a rise unlikely"):
+		if !(c.Lower > 0 && c.PValue < alpha) {
+			t.Errorf("%s: %q beside interval (%.4g, %.4g), p %.4g", name, v, c.Lower, c.Upper, c.PValue)
+		}
+	case strings.HasPrefix(v, "a fall unlikely"):
+		if !(c.Upper < 0 && c.PValue < alpha) {
+			t.Errorf("%s: %q beside interval (%.4g, %.4g), p %.4g", name, v, c.Lower, c.Upper, c.PValue)
+		}
+	case strings.HasPrefix(v, "within what sampling"):
+		if excludes0 || c.PValue < alpha {
+			t.Errorf("%s: %q beside interval (%.4g, %.4g), p %.4g", name, v, c.Lower, c.Upper, c.PValue)
+		}
+	case strings.HasPrefix(v, "too close to call"):
+		if excludes0 == (c.PValue < alpha) {
+			t.Errorf("%s: %q though test and interval agree: (%.4g, %.4g), p %.4g", name, v, c.Lower, c.Upper, c.PValue)
+		}
+	default:
+		t.Errorf("%s: unknown verdict %q", name, v)
+	}
+	if !strings.Contains(v, FormatP(c.PValue)) {
+		t.Errorf("%s: verdict %q does not show its p-value %s", name, v, FormatP(c.PValue))
+	}
+}
+
+// TestMultiplicity builds a review of many processes, one with a clear
+// rise and the rest with equal weeks, and checks the count of verdicts,
+// the number chance alone would give (Compared × 0.05) and the
+// Benjamini–Hochberg adjusted p-values (spc.BenjaminiHochberg, checked
+// against statsmodels in spc). With FDR set, the verdicts use the
+// adjusted values and still agree with their intervals.
+func TestMultiplicity(t *testing.T) {
+	for _, fdr := range []bool{false, true} {
+		f := &fakeSource{}
+		for i := 0; i < 20; i++ {
+			d1, d2 := int64(20), int64(20)
+			switch i {
+			case 0:
+				d1 = 60 // 60/1000 vs 20/1000: z test p < 0.001
+			case 1:
+				d1 = 36 // 36/1000 vs 20/1000: z test p ≈ 0.03 on its own
+			case 2:
+				d1 = 35 // p ≈ 0.04
+			}
+			f.add(store.Process{ID: int64(i + 1), Name: fmt.Sprintf("p%02d", i), Chart: spc.ChartP, K: 3, Rules: "we", TimeZone: "UTC", Active: true},
+				lot("a", time.Date(2026, 11, 18, 10, 0, 0, 0, time.UTC), 1000, d2),
+				lot("b", time.Date(2026, 11, 25, 10, 0, 0, 0, time.UTC), 1000, d1))
+		}
+		r, err := Build(ctx, f, Options{Week: "2026-W48", FDR: fdr})
+		if err != nil {
+			t.Fatal(err)
+		}
+		m := r.Chance
+		if m.Compared != 20 || math.Abs(m.Expected-1) > 1e-12 {
+			t.Errorf("fdr %v: compared %d expected %g, want 20 and 20×0.05 = 1", fdr, m.Compared, m.Expected)
+		}
+		var ps []float64
+		for _, pr := range r.Processes {
+			ps = append(ps, pr.Change.PValue)
+		}
+		adj := spc.BenjaminiHochberg(ps)
+		stated, after := 0, 0
+		for i, pr := range r.Processes {
+			if pr.Change.AdjustedP != adj[i] {
+				t.Errorf("%s: adjusted p %v, want %v", pr.Process.Name, pr.Change.AdjustedP, adj[i])
+			}
+			c := pr.Change
+			excludes0 := c.Lower > 0 || c.Upper < 0
+			if ps[i] < 0.05 && excludes0 {
+				stated++
+			}
+			if adj[i] < 0.05 && excludes0 {
+				after++
+			}
+			if fdr {
+				c.PValue = c.AdjustedP
+				if pr.Change.StatesChange() && !strings.Contains(pr.Change.Verdict, "adjusted") {
+					t.Errorf("%s: %q does not say the p-value is adjusted", pr.Process.Name, pr.Change.Verdict)
+				}
+				c.Verdict = Verdict(c.Difference, c.Lower, c.Upper, c.AdjustedP, 0.05)
+			}
+			checkVerdict(t, pr.Process.Name, c, 0.05)
+		}
+		if m.Stated != stated || m.AfterFDR != after || after >= stated {
+			t.Errorf("fdr %v: stated %d after FDR %d, want %d and %d (fewer after)", fdr, m.Stated, m.AfterFDR, stated, after)
+		}
+		if s := m.Sentence(fdr); !strings.Contains(s, "chance alone would give about 1.0") || !strings.Contains(s, "Benjamini–Hochberg") {
+			t.Errorf("sentence %q", s)
+		}
+	}
+}
