@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"html/template"
 	"net/http"
+	"net/url"
 	"strconv"
 	"strings"
 
@@ -15,23 +16,36 @@ import (
 
 type reviewPageData struct {
 	Week     string
+	Filter   string
+	FDR      bool
 	Problem  string
 	Fragment template.HTML
 	Query    string
 }
 
+// reviewMaxDetails is the number of processes whose sections the review
+// page writes below the summary; past it the page is the summary alone,
+// each row linking to its process's section.
+const reviewMaxDetails = 12
+
 // reviewOptions reads the week (ISO 8601, "2026-W48"; default the last
-// complete week) of a review request.
+// complete week) and the false-discovery-rate choice of a review request.
 func (s *Server) reviewOptions(r *http.Request) review.Options {
-	return review.Options{Week: strings.TrimSpace(r.URL.Query().Get("week")), Now: s.now()}
+	q := r.URL.Query()
+	return review.Options{Week: strings.TrimSpace(q.Get("week")), Now: s.now(), FDR: q.Get("fdr") == "1"}
 }
 
-// reviewPage shows the weekly review inside the site's layout, with links
-// to download it as a self-contained HTML document, CSV or JSON. The
-// review's charts are inline SVG, so that they print.
+// reviewPage shows the weekly review inside the site's layout: the summary
+// of every process, sorted by concern, then the sections of the processes
+// matching the filter (a part of the name, any case) when they are few, with links
+// to download the review as a self-contained HTML document, CSV or JSON.
+// The review is always built over every active process, so that a
+// process's verdict and adjusted p-value do not depend on the filter.
+// The review's charts are inline SVG, so that they print.
 func (s *Server) reviewPage(w http.ResponseWriter, r *http.Request) {
 	opt := s.reviewOptions(r)
-	d := reviewPageData{Week: opt.Week}
+	q := r.URL.Query()
+	d := reviewPageData{Week: opt.Week, FDR: opt.FDR, Filter: strings.TrimSpace(q.Get("process"))}
 	rv, err := review.Build(r.Context(), s.db, opt)
 	var oe *review.OptionError
 	switch {
@@ -44,8 +58,24 @@ func (s *Server) reviewPage(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	d.Week = rv.Week
-	d.Query = "week=" + rv.Week
-	if d.Fragment, err = rv.HTMLFragment(); err != nil {
+	base := url.Values{"week": {rv.Week}}
+	if opt.FDR {
+		base.Set("fdr", "1")
+	}
+	d.Query = base.Encode()
+	v := review.View{MaxDetails: reviewMaxDetails, DetailURL: func(pr *review.ProcessReview) string {
+		u := url.Values{"week": {rv.Week}, "process": {pr.Process.Name}}
+		if opt.FDR {
+			u.Set("fdr", "1")
+		}
+		return "/review?" + u.Encode() + "#p-" + strconv.FormatInt(pr.Process.ID, 10)
+	}}
+	if f := strings.ToLower(d.Filter); f != "" {
+		v.Match = func(pr *review.ProcessReview) bool {
+			return strings.Contains(strings.ToLower(pr.Process.Name), f)
+		}
+	}
+	if d.Fragment, err = rv.HTMLView(v); err != nil {
 		s.internalError(w, r, err)
 		return
 	}

@@ -45,10 +45,20 @@ Options:
                    agresti-coull, jeffreys or wald. u and c processes always
                    get the exact Poisson interval.
   --level L        confidence level, between 0 and 1 (default 0.95)
+  --fdr            judge each change on its p-value adjusted for the false
+                   discovery rate across the processes of the review
+                   (Benjamini & Hochberg 1995) rather than on its own; the
+                   adjusted values are shown either way
   --format F       text (default), html (a self-contained file that opens
                    when mailed: no scripts, no external references, charts
                    inline), csv (one row per process) or json
   -h               show this help
+
+The review opens with a summary, one line per process, those asking most
+for attention first, and says how many changes chance alone would give
+across that many processes. A change is stated only when its test and its
+interval agree; at small expected counts the fraction nonconforming is
+tested with Fisher's exact test.
 
 Rates are fractions in csv and json, percentages (or defects per 100 units)
 in text and html.
@@ -83,6 +93,7 @@ func runReport(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	method := fs.String("method", "wilson", "")
 	levels := fs.String("level", "0.95", "")
 	format := fs.String("format", "text", "")
+	fdr := fs.Bool("fdr", false, "")
 	pos, code := statsParse(fs, args, reportHelp, stdout, stderr)
 	if code >= 0 {
 		return code
@@ -121,7 +132,7 @@ func runReport(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		return exitFail
 	}
 	defer db.Close()
-	r, err := review.Build(context.Background(), db, review.Options{Week: *week, Processes: procs, Method: m, Level: level})
+	r, err := review.Build(context.Background(), db, review.Options{Week: *week, Processes: procs, Method: m, Level: level, FDR: *fdr})
 	var oe *review.OptionError
 	switch {
 	case errors.As(err, &oe):

@@ -6,6 +6,8 @@ import (
 	"html/template"
 	"io"
 	"math"
+	"strconv"
+	"strings"
 	"time"
 
 	"lotwatch/spc"
@@ -27,7 +29,15 @@ const Stylesheet = `.lw-review{font-family:sans-serif;color:#222;max-width:60rem
 .lw-review .muted{color:#666}
 .lw-review .caution{border:1px solid #a04a2a;padding:.5rem;margin:1rem 0}
 .lw-review .lw-chart{max-width:100%;height:auto;display:block;margin:.3rem 0}
+.lw-review .lw-scroll{max-width:100%;overflow-x:auto}
+.lw-review table.lw-summary td,.lw-review table.lw-summary th{padding:.15rem .4rem}
+.lw-review table.lw-summary .verdict{font-weight:normal}
+.lw-review .rise{font-weight:bold}
+@media (max-width:40rem){.lw-review th,.lw-review td{padding:.15rem .25rem;font-size:.85rem}}
 @media print{
+.lw-summary-block{break-after:page;page-break-after:always}
+.lw-review table.lw-summary{font-size:8.5pt}
+.lw-review .lw-scroll{overflow:visible}
 .lw-review{max-width:none;font-size:10pt}
 .lw-review,.lw-review table,.lw-review .caution,.lw-review svg{max-width:100%;box-sizing:border-box}
 .lw-review h2,.lw-review h3{break-after:avoid;page-break-after:avoid}
@@ -61,34 +71,51 @@ var funcs = template.FuncMap{
 		return TrendSVG(pr.Process.Chart, pr.Trend, fmt.Sprintf("Weekly rate with %s intervals, %d weeks", pr.Method, len(pr.Trend)))
 	},
 	"caveat": func(m spc.IntervalMethod) string { return m.Caveat() },
+	"stamp":  func(t time.Time) string { return t.UTC().Format("2006-01-02 15:04 UTC") },
+	"adjp": func(c Change) string {
+		if !c.Compared {
+			return "—"
+		}
+		return strings.TrimPrefix(FormatP(c.AdjustedP), "p = ")
+	},
 }
 
 var fragmentTmpl = template.Must(template.New("fragment").Funcs(funcs).Parse(`<div class="lw-review">
 <h1>Weekly review {{.Week}}</h1>
-<p>Monday {{date .FirstDay}} to Sunday {{date .LastDay}}, each process on its own clocks. Intervals at {{level .Level}}: {{.Method}} for the fraction nonconforming, exact Poisson for defects per unit.</p>
+<p>Monday {{date .FirstDay}} to Sunday {{date .LastDay}}, each process on its own clocks. Intervals at {{level .Level}}: {{.Method}} for the fraction nonconforming, exact Poisson for defects per unit. <span class="muted">Generated at {{stamp .Generated}}.</span></p>
 {{with caveat .Method}}<p class="muted">{{.}}</p>{{end}}
 {{if not .Processes}}<p>No processes to review.</p>{{end}}
-{{range .Processes}}{{$p := .}}{{$ch := .Process.Chart}}{{$loc := .Process.Location}}
-<section class="lw-process">
+{{if .Processes}}<section class="lw-summary-block">
+<h2>Summary{{if .Filtered}} <span class="muted">({{len .Rows}} of {{len .Processes}} processes)</span>{{end}}</h2>
+<p>Processes asking most for attention first: a rise unlikely from sampling alone, lots outside their limits or run-rule signals with no cause recorded, a rise too close to call.</p>
+{{with .Chance.Sentence .FDR}}<p>{{.}}</p>{{end}}
+<div class="lw-scroll"><table class="lw-summary">
+<thead><tr><th scope="col">Process</th><th scope="col">Rate {{.Week}}</th><th scope="col">{{level .Level}} interval</th><th scope="col">Change</th><th scope="col">Verdict</th><th scope="col">Adjusted p</th><th scope="col">Outside limits</th><th scope="col">Signals</th></tr></thead>
+<tbody>{{range .Rows}}{{$ch := .Process.Chart}}<tr><td>{{with $.Link .}}<a href="{{.}}">{{end}}{{.Process.Name}}{{if $.Link .}}</a>{{end}}</td><td class="num">{{rate $ch .Current.Rate}}</td><td>{{if .Current.HasLots}}{{rate $ch .Current.Lower}} to {{rate $ch .Current.Upper}}{{else}}—{{end}}</td><td class="num">{{diff $ch .Change.Difference}}</td><td class="verdict{{if and .Change.StatesChange (gt .Change.Difference 0.0)}} rise{{end}}">{{.Change.VerdictText}}</td><td class="num">{{adjp .Change}}</td><td class="num">{{len .OutOfLimits}}{{with .UnexplainedOut}} ({{.}} no cause){{end}}</td><td class="num">{{len .Signals}}{{with .UnexplainedSignals}} ({{.}} no cause){{end}}</td></tr>
+{{end}}</tbody></table></div>
+{{if .Hidden}}<p class="muted">The details of {{.Hidden}} processes are not on this page: choose a process in the summary, or narrow the filter.</p>{{end}}
+</section>{{end}}
+{{range .Details}}{{$p := .}}{{$ch := .Process.Chart}}{{$loc := .Process.Location}}
+<section class="lw-process" id="p-{{.Process.ID}}">
 <h2>{{.Process.Name}} <span class="muted">({{$ch}} chart, {{.Process.TimeZone}})</span></h2>
-<table>
+<div class="lw-scroll"><table>
 <tr><th>Week</th><th>Lots</th><th>Inspected</th><th>{{unit $ch}}</th><th>Rate</th><th>{{level $.Level}} interval</th></tr>
-{{range (index $.Rows .)}}<tr><td>{{.Week}}</td><td class="num">{{.Lots}}</td><td class="num">{{.Inspected}}</td><td class="num">{{.Count}}</td><td class="num">{{rate $ch .Rate}}</td><td>{{if .HasLots}}{{rate $ch .Lower}} to {{rate $ch .Upper}}{{else}}no lots inspected{{end}}</td></tr>
-{{end}}</table>
-{{with .Change}}{{if .Compared}}<p>Change: {{diff $ch .Difference}} ({{level $.Level}} {{.Interval}} interval {{diff $ch .Lower}} to {{diff $ch .Upper}}; {{.Test}}, {{pval .PValue}}).</p>{{end}}
+{{range (index $.RowsOf .)}}<tr><td>{{.Week}}</td><td class="num">{{.Lots}}</td><td class="num">{{.Inspected}}</td><td class="num">{{.Count}}</td><td class="num">{{rate $ch .Rate}}</td><td>{{if .HasLots}}{{rate $ch .Lower}} to {{rate $ch .Upper}}{{else}}no lots inspected{{end}}</td></tr>
+{{end}}</table></div>
+{{with .Change}}{{if .Compared}}<p>Change: {{diff $ch .Difference}} ({{level $.Level}} {{.Interval}} interval {{diff $ch .Lower}} to {{diff $ch .Upper}}; {{.Test}}, {{pval .PValue}}{{if $.FDR}}{{else}}; adjusted across the review {{adjp .}}{{end}}).</p>{{end}}
 <p class="verdict">{{.VerdictText}}</p>{{end}}
 
 <h3>Lots outside their control limits</h3>
-{{if .OutOfLimits}}<table>
+{{if .OutOfLimits}}<div class="lw-scroll"><table>
 <tr><th>Lot</th><th>Time</th><th>{{unit $ch}} / inspected</th><th>Judged</th><th>Cause</th></tr>
 {{range .OutOfLimits}}<tr><td>{{.Lot.Lot}}</td><td>{{when .Lot.Time $loc}}</td><td class="num">{{.Lot.Count}} / {{.Lot.Inspected}}</td><td>{{if .Above}}above the upper limit {{plotted $ch .UCL}}{{else}}below the lower limit {{plotted $ch .LCL}}{{end}} ({{.Limits}})</td><td>{{status .Annotations}}{{range .Annotations}}<br>{{.Cause}}{{with .Action}}; action: {{.}}{{end}} <span class="muted">({{.By}}, {{if .Closed}}closed{{else}}open{{end}})</span>{{end}}</td></tr>
-{{end}}</table>{{else}}<p>None.</p>{{end}}
+{{end}}</table></div>{{else}}<p>None.</p>{{end}}
 
 <h3>Run-rule signals touching the week</h3>
-{{if .Signals}}<table>
+{{if .Signals}}<div class="lw-scroll"><table>
 <tr><th>Rule</th><th>What</th><th>Lots</th><th>Cause</th></tr>
 {{range .Signals}}<tr><td>{{.Rule}}</td><td>{{.Description}}</td><td>{{lots .Lots}}</td><td>{{status .Annotations}}{{range .Annotations}}<br>{{.Cause}}{{with .Action}}; action: {{.}}{{end}} <span class="muted">({{.By}}, {{if .Closed}}closed{{else}}open{{end}})</span>{{end}}</td></tr>
-{{end}}</table>{{else}}<p>None.</p>{{end}}
+{{end}}</table></div>{{else}}<p>None.</p>{{end}}
 
 <h3>Defect categories</h3>
 {{pareto .}}
@@ -129,18 +156,92 @@ var documentTmpl = template.Must(template.New("document").Parse(`<!DOCTYPE html>
 
 type fragmentData struct {
 	*Review
-	Rows    map[*ProcessReview][]WeekStat
-	Caution string
+	Rows     []*ProcessReview // summary rows, by concern
+	Details  []*ProcessReview // sections written, by concern
+	Filtered bool
+	Hidden   int // rows whose section is not written
+	RowsOf   map[*ProcessReview][]WeekStat
+	Caution  string
+	link     func(*ProcessReview) string
+}
+
+// Link is the address of a summary row's process: its section on the page,
+// or the View's DetailURL when its section is not written; "" for none.
+func (d fragmentData) Link(pr *ProcessReview) string {
+	if d.link == nil {
+		return ""
+	}
+	return d.link(pr)
+}
+
+// UnexplainedOut counts the lots outside their limits with no cause.
+func (pr *ProcessReview) UnexplainedOut() int {
+	n := 0
+	for _, o := range pr.OutOfLimits {
+		if len(o.Annotations) == 0 {
+			n++
+		}
+	}
+	return n
+}
+
+// UnexplainedSignals counts the run-rule signals with no cause.
+func (pr *ProcessReview) UnexplainedSignals() int {
+	n := 0
+	for _, s := range pr.Signals {
+		if len(s.Annotations) == 0 {
+			n++
+		}
+	}
+	return n
+}
+
+// View chooses what a page shows of the review. The zero View shows every
+// process, summary and sections, with no links (the mailed file).
+type View struct {
+	// Match keeps the processes the reader filtered for; nil keeps all.
+	Match func(*ProcessReview) bool
+	// MaxDetails writes the sections only when at most this many processes
+	// match; 0 means always. A plant-wide review is then a summary whose
+	// rows link to DetailURL.
+	MaxDetails int
+	// DetailURL is the address of one process's section on its own page;
+	// nil gives no links.
+	DetailURL func(*ProcessReview) string
 }
 
 // HTMLFragment renders the review as an HTML fragment (a div of class
 // lw-review) for a page with the server's own layout; style it with
 // Stylesheet. It holds no scripts, no style attributes and no references
 // to other resources; the charts are inline SVG.
-func (r *Review) HTMLFragment() (template.HTML, error) {
-	d := fragmentData{Review: r, Rows: map[*ProcessReview][]WeekStat{}, Caution: "Caution: " + Caution}
-	for _, pr := range r.Processes {
-		d.Rows[pr] = []WeekStat{pr.Current, pr.Previous}
+func (r *Review) HTMLFragment() (template.HTML, error) { return r.HTMLView(View{}) }
+
+// HTMLView renders the review as HTMLFragment does, showing what v
+// chooses: the summary first, sorted by concern, then the sections.
+func (r *Review) HTMLView(v View) (template.HTML, error) {
+	d := fragmentData{Review: r, RowsOf: map[*ProcessReview][]WeekStat{}, Caution: "Caution: " + Caution}
+	for _, pr := range r.ByConcern() {
+		if v.Match == nil || v.Match(pr) {
+			d.Rows = append(d.Rows, pr)
+		}
+	}
+	d.Filtered = len(d.Rows) < len(r.Processes)
+	d.Details = d.Rows
+	if v.MaxDetails > 0 && len(d.Rows) > v.MaxDetails {
+		d.Details, d.Hidden = nil, len(d.Rows)
+	}
+	shown := map[*ProcessReview]bool{}
+	for _, pr := range d.Details {
+		shown[pr] = true
+		d.RowsOf[pr] = []WeekStat{pr.Current, pr.Previous}
+	}
+	if v.DetailURL != nil {
+		d.link = func(pr *ProcessReview) string {
+			if shown[pr] {
+				return "#p-" + strconv.FormatInt(pr.Process.ID, 10)
+			}
+			return v.DetailURL(pr)
+		}
 	}
 	var b bytes.Buffer
 	if err := fragmentTmpl.Execute(&b, d); err != nil {

@@ -101,10 +101,24 @@ func (r *Review) WriteText(w io.Writer) error {
 	if c := r.Method.Caveat(); c != "" {
 		fmt.Fprintf(b, "Note: %s\n", c)
 	}
+	fmt.Fprintf(b, "Generated at %s.\n", r.Generated.UTC().Format("2006-01-02 15:04 UTC"))
 	if len(r.Processes) == 0 {
 		b.WriteString("\nNo processes to review.\n")
 	}
-	for _, pr := range r.Processes {
+	byConcern := r.ByConcern()
+	if len(byConcern) > 0 {
+		b.WriteString("\nSummary (processes asking most for attention first):\n")
+		if s := r.Chance.Sentence(r.FDR); s != "" {
+			fmt.Fprintf(b, "%s\n", s)
+		}
+		for _, pr := range byConcern {
+			ch := pr.Process.Chart
+			fmt.Fprintf(b, "  %s: rate %s, change %s, %s; %d outside limits (%d no cause), %d signals (%d no cause)\n",
+				pr.Process.Name, FormatRate(ch, pr.Current.Rate), formatDiff(ch, pr.Change.Difference), pr.Change.VerdictText(),
+				len(pr.OutOfLimits), pr.UnexplainedOut(), len(pr.Signals), pr.UnexplainedSignals())
+		}
+	}
+	for _, pr := range byConcern {
 		pr.writeText(b, r)
 	}
 	fmt.Fprintf(b, "\nCaution: %s\n", Caution)
@@ -125,8 +139,9 @@ func (pr *ProcessReview) writeText(b *bufio.Writer, r *Review) {
 	}
 	c := pr.Change
 	if c.Compared {
-		fmt.Fprintf(b, "Change: %s (%s %s interval %s to %s; %s %s)\n", formatDiff(ch, c.Difference),
-			levelPercent(r.Level), c.Interval, formatDiff(ch, c.Lower), formatDiff(ch, c.Upper), c.Test, FormatP(c.PValue))
+		fmt.Fprintf(b, "Change: %s (%s %s interval %s to %s; %s %s; adjusted across the review %s)\n", formatDiff(ch, c.Difference),
+			levelPercent(r.Level), c.Interval, formatDiff(ch, c.Lower), formatDiff(ch, c.Upper), c.Test, FormatP(c.PValue),
+			strings.TrimPrefix(FormatP(c.AdjustedP), "p "))
 	}
 	fmt.Fprintf(b, "Verdict: %s\n", c.VerdictText())
 
@@ -239,15 +254,24 @@ func (f NullFloat) MarshalJSON() ([]byte, error) {
 }
 
 type jsonReview struct {
-	Week       string        `json:"week"`
-	From       string        `json:"from"`
-	To         string        `json:"to"`
-	Method     string        `json:"method"`
-	Level      float64       `json:"level"`
-	TrendWeeks int           `json:"trend_weeks"`
-	Generated  string        `json:"generated"`
-	Processes  []jsonProcess `json:"processes"`
-	Caution    string        `json:"caution"`
+	Week       string  `json:"week"`
+	From       string  `json:"from"`
+	To         string  `json:"to"`
+	Method     string  `json:"method"`
+	Level      float64 `json:"level"`
+	TrendWeeks int     `json:"trend_weeks"`
+	Generated  string  `json:"generated"`
+	FDR        bool    `json:"fdr"`
+	Chance     struct {
+		Compared int     `json:"compared"`
+		Alpha    float64 `json:"alpha"`
+		Expected float64 `json:"expected_by_chance"`
+		Stated   int     `json:"stated"`
+		AfterFDR int     `json:"stated_after_fdr"`
+		Sentence string  `json:"sentence"`
+	} `json:"multiplicity"`
+	Processes []jsonProcess `json:"processes"`
+	Caution   string        `json:"caution"`
 }
 
 type jsonProcess struct {
@@ -269,6 +293,7 @@ type jsonProcess struct {
 		Lower      NullFloat `json:"lower"`
 		Upper      NullFloat `json:"upper"`
 		PValue     NullFloat `json:"p_value"`
+		AdjustedP  NullFloat `json:"adjusted_p_value"`
 		Verdict    string    `json:"verdict"`
 		Detail     string    `json:"detail,omitempty"`
 		Interval   string    `json:"interval"`
@@ -379,7 +404,10 @@ func stamp(t time.Time, loc *time.Location) string {
 func (r *Review) jsonValue() jsonReview {
 	out := jsonReview{Week: r.Week, From: r.FirstDay.Format(dateOnly), To: r.LastDay.Format(dateOnly),
 		Method: string(r.Method), Level: r.Level, TrendWeeks: r.TrendWeeks, Generated: r.Generated.UTC().Format(time.RFC3339),
-		Processes: make([]jsonProcess, 0, len(r.Processes)), Caution: Caution}
+		Processes: make([]jsonProcess, 0, len(r.Processes)), Caution: Caution, FDR: r.FDR}
+	m := r.Chance
+	out.Chance.Compared, out.Chance.Alpha, out.Chance.Expected = m.Compared, m.Alpha, m.Expected
+	out.Chance.Stated, out.Chance.AfterFDR, out.Chance.Sentence = m.Stated, m.AfterFDR, m.Sentence(r.FDR)
 	for _, pr := range r.Processes {
 		loc := pr.Process.Location()
 		cur := pr.Current
@@ -392,6 +420,7 @@ func (r *Review) jsonValue() jsonReview {
 			Warnings: []jsonWarning{}, Notes: append([]string{}, pr.Notes...)}
 		c := pr.Change
 		j.Change.Difference, j.Change.Lower, j.Change.Upper, j.Change.PValue = NullFloat(c.Difference), NullFloat(c.Lower), NullFloat(c.Upper), NullFloat(c.PValue)
+		j.Change.AdjustedP = NullFloat(c.AdjustedP)
 		j.Change.Verdict, j.Change.Detail, j.Change.Interval, j.Change.Test = c.Verdict, c.Detail, c.Interval, c.Test
 		lotCode := map[int64]string{}
 		for _, o := range pr.OutOfLimits {
@@ -444,7 +473,8 @@ func (r *Review) WriteJSON(w io.Writer) error {
 // CSVHeader is the header row of WriteCSV.
 var CSVHeader = []string{"week", "process", "chart", "method", "level", "lots", "inspected", "count", "rate", "lower", "upper",
 	"previous_week", "previous_lots", "previous_inspected", "previous_count", "previous_rate", "previous_lower", "previous_upper",
-	"difference", "difference_lower", "difference_upper", "p_value", "verdict", "out_of_limits", "signals", "top_category"}
+	"difference", "difference_lower", "difference_upper", "p_value", "verdict", "out_of_limits", "signals", "top_category",
+	"adjusted_p_value"}
 
 // WriteCSV writes one row per process under CSVHeader: rates as
 // fractions, empty where a week has no lots.
@@ -471,7 +501,7 @@ func (r *Review) WriteCSV(w io.Writer) error {
 			strconv.Itoa(cur.Lots), strconv.FormatInt(cur.Inspected, 10), strconv.FormatInt(cur.Count, 10), num(cur.Rate), num(cur.Lower), num(cur.Upper),
 			prev.Week, strconv.Itoa(prev.Lots), strconv.FormatInt(prev.Inspected, 10), strconv.FormatInt(prev.Count, 10), num(prev.Rate), num(prev.Lower), num(prev.Upper),
 			num(c.Difference), num(c.Lower), num(c.Upper), num(c.PValue), c.Verdict,
-			strconv.Itoa(len(pr.OutOfLimits)), strconv.Itoa(len(pr.Signals)), lotcsv.Neutralise(top)}
+			strconv.Itoa(len(pr.OutOfLimits)), strconv.Itoa(len(pr.Signals)), lotcsv.Neutralise(top), num(c.AdjustedP)}
 		if err := cw.Write(row); err != nil {
 			return err
 		}

@@ -721,3 +721,56 @@ const Caution = "The intervals describe sampling variation only: they do not all
 	"from how lots were sampled or inspected. A stable rate is no proof that the product " +
 	"meets its specification. This review does not replace the plant's release or acceptance " +
 	"procedure; defer to the quality system, customer requirements and local regulations."
+
+// Unexplained counts the week's lots outside their limits and run-rule
+// signals with no cause recorded.
+func (pr *ProcessReview) Unexplained() int { return pr.UnexplainedOut() + pr.UnexplainedSignals() }
+
+// concern ranks how much a process's review asks for attention, larger
+// first: a stated rise, then lots outside their limits or signals with no
+// cause recorded, then a rise too close to call, then a stated fall.
+func (pr *ProcessReview) concern() int {
+	c := pr.Change
+	rank := 0
+	if c.StatesChange() && c.Difference > 0 {
+		rank += 8
+	}
+	if pr.Unexplained() > 0 {
+		rank += 4
+	}
+	if c.Compared && !c.StatesChange() && c.Difference > 0 && strings.HasPrefix(c.Verdict, "too close") {
+		rank += 2
+	}
+	if c.StatesChange() && c.Difference < 0 {
+		rank++
+	}
+	return rank
+}
+
+// ByConcern returns the processes of the review, those asking most for
+// attention first (a stated rise, unexplained lots outside their limits or
+// signals, a rise too close to call, a stated fall), then by the number of
+// unexplained lots and signals, the p-value of the change, and the name.
+func (r *Review) ByConcern() []*ProcessReview {
+	out := append([]*ProcessReview(nil), r.Processes...)
+	p := func(pr *ProcessReview) float64 {
+		if !pr.Change.Compared {
+			return 2
+		}
+		return pr.Change.PValue
+	}
+	sort.SliceStable(out, func(i, j int) bool {
+		a, b := out[i], out[j]
+		if ca, cb := a.concern(), b.concern(); ca != cb {
+			return ca > cb
+		}
+		if ua, ub := a.Unexplained(), b.Unexplained(); ua != ub {
+			return ua > ub
+		}
+		if pa, pb := p(a), p(b); pa != pb {
+			return pa < pb
+		}
+		return a.Process.Name < b.Process.Name
+	})
+	return out
+}
