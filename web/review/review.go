@@ -15,9 +15,11 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"runtime"
 	"sort"
 	"strconv"
 	"strings"
+	"sync"
 	"time"
 
 	"lotwatch/spc"
@@ -277,12 +279,28 @@ func Build(ctx context.Context, src Source, opt Options) (*Review, error) {
 		FirstDay: first, LastDay: first.AddDate(0, 0, 6),
 		Method: method, Level: level, TrendWeeks: weeks, Generated: now,
 	}
-	for _, p := range procs {
-		pr, err := buildProcess(ctx, src, p, year, week, method, level, weeks)
+	// The processes are reviewed side by side, one worker per processor:
+	// each reads and judges its own record.
+	r.Processes = make([]*ProcessReview, len(procs))
+	errs := make([]error, len(procs))
+	next := make(chan int)
+	var wg sync.WaitGroup
+	for range min(runtime.GOMAXPROCS(0), len(procs)) {
+		wg.Go(func() {
+			for i := range next {
+				r.Processes[i], errs[i] = buildProcess(ctx, src, procs[i], year, week, method, level, weeks)
+			}
+		})
+	}
+	for i := range procs {
+		next <- i
+	}
+	close(next)
+	wg.Wait()
+	for i, err := range errs {
 		if err != nil {
-			return nil, fmt.Errorf("review of process %q: %w", p.Name, err)
+			return nil, fmt.Errorf("review of process %q: %w", procs[i].Name, err)
 		}
-		r.Processes = append(r.Processes, pr)
 	}
 	r.adjust(opt.FDR)
 	return r, nil
@@ -395,13 +413,13 @@ func buildProcess(ctx context.Context, src Source, p store.Process, year, week i
 
 	// The weeks of the trend, oldest first; the last is the reviewed one.
 	pr.Trend = make([]WeekStat, nweeks)
-	index := make(map[string]int, nweeks)
+	index := make(map[[2]int]int, nweeks) // (ISO year, week) → position
 	y, w := year, week
 	for i := nweeks - 1; i >= 0; i-- {
 		st := &pr.Trend[i]
 		st.Week = spc.FormatISOWeek(y, w)
 		st.Start, st.End = spc.ISOWeekRange(y, w, loc)
-		index[st.Week] = i
+		index[[2]int{y, w}] = i
 		y, w = spc.PreviousISOWeek(y, w)
 	}
 	// Every lot of the record is read: the lots are judged on the whole
@@ -427,7 +445,8 @@ func buildProcess(ctx context.Context, src Source, p store.Process, year, week i
 	categories := map[string]int64{}
 	var categorized int64
 	for i, l := range lots {
-		j, ok := index[spc.FormatISOWeek(spc.ISOWeekOf(l.Time, loc))]
+		ly, lw := spc.ISOWeekOf(l.Time, loc)
+		j, ok := index[[2]int{ly, lw}]
 		if !ok {
 			continue // outside the trend's weeks
 		}
