@@ -174,12 +174,18 @@ func (db *DB) LimitSets(ctx context.Context, processID int64) ([]LimitSet, error
 }
 
 // Annotation records an assignable cause and the corrective action, on a
-// lot or on a signal (Rule) of the chart; open until closed.
+// lot or on a signal (Rule) of the chart; open until closed. With
+// NoCauseFound it records instead that the lot or signal was investigated
+// and no assignable cause was found, Reason saying why (common-cause
+// noise is a finding too); such an annotation is closed when recorded and
+// has no Cause.
 type Annotation struct {
 	ID, ProcessID int64
 	LotID         int64  // 0 if on a signal only
 	Rule          string // signal rule or ""
 	Cause, Action string
+	NoCauseFound  bool
+	Reason        string // why no cause was found; "" for a cause
 	Closed        bool
 	By            string
 	At            time.Time
@@ -192,6 +198,7 @@ type Annotations interface {
 	AddAnnotation(ctx context.Context, actor string, a Annotation) (Annotation, error)
 	CloseAnnotation(ctx context.Context, actor string, id int64, action string) error
 	Annotations(ctx context.Context, processID int64) ([]Annotation, error)
+	AllAnnotations(ctx context.Context) ([]Annotation, error)
 }
 
 type annotationAudit struct {
@@ -201,18 +208,20 @@ type annotationAudit struct {
 	Cause     string `json:"cause"`
 	Action    string `json:"action"`
 	Closed    bool   `json:"closed"`
+	NoCause   bool   `json:"no_cause_found,omitempty"`
+	Reason    string `json:"reason,omitempty"`
 }
 
 // AddAnnotation stores an annotation; Cause is required, LotID (if set)
 // must be a lot of the process. An annotation added with Closed set is
-// closed by the actor at once.
+// closed by the actor at once. With NoCauseFound, Reason is required
+// instead of Cause (which must then be empty) and the annotation is
+// closed at once.
 func (db *DB) AddAnnotation(ctx context.Context, actor string, a Annotation) (Annotation, error) {
-	var ps []Problem
-	if strings.TrimSpace(a.Cause) == "" {
-		ps = append(ps, Problem{Field: "cause", Reason: "is empty"})
+	ps := checkAnnotationText(a)
+	if a.NoCauseFound {
+		a.Closed = true
 	}
-	ps = append(ps, checkText("cause", a.Cause, 4000, false)...)
-	ps = append(ps, checkText("action", a.Action, 4000, false)...)
 	ps = append(ps, checkText("rule", a.Rule, 100, true)...)
 	if a.LotID == 0 && a.Rule == "" {
 		ps = append(ps, Problem{Field: "lot", Reason: "is not given: an annotation is on a lot or on a signal"})
@@ -240,18 +249,37 @@ func (db *DB) AddAnnotation(ctx context.Context, actor string, a Annotation) (An
 		if a.Closed {
 			a.ClosedBy, a.ClosedAt, closedAt = actor, a.At, w.now.UnixNano()
 		}
-		res, err := w.Exec(`INSERT INTO annotations (process_id, lot_id, rule, cause, action, closed, by, at, closed_by, closed_at) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
-			a.ProcessID, lotID, a.Rule, a.Cause, a.Action, a.Closed, actor, w.now.UnixNano(), a.ClosedBy, closedAt)
+		res, err := w.Exec(`INSERT INTO annotations (process_id, lot_id, rule, cause, action, closed, by, at, closed_by, closed_at, no_cause, reason) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
+			a.ProcessID, lotID, a.Rule, a.Cause, a.Action, a.Closed, actor, w.now.UnixNano(), a.ClosedBy, closedAt, a.NoCauseFound, a.Reason)
 		if err != nil {
 			return err
 		}
 		a.ID, _ = res.LastInsertId()
-		return w.audit(actor, "add", "annotation", a.ID, a.ID, nil, annotationAudit{a.ProcessID, a.LotID, a.Rule, a.Cause, a.Action, a.Closed}, "")
+		return w.audit(actor, "add", "annotation", a.ID, a.ID, nil, annotationAudit{a.ProcessID, a.LotID, a.Rule, a.Cause, a.Action, a.Closed, a.NoCauseFound, a.Reason}, "")
 	})
 	if err != nil {
 		return Annotation{}, err
 	}
 	return a, nil
+}
+
+// checkAnnotationText checks the text fields of an annotation: a cause,
+// or with NoCauseFound a reason and no cause.
+func checkAnnotationText(a Annotation) []Problem {
+	var ps []Problem
+	switch {
+	case a.NoCauseFound && strings.TrimSpace(a.Reason) == "":
+		ps = append(ps, Problem{Field: "reason", Reason: "is empty: say why no assignable cause was found (what was checked)"})
+	case a.NoCauseFound && a.Cause != "":
+		ps = append(ps, Problem{Field: "cause", Value: a.Cause, Reason: "is given although no assignable cause was found: record one or the other"})
+	case !a.NoCauseFound && strings.TrimSpace(a.Cause) == "":
+		ps = append(ps, Problem{Field: "cause", Reason: "is empty"})
+	case !a.NoCauseFound && a.Reason != "":
+		ps = append(ps, Problem{Field: "reason", Value: a.Reason, Reason: "is only for \"no assignable cause found\""})
+	}
+	ps = append(ps, checkText("cause", a.Cause, 4000, false)...)
+	ps = append(ps, checkText("reason", a.Reason, 4000, false)...)
+	return append(ps, checkText("action", a.Action, 4000, false)...)
 }
 
 // CloseAnnotation closes an open annotation; a non-empty action replaces
@@ -263,8 +291,8 @@ func (db *DB) CloseAnnotation(ctx context.Context, actor string, id int64, actio
 	return db.write(ctx, func(w *wtx) error {
 		var old annotationAudit
 		var lotID sql.NullInt64
-		err := w.QueryRow("SELECT process_id, lot_id, rule, cause, action, closed FROM annotations WHERE id = ?", id).
-			Scan(&old.ProcessID, &lotID, &old.Rule, &old.Cause, &old.Action, &old.Closed)
+		err := w.QueryRow("SELECT process_id, lot_id, rule, cause, action, closed, no_cause, reason FROM annotations WHERE id = ?", id).
+			Scan(&old.ProcessID, &lotID, &old.Rule, &old.Cause, &old.Action, &old.Closed, &old.NoCause, &old.Reason)
 		if errors.Is(err, sql.ErrNoRows) {
 			return fmt.Errorf("annotation %d: %w", id, ErrNotFound)
 		}
@@ -289,8 +317,18 @@ func (db *DB) CloseAnnotation(ctx context.Context, actor string, id int64, actio
 
 // Annotations lists the annotations of a process, oldest first.
 func (db *DB) Annotations(ctx context.Context, processID int64) ([]Annotation, error) {
-	rows, err := db.r.QueryContext(ctx, `SELECT id, process_id, lot_id, rule, cause, action, closed, by, at, closed_by, closed_at
-		FROM annotations WHERE process_id = ? ORDER BY at, id`, processID)
+	return db.annotations(ctx, "WHERE process_id = ?", processID)
+}
+
+// AllAnnotations lists the annotations of every process, oldest first:
+// one read for a view across the plant.
+func (db *DB) AllAnnotations(ctx context.Context) ([]Annotation, error) {
+	return db.annotations(ctx, "")
+}
+
+func (db *DB) annotations(ctx context.Context, where string, args ...any) ([]Annotation, error) {
+	rows, err := db.r.QueryContext(ctx, `SELECT id, process_id, lot_id, rule, cause, action, closed, by, at, closed_by, closed_at, no_cause, reason
+		FROM annotations `+where+` ORDER BY at, id`, args...)
 	if err != nil {
 		return nil, err
 	}
@@ -300,7 +338,7 @@ func (db *DB) Annotations(ctx context.Context, processID int64) ([]Annotation, e
 		var a Annotation
 		var lotID sql.NullInt64
 		var at, closedAt int64
-		if err := rows.Scan(&a.ID, &a.ProcessID, &lotID, &a.Rule, &a.Cause, &a.Action, &a.Closed, &a.By, &at, &a.ClosedBy, &closedAt); err != nil {
+		if err := rows.Scan(&a.ID, &a.ProcessID, &lotID, &a.Rule, &a.Cause, &a.Action, &a.Closed, &a.By, &at, &a.ClosedBy, &closedAt, &a.NoCauseFound, &a.Reason); err != nil {
 			return nil, err
 		}
 		a.LotID = lotID.Int64

@@ -459,3 +459,61 @@ func TestAddLotsRetryWithoutTime(t *testing.T) {
 		t.Errorf("same code, other count: %v, want a conflict", err)
 	}
 }
+
+// TestNoCauseFound: "no assignable cause found" is stored as a closed
+// finding with its reason, refused without one or beside a cause, and
+// kept in the audit trail so that the check of the data rows passes.
+func TestNoCauseFound(t *testing.T) {
+	db, _ := openTemp(t)
+	p := addProcess(t, db, "press", spc.ChartP)
+	t0 := time.Date(2025, 3, 1, 0, 0, 0, 0, time.UTC)
+	lots, err := db.AddLots(ctx, "insp", p.ID, []LotInput{{Lot: "A1", Time: t0, Inspected: 10, Count: 1}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	bad := []struct {
+		name  string
+		a     Annotation
+		field string
+	}{
+		{"no reason", Annotation{NoCauseFound: true}, "reason"},
+		{"blank reason", Annotation{NoCauseFound: true, Reason: "  "}, "reason"},
+		{"cause and no cause", Annotation{NoCauseFound: true, Reason: "noise", Cause: "worn punch"}, "cause"},
+		{"reason without no cause", Annotation{Cause: "worn punch", Reason: "noise"}, "reason"},
+		{"reason with NUL", Annotation{NoCauseFound: true, Reason: "a\x00b"}, "reason"},
+	}
+	for _, c := range bad {
+		c.a.ProcessID, c.a.LotID = p.ID, lots[0].ID
+		_, err := db.AddAnnotation(ctx, "eng", c.a)
+		var ve *ValidationError
+		if !errors.As(err, &ve) || ve.Problems[0].Field != c.field {
+			t.Errorf("%s: %v, want a problem with %s", c.name, err, c.field)
+		}
+	}
+	a, err := db.AddAnnotation(ctx, "eng", Annotation{ProcessID: p.ID, LotID: lots[0].ID, NoCauseFound: true, Reason: "gauge, material and operator checked"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !a.Closed || a.ClosedBy != "eng" {
+		t.Errorf("no-cause finding not closed when recorded: %+v", a)
+	}
+	as, err := db.Annotations(ctx, p.ID)
+	if err != nil || len(as) != 1 || !as[0].NoCauseFound || as[0].Reason != "gauge, material and operator checked" || !as[0].Closed {
+		t.Errorf("stored %+v %v", as, err)
+	}
+	all, err := db.AllAnnotations(ctx)
+	if err != nil || len(all) != 1 || all[0].ID != a.ID {
+		t.Errorf("all annotations %+v %v", all, err)
+	}
+	if err := db.CloseAnnotation(ctx, "eng", a.ID, ""); !errors.Is(err, ErrInvalid) {
+		t.Errorf("closing a finding again: %v", err)
+	}
+	chk, err := db.VerifyAudit(ctx)
+	if err != nil || !chk.OK {
+		t.Errorf("audit: %+v %v", chk, err)
+	}
+	entries, err := db.AuditFor(ctx, "annotation", a.ID)
+	if err != nil || len(entries) != 1 || !strings.Contains(entries[0].New, `"no_cause_found":true`) {
+		t.Errorf("audit entry %+v %v", entries, err)
+	}
+}

@@ -332,7 +332,7 @@ func (d *dataTrail) checkLimitSets(ctx context.Context, tx *sql.Tx, procs map[in
 }
 
 func (d *dataTrail) checkAnnotations(ctx context.Context, tx *sql.Tx, procs map[int64]procInfo) (*rowBreak, error) {
-	rows, err := tx.QueryContext(ctx, `SELECT id, process_id, lot_id, rule, cause, action, closed, by, at, closed_by, closed_at FROM annotations ORDER BY id`)
+	rows, err := tx.QueryContext(ctx, `SELECT id, process_id, lot_id, rule, cause, action, closed, by, at, closed_by, closed_at, no_cause, reason FROM annotations ORDER BY id`)
 	if err != nil {
 		return nil, err
 	}
@@ -343,7 +343,7 @@ func (d *dataTrail) checkAnnotations(ctx context.Context, tx *sql.Tx, procs map[
 		var id, at, closedAt int64
 		var lotID sql.NullInt64
 		var by, closedBy string
-		if err := rows.Scan(&id, &a.ProcessID, &lotID, &a.Rule, &a.Cause, &a.Action, &a.Closed, &by, &at, &closedBy, &closedAt); err != nil {
+		if err := rows.Scan(&id, &a.ProcessID, &lotID, &a.Rule, &a.Cause, &a.Action, &a.Closed, &by, &at, &closedBy, &closedAt, &a.NoCause, &a.Reason); err != nil {
 			return nil, err
 		}
 		a.LotID = lotID.Int64
