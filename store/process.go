@@ -31,8 +31,12 @@ type Process struct {
 	Rules      string
 	Categories []string // defect categories, in display order
 	TimeZone   string   // IANA, e.g. "Europe/Berlin"
-	Active     bool     // false once retired
-	Created    time.Time
+	// Area is the plant's area or line the process belongs to ("Press
+	// shop", "Line 4"): a label for finding a process among many; "" when
+	// none.
+	Area    string
+	Active  bool // false once retired
+	Created time.Time
 }
 
 var locCache sync.Map // zone name → *time.Location
@@ -124,6 +128,7 @@ func normalizeProcess(p *Process) []Problem {
 	}
 	ps = append(ps, checkText("name", p.Name, 100, true)...)
 	ps = append(ps, checkText("description", p.Description, 4000, false)...)
+	ps = append(ps, checkText("area", p.Area, 100, true)...)
 	if _, err := spc.ParseChart(string(p.Chart)); err != nil {
 		ps = append(ps, Problem{Field: "chart", Value: string(p.Chart), Reason: "is not p, np, u or c"})
 	}
@@ -184,10 +189,11 @@ type processAudit struct {
 	Categories  []string  `json:"categories"`
 	TimeZone    string    `json:"time_zone"`
 	Active      bool      `json:"active"`
+	Area        string    `json:"area,omitempty"`
 }
 
 func auditProcess(p Process) processAudit {
-	return processAudit{p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active}
+	return processAudit{p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Area}
 }
 
 // AddProcess creates an active process. Defaults: limits sigma, k 3,
@@ -222,8 +228,8 @@ func errRetired(p Process) error {
 func (w *wtx) addProcess(actor string, p Process) (Process, error) {
 	cats, _ := json.Marshal(p.Categories)
 	p.Created = w.now.UTC()
-	res, err := w.Exec(`INSERT INTO processes (name, description, chart, method, k, rules, categories, time_zone, active, created)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`, p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, w.now.UnixNano())
+	res, err := w.Exec(`INSERT INTO processes (name, description, chart, method, k, rules, categories, time_zone, active, created, area)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`, p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, w.now.UnixNano(), p.Area)
 	if isUnique(err) {
 		return p, fmt.Errorf("process %q already exists: %w", p.Name, ErrConflict)
 	}
@@ -270,8 +276,8 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 			}
 		}
 		cats, _ := json.Marshal(p.Categories)
-		_, err = w.Exec(`UPDATE processes SET name = ?, description = ?, chart = ?, method = ?, k = ?, rules = ?, categories = ?, time_zone = ?, active = ? WHERE id = ?`,
-			p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, p.ID)
+		_, err = w.Exec(`UPDATE processes SET name = ?, description = ?, chart = ?, method = ?, k = ?, rules = ?, categories = ?, time_zone = ?, active = ?, area = ? WHERE id = ?`,
+			p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, p.Area, p.ID)
 		if isUnique(err) {
 			return fmt.Errorf("process %q already exists: %w", p.Name, ErrConflict)
 		}
@@ -289,7 +295,7 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 	return p, nil
 }
 
-const processCols = "id, name, description, chart, method, k, rules, categories, time_zone, active, created"
+const processCols = "id, name, description, chart, method, k, rules, categories, time_zone, active, created, area"
 
 type queryer interface {
 	QueryRow(query string, args ...any) *sql.Row
@@ -299,7 +305,7 @@ func scanProcess(s interface{ Scan(...any) error }) (Process, error) {
 	var p Process
 	var cats string
 	var created int64
-	if err := s.Scan(&p.ID, &p.Name, &p.Description, &p.Chart, &p.Method, &p.K, &p.Rules, &cats, &p.TimeZone, &p.Active, &created); err != nil {
+	if err := s.Scan(&p.ID, &p.Name, &p.Description, &p.Chart, &p.Method, &p.K, &p.Rules, &cats, &p.TimeZone, &p.Active, &created, &p.Area); err != nil {
 		return Process{}, err
 	}
 	if err := json.Unmarshal([]byte(cats), &p.Categories); err != nil {

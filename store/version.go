@@ -40,3 +40,23 @@ func (w *wtx) bumpVersion(processID int64, rewrite bool) error {
 	_, err := w.db.execIn(w.Tx, qBumpVersion, processID, r)
 	return err
 }
+
+// AllLotsVersions returns the change counter of every process that has
+// one (a process absent from the map has had no write yet: zero).
+func (db *DB) AllLotsVersions(ctx context.Context) (map[int64]LotsVersion, error) {
+	rows, err := db.r.QueryContext(ctx, "SELECT process_id, version, rewrites FROM lot_versions")
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	out := map[int64]LotsVersion{}
+	for rows.Next() {
+		var id int64
+		var v LotsVersion
+		if err := rows.Scan(&id, &v.Version, &v.Rewrites); err != nil {
+			return nil, err
+		}
+		out[id] = v
+	}
+	return out, rows.Err()
+}

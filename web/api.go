@@ -89,6 +89,9 @@ type annotationJSON struct {
 	At       string `json:"at"`
 	ClosedBy string `json:"closed_by,omitempty"`
 	ClosedAt string `json:"closed_at,omitempty"`
+	// NoCauseFound and Reason: investigated, no assignable cause found.
+	NoCauseFound bool   `json:"no_cause_found,omitempty"`
+	Reason       string `json:"reason,omitempty"`
 }
 
 type signalJSON struct {
@@ -407,7 +410,8 @@ func (pc *processChart) signals(win window, anns []store.Annotation) []signalJSO
 
 func toAnnotationJSON(a store.Annotation, codeOf map[int64]string, loc *time.Location) annotationJSON {
 	out := annotationJSON{ID: a.ID, LotID: a.LotID, Lot: codeOf[a.LotID], Rule: a.Rule, Cause: a.Cause,
-		Action: a.Action, Closed: a.Closed, By: a.By, At: a.At.In(loc).Format(time.RFC3339), ClosedBy: a.ClosedBy}
+		Action: a.Action, Closed: a.Closed, By: a.By, At: a.At.In(loc).Format(time.RFC3339), ClosedBy: a.ClosedBy,
+		NoCauseFound: a.NoCauseFound, Reason: a.Reason}
 	if !a.ClosedAt.IsZero() {
 		out.ClosedAt = a.ClosedAt.In(loc).Format(time.RFC3339)
 	}

@@ -261,6 +261,9 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 					state = "closed"
 				}
 				note := "cause (" + state + "): " + an.Cause
+				if an.NoCauseFound {
+					note = "no assignable cause found: " + an.Reason
+				}
 				if by != byLot {
 					note = pc.lots[i].Lot + " " + note
 				}

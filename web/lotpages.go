@@ -433,15 +433,20 @@ func (s *Server) postCause(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	vals := map[string]string{"cause": r.PostFormValue("cause"), "action": r.PostFormValue("action"),
-		"rule": r.PostFormValue("rule"), "closed": r.PostFormValue("closed")}
+		"rule": r.PostFormValue("rule"), "closed": r.PostFormValue("closed"), "reason": r.PostFormValue("reason")}
 	a := store.Annotation{ProcessID: p.ID, LotID: l.ID, Rule: vals["rule"], Cause: strings.TrimSpace(vals["cause"]),
-		Action: strings.TrimSpace(vals["action"]), Closed: vals["closed"] == "1"}
+		Action: strings.TrimSpace(vals["action"]), Closed: vals["closed"] == "1",
+		NoCauseFound: r.PostFormValue("no_cause") == "1", Reason: strings.TrimSpace(vals["reason"])}
 	if _, err := s.db.AddAnnotation(r.Context(), who(r).user.Name, a); err != nil {
 		if errors.Is(err, store.ErrInvalid) {
 			s.showLot(w, r, http.StatusBadRequest, "The cause was not recorded: "+err.Error(), vals, nil)
 			return
 		}
 		s.internalError(w, r, err)
+		return
+	}
+	if back := r.PostFormValue("back"); isWorklistPath(back) {
+		http.Redirect(w, r, back, http.StatusSeeOther)
 		return
 	}
 	http.Redirect(w, r, "/lots/"+formatID(l.ID)+"?done=cause#causes", http.StatusSeeOther)

@@ -81,6 +81,8 @@ func (s *Server) routes() []route {
 		{"POST", "/api/v1/processes/{id}/lots", store.RoleInspector, s.apiPostLots},
 		{"GET", "/api/v1/processes/{id}/signals", store.RoleViewer, s.apiSignals},
 		{"GET", "/api/v1/processes/{id}/limits", store.RoleViewer, s.apiLimitSets},
+		{"POST", "/api/v1/processes/{id}/lots/{lot}/causes", store.RoleInspector, s.apiPostCause},
+		{"GET", "/api/v1/attention", store.RoleViewer, s.apiAttention},
 		{"GET", "/api/v1/users", store.RoleAdmin, s.apiUsers},
 	}
 }

@@ -41,18 +41,19 @@ type Config struct {
 
 // Server is the lotwatch web server.
 type Server struct {
-	db      *store.DB
-	addr    string
-	cert    string
-	key     string
-	secure  bool
-	log     *slog.Logger
-	now     func() time.Time
-	limiter *attemptLimiter
-	pages   *pageSet
-	judges  judgeGroup
-	uploads uploads
-	handler http.Handler
+	db        *store.DB
+	addr      string
+	cert      string
+	key       string
+	secure    bool
+	log       *slog.Logger
+	now       func() time.Time
+	limiter   *attemptLimiter
+	pages     *pageSet
+	judges    judgeGroup
+	summaries summaryCache
+	uploads   uploads
+	handler   http.Handler
 }
 
 // NewServer checks the configuration and builds the server.

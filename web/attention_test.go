@@ -1,0 +1,138 @@
+package web
+
+import (
+	"context"
+	"net/http"
+	"net/url"
+	"strings"
+	"testing"
+
+	"lotwatch/store"
+)
+
+// TestAPIAttention walks the contract of issue 11: a lot out of limits is
+// listed by /api/v1/attention whatever its age; a cause or "no
+// assignable cause found" posted for it by its code takes it off the
+// list, and lands in the audit trail and on the lot page; bad input is
+// refused naming the field and changes nothing; an unknown lot is 404.
+func TestAPIAttention(t *testing.T) {
+	e := newTestEnv(t)
+	// 40 lots alternating 1/200 and 5/200, with two of 30/200: p̄ ≈
+	// 0.022, σ ≈ 0.0103, UCL ≈ 0.053 (p̄ ± 3√(p̄(1−p̄)/n), Montgomery,
+	// Introduction to Statistical Quality Control, §7.2): lots 10 and 30
+	// far beyond it, and no run rule met by the alternating lots.
+	lots := e.addLots(t, 40, func(i int) int64 {
+		switch {
+		case i == 10 || i == 30:
+			return 30
+		case i%2 == 0:
+			return 1
+		}
+		return 5
+	})
+	// The second is renamed to a code a path must escape.
+	odd := "N/23 #1 50%"
+	if _, err := e.db.CorrectLot(context.Background(), "setup", "code as on the label", lots[30].ID, store.LotInput{Lot: odd, Time: lots[30].Time, Inspected: 200, Count: 30}); err != nil {
+		t.Fatal(err)
+	}
+	e.clock.Advance(90 * 24 * 3600e9) // a quarter later, still unexplained
+	viewer := e.tokens[store.RoleViewer]
+	list := func() []attentionJSON {
+		t.Helper()
+		rec := e.do(req{method: "GET", path: "/api/v1/attention", token: viewer})
+		if rec.Code != http.StatusOK {
+			t.Fatalf("GET /api/v1/attention: %d %s", rec.Code, rec.Body.String())
+		}
+		return decodeJSON[[]attentionJSON](t, rec)
+	}
+	got := list()
+	if len(got) != 2 || got[0].Lot != lotCode(10) || got[1].Lot != odd || got[0].Kind != "out_of_limits" ||
+		got[0].ProcessID != e.proc.ID || got[0].Process != e.proc.Name || got[0].LotID != lots[10].ID || got[0].Rules == nil {
+		t.Fatalf("attention %+v", got)
+	}
+	if !strings.Contains(got[0].Time, "T") || got[0].Time > got[1].Time {
+		t.Errorf("times %q, %q: not RFC 3339 oldest first", got[0].Time, got[1].Time)
+	}
+
+	insp := e.tokens[store.RoleInspector]
+	path := func(code string) string {
+		return "/api/v1/processes/" + formatID(e.proc.ID) + "/lots/" + url.PathEscape(code) + "/causes"
+	}
+	bad := []struct {
+		name, code, body, field string
+		status                  int
+	}{
+		{"no cause", lotCode(10), `{"action": "x"}`, "cause", 400},
+		{"blank cause", lotCode(10), `{"cause": "  "}`, "cause", 400},
+		{"cause not a string", lotCode(10), `{"cause": 3}`, "cause", 400},
+		{"unknown field", lotCode(10), `{"cause": "die", "severity": "high"}`, "severity", 400},
+		{"no cause found without reason", lotCode(10), `{"no_cause_found": true}`, "reason", 400},
+		{"no cause found not a boolean", lotCode(10), `{"no_cause_found": "yes", "reason": "noise"}`, "no_cause_found", 400},
+		{"both", lotCode(10), `{"no_cause_found": true, "reason": "noise", "cause": "die"}`, "cause", 400},
+		{"not an object", lotCode(10), `["die"]`, "body", 400},
+		{"unknown lot", "NO-SUCH-LOT", `{"cause": "die"}`, "", 404},
+	}
+	for _, c := range bad {
+		rec := e.do(req{method: "POST", path: path(c.code), body: c.body, token: insp})
+		if rec.Code != c.status {
+			t.Errorf("%s: status %d, want %d: %s", c.name, rec.Code, c.status, rec.Body.String())
+			continue
+		}
+		if c.field != "" {
+			ae := decodeJSON[apiError](t, rec)
+			if len(ae.Problems) == 0 || ae.Problems[0].Field != c.field || !strings.Contains(ae.Error, c.field) {
+				t.Errorf("%s: %+v, want a problem naming %q", c.name, ae, c.field)
+			}
+		}
+	}
+	if anns, _ := e.db.Annotations(context.Background(), e.proc.ID); len(anns) != 0 {
+		t.Fatalf("refused posts stored %+v", anns)
+	}
+	if rec := e.do(req{method: "POST", path: path(lotCode(10)), body: `{"cause": "die"}`, token: viewer}); rec.Code != http.StatusForbidden {
+		t.Errorf("viewer posting a cause: %d", rec.Code)
+	}
+
+	rec := e.do(req{method: "POST", path: path(lotCode(10)), body: `{"cause": "film torn at the splice", "action": "splice redone"}`, token: insp})
+	if rec.Code != http.StatusCreated {
+		t.Fatalf("posting a cause: %d %s", rec.Code, rec.Body.String())
+	}
+	c := decodeJSON[causeJSON](t, rec)
+	if c.LotID != lots[10].ID || c.Cause != "film torn at the splice" || c.Closed || c.By != "inspector1" || c.ID == 0 {
+		t.Errorf("stored cause %+v", c)
+	}
+	if got := list(); len(got) != 1 || got[0].Lot != odd {
+		t.Errorf("after the cause: %+v", got)
+	}
+	rec = e.do(req{method: "POST", path: path(odd), body: `{"no_cause_found": true, "reason": "re-inspected: gauge, film batch and operator all as usual"}`, token: insp})
+	if rec.Code != http.StatusCreated {
+		t.Fatalf("posting no cause found for %q: %d %s", odd, rec.Code, rec.Body.String())
+	}
+	if c := decodeJSON[causeJSON](t, rec); !c.NoCauseFound || !c.Closed || c.LotID != lots[30].ID {
+		t.Errorf("stored finding %+v", c)
+	}
+	if got := list(); len(got) != 0 {
+		t.Errorf("after both: %+v", got)
+	}
+
+	// The audit trail and the lot page carry both.
+	for _, l := range []store.Lot{lots[10], lots[30]} {
+		page := e.do(req{method: "GET", path: "/lots/" + formatID(l.ID), cookie: e.signIn(t, "viewer1", testPassword)}).Body.String()
+		switch l.ID {
+		case lots[10].ID:
+			if !strings.Contains(page, "film torn at the splice") {
+				t.Errorf("lot page of %s lacks its cause", l.Lot)
+			}
+		default:
+			if !strings.Contains(page, "No assignable cause found") || !strings.Contains(page, "gauge, film batch and operator") {
+				t.Errorf("lot page of the odd lot lacks the finding")
+			}
+		}
+	}
+	entries, err := e.db.AuditFor(context.Background(), "annotation", c.ID)
+	if err != nil || len(entries) != 1 || entries[0].Actor != "inspector1" {
+		t.Errorf("audit of the cause: %+v %v", entries, err)
+	}
+	if chk, err := e.db.VerifyAudit(context.Background()); err != nil || !chk.OK {
+		t.Errorf("audit check: %+v %v", chk, err)
+	}
+}
