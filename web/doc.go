@@ -54,6 +54,8 @@
 //	POST /api/v1/processes/{id}/lots        log lots (inspector+)
 //	GET  /api/v1/processes/{id}/signals     run-rule signals with annotations
 //	GET  /api/v1/processes/{id}/limits      frozen limit sets
+//	GET  /api/v1/attention                  lots needing attention, oldest first
+//	POST /api/v1/processes/{id}/lots/{lot}/causes  a cause or "no cause found" (inspector+)
 //	GET  /api/v1/users                      users (admin)
 //
 // from= and to= take an RFC 3339 time or a date (YYYY-MM-DD, in the

@@ -115,6 +115,9 @@ func TestRouteRoles(t *testing.T) {
 			seq++
 			return fmt.Sprintf(`{"lot":"R%03d","inspected":100,"defective":2}`, seq)
 		}, false, want{anon: unauth, store.RoleViewer: forbid, store.RoleInspector: created, store.RoleEngineer: created, store.RoleAdmin: created}, ""},
+		{"GET", "/api/v1/attention", nil, false, all(unauth, ok), ""},
+		{"POST", "/api/v1/processes/" + id + "/lots/" + lots[1].Lot + "/causes", fresh(`{"cause":"cause %d"}`), false,
+			want{anon: unauth, store.RoleViewer: forbid, store.RoleInspector: created, store.RoleEngineer: created, store.RoleAdmin: created}, "/api/v1/processes/{id}/lots/{lot}/causes"},
 		{"GET", "/api/v1/users", nil, false, want{anon: unauth, store.RoleViewer: forbid, store.RoleInspector: forbid, store.RoleEngineer: forbid, store.RoleAdmin: ok}, ""},
 		{"POST", "/signout", func() string { return "" }, true, all(see, see), ""},
 	}
