@@ -3,6 +3,7 @@ package web
 import (
 	"errors"
 	"net/http"
+	"strconv"
 	"strings"
 
 	"lotwatch/store"
@@ -68,16 +69,24 @@ func (s *Server) signInPage(w http.ResponseWriter, r *http.Request) {
 	s.render(w, r, http.StatusOK, "signin.html", "Sign in", signInData{Next: safeNext(r.URL.Query().Get("next"))})
 }
 
-// signIn checks a user name and password. Attempts are limited per user
-// name and per client address before the password is even looked at; on
-// success any earlier session of this browser is ended and a new session
-// id is issued, so that an id planted before sign-in is worthless.
+// signIn checks a user name and password. Failed attempts are limited
+// per user name and client address, and per address, before the password
+// is even looked at (signInGate); a name longer than any user's is
+// refused before it is counted or logged. On success any earlier session
+// of this browser is ended and a new session id is issued, so that an id
+// planted before sign-in is worthless.
 func (s *Server) signIn(w http.ResponseWriter, r *http.Request) {
 	name := strings.TrimSpace(r.PostFormValue("name"))
 	password := r.PostFormValue("password")
 	data := signInData{Name: name, Next: safeNext(r.PostFormValue("next"))}
-	nameKey, addrKey := "name:"+strings.ToLower(name), "addr:"+clientAddr(r)
-	if wait := s.limiter.wait(nameKey, addrKey); wait > 0 {
+	if len(name) > maxNameBytes {
+		data.Name = ""
+		data.Problem = "A user name is at most " + strconv.Itoa(maxNameBytes) + " bytes long."
+		s.render(w, r, http.StatusBadRequest, "signin.html", "Sign in", data)
+		return
+	}
+	addr := s.clientAddr(r)
+	if wait := s.gate.wait(name, addr); wait > 0 {
 		w.Header().Set("Retry-After", retryAfter(wait))
 		data.Problem = "Too many sign-in attempts. Wait " + retryAfter(wait) + " seconds and try again."
 		s.render(w, r, http.StatusTooManyRequests, "signin.html", "Sign in", data)
@@ -93,9 +102,9 @@ func (s *Server) signIn(w http.ResponseWriter, r *http.Request) {
 		err = store.ErrBadCredentials
 	}
 	if errors.Is(err, store.ErrBadCredentials) {
-		s.log.Warn("sign-in refused", "name", name, "addr", clientAddr(r))
+		s.log.Warn("sign-in refused", "name", name, "addr", addr)
 		data.Problem = "The user name or password is not right."
-		if wait := s.limiter.fail(nameKey, addrKey); wait > 0 {
+		if wait := s.gate.fail(name, addr); wait > 0 {
 			data.Problem += " Too many failed attempts: wait " + retryAfter(wait) + " seconds before the next."
 		}
 		s.render(w, r, http.StatusUnauthorized, "signin.html", "Sign in", data)
@@ -118,9 +127,9 @@ func (s *Server) signIn(w http.ResponseWriter, r *http.Request) {
 		s.internalError(w, r, err)
 		return
 	}
-	s.limiter.reset(nameKey)
+	s.gate.succeed(name, addr)
 	s.setSessionCookie(w, raw)
-	s.log.Info("signed in", "user", u.Name, "addr", clientAddr(r))
+	s.log.Info("signed in", "user", u.Name, "addr", addr)
 	http.Redirect(w, r, data.Next, http.StatusSeeOther)
 }
 
@@ -159,8 +168,8 @@ func (s *Server) changePassword(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusForbidden, "a password cannot be changed with an API token")
 		return
 	}
-	nameKey, addrKey := "name:"+strings.ToLower(p.user.Name), "addr:"+clientAddr(r)
-	if wait := s.limiter.wait(nameKey, addrKey); wait > 0 {
+	addr := s.clientAddr(r)
+	if wait := s.gate.wait(p.user.Name, addr); wait > 0 {
 		w.Header().Set("Retry-After", retryAfter(wait))
 		fail(http.StatusTooManyRequests, "Too many attempts. Wait "+retryAfter(wait)+" seconds and try again.")
 		return
@@ -178,7 +187,7 @@ func (s *Server) changePassword(w http.ResponseWriter, r *http.Request) {
 	}
 	if _, err := s.db.Authenticate(r.Context(), p.user.Name, current); err != nil {
 		if errors.Is(err, store.ErrBadCredentials) {
-			s.limiter.fail(nameKey, addrKey)
+			s.gate.fail(p.user.Name, addr)
 			fail(http.StatusUnauthorized, "The current password is not right.")
 			return
 		}
@@ -204,3 +213,7 @@ func (s *Server) changePassword(w http.ResponseWriter, r *http.Request) {
 	s.log.Info("password changed", "user", p.user.Name)
 	http.Redirect(w, r, "/password?done=1", http.StatusSeeOther)
 }
+
+// clientAddr is the address the request came from, read through the
+// trusted proxies.
+func (s *Server) clientAddr(r *http.Request) string { return clientAddr(r, s.gate.proxies) }

@@ -16,10 +16,14 @@
 //   - CSRF: http.CrossOriginProtection refuses cross-origin POSTs (by
 //     Sec-Fetch-Site, else Origin against Host), on top of SameSite
 //     cookies. Bearer-token API calls carry no ambient credentials.
-//   - Sign-in: after 5 failed attempts within a minute, per user name and
-//     per client address (RemoteAddr; forwarding headers are not trusted),
-//     further attempts get 429 with Retry-After for 1 minute, doubling on
-//     each repeat up to 15 minutes. Successful sign-ins are not counted.
+//   - Sign-in: after 5 failed attempts within a minute for one user name
+//     from one client address, or 20 from one address, further attempts
+//     from there get 429 with Retry-After for 1 minute, doubling on each
+//     repeat up to 15 minutes; a name is never locked for everyone.
+//     Successful sign-ins are not counted. The client address is
+//     RemoteAddr, or, from a proxy in Config.TrustedProxies (serve
+//     --proxy-addr), the nearest untrusted X-Forwarded-For hop. Names
+//     over 64 bytes are refused before they are counted or logged.
 //   - Every page goes through html/template; the chart options travel as a
 //     JSON data block read by /static/charts.js, so the Content-Security-
 //     Policy forbids inline scripts and styles.

@@ -1,9 +1,12 @@
 package web
 
 import (
+	"fmt"
 	"net"
 	"net/http"
+	"net/netip"
 	"strconv"
+	"strings"
 	"sync"
 	"time"
 )
@@ -53,17 +56,118 @@ func crossOriginGuard(next http.Handler) http.Handler {
 }
 
 // clientAddr is the address the request came from, without the port.
-// Forwarding headers are not trusted: they can be set by anyone.
-func clientAddr(r *http.Request) string {
+// X-Forwarded-For is believed only when the request comes from one of
+// the trusted proxies, and then only as far back as the proxies go: the
+// address is the rightmost one in the header that is not itself a
+// trusted proxy (what the nearest proxy saw). Anything to its left was
+// written by the client and could be anything.
+func clientAddr(r *http.Request, proxies []netip.Prefix) string {
 	host, _, err := net.SplitHostPort(r.RemoteAddr)
 	if err != nil {
-		return r.RemoteAddr
+		host = r.RemoteAddr
 	}
-	return host
+	addr, err := netip.ParseAddr(host)
+	if err != nil || !trusted(addr, proxies) {
+		return host
+	}
+	hops := strings.Split(strings.Join(r.Header.Values("X-Forwarded-For"), ","), ",")
+	for i := len(hops) - 1; i >= 0; i-- {
+		hop, err := netip.ParseAddr(strings.TrimSpace(hops[i]))
+		if err != nil {
+			break // a garbled header: keep the last address known good
+		}
+		addr = hop.Unmap()
+		if !trusted(addr, proxies) {
+			break
+		}
+	}
+	return addr.String()
 }
 
-// attemptLimiter limits failed sign-in attempts per key (a user name or
-// a client address): after max failures within window the key is
+// trusted reports whether a is one of the trusted proxies.
+func trusted(a netip.Addr, proxies []netip.Prefix) bool {
+	a = a.Unmap()
+	for _, p := range proxies {
+		if p.Contains(a) {
+			return true
+		}
+	}
+	return false
+}
+
+// ParseProxies reads a comma-separated list of proxy addresses or CIDR
+// ranges ("10.0.0.5, 192.168.4.0/24") for Config.TrustedProxies.
+func ParseProxies(list string) ([]netip.Prefix, error) {
+	var out []netip.Prefix
+	for _, f := range strings.Split(list, ",") {
+		f = strings.TrimSpace(f)
+		if f == "" {
+			continue
+		}
+		if strings.Contains(f, "/") {
+			p, err := netip.ParsePrefix(f)
+			if err != nil {
+				return nil, fmt.Errorf("proxy range %q: %w", f, err)
+			}
+			out = append(out, p.Masked())
+			continue
+		}
+		a, err := netip.ParseAddr(f)
+		if err != nil {
+			return nil, fmt.Errorf("proxy address %q is not an IP address", f)
+		}
+		a = a.Unmap()
+		out = append(out, netip.PrefixFrom(a, a.BitLen()))
+	}
+	return out, nil
+}
+
+// maxNameBytes is the longest user name a sign-in is even looked at
+// with; store.AddUser refuses longer names, so no user has one. Longer
+// names are refused before they are counted or logged.
+const maxNameBytes = 64
+
+// signInGate throttles failed sign-ins. Failures are counted per pair of
+// user name and client address, so that someone guessing one user's
+// password is slowed down without locking that user out everywhere, and
+// per client address with a higher limit, so that one address guessing
+// many names is slowed down too. A name alone is never locked.
+type signInGate struct {
+	pair    *attemptLimiter // keyed by lower-case name, NUL, address
+	addr    *attemptLimiter
+	proxies []netip.Prefix
+}
+
+// Failures allowed within a minute before a block: five per name and
+// address (a user's typos), twenty per address (a shared terminal or an
+// untrusted proxy carries several users' typos). Common practice, no
+// source.
+const (
+	pairAttempts = 5
+	addrAttempts = 20
+)
+
+func newSignInGate(now func() time.Time, proxies []netip.Prefix) *signInGate {
+	return &signInGate{pair: newAttemptLimiter(now, pairAttempts), addr: newAttemptLimiter(now, addrAttempts), proxies: proxies}
+}
+
+func pairKey(name, addr string) string { return strings.ToLower(name) + "\x00" + addr }
+
+// wait reports how long the name from the address must still wait.
+func (g *signInGate) wait(name, addr string) time.Duration {
+	return max(g.pair.wait(pairKey(name, addr)), g.addr.wait(addr))
+}
+
+// fail records a failure and reports the wait it now causes.
+func (g *signInGate) fail(name, addr string) time.Duration {
+	return max(g.pair.fail(pairKey(name, addr)), g.addr.fail(addr))
+}
+
+// succeed forgets the failures of the name from the address.
+func (g *signInGate) succeed(name, addr string) { g.pair.reset(pairKey(name, addr)) }
+
+// attemptLimiter limits failed sign-in attempts per key (a user name and
+// address, or an address): after max failures within window the key is
 // blocked, for window the first time and twice as long each time it is
 // blocked again (up to maxBlock); a quiet spell of forgetAfter clears its
 // record. Successful sign-ins are not counted, so that a shift signing in
@@ -88,9 +192,9 @@ type attempts struct {
 	last    time.Time
 }
 
-func newAttemptLimiter(now func() time.Time) *attemptLimiter {
+func newAttemptLimiter(now func() time.Time, max int) *attemptLimiter {
 	return &attemptLimiter{
-		max:         5,
+		max:         max,
 		window:      time.Minute,
 		maxBlock:    15 * time.Minute,
 		forgetAfter: time.Hour,

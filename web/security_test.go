@@ -15,7 +15,7 @@ func (c *fakeClock) Advance(d time.Duration) { c.t = c.t.Add(d) }
 
 func TestAttemptLimiter(t *testing.T) {
 	clk := &fakeClock{t: time.Date(2026, 3, 2, 8, 0, 0, 0, time.UTC)}
-	l := newAttemptLimiter(clk.Now)
+	l := newAttemptLimiter(clk.Now, 5)
 	// Five failures a minute block the key for a minute (the project's
 	// limit, common practice, no source).
 	for i := range 4 {
@@ -75,7 +75,7 @@ func TestAttemptLimiter(t *testing.T) {
 
 func TestAttemptLimiterBackoffCap(t *testing.T) {
 	clk := &fakeClock{t: time.Date(2026, 3, 2, 8, 0, 0, 0, time.UTC)}
-	l := newAttemptLimiter(clk.Now)
+	l := newAttemptLimiter(clk.Now, 5)
 	var last time.Duration
 	for range 8 {
 		for range 5 {

@@ -8,6 +8,7 @@ import (
 	"log/slog"
 	"net"
 	"net/http"
+	"net/netip"
 	"time"
 
 	"lotwatch/store"
@@ -35,6 +36,11 @@ type Config struct {
 	// certificate of its own (behind a TLS-terminating proxy).
 	Secure bool
 
+	// TrustedProxies are the addresses of the reverse proxies in front of
+	// the server; only from them is X-Forwarded-For believed for the
+	// client address (sign-in throttling and the log).
+	TrustedProxies []netip.Prefix
+
 	Logger *slog.Logger     // default: slog.Default()
 	Now    func() time.Time // default: time.Now; tests set a fake clock
 }
@@ -48,7 +54,7 @@ type Server struct {
 	secure    bool
 	log       *slog.Logger
 	now       func() time.Time
-	limiter   *attemptLimiter
+	gate      *signInGate
 	pages     *pageSet
 	judges    judgeGroup
 	summaries summaryCache
@@ -82,7 +88,7 @@ func NewServer(cfg Config) (*Server, error) {
 	if s.now == nil {
 		s.now = time.Now
 	}
-	s.limiter = newAttemptLimiter(s.now)
+	s.gate = newSignInGate(s.now, cfg.TrustedProxies)
 	pages, err := loadPages()
 	if err != nil {
 		return nil, err

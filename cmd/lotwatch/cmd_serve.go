@@ -28,11 +28,18 @@ func runServe(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	cert := fs.String("cert", "", "TLS certificate `file` (PEM); with --key, serve HTTPS")
 	key := fs.String("key", "", "TLS private key `file` (PEM)")
 	secure := fs.Bool("behind-tls", false, "the server is reached over HTTPS through a proxy: mark cookies Secure and send HSTS")
-	help := cliHelp(fs, `Usage: lotwatch serve --db FILE [--addr 127.0.0.1:8080] [--cert FILE --key FILE]
+	proxies := fs.String("proxy-addr", "", "comma-separated `addresses` (or CIDR ranges) of the reverse proxies in front of the server;\nonly from them is X-Forwarded-For believed for the client's address")
+	help := cliHelp(fs, `Usage: lotwatch serve --db FILE [--addr 127.0.0.1:8080] [--cert FILE --key FILE] [--proxy-addr LIST]
 
 Serves the pages (sign-in, processes, control charts) and the JSON API under
 /api/v1/ until interrupted (SIGINT or SIGTERM); requests in flight are
 finished and the database closed cleanly before it exits.
+
+Failed sign-ins are throttled per user name and client address, and per
+address. Behind a reverse proxy every request comes from the proxy's
+address: name the proxy with --proxy-addr so that the client's address is
+read from the X-Forwarded-For header the proxy adds (the header is ignored
+from any other address, since anyone can send it).
 
 Options:
 `, "\n"+caution)
@@ -60,6 +67,11 @@ Options:
 			return exitUsage
 		}
 	}
+	trusted, err := web.ParseProxies(*proxies)
+	if err != nil {
+		fmt.Fprintf(stderr, "lotwatch serve: --proxy-addr: %v\n", err)
+		return exitUsage
+	}
 	if _, err := os.Stat(*dbPath); err != nil {
 		fmt.Fprintf(stderr, "lotwatch serve: database %s: %v (create it first, e.g. with `lotwatch demo`)\n", *dbPath, err)
 		return exitUsage
@@ -70,7 +82,7 @@ Options:
 		fmt.Fprintf(stderr, "lotwatch serve: %v\n", err)
 		return exitFail
 	}
-	srv, err := web.NewServer(web.Config{DB: db, Addr: *addr, CertFile: *cert, KeyFile: *key, Secure: *secure, Logger: logger})
+	srv, err := web.NewServer(web.Config{DB: db, Addr: *addr, CertFile: *cert, KeyFile: *key, Secure: *secure, TrustedProxies: trusted, Logger: logger})
 	if err != nil {
 		db.Close()
 		fmt.Fprintf(stderr, "lotwatch serve: %v\n", err)
