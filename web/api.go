@@ -260,15 +260,15 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 		writeError(w, http.StatusBadRequest, err.Error())
 		return
 	}
-	if len(lp.list) == 0 {
+	if !lp.any() {
 		for i, in := range ins {
 			for _, pr := range store.ValidateLot(p, in) {
 				lp.add(i, lotField(pr.Field), pr.Value, pr.Reason)
 			}
 		}
 	}
-	if len(lp.list) > 0 {
-		writeJSON(w, http.StatusBadRequest, apiError{Error: lp.message(), Problems: lp.list})
+	if lp.any() {
+		writeJSON(w, http.StatusBadRequest, lp.answer())
 		return
 	}
 	actor := who(r).user.Name
@@ -283,7 +283,8 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 			}
 			lp.add(i, lotField(pr.Field), pr.Value, pr.Reason)
 		}
-		writeJSON(w, http.StatusBadRequest, apiError{Error: lp.message(), Problems: lp.list})
+		lp.more += ve.More
+		writeJSON(w, http.StatusBadRequest, lp.answer())
 		return
 	case errors.Is(err, store.ErrConflict):
 		writeError(w, http.StatusConflict, strings.ReplaceAll(err.Error(), "\n", "; ")+"; nothing was stored (a stored lot is changed by correcting it, which keeps its history)")

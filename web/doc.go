@@ -48,7 +48,8 @@
 // bound to the session) between the preview and the confirmation, so that
 // the bytes imported are the bytes checked.
 //
-// API (JSON; errors are {"error": "..."} with "problems" for bad lots):
+// API (JSON; errors are {"error": "..."} with "problems" for bad lots,
+// the first 100 of them, and "more" counting the rest):
 //
 //	GET  /api/v1/me                         who the token or session is
 //	GET  /api/v1/processes                  [{"id","name","chart",...}]

@@ -14,11 +14,18 @@ func isAPI(r *http.Request) bool {
 	return r.URL.Path == "/api" || strings.HasPrefix(r.URL.Path, "/api/")
 }
 
-// apiError is the body of every API error response.
+// apiError is the body of every API error response. At most
+// maxAPIProblems problems are listed; More counts the rest, so that a
+// body with a million bad fields gets a small answer.
 type apiError struct {
 	Error    string       `json:"error"`
 	Problems []apiProblem `json:"problems,omitempty"`
+	More     int          `json:"more,omitempty"`
 }
+
+// maxAPIProblems is the most problems an error answer lists, as many as
+// the upload preview shows.
+const maxAPIProblems = 100
 
 // apiProblem is one thing wrong with one field of a request. Index is the
 // position of the lot in a posted array (0 for a single object).

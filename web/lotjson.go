@@ -28,13 +28,19 @@ var lotFields = map[string]bool{
 // jsonInteger is a JSON number without fraction or exponent.
 var jsonInteger = regexp.MustCompile(`^-?(0|[1-9][0-9]*)$`)
 
-// lotProblems collects what is wrong with posted lots.
+// lotProblems collects what is wrong with posted lots: the first
+// maxAPIProblems of them, and a count of the rest.
 type lotProblems struct {
 	array bool // the body was an array: problems carry the index
 	list  []apiProblem
+	more  int
 }
 
 func (lp *lotProblems) add(index int, field, value, reason string) {
+	if len(lp.list) >= maxAPIProblems {
+		lp.more++
+		return
+	}
 	p := apiProblem{Field: field, Value: value, Reason: reason}
 	if lp.array {
 		i := index
@@ -43,7 +49,16 @@ func (lp *lotProblems) add(index int, field, value, reason string) {
 	lp.list = append(lp.list, p)
 }
 
-// message is the problems in one line, each naming the lot and field.
+// any reports whether a problem was found.
+func (lp *lotProblems) any() bool { return len(lp.list) > 0 }
+
+// answer is the error answer listing the problems.
+func (lp *lotProblems) answer() apiError {
+	return apiError{Error: lp.message(), Problems: lp.list, More: lp.more}
+}
+
+// message is the problems in one line, each naming the lot and field,
+// ending with how many more there are beyond those listed.
 func (lp *lotProblems) message() string {
 	var b strings.Builder
 	b.WriteString("invalid lot")
@@ -67,6 +82,9 @@ func (lp *lotProblems) message() string {
 		}
 		b.WriteString(" ")
 		b.WriteString(p.Reason)
+	}
+	if lp.more > 0 {
+		fmt.Fprintf(&b, "; … and %d more", lp.more)
 	}
 	return b.String()
 }
