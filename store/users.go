@@ -81,12 +81,26 @@ const MinPasswordLen = 8
 // bcryptCost is bcrypt's work factor (the library default, 10).
 var bcryptCost = bcrypt.DefaultCost
 
+// CheckUserName refuses a user name AddUser would refuse, so that a
+// command can say so before it asks for a password.
+func CheckUserName(name string) error {
+	if ps := checkUserName(name); len(ps) > 0 {
+		return invalid(ps...)
+	}
+	return nil
+}
+
 func checkUserName(name string) []Problem {
 	if name == "" {
 		return []Problem{{Field: "name", Reason: "is empty"}}
 	}
 	if strings.TrimSpace(name) != name || strings.IndexFunc(name, func(r rune) bool { return unicode.IsSpace(r) || unicode.IsControl(r) }) >= 0 {
 		return []Problem{{Field: "name", Value: name, Reason: "must not contain spaces or control characters"}}
+	}
+	// A name is a path segment of the users page's forms
+	// (/admin/users/NAME/password): nothing in it may end or split one.
+	if strings.ContainsAny(name, "/?#") {
+		return []Problem{{Field: "name", Value: name, Reason: "must not contain /, ? or #"}}
 	}
 	if len(name) > 64 {
 		return []Problem{{Field: "name", Value: name, Reason: "is longer than 64 bytes"}}
@@ -355,6 +369,10 @@ const TokenPrefix = "lw_"
 // CreateToken makes an API token for the user and returns the raw token
 // (once) and its record.
 func (db *DB) CreateToken(ctx context.Context, actor, userName, label string) (string, Token, error) {
+	if strings.IndexFunc(label, unicode.IsControl) >= 0 {
+		// A label is shown one per line in lists and logs.
+		return "", Token{}, invalid(Problem{Field: "label", Value: label, Reason: "must not contain line breaks, tabs or other control characters"})
+	}
 	secret, err := randomSecret()
 	if err != nil {
 		return "", Token{}, err

@@ -3,6 +3,7 @@ package web
 import (
 	"errors"
 	"net/http"
+	"net/url"
 	"strconv"
 	"strings"
 
@@ -74,7 +75,10 @@ func (s *Server) addUser(w http.ResponseWriter, r *http.Request) {
 }
 
 func (s *Server) resetPassword(w http.ResponseWriter, r *http.Request) {
-	name := chi.URLParam(r, "name")
+	name, ok := s.pathParam(w, r, "name")
+	if !ok {
+		return
+	}
 	// A reset password ends the user's sessions (store.SetPassword).
 	if err := s.db.SetPassword(r.Context(), who(r).user.Name, name, r.PostFormValue("password")); err != nil {
 		s.adminFail(w, r, err, nil)
@@ -84,7 +88,10 @@ func (s *Server) resetPassword(w http.ResponseWriter, r *http.Request) {
 }
 
 func (s *Server) setUserActive(w http.ResponseWriter, r *http.Request) {
-	name := chi.URLParam(r, "name")
+	name, ok := s.pathParam(w, r, "name")
+	if !ok {
+		return
+	}
 	active := r.PostFormValue("active") == "1"
 	if !active && name == who(r).user.Name {
 		s.showAdmin(w, r, http.StatusBadRequest, adminData{Problem: "You cannot deactivate yourself."})
@@ -125,4 +132,21 @@ func (s *Server) revokeToken(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	http.Redirect(w, r, "/admin/users?done=revoked", http.StatusSeeOther)
+}
+
+// pathParam is a path segment of the route, unescaped. The router
+// matches on the escaped path when the request's path has escapes that
+// decoding would lose (a "%2F" in a name), and then gives the segment
+// escaped.
+func (s *Server) pathParam(w http.ResponseWriter, r *http.Request, key string) (string, bool) {
+	v := chi.URLParam(r, key)
+	if r.URL.RawPath == "" {
+		return v, true
+	}
+	u, err := url.PathUnescape(v)
+	if err != nil {
+		s.badRequest(w, r, "the address part "+strconv.Quote(v)+" is not a valid escaped name")
+		return "", false
+	}
+	return u, true
 }

@@ -8,6 +8,7 @@ import (
 	"io/fs"
 	"math"
 	"net/http"
+	"net/url"
 	"path"
 
 	"lotwatch/spc"
@@ -46,6 +47,10 @@ var templateFuncs = template.FuncMap{
 	"ruleName":   ruleName,
 	"sub":        func(a, b int) int { return a - b },
 	"valueShort": func(c spc.Chart) string { return valueShort(string(c)) },
+	// seg escapes a name for one segment of a path (a user name in
+	// /admin/users/NAME/password), so that "/", "?" or "#" in it cannot
+	// lead the form elsewhere; pathParam reads it back.
+	"seg": url.PathEscape,
 }
 
 func loadPages() (*pageSet, error) {

@@ -140,6 +140,9 @@ func runUserAdd(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	if len(probs) > 0 {
 		return cliProblems(stderr, "user add", probs...)
 	}
+	if err := store.CheckUserName(*name); err != nil {
+		return cliStoreError(stderr, "user add", "", err)
+	}
 	pw, err := readPassword(stdin, stderr)
 	if err != nil {
 		return cliProblems(stderr, "user add", "password: "+err.Error())
