@@ -307,7 +307,7 @@ func (db *DB) CreateSession(ctx context.Context, userID int64, now time.Time) (s
 const sessionTouchEvery = time.Minute
 
 // SessionUser returns the active user of a live session and notes it as
-// seen. A session idle longer than idle, older than absolute, of an
+// seen (best effort: a failed note does not fail the read). A session idle longer than idle, older than absolute, of an
 // inactive user, or unknown gives ErrNotFound.
 func (db *DB) SessionUser(ctx context.Context, rawID string, now time.Time, idle, absolute time.Duration) (User, error) {
 	h := secretHash(rawID)
@@ -333,12 +333,14 @@ func (db *DB) SessionUser(ctx context.Context, rawID string, now time.Time, idle
 		return User{}, fmt.Errorf("session expired: %w", ErrNotFound)
 	}
 	if n-seen >= int64(sessionTouchEvery) {
-		if err := db.write(ctx, func(w *wtx) error {
+		// The last-seen time is best effort: on a full disk (or a
+		// database that cannot be written) the user still reads. The
+		// idle limit then counts from the last time written, so a
+		// session can end early, never late.
+		_ = db.write(ctx, func(w *wtx) error {
 			_, err := w.Exec("UPDATE sessions SET last_seen = ? WHERE id_hash = ?", n, h)
 			return err
-		}); err != nil {
-			return User{}, err
-		}
+		})
 	}
 	return u, nil
 }
