@@ -55,6 +55,16 @@ type intervalsRef struct {
 		Target float64 `json:"target_arl1"`
 		N      int64   `json:"n"`
 	} `json:"smallest_n"`
+	SmallestNFloor []struct {
+		P0      float64 `json:"p0"`
+		P1      float64 `json:"p1"`
+		K       float64 `json:"k"`
+		Target  float64 `json:"target_arl1"`
+		MinARL0 float64 `json:"min_arl0"`
+		N       int64   `json:"n"`
+		ARL0    float64 `json:"arl0"`
+		ARL1    float64 `json:"arl1"`
+	} `json:"smallest_n_floor"`
 }
 
 func loadIntervalsRef(t *testing.T) *intervalsRef {

@@ -30,6 +30,16 @@ type Plan struct {
 	MinNPositiveLCL int64
 }
 
+// DefaultMinARL0 is the floor on ARL0, the average number of lots between
+// false alarms of an in-control process, below which no lot size is
+// recommended unless the user lowers it explicitly. It is a default of our
+// own (common practice, no source): a chart that raises a false alarm
+// more often than once in 100 lots teaches its readers to ignore it. For
+// scale, 3-sigma limits on a normally distributed statistic give an ARL0
+// of 370 (Montgomery, Introduction to Statistical Quality Control, §5.3);
+// limits on small counts often give far less.
+const DefaultMinARL0 = 100
+
 // ErrNoPlan is returned (wrapped) by SmallestN when no lot size up to the
 // search bound meets the target.
 var ErrNoPlan = errors.New("no lot size meets the target")

@@ -103,6 +103,27 @@ func TestSmallestNReference(t *testing.T) {
 	}
 }
 
+// TestSmallestNWithARL0Reference checks the search with a floor on false
+// alarms against a plain scan with scipy.stats.binom tails
+// (intervals_reference.py, block smallest_n_floor).
+func TestSmallestNWithARL0Reference(t *testing.T) {
+	ref := loadIntervalsRef(t)
+	if len(ref.SmallestNFloor) == 0 {
+		t.Fatal("no smallest_n_floor rows in the reference file")
+	}
+	for _, r := range ref.SmallestNFloor {
+		got, err := SmallestNWithARL0(r.P0, r.P1, r.K, r.Target, r.MinARL0, 100000)
+		if err != nil || got != r.N {
+			t.Errorf("SmallestNWithARL0(%g, %g, %g, %g, %g) = %d, %v; scipy scan %d", r.P0, r.P1, r.K, r.Target, r.MinARL0, got, err, r.N)
+			continue
+		}
+		pl := PlanLimits(r.P0, got, r.K).WithShift(r.P1)
+		if math.Abs(pl.ARL0-r.ARL0) > 1e-9*r.ARL0 || math.Abs(pl.ARL1-r.ARL1) > 1e-9*r.ARL1 {
+			t.Errorf("n = %d: ARL0 %.12g ARL1 %.12g, scipy %.12g %.12g", got, pl.ARL0, pl.ARL1, r.ARL0, r.ARL1)
+		}
+	}
+}
+
 // TestARLNotMonotone shows the reason SmallestN scans: with whole counts,
 // ARL1 rises again at some larger n (shown directly from the binomial; the
 // reference scan in intervals_reference.py relies on no monotonicity).

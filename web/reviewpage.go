@@ -5,11 +5,13 @@ import (
 	"errors"
 	"fmt"
 	"html/template"
+	"math"
 	"net/http"
 	"net/url"
 	"strconv"
 	"strings"
 
+	"lotwatch/spc"
 	"lotwatch/store"
 	"lotwatch/web/review"
 )
@@ -137,12 +139,48 @@ type planPageData struct {
 	Problem   string
 	Centre    *review.Centre
 	Result    *review.PlanResult
-	SVG       template.HTML
+	Rows      []planRow
+	Floor     int
+	Options   map[string]any
+}
+
+// planRow is one lot size of the planning table, in words: a limit that
+// no lot can cross is said so, never shown as a negative count or −1.
+type planRow struct {
+	What, High, Low, ARL0, ARL1 string
+}
+
+func newPlanRow(what string, pl *spc.Plan) planRow {
+	r := planRow{What: what, ARL0: runLength(pl.ARL0), ARL1: runLength(pl.ARL1)}
+	if pl.UCLCount >= pl.N {
+		r.High = "no lot can signal high at this size"
+	} else {
+		r.High = fmt.Sprintf("more than %d nonconforming", pl.UCLCount)
+	}
+	if pl.LCLCount < 1 {
+		r.Low = "no lot can signal low at this size"
+		if pl.MinNPositiveLCL > 0 {
+			r.Low += fmt.Sprintf(" (that needs at least %d units per lot)", pl.MinNPositiveLCL)
+		}
+	} else {
+		r.Low = fmt.Sprintf("fewer than %d nonconforming", pl.LCLCount)
+	}
+	return r
+}
+
+// runLength writes an average run length in lots, or says that no lot
+// can signal.
+func runLength(arl float64) string {
+	if math.IsInf(arl, 1) || math.IsNaN(arl) {
+		return "never (no lot can signal)"
+	}
+	return strconv.FormatFloat(arl, 'f', 1, 64)
 }
 
 // planPage plans lot sizes for a p or np process: the limits and ARLs at
 // a lot size, the smallest lot size that detects a shift soon enough on
-// average, and the ARL1 curve against lot size.
+// average while keeping false alarms to at most one in spc.DefaultMinARL0
+// lots (or the floor the user set), and the ARL curves against lot size.
 func (s *Server) planPage(w http.ResponseWriter, r *http.Request) {
 	ctx := r.Context()
 	all, err := s.db.Processes(ctx, false)
@@ -150,14 +188,14 @@ func (s *Server) planPage(w http.ResponseWriter, r *http.Request) {
 		s.internalError(w, r, err)
 		return
 	}
-	d := planPageData{Values: map[string]string{}}
+	d := planPageData{Values: map[string]string{}, Floor: spc.DefaultMinARL0}
 	for _, p := range all {
 		if p.Chart.CountsUnits() {
 			d.Processes = append(d.Processes, p)
 		}
 	}
 	q := r.URL.Query()
-	for _, k := range []string{"process", "p1", "n", "arl1"} {
+	for _, k := range []string{"process", "p1", "n", "arl1", "min_arl0"} {
 		d.Values[k] = strings.TrimSpace(q.Get(k))
 	}
 	if d.Values["process"] == "" {
@@ -203,7 +241,11 @@ func (s *Server) planPage(w http.ResponseWriter, r *http.Request) {
 		return true
 	}
 	var n float64
-	if !num("p1", &req.P1) || !num("n", &n) || !num("arl1", &req.TargetARL1) {
+	if !num("p1", &req.P1) || !num("n", &n) || !num("arl1", &req.TargetARL1) || !num("min_arl0", &req.MinARL0) {
+		return
+	}
+	if d.Values["min_arl0"] != "" && !(req.MinARL0 >= 1) {
+		fail(fmt.Sprintf("min_arl0 %q must be a number of lots, 1 or more", d.Values["min_arl0"]))
 		return
 	}
 	if d.Values["p1"] == "" {
@@ -225,6 +267,12 @@ func (s *Server) planPage(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	d.Result = res
-	d.SVG = review.PlanSVG(res.Curve, req.TargetARL1, max(req.N, res.Smallest))
+	if res.Plan != nil {
+		d.Rows = append(d.Rows, newPlanRow(fmt.Sprintf("%d (asked)", res.Plan.N), res.Plan))
+	}
+	if res.SmallestPlan != nil {
+		d.Rows = append(d.Rows, newPlanRow(fmt.Sprintf("%d (smallest meeting the target)", res.SmallestPlan.N), res.SmallestPlan))
+	}
+	d.Options = planChartOptions(res.Curve, res.MinARL0, req.TargetARL1, max(req.N, res.Smallest))
 	s.render(w, r, http.StatusOK, "plan.html", "Planning — "+proc.Name, d)
 }

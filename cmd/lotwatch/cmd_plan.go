@@ -44,8 +44,9 @@ Options:
               (a number, 1 or more; needs --p1)
   --sigma K   width of the limits in standard deviations (default 3)
   --min-arl0 A  when searching, also require at least A lots on average between
-              false alarms at P0 (default 0: no floor; small lots can meet the
-              ARL1 target only by signalling often in control too)
+              false alarms at P0 (default 100; small lots can meet the ARL1
+              target only by signalling often in control too). A floor below
+              100 is allowed, with a warning on standard error
   --max-n N   largest lot size tried when searching (default 100000,
               at most 10000000)
   --format F  text (default) or json
@@ -94,7 +95,7 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	arl1s := fs.String("arl1", "", "")
 	sigmas := fs.String("sigma", "3", "")
 	maxNs := fs.String("max-n", "100000", "")
-	minARL0s := fs.String("min-arl0", "0", "")
+	minARL0s := fs.String("min-arl0", strconv.Itoa(spc.DefaultMinARL0), "")
 	format := fs.String("format", "text", "")
 	procName := fs.String("process", "", "")
 	dbPath := fs.String("db", "", "")
@@ -163,14 +164,18 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	searched := *ns == ""
 	if searched {
 		minARL0, perr := strconv.ParseFloat(*minARL0s, 64)
-		if perr != nil || !(minARL0 >= 0) {
+		if perr != nil || !(minARL0 >= 0) || math.IsInf(minARL0, 1) {
 			fmt.Fprintf(stderr, "lotwatch plan: --min-arl0 %q must be a number of lots, 0 or more\n", *minARL0s)
 			return exitUsage
 		}
+		if minARL0 < spc.DefaultMinARL0 {
+			fmt.Fprintf(stderr, "lotwatch plan: warning: --min-arl0 %s is below the default floor of %d lots between false alarms; the lot size found may raise false alarms often enough that people stop trusting the chart\n",
+				*minARL0s, spc.DefaultMinARL0)
+		}
 		n, err = spc.SmallestNWithARL0(p0, p1, k, target, minARL0, maxN)
 		if errors.Is(err, spc.ErrNoPlan) {
-			fmt.Fprintf(stderr, "lotwatch plan: no lot size up to %d units detects a shift to %s within %s lots on average; try a larger --max-n or a smaller --sigma\n",
-				maxN, *p1s, *arl1s)
+			fmt.Fprintf(stderr, "lotwatch plan: no lot size up to %d units detects a shift to %s within %s lots on average with at least %s lots between false alarms; try a larger --max-n\n",
+				maxN, *p1s, *arl1s, *minARL0s)
 			return exitFail
 		}
 		if err != nil {
@@ -214,8 +219,8 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		fmt.Fprintf(&b, "  upper limit %s: a lot signals when it has more than %d nonconforming units.\n", statsRate(pl.UCL), pl.UCLCount)
 	}
 	if pl.LCLCount < 0 {
-		fmt.Fprintf(&b, "  lower limit %s: no lot can signal low at this size; that needs lots of at least %d units.\n",
-			statsRate(math.Max(0, pl.LCL)), pl.MinNPositiveLCL)
+		fmt.Fprintf(&b, "  no lower limit: no lot can signal low at this size; that needs lots of at least %d units.\n",
+			pl.MinNPositiveLCL)
 	} else {
 		fmt.Fprintf(&b, "  lower limit %s: a lot signals when it has fewer than %d nonconforming units.\n", statsRate(pl.LCL), pl.LCLCount)
 	}
@@ -230,8 +235,8 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 			fmt.Fprintf(&b, "  this %s the target of %s lots.\n", verdict, strconv.FormatFloat(target, 'g', -1, 64))
 		}
 	}
-	if pl.ARL0 < planFewLotsARL0 {
-		fmt.Fprintf(&b, "\nNote: at this size an in-control process gives a false alarm every %.0f lots or so;\nif that is too often, search with --min-arl0 (e.g. --min-arl0 200) or use a larger --n.\n", pl.ARL0)
+	if pl.ARL0 < spc.DefaultMinARL0 {
+		fmt.Fprintf(&b, "\nWarning: at this size an in-control process gives a false alarm every %.1f lots on average,\nmore often than once in %d lots; a larger --n, or a search with --p1 and --arl1, keeps to that floor.\n", pl.ARL0, spc.DefaultMinARL0)
 	}
 	if searched {
 		b.WriteString("\nBecause counts are whole numbers, some larger lot sizes may miss the target again;\ncheck the size you choose with --n.\n")
@@ -240,11 +245,6 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	fmt.Fprint(stdout, b.String())
 	return exitOK
 }
-
-// planFewLotsARL0 is the ARL0 below which the text output points out
-// frequent false alarms (common practice, no source: a 3-sigma chart of a
-// normal statistic gives about 370).
-const planFewLotsARL0 = 100
 
 // planRunLength says an average run length in words.
 func planRunLength(arl float64) string {

@@ -180,6 +180,26 @@ func TestPlanCommand(t *testing.T) {
 		t.Errorf("arl1 %v above the target", m["arl1"])
 	}
 
+	// The search keeps to the default floor of 100 lots between false
+	// alarms: p0 = 0.02, p1 = 0.06, target 5 lots gives 39 units with ARL0
+	// 132.7 (smallest_n_floor in intervals_reference.json, by scipy); a
+	// floor lowered explicitly is obeyed with a warning on stderr.
+	code, out, errs = runStats("plan", "--p0", "0.02", "--p1", "0.06", "--arl1", "5", "--format", "json")
+	m = decodeStats(t, out)
+	if code != exitOK || errs != "" {
+		t.Errorf("search with the default floor: status %d stderr %q", code, errs)
+	}
+	statsNear(t, m, "n", 39, 0)
+	statsNear(t, m, "arl0", 132.72537086570495, 1e-9)
+	code, _, errs = runStats("plan", "--p0", "0.02", "--p1", "0.06", "--arl1", "5", "--min-arl0", "0", "--format", "json")
+	if code != exitOK || !strings.Contains(errs, "warning: --min-arl0 0 is below the default floor of 100") {
+		t.Errorf("lowered floor: status %d stderr %q", code, errs)
+	}
+	_, out, _ = runStats("plan", "--p0", "0.02", "--n", "3")
+	if !strings.Contains(out, "no lot can signal low at this size") || strings.Contains(out, "-1") || !strings.Contains(out, "Warning: at this size") {
+		t.Errorf("plan text at n = 3:\n%s", out)
+	}
+
 	// No p1: arl1 is null; a 1-unit lot at p0 = 0.5 can never signal: arl0 null.
 	_, out, _ = runStats("plan", "--p0", "0.5", "--n", "1", "--format", "json")
 	m = decodeStats(t, out)

@@ -18,6 +18,7 @@ Sources of each block:
   plan         limit counts from exact rational arithmetic (fractions.Fraction),
                signal probabilities from scipy.stats.binom.sf / cdf
   smallest_n   a plain scan over n with the same exact limit counts and scipy tails
+  smallest_n_floor  the same scan, also requiring ARL0 >= min_arl0
 """
 import json
 import math
@@ -177,6 +178,26 @@ def smallest_n_block():
     return out
 
 
+def smallest_n_floor_block():
+    """The same scan, keeping also to a floor on ARL0 (false alarms)."""
+    out = []
+    for p0, p1, k, target, floor in [("0.02", 0.06, "3", 2.0, 100.0), ("0.1", 0.2, "3", 2.0, 100.0),
+                                     ("0.012", 0.03, "3", 5.0, 100.0), ("0.05", 0.1, "3", 10.0, 200.0),
+                                     ("0.02", 0.06, "3", 5.0, 100.0)]:
+        n = 1
+        while True:
+            u, l = limit_counts(p0, n, k)
+            sp = signal_prob(u, l, n, p1)
+            s0 = signal_prob(u, l, n, float(p0))
+            if sp > 0 and 1 / sp <= target and (s0 == 0 or 1 / s0 >= floor):
+                break
+            n += 1
+        u, l = limit_counts(p0, n, k)
+        out.append({"p0": float(p0), "p1": p1, "k": float(k), "target_arl1": target, "min_arl0": floor,
+                    "n": n, "arl0": 1 / signal_prob(u, l, n, float(p0)), "arl1": 1 / signal_prob(u, l, n, p1)})
+    return out
+
+
 def main():
     ref = {
         "generator": "spc/testdata/intervals_reference.py",
@@ -189,6 +210,7 @@ def main():
         "two_rate": two_rate_block(),
         "plan": plan_block(),
         "smallest_n": smallest_n_block(),
+        "smallest_n_floor": smallest_n_floor_block(),
     }
     json.dump(ref, sys.stdout, indent=1)
     sys.stdout.write("\n")

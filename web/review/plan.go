@@ -4,12 +4,9 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"html"
-	"html/template"
 	"math"
 	"sort"
 	"strconv"
-	"strings"
 	"time"
 
 	"lotwatch/spc"
@@ -87,6 +84,9 @@ type PlanRequest struct {
 	K          float64 // limit width; 0 means the process's K, or 3
 	MaxN       int64   // search bound; 0 means 100000
 	CurveNs    []int64 // lot sizes of the ARL1 curve; nil chooses them
+	// MinARL0 is the floor on ARL0 of the search; 0 means
+	// spc.DefaultMinARL0. A floor below the default gives a warning.
+	MinARL0 float64
 }
 
 // PlanResult answers a PlanRequest.
@@ -102,6 +102,11 @@ type PlanResult struct {
 	SmallestNote string
 	// Curve is ARL1 against lot size (spc.ARLCurve).
 	Curve []spc.Plan
+	// MinARL0 is the floor on ARL0 that the search kept to.
+	MinARL0 float64
+	// Warnings say in plain words where the plan falls short: a floor
+	// lowered below the default, a lot size asked whose ARL0 is below it.
+	Warnings []string
 }
 
 // PlanFor evaluates the request against the centre.
@@ -125,22 +130,37 @@ func PlanFor(c Centre, req PlanRequest) (*PlanResult, error) {
 		return nil, &OptionError{"n", strconv.FormatInt(req.N, 10), "must be a whole number greater than 0"}
 	case req.TargetARL1 != 0 && !(req.TargetARL1 >= 1):
 		return nil, &OptionError{"arl1", strconv.FormatFloat(req.TargetARL1, 'g', -1, 64), "must be a number of lots, 1 or more"}
+	case req.MinARL0 < 0 || math.IsNaN(req.MinARL0) || math.IsInf(req.MinARL0, 1):
+		return nil, &OptionError{"min_arl0", strconv.FormatFloat(req.MinARL0, 'g', -1, 64), "must be a number of lots, 1 or more"}
 	}
 	maxN := req.MaxN
 	if maxN == 0 {
 		maxN = 100000
 	}
-	res := &PlanResult{Centre: c, K: k, P1: req.P1}
+	floor := req.MinARL0
+	if floor == 0 {
+		floor = spc.DefaultMinARL0
+	}
+	res := &PlanResult{Centre: c, K: k, P1: req.P1, MinARL0: floor}
+	lots := func(x float64) string { return strconv.FormatFloat(x, 'f', 1, 64) }
+	if floor < spc.DefaultMinARL0 {
+		res.Warnings = append(res.Warnings, fmt.Sprintf("The floor on false alarms is lowered to one in %s lots on average, below the default of %d: the lot size found may raise false alarms often enough that people stop trusting the chart.",
+			strconv.FormatFloat(floor, 'g', -1, 64), spc.DefaultMinARL0))
+	}
 	if req.N > 0 {
 		pl := spc.PlanLimits(c.P0, req.N, k).WithShift(req.P1)
 		res.Plan = &pl
+		if bar := math.Max(floor, spc.DefaultMinARL0); pl.ARL0 < bar {
+			res.Warnings = append(res.Warnings, fmt.Sprintf("At %d units per lot an in-control process raises a false alarm once every %s lots on average, more often than once in %s lots.",
+				req.N, lots(pl.ARL0), strconv.FormatFloat(bar, 'g', -1, 64)))
+		}
 	}
 	if req.TargetARL1 > 0 {
-		n, err := spc.SmallestN(c.P0, req.P1, k, req.TargetARL1, maxN)
+		n, err := spc.SmallestNWithARL0(c.P0, req.P1, k, req.TargetARL1, floor, maxN)
 		switch {
 		case errors.Is(err, spc.ErrNoPlan):
-			res.SmallestNote = fmt.Sprintf("no lot size up to %d detects a shift to %s within %s lots on average", maxN,
-				percent(req.P1)+"%", strconv.FormatFloat(req.TargetARL1, 'g', -1, 64))
+			res.SmallestNote = fmt.Sprintf("no lot size up to %d detects a shift to %s within %s lots on average while keeping false alarms to at most one in %s lots", maxN,
+				percent(req.P1)+"%", strconv.FormatFloat(req.TargetARL1, 'g', -1, 64), strconv.FormatFloat(floor, 'g', -1, 64))
 		case err != nil:
 			return nil, err
 		default:
@@ -176,72 +196,4 @@ func CurveSizes(hi int64, count int) []int64 {
 		out = append(out, hi)
 	}
 	return out
-}
-
-// PlanSVG draws ARL1 (the average number of lots until a shift to P1
-// signals) against lot size, both on log scales, as inline SVG with a
-// dashed line at target (0 for none) and a mark at lot size mark (0 for
-// none). Lot sizes at which no lot can signal are left out of the line.
-// Like the review's charts it has no scripts, styles or references.
-func PlanSVG(curve []spc.Plan, target float64, mark int64) template.HTML {
-	const w, h = 640, 300
-	const left, right, top, bottom = 60.0, 20.0, 30.0, 45.0
-	var s svgWriter
-	title := "Average run length after the shift (ARL1) against lot size"
-	s.open(w, h, title)
-	s.text(w/2, 18, "middle", "13", colourAxis, title, "")
-	pw, ph := w-left-right, h-top-bottom
-	var pts []spc.Plan
-	maxARL, maxN := 1.0, int64(1)
-	for _, pl := range curve {
-		maxN = max(maxN, pl.N)
-		if !math.IsInf(pl.ARL1, 0) && !math.IsNaN(pl.ARL1) && pl.ARL1 >= 1 {
-			pts = append(pts, pl)
-			maxARL = math.Max(maxARL, pl.ARL1)
-		}
-	}
-	if target >= 1 {
-		maxARL = math.Max(maxARL, target)
-	}
-	decY := math.Max(1, math.Ceil(math.Log10(maxARL)))
-	decX := math.Max(1, math.Ceil(math.Log10(float64(maxN))))
-	x := func(n float64) float64 { return left + pw*math.Log10(math.Max(1, n))/decX }
-	y := func(a float64) float64 { return top + ph - ph*math.Log10(math.Max(1, a))/decY }
-	for i := 0.0; i <= decY; i++ {
-		v := math.Pow(10, i)
-		s.f(`<line x1="%.1f" y1="%.1f" x2="%.1f" y2="%.1f" stroke="%s"/>`, left, y(v), left+pw, y(v), colourGrid)
-		s.text(left-6, y(v)+4, "end", "10", colourAxis, tick(v), "")
-	}
-	for i := 0.0; i <= decX; i++ {
-		v := math.Pow(10, i)
-		s.f(`<line x1="%.1f" y1="%.1f" x2="%.1f" y2="%.1f" stroke="%s"/>`, x(v), top, x(v), top+ph, colourGrid)
-		s.text(x(v), top+ph+14, "middle", "10", colourAxis, tick(v), "")
-	}
-	s.text(left+pw/2, h-8, "middle", "10", colourAxis, "units per lot (log scale)", "")
-	s.text(14, top+ph/2, "middle", "10", colourAxis, "ARL1, lots (log scale)", fmt.Sprintf(` transform="rotate(-90 14 %.1f)"`, top+ph/2))
-	if target >= 1 {
-		s.f(`<line x1="%.1f" y1="%.1f" x2="%.1f" y2="%.1f" stroke="%s" stroke-dasharray="6 4"/>`, left, y(target), left+pw, y(target), colourLine)
-		s.text(left+pw-4, y(target)-4, "end", "10", colourLine, "target "+strconv.FormatFloat(target, 'g', -1, 64)+" lots", "")
-	}
-	if mark > 0 {
-		s.f(`<line x1="%.1f" y1="%.1f" x2="%.1f" y2="%.1f" stroke="%s" stroke-dasharray="2 3"/>`, x(float64(mark)), top, x(float64(mark)), top+ph, colourCurrent)
-		s.text(x(float64(mark))+4, top+12, "start", "10", colourCurrent, "n = "+strconv.FormatInt(mark, 10), "")
-	}
-	var line []string
-	for _, pl := range pts {
-		line = append(line, fmt.Sprintf("%.1f,%.1f", x(float64(pl.N)), y(pl.ARL1)))
-	}
-	if len(line) > 1 {
-		s.f(`<polyline points="%s" fill="none" stroke="%s" stroke-width="1.5"/>`, strings.Join(line, " "), colourBar)
-	}
-	for _, pl := range pts {
-		s.f(`<circle cx="%.1f" cy="%.1f" r="2.5" fill="%s"><title>n = %d: ARL1 %s lots</title></circle>`, x(float64(pl.N)), y(pl.ARL1), colourBar,
-			pl.N, html.EscapeString(strconv.FormatFloat(pl.ARL1, 'f', 2, 64)))
-	}
-	if len(pts) == 0 {
-		s.text(w/2, h/2, "middle", "12", colourAxis, "No lot size in the range can signal.", "")
-	}
-	s.f(`<line x1="%.1f" y1="%.1f" x2="%.1f" y2="%.1f" stroke="%s"/>`, left, top+ph, left+pw, top+ph, colourAxis)
-	s.f(`<line x1="%.1f" y1="%.1f" x2="%.1f" y2="%.1f" stroke="%s"/>`, left, top, left, top+ph, colourAxis)
-	return s.close()
 }
