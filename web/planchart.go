@@ -46,7 +46,7 @@ func planChartOptions(curve []spc.Plan, floor, target float64, mark int64) map[s
 	line.AssetsHost = "/static/"
 	line.SetGlobalOptions(
 		charts.WithAnimation(false),
-		charts.WithTitleOpts(opts.Title{Title: "Average run length against lot size", Top: "6", Left: "8"}),
+		charts.WithTitleOpts(opts.Title{Title: "Run lengths against lot size", Top: "6", Left: "8", TitleStyle: &opts.TextStyle{FontSize: 15}}),
 		charts.WithTooltipOpts(opts.Tooltip{Show: opts.Bool(true), Trigger: "axis"}),
 		charts.WithLegendOpts(opts.Legend{Show: opts.Bool(true), Top: "34", Left: "8"}),
 		charts.WithGridOpts(opts.Grid{Left: "72", Right: "32", Top: "96", Bottom: "64"}),

@@ -28,7 +28,7 @@ func TestPlanPageFloorAndWords(t *testing.T) {
 	// (spc/testdata/intervals_reference.json, smallest_n_floor, by scipy);
 	// without the floor the search would give 95 with ARL0 below 100.
 	body := get("p1=0.06&arl1=2")
-	for _, want := range []string{"111 (smallest meeting the target)", "140.0", "no lot can signal low at this size",
+	for _, want := range []string{"111 (smallest meeting the target)", "140.01", "no lot can signal low at this size",
 		`data-chart-options="plan-options"`, "false alarms at most once in 100 lots"} {
 		if !strings.Contains(body, want) {
 			t.Errorf("page lacks %q", want)
@@ -66,7 +66,7 @@ func TestPlanPageFloorAndWords(t *testing.T) {
 	// (hand arithmetic), below the floor: a warning. A lowered floor
 	// warns too.
 	body = get("p1=0.06&n=3&arl1=2&min_arl0=10")
-	for _, want := range []string{"Warning: The floor on false alarms is lowered", "Warning: At 3 units per lot", "17.0"} {
+	for _, want := range []string{"Warning: The floor on false alarms is lowered", "Warning: At 3 units per lot", "17.00"} {
 		if !strings.Contains(body, want) {
 			t.Errorf("page lacks %q", want)
 		}

@@ -174,7 +174,7 @@ func runLength(arl float64) string {
 	if math.IsInf(arl, 1) || math.IsNaN(arl) {
 		return "never (no lot can signal)"
 	}
-	return strconv.FormatFloat(arl, 'f', 1, 64)
+	return strconv.FormatFloat(arl, 'f', 2, 64)
 }
 
 // planPage plans lot sizes for a p or np process: the limits and ARLs at

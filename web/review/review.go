@@ -116,9 +116,15 @@ func (m Multiplicity) Sentence(fdr bool) string {
 	if m.Compared < 2 {
 		return ""
 	}
-	s := fmt.Sprintf("%s compared: %d show a change unlikely from sampling alone on its own p-value; chance alone would give about %s such verdicts across %d processes at the %s level even if no process changed.",
-		plural(m.Compared, "process", "processes"), m.Stated, strconv.FormatFloat(m.Expected, 'f', 1, 64), m.Compared, levelPercent(m.Alpha))
-	s += fmt.Sprintf(" With p-values adjusted for the false discovery rate across the review (Benjamini–Hochberg), %d remain", m.AfterFDR)
+	verb := func(n int, one, many string) string {
+		if n == 1 {
+			return "1 " + one
+		}
+		return strconv.Itoa(n) + " " + many
+	}
+	s := fmt.Sprintf("%s compared: %s a change unlikely from sampling alone on its own p-value; chance alone would give about %s such verdicts across %d processes at the %s level even if no process changed.",
+		plural(m.Compared, "process", "processes"), verb(m.Stated, "shows", "show"), strconv.FormatFloat(m.Expected, 'f', 1, 64), m.Compared, levelPercent(m.Alpha))
+	s += fmt.Sprintf(" With p-values adjusted for the false discovery rate across the review (Benjamini–Hochberg), %s", verb(m.AfterFDR, "remains", "remain"))
 	if fdr {
 		return s + "; the verdicts below use the adjusted p-values."
 	}
