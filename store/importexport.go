@@ -12,6 +12,7 @@ import (
 	"fmt"
 	"io"
 	"strconv"
+	"strings"
 	"time"
 
 	"lotwatch/spc"
@@ -35,6 +36,11 @@ type ImportOptions struct {
 	// Format is "csv" (the default) or "json" (what Export writes with
 	// Format "json"; Process may then be empty to take the file's).
 	Format string
+	// SkipConflicts imports the other lots of a file in which some lot
+	// codes are stored with other values, reporting those in
+	// ImportResult.Conflicts. Without it such a lot is a problem of the
+	// file like any other, and nothing is written.
+	SkipConflicts bool
 }
 
 // ImportResult is what an import did.
@@ -44,7 +50,7 @@ type ImportResult struct {
 	Rows          int
 	Added         int
 	Unchanged     int        // already stored with the same values
-	Conflicts     []Conflict // stored with other values: reported, left as they are
+	Conflicts     []Conflict // stored with other values (SkipConflicts): reported, left as they are
 	MoreConflicts int        // conflicts beyond the cap
 	FileSHA256    string
 }
@@ -82,8 +88,9 @@ func (b *bitset) set(i int64) bool {
 // every problem and its line (up to the cap) and writes nothing. A lot
 // code given twice in the file is a problem. A lot already stored with the
 // same values is counted as unchanged (so importing a file again adds
-// nothing); stored with other values, it is a conflict, reported in the
-// result and never overwritten. Only the columns the file has are
+// nothing); stored with other values, it is a problem too, unless
+// opt.SkipConflicts: then it is a conflict, reported in the result, and
+// the other lots are added. A stored lot is never overwritten. Only the columns the file has are
 // compared (a file without a time column does not conflict on time). Lots
 // without a time get the time of the import.
 func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportOptions) (ImportResult, error) {
@@ -146,6 +153,7 @@ func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportO
 			return err
 		}
 		defer a.close()
+		a.skipConflicts = opt.SkipConflicts
 		cmp := compareFields{time: rd.Has(lotcsv.ColTime), shift: rd.Has(lotcsv.ColShift), inspector: rd.Has(lotcsv.ColInspector),
 			note: rd.Has(lotcsv.ColNote), categories: rd.Categories()}
 		ve := &ValidationError{}
@@ -344,7 +352,8 @@ func exportJSON(ctx context.Context, db *DB, out io.Writer, p Process, opt Expor
 }
 
 // place adds one valid lot of an import file, or, when its code is stored
-// already, counts it unchanged or reports the conflict (never an
+// already, counts it unchanged or reports the conflict: a problem of the
+// file, or with skipConflicts a conflict in the result (never an
 // overwrite). A code seen twice in the file is a problem of the file.
 func (a *lotAdder) place(in *LotInput, line int, cmp compareFields, met *bitset, res *ImportResult, problem func(Problem), max int) error {
 	id, added, err := a.add(in)
@@ -365,6 +374,10 @@ func (a *lotAdder) place(in *LotInput, line int, cmp compareFields, met *bitset,
 		return nil
 	}
 	if d := differs(s, *in, cmp); len(d) > 0 {
+		if !a.skipConflicts {
+			problem(conflictProblem(line, in.Lot, d))
+			return nil
+		}
 		if len(res.Conflicts) < max {
 			res.Conflicts = append(res.Conflicts, Conflict{Line: line, Lot: in.Lot, Fields: d})
 		} else {
@@ -374,4 +387,15 @@ func (a *lotAdder) place(in *LotInput, line int, cmp compareFields, met *bitset,
 	}
 	res.Unchanged++
 	return nil
+}
+
+// StoredOtherwise begins the reason of a problem that is a lot of a file
+// whose code is stored with other values (see ImportOptions.SkipConflicts).
+const StoredOtherwise = "is already stored with other values"
+
+// conflictProblem is a lot of a file whose code is stored with other
+// values, as a problem of the file.
+func conflictProblem(line int, lot string, fields []string) Problem {
+	return Problem{Line: line, Field: "lot", Value: lot, Reason: StoredOtherwise + " (" + strings.Join(fields, ", ") +
+		"); a stored lot is changed by correcting it, which keeps its history"}
 }

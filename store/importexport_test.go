@@ -51,11 +51,23 @@ func TestImportCreateIdempotentConflict(t *testing.T) {
 	if err != nil || res.Added != 0 || res.Unchanged != 3 || len(res.Conflicts) != 0 {
 		t.Fatalf("re-import: %+v %v", res, err)
 	}
-	// Changed values: a conflict naming the fields, never an overwrite.
+	// Changed values: a problem naming the line and the fields, and
+	// nothing of the file is written (all or nothing)...
 	changed := strings.Replace(sampleCSV, "B1,2025-03-03 06:10,early,200,4,3,1,kim", "B1,2025-03-03 06:10,late,200,5,3,1,kim", 1) + "B4,2025-03-05 06:00,early,100,1,1,0,kim,\r\n"
-	res, err = importString(t, db, "weld", changed, false)
+	_, err = importString(t, db, "weld", changed, false)
+	var ve *ValidationError
+	if !errors.As(err, &ve) || len(ve.Problems) != 1 || ve.Problems[0].Line != 2 || ve.Problems[0].Value != "B1" ||
+		!strings.Contains(ve.Problems[0].Reason, "already stored with other values (shift, count)") {
+		t.Fatalf("conflicting import: %v, want one problem on line 2 naming B1, shift and count", err)
+	}
+	if n, _ := db.Lots(ctx, res.Process.ID, time.Time{}, time.Time{}); len(n) != 3 {
+		t.Fatalf("a refused import stored lots: %d, want 3", len(n))
+	}
+	// ...unless conflicts are skipped on purpose: then the other lots go
+	// in and each conflict is reported, never an overwrite.
+	res, err = db.Import(ctx, "tester", strings.NewReader(changed), ImportOptions{Process: "weld", SkipConflicts: true})
 	if err != nil || res.Added != 1 || res.Unchanged != 2 || len(res.Conflicts) != 1 {
-		t.Fatalf("conflict import: %+v %v", res, err)
+		t.Fatalf("import skipping conflicts: %+v %v", res, err)
 	}
 	if c := res.Conflicts[0]; c.Line != 2 || c.Lot != "B1" || !reflect.DeepEqual(c.Fields, []string{"shift", "count"}) {
 		t.Errorf("conflict %+v", c)

@@ -161,6 +161,9 @@ func (db *DB) importJSON(ctx context.Context, actor string, r io.Reader, opt Imp
 			}
 			res.Process = p
 			a, err = w.newLotAdder(actor, p)
+			if a != nil {
+				a.skipConflicts = opt.SkipConflicts
+			}
 			return err
 		}
 		for dec.More() {

@@ -13,8 +13,8 @@ import (
 
 // What Export writes as JSON, Import reads back to the same lots — into a
 // new database (making the process from the file's "process" object) and
-// into the same one (all unchanged); a changed lot is a conflict, left as
-// stored.
+// into the same one (all unchanged); a changed lot is a problem of the
+// file, or with SkipConflicts a conflict, left as stored.
 func TestImportJSONRoundTrip(t *testing.T) {
 	db, _ := openTemp(t)
 	p, err := db.AddProcess(ctx, "t", Process{Name: "paint", Chart: spc.ChartU, Categories: []string{"run", "sag"}, TimeZone: "America/Chicago"})
@@ -60,7 +60,11 @@ func TestImportJSONRoundTrip(t *testing.T) {
 	}
 	changed := strings.Replace(out.String(), `"lot":"P2","time"`, `"lot":"P2","shift":"late","time"`, 1)
 	changed = strings.Replace(changed, "\n]}", ",\n{\"lot\":\"P4\",\"inspected\":3,\"defects\":1}\n]}", 1)
-	res, err = db.Import(ctx, "t", strings.NewReader(changed), ImportOptions{Format: "json", Process: "paint"})
+	if _, err = db.Import(ctx, "t", strings.NewReader(changed), ImportOptions{Format: "json", Process: "paint"}); !errors.Is(err, ErrInvalid) ||
+		!strings.Contains(err.Error(), "line 3") || !strings.Contains(err.Error(), "already stored with other values (shift)") {
+		t.Errorf("import with a changed lot: %v, want a problem on line 3 naming shift", err)
+	}
+	res, err = db.Import(ctx, "t", strings.NewReader(changed), ImportOptions{Format: "json", Process: "paint", SkipConflicts: true})
 	if err != nil || res.Added != 1 || res.Unchanged != 2 || len(res.Conflicts) != 1 || res.Conflicts[0].Lot != "P2" ||
 		res.Conflicts[0].Line != 3 || !reflect.DeepEqual(res.Conflicts[0].Fields, []string{"shift"}) {
 		t.Errorf("import with a changed and a new lot: %+v %v", res, err)

@@ -340,6 +340,9 @@ type lotAdder struct {
 	packed  []byte
 	scratch Lot
 	next    int64 // the id of the next lot added
+	// skipConflicts reports a stored lot with other values as a conflict
+	// in the result rather than as a problem (import only).
+	skipConflicts bool
 }
 
 // appendCanonical appends the canonical line of a lot for the digest of a

@@ -245,6 +245,16 @@ func TestUploadPreviewAndConfirm(t *testing.T) {
 	if rec := e.do(req{method: "POST", path: action, cookie: c, form: true, headers: sameOriginForm()}); rec.Code != http.StatusNotFound {
 		t.Errorf("an upload was confirmed twice: status %d", rec.Code)
 	}
+	// A lot stored with other values is a problem of the file like any
+	// other: the file is refused whole (README: all or nothing).
+	rec = upload(c, "lot,inspected,defective\nA,100,5\nC,100,1\n")
+	if body := rec.Body.String(); rec.Code != http.StatusBadRequest || !strings.Contains(body, "line 2: lot &#34;A&#34; is already stored with other values") ||
+		strings.Contains(body, `action="/upload/`) {
+		t.Errorf("file with a conflicting lot: status %d\n%s", rec.Code, trim(body))
+	}
+	if e.lotCount(t) != 2 {
+		t.Errorf("%d lots stored after a refused file, want 2", e.lotCount(t))
+	}
 }
 
 // TestTailWords checks the plain-words tail probability.

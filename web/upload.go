@@ -281,8 +281,8 @@ func (s *Server) previewFile(r *http.Request, path string, p store.Process, d *u
 		if l, ok := stored[row.Lot]; ok {
 			if l.Inspected == row.Inspected && l.Count == row.Count && (!rd.Has(lotcsv.ColTime) || l.Time.Equal(row.Time)) {
 				d.Unchanged++
-			} else if len(d.Conflicts) < max {
-				d.Conflicts = append(d.Conflicts, fmt.Sprintf("line %d: lot %q is already stored with other values; it will be left as it is", row.Line, row.Lot))
+			} else {
+				add(store.Problem{Line: row.Line, Field: "lot", Value: row.Lot, Reason: store.StoredOtherwise + "; a stored lot is changed by correcting it, which keeps its history"})
 			}
 			continue
 		}

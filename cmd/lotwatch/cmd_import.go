@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
 	"os"
@@ -27,8 +28,11 @@ const importHelp = `Usage: lotwatch import --db FILE --process NAME [options] FI
 
 Reads a CSV file of lots into a process. The whole file is checked first:
 if any row is wrong, every problem is listed with its line and nothing is
-written. Importing the same file again adds nothing; a lot code already
-stored with other values is reported as a conflict and left as it is.
+written. Importing the same file again adds nothing. A lot code already
+stored with other values is a problem like any other (exit 2, each one
+listed with its line, nothing written), unless --skip-conflicts: then the
+other lots are imported, each such lot is listed and left as stored, and
+the exit status is 1.
 
 Columns (header names in any letter case, in any order):
   lot        the lot code (required; unique within the process)
@@ -63,12 +67,17 @@ Options:
                    else csv)
   --as NAME        the name recorded in the audit trail (default: your user
                    name on this computer)
+  --skip-conflicts import the other lots of a file in which some lot codes
+                   are stored with other values; those are listed and left
+                   as stored
 FILE is the file to read; - reads standard input.
 
-Exit status: 0 when imported (a summary of lots added, unchanged and in
-conflict is printed), 2 for bad input (each problem on standard error as
-FILE:LINE: column, value and reason; nothing written), 1 when the database
-fails. A progress line is shown on a terminal for long files.
+Exit status: 0 when every lot was imported or already stored with the
+same values (a summary of lots added and unchanged is printed), 2 for bad
+input, lots stored with other values among it (each problem on standard
+error as FILE:LINE: column, value and reason; nothing written), 1 when
+--skip-conflicts left lots as stored (the summary lists them) or the
+database fails. A progress line is shown on a terminal for long files.
 `
 
 func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
@@ -79,6 +88,7 @@ func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	tz := fs.String("tz", "", "")
 	as := fs.String("as", "", "")
 	format := fs.String("format", "", "")
+	skip := fs.Bool("skip-conflicts", false, "")
 	pos, code, done := cliParse(fs, args, importHelp, stdout, stderr)
 	if done {
 		return code
@@ -128,7 +138,7 @@ func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		return code
 	}
 	defer db.Close()
-	opt := store.ImportOptions{Process: *process, Create: *create, TimeZone: *tz, Format: *format}
+	opt := store.ImportOptions{Process: *process, Create: *create, TimeZone: *tz, Format: *format, SkipConflicts: *skip}
 	var progressShown bool
 	if f, ok := stderr.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
 		last := time.Now()
@@ -146,7 +156,11 @@ func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		fmt.Fprint(stderr, "\r\033[K")
 	}
 	if err != nil {
-		return cliStoreError(stderr, "import", name, err)
+		code := cliStoreError(stderr, "import", name, err)
+		if storedOtherwise(err) {
+			fmt.Fprintln(stderr, "lotwatch import: to import the other lots and leave those as stored, run again with --skip-conflicts")
+		}
+		return code
 	}
 	if res.Created {
 		fmt.Fprintf(stdout, "created process %q: %s chart, categories %v, time zone %s\n", res.Process.Name, res.Process.Chart, res.Process.Categories, res.Process.TimeZone)
@@ -159,7 +173,24 @@ func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	if res.MoreConflicts > 0 {
 		fmt.Fprintf(stdout, "conflict: … and %d more\n", res.MoreConflicts)
 	}
+	if nc > 0 {
+		return exitFail
+	}
 	return exitOK
+}
+
+// storedOtherwise reports whether the refused file has lots stored with
+// other values.
+func storedOtherwise(err error) bool {
+	var ve *store.ValidationError
+	if errors.As(err, &ve) {
+		for _, p := range ve.Problems {
+			if strings.HasPrefix(p.Reason, store.StoredOtherwise) {
+				return true
+			}
+		}
+	}
+	return false
 }
 
 func plural(n int, one, many string) string {
