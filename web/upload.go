@@ -116,8 +116,8 @@ func (s *Server) uploadPage(w http.ResponseWriter, r *http.Request) {
 // postUpload keeps the uploaded file on the server and previews it: every
 // row checked by the rules of the import (lotcsv for the cells,
 // store.ValidateLot for the values, a code twice in the file), each
-// problem with its line; lots already stored are counted as unchanged or
-// listed as conflicts. Nothing is saved until the preview is confirmed.
+// problem with its line; lots already stored are counted as unchanged, or
+// with other values are problems too (all or nothing). Nothing is saved until the preview is confirmed.
 func (s *Server) postUpload(w http.ResponseWriter, r *http.Request) {
 	ps, err := s.db.Processes(r.Context(), false)
 	if err != nil {
