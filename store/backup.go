@@ -64,6 +64,14 @@ func (db *DB) Backup(ctx context.Context, dest string) error {
 			return b.Finish()
 		})
 	})
+	if err == nil {
+		// The copy has the live file's WAL header; make it one
+		// self-contained file that opens on read-only media.
+		var mode string
+		if err = dconn.QueryRowContext(ctx, "PRAGMA journal_mode = DELETE").Scan(&mode); err == nil && mode != "delete" {
+			err = fmt.Errorf("journal mode %s, want delete", mode)
+		}
+	}
 	if err != nil {
 		os.Remove(tmp)
 		return fmt.Errorf("store: backup to %s: %w", dest, err)
@@ -98,14 +106,18 @@ func syncDir(dir string) error {
 	return nil
 }
 
-// CheckFile checks a database file without changing it: PRAGMA
+// CheckFile checks a database file without changing it, nor writing
+// anything beside it (it may lie on read-only media): PRAGMA
 // integrity_check must say ok, the schema must not be newer than this
 // lotwatch, and the audit chain must hold.
 func CheckFile(ctx context.Context, path string) (AuditCheck, error) {
 	if _, err := os.Stat(path); err != nil {
 		return AuditCheck{}, fmt.Errorf("store: %w", err)
 	}
-	f, err := sql.Open("sqlite3", dsn(path, "mode=ro&_query_only=1"))
+	if err := noLiveLog(path); err != nil {
+		return AuditCheck{}, err
+	}
+	f, err := sql.Open("sqlite3", dsn(path, readOnlyParams(path, true)))
 	if err != nil {
 		return AuditCheck{}, err
 	}
@@ -139,6 +151,12 @@ func Restore(ctx context.Context, path, from string) (kept string, err error) {
 		return "", err
 	}
 	defer lock.release()
+	// A backup that a store has open may change while it is copied.
+	src, err := lockIfDatabase(from)
+	if err != nil {
+		return "", err
+	}
+	defer src.release()
 	chk, err := CheckFile(ctx, from)
 	if err != nil {
 		return "", err

@@ -8,6 +8,7 @@ import (
 	"fmt"
 	"io/fs"
 	"net/url"
+	"os"
 	"sort"
 	"strconv"
 	"strings"
@@ -69,6 +70,9 @@ type DB struct {
 	w    *sql.DB // exactly one connection
 	r    *sql.DB // read-only pool
 	lock *dbLock // shared, while open (see lockShared)
+
+	readOnly bool        // see ReadOnly: w is nil
+	mem      memSessions // the sessions of a read-only database
 
 	jobs      chan *job
 	quit      chan struct{}
@@ -181,6 +185,9 @@ func Open(path string) (*DB, error) {
 }
 
 func open(path string) (*DB, error) {
+	if _, err := os.Stat(path); err == nil && !writable(path) {
+		return openReadOnly(path)
+	}
 	if err := createPrivate(path); err != nil {
 		return nil, err
 	}
@@ -295,7 +302,10 @@ func (db *DB) Close() error {
 		for _, st := range db.hot {
 			st.Close()
 		}
-		err = errors.Join(db.r.Close(), db.w.Close())
+		err = db.r.Close()
+		if db.w != nil {
+			err = errors.Join(err, db.w.Close())
+		}
 		db.lock.release()
 	})
 	return err
@@ -411,6 +421,9 @@ func (db *DB) runBatch(batch []*job) {
 // (or failed). A write once queued is carried out even if ctx ends, so
 // the caller waits for its outcome.
 func (db *DB) write(ctx context.Context, fn func(*wtx) error) error {
+	if db.readOnly {
+		return fmt.Errorf("store: %s: %w", db.path, ErrReadOnly)
+	}
 	j := &job{fn: fn, err: make(chan error, 1)}
 	db.mu.RLock()
 	if db.closed {

@@ -56,6 +56,9 @@ func lockShared(path string) (*dbLock, error) {
 // refused with ErrInUse while any store has the file open.
 func lockExclusive(path string) (*dbLock, error) {
 	f, err := os.OpenFile(lockPath(path), os.O_RDWR|os.O_CREATE, 0o600)
+	if errors.Is(err, syscall.EROFS) {
+		return nil, nil // read-only media: nothing there can be replaced
+	}
 	if err != nil {
 		return nil, fmt.Errorf("store: %w", err)
 	}

@@ -293,6 +293,10 @@ func (db *DB) CreateSession(ctx context.Context, userID int64, now time.Time) (s
 	if err != nil {
 		return "", err
 	}
+	if db.readOnly {
+		db.mem.create(secretHash(raw), userID, now)
+		return raw, nil
+	}
 	err = db.write(ctx, func(w *wtx) error {
 		_, err := w.Exec("INSERT INTO sessions (id_hash, user_id, created, last_seen) VALUES (?, ?, ?, ?)", secretHash(raw), userID, now.UnixNano(), now.UnixNano())
 		return err
@@ -311,6 +315,9 @@ const sessionTouchEvery = time.Minute
 // inactive user, or unknown gives ErrNotFound.
 func (db *DB) SessionUser(ctx context.Context, rawID string, now time.Time, idle, absolute time.Duration) (User, error) {
 	h := secretHash(rawID)
+	if db.readOnly {
+		return db.memSessionUser(ctx, h, now, idle, absolute)
+	}
 	var created, seen int64
 	row := db.r.QueryRowContext(ctx, `SELECT u.id, u.name, u.role, u.active, u.created, s.created, s.last_seen
 		FROM sessions s JOIN users u ON u.id = s.user_id WHERE s.id_hash = ?`, h)
@@ -347,6 +354,10 @@ func (db *DB) SessionUser(ctx context.Context, rawID string, now time.Time, idle
 
 // DeleteSession ends a session (signing out). An unknown id is no error.
 func (db *DB) DeleteSession(ctx context.Context, rawID string) error {
+	if db.readOnly {
+		db.mem.remove(secretHash(rawID))
+		return nil
+	}
 	return db.write(ctx, func(w *wtx) error {
 		_, err := w.Exec("DELETE FROM sessions WHERE id_hash = ?", secretHash(rawID))
 		return err

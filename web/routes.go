@@ -217,6 +217,15 @@ func (s *Server) identify(w http.ResponseWriter, r *http.Request) (*principal, e
 
 // internalError logs err and answers 500 without details.
 func (s *Server) internalError(w http.ResponseWriter, r *http.Request, err error) {
+	if errors.Is(err, store.ErrReadOnly) {
+		const msg = "This database is served read-only (lotwatch cannot write its file): it can be read, but nothing can be changed."
+		if isAPI(r) {
+			writeError(w, http.StatusServiceUnavailable, msg)
+			return
+		}
+		s.pageError(w, r, http.StatusServiceUnavailable, msg)
+		return
+	}
 	s.log.Error("request failed", "method", r.Method, "path", r.URL.Path, "err", err)
 	if isAPI(r) {
 		writeError(w, http.StatusInternalServerError, "internal error; the server log has the details")

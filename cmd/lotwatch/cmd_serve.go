@@ -82,6 +82,9 @@ Options:
 		fmt.Fprintf(stderr, "lotwatch serve: %v\n", err)
 		return exitFail
 	}
+	if db.ReadOnly() {
+		logger.Warn("the database cannot be written: serving it read-only (pages and charts work, every change is refused)", "db", *dbPath)
+	}
 	srv, err := web.NewServer(web.Config{DB: db, Addr: *addr, CertFile: *cert, KeyFile: *key, Secure: *secure, TrustedProxies: trusted, Logger: logger})
 	if err != nil {
 		db.Close()
