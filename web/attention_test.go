@@ -6,6 +6,7 @@ import (
 	"net/url"
 	"strings"
 	"testing"
+	"time"
 
 	"lotwatch/store"
 )
@@ -134,5 +135,70 @@ func TestAPIAttention(t *testing.T) {
 	}
 	if chk, err := e.db.VerifyAudit(context.Background()); err != nil || !chk.OK {
 		t.Errorf("audit check: %+v %v", chk, err)
+	}
+}
+
+// nightShiftEnv is a plant at 05:30 in Europe/Berlin whose only process
+// logged 47 lots in control over two days, and last night at 23:01 a lot
+// far out of limits (N-OUT) that nobody has explained.
+func nightShiftEnv(t *testing.T) (*testEnv, store.Lot) {
+	t.Helper()
+	e := newTestEnv(t)
+	loc := e.proc.Location()
+	now := time.Date(2026, 12, 2, 5, 30, 0, 0, loc)
+	e.clock.t = now
+	var in []store.LotInput
+	start := now.Add(-50 * time.Hour)
+	for i := range 47 {
+		in = append(in, store.LotInput{Lot: lotCode(i), Time: start.Add(time.Duration(i) * time.Hour / 2), Shift: "early", Inspected: 200, Count: []int64{1, 5}[i%2]})
+	}
+	in = append(in, store.LotInput{Lot: "N-OUT", Time: time.Date(2026, 12, 1, 23, 1, 0, 0, loc), Shift: "night", Inspected: 200, Count: 40})
+	lots, err := e.db.AddLots(context.Background(), "setup", e.proc.ID, in)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return e, lots[len(lots)-1]
+}
+
+// TestBoardNightShift: at 05:30 the board and the worklist show last
+// night's unexplained lot, never "nothing needs attention"; the bulk form
+// of the worklist records its cause and both clear.
+func TestBoardNightShift(t *testing.T) {
+	e, bad := nightShiftEnv(t)
+	c := e.signIn(t, "inspector1", testPassword)
+	board := e.do(req{method: "GET", path: "/", cookie: c}).Body.String()
+	for _, want := range []string{"1 lot needs attention in 1 process", "N-OUT", "no lots today", "1 lot needs attention (1 out of limits)"} {
+		if !strings.Contains(board, want) {
+			t.Errorf("board lacks %q", want)
+		}
+	}
+	if strings.Contains(board, "Nothing needs attention") || strings.Contains(board, "nothing needs attention") {
+		t.Errorf("board says nothing needs attention")
+	}
+	list := e.do(req{method: "GET", path: "/attention?shift=night&kind=out_of_limits", cookie: c}).Body.String()
+	if !strings.Contains(list, "N-OUT") || !strings.Contains(list, "1 of 1 shown") {
+		t.Errorf("worklist lacks the lot:\n%s", list)
+	}
+	if l := e.do(req{method: "GET", path: "/attention?shift=early", cookie: c}).Body.String(); strings.Contains(l, "N-OUT") {
+		t.Errorf("the shift filter keeps the night lot")
+	}
+	// Refused: no lot ticked, an unknown lot, no cause; nothing stored.
+	for _, body := range []string{"cause=x&back=%2Fattention", "lot=999999&cause=x", "lot=" + formatID(bad.ID) + "&cause=", "lot=" + formatID(bad.ID) + "&no_cause=1&reason="} {
+		rec := e.do(req{method: "POST", path: "/attention/causes", body: body, form: true, cookie: c, headers: sameOrigin()})
+		if rec.Code != http.StatusBadRequest && rec.Code != http.StatusNotFound {
+			t.Errorf("%q: status %d", body, rec.Code)
+		}
+	}
+	if anns, _ := e.db.Annotations(context.Background(), e.proc.ID); len(anns) != 0 {
+		t.Fatalf("refused forms stored %+v", anns)
+	}
+	rec := e.do(req{method: "POST", path: "/attention/causes", form: true, cookie: c, headers: sameOrigin(),
+		body: "lot=" + formatID(bad.ID) + "&no_cause=1&reason=film+batch+and+gauge+checked&cause=ignored&back=%2Fattention%3Fshift%3Dnight"})
+	if rec.Code != http.StatusSeeOther || rec.Header().Get("Location") != "/attention?shift=night&done=1" {
+		t.Fatalf("bulk post: %d %q %s", rec.Code, rec.Header().Get("Location"), rec.Body.String())
+	}
+	board = e.do(req{method: "GET", path: "/", cookie: c}).Body.String()
+	if !strings.Contains(board, "Nothing needs attention") || !strings.Contains(board, "1 (closed, or no cause found)") {
+		t.Errorf("board after the finding:\n%s", board)
 	}
 }

@@ -102,6 +102,8 @@ var authzRoutes = map[string]authzRoute{
 	"GET /api/v1/processes/{id}/signals":            {min: store.RoleViewer, path: "/api/v1/processes/{id}/signals", ok: 200},
 	"GET /api/v1/processes/{id}/limits":             {min: store.RoleViewer, path: "/api/v1/processes/{id}/limits", ok: 200},
 	"GET /api/v1/users":                             {min: store.RoleAdmin, path: "/api/v1/users", ok: 200},
+	"GET /attention":                                {min: store.RoleViewer, path: "/attention", ok: 200},
+	"POST /attention/causes":                        {min: store.RoleInspector, form: true, writes: true, ok: 303, setup: fxBulkCause},
 	"GET /api/v1/attention":                         {min: store.RoleViewer, path: "/api/v1/attention", ok: 200},
 	"POST /api/v1/processes/{id}/lots/{lot}/causes": {min: store.RoleInspector, writes: true, ok: 201, setup: fxAPICause},
 }
@@ -129,6 +131,11 @@ func fxOpenCause(m *matrixEnv, t *testing.T, who caller) sent {
 // by its code (a lot takes any number of causes).
 func fxAPICause(m *matrixEnv, t *testing.T, who caller) sent {
 	return sent{path: m.path("/api/v1/processes/{id}/lots/" + url.PathEscape(m.lot.Lot) + "/causes"), body: `{"cause": "worn die", "action": "die replaced"}`}
+}
+
+// fxBulkCause is one cause for the fixture lot ticked on the worklist.
+func fxBulkCause(m *matrixEnv, t *testing.T, who caller) sent {
+	return sent{path: "/attention/causes", body: fmt.Sprintf("lot=%d&cause=worn+die&back=%%2Fattention", m.lot.ID)}
 }
 
 // freshLot stores a new lot half an hour before the clock.

@@ -3,123 +3,241 @@ package web
 import (
 	"context"
 	"net/http"
-	"sort"
-	"sync"
+	"slices"
+	"strings"
 	"time"
 
 	"lotwatch/store"
+	"lotwatch/web/attention"
 )
 
 // boardRow is one process on the status board.
 type boardRow struct {
-	Proc       store.Process
-	Kind       string
-	Latest     *viewPoint
+	Proc   store.Process
+	Kind   string
+	Latest *viewPoint
+	// Need are the lots needing attention, oldest first; NeedOut and
+	// NeedSignal count them by kind (out of limits; run-rule or shift).
+	Need       []attention.Lot
+	NeedOut    int
+	NeedSignal int
+	Causes     attention.Causes
 	Today      int // lots today, in the process's zone
 	TodayOut   int
-	TodaySig   int // run-rule signals touching today's lots
-	OpenCauses int
+	TodaySig   int // signals touching today's lots
 	Trial      bool
-	State      string // "out", "signal", "ok", "none"
-	Words      string
+	State      string // "out", "signal", "ok", "none", "error"
+	Words      string // what needs attention, or today's state
+	TodayWords string
 	Err        string
 }
 
-type boardData struct {
-	Rows    []boardRow
-	Out     int // processes with a lot out of limits today
-	Signal  int
-	Quiet   int
-	Now     string
-	Empty   bool
-	Retired int
+// Oldest is the oldest lot needing attention, or nil.
+func (r boardRow) Oldest() *attention.Lot {
+	if len(r.Need) == 0 {
+		return nil
+	}
+	return &r.Need[0]
 }
 
-// boardPage is the home page: every active process with its latest lot,
-// today's lots and signals and the open assignable causes, the state in
-// words as well as colour.
+// boardData is the status board: the rows shown, the plant's totals and
+// the filter.
+type boardData struct {
+	Rows      []boardRow
+	Total     int // active processes
+	NeedLots  int // lots needing attention, plant-wide
+	NeedProcs int // processes with such lots
+	Oldest    *attention.Lot
+	Errors    int
+	TodayOut  int // processes with a lot out of limits today
+	TodaySig  int
+	Now       string
+	Empty     bool
+	Table     bool // the compact table view
+	Q, State  string
+	Area      string
+	Areas     []string
+	Shown     int
+}
+
+// tableFrom is the number of processes from which the board shows the
+// compact table unless asked for cards.
+const tableFrom = 100
+
+// boardPage is the home page. It leads with what needs attention — the
+// lots out of limits or in a signal that nobody has explained, whatever
+// their age — per process, oldest first; then today's figures and the
+// latest lot's verdict, whatever its day. It says that nothing needs
+// attention only when no process has such a lot and every chart could be
+// judged.
 func (s *Server) boardPage(w http.ResponseWriter, r *http.Request) {
 	ctx := r.Context()
-	ps, err := s.db.Processes(ctx, false)
+	pps, err := s.plant(ctx)
 	if err != nil {
 		s.internalError(w, r, err)
 		return
 	}
-	rows := make([]boardRow, len(ps))
-	var wg sync.WaitGroup
-	sem := make(chan struct{}, 4) // the analyses run side by side, a few at a time
-	for i, p := range ps {
-		wg.Go(func() {
-			sem <- struct{}{}
-			rows[i] = s.boardRow(ctx, p)
-			<-sem
-		})
+	q := r.URL.Query()
+	d := boardData{Total: len(pps), Now: fmtWhen(s.now()), Empty: len(pps) == 0,
+		Q: strings.TrimSpace(q.Get("q")), State: q.Get("state"), Area: q.Get("area")}
+	switch q.Get("view") {
+	case "table":
+		d.Table = true
+	case "cards":
+	default:
+		d.Table = len(pps) >= tableFrom
 	}
-	wg.Wait()
-	d := boardData{Rows: rows, Now: s.now().Format("2006-01-02 15:04 MST"), Empty: len(ps) == 0}
-	for _, row := range rows {
-		switch row.State {
-		case "out":
-			d.Out++
-		case "signal":
-			d.Signal++
-		default:
-			d.Quiet++
+	areas := map[string]bool{}
+	rows := make([]boardRow, 0, len(pps))
+	for _, pp := range pps {
+		row := s.boardRow(ctx, pp)
+		if pp.proc.Area != "" {
+			areas[pp.proc.Area] = true
+		}
+		switch {
+		case row.State == "error":
+			d.Errors++
+		case len(row.Need) > 0:
+			d.NeedProcs++
+			d.NeedLots += len(row.Need)
+			if o := row.Oldest(); d.Oldest == nil || o.Time.Before(d.Oldest.Time) {
+				d.Oldest = o
+			}
+		}
+		if row.TodayOut > 0 {
+			d.TodayOut++
+		} else if row.TodaySig > 0 {
+			d.TodaySig++
+		}
+		if d.keeps(row) {
+			rows = append(rows, row)
 		}
 	}
-	// Out of control first, then signals, then the rest, each by name.
-	rank := map[string]int{"out": 0, "signal": 1, "error": 2, "ok": 3, "none": 4}
-	sort.SliceStable(d.Rows, func(i, j int) bool { return rank[d.Rows[i].State] < rank[d.Rows[j].State] })
+	for a := range areas {
+		d.Areas = append(d.Areas, a)
+	}
+	slices.Sort(d.Areas)
+	sortBoard(rows)
+	d.Rows, d.Shown = rows, len(rows)
 	s.render(w, r, http.StatusOK, "board.html", "Status board", d)
 }
 
-func (s *Server) boardRow(ctx context.Context, p store.Process) boardRow {
-	row := boardRow{Proc: p, Kind: chartKind(p.Chart)}
-	pc, err := s.freshChart(ctx, p)
-	if err != nil {
-		s.log.Error("status board", "process", p.ID, "err", err)
-		row.State, row.Words, row.Err = "error", "the chart could not be computed", err.Error()
+// keeps reports whether the row passes the board's filter: a part of the
+// name (any case), a state ("attention" for out or signal) and an area.
+func (d *boardData) keeps(row boardRow) bool {
+	if d.Q != "" && !strings.Contains(strings.ToLower(row.Proc.Name), strings.ToLower(d.Q)) {
+		return false
+	}
+	if d.Area != "" && row.Proc.Area != d.Area {
+		return false
+	}
+	switch d.State {
+	case "":
+		return true
+	case "attention":
+		return row.State == "out" || row.State == "signal"
+	default:
+		return row.State == d.State
+	}
+}
+
+// stateRank orders the board: what needs attention first, then charts
+// that could not be judged, then the quiet ones.
+var stateRank = map[string]int{"out": 0, "signal": 1, "error": 2, "ok": 3, "none": 4}
+
+// sortBoard sorts by state, then by the age of the oldest lot needing
+// attention (oldest first), then by name.
+func sortBoard(rows []boardRow) {
+	slices.SortStableFunc(rows, func(a, b boardRow) int {
+		if d := stateRank[a.State] - stateRank[b.State]; d != 0 {
+			return d
+		}
+		if oa, ob := a.Oldest(), b.Oldest(); oa != nil && ob != nil {
+			if c := oa.Time.Compare(ob.Time); c != 0 {
+				return c
+			}
+		}
+		return strings.Compare(a.Proc.Name, b.Proc.Name)
+	})
+}
+
+// boardRow states one process: what needs attention, the causes, today's
+// figures and the latest lot.
+func (s *Server) boardRow(ctx context.Context, pp plantProcess) boardRow {
+	p := pp.proc
+	row := boardRow{Proc: p, Kind: chartKind(p.Chart), Need: pp.need, Causes: pp.causes}
+	if pp.err != nil {
+		s.log.Error("status board", "process", p.ID, "err", pp.err)
+		row.State, row.Words, row.Err = "error", "the chart could not be computed: what needs attention is not known", pp.err.Error()
 		return row
 	}
-	anns, err := s.db.Annotations(ctx, p.ID)
-	if err != nil {
-		row.State, row.Words, row.Err = "error", "the causes could not be read", err.Error()
-		return row
+	sum := pp.sum
+	row.Trial = sum.trial
+	if sum.latest != nil {
+		lp := *sum.latest
+		lp.Time = lp.Time.In(p.Location())
+		row.Latest = &lp
 	}
-	for _, a := range anns {
-		if !a.Closed {
-			row.OpenCauses++
+	now := s.now().In(p.Location())
+	midnight := time.Date(now.Year(), now.Month(), now.Day(), 0, 0, 0, 0, now.Location())
+	var ok bool
+	row.Today, row.TodayOut, row.TodaySig, ok = sum.today(midnight)
+	if !ok {
+		// Lots logged for days ahead: read today's from the chart.
+		pc, err := s.freshChart(ctx, p)
+		if err == nil {
+			var v *chartView
+			if v, err = buildView(pc, window{from: midnight}, byLot, pp.anns); err == nil {
+				row.Today, row.TodayOut, row.TodaySig = len(v.Points), v.OutCount, v.SignalCount
+			}
+		}
+		if err != nil {
+			row.State, row.Words, row.Err = "error", "today's lots could not be judged", err.Error()
+			return row
 		}
 	}
-	loc := p.Location()
-	now := s.now().In(loc)
-	midnight := time.Date(now.Year(), now.Month(), now.Day(), 0, 0, 0, 0, loc)
-	v, err := buildView(pc, window{from: midnight}, byLot, anns)
-	if err != nil {
-		row.State, row.Words, row.Err = "error", "the chart could not be computed", err.Error()
-		return row
-	}
-	row.Trial = len(pc.sets) == 0
-	row.Today, row.TodayOut, row.TodaySig = len(v.Points), v.OutCount, v.SignalCount
-	if n := len(pc.lots); n > 0 && pc.a != nil {
-		last, _ := buildView(pc, window{from: pc.lots[n-1].Time}, byLot, anns)
-		if last != nil && len(last.Points) > 0 {
-			lp := last.Points[len(last.Points)-1]
-			row.Latest = &lp
+	for _, l := range row.Need {
+		if l.Kind == attention.OutOfLimits {
+			row.NeedOut++
+		} else {
+			row.NeedSignal++
 		}
 	}
 	switch {
 	case row.Today == 0:
-		row.State, row.Words = "none", "no lots today"
+		row.TodayWords = "no lots today"
 	case row.TodayOut > 0:
-		row.State, row.Words = "out", plural(row.TodayOut, "lot", "lots")+" out of limits today"
-		if row.TodaySig > 0 {
-			row.Words += ", " + plural(row.TodaySig, "run-rule signal", "run-rule signals")
-		}
+		row.TodayWords = plural(row.TodayOut, "lot", "lots") + " of " + plural(row.Today, "lot", "lots") + " out of limits today"
 	case row.TodaySig > 0:
-		row.State, row.Words = "signal", plural(row.TodaySig, "run-rule signal", "run-rule signals")+" today"
+		row.TodayWords = plural(row.TodaySig, "signal", "signals") + " in today's " + plural(row.Today, "lot", "lots")
 	default:
-		row.State, row.Words = "ok", "in control today"
+		row.TodayWords = plural(row.Today, "lot", "lots") + " today, all within limits and no signal"
 	}
+	switch {
+	case row.NeedOut > 0:
+		row.State = "out"
+	case row.NeedSignal > 0:
+		row.State = "signal"
+	case row.Today > 0:
+		row.State = "ok"
+	default:
+		row.State = "none"
+	}
+	row.Words = needWords(row)
 	return row
+}
+
+// needWords says what needs attention on one process, in words.
+func needWords(row boardRow) string {
+	if len(row.Need) == 0 {
+		return "nothing needs attention"
+	}
+	var parts []string
+	if row.NeedOut > 0 {
+		parts = append(parts, plural(row.NeedOut, "out of limits", "out of limits"))
+	}
+	if row.NeedSignal > 0 {
+		parts = append(parts, plural(row.NeedSignal, "in a signal", "in signals"))
+	}
+	return plural(len(row.Need), "lot needs", "lots need") + " attention (" + strings.Join(parts, ", ") + "), oldest " + fmtWhen(row.Need[0].Time.In(row.Proc.Location()))
 }

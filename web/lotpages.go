@@ -293,6 +293,7 @@ type lotPageData struct {
 	RuleChoice []option
 	Problem    string
 	CauseForm  map[string]string
+	Back       string // the worklist to return to after recording a cause
 	History    []store.Lot
 	Audit      []store.AuditEntry
 	Form       lotForm
@@ -340,6 +341,11 @@ func (s *Server) showLot(w http.ResponseWriter, r *http.Request, status int, pro
 	d := lotPageData{Proc: p, Lot: l, Logged: q.Get("logged") == "1", Done: q.Get("done"), Problem: problem, CauseForm: cause}
 	if d.CauseForm == nil {
 		d.CauseForm = map[string]string{"rule": q.Get("rule")}
+	}
+	if back := q.Get("back"); isWorklistPath(back) {
+		d.Back = back
+	} else if back := r.PostFormValue("back"); isWorklistPath(back) {
+		d.Back = back
 	}
 	pc, err := s.freshChart(ctx, p)
 	if err != nil {

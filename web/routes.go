@@ -57,6 +57,8 @@ func (s *Server) routes() []route {
 		{"GET", "/upload", store.RoleInspector, s.uploadPage},
 		{"POST", "/upload", store.RoleInspector, s.postUpload},
 		{"POST", "/upload/{key}", store.RoleInspector, s.confirmUpload},
+		{"GET", "/attention", store.RoleViewer, s.worklistPage},
+		{"POST", "/attention/causes", store.RoleInspector, s.postWorklistCauses},
 		{"GET", "/review", store.RoleViewer, s.reviewPage},
 		{"GET", "/review/download", store.RoleViewer, s.reviewDownload},
 		{"GET", "/review/review.css", anyone, reviewCSS},

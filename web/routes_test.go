@@ -84,6 +84,8 @@ func TestRouteRoles(t *testing.T) {
 		{"GET", "/upload", nil, false, least(store.RoleInspector, ok), ""},
 		{"POST", "/upload", func() string { return "process=" + id }, true, least(store.RoleInspector, bad), ""},
 		{"POST", "/upload/0123456789abcdef", func() string { return "" }, true, least(store.RoleInspector, notFound), "/upload/{key}"},
+		{"GET", "/attention?kind=run_rule", nil, false, all(see, ok), "/attention"},
+		{"POST", "/attention/causes", fresh("lot=" + lot + "&cause=cause+%d"), true, least(store.RoleInspector, see), ""},
 		{"GET", "/review", nil, false, all(see, ok), ""},
 		{"GET", "/review/download?format=json", nil, false, all(see, ok), "/review/download"},
 		{"GET", "/review/review.css", nil, false, all(ok, ok), ""},
