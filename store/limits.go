@@ -212,6 +212,20 @@ type annotationAudit struct {
 	Reason    string `json:"reason,omitempty"`
 }
 
+// checkRule checks the rule an annotation is on: empty (on a lot only) or
+// the name of one run rule, as the chart names its signals (we1 … we4,
+// nelson1 … nelson8).
+func checkRule(rule string) []Problem {
+	if rule == "" {
+		return nil
+	}
+	rs, err := spc.ParseRules(rule)
+	if err != nil || len(rs.Rules()) != 1 || rs.Rules()[0].String() != rule {
+		return []Problem{{Field: "rule", Value: rule, Reason: "is not the name of one run rule (we1 … we4, nelson1 … nelson8)"}}
+	}
+	return nil
+}
+
 // AddAnnotation stores an annotation; Cause is required, LotID (if set)
 // must be a lot of the process. An annotation added with Closed set is
 // closed by the actor at once. With NoCauseFound, Reason is required
@@ -222,7 +236,7 @@ func (db *DB) AddAnnotation(ctx context.Context, actor string, a Annotation) (An
 	if a.NoCauseFound {
 		a.Closed = true
 	}
-	ps = append(ps, checkText("rule", a.Rule, 100, true)...)
+	ps = append(ps, checkRule(a.Rule)...)
 	if a.LotID == 0 && a.Rule == "" {
 		ps = append(ps, Problem{Field: "lot", Reason: "is not given: an annotation is on a lot or on a signal"})
 	}

@@ -94,6 +94,24 @@ func CheckRules(s string) error {
 var reservedColumns = map[string]bool{lotcsv.ColLot: true, lotcsv.ColTime: true, lotcsv.ColShift: true,
 	lotcsv.ColInspected: true, lotcsv.ColDefective: true, lotcsv.ColDefects: true, lotcsv.ColInspector: true, lotcsv.ColNote: true}
 
+// isFormat reports an invisible Unicode format character (category Cf:
+// U+200B zero-width space, U+202E right-to-left override, U+00AD soft
+// hyphen, …): in a code or a name it makes two different texts look
+// the same.
+func isFormat(r rune) bool { return unicode.Is(unicode.Cf, r) }
+
+// formatProblem names the first format character of v.
+func formatProblem(field, v string) Problem {
+	var r rune
+	if i := strings.IndexFunc(v, isFormat); i >= 0 {
+		r, _ = utf8.DecodeRuneInString(v[i:])
+	}
+	return Problem{Field: field, Value: v, Reason: fmt.Sprintf("must not contain invisible format characters (here %U), which make two texts look the same", r)}
+}
+
+// checkText checks a text field: valid UTF-8, at most max bytes, no NUL;
+// when trimmed (codes and names) also no surrounding spaces, control
+// characters or invisible format characters.
 func checkText(field, v string, max int, trimmed bool) []Problem {
 	switch {
 	case !utf8.ValidString(v):
@@ -104,6 +122,8 @@ func checkText(field, v string, max int, trimmed bool) []Problem {
 		return []Problem{{Field: field, Value: v, Reason: "must not start or end with spaces"}}
 	case trimmed && strings.IndexFunc(v, unicode.IsControl) >= 0:
 		return []Problem{{Field: field, Value: v, Reason: "must not contain control characters (tabs, line breaks)"}}
+	case trimmed && strings.IndexFunc(v, isFormat) >= 0:
+		return []Problem{formatProblem(field, v)}
 	case strings.IndexByte(v, 0) >= 0:
 		return []Problem{{Field: field, Value: strings.ReplaceAll(v, "\x00", `\0`), Reason: "must not contain NUL characters"}}
 	}
@@ -164,6 +184,8 @@ func normalizeProcess(p *Process) []Problem {
 			ps = append(ps, Problem{Field: "categories", Reason: "has an empty category name"})
 		case strings.ContainsAny(c, ",\"") || strings.TrimSpace(c) != c || strings.IndexFunc(c, unicode.IsControl) >= 0 || !utf8.ValidString(c):
 			ps = append(ps, Problem{Field: "categories", Value: c, Reason: "must not contain commas, quotes or control characters, nor start or end with spaces"})
+		case strings.IndexFunc(c, isFormat) >= 0:
+			ps = append(ps, formatProblem("categories", c))
 		case reservedColumns[key]:
 			ps = append(ps, Problem{Field: "categories", Value: c, Reason: "is the name of a standard lot column"})
 		case seen[key]:

@@ -386,6 +386,9 @@ func (db *DB) CreateToken(ctx context.Context, actor, userName, label string) (s
 		// A label is shown one per line in lists and logs.
 		return "", Token{}, invalid(Problem{Field: "label", Value: label, Reason: "must not contain line breaks, tabs or other control characters"})
 	}
+	if strings.IndexFunc(label, isFormat) >= 0 {
+		return "", Token{}, invalid(formatProblem("label", label))
+	}
 	secret, err := randomSecret()
 	if err != nil {
 		return "", Token{}, err
