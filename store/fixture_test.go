@@ -119,3 +119,69 @@ func TestWriteSchema1Fixture(t *testing.T) {
 		t.Fatal(err)
 	}
 }
+
+// schema2Fixture is a database written by lotwatch at schema version 2,
+// when each lot carried a packed copy of its values: the schema-1 fixture
+// upgraded (one migration entry in the audit trail), then lots added,
+// corrected and voided at schema 2, by writeSchema2Fixture at that
+// version (the committed file was written at commit d814a73).
+const schema2Fixture = "testdata/schema2.sqlite"
+
+// writeSchema2Fixture upgrades a copy of the schema-1 fixture at path and
+// writes to it.
+func writeSchema2Fixture(t *testing.T, path string) {
+	b, err := os.ReadFile(schema1Fixture)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(path, b, 0o600); err != nil {
+		t.Fatal(err)
+	}
+	db, err := Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	t0 := time.Date(2025, 3, 5, 6, 0, 0, 0, time.UTC)
+	var in []LotInput
+	for i := 0; i < 25; i++ {
+		in = append(in, LotInput{Lot: "S2-" + string(rune('A'+i)), Time: t0.Add(time.Duration(i) * time.Hour),
+			Shift: "late", Inspected: 180, Count: int64(i % 3), Categories: map[string]int64{"scratch": int64(i % 3)}, Inspector: "sam", Note: "after upgrade"})
+	}
+	added, err := db.AddLots(ctx, "sam", 1, in[:3])
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := db.AddLots(ctx, "sam", 1, in[3:]); err != nil { // more than 20: digest only
+		t.Fatal(err)
+	}
+	fix := in[1]
+	fix.Count, fix.Categories = 2, map[string]int64{"dent": 1, "scratch": 1}
+	if _, err := db.CorrectLot(ctx, "eng", "recounted", added[1].ID, fix); err != nil {
+		t.Fatal(err)
+	}
+	if err := db.VoidLot(ctx, "eng", "sample lost", added[2].ID); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := db.AddLots(ctx, "lee", 2, []LotInput{{Lot: "P-3", Time: t0, Inspected: 11, Count: 1}}); err != nil {
+		t.Fatal(err)
+	}
+	if chk, err := db.VerifyAudit(ctx); err != nil || !chk.OK {
+		t.Fatalf("fixture audit: %+v %v", chk, err)
+	}
+}
+
+func TestWriteSchema2Fixture(t *testing.T) {
+	if os.Getenv("LOTWATCH_WRITE_FIXTURE") == "" {
+		t.Skip("set LOTWATCH_WRITE_FIXTURE=1 to write " + schema2Fixture)
+	}
+	tmp := filepath.Join(t.TempDir(), "f.db")
+	writeSchema2Fixture(t, tmp)
+	b, err := os.ReadFile(tmp)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(schema2Fixture, b, 0o644); err != nil {
+		t.Fatal(err)
+	}
+}

@@ -193,3 +193,87 @@ func benchAPIPostLots(b *testing.B, size int) {
 		b.StartTimer()
 	}
 }
+
+// largeLots is the size of the record BenchmarkChartPageLarge draws: a
+// lot every 30 minutes for about five and a half years.
+const largeLots = 100000
+
+// BenchmarkChartPageLarge measures the chart page of a large record as a
+// user meets it: the whole record of 100,000 lots cold (no judged chart
+// cached, so the lots are read and judged for the request), and the last
+// 30 days of it, 1,440 lots, warm (the judged chart cached). Each lot has
+// a shift and category counts. Beside them, in the same run, the bare
+// read of the lots (store.Lots) and the bare analysis (read and judge);
+// "ratio" is the page's time over the bare read.
+func BenchmarkChartPageLarge(b *testing.B) {
+	e := newTestEnv(b)
+	ctx := context.Background()
+	now := e.clock.Now()
+	in := make([]store.LotInput, 0, 10000)
+	for i := range largeLots {
+		c := int64(3+i%5) + int64(15*btoi(i%997 == 0))
+		in = append(in, store.LotInput{Lot: lotCode(i), Time: now.Add(-time.Duration(largeLots-i)*30*time.Minute + 15*time.Minute),
+			Shift: []string{"early", "late", "night"}[(i/16)%3], Inspected: 200, Count: c,
+			Categories: map[string]int64{"scratch": c / 2, "dent": c - c/2}, Inspector: fmt.Sprintf("badge %d", i%7)})
+		if len(in) == cap(in) {
+			if _, err := e.db.AddLots(ctx, "setup", e.proc.ID, in); err != nil {
+				b.Fatal(err)
+			}
+			in = in[:0]
+		}
+	}
+	timed := func(f func()) time.Duration {
+		const n = 3
+		t0 := time.Now()
+		for range n {
+			f()
+		}
+		return time.Since(t0) / n
+	}
+	read := timed(func() {
+		if _, err := e.db.Lots(ctx, e.proc.ID, time.Time{}, time.Time{}); err != nil {
+			b.Fatal(err)
+		}
+	})
+	analysis := timed(func() {
+		if _, err := e.srv.analyzeProcess(ctx, e.proc); err != nil {
+			b.Fatal(err)
+		}
+	})
+	c := e.signIn(b, "viewer1", testPassword)
+	for _, run := range []struct {
+		name, query string
+		cold        bool
+	}{{"all-cold", "period=all", true}, {"30d-warm", "period=30d", false}} {
+		b.Run(run.name, func(b *testing.B) {
+			path := fmt.Sprintf("/processes/%d?%s", e.proc.ID, run.query)
+			if rec := e.do(req{method: "GET", path: path, cookie: c}); rec.Code != 200 {
+				b.Fatalf("status %d", rec.Code)
+			}
+			var size int
+			var total time.Duration
+			for b.Loop() {
+				if run.cold {
+					b.StopTimer()
+					e.srv.judges.mu.Lock()
+					e.srv.judges.cache = nil
+					e.srv.judges.mu.Unlock()
+					b.StartTimer()
+				}
+				t0 := time.Now()
+				rec := e.do(req{method: "GET", path: path, cookie: c})
+				total += time.Since(t0)
+				if rec.Code != 200 {
+					b.Fatalf("status %d", rec.Code)
+				}
+				size = rec.Body.Len()
+			}
+			per := total / time.Duration(b.N)
+			b.ReportMetric(float64(per.Microseconds())/1000, "ms/req")
+			b.ReportMetric(float64(size)/1e6, "MB/page")
+			b.ReportMetric(float64(read.Microseconds())/1000, "read-ms")
+			b.ReportMetric(float64(analysis.Microseconds())/1000, "analysis-ms")
+			b.ReportMetric(float64(per)/float64(read), "ratio")
+		})
+	}
+}
