@@ -98,14 +98,13 @@ const (
 		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`
 	qBumpVersion = `INSERT INTO lot_versions (process_id, version, rewrites) VALUES (?, 1, ?)
 		ON CONFLICT (process_id) DO UPDATE SET version = version + 1, rewrites = rewrites + excluded.rewrites`
-	qLotInsert = `INSERT INTO lots (id, process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, packed)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, 1, 0, ?, ?, ?) ON CONFLICT (process_id, lot) DO NOTHING`
-	qLotNextID   = "SELECT COALESCE(MAX(id), 0) + 1 FROM lots"
+	qLotInsert = `INSERT INTO lots (process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, 1, 0, ?, ?) ON CONFLICT (process_id, lot) DO NOTHING`
 	qLotByCode   = "SELECT " + lotCols + " FROM lots WHERE process_id = ? AND lot = ?"
 	qProcessByID = "SELECT " + processCols + " FROM processes WHERE id = ?"
 )
 
-var hotQueries = []string{qSavepoint, qRelease, qHeadSelect, qHeadUpdate, qAuditInsert, qBumpVersion, qLotInsert, qLotNextID, qLotByCode, qProcessByID}
+var hotQueries = []string{qSavepoint, qRelease, qHeadSelect, qHeadUpdate, qAuditInsert, qBumpVersion, qLotInsert, qLotByCode, qProcessByID}
 
 func (db *DB) prepareHot() error {
 	db.hot = map[string]*sql.Stmt{}

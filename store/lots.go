@@ -4,12 +4,10 @@ import (
 	"context"
 	"crypto/sha256"
 	"database/sql"
-	"database/sql/driver"
 	"encoding/hex"
 	"encoding/json"
 	"errors"
 	"fmt"
-	"io"
 	"maps"
 	"sort"
 	"strconv"
@@ -186,66 +184,6 @@ func decodeCategories(s string) (map[string]int64, error) {
 	return m, err
 }
 
-// decodeCategoriesInto fills m (cleared) from the stored form b, naming
-// the keys with the strings of names where they match (no allocation per
-// lot); anything unusual goes through encoding/json.
-func decodeCategoriesInto(m map[string]int64, b []byte, names []string) error {
-	clear(m)
-	if len(b) < 2 || b[0] != '{' || b[len(b)-1] != '}' {
-		return json.Unmarshal(b, &m)
-	}
-	i := 1
-	for i < len(b)-1 {
-		if b[i] != '"' {
-			return json.Unmarshal(b, &m)
-		}
-		j := i + 1
-		for j < len(b) && b[j] != '"' && b[j] != '\\' {
-			j++
-		}
-		if j+1 >= len(b) || b[j] != '"' || b[j+1] != ':' {
-			clear(m)
-			return json.Unmarshal(b, &m)
-		}
-		key := b[i+1 : j]
-		neg := false
-		j += 2
-		if j < len(b) && b[j] == '-' {
-			neg = true
-			j++
-		}
-		start := j
-		var n int64
-		for j < len(b) && b[j] >= '0' && b[j] <= '9' {
-			n = n*10 + int64(b[j]-'0')
-			j++
-		}
-		if j == start || j-start > 18 {
-			clear(m)
-			return json.Unmarshal(b, &m)
-		}
-		if neg {
-			n = -n
-		}
-		name := ""
-		for _, nm := range names {
-			if nm == string(key) {
-				name = nm
-				break
-			}
-		}
-		if name == "" {
-			name = string(key)
-		}
-		m[name] = n
-		if b[j] == ',' {
-			j++
-		}
-		i = j
-	}
-	return nil
-}
-
 // lotContent is the canonical content of a lot for the audit trail.
 type lotContent struct {
 	Lot        string           `json:"lot"`
@@ -326,24 +264,26 @@ func scanLot(s interface{ Scan(...any) error }, l *Lot, loc *time.Location) erro
 
 // lotAdder inserts lots in the writer transaction; import and AddLots use it.
 type lotAdder struct {
-	w       *wtx
-	p       Process
-	actor   string
-	ins     *sql.Stmt
-	get     *sql.Stmt
-	digest  []byte
-	h       hashWriter
-	first   int64
-	last    int64
-	n       int
-	buf     []byte
-	packed  []byte
-	scratch Lot
-	next    int64 // the id of the next lot added
+	w      *wtx
+	p      Process
+	actor  string
+	ins    *sql.Stmt
+	get    *sql.Stmt
+	digest []byte
+	h      hashWriter
+	first  int64
+	last   int64
+	n      int
+	buf    []byte
+	listed []LotInput // the lots added, while there are at most maxListed
 	// skipConflicts reports a stored lot with other values as a conflict
 	// in the result rather than as a problem (import only).
 	skipConflicts bool
 }
+
+// maxListed is the largest batch whose audit entry lists the lots' content
+// (a larger one carries the digest only).
+const maxListed = 20
 
 // appendCanonical appends the canonical line of a lot for the digest of a
 // batch: its fields in a fixed order, NUL-separated, times as nanoseconds
@@ -374,13 +314,7 @@ type hashWriter interface {
 
 func (w *wtx) newLotAdder(actor string, p Process) (*lotAdder, error) {
 	ins, get := w.db.stmt(w.Tx, qLotInsert), w.db.stmt(w.Tx, qLotByCode)
-	a := &lotAdder{w: w, p: p, actor: actor, ins: ins, get: get, h: sha256.New()}
-	// Ids are given here, as SQLite would (one above the highest), so that
-	// the packed copy can carry its lot's id.
-	if err := w.db.queryRowIn(w.Tx, qLotNextID).Scan(&a.next); err != nil {
-		return nil, err
-	}
-	return a, nil
+	return &lotAdder{w: w, p: p, actor: actor, ins: ins, get: get, h: sha256.New()}, nil
 }
 
 // close ends the adder (its statements belong to the transaction).
@@ -391,21 +325,21 @@ func (a *lotAdder) close() {}
 // leaves in as it was, so that a retry without a time is compared on the
 // fields it states.
 func (a *lotAdder) add(in *LotInput) (id int64, added bool, err error) {
-	a.scratch = Lot{ID: a.next, LotInput: *in, Revision: 1, Recorded: a.w.now, RecordedBy: a.actor}
-	if a.scratch.Time.IsZero() {
-		a.scratch.Time = a.w.now
+	t := in.Time
+	if t.IsZero() {
+		t = a.w.now
 	}
-	a.packed = appendPacked(a.packed[:0], &a.scratch, a.p.Categories)
-	res, err := a.ins.Exec(a.next, a.p.ID, in.Lot, a.scratch.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, a.w.now.UnixNano(), a.actor, a.packed)
+	res, err := a.ins.Exec(a.p.ID, in.Lot, t.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, a.w.now.UnixNano(), a.actor)
 	if err != nil {
 		return 0, false, fmt.Errorf("store: add lot %q: %w", in.Lot, err)
 	}
 	if n, _ := res.RowsAffected(); n == 0 {
 		return 0, false, nil
 	}
-	in.Time = a.scratch.Time
-	id = a.next
-	a.next++
+	if id, err = res.LastInsertId(); err != nil {
+		return 0, false, err
+	}
+	in.Time = t
 	if a.n == 0 {
 		a.first = id
 	}
@@ -413,6 +347,9 @@ func (a *lotAdder) add(in *LotInput) (id int64, added bool, err error) {
 	a.n++
 	a.buf = appendCanonical(a.buf[:0], in)
 	a.h.Write(a.buf)
+	if a.n <= maxListed {
+		a.listed = append(a.listed, *in)
+	}
 	return id, true, nil
 }
 
@@ -424,8 +361,9 @@ func (a *lotAdder) stored(code string) (Lot, error) {
 
 // finish writes the audit entry of the lots added: the ids, their number
 // and the SHA-256 over their canonical content;
-// small batches carry the full content. The digest is over the lines of
-// appendCanonical, in id order.
+// small batches carry the full content (of lots, or when lots is nil, of
+// the lots added), so that `audit verify` can name a lot changed since.
+// The digest is over the lines of appendCanonical, in id order.
 func (a *lotAdder) finish(how string, lots []LotInput, extra map[string]any) error {
 	if a.n == 0 {
 		return nil
@@ -438,7 +376,10 @@ func (a *lotAdder) finish(how string, lots []LotInput, extra map[string]any) err
 	for k, v := range extra {
 		rec[k] = v
 	}
-	if len(lots) > 0 && len(lots) <= 20 {
+	if lots == nil && a.n <= maxListed {
+		lots = a.listed
+	}
+	if len(lots) > 0 && len(lots) <= maxListed {
 		cs := make([]lotContent, len(lots))
 		for i, in := range lots {
 			cs[i] = contentOf(in, false)
@@ -540,38 +481,52 @@ func (db *DB) AddLots(ctx context.Context, actor string, processID int64, in []L
 // Lots returns the lots of a process that are not voided, in time order
 // (then id), with from ≤ time < to; a zero bound is open.
 func (db *DB) Lots(ctx context.Context, processID int64, from, to time.Time) ([]Lot, error) {
-	var out []Lot
+	// Counting first (the index alone, no value read) sizes the result
+	// once instead of copying it as it grows.
+	lo, hi := timeBounds(from, to)
+	var n int
+	if err := db.r.QueryRowContext(ctx, `SELECT COUNT(*) FROM lots INDEXED BY lots_read
+		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ?`, processID, lo, hi).Scan(&n); err != nil {
+		return nil, err
+	}
+	out := make([]Lot, 0, n)
 	err := db.EachLot(ctx, processID, from, to, func(l Lot) error {
-		l.Categories = maps.Clone(l.Categories)
 		out = append(out, l)
 		return nil
 	})
+	if len(out) == 0 {
+		out = nil
+	}
 	return out, err
 }
 
 // EachLot calls fn with each lot that Lots would return, streaming, so
-// memory does not grow with the number of lots. For speed the Lot passed
-// to fn shares its Categories map with other lots of the walk: fn must not
-// change it, and must copy it (maps.Clone) to keep it. An error from fn
-// stops the walk and is returned.
+// memory does not grow with the number of lots. An error from fn stops
+// the walk and is returned.
 //
-// The lots are read from the covering index lots_read, whose packed
-// column carries every value of a lot (see appendPacked): one index scan,
-// one column per lot, no lookup in the table.
+// The lots are read from the covering index lots_read, which holds every
+// column of a lot in time order: one index scan, no lookup in the table.
 func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, fn func(Lot) error) error {
 	p, err := db.Process(ctx, processID)
 	if err != nil {
 		return err
 	}
-	lo, hi := int64(-1<<63), int64(1<<63-1)
+	lo, hi := timeBounds(from, to)
+	return db.walkLots(ctx, p, `SELECT `+readCols+` FROM lots INDEXED BY lots_read
+		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ? ORDER BY time, id`, fn, processID, lo, hi)
+}
+
+// timeBounds are the stored times of from ≤ time < to, both ends
+// inclusive; a zero bound is open.
+func timeBounds(from, to time.Time) (lo, hi int64) {
+	lo, hi = -1<<63, 1<<63-1
 	if !from.IsZero() {
 		lo = from.UnixNano()
 	}
 	if !to.IsZero() {
 		hi = to.UnixNano() - 1
 	}
-	return db.walkPacked(ctx, p, `SELECT packed FROM lots INDEXED BY lots_read
-		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ? ORDER BY time, id`, fn, processID, lo, hi)
+	return lo, hi
 }
 
 // LotsAddedAfter returns the lots of a process with an id above afterID
@@ -583,92 +538,57 @@ func (db *DB) LotsAddedAfter(ctx context.Context, processID, afterID int64) ([]L
 		return nil, err
 	}
 	var out []Lot
-	err = db.walkPacked(ctx, p, `SELECT packed FROM lots
+	err = db.walkLots(ctx, p, `SELECT `+readCols+` FROM lots
 		WHERE id > ? AND process_id = ? AND voided = 0 ORDER BY time, id`, func(l Lot) error {
-		l.Categories = maps.Clone(l.Categories)
 		out = append(out, l)
 		return nil
 	}, afterID, processID)
 	return out, err
 }
 
-// readMmap is the memory map a walk of lots asks of its read connection
-// (SQLite maps at most this much of the file; 1 GiB holds the lots_read
-// index of some ten million lots).
-const readMmap = "PRAGMA mmap_size = 1073741824"
+// readCols are the columns walkLots reads: those of a lot that is not
+// voided, but its process.
+const readCols = "id, lot, time, shift, inspected, count, categories, inspector, note, revision, recorded, recorded_by, reason"
 
-// walkPacked runs query (selecting packed) and calls fn with each
-// lot, as EachLot describes.
-func (db *DB) walkPacked(ctx context.Context, p Process, query string, fn func(Lot) error, args ...any) error {
+// walkLots runs query (selecting readCols) and calls fn with each lot of
+// process p, as EachLot describes. Each lot gets a Categories map of its
+// own; lots mostly repeat a few combinations of category counts, so each
+// stored form met is decoded once and copied after that.
+func (db *DB) walkLots(ctx context.Context, p Process, query string, fn func(Lot) error, args ...any) error {
 	loc := p.Location()
-	conn, err := db.r.Conn(ctx)
+	rows, err := db.r.QueryContext(ctx, query, args...)
 	if err != nil {
 		return err
 	}
-	defer conn.Close()
-	// The rows are read from the driver directly: database/sql's locking
-	// and conversions per row cost as much as SQLite's own step.
-	return conn.Raw(func(dc any) error {
-		q, ok := dc.(driver.QueryerContext)
-		if !ok {
-			return errors.New("store: the SQLite driver cannot query")
-		}
-		// Map the file for the walk: index pages are then read in place
-		// instead of being copied through the page cache by read calls.
-		if ex, ok := dc.(driver.ExecerContext); ok {
-			ex.ExecContext(ctx, readMmap, nil)
-		}
-		named := make([]driver.NamedValue, len(args))
-		for i, a := range args {
-			named[i] = driver.NamedValue{Ordinal: i + 1, Value: a}
-		}
-		rows, err := q.QueryContext(ctx, query, named)
-		if err != nil {
+	defer rows.Close()
+	decoded := map[string]map[string]int64{}
+	var cats sql.RawBytes
+	// One Lot is scanned into and handed to fn by value: the pointers
+	// Scan takes would otherwise move a new Lot to the heap for each row.
+	var l Lot
+	var t, rec, rev int64 // (database/sql converts an int64 to an int64 directly)
+	for rows.Next() {
+		l = Lot{ProcessID: p.ID}
+		if err := rows.Scan(&l.ID, &l.Lot, &t, &l.Shift, &l.Inspected, &l.Count, &cats, &l.Inspector, &l.Note, &rev, &rec, &l.RecordedBy, &l.Reason); err != nil {
 			return err
 		}
-		defer rows.Close()
-		var l Lot
-		l.ProcessID = p.ID
-		lr := newLotReader(p.Categories, loc)
-		dest := make([]driver.Value, 1)
-		for {
-			if err := rows.Next(dest); err == io.EOF {
-				return nil
-			} else if err != nil {
-				return err
-			}
-			packed, ok := dest[0].([]byte)
+		l.Revision = int(rev)
+		l.Time, l.Recorded = fromNanos(t, loc), fromNanos(rec, loc)
+		if len(cats) > 0 {
+			m, ok := decoded[string(cats)]
 			if !ok {
-				return fmt.Errorf("store: a lot of process %d after lot %d has no packed copy", p.ID, l.ID)
+				if m, err = decodeCategories(string(cats)); err != nil {
+					return fmt.Errorf("store: lot %d: categories: %w", l.ID, err)
+				}
+				decoded[string(cats)] = m
 			}
-			if err := lr.unpack(packed, &l); err != nil {
-				return fmt.Errorf("store: the lot after lot %d: %w", l.ID, err)
-			}
-			if err := fn(l); err != nil {
-				return err
-			}
+			l.Categories = maps.Clone(m)
 		}
-	})
-}
-
-// interner shares the strings of short, repeating fields (shift,
-// inspector, …) so a long walk allocates each once.
-type interner struct{ m map[string]string }
-
-func newInterner() *interner { return &interner{m: map[string]string{}} }
-
-func (in *interner) get(b []byte) string {
-	if len(b) == 0 {
-		return ""
+		if err := fn(l); err != nil {
+			return err
+		}
 	}
-	if s, ok := in.m[string(b)]; ok {
-		return s
-	}
-	s := string(b)
-	if len(in.m) < 4096 && len(b) <= 64 {
-		in.m[s] = s
-	}
-	return s
+	return rows.Err()
 }
 
 // LotByID returns a lot in its current revision (voided or not).
@@ -747,9 +667,8 @@ func (db *DB) CorrectLot(ctx context.Context, actor, reason string, id int64, in
 		out = Lot{ID: id, ProcessID: p.ID, LotInput: in, Revision: old.Revision + 1, Recorded: w.now.In(loc), RecordedBy: actor, Reason: reason}
 		out.Time = in.Time.In(loc)
 		_, err = w.Exec(`UPDATE lots SET lot = ?, time = ?, shift = ?, inspected = ?, count = ?, categories = ?, inspector = ?, note = ?,
-			revision = revision + 1, recorded = ?, recorded_by = ?, reason = ?, packed = ? WHERE id = ?`,
-			in.Lot, in.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, w.now.UnixNano(), actor, reason,
-			appendPacked(nil, &out, p.Categories), id)
+			revision = revision + 1, recorded = ?, recorded_by = ?, reason = ? WHERE id = ?`,
+			in.Lot, in.Time.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, w.now.UnixNano(), actor, reason, id)
 		if isUnique(err) {
 			return &ConflictError{Conflicts: []Conflict{{Lot: in.Lot, Fields: []string{"lot"}}}}
 		}
@@ -788,9 +707,8 @@ func (db *DB) VoidLot(ctx context.Context, actor, reason string, id int64) error
 		if err != nil {
 			return err
 		}
-		nw := Lot{ID: id, LotInput: old.LotInput, Revision: old.Revision + 1, Voided: true, Recorded: w.now, RecordedBy: actor, Reason: reason}
-		if _, err := w.Exec("UPDATE lots SET voided = 1, revision = revision + 1, recorded = ?, recorded_by = ?, reason = ?, packed = ? WHERE id = ?",
-			w.now.UnixNano(), actor, reason, appendPacked(nil, &nw, p.Categories), id); err != nil {
+		if _, err := w.Exec("UPDATE lots SET voided = 1, revision = revision + 1, recorded = ?, recorded_by = ?, reason = ? WHERE id = ?",
+			w.now.UnixNano(), actor, reason, id); err != nil {
 			return err
 		}
 		if err := w.bumpVersion(p.ID, true); err != nil {

@@ -12,9 +12,10 @@ import (
 	"lotwatch/spc"
 )
 
-// TestReadPathsAgree checks the fast read path (Lots and EachLot, which
-// decode the packed copy of each lot and reuse repeated values) against
-// LotByID, which reads the lot's own columns: every field of every lot,
+// TestReadPathsAgree checks the read path of charts (Lots and EachLot,
+// which read the covering index lots_read and decode each stored form of
+// category counts once) against LotByID, which reads the table's row:
+// every field of every lot,
 // over many shifts, inspectors, notes and category counts, with
 // corrections and voids among them. The reference is the row as stored
 // (a property of the store itself; no outside source applies).

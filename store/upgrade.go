@@ -7,6 +7,7 @@ import (
 	"encoding/hex"
 	"encoding/json"
 	"fmt"
+	"sort"
 	"time"
 )
 
@@ -27,6 +28,12 @@ const upgradeChunk = 8192
 // The values of the lots are not changed, and `audit verify` checks them
 // afterwards against the entries they were written with, so tampering
 // from before the upgrade is still found after it.
+//
+// Migration 0004 drops the packed copy again. The step stays so that a
+// file upgraded from schema 1 gets the same audit trail whether it
+// passed through schema 2 with an earlier lotwatch or not, and so that a
+// file left at schema 2 by an interrupted upgrade is one that an earlier
+// lotwatch reads.
 func upgradePackedLots(tx *sql.Tx, m migration) error {
 	cats := map[int64][]string{}
 	rows, err := tx.Query("SELECT id, categories FROM processes")
@@ -105,4 +112,64 @@ func upgradePackedLots(tx *sql.Tx, m migration) error {
 		Reason: "schema upgrade: a packed copy of each lot for chart reads"}
 	_, err = (*DB)(nil).appendAudit(tx, head, &e)
 	return err
+}
+
+// packedVersion is the first byte of a packed lot.
+const packedVersion = 1
+
+// appendPacked appends the packed form of a lot's stored values, as
+// schema 2 kept it beside the columns (migration 0004 dropped it): a
+// version byte, the id as a uvarint, time and recorded as 8-byte little-endian nanoseconds,
+// varints (encoding/binary) for inspected, count and revision,
+// length-prefixed strings for lot, shift,
+// inspector, note, recorded_by and reason, and the category counts — each
+// a uvarint k (the category's position in the process's list, from 1; 0
+// for a name outside it, followed by the name) and a varint count. Known
+// categories come first in the process's order, other names after them
+// sorted, so the packed form of given values is always the same bytes.
+func appendPacked(b []byte, l *Lot, cats []string) []byte {
+	b = append(b, packedVersion)
+	b = binary.AppendUvarint(b, uint64(l.ID))
+	b = binary.LittleEndian.AppendUint64(b, uint64(l.Time.UnixNano()))
+	b = binary.LittleEndian.AppendUint64(b, uint64(nanos(l.Recorded)))
+	b = binary.AppendVarint(b, l.Inspected)
+	b = binary.AppendVarint(b, l.Count)
+	b = binary.AppendUvarint(b, uint64(l.Revision))
+	for _, s := range [...]string{l.Lot, l.Shift, l.Inspector, l.Note, l.RecordedBy, l.Reason} {
+		b = binary.AppendUvarint(b, uint64(len(s)))
+		b = append(b, s...)
+	}
+	b = binary.AppendUvarint(b, uint64(len(l.Categories)))
+	if len(l.Categories) == 0 {
+		return b
+	}
+	n := 0
+	for i, c := range cats {
+		if v, ok := l.Categories[c]; ok {
+			b = binary.AppendUvarint(b, uint64(i+1))
+			b = binary.AppendVarint(b, v)
+			n++
+		}
+	}
+	if n == len(l.Categories) {
+		return b
+	}
+	known := make(map[string]bool, len(cats))
+	for _, c := range cats {
+		known[c] = true
+	}
+	var other []string
+	for c := range l.Categories {
+		if !known[c] {
+			other = append(other, c)
+		}
+	}
+	sort.Strings(other)
+	for _, c := range other {
+		b = binary.AppendUvarint(b, 0)
+		b = binary.AppendUvarint(b, uint64(len(c)))
+		b = append(b, c...)
+		b = binary.AppendVarint(b, l.Categories[c])
+	}
+	return b
 }

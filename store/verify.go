@@ -1,14 +1,12 @@
 package store
 
 import (
-	"bytes"
 	"context"
 	"crypto/sha256"
 	"database/sql"
 	"encoding/hex"
 	"encoding/json"
 	"fmt"
-	"maps"
 	"sort"
 	"strconv"
 	"time"
@@ -24,8 +22,7 @@ import (
 // reason are the row's recorded time, author and reason. VerifyAudit, once
 // the chain holds, reads every current row and checks it against the
 // latest entry about it, so that a row edited, added or removed with plain
-// SQL is found and named. The packed copy of each lot (migration 0002) is
-// checked against the lot's columns as well.
+// SQL is found and named.
 
 // dataTrail collects, while the chain is walked, what each row must hold.
 type dataTrail struct {
@@ -439,7 +436,7 @@ func (d *dataTrail) checkLots(ctx context.Context, tx *sql.Tx, procs map[int64]p
 				fmt.Sprintf("is claimed by entries %d and %d of the audit trail", batches[i-1].seq, batches[i].seq)}, nil
 		}
 	}
-	rows, err := tx.QueryContext(ctx, `SELECT id, process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason, packed
+	rows, err := tx.QueryContext(ctx, `SELECT id, process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason
 		FROM lots ORDER BY id`)
 	if err != nil {
 		return nil, err
@@ -452,19 +449,16 @@ func (d *dataTrail) checkLots(ctx context.Context, tx *sql.Tx, procs map[int64]p
 		return fmt.Sprintf("lot %d (process %q, lot code %s)", id, procs[pid].name, code)
 	}
 	var (
-		bi      int
-		open    bool
-		next    int64
-		n       int
-		h       = sha256.New()
-		line    []byte
-		packed  []byte
-		codes   []revRow // first revisions of the open batch, for naming (small batches only)
-		cur     revRow
-		pid     int64
-		stored  sql.RawBytes
-		t       int64
-		catsMap = map[string]int64{}
+		bi    int
+		open  bool
+		next  int64
+		n     int
+		h     = sha256.New()
+		line  []byte
+		codes []revRow // first revisions of the open batch, for naming (small batches only)
+		cur   revRow
+		pid   int64
+		t     int64
 	)
 	closeBatch := func() (*rowBreak, error) {
 		b := &batches[bi]
@@ -492,7 +486,7 @@ func (d *dataTrail) checkLots(ctx context.Context, tx *sql.Tx, procs map[int64]p
 			}
 		}
 		for i := range codes {
-			if g, ok := given[codes[i].in.Lot]; !ok || g != toJSON(contentOf(codes[i].in, false)) {
+			if g, ok := given[codes[i].in.Lot]; len(given) > 0 && (!ok || g != toJSON(contentOf(codes[i].in, false))) {
 				return differ(b.seq, lotName(b.first+int64(i), b.pid, codes[i].in.Lot)), nil
 			}
 		}
@@ -502,7 +496,7 @@ func (d *dataTrail) checkLots(ctx context.Context, tx *sql.Tx, procs map[int64]p
 		var id int64
 		cur = revRow{}
 		if err := rows.Scan(&id, &pid, &cur.in.Lot, &t, &cur.in.Shift, &cur.in.Inspected, &cur.in.Count, &cur.cats, &cur.in.Inspector, &cur.in.Note,
-			&cur.revision, &cur.voided, &cur.recorded, &cur.recordedBy, &cur.reason, &stored); err != nil {
+			&cur.revision, &cur.voided, &cur.recorded, &cur.recordedBy, &cur.reason); err != nil {
 			return nil, err
 		}
 		cur.in.Time = time.Unix(0, t).UTC()
@@ -533,21 +527,11 @@ func (d *dataTrail) checkLots(ctx context.Context, tx *sql.Tx, procs map[int64]p
 		if pid != b.pid {
 			return differ(b.seq, name), nil
 		}
-		// The packed copy must hold the columns' values.
 		if cur.cats != "" {
-			if err := decodeCategoriesInto(catsMap, []byte(cur.cats), procs[pid].cats); err != nil {
+			var err error
+			if cur.in.Categories, err = decodeCategories(cur.cats); err != nil {
 				return differ(b.seq, name), nil
 			}
-		}
-		l := Lot{ID: id, LotInput: cur.in, Revision: cur.revision, Voided: cur.voided, Recorded: time.Unix(0, cur.recorded), RecordedBy: cur.recordedBy, Reason: cur.reason}
-		if cur.cats == "" {
-			l.Categories = nil
-		} else {
-			l.Categories = catsMap
-		}
-		packed = appendPacked(packed[:0], &l, procs[pid].cats)
-		if !bytes.Equal(packed, stored) {
-			return differ(b.seq, name), nil
 		}
 		// The first revision is what the batch added; each later one is
 		// what a correction or void made it.
@@ -571,9 +555,7 @@ func (d *dataTrail) checkLots(ctx context.Context, tx *sql.Tx, procs map[int64]p
 			if r.revision != i+2 {
 				return &rowBreak{e.seq, name, "its revisions differ from the audit trail"}, nil
 			}
-			if cur.cats != "" && r == &chain[len(chain)-1] {
-				r.in.Categories = maps.Clone(catsMap)
-			} else if r.in.Categories == nil && r.cats != "" {
+			if r.in.Categories == nil && r.cats != "" {
 				r.in.Categories, _ = decodeCategories(r.cats)
 			}
 			if r.content() != e.next || r.recorded != e.at || r.recordedBy != e.actor || r.reason != e.reason {

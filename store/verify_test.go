@@ -6,6 +6,8 @@ import (
 	"strings"
 	"testing"
 	"time"
+
+	"lotwatch/spc"
 )
 
 // fixtureCopy copies the schema-1 fixture to a temporary file.
@@ -36,31 +38,6 @@ func verifyFile(t *testing.T, path string) AuditCheck {
 	return chk
 }
 
-// packedOf computes the packed copy of a stored lot as lotwatch would, so
-// that a test can change a lot's columns and its copy alike.
-func packedOf(t *testing.T, path, code string, change func(*Lot)) []byte {
-	t.Helper()
-	db, err := Open(path)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer db.Close()
-	var id int64
-	if err := db.r.QueryRow("SELECT id FROM lots WHERE lot = ?", code).Scan(&id); err != nil {
-		t.Fatal(err)
-	}
-	l, err := db.LotByID(ctx, id)
-	if err != nil {
-		t.Fatal(err)
-	}
-	p, err := db.Process(ctx, l.ProcessID)
-	if err != nil {
-		t.Fatal(err)
-	}
-	change(&l)
-	return appendPacked(nil, &l, p.Categories)
-}
-
 // The audit chain catches a data row edited, added or removed behind the
 // tool's back: each case changes one row with plain SQL, and verify must
 // fail naming that row; changes to what the trail does not cover
@@ -72,31 +49,20 @@ func TestAuditCatchesDataRows(t *testing.T) {
 		args func(t *testing.T, path string) []any
 		want string // in Why; "" means verify must hold
 	}{
+		// A batch of more than 20 lots is recorded by its digest only, so a
+		// change to one of its lots is named by the batch's range.
 		{name: "lot count in a large batch", sql: []string{"UPDATE lots SET count = count + 1 WHERE lot = 'H2-G0'"},
-			want: `process "Line 2 press", lot code H2-G0): stored values differ from the audit trail`},
+			want: `lots 6–30 (process "Line 2 press"): stored values differ from the audit trail`},
 		{name: "lot count in a small batch", sql: []string{"UPDATE lots SET inspected = 201 WHERE lot = 'H2-B0'"},
 			want: `lot code H2-B0): stored values differ`},
-		{name: "lot count and its packed copy alike, small batch", sql: []string{"UPDATE lots SET count = 3, packed = ? WHERE lot = 'H2-B0'"},
-			args: func(t *testing.T, path string) []any {
-				return []any{packedOf(t, path, "H2-B0", func(l *Lot) { l.Count = 3 })}
-			},
-			want: `lot code H2-B0): stored values differ`},
-		{name: "lot count and its packed copy alike, large batch", sql: []string{"UPDATE lots SET count = 3, packed = ? WHERE lot = 'H2-G0'"},
-			args: func(t *testing.T, path string) []any {
-				return []any{packedOf(t, path, "H2-G0", func(l *Lot) { l.Count = 3 })}
-			},
-			want: `(process "Line 2 press"): stored values differ`},
-		{name: "only the packed copy", sql: []string{"UPDATE lots SET packed = ? WHERE lot = 'H2-H0'"},
-			args: func(t *testing.T, path string) []any {
-				return []any{packedOf(t, path, "H2-H0", func(l *Lot) { l.Count = 0; l.Inspected = 5000 })}
-			},
-			want: `lot code H2-H0): stored values differ`},
 		{name: "lot removed", sql: []string{"DELETE FROM lots WHERE lot = 'H2-K0'"},
 			want: `was removed behind lotwatch's back`},
 		{name: "category counts removed", sql: []string{"UPDATE lots SET categories = '' WHERE lot = 'H2-J0'"},
-			want: `lot code H2-J0): stored values differ`},
+			want: `lots 6–30 (process "Line 2 press"): stored values differ`},
 		{name: "one category count changed", sql: []string{`UPDATE lots SET categories = '{"dent":0}' WHERE lot = 'H2-F0'`},
-			want: `lot code H2-F0): stored values differ`},
+			want: `lots 6–30 (process "Line 2 press"): stored values differ`},
+		{name: "category counts unreadable", sql: []string{`UPDATE lots SET categories = '{"dent":' WHERE lot = 'H2-B0'`},
+			want: `lot code H2-B0): stored values differ`},
 		{name: "corrected lot edited", sql: []string{"UPDATE lots SET note = 'fine' WHERE lot = 'H2-C0'"},
 			want: `lot code H2-C0): stored values differ`},
 		{name: "voided lot revived", sql: []string{"UPDATE lots SET voided = 0 WHERE lot = 'H2-D0'"},
@@ -105,8 +71,8 @@ func TestAuditCatchesDataRows(t *testing.T) {
 			want: `stored values differ`},
 		{name: "revision removed", sql: []string{"DELETE FROM lot_revisions"},
 			want: `its revisions differ from the audit trail`},
-		{name: "lot added", sql: []string{`INSERT INTO lots (process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason, packed)
-			SELECT process_id, 'H2-Z9', time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason, packed FROM lots WHERE lot = 'P-2'`},
+		{name: "lot added", sql: []string{`INSERT INTO lots (process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason)
+			SELECT process_id, 'H2-Z9', time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason FROM lots WHERE lot = 'P-2'`},
 			want: `lot code H2-Z9): is not in the audit trail`},
 		{name: "process limits", sql: []string{"UPDATE processes SET k = 2 WHERE name = 'Line 2 press'"},
 			want: `process 1 ("Line 2 press"): stored values differ`},
@@ -163,7 +129,8 @@ func TestAuditCatchesDataRows(t *testing.T) {
 
 // A database written at schema 1 is upgraded by migration 0002: the packed
 // copies are filled, one migration entry is appended, and the trail holds
-// (the rows are checked against the entries they were written with).
+// (the rows are checked against the entries they were written with);
+// migration 0004 then drops the copies again and adds no entry.
 func TestMigration0002FromSchema1(t *testing.T) {
 	path := fixtureCopy(t)
 	raw := rawSQL(t, path)
@@ -239,5 +206,139 @@ func TestMigrationNewDatabaseNoEntry(t *testing.T) {
 	chk, err := db.VerifyAudit(ctx)
 	if err != nil || !chk.OK || chk.Entries != 0 {
 		t.Fatalf("%+v %v", chk, err)
+	}
+}
+
+// A database written at schema 2, whose lots carried a packed copy and
+// whose audit trail holds the entries written then (the migration entry
+// of 0002 among them), is upgraded by migrations 0003 and 0004: the copy and its
+// index are gone, no entry is added, the trail still holds, and every
+// lot reads as its columns held it before.
+func TestMigration0004FromSchema2(t *testing.T) {
+	b, err := os.ReadFile(schema2Fixture)
+	if err != nil {
+		t.Fatal(err)
+	}
+	path := filepath.Join(t.TempDir(), "schema2.db")
+	if err := os.WriteFile(path, b, 0o600); err != nil {
+		t.Fatal(err)
+	}
+	raw := rawSQL(t, path)
+	var before, version int
+	if err := raw.QueryRow("SELECT COUNT(*) FROM audit").Scan(&before); err != nil {
+		t.Fatal(err)
+	}
+	if err := raw.QueryRow("SELECT MAX(version) FROM schema_migrations").Scan(&version); err != nil || version != 2 {
+		t.Fatalf("fixture at schema %d (%v), want 2", version, err)
+	}
+	colsBefore := map[int64]Lot{}
+	rows, err := raw.Query("SELECT " + lotCols + " FROM lots WHERE voided = 0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	for rows.Next() {
+		var l Lot
+		if err := scanLot(rows, &l, time.UTC); err != nil {
+			t.Fatal(err)
+		}
+		colsBefore[l.ID] = l
+	}
+	rows.Close()
+	raw.Close()
+
+	db, err := Open(path)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	chk, err := db.VerifyAudit(ctx)
+	if err != nil || !chk.OK || chk.Entries != before {
+		t.Fatalf("after migration: %+v %v (had %d entries)", chk, err, before)
+	}
+	var packed int
+	if err := db.r.QueryRow("SELECT COUNT(*) FROM pragma_table_info('lots') WHERE name = 'packed'").Scan(&packed); err != nil || packed != 0 {
+		t.Fatalf("packed column still there: %d %v", packed, err)
+	}
+	n := 0
+	for _, pid := range []int64{1, 2} {
+		lots, err := db.Lots(ctx, pid, time.Time{}, time.Time{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, l := range lots {
+			w, ok := colsBefore[l.ID]
+			w.ProcessID = pid
+			if !ok || !sameLot(l, w) {
+				t.Errorf("lot %d after migration %+v, stored before %+v", l.ID, l, w)
+			}
+			n++
+		}
+	}
+	if n != len(colsBefore) {
+		t.Errorf("read %d lots after migration, %d stored before", n, len(colsBefore))
+	}
+	// A lot added now gets the next id from SQLite, and the trail holds.
+	added, err := db.AddLots(ctx, "sam", 1, []LotInput{{Lot: "S3-A", Time: time.Date(2025, 3, 7, 6, 0, 0, 0, time.UTC), Inspected: 100, Count: 1}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var maxID int64
+	for id := range colsBefore {
+		maxID = max(maxID, id)
+	}
+	if added[0].ID <= maxID {
+		t.Errorf("new lot id %d, not above the highest stored id %d", added[0].ID, maxID)
+	}
+	if chk, err := db.VerifyAudit(ctx); err != nil || !chk.OK || chk.Entries != before+1 {
+		t.Fatalf("after adding a lot: %+v %v", chk, err)
+	}
+}
+
+// Each lot read has a Categories map of its own: changing one changes no
+// other lot (lots of equal counts are decoded once and copied).
+func TestLotsOwnTheirCategories(t *testing.T) {
+	db, _ := openTemp(t)
+	p, err := db.AddProcess(ctx, "t", Process{Name: "own maps", Chart: spc.ChartP, Categories: []string{"dent"}, TimeZone: "UTC"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	t0 := time.Date(2025, 3, 3, 6, 0, 0, 0, time.UTC)
+	var in []LotInput
+	for i := range 3 {
+		in = append(in, LotInput{Lot: string(rune('A' + i)), Time: t0.Add(time.Duration(i) * time.Hour), Inspected: 50, Count: 1, Categories: map[string]int64{"dent": 1}})
+	}
+	if _, err := db.AddLots(ctx, "t", p.ID, in); err != nil {
+		t.Fatal(err)
+	}
+	var walked []Lot
+	if err := db.EachLot(ctx, p.ID, time.Time{}, time.Time{}, func(l Lot) error { walked = append(walked, l); return nil }); err != nil {
+		t.Fatal(err)
+	}
+	lots, err := db.Lots(ctx, p.ID, time.Time{}, time.Time{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	walked[0].Categories["dent"] = 9
+	lots[0].Categories["dent"] = 9
+	for i, l := range append(walked[1:], lots[1:]...) {
+		if l.Categories["dent"] != 1 {
+			t.Errorf("lot %d read after another's map was changed: %v", i, l.Categories)
+		}
+	}
+}
+
+// An import entry written before imports listed their lots carries the
+// digest only: a change to one of its lots is named by the entry's range,
+// never by a lot that was not changed.
+func TestAuditOldImportEntryNamesRange(t *testing.T) {
+	path := fixtureCopy(t)
+	raw := rawSQL(t, path)
+	if _, err := raw.Exec("UPDATE lots SET count = 5 WHERE lot = 'P-2'"); err != nil {
+		t.Fatal(err)
+	}
+	raw.Close()
+	chk := verifyFile(t, path)
+	if chk.OK || !strings.Contains(chk.Why, `lots 31–32 (process "Paint"): stored values differ`) {
+		t.Fatalf("verify: %+v", chk)
 	}
 }
