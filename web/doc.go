@@ -47,7 +47,10 @@
 // signal); the page says so, and its table and CSV keep every point. An
 // uploaded file waits on the server (a temporary file under a random key
 // bound to the session) between the preview and the confirmation, so that
-// the bytes imported are the bytes checked.
+// the bytes imported are the bytes checked. A user keeps at most 3
+// previews (the oldest gives way) and the server 50; they are removed
+// when the server stops, and those of a server that is gone when the next
+// one starts.
 //
 // API (JSON; errors are {"error": "..."} with "problems" for bad lots,
 // the first 100 of them, and "more" counting the rest):

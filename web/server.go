@@ -58,7 +58,7 @@ type Server struct {
 	pages     *pageSet
 	judges    judgeGroup
 	summaries summaryCache
-	uploads   uploads
+	uploads   *uploads
 	handler   http.Handler
 }
 
@@ -89,6 +89,11 @@ func NewServer(cfg Config) (*Server, error) {
 		s.now = time.Now
 	}
 	s.gate = newSignInGate(s.now, cfg.TrustedProxies)
+	uploads, err := newUploads()
+	if err != nil {
+		return nil, err
+	}
+	s.uploads = uploads
 	pages, err := loadPages()
 	if err != nil {
 		return nil, err
@@ -114,8 +119,11 @@ func (s *Server) ListenAndServe(ctx context.Context) error {
 	return s.Serve(ctx, ln)
 }
 
-// Serve is ListenAndServe on a listener the caller opened.
+// Serve is ListenAndServe on a listener the caller opened. Uploads
+// waiting for confirmation are removed when it returns: they belong to
+// sessions of this run.
 func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
+	defer s.uploads.removeAll()
 	hs := &http.Server{
 		Handler:           s.handler,
 		ReadHeaderTimeout: 10 * time.Second,

@@ -8,8 +8,12 @@ import (
 	"io"
 	"net/http"
 	"os"
+	"path/filepath"
+	"sort"
 	"strconv"
+	"strings"
 	"sync"
+	"syscall"
 	"time"
 
 	"github.com/go-chi/chi/v5"
@@ -25,6 +29,18 @@ const uploadTTL = time.Hour
 // the whole server is 8 MiB).
 const maxUpload = 7 << 20
 
+// Caps of the previews waiting for confirmation, each holding a file of
+// up to maxUpload for uploadTTL: a user's newest previews are kept (the
+// oldest gives way), and beyond the total a new preview is refused until
+// one is confirmed or expires. Common practice, no source.
+const (
+	previewsPerUser = 3
+	previewsTotal   = 50
+)
+
+// errTooManyPreviews refuses a preview over the total.
+var errTooManyPreviews = errors.New("too many previews waiting")
+
 // pendingUpload is an uploaded lot file kept on the server between the
 // preview and the confirmation, bound to the session that uploaded it.
 // The browser holds only the random key; the bytes imported are the bytes
@@ -33,16 +49,75 @@ type pendingUpload struct {
 	path      string
 	processID int64
 	session   string
+	user      string
 	name      string
 	created   time.Time
 }
 
-// uploads holds the pending uploads.
+// uploads holds the pending uploads. Their files live in a folder of
+// this server's own (dir, under previewRoot, named after the process),
+// made at the first upload and removed when the server stops; folders of
+// servers no longer running are removed when a server starts.
 type uploads struct {
-	mu      sync.Mutex
-	pending map[string]*pendingUpload
+	mu       sync.Mutex
+	pending  map[string]*pendingUpload
+	dir      string
+	maxTotal int
 }
 
+// previewRoot is the folder holding every server's preview folder.
+func previewRoot() string { return filepath.Join(os.TempDir(), "lotwatch-previews") }
+
+// newUploads names this server's preview folder and removes the folders
+// left by servers that are gone (stopped by kill -9 or a power cut).
+func newUploads() (*uploads, error) {
+	b := make([]byte, 4)
+	if _, err := rand.Read(b); err != nil {
+		return nil, err
+	}
+	root := previewRoot()
+	ents, _ := os.ReadDir(root) // no folder yet is fine
+	for _, e := range ents {
+		pid, _, _ := strings.Cut(e.Name(), "-")
+		if n, err := strconv.Atoi(pid); err == nil && !running(n) {
+			os.RemoveAll(filepath.Join(root, e.Name()))
+		}
+	}
+	return &uploads{dir: filepath.Join(root, strconv.Itoa(os.Getpid())+"-"+hex.EncodeToString(b)), maxTotal: previewsTotal}, nil
+}
+
+// running reports whether a process of that id runs (on Unix; elsewhere
+// the folder of a running server may be removed early, and its previews
+// must then be uploaded again).
+func running(pid int) bool {
+	p, err := os.FindProcess(pid)
+	if err != nil {
+		return false
+	}
+	err = p.Signal(syscall.Signal(0))
+	return err == nil || errors.Is(err, syscall.EPERM)
+}
+
+// create makes an empty preview file in the server's folder.
+func (u *uploads) create() (*os.File, error) {
+	if err := os.MkdirAll(u.dir, 0o700); err != nil {
+		return nil, err
+	}
+	return os.CreateTemp(u.dir, "lotwatch-upload-*.csv")
+}
+
+// removeAll forgets every preview and removes the server's folder (the
+// server stops).
+func (u *uploads) removeAll() {
+	u.mu.Lock()
+	defer u.mu.Unlock()
+	u.pending = nil
+	os.RemoveAll(u.dir)
+}
+
+// put keeps a preview under a new random key. The user's oldest preview
+// gives way when the user has previewsPerUser; errTooManyPreviews refuses
+// it when maxTotal wait.
 func (u *uploads) put(p *pendingUpload, now time.Time) (string, error) {
 	b := make([]byte, 16)
 	if _, err := rand.Read(b); err != nil {
@@ -55,6 +130,20 @@ func (u *uploads) put(p *pendingUpload, now time.Time) (string, error) {
 		u.pending = map[string]*pendingUpload{}
 	}
 	u.sweepLocked(now)
+	var mine []string
+	for k, q := range u.pending {
+		if q.user == p.user {
+			mine = append(mine, k)
+		}
+	}
+	if len(mine) < previewsPerUser && len(u.pending) >= u.maxTotal {
+		return "", errTooManyPreviews
+	}
+	sort.Slice(mine, func(i, j int) bool { return u.pending[mine[i]].created.Before(u.pending[mine[j]].created) })
+	for _, k := range mine[:max(len(mine)-previewsPerUser+1, 0)] {
+		os.Remove(u.pending[k].path)
+		delete(u.pending, k)
+	}
 	u.pending[key] = p
 	return key, nil
 }
@@ -157,7 +246,7 @@ func (s *Server) postUpload(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	defer file.Close()
-	tmp, err := os.CreateTemp("", "lotwatch-upload-*.csv")
+	tmp, err := s.uploads.create()
 	if err != nil {
 		s.internalError(w, r, err)
 		return
@@ -191,7 +280,15 @@ func (s *Server) postUpload(w http.ResponseWriter, r *http.Request) {
 		s.render(w, r, status, "upload.html", "Upload a lot file", d)
 		return
 	}
-	key, err := s.uploads.put(&pendingUpload{path: tmp.Name(), processID: proc.ID, session: who(r).session, name: hdr.Filename, created: s.now()}, s.now())
+	key, err := s.uploads.put(&pendingUpload{path: tmp.Name(), processID: proc.ID, session: who(r).session,
+		user: who(r).user.Name, name: hdr.Filename, created: s.now()}, s.now())
+	if errors.Is(err, errTooManyPreviews) {
+		os.Remove(tmp.Name())
+		d.Key, d.Sample = "", nil
+		fail(http.StatusServiceUnavailable, fmt.Sprintf("%d uploads are waiting for confirmation on the server, the most it keeps. "+
+			"Try again later: an upload waits at most an hour.", s.uploads.maxTotal))
+		return
+	}
 	if err != nil {
 		os.Remove(tmp.Name())
 		s.internalError(w, r, err)
