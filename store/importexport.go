@@ -243,9 +243,9 @@ type ExportOptions struct {
 // CSV has the columns lot, time, shift, inspected, defective or defects,
 // one per category, inspector and note; times are RFC 3339 in the
 // process's time zone with all the digits stored, so Import reads the
-// file back to the same lots. A text cell that a spreadsheet would run as
-// a formula (starting with = + - @, tab or CR) is written with a leading
-// single quote, which lotcsv removes again on import (see
+// file back to the same lots. A text cell or header name that a
+// spreadsheet would run as a formula (starting with = + - @, tab or CR)
+// is written with a leading single quote, which lotcsv removes again on import (see
 // lotcsv.Neutralise and lotcsv.Restore).
 //
 // JSON is one object {"process": …, "lots": [ … ]} with the same fields
@@ -273,7 +273,11 @@ func (db *DB) Export(ctx context.Context, out io.Writer, processID int64, opt Ex
 func exportCSV(ctx context.Context, db *DB, out io.Writer, p Process, opt ExportOptions) error {
 	cw := csv.NewWriter(out)
 	head := []string{lotcsv.ColLot, lotcsv.ColTime, lotcsv.ColShift, lotcsv.ColInspected, CountField(p.Chart)}
-	head = append(head, p.Categories...)
+	for _, c := range p.Categories {
+		// Names are refused as formulas since they can be made; an older
+		// database may still hold one. The reader restores it.
+		head = append(head, lotcsv.Neutralise(c))
+	}
 	head = append(head, lotcsv.ColInspector, lotcsv.ColNote)
 	if err := cw.Write(head); err != nil {
 		return err

@@ -186,6 +186,9 @@ func normalizeProcess(p *Process) []Problem {
 			ps = append(ps, Problem{Field: "categories", Value: c, Reason: "must not contain commas, quotes or control characters, nor start or end with spaces"})
 		case strings.IndexFunc(c, isFormat) >= 0:
 			ps = append(ps, formatProblem("categories", c))
+		case lotcsv.Neutralise(c) != c:
+			// The name heads a column of every export.
+			ps = append(ps, Problem{Field: "categories", Value: c, Reason: "must not start with =, +, - or @ (a spreadsheet would run it as a formula)"})
 		case reservedColumns[key]:
 			ps = append(ps, Problem{Field: "categories", Value: c, Reason: "is the name of a standard lot column"})
 		case seen[key]:

@@ -215,7 +215,7 @@ func (rd *Reader) header(head []string) error {
 			rd.cols = append(rd.cols, column{})
 			continue
 		}
-		name := strings.TrimSpace(h)
+		name := Restore(strings.TrimSpace(h)) // a guarded category name, as exported
 		key := strings.ToLower(name)
 		if key == "" {
 			ps = append(ps, Problem{Line: line, Field: fmt.Sprintf("column %d", i+1), Reason: "has no name in the header"})
