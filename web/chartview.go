@@ -29,7 +29,6 @@ const shiftSpan = 12 * time.Hour
 type viewPoint struct {
 	Label     string
 	LotID     int64 // the lot, when a point is one lot
-	LotIDs    []int64
 	Time      time.Time
 	Shift     string
 	Lots      int
@@ -45,6 +44,7 @@ type viewPoint struct {
 	Limits    string // "trial limits" or "limit set N"
 	Notes     []string
 	Excluded  bool
+	Stretch   *stretch // on a thinned chart, what the drawn point stands for
 }
 
 // Out reports a point beyond a limit.
@@ -240,6 +240,7 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 	if hi < lo {
 		hi = lo
 	}
+	v.Points = make([]viewPoint, 0, hi-lo)
 	prevSet := -1
 	if lo > 0 {
 		prevSet = setOf[lo-1]
@@ -254,7 +255,6 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 			vp.LotID = first.ID
 		}
 		for i := g[0]; i < g[1]; i++ {
-			vp.LotIDs = append(vp.LotIDs, pc.lots[i].ID)
 			for _, an := range byLotID[pc.lots[i].ID] {
 				state := "open"
 				if an.Closed {
@@ -337,14 +337,27 @@ func setFrom(sets []store.LimitSet, n int, loc *time.Location) string {
 	return "?"
 }
 
-// maxDrawn is the most points drawn on a chart before it is thinned;
-// above it a browser's canvas chart becomes slow to pan and hover
-// (common practice, no source).
+// maxDrawn is the most points drawn on a chart, however long the record
+// and its signals; above it a browser's canvas chart becomes slow to pan
+// and hover (common practice, no source).
 const maxDrawn = 2000
 
+// stretch is a run of consecutive points that a thinned chart draws as
+// at most four: what the drawn ones stand for, said in their tooltips.
+type stretch struct {
+	First, Last string // labels of its first and last point
+	Points      int
+	Out         int // points outside their limits
+	Signal      int // points in a run-rule signal
+}
+
 // thin chooses the points to draw: all when there are at most maxDrawn;
-// else, per bucket of consecutive points, the lowest and the highest, and
-// every point outside its limits or in a signal (those are never dropped).
+// else the points are cut into maxDrawn/4 stretches of consecutive
+// points, and of each stretch are drawn the lowest and the highest, the
+// one furthest outside its limits (by |z|) and the first in a signal.
+// Every drawn point of a thinned stretch carries the stretch, whose
+// counts its tooltip gives, so that a point outside its limits is drawn
+// or counted by a drawn one that is outside its limits too.
 func thin(ps []viewPoint) (idx []int, thinned bool) {
 	if len(ps) <= maxDrawn {
 		idx = make([]int, len(ps))
@@ -357,22 +370,51 @@ func thin(ps []viewPoint) (idx []int, thinned bool) {
 	size := (len(ps) + buckets - 1) / buckets
 	for b := 0; b < len(ps); b += size {
 		e := min(b+size, len(ps))
-		lo, hi := b, b
+		st := &stretch{First: ps[b].Label, Last: ps[e-1].Label, Points: e - b}
+		lo, hi, worst, sig := b, b, -1, -1
 		for i := b; i < e; i++ {
-			if ps[i].Value < ps[lo].Value {
+			p := &ps[i]
+			if p.Value < ps[lo].Value {
 				lo = i
 			}
-			if ps[i].Value > ps[hi].Value {
+			if p.Value > ps[hi].Value {
 				hi = i
 			}
+			if p.Out() {
+				st.Out++
+				if worst < 0 || math.Abs(p.Z) > math.Abs(ps[worst].Z) {
+					worst = i
+				}
+			}
+			if len(p.Rules) > 0 {
+				st.Signal++
+				if sig < 0 {
+					sig = i
+				}
+			}
 		}
-		for i := b; i < e; i++ {
-			if i == lo || i == hi || ps[i].Out() || len(ps[i].Rules) > 0 {
+		keep := []int{lo, hi, worst, sig}
+		sort.Ints(keep)
+		for k, i := range keep {
+			if i >= 0 && (k == 0 || i != keep[k-1]) {
+				ps[i].Stretch = st
 				idx = append(idx, i)
 			}
 		}
 	}
 	return idx, true
+}
+
+// words says what a thinned stretch holds.
+func (st *stretch) words() string {
+	w := fmt.Sprintf("drawn for %s points, %s … %s", thousands(int64(st.Points)), st.First, st.Last)
+	if st.Out > 0 {
+		w += "; " + thousands(int64(st.Out)) + " outside their limits"
+	}
+	if st.Signal > 0 {
+		w += "; " + thousands(int64(st.Signal)) + " in a signal"
+	}
+	return w
 }
 
 // tooltip is the lines a point's tooltip shows, in plain words.
@@ -393,6 +435,9 @@ func (v *chartView) tooltip(p viewPoint) []string {
 		lines = append(lines, w)
 	}
 	lines = append(lines, p.Notes...)
+	if p.Stretch != nil {
+		lines = append(lines, p.Stretch.words())
+	}
 	return lines
 }
 

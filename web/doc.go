@@ -42,9 +42,12 @@
 //	/review?week=2026-W48, /plan    weekly review (downloads as HTML, CSV, JSON) and lot-size planning (viewer)
 //	/admin/users                    users and API tokens (admin)
 //
-// A chart of more than 2,000 points is thinned for drawing (per stretch the
-// lowest and highest point, and every point outside its limits or in a
-// signal); the page says so, and its table and CSV keep every point. An
+// A chart of more than 2,000 points is drawn as at most 2,000, however
+// long its signals: per stretch of consecutive points the lowest and the
+// highest, the one furthest outside its limits and the first in a signal,
+// each drawn point's tooltip counting the stretch's points outside their
+// limits and in a signal; the page says so, and its table and CSV keep
+// every point. An
 // uploaded file waits on the server (a temporary file under a random key
 // bound to the session) between the preview and the confirmation, so that
 // the bytes imported are the bytes checked. A user keeps at most 3
