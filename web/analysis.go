@@ -6,6 +6,7 @@ import (
 	"net/url"
 	"sort"
 	"strconv"
+	"strings"
 	"time"
 
 	"lotwatch/spc"
@@ -108,27 +109,78 @@ func parseWhen(name, v string, loc *time.Location, endOfDay bool) (time.Time, er
 	return time.Time{}, &paramError{name, v, "is not a date (YYYY-MM-DD) or an RFC 3339 time (2006-01-02T15:04:05Z07:00)"}
 }
 
-// chartJSON renders the lots of the chart that fall in the window, with
-// the signals that touch them.
-func (pc *processChart) chartJSON(w window) *ChartJSON {
+// maxChartPage is the most lots one answer of the API's chart holds, and
+// the page size when the request names none; the rest is fetched with
+// the answer's "next" cursor.
+const maxChartPage = 10000
+
+// chartPage is a page of the API's chart: the lots after the cursor's
+// lot (from the start of the window when there is none), at most limit.
+type chartPage struct {
+	after *store.Lot // the last lot of the previous page (its time and id)
+	limit int
+}
+
+// parseChartPage reads limit= and cursor=.
+func parseChartPage(q url.Values) (chartPage, error) {
+	pg := chartPage{limit: maxChartPage}
+	if v := q.Get("limit"); v != "" {
+		n, err := strconv.Atoi(v)
+		if err != nil || n < 1 || n > maxChartPage {
+			return pg, &paramError{"limit", v, fmt.Sprintf("is not a whole number from 1 to %d", maxChartPage)}
+		}
+		pg.limit = n
+	}
+	if v := q.Get("cursor"); v != "" {
+		t, id, ok := strings.Cut(v, ".")
+		nanos, err1 := strconv.ParseInt(t, 10, 64)
+		lotID, err2 := strconv.ParseInt(id, 10, 64)
+		if !ok || err1 != nil || err2 != nil {
+			return pg, &paramError{"cursor", v, "is not the \"next\" of an earlier answer"}
+		}
+		pg.after = &store.Lot{ID: lotID, LotInput: store.LotInput{Time: time.Unix(0, nanos)}}
+	}
+	return pg, nil
+}
+
+// cursor names the place after lot l for the next page.
+func cursor(l store.Lot) string {
+	return strconv.FormatInt(l.Time.UnixNano(), 10) + "." + strconv.FormatInt(l.ID, 10)
+}
+
+// chartJSON renders a page of the lots of the chart that fall in the
+// window, with the signals that touch them (their first and last lot
+// counted within the page, and cut to it).
+func (pc *processChart) chartJSON(w window, pg chartPage) *ChartJSON {
 	loc := pc.proc.Location()
 	if pc.a == nil {
 		return &ChartJSON{Chart: string(pc.proc.Chart), Method: string(pc.proc.Method), Sigma: Num(pc.proc.K),
 			Lots: []LotJSON{}, Signals: []SignalJSON{}, Warnings: []string{}}
 	}
-	out := AnalysisJSON(pc.a)
-	lo, hi := 0, len(pc.lots)
+	out := analysisHead(pc.a)
+	lo, end := 0, len(pc.lots)
 	if !w.from.IsZero() {
 		lo = sort.Search(len(pc.lots), func(i int) bool { return !pc.lots[i].Time.Before(w.from) })
 	}
 	if !w.to.IsZero() {
-		hi = sort.Search(len(pc.lots), func(i int) bool { return pc.lots[i].Time.After(w.to) })
+		end = sort.Search(len(pc.lots), func(i int) bool { return pc.lots[i].Time.After(w.to) })
 	}
-	if hi < lo {
-		hi = lo
+	end = max(end, lo)
+	out.Total = end - lo
+	if a := pg.after; a != nil {
+		lo = max(lo, sort.Search(len(pc.lots), func(i int) bool {
+			l := &pc.lots[i]
+			return l.Time.After(a.Time) || (l.Time.Equal(a.Time) && l.ID > a.ID)
+		}))
 	}
+	hi := min(end, lo+pg.limit)
+	hi = max(hi, lo)
+	if hi < end {
+		out.Next = cursor(pc.lots[hi-1])
+	}
+	out.Lots = make([]LotJSON, 0, hi-lo)
 	for i := lo; i < hi; i++ {
-		l := &out.Lots[i]
+		l := pointJSON(pc.a.Points[i])
 		l.ID = pc.lots[i].ID
 		l.Time = pc.lots[i].Time.In(loc).Format(time.RFC3339)
 		if n := pc.setOf[i]; n > 0 {
@@ -136,18 +188,17 @@ func (pc *processChart) chartJSON(w window) *ChartJSON {
 		} else {
 			l.Limits = "trial"
 		}
+		out.Lots = append(out.Lots, l)
 	}
-	out.Lots = out.Lots[lo:hi]
-	sigs := out.Signals[:0]
-	for _, sg := range out.Signals {
-		if sg.Last < lo || sg.First >= hi {
+	for _, s := range pc.a.Signals {
+		if s.Last < lo || s.First >= hi {
 			continue
 		}
+		sg := toSignalJSON(s)
 		sg.First = max(sg.First-lo, 0)
 		sg.Last = min(sg.Last-lo, hi-lo-1)
-		sigs = append(sigs, sg)
+		out.Signals = append(out.Signals, sg)
 	}
-	out.Signals = sigs
 	return out
 }
 

@@ -205,9 +205,16 @@ func (s *Server) apiWindowedChart(w http.ResponseWriter, r *http.Request) (*proc
 	return pc, win, true
 }
 
+// apiChart answers a page of the chart (chartPage): at most
+// maxChartPage lots, with the cursor of the next page.
 func (s *Server) apiChart(w http.ResponseWriter, r *http.Request) {
+	pg, err := parseChartPage(r.URL.Query())
+	if err != nil {
+		writeError(w, http.StatusBadRequest, err.Error())
+		return
+	}
 	if pc, win, ok := s.apiWindowedChart(w, r); ok {
-		writeJSON(w, http.StatusOK, pc.chartJSON(win))
+		writeJSON(w, http.StatusOK, pc.chartJSON(win, pg))
 	}
 }
 

@@ -20,6 +20,11 @@ type ChartJSON struct {
 	Signals    []SignalJSON    `json:"signals"`
 	Warnings   []string        `json:"warnings"`
 	Dispersion *DispersionJSON `json:"dispersion"`
+
+	// Filled by the API, whose chart comes in pages: the lots in the
+	// window, and the cursor of the next page (absent on the last).
+	Total int    `json:"total,omitempty"`
+	Next  string `json:"next,omitempty"`
 }
 
 // LotJSON is one lot's point on the chart.
@@ -74,6 +79,19 @@ func AnalysisJSON(a *spc.Analysis) *ChartJSON {
 	if a == nil {
 		return nil
 	}
+	out := analysisHead(a)
+	out.Lots = make([]LotJSON, len(a.Points))
+	for i, p := range a.Points {
+		out.Lots[i] = pointJSON(p)
+	}
+	for _, s := range a.Signals {
+		out.Signals = append(out.Signals, toSignalJSON(s))
+	}
+	return out
+}
+
+// analysisHead is the chart's figures without its lots and signals.
+func analysisHead(a *spc.Analysis) *ChartJSON {
 	out := &ChartJSON{
 		Chart:    string(a.Chart),
 		Method:   string(a.Method),
@@ -82,41 +100,9 @@ func AnalysisJSON(a *spc.Analysis) *ChartJSON {
 		Alpha:    Num(a.Alpha),
 		Rate:     Num(a.Rate),
 		SigmaZ:   Num(a.SigmaZ),
-		Lots:     make([]LotJSON, len(a.Points)),
+		Lots:     []LotJSON{},
 		Signals:  make([]SignalJSON, 0, len(a.Signals)),
 		Warnings: make([]string, 0, len(a.Warnings)),
-	}
-	for i, p := range a.Points {
-		out.Lots[i] = LotJSON{
-			Lot:         p.Lot.ID,
-			Inspected:   p.Lot.Inspected,
-			Count:       p.Lot.Count,
-			Value:       Num(p.Value),
-			Center:      Num(p.Center),
-			UCL:         Num(p.UCL),
-			LCL:         Num(p.LCL),
-			Sigma:       Num(p.Sigma),
-			Z:           Num(p.Z),
-			TailP:       Num(p.TailP),
-			OutOfLimits: p.Above || p.Below,
-			Above:       p.Above,
-			Below:       p.Below,
-			Excluded:    p.Excluded,
-			Signals:     ruleNames(p.Rules),
-		}
-	}
-	for _, s := range a.Signals {
-		lots := s.Lots
-		if lots == nil {
-			lots = []string{}
-		}
-		out.Signals = append(out.Signals, SignalJSON{
-			Rule:        ruleName(s.Rule),
-			Lots:        lots,
-			Description: s.Description,
-			First:       s.First,
-			Last:        s.Last,
-		})
 	}
 	for _, w := range a.Warnings {
 		out.Warnings = append(out.Warnings, w.Message)
@@ -132,6 +118,42 @@ func AnalysisJSON(a *spc.Analysis) *ChartJSON {
 		Advice:        d.Advice,
 	}
 	return out
+}
+
+// pointJSON is one lot's point in the shared shape.
+func pointJSON(p spc.Point) LotJSON {
+	return LotJSON{
+		Lot:         p.Lot.ID,
+		Inspected:   p.Lot.Inspected,
+		Count:       p.Lot.Count,
+		Value:       Num(p.Value),
+		Center:      Num(p.Center),
+		UCL:         Num(p.UCL),
+		LCL:         Num(p.LCL),
+		Sigma:       Num(p.Sigma),
+		Z:           Num(p.Z),
+		TailP:       Num(p.TailP),
+		OutOfLimits: p.Above || p.Below,
+		Above:       p.Above,
+		Below:       p.Below,
+		Excluded:    p.Excluded,
+		Signals:     ruleNames(p.Rules),
+	}
+}
+
+// toSignalJSON is one signal in the shared shape.
+func toSignalJSON(s spc.Signal) SignalJSON {
+	lots := s.Lots
+	if lots == nil {
+		lots = []string{}
+	}
+	return SignalJSON{
+		Rule:        ruleName(s.Rule),
+		Lots:        lots,
+		Description: s.Description,
+		First:       s.First,
+		Last:        s.Last,
+	}
 }
 
 // ruleNames lists the short names of the rules in s ("we1", "nelson3"),

@@ -61,7 +61,9 @@
 //	GET  /api/v1/me                         who the token or session is
 //	GET  /api/v1/processes                  [{"id","name","chart",...}]
 //	GET  /api/v1/processes/{id}             one process
-//	GET  /api/v1/processes/{id}/chart       the analyze JSON shape (ChartJSON)
+//	GET  /api/v1/processes/{id}/chart       the analyze JSON shape (ChartJSON), in pages of
+//	                                        limit= lots (at most and by default 10,000) with
+//	                                        "total" and the "next" page's cursor=
 //	GET  /api/v1/processes/{id}/lots        stored lots
 //	POST /api/v1/processes/{id}/lots        log lots (inspector+)
 //	GET  /api/v1/processes/{id}/signals     run-rule signals with annotations

@@ -30,8 +30,8 @@ func chartNow(t *testing.T, e *testEnv, p store.Process) (served, fresh string) 
 	if err != nil {
 		t.Fatal(err)
 	}
-	a, _ := json.Marshal(pc.chartJSON(window{}))
-	b, _ := json.Marshal(want.chartJSON(window{}))
+	a, _ := json.Marshal(pc.chartJSON(window{}, chartPage{limit: maxChartPage}))
+	b, _ := json.Marshal(want.chartJSON(window{}, chartPage{limit: maxChartPage}))
 	return string(a), string(b)
 }
 
