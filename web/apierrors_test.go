@@ -29,6 +29,7 @@ func TestAPIErrorAnswerStaysSmall(t *testing.T) {
 	if rec.Body.Len() > 64<<10 {
 		t.Fatalf("the error answer is %d bytes", rec.Body.Len())
 	}
+	t.Logf("a body of %d bytes with %d unknown fields: a %d-byte answer", b.Len(), fields, rec.Body.Len())
 	got := decodeJSON[apiError](t, rec)
 	if len(got.Problems) != maxAPIProblems {
 		t.Errorf("%d problems listed, want the first %d", len(got.Problems), maxAPIProblems)

@@ -30,6 +30,8 @@ func TestAPIChartIsPaged(t *testing.T) {
 		return decodeJSON[ChartJSON](t, rec)
 	}
 	first := get("")
+	rec := e.do(req{method: "GET", path: fmt.Sprintf("/api/v1/processes/%d/chart", e.proc.ID), token: e.tokens[store.RoleViewer]})
+	t.Logf("%d lots: the first page has %d lots in %d bytes", n, maxChartPage, rec.Body.Len())
 	if len(first.Lots) != maxChartPage || first.Next == "" || first.Total != n {
 		t.Fatalf("the first page has %d lots, next %q, total %d; want %d, a cursor and %d", len(first.Lots), first.Next, first.Total, maxChartPage, n)
 	}

@@ -154,4 +154,5 @@ func TestChartOfALongRecordIsCapped(t *testing.T) {
 	if len(b) > 4<<20 {
 		t.Errorf("the chart's options and tooltips are %d bytes", len(b))
 	}
+	t.Logf("%d lots, %d in a signal: %d points drawn, %d bytes of options and tooltips", n, inSignal, len(idx), len(b))
 }
