@@ -311,8 +311,9 @@ func (db *DB) CreateSession(ctx context.Context, userID int64, now time.Time) (s
 const sessionTouchEvery = time.Minute
 
 // SessionUser returns the active user of a live session and notes it as
-// seen (best effort: a failed note does not fail the read). A session idle longer than idle, older than absolute, of an
-// inactive user, or unknown gives ErrNotFound.
+// seen (best effort: a failed note does not fail the read). A session
+// idle longer than idle, older than absolute, of an inactive user, or
+// unknown gives ErrNotFound.
 func (db *DB) SessionUser(ctx context.Context, rawID string, now time.Time, idle, absolute time.Duration) (User, error) {
 	h := secretHash(rawID)
 	if db.readOnly {
