@@ -41,18 +41,18 @@ func newProcessForm(vals map[string]string) processForm {
 }
 
 func processValues(p store.Process) map[string]string {
-	return map[string]string{"name": p.Name, "description": p.Description, "chart": string(p.Chart),
+	return map[string]string{"name": p.Name, "description": p.Description, "area": p.Area, "chart": string(p.Chart),
 		"method": string(p.Method), "k": strconv.FormatFloat(p.K, 'g', -1, 64), "rules": p.Rules,
 		"categories": strings.Join(p.Categories, ", "), "tz": p.TimeZone, "retired": map[bool]string{true: "", false: "1"}[p.Active]}
 }
 
 // readProcessForm reads the posted form into a process.
 func readProcessForm(r *http.Request, f *processForm) store.Process {
-	for _, k := range []string{"name", "description", "chart", "method", "k", "rules", "categories", "tz", "retired", "reason"} {
+	for _, k := range []string{"name", "description", "area", "chart", "method", "k", "rules", "categories", "tz", "retired", "reason"} {
 		f.Values[k] = r.PostFormValue(k)
 	}
 	*f = newProcessFormKeep(*f)
-	p := store.Process{Name: strings.TrimSpace(f.Values["name"]), Description: strings.TrimSpace(f.Values["description"]),
+	p := store.Process{Name: strings.TrimSpace(f.Values["name"]), Description: strings.TrimSpace(f.Values["description"]), Area: strings.TrimSpace(f.Values["area"]),
 		Chart: spc.Chart(f.Values["chart"]), Method: spc.Method(f.Values["method"]), Rules: strings.TrimSpace(f.Values["rules"]),
 		TimeZone: strings.TrimSpace(f.Values["tz"]), Active: f.Values["retired"] != "1"}
 	if k := strings.TrimSpace(f.Values["k"]); k != "" {
@@ -90,7 +90,7 @@ func (f *processForm) place(ps []store.Problem) {
 			msg = strconv.Quote(pr.Value) + " " + pr.Reason
 		}
 		switch k {
-		case "name", "description", "chart", "method", "k", "rules", "categories", "tz", "reason":
+		case "name", "description", "area", "chart", "method", "k", "rules", "categories", "tz", "reason":
 			f.Problems[k] = joinMsg(f.Problems[k], msg)
 		default:
 			f.Other = append(f.Other, pr.String())

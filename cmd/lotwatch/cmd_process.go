@@ -46,6 +46,8 @@ Options of "add":
                      Europe/Berlin (default UTC); lot times written without
                      an offset are read in it
   --description TEXT what the process is
+  --area TEXT        the plant's area or line the process belongs to, e.g.
+                     "Line 4" (for filtering the status board and worklist)
   --limits METHOD    how control limits are computed: sigma (centre ± k·σ,
                      the default), exact (binomial or Poisson quantiles) or
                      laney (Laney p′/u′ for overdispersed data)
@@ -58,8 +60,8 @@ Options of "add":
 Options of "update" (only the options given change; the change and its
 reason go to the audit trail):
   --db FILE, --name NAME   the database and the process to change
-  --description TEXT, --limits METHOD, --sigma K, --rules SET, --tz ZONE
-                     as for "add"
+  --description TEXT, --area TEXT, --limits METHOD, --sigma K, --rules SET,
+  --tz ZONE          as for "add"
   --categories LIST  the whole new list of defect categories: categories
                      may be added, but none removed or renamed (the lots
                      keep their counts under them)
@@ -246,6 +248,7 @@ func runProcessAdd(args []string, stdout, stderr io.Writer) int {
 	cats := fs.String("categories", "", "")
 	tz := fs.String("tz", "UTC", "")
 	desc := fs.String("description", "", "")
+	area := fs.String("area", "", "")
 	limits := fs.String("limits", "sigma", "")
 	sigma := fs.String("sigma", "3", "")
 	rules := fs.String("rules", "we", "")
@@ -256,7 +259,7 @@ func runProcessAdd(args []string, stdout, stderr io.Writer) int {
 	}
 	probs := cliRequire("process add", "db", *dbPath, "name", *name)
 	probs = append(probs, cliNoArgs(pos)...)
-	p := store.Process{Name: *name, Description: *desc, Rules: *rules, TimeZone: *tz}
+	p := store.Process{Name: *name, Description: *desc, Area: *area, Rules: *rules, TimeZone: *tz}
 	if c, err := spc.ParseChart(*chart); err != nil {
 		probs = append(probs, fmt.Sprintf("--chart %q: want p, np, u or c", *chart))
 	} else {
@@ -302,6 +305,7 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 	dbPath := fs.String("db", "", "")
 	name := fs.String("name", "", "")
 	desc := fs.String("description", "", "")
+	area := fs.String("area", "", "")
 	limits := fs.String("limits", "", "")
 	sigma := fs.String("sigma", "", "")
 	rules := fs.String("rules", "", "")
@@ -326,13 +330,13 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 		probs = append(probs, "--retire and --activate exclude each other")
 	}
 	changes := 0
-	for _, f := range []string{"description", "limits", "sigma", "rules", "categories", "tz", "retire", "activate"} {
+	for _, f := range []string{"description", "area", "limits", "sigma", "rules", "categories", "tz", "retire", "activate"} {
 		if set[f] {
 			changes++
 		}
 	}
 	if changes == 0 {
-		probs = append(probs, "nothing to change: give --description, --limits, --sigma, --rules, --categories, --tz, --retire or --activate")
+		probs = append(probs, "nothing to change: give --description, --area, --limits, --sigma, --rules, --categories, --tz, --retire or --activate")
 	}
 	var method spc.Method
 	if set["limits"] {
@@ -373,6 +377,9 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 	}
 	if set["description"] {
 		p.Description = *desc
+	}
+	if set["area"] {
+		p.Area = *area
 	}
 	if set["limits"] {
 		p.Method = method
@@ -425,6 +432,7 @@ type processJSON struct {
 	TimeZone    string    `json:"tz"`
 	Active      bool      `json:"active"`
 	Created     string    `json:"created"`
+	Area        string    `json:"area"`
 }
 
 func runProcessList(args []string, stdout, stderr io.Writer) int {
@@ -459,7 +467,7 @@ func runProcessList(args []string, stdout, stderr io.Writer) int {
 	if *format == "json" {
 		out := make([]processJSON, 0, len(ps))
 		for _, p := range ps {
-			out = append(out, processJSON{p.ID, p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Created.Format("2006-01-02T15:04:05Z07:00")})
+			out = append(out, processJSON{p.ID, p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Created.Format("2006-01-02T15:04:05Z07:00"), p.Area})
 		}
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")

@@ -226,13 +226,13 @@ func TestCLIProcessUpdate(t *testing.T) {
 		t.Fatalf("add: %q", errs)
 	}
 	code, out, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "Line 2", "--sigma", "2.5", "--rules", "nelson",
-		"--categories", "dent,scratch,burr", "--description", "press line", "--reason", "agreed in review", "--as", "ana")
+		"--categories", "dent,scratch,burr", "--description", "press line", "--area", "Press shop", "--reason", "agreed in review", "--as", "ana")
 	if code != exitOK || !strings.Contains(out, "k=2.5, rules nelson, categories [dent, scratch, burr], time zone UTC, active") {
 		t.Fatalf("update: %d %q %q", code, out, errs)
 	}
 	code, out, _ = runCLI(t, "", "process", "list", "--db", db, "--format", "json")
 	var ps []map[string]any
-	if code != exitOK || json.Unmarshal([]byte(out), &ps) != nil || len(ps) != 1 || ps[0]["description"] != "press line" || ps[0]["limits"] != "sigma" || ps[0]["sigma"] != 2.5 {
+	if code != exitOK || json.Unmarshal([]byte(out), &ps) != nil || len(ps) != 1 || ps[0]["description"] != "press line" || ps[0]["area"] != "Press shop" || ps[0]["limits"] != "sigma" || ps[0]["sigma"] != 2.5 {
 		t.Fatalf("list after update: %q", out)
 	}
 	bad := []struct {
@@ -245,6 +245,7 @@ func TestCLIProcessUpdate(t *testing.T) {
 		{[]string{"--sigma", "11", "--reason", "x"}, `--sigma "11"`},
 		{[]string{"--tz", "Mars/Base", "--reason", "x"}, `--tz "Mars/Base"`},
 		{[]string{"--retire", "--activate", "--reason", "x"}, "exclude each other"},
+		{[]string{"--area", " Line 4", "--reason", "x"}, `option area, value " Line 4": must not start or end with spaces`},
 	}
 	for _, b := range bad {
 		args := append([]string{"process", "update", "--db", db, "--name", "Line 2"}, b.args...)
