@@ -30,6 +30,8 @@ type judgeGroup struct {
 	byProc map[int64]*procFlights
 	cache  map[int64]*cachedChart
 	tick   uint64
+	// maxLots overrides chartCacheLots when set (tests).
+	maxLots int
 }
 
 type procFlights struct {
@@ -55,9 +57,13 @@ type cachedChart struct {
 	grown bool
 }
 
-// chartCacheSize is how many processes' charts are kept (each holds all
-// the process's lots in memory).
-const chartCacheSize = 16
+// chartCacheLots bounds the judged charts kept, in lots (each lot costs
+// a few hundred bytes with its judged point: some 40 MB in all), so that
+// the server's memory does not grow with the record or the number of
+// processes. The least recently used charts leave first; the one just
+// built always stays. The status board and the attention list do not need
+// the charts: they read each process's small summary (procSummary).
+const chartCacheLots = 100_000
 
 // judgeTimeout bounds one shared analysis (it runs on behalf of several
 // requests, so no single request's context may cancel it).
@@ -197,16 +203,40 @@ func (s *Server) chartFor(ctx context.Context, p store.Process) (*processChart, 
 	if old := g.cache[p.ID]; old == nil || old.version.Version <= v.Version {
 		g.cache[p.ID] = &cachedChart{pc: pc, version: v, maxID: maxID, used: g.tick}
 	}
-	for len(g.cache) > chartCacheSize {
-		var lru int64
-		var oldest uint64 = ^uint64(0)
+	g.evict(p.ID)
+	g.mu.Unlock()
+	return pc, nil
+}
+
+// evict drops the least recently used charts until the cache holds at
+// most chartCacheLots lots, keeping the chart of process keep.
+func (g *judgeGroup) evict(keep int64) {
+	total := 0
+	for _, e := range g.cache {
+		total += len(e.pc.lots)
+	}
+	limit := chartCacheLots
+	if g.maxLots > 0 {
+		limit = g.maxLots
+	}
+	for total > limit && len(g.cache) > 1 {
+		lru, oldest := int64(0), ^uint64(0)
 		for id, e := range g.cache {
-			if e.used < oldest {
+			if id != keep && e.used < oldest {
 				lru, oldest = id, e.used
 			}
 		}
+		total -= len(g.cache[lru].pc.lots)
 		delete(g.cache, lru)
 	}
-	g.mu.Unlock()
-	return pc, nil
+}
+
+// cachedLots is the number of lots the cached charts hold.
+func (g *judgeGroup) cachedLots() (charts, lots int) {
+	g.mu.Lock()
+	defer g.mu.Unlock()
+	for _, e := range g.cache {
+		lots += len(e.pc.lots)
+	}
+	return len(g.cache), lots
 }

@@ -116,27 +116,46 @@ func TestChartCacheFollowsChanges(t *testing.T) {
 	}
 }
 
-// Only the most recently used processes keep their chart in memory.
+// The cached charts hold at most the cache's budget of lots, the most
+// recently used first; the chart just built stays even when it alone
+// exceeds the budget.
 func TestChartCacheBounded(t *testing.T) {
 	e := newTestEnv(t)
+	e.srv.judges.maxLots = 10
 	ctx := context.Background()
-	for i := range chartCacheSize + 4 {
+	var last store.Process
+	for i := range 6 {
 		p, err := e.db.AddProcess(ctx, "setup", store.Process{Name: fmt.Sprintf("press %d", i), Chart: spc.ChartNP})
 		if err != nil {
 			t.Fatal(err)
 		}
-		if _, err := e.db.AddLots(ctx, "setup", p.ID, []store.LotInput{{Lot: "A", Inspected: 50, Count: 1}}); err != nil {
+		n := 3
+		if i == 5 {
+			n = 12
+		}
+		in := make([]store.LotInput, n)
+		for j := range in {
+			in[j] = store.LotInput{Lot: fmt.Sprintf("A%d", j), Inspected: 50, Count: 1}
+		}
+		if _, err := e.db.AddLots(ctx, "setup", p.ID, in); err != nil {
 			t.Fatal(err)
 		}
 		if _, err := e.srv.freshChart(ctx, p); err != nil {
 			t.Fatal(err)
 		}
+		if charts, lots := e.srv.judges.cachedLots(); i < 5 && (lots > 10 || charts != min(i+1, 3)) {
+			t.Errorf("after process %d: %d charts of %d lots cached, want at most 10 lots (3 charts)", i, charts, lots)
+		}
+		last = p
+	}
+	if charts, lots := e.srv.judges.cachedLots(); charts != 1 || lots != 12 {
+		t.Errorf("%d charts of %d lots cached, want the last one alone (12 lots)", charts, lots)
 	}
 	e.srv.judges.mu.Lock()
-	n := len(e.srv.judges.cache)
+	_, ok := e.srv.judges.cache[last.ID]
 	e.srv.judges.mu.Unlock()
-	if n != chartCacheSize {
-		t.Errorf("%d charts cached, want %d", n, chartCacheSize)
+	if !ok {
+		t.Errorf("the chart just built left the cache")
 	}
 }
 
