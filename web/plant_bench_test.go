@@ -8,7 +8,6 @@ import (
 	"runtime"
 	"strconv"
 	"strings"
-	"syscall"
 	"testing"
 	"time"
 
@@ -56,17 +55,6 @@ func plantEnv(b *testing.B, procs int) *testEnv {
 		}
 	}
 	return e
-}
-
-// cpuTime is the processor time the test process has used (user and
-// system), which, unlike the wall time, does not grow when other programs
-// share the machine.
-func cpuTime() time.Duration {
-	var ru syscall.Rusage
-	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
-		return 0
-	}
-	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
 }
 
 // heapMB is the live heap after a collection, in MB.
