@@ -131,10 +131,8 @@ func (db *DB) FreezeLimitSet(ctx context.Context, actor string, ls LimitSet) (Li
 		if err := w.bumpVersion(p.ID, true); err != nil {
 			return err
 		}
-		return w.audit(actor, "freeze", "limitset", ls.ID, ls.ID, nil, map[string]any{
-			"process_id": p.ID, "number": ls.Number, "method": ls.Method, "k": ls.K, "center": ls.Center, "sigma_z": ls.SigmaZ,
-			"baseline_from": nanos(ls.BaselineFrom), "baseline_to": nanos(ls.BaselineTo), "baseline_lots": ls.BaselineLots,
-			"excluded": ls.Excluded, "effective_from": ls.EffectiveFrom.UnixNano()}, ls.Reason)
+		ls.ProcessID = p.ID
+		return w.audit(actor, "freeze", "limitset", ls.ID, ls.ID, nil, limitSetRecord(ls), ls.Reason)
 	})
 	if err != nil {
 		return LimitSet{}, err

@@ -15,6 +15,63 @@ import (
 // runs after the migration's SQL, in its transaction.
 var upgrades = map[int]func(tx *sql.Tx, m migration) error{
 	2: upgradePackedLots,
+	5: upgradeCredentials,
+}
+
+// upgradeCredentials states in the audit trail the password hash of
+// every user and the hash of every token stored before the trail stated
+// them (migration 0005): one "state credentials" entry each, as the
+// SHA-256 of the stored hash. A database without an audit trail (a new
+// one) gets none. From here on `audit verify` names a hash changed behind
+// lotwatch's back; a change made before the upgrade cannot be told.
+func upgradeCredentials(tx *sql.Tx, m migration) error {
+	var head chainHead
+	if err := tx.QueryRow("SELECT seq, hash FROM audit_head WHERE id = 1").Scan(&head.seq, &head.hash); err != nil {
+		return err
+	}
+	if head.seq == 0 {
+		return nil
+	}
+	type cred struct {
+		entity string
+		id     int64
+		rec    credentialAudit
+	}
+	var creds []cred
+	for _, q := range []string{"SELECT 'user', id, password_hash FROM users ORDER BY id", "SELECT 'token', id, hash FROM tokens ORDER BY id"} {
+		rows, err := tx.Query(q)
+		if err != nil {
+			return err
+		}
+		for rows.Next() {
+			var c cred
+			var hash []byte
+			if err := rows.Scan(&c.entity, &c.id, &hash); err != nil {
+				rows.Close()
+				return err
+			}
+			if c.entity == "user" {
+				c.rec.Password = credentialDigest(hash)
+			} else {
+				c.rec.Hash = credentialDigest(hash)
+			}
+			creds = append(creds, c)
+		}
+		rows.Close()
+		if err := rows.Err(); err != nil {
+			return err
+		}
+	}
+	now := time.Now()
+	for _, c := range creds {
+		e := AuditEntry{At: now, Actor: "lotwatch", Action: "state credentials", Entity: c.entity, EntityID: c.id, EntityTo: c.id,
+			New: toJSON(c.rec), Reason: "schema upgrade: the audit trail states password and token hashes"}
+		var err error
+		if head, err = (*DB)(nil).appendAudit(tx, head, &e); err != nil {
+			return err
+		}
+	}
+	return nil
 }
 
 // upgradeChunk is how many lots upgradePackedLots reads before writing

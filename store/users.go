@@ -118,12 +118,6 @@ func checkPassword(pw string) []Problem {
 	return nil
 }
 
-type userAudit struct {
-	Name   string `json:"name"`
-	Role   Role   `json:"role"`
-	Active bool   `json:"active"`
-}
-
 // AddUser creates an active user. The password is stored as a bcrypt hash.
 func (db *DB) AddUser(ctx context.Context, actor, name string, role Role, password string) (User, error) {
 	ps := checkUserName(name)
@@ -149,7 +143,7 @@ func (db *DB) AddUser(ctx context.Context, actor, name string, role Role, passwo
 			return err
 		}
 		u.ID, _ = res.LastInsertId()
-		return w.audit(actor, "add", "user", u.ID, u.ID, nil, userAudit{name, role, true}, "")
+		return w.audit(actor, "add", "user", u.ID, u.ID, nil, userAudit{name, role, true, credentialDigest(hash)}, "")
 	})
 	if err != nil {
 		return User{}, err
@@ -205,7 +199,7 @@ func (db *DB) SetPassword(ctx context.Context, actor, name, newPassword string) 
 		if _, err := w.Exec("DELETE FROM sessions WHERE user_id = ?", id); err != nil {
 			return err
 		}
-		return w.audit(actor, "set password", "user", id, id, nil, nil, "")
+		return w.audit(actor, "set password", "user", id, id, nil, credentialAudit{Password: credentialDigest(hash)}, "")
 	})
 }
 
@@ -231,7 +225,7 @@ func (db *DB) SetUserActive(ctx context.Context, actor, name string, active bool
 				return err
 			}
 		}
-		return w.audit(actor, "set active", "user", id, id, userAudit{name, role, was}, userAudit{name, role, active}, reason)
+		return w.audit(actor, "set active", "user", id, id, userAudit{Name: name, Role: role, Active: was}, userAudit{Name: name, Role: role, Active: active}, reason)
 	})
 }
 
@@ -407,12 +401,13 @@ func (db *DB) CreateToken(ctx context.Context, actor, userName, label string) (s
 			return invalid(Problem{Field: "user", Value: userName, Reason: "is not active"})
 		}
 		t.Created = w.now.UTC()
-		res, err := w.Exec("INSERT INTO tokens (user_id, label, hash, created) VALUES (?, ?, ?, ?)", t.UserID, label, secretHash(raw), w.now.UnixNano())
+		hash := secretHash(raw)
+		res, err := w.Exec("INSERT INTO tokens (user_id, label, hash, created) VALUES (?, ?, ?, ?)", t.UserID, label, hash, w.now.UnixNano())
 		if err != nil {
 			return err
 		}
 		t.ID, _ = res.LastInsertId()
-		return w.audit(actor, "add", "token", t.ID, t.ID, nil, map[string]any{"user": userName, "label": label}, "")
+		return w.audit(actor, "add", "token", t.ID, t.ID, nil, tokenAudit{Label: label, User: userName, Hash: credentialDigest(hash)}, "")
 	})
 	if err != nil {
 		return "", Token{}, err

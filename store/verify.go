@@ -61,7 +61,8 @@ type rowTrail struct {
 	closeSeq      int64  // annotations: the close entry
 	closeAt       int64
 	closeActor    string
-	revoked       bool // tokens
+	revoked       bool   // tokens
+	cred          string // users and tokens: the latest credentialDigest stated ("" in entries before the trail stated them)
 }
 
 func newDataTrail() *dataTrail {
@@ -135,18 +136,52 @@ func (d *dataTrail) note(e *AuditEntry) error {
 		switch e.Action {
 		case "add":
 			added(d.users)
+			var u userAudit
+			decodeRecord(e.New, &u)
+			d.users[e.EntityID].cred = u.Password
 		case "set active":
 			changed(d.users)
+		case "set password", "state credentials":
+			d.stateCredential(d.users, e)
 		}
 	case "token":
 		switch e.Action {
 		case "add":
 			added(d.tokens)
+			var tk tokenAudit
+			decodeRecord(e.New, &tk)
+			d.tokens[e.EntityID].cred = tk.Hash
 		case "revoke":
 			changed(d.tokens).revoked = true
+		case "state credentials":
+			d.stateCredential(d.tokens, e)
 		}
 	}
 	return nil
+}
+
+// stateCredential notes the password or token hash an entry states
+// (entries before schema 5 state none: then nothing is noted).
+func (d *dataTrail) stateCredential(m map[int64]*rowTrail, e *AuditEntry) {
+	var c credentialAudit
+	if !decodeRecord(e.New, &c) {
+		return
+	}
+	t := m[e.EntityID]
+	if t == nil { // a credential of a row never added: the row must not exist
+		t = &rowTrail{}
+		m[e.EntityID] = t
+	}
+	if t.cred = c.Password; t.cred == "" {
+		t.cred = c.Hash
+	}
+	t.seq = max(t.seq, e.Seq)
+}
+
+// credentialDiffers reports a stored password or token hash that is not
+// the one the trail last stated.
+func credentialDiffers(t *rowTrail, stored []byte) bool {
+	return t.cred != "" && credentialDigest(stored) != t.cred
 }
 
 // rowBreak is a data row that does not agree with the audit trail.
@@ -232,25 +267,32 @@ func (d *dataTrail) checkProcesses(ctx context.Context, tx *sql.Tx, procs map[in
 }
 
 func (d *dataTrail) checkUsers(ctx context.Context, tx *sql.Tx, _ map[int64]procInfo) (*rowBreak, error) {
-	rows, err := tx.QueryContext(ctx, "SELECT "+userCols+" FROM users ORDER BY id")
+	rows, err := tx.QueryContext(ctx, "SELECT "+userCols+", password_hash FROM users ORDER BY id")
 	if err != nil {
 		return nil, err
 	}
 	defer rows.Close()
 	seen := map[int64]bool{}
 	for rows.Next() {
-		u, err := scanUser(rows)
-		if err != nil {
+		var u User
+		var created int64
+		var hash string
+		if err := rows.Scan(&u.ID, &u.Name, &u.Role, &u.Active, &created, &hash); err != nil {
 			return nil, err
 		}
 		seen[u.ID] = true
 		name := fmt.Sprintf("user %d (%q)", u.ID, u.Name)
 		t := d.users[u.ID]
+		var stated userAudit
 		switch {
 		case t == nil || t.addSeq == 0:
 			return unrecorded(name), nil
-		case toJSON(userAudit{u.Name, u.Role, u.Active}) != t.next || nanos(u.Created) != t.addAt:
+		case !decodeRecord(t.next, &stated):
 			return differ(t.seq, name), nil
+		case (userAudit{stated.Name, stated.Role, stated.Active, ""}) != (userAudit{u.Name, u.Role, u.Active, ""}) || created != t.addAt:
+			return differ(t.seq, name), nil
+		case credentialDiffers(t, []byte(hash)):
+			return &rowBreak{t.seq, name, "its password hash differs from the audit trail (set behind lotwatch's back)"}, nil
 		}
 	}
 	if err := rows.Err(); err != nil {
@@ -260,7 +302,7 @@ func (d *dataTrail) checkUsers(ctx context.Context, tx *sql.Tx, _ map[int64]proc
 }
 
 func (d *dataTrail) checkTokens(ctx context.Context, tx *sql.Tx, _ map[int64]procInfo) (*rowBreak, error) {
-	rows, err := tx.QueryContext(ctx, `SELECT t.id, t.label, t.created, t.revoked, COALESCE(u.name, '')
+	rows, err := tx.QueryContext(ctx, `SELECT t.id, t.label, t.created, t.revoked, COALESCE(u.name, ''), t.hash
 		FROM tokens t LEFT JOIN users u ON u.id = t.user_id ORDER BY t.id`)
 	if err != nil {
 		return nil, err
@@ -271,17 +313,21 @@ func (d *dataTrail) checkTokens(ctx context.Context, tx *sql.Tx, _ map[int64]pro
 		var id, created int64
 		var label, user string
 		var revoked bool
-		if err := rows.Scan(&id, &label, &created, &revoked, &user); err != nil {
+		var hash []byte
+		if err := rows.Scan(&id, &label, &created, &revoked, &user, &hash); err != nil {
 			return nil, err
 		}
 		seen[id] = true
 		name := fmt.Sprintf("token %d (%q of user %q)", id, label, user)
 		t := d.tokens[id]
+		var stated tokenAudit
 		switch {
 		case t == nil || t.addSeq == 0:
 			return unrecorded(name), nil
-		case toJSON(map[string]any{"user": user, "label": label}) != t.addNew || created != t.addAt || revoked != t.revoked:
+		case !decodeRecord(t.addNew, &stated) || stated.Label != label || stated.User != user || created != t.addAt || revoked != t.revoked:
 			return differ(t.seq, name), nil
+		case credentialDiffers(t, hash):
+			return &rowBreak{t.seq, name, "its hash differs from the audit trail (replaced behind lotwatch's back)"}, nil
 		}
 	}
 	if err := rows.Err(); err != nil {
@@ -316,8 +362,8 @@ func (d *dataTrail) checkLimitSets(ctx context.Context, tx *sql.Tx, procs map[in
 		if err := json.Unmarshal([]byte(excl), &ex); err != nil {
 			return differ(t.seq, name), nil
 		}
-		rec := map[string]any{"process_id": pid, "number": number, "method": spc.Method(method), "k": k, "center": center, "sigma_z": sz,
-			"baseline_from": bf, "baseline_to": bt, "baseline_lots": blots, "excluded": ex, "effective_from": ef}
+		rec := limitSetRecord(LimitSet{ProcessID: pid, Number: number, Method: spc.Method(method), K: k, Center: center, SigmaZ: sz,
+			BaselineFrom: fromNanos(bf, time.UTC), BaselineTo: fromNanos(bt, time.UTC), BaselineLots: blots, Excluded: ex, EffectiveFrom: time.Unix(0, ef)})
 		if toJSON(rec) != t.next || by != t.actor || fa != t.at || reason != t.reason {
 			return differ(t.seq, name), nil
 		}

@@ -40,8 +40,8 @@ func verifyFile(t *testing.T, path string) AuditCheck {
 
 // The audit chain catches a data row edited, added or removed behind the
 // tool's back: each case changes one row with plain SQL, and verify must
-// fail naming that row; changes to what the trail does not cover
-// (password hashes, sessions) leave it holding.
+// fail naming that row (password and token hashes too); changes to what
+// the trail does not cover (sessions) leave it holding.
 func TestAuditCatchesDataRows(t *testing.T) {
 	cases := []struct {
 		name string
@@ -90,7 +90,10 @@ func TestAuditCatchesDataRows(t *testing.T) {
 			want: `annotation 1 (process "Line 2 press"): stored values differ`},
 		{name: "annotation removed", sql: []string{"DELETE FROM annotations WHERE id = 2"},
 			want: `annotation 2: was removed`},
-		{name: "password hash (not covered)", sql: []string{"UPDATE users SET password_hash = 'x'"}},
+		{name: "password hash copied onto another user", sql: []string{"UPDATE users SET password_hash = (SELECT password_hash FROM users WHERE name = 'bo') WHERE name = 'ana'"},
+			want: `user 1 ("ana"): its password hash differs from the audit trail`},
+		{name: "token hash replaced", sql: []string{"UPDATE tokens SET hash = x'00112233'"},
+			want: `token 1 ("station 1" of user "ana"): its hash differs from the audit trail`},
 		{name: "sessions (not covered)", sql: []string{"DELETE FROM sessions"}},
 	}
 	for _, c := range cases {
@@ -139,6 +142,11 @@ func TestMigration0002FromSchema1(t *testing.T) {
 	if err := raw.QueryRow("SELECT COUNT(*) FROM audit").Scan(&before); err != nil {
 		t.Fatal(err)
 	}
+	// Migration 0005 states each user's and token's hash in an entry.
+	var creds int
+	if err := raw.QueryRow("SELECT (SELECT COUNT(*) FROM users) + (SELECT COUNT(*) FROM tokens)").Scan(&creds); err != nil {
+		t.Fatal(err)
+	}
 	rows, err := raw.Query("SELECT " + lotCols + " FROM lots WHERE voided = 0 AND process_id = 1 ORDER BY time, id")
 	if err != nil {
 		t.Fatal(err)
@@ -159,7 +167,7 @@ func TestMigration0002FromSchema1(t *testing.T) {
 	}
 	defer db.Close()
 	chk, err := db.VerifyAudit(ctx)
-	if err != nil || !chk.OK || chk.Entries != before+1 {
+	if err != nil || !chk.OK || chk.Entries != before+1+creds {
 		t.Fatalf("after migration: %+v %v (had %d entries)", chk, err, before)
 	}
 	es, err := db.AuditFor(ctx, "schema", 2)
@@ -179,7 +187,7 @@ func TestMigration0002FromSchema1(t *testing.T) {
 	}
 	db.Close()
 	// Opening again applies nothing more.
-	if chk := verifyFile(t, path); !chk.OK || chk.Entries != before+1 {
+	if chk := verifyFile(t, path); !chk.OK || chk.Entries != before+1+creds {
 		t.Fatalf("reopened: %+v", chk)
 	}
 }

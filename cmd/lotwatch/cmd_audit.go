@@ -22,9 +22,12 @@ carries the SHA-256 of the one before and of its own content, and the last
 one is noted separately. An entry edited, inserted or removed behind
 lotwatch's back (also the last one) breaks the chain. Then every stored
 row the trail covers — lots with their category counts and revisions,
-processes, limit sets, annotations, users' role and active state, tokens —
-is compared with the latest entry about it, so that a row edited, added or
-removed with plain SQL is named. The hash of the last entry is printed:
+processes, limit sets, annotations, users' role, active state and password
+hash, tokens and their hashes — is compared with the latest entry about
+it, so that a row edited, added or removed with plain SQL is named.
+Sign-in sessions are not covered: a session row added behind lotwatch's
+back is not found (whoever can write the file can do that and more; keep
+it readable by its owner only). The hash of the last entry is printed:
 note it elsewhere (e.g. in the weekly review) to tell later whether the
 whole trail was rewritten.
 

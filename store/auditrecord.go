@@ -1,0 +1,73 @@
+package store
+
+import (
+	"crypto/sha256"
+	"encoding/hex"
+	"encoding/json"
+
+	"lotwatch/spc"
+)
+
+// The content the audit trail states of each entity has one encoder per
+// entity, used both by the writer that records a change and by
+// VerifyAudit, which checks the stored row against it, so the two cannot
+// drift apart. The JSON of each type is what earlier versions wrote
+// (their maps had these keys in this order); fields added since are left
+// out when empty, so that old entries decode to the same values and an
+// empty credential digest is not checked.
+
+// credentialDigest is what the trail states of a stored password or token
+// hash: the SHA-256 of the stored hash, in hex. It tells an edited hash
+// from the recorded one without putting the hash itself (which would help
+// guess a password) in the trail.
+func credentialDigest(stored []byte) string {
+	sum := sha256.Sum256(stored)
+	return hex.EncodeToString(sum[:])
+}
+
+// userAudit is a user as the trail states it.
+type userAudit struct {
+	Name   string `json:"name"`
+	Role   Role   `json:"role"`
+	Active bool   `json:"active"`
+	// Password is the credentialDigest of the password hash (entries
+	// since version 5 of the schema).
+	Password string `json:"password_sha256,omitempty"`
+}
+
+// tokenAudit is an API token as the trail states it when it is made.
+type tokenAudit struct {
+	Label string `json:"label"`
+	User  string `json:"user"`
+	Hash  string `json:"hash_sha256,omitempty"` // credentialDigest of the stored hash
+}
+
+// credentialAudit is a password set anew, or a password or token hash
+// stated by the upgrade that began stating them.
+type credentialAudit struct {
+	Password string `json:"password_sha256,omitempty"`
+	Hash     string `json:"hash_sha256,omitempty"`
+}
+
+// limitSetAudit is a frozen limit set as the trail states it.
+type limitSetAudit struct {
+	BaselineFrom  int64             `json:"baseline_from"`
+	BaselineLots  int               `json:"baseline_lots"`
+	BaselineTo    int64             `json:"baseline_to"`
+	Center        float64           `json:"center"`
+	EffectiveFrom int64             `json:"effective_from"`
+	Excluded      map[string]string `json:"excluded"`
+	K             float64           `json:"k"`
+	Method        spc.Method        `json:"method"`
+	Number        int               `json:"number"`
+	ProcessID     int64             `json:"process_id"`
+	SigmaZ        float64           `json:"sigma_z"`
+}
+
+func limitSetRecord(ls LimitSet) limitSetAudit {
+	return limitSetAudit{nanos(ls.BaselineFrom), ls.BaselineLots, nanos(ls.BaselineTo), ls.Center, ls.EffectiveFrom.UnixNano(),
+		ls.Excluded, ls.K, ls.Method, ls.Number, ls.ProcessID, ls.SigmaZ}
+}
+
+// decodeRecord reads an entry's JSON into v; false when it does not read.
+func decodeRecord(s string, v any) bool { return json.Unmarshal([]byte(s), v) == nil }
