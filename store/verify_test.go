@@ -219,8 +219,9 @@ func TestMigrationNewDatabaseNoEntry(t *testing.T) {
 
 // A database written at schema 2, whose lots carried a packed copy and
 // whose audit trail holds the entries written then (the migration entry
-// of 0002 among them), is upgraded by migrations 0003 and 0004: the copy and its
-// index are gone, no entry is added, the trail still holds, and every
+// of 0002 among them), is upgraded by migrations 0003 to 0005: the copy and its
+// index are gone, no entry is added but 0005's statements of the
+// credentials, the trail still holds, and every
 // lot reads as its columns held it before.
 func TestMigration0004FromSchema2(t *testing.T) {
 	b, err := os.ReadFile(schema2Fixture)
@@ -239,6 +240,12 @@ func TestMigration0004FromSchema2(t *testing.T) {
 	if err := raw.QueryRow("SELECT MAX(version) FROM schema_migrations").Scan(&version); err != nil || version != 2 {
 		t.Fatalf("fixture at schema %d (%v), want 2", version, err)
 	}
+	// Migration 0005 states each user's and token's hash in an entry.
+	var creds int
+	if err := raw.QueryRow("SELECT (SELECT COUNT(*) FROM users) + (SELECT COUNT(*) FROM tokens)").Scan(&creds); err != nil {
+		t.Fatal(err)
+	}
+	before += creds
 	colsBefore := map[int64]Lot{}
 	rows, err := raw.Query("SELECT " + lotCols + " FROM lots WHERE voided = 0")
 	if err != nil {
