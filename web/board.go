@@ -28,6 +28,7 @@ type boardRow struct {
 	Trial      bool
 	State      string // "out", "signal", "ok", "none", "error"
 	Words      string // what needs attention, or today's state
+	Short      string // the same, shorter, for the table
 	TodayWords string
 	Err        string
 }
@@ -223,14 +224,15 @@ func (s *Server) boardRow(ctx context.Context, pp plantProcess) boardRow {
 	default:
 		row.State = "none"
 	}
-	row.Words = needWords(row)
+	row.Words, row.Short = needWords(row)
 	return row
 }
 
-// needWords says what needs attention on one process, in words.
-func needWords(row boardRow) string {
+// needWords says what needs attention on one process, in words, long
+// and short.
+func needWords(row boardRow) (long, short string) {
 	if len(row.Need) == 0 {
-		return "nothing needs attention"
+		return "nothing needs attention", "nothing to explain"
 	}
 	var parts []string
 	if row.NeedOut > 0 {
@@ -239,5 +241,6 @@ func needWords(row boardRow) string {
 	if row.NeedSignal > 0 {
 		parts = append(parts, plural(row.NeedSignal, "in a signal", "in signals"))
 	}
-	return plural(len(row.Need), "lot needs", "lots need") + " attention (" + strings.Join(parts, ", ") + "), oldest " + fmtWhen(row.Need[0].Time.In(row.Proc.Location()))
+	short = strings.Join(parts, ", ")
+	return plural(len(row.Need), "lot needs", "lots need") + " attention (" + short + "), oldest " + fmtWhen(row.Need[0].Time.In(row.Proc.Location())), short
 }
