@@ -108,13 +108,13 @@ var fragmentTmpl = template.Must(template.New("fragment").Funcs(funcs).Parse(`<d
 <h3>Lots outside their control limits</h3>
 {{if .OutOfLimits}}<div class="lw-scroll"><table>
 <tr><th>Lot</th><th>Time</th><th>{{unit $ch}} / inspected</th><th>Judged</th><th>Cause</th></tr>
-{{range .OutOfLimits}}<tr><td>{{.Lot.Lot}}</td><td>{{when .Lot.Time $loc}}</td><td class="num">{{.Lot.Count}} / {{.Lot.Inspected}}</td><td>{{if .Above}}above the upper limit {{plotted $ch .UCL}}{{else}}below the lower limit {{plotted $ch .LCL}}{{end}} ({{.Limits}})</td><td>{{status .Annotations}}{{range .Annotations}}<br>{{.Cause}}{{with .Action}}; action: {{.}}{{end}} <span class="muted">({{.By}}, {{if .Closed}}closed{{else}}open{{end}})</span>{{end}}</td></tr>
+{{range .OutOfLimits}}<tr><td>{{.Lot.Lot}}</td><td>{{when .Lot.Time $loc}}</td><td class="num">{{.Lot.Count}} / {{.Lot.Inspected}}</td><td>{{if .Above}}above the upper limit {{plotted $ch .UCL}}{{else}}below the lower limit {{plotted $ch .LCL}}{{end}} ({{.Limits}})</td><td>{{status .Annotations}}{{range .Annotations}}<br>{{if .NoCauseFound}}no assignable cause found: {{.Reason}}{{else}}{{.Cause}}{{end}}{{with .Action}}; action: {{.}}{{end}} <span class="muted">({{.By}}, {{if .Closed}}closed{{else}}open{{end}})</span>{{end}}</td></tr>
 {{end}}</table></div>{{else}}<p>None.</p>{{end}}
 
 <h3>Run-rule signals touching the week</h3>
 {{if .Signals}}<div class="lw-scroll"><table>
 <tr><th>Rule</th><th>What</th><th>Lots</th><th>Cause</th></tr>
-{{range .Signals}}<tr><td>{{.Rule}}</td><td>{{.Description}}</td><td>{{lots .Lots}}</td><td>{{status .Annotations}}{{range .Annotations}}<br>{{.Cause}}{{with .Action}}; action: {{.}}{{end}} <span class="muted">({{.By}}, {{if .Closed}}closed{{else}}open{{end}})</span>{{end}}</td></tr>
+{{range .Signals}}<tr><td>{{.Rule}}</td><td>{{.Description}}</td><td>{{lots .Lots}}</td><td>{{status .Annotations}}{{range .Annotations}}<br>{{if .NoCauseFound}}no assignable cause found: {{.Reason}}{{else}}{{.Cause}}{{end}}{{with .Action}}; action: {{.}}{{end}} <span class="muted">({{.By}}, {{if .Closed}}closed{{else}}open{{end}})</span>{{end}}</td></tr>
 {{end}}</table></div>{{else}}<p>None.</p>{{end}}
 
 <h3>Defect categories</h3>

@@ -231,6 +231,10 @@ func writeAnnotations(b *bufio.Writer, as []store.Annotation, loc *time.Location
 				state += " by " + a.ClosedBy
 			}
 		}
+		if a.NoCauseFound {
+			fmt.Fprintf(b, "    no assignable cause found: %s (%s, %s)\n", a.Reason, a.By, state)
+			continue
+		}
 		fmt.Fprintf(b, "    cause: %s", a.Cause)
 		if a.Action != "" {
 			fmt.Fprintf(b, "; action: %s", a.Action)
@@ -329,6 +333,9 @@ type jsonAnnotation struct {
 	At       string `json:"at"`
 	ClosedBy string `json:"closed_by,omitempty"`
 	ClosedAt string `json:"closed_at,omitempty"`
+	// NoCauseFound and Reason: investigated, no assignable cause found.
+	NoCauseFound bool   `json:"no_cause_found,omitempty"`
+	Reason       string `json:"reason,omitempty"`
 }
 
 type jsonSignal struct {
@@ -387,7 +394,7 @@ func annotationsJSON(as []store.Annotation, lotCode map[int64]string, loc *time.
 	out := make([]jsonAnnotation, 0, len(as))
 	for _, a := range as {
 		j := jsonAnnotation{Lot: lotCode[a.LotID], Rule: a.Rule, Cause: a.Cause, Action: a.Action, Closed: a.Closed,
-			By: a.By, At: stamp(a.At, loc), ClosedBy: a.ClosedBy, ClosedAt: stamp(a.ClosedAt, loc)}
+			By: a.By, At: stamp(a.At, loc), ClosedBy: a.ClosedBy, ClosedAt: stamp(a.ClosedAt, loc), NoCauseFound: a.NoCauseFound, Reason: a.Reason}
 		out = append(out, j)
 	}
 	return out

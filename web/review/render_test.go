@@ -1,6 +1,7 @@
 package review
 
 import (
+	"bufio"
 	"bytes"
 	"encoding/csv"
 	"math"
@@ -131,3 +132,32 @@ func TestTextAndCSV(t *testing.T) {
 }
 
 func sqrt(x float64) float64 { return math.Sqrt(x) }
+
+// TestCauseStatusNoCauseFound: a finding of no assignable cause is named
+// as such, not as a closed cause, and written with its reason.
+func TestCauseStatusNoCauseFound(t *testing.T) {
+	none := store.Annotation{NoCauseFound: true, Reason: "gauge and film batch checked", Closed: true, By: "ana"}
+	cause := store.Annotation{Cause: "torn film", Closed: true, By: "bo"}
+	open := store.Annotation{Cause: "torn film", By: "bo"}
+	cases := []struct {
+		as   []store.Annotation
+		want string
+	}{
+		{nil, "no cause recorded"},
+		{[]store.Annotation{none}, "no assignable cause found"},
+		{[]store.Annotation{none, cause}, "cause closed"},
+		{[]store.Annotation{none, open}, "cause open"},
+	}
+	for _, c := range cases {
+		if got := CauseStatus(c.as); got != c.want {
+			t.Errorf("%+v: %q, want %q", c.as, got, c.want)
+		}
+	}
+	var buf bytes.Buffer
+	w := bufio.NewWriter(&buf)
+	writeAnnotations(w, []store.Annotation{none}, time.UTC)
+	w.Flush()
+	if !strings.Contains(buf.String(), "no assignable cause found: gauge and film batch checked (ana, closed") {
+		t.Errorf("text: %q", buf.String())
+	}
+}

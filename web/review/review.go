@@ -228,10 +228,15 @@ func CauseStatus(as []store.Annotation) string {
 	if len(as) == 0 {
 		return "no cause recorded"
 	}
+	found := false
 	for _, a := range as {
 		if !a.Closed {
 			return "cause open"
 		}
+		found = found || !a.NoCauseFound
+	}
+	if !found {
+		return "no assignable cause found"
 	}
 	return "cause closed"
 }
