@@ -22,9 +22,29 @@ var (
 )
 
 // Problem is one thing wrong with an input: the line of a file (0 if
-// none), the field, the value as given and why it is wrong. It is the
-// same type as lotcsv.Problem, so file and form problems mix.
-type Problem = lotcsv.Problem
+// none), the field, the value as given and why it is wrong. A problem the
+// lot file reader finds (lotcsv.Problem, with the same fields) becomes one
+// by conversion, so that problems of a file and of its values are listed
+// together.
+type Problem struct {
+	Line   int
+	Field  string
+	Value  string
+	Reason string
+}
+
+// String is the problem as one line, written as the lot file reader
+// writes its own: `line 3: inspected "0" must be …`.
+func (p Problem) String() string { return lotcsv.Problem(p).String() }
+
+// fileProblems are the lot file reader's problems as the store's.
+func fileProblems(ps lotcsv.Problems) []Problem {
+	out := make([]Problem, len(ps))
+	for i, p := range ps {
+		out[i] = Problem(p)
+	}
+	return out
+}
 
 // ValidationError lists every problem of an input. errors.Is(err,
 // ErrInvalid) holds. More counts problems left out of Problems beyond a

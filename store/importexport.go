@@ -130,7 +130,7 @@ func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportO
 		if err != nil {
 			var ps lotcsv.Problems
 			if errors.As(err, &ps) {
-				return &ValidationError{Problems: ps}
+				return &ValidationError{Problems: fileProblems(ps)}
 			}
 			return err
 		}
@@ -180,7 +180,7 @@ func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportO
 			var rps lotcsv.Problems
 			if errors.As(err, &rps) {
 				for _, pr := range rps {
-					problem(pr)
+					problem(Problem(pr))
 				}
 				continue
 			}

@@ -11,10 +11,7 @@ import (
 	"maps"
 	"sort"
 	"strconv"
-	"strings"
 	"time"
-
-	"lotwatch/spc"
 )
 
 // LotInput is a lot as logged: by the form, the API or an imported file.
@@ -50,87 +47,6 @@ type Lots interface {
 	CorrectLot(ctx context.Context, actor, reason string, id int64, in LotInput) (Lot, error)
 	VoidLot(ctx context.Context, actor, reason string, id int64) error
 	LotHistory(ctx context.Context, id int64) ([]Lot, error)
-}
-
-// maxFuture is how far ahead of now a lot time may lie (clock skew
-// between an inspection station and the server; common practice, no
-// source).
-const maxFuture = 24 * time.Hour
-
-var earliest = time.Date(1970, 1, 2, 0, 0, 0, 0, time.UTC)
-
-// CountField is the name of the count field for the chart: "defective"
-// for p and np, "defects" for u and c.
-func CountField(c spc.Chart) string {
-	if c.CountsUnits() {
-		return "defective"
-	}
-	return "defects"
-}
-
-// ValidateLot is the one validation routine for a lot, shared by the form,
-// the API and import: the counts by spc.CheckLot; each category count
-// must be one of the process's categories, not negative and, for p and
-// np, at most the number inspected; text fields must be clean UTF-8 (lot
-// code, shift and inspector without surrounding spaces or control
-// characters); the time must not be before 1970 nor more than a day ahead.
-// Problems name the field as the lot file's column does.
-func ValidateLot(p Process, in LotInput) []Problem {
-	return validateLot(p, in, time.Now())
-}
-
-func validateLot(p Process, in LotInput, now time.Time) []Problem {
-	var ps []Problem
-	if in.Lot == "" {
-		ps = append(ps, Problem{Field: "lot", Reason: "is empty: every lot needs its lot code"})
-	} else {
-		ps = append(ps, checkText("lot", in.Lot, 100, true)...)
-	}
-	ps = append(ps, checkText("shift", in.Shift, 100, true)...)
-	ps = append(ps, checkText("inspector", in.Inspector, 100, true)...)
-	ps = append(ps, checkText("note", in.Note, 4000, false)...)
-	if err := spc.CheckLot(p.Chart, in.Inspected, in.Count); err != nil {
-		var fe *spc.FieldError
-		if errors.As(err, &fe) {
-			ps = append(ps, Problem{Field: fe.Field, Value: fe.Value, Reason: fe.Reason})
-		} else {
-			ps = append(ps, Problem{Field: CountField(p.Chart), Reason: err.Error()})
-		}
-	}
-	if !in.Time.IsZero() {
-		switch {
-		case in.Time.Before(earliest):
-			ps = append(ps, Problem{Field: "time", Value: in.Time.Format(time.RFC3339), Reason: "is before 1970"})
-		case in.Time.After(now.Add(maxFuture)):
-			ps = append(ps, Problem{Field: "time", Value: in.Time.Format(time.RFC3339), Reason: "is more than a day in the future"})
-		}
-	}
-	if len(in.Categories) > 0 {
-		names := make([]string, 0, len(in.Categories))
-		for c := range in.Categories {
-			names = append(names, c)
-		}
-		sort.Strings(names)
-		for _, c := range names {
-			n := in.Categories[c]
-			known := false
-			for _, pc := range p.Categories {
-				if pc == c {
-					known = true
-					break
-				}
-			}
-			switch {
-			case !known:
-				ps = append(ps, Problem{Field: c, Value: fmt.Sprint(n), Reason: fmt.Sprintf("is not a defect category of process %q (it has: %s)", p.Name, strings.Join(p.Categories, ", "))})
-			case n < 0:
-				ps = append(ps, Problem{Field: c, Value: fmt.Sprint(n), Reason: "must not be negative"})
-			case p.Chart.CountsUnits() && n > in.Inspected && in.Inspected > 0:
-				ps = append(ps, Problem{Field: c, Value: fmt.Sprint(n), Reason: fmt.Sprintf("is more than the %d units inspected", in.Inspected)})
-			}
-		}
-	}
-	return ps
 }
 
 // encodeCategories is the stored form: a JSON object with sorted keys,

@@ -94,52 +94,6 @@ func CheckRules(s string) error {
 var reservedColumns = map[string]bool{lotcsv.ColLot: true, lotcsv.ColTime: true, lotcsv.ColShift: true,
 	lotcsv.ColInspected: true, lotcsv.ColDefective: true, lotcsv.ColDefects: true, lotcsv.ColInspector: true, lotcsv.ColNote: true}
 
-// isFormat reports an invisible Unicode format character (category Cf:
-// U+200B zero-width space, U+202E right-to-left override, U+00AD soft
-// hyphen, …): in a code or a name it makes two different texts look
-// the same.
-func isFormat(r rune) bool { return unicode.Is(unicode.Cf, r) }
-
-// formatProblem names the first format character of v.
-func formatProblem(field, v string) Problem {
-	var r rune
-	if i := strings.IndexFunc(v, isFormat); i >= 0 {
-		r, _ = utf8.DecodeRuneInString(v[i:])
-	}
-	return Problem{Field: field, Value: v, Reason: fmt.Sprintf("must not contain invisible format characters (here %U), which make two texts look the same", r)}
-}
-
-// checkText checks a text field: valid UTF-8, at most max bytes, no NUL;
-// when trimmed (codes and names) also no surrounding spaces, control
-// characters or invisible format characters.
-func checkText(field, v string, max int, trimmed bool) []Problem {
-	switch {
-	case !utf8.ValidString(v):
-		return []Problem{{Field: field, Value: strings.ToValidUTF8(v, "\uFFFD"), Reason: "is not valid UTF-8 text"}}
-	case len(v) > max:
-		return []Problem{{Field: field, Value: v[:32] + "…", Reason: fmt.Sprintf("is longer than %d bytes", max)}}
-	case trimmed && strings.TrimSpace(v) != v:
-		return []Problem{{Field: field, Value: v, Reason: "must not start or end with spaces"}}
-	case trimmed && strings.IndexFunc(v, unicode.IsControl) >= 0:
-		return []Problem{{Field: field, Value: v, Reason: "must not contain control characters (tabs, line breaks)"}}
-	case trimmed && strings.IndexFunc(v, isFormat) >= 0:
-		return []Problem{formatProblem(field, v)}
-	case strings.IndexByte(v, 0) >= 0:
-		return []Problem{{Field: field, Value: strings.ReplaceAll(v, "\x00", `\0`), Reason: "must not contain NUL characters"}}
-	}
-	return nil
-}
-
-// checkReason checks the reason a user gives for a change: not empty
-// (empty completes the message), and clean text of at most 4000 bytes,
-// like a note.
-func checkReason(reason, empty string) []Problem {
-	if strings.TrimSpace(reason) == "" {
-		return []Problem{{Field: "reason", Reason: "is empty: " + empty}}
-	}
-	return checkText("reason", reason, 4000, false)
-}
-
 // normalize fills defaults and checks a process.
 func normalizeProcess(p *Process) []Problem {
 	var ps []Problem

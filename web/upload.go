@@ -319,7 +319,7 @@ func (s *Server) previewFile(r *http.Request, path string, p store.Process, d *u
 	var hps lotcsv.Problems
 	if errors.As(err, &hps) {
 		for _, pr := range hps {
-			add(pr)
+			add(store.Problem(pr))
 		}
 		return nil
 	}
@@ -345,7 +345,7 @@ func (s *Server) previewFile(r *http.Request, path string, p store.Process, d *u
 		if errors.As(err, &rps) {
 			d.Rows++
 			for _, pr := range rps {
-				add(pr)
+				add(store.Problem(pr))
 			}
 			continue
 		}
