@@ -4,6 +4,7 @@ import (
 	"crypto/sha256"
 	"encoding/hex"
 	"encoding/json"
+	"strconv"
 
 	"lotwatch/spc"
 )
@@ -71,3 +72,28 @@ func limitSetRecord(ls LimitSet) limitSetAudit {
 
 // decodeRecord reads an entry's JSON into v; false when it does not read.
 func decodeRecord(s string, v any) bool { return json.Unmarshal([]byte(s), v) == nil }
+
+// appendLotLine appends the canonical line of a lot as first logged, for
+// the digest a batch entry carries (SHA-256 over the lines of its lots in
+// id order): the fields in a fixed order, NUL-separated, the time as
+// nanoseconds since 1970, the categories in their stored form cats (see
+// encodeCategories), ending in a newline. The adder writes it as it
+// stores the lot and verify as it reads the lot back.
+func appendLotLine(b []byte, in *LotInput, cats string) []byte {
+	b = append(b, in.Lot...)
+	b = append(b, 0)
+	b = strconv.AppendInt(b, in.Time.UnixNano(), 10)
+	b = append(b, 0)
+	b = append(b, in.Shift...)
+	b = append(b, 0)
+	b = strconv.AppendInt(b, in.Inspected, 10)
+	b = append(b, 0)
+	b = strconv.AppendInt(b, in.Count, 10)
+	b = append(b, 0)
+	b = append(b, cats...)
+	b = append(b, 0)
+	b = append(b, in.Inspector...)
+	b = append(b, 0)
+	b = append(b, in.Note...)
+	return append(b, '\n')
+}

@@ -201,28 +201,6 @@ type lotAdder struct {
 // (a larger one carries the digest only).
 const maxListed = 20
 
-// appendCanonical appends the canonical line of a lot for the digest of a
-// batch: its fields in a fixed order, NUL-separated, times as nanoseconds
-// since 1970, categories in their stored form, ending in a newline.
-func appendCanonical(b []byte, in *LotInput) []byte {
-	b = append(b, in.Lot...)
-	b = append(b, 0)
-	b = strconv.AppendInt(b, in.Time.UnixNano(), 10)
-	b = append(b, 0)
-	b = append(b, in.Shift...)
-	b = append(b, 0)
-	b = strconv.AppendInt(b, in.Inspected, 10)
-	b = append(b, 0)
-	b = strconv.AppendInt(b, in.Count, 10)
-	b = append(b, 0)
-	b = append(b, encodeCategories(in.Categories)...)
-	b = append(b, 0)
-	b = append(b, in.Inspector...)
-	b = append(b, 0)
-	b = append(b, in.Note...)
-	return append(b, '\n')
-}
-
 type hashWriter interface {
 	Write([]byte) (int, error)
 	Sum([]byte) []byte
@@ -245,7 +223,8 @@ func (a *lotAdder) add(in *LotInput) (id int64, added bool, err error) {
 	if t.IsZero() {
 		t = a.w.now
 	}
-	res, err := a.ins.Exec(a.p.ID, in.Lot, t.UnixNano(), in.Shift, in.Inspected, in.Count, encodeCategories(in.Categories), in.Inspector, in.Note, a.w.now.UnixNano(), a.actor)
+	cats := encodeCategories(in.Categories)
+	res, err := a.ins.Exec(a.p.ID, in.Lot, t.UnixNano(), in.Shift, in.Inspected, in.Count, cats, in.Inspector, in.Note, a.w.now.UnixNano(), a.actor)
 	if err != nil {
 		return 0, false, fmt.Errorf("store: add lot %q: %w", in.Lot, err)
 	}
@@ -261,7 +240,7 @@ func (a *lotAdder) add(in *LotInput) (id int64, added bool, err error) {
 	}
 	a.last = id
 	a.n++
-	a.buf = appendCanonical(a.buf[:0], in)
+	a.buf = appendLotLine(a.buf[:0], in, cats)
 	a.h.Write(a.buf)
 	if a.n <= maxListed {
 		a.listed = append(a.listed, *in)
@@ -279,7 +258,7 @@ func (a *lotAdder) stored(code string) (Lot, error) {
 // and the SHA-256 over their canonical content;
 // small batches carry the full content (of lots, or when lots is nil, of
 // the lots added), so that `audit verify` can name a lot changed since.
-// The digest is over the lines of appendCanonical, in id order.
+// The digest is over the lines of appendLotLine, in id order.
 func (a *lotAdder) finish(how string, lots []LotInput, extra map[string]any) error {
 	if a.n == 0 {
 		return nil
