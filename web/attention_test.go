@@ -104,6 +104,9 @@ func TestAPIAttention(t *testing.T) {
 	if got := list(); len(got) != 1 || got[0].Lot != odd {
 		t.Errorf("after the cause: %+v", got)
 	}
+	if page := e.do(req{method: "GET", path: "/lots/" + formatID(lots[30].ID), cookie: e.signIn(t, "viewer1", testPassword)}).Body.String(); !strings.Contains(page, "This lot needs attention:</strong> out of limits") {
+		t.Errorf("the lot page of an unexplained lot does not say it needs attention")
+	}
 	rec = e.do(req{method: "POST", path: path(odd), body: `{"no_cause_found": true, "reason": "re-inspected: gauge, film batch and operator all as usual"}`, token: insp})
 	if rec.Code != http.StatusCreated {
 		t.Fatalf("posting no cause found for %q: %d %s", odd, rec.Code, rec.Body.String())

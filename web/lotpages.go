@@ -14,6 +14,7 @@ import (
 	"lotwatch/spc"
 	"lotwatch/store"
 	"lotwatch/store/lotcsv"
+	"lotwatch/web/attention"
 )
 
 // formTime is the layout of an <input type="datetime-local">.
@@ -294,6 +295,7 @@ type lotPageData struct {
 	Problem    string
 	CauseForm  map[string]string
 	Back       string // the worklist to return to after recording a cause
+	NeedWords  string // why the lot needs attention, "" when it does not
 	History    []store.Lot
 	Audit      []store.AuditEntry
 	Form       lotForm
@@ -376,6 +378,14 @@ func (s *Server) showLot(w http.ResponseWriter, r *http.Request, status int, pro
 		}
 		if d.Point != nil {
 			d.Tail = tailWords(d.Point.TailP, d.Point.Value >= d.Point.Center, "lots")
+		}
+	}
+	for _, n := range attention.Find(p, pc.lots, pc.a, anns) {
+		if n.LotID == l.ID {
+			d.NeedWords = kindWords[n.Kind]
+			if len(n.Rules) > 0 {
+				d.NeedWords += " (" + strings.Join(n.Rules, ", ") + ")"
+			}
 		}
 	}
 	rules := []string{"", "the lot itself"}
