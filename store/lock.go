@@ -33,11 +33,12 @@ func lockPath(path string) string { return path + ".lock" }
 // nothing can replace the database there either.
 func lockShared(path string) (*dbLock, error) {
 	f, err := os.OpenFile(lockPath(path), os.O_RDWR|os.O_CREATE, 0o600)
-	if err == nil {
-		f.Chmod(0o600)
+	if errors.Is(err, fs.ErrPermission) {
+		// Another user's lock file: a handle for reading locks as well.
+		f, err = os.Open(lockPath(path))
 	}
 	if err != nil {
-		if errors.Is(err, fs.ErrPermission) || errors.Is(err, syscall.EROFS) {
+		if errors.Is(err, fs.ErrPermission) || errors.Is(err, fs.ErrNotExist) || errors.Is(err, syscall.EROFS) {
 			return nil, nil
 		}
 		return nil, fmt.Errorf("store: %w", err)
