@@ -1,14 +1,10 @@
 package main
 
 import (
-	"encoding/json"
-	"errors"
 	"flag"
 	"fmt"
 	"io"
-	"math"
 	"strconv"
-	"strings"
 
 	"lotwatch/spc"
 )
@@ -51,156 +47,6 @@ Options:
 Exit status: 0 when done, 2 for bad input (nothing is printed on standard
 output then; each problem is named on standard error).
 `
-
-// statsUsage collects the usage problems of one command invocation, one
-// line each, so that all of them are reported at once.
-type statsUsage struct {
-	cmd      string
-	problems []string
-}
-
-func (u *statsUsage) addf(format string, a ...any) {
-	u.problems = append(u.problems, fmt.Sprintf(format, a...))
-}
-
-// report prints the problems to stderr and returns exitUsage, or returns -1
-// when there are none.
-func (u *statsUsage) report(stderr io.Writer) int {
-	if len(u.problems) == 0 {
-		return -1
-	}
-	for _, p := range u.problems {
-		fmt.Fprintf(stderr, "lotwatch %s: %s\n", u.cmd, p)
-	}
-	return exitUsage
-}
-
-// statsParse parses the leading options of args with fs and returns the
-// positional arguments. Every option of these commands takes a value, so
-// the options end at "--", at the first word not starting with "-", or at
-// a negative number (which is a bad argument, not an option). It returns
-// a status ≥ 0 when the command is done: exitOK after printing help,
-// exitUsage after naming a bad option.
-func statsParse(fs *flag.FlagSet, args []string, help string, stdout, stderr io.Writer) ([]string, int) {
-	fs.SetOutput(io.Discard)
-	fs.Usage = func() {}
-	i := 0
-	for i < len(args) {
-		a := args[i]
-		if a == "--" {
-			i++
-			break
-		}
-		if !strings.HasPrefix(a, "-") || a == "-" {
-			break
-		}
-		if _, err := strconv.ParseFloat(a, 64); err == nil {
-			break
-		}
-		name := strings.TrimLeft(a, "-")
-		if strings.Contains(name, "=") || name == "h" || name == "help" {
-			i++
-		} else {
-			i += 2
-		}
-	}
-	i = min(i, len(args))
-	if err := fs.Parse(args[:i]); err != nil {
-		if errors.Is(err, flag.ErrHelp) {
-			fmt.Fprint(stdout, help)
-			return nil, exitOK
-		}
-		msg := err.Error()
-		if name, ok := strings.CutPrefix(msg, "flag provided but not defined: "); ok {
-			for _, a := range args[:i] {
-				if before, _, _ := strings.Cut(a, "="); strings.TrimLeft(before, "-") == strings.TrimLeft(name, "-") {
-					name = before
-					break
-				}
-			}
-			msg = fmt.Sprintf("unknown option %s; run `lotwatch %s -h` for the options", name, fs.Name())
-		}
-		fmt.Fprintf(stderr, "lotwatch %s: %s\n", fs.Name(), msg)
-		return nil, exitUsage
-	}
-	return append(fs.Args(), args[i:]...), -1
-}
-
-// arity reports a wrong number of positional arguments, with a hint when
-// an option came after them.
-func (u *statsUsage) arity(want string, wantN int, pos []string) bool {
-	if len(pos) == wantN {
-		return true
-	}
-	hint := ""
-	for _, a := range pos {
-		if _, err := strconv.ParseFloat(a, 64); strings.HasPrefix(a, "-") && err != nil {
-			hint = "; options go before the arguments"
-			break
-		}
-	}
-	u.addf("want %d arguments, %s, got %d (%s)%s", wantN, want, len(pos), strings.Join(pos, " "), hint)
-	return false
-}
-
-// count parses a whole-number argument that must be at least lowest.
-func (u *statsUsage) count(name, s string, lowest int64) int64 {
-	v, err := strconv.ParseInt(s, 10, 64)
-	switch {
-	case err != nil:
-		u.addf("%s %q is not a whole number", name, s)
-	case v < lowest && lowest == 0:
-		u.addf("%s %q must not be negative", name, s)
-	case v < lowest:
-		u.addf("%s %q must be %d or more", name, s, lowest)
-	}
-	return v
-}
-
-// level parses a confidence level in (0, 1).
-func (u *statsUsage) level(s string) float64 {
-	v, err := strconv.ParseFloat(s, 64)
-	if err != nil || !(v > 0 && v < 1) {
-		u.addf("--level %q must be a number between 0 and 1, such as 0.95", s)
-	}
-	return v
-}
-
-// format checks the --format value.
-func (u *statsUsage) format(s string) bool {
-	switch s {
-	case "text":
-		return false
-	case "json":
-		return true
-	}
-	u.addf("--format %q must be text or json", s)
-	return false
-}
-
-// statsRate formats a rate for reading: four decimals, or three significant
-// digits in exponent form for rates under 0.001 that four decimals would hide.
-func statsRate(x float64) string {
-	if x == 0 || math.Abs(x) >= 0.001 {
-		return strconv.FormatFloat(x, 'f', 4, 64)
-	}
-	return strconv.FormatFloat(x, 'e', 2, 64)
-}
-
-// statsPercent formats a confidence level as a percentage, e.g. "95%".
-func statsPercent(level float64) string {
-	return strconv.FormatFloat(level*100, 'g', 6, 64) + "%"
-}
-
-// statsJSON writes v as indented JSON.
-func statsJSON(w io.Writer, v any) int {
-	enc := json.NewEncoder(w)
-	enc.SetIndent("", "  ")
-	if err := enc.Encode(v); err != nil {
-		return exitFail
-	}
-	return exitOK
-}
 
 type intervalJSON struct {
 	Method   spc.IntervalMethod `json:"method"`

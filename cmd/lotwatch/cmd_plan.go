@@ -1,15 +1,19 @@
 package main
 
 import (
+	"context"
 	"errors"
 	"flag"
 	"fmt"
 	"io"
 	"math"
+	"os"
 	"strconv"
 	"strings"
 
 	"lotwatch/spc"
+	"lotwatch/store"
+	"lotwatch/web/review"
 )
 
 func init() {
@@ -255,4 +259,47 @@ func planRunLength(arl float64) string {
 		return "on average with the first lot"
 	}
 	return "on average once every " + strconv.FormatFloat(arl, 'f', 1, 64) + " lots"
+}
+
+// planProcessCentre reads P0 for `lotwatch plan --process NAME --db FILE`
+// (review.CurrentCentre), adding a usage problem to u for bad input. It
+// returns NaN and "" when there is a problem.
+func planProcessCentre(u *statsUsage, name, dbPath, p0s string) (float64, string) {
+	switch {
+	case p0s != "":
+		u.addf("--p0 %q and --process %q: give one of them, not both", p0s, name)
+		return math.NaN(), ""
+	case name == "":
+		u.addf("--db %q needs --process, the process whose centre is P0", dbPath)
+		return math.NaN(), ""
+	case dbPath == "":
+		u.addf("--process %q needs --db, the lotwatch database holding it", name)
+		return math.NaN(), ""
+	}
+	if st, err := os.Stat(dbPath); err != nil || st.IsDir() {
+		u.addf("--db %q is not a lotwatch database file (no such file)", dbPath)
+		return math.NaN(), ""
+	}
+	db, err := store.Open(dbPath)
+	if err != nil {
+		u.addf("--db %q: %v", dbPath, err)
+		return math.NaN(), ""
+	}
+	defer db.Close()
+	ctx := context.Background()
+	p, err := db.ProcessByName(ctx, name)
+	if err != nil {
+		u.addf("--process %q: %v", name, err)
+		return math.NaN(), ""
+	}
+	c, err := review.CurrentCentre(ctx, db, p)
+	if err != nil {
+		u.addf("--process %q: %v", name, err)
+		return math.NaN(), ""
+	}
+	if err := spc.CheckPlanInput(c.P0, 1, 3); err != nil {
+		u.addf("--process %q: its %s is %s; a plan needs a fraction between 0 and 1, exclusive", name, c.Source, statsRate(c.P0))
+		return math.NaN(), ""
+	}
+	return c.P0, c.Source
 }

@@ -3,12 +3,10 @@ package main
 import (
 	"context"
 	"encoding/json"
-	"errors"
 	"flag"
 	"fmt"
 	"io"
 	"os"
-	"os/user"
 	"strconv"
 	"strings"
 	"text/tabwriter"
@@ -78,149 +76,6 @@ Options of "list":
 Exit status: 0 when done, 2 for bad input (each problem on standard error,
 nothing on standard output), 1 when the database fails.
 `
-
-// cliFlags makes a flag set that reports to stderr only through cliUsage.
-func cliFlags(name string) *flag.FlagSet {
-	fs := flag.NewFlagSet(name, flag.ContinueOnError)
-	fs.SetOutput(io.Discard)
-	return fs
-}
-
-// cliParse parses flags anywhere among the arguments and returns the
-// positional ones ("-" counts as positional; "--" ends the flags). For -h
-// it prints help on stdout and returns done with exitOK; for a bad flag it
-// prints one line on stderr and returns done with exitUsage.
-func cliParse(fs *flag.FlagSet, args []string, help string, stdout, stderr io.Writer) (pos []string, code int, done bool) {
-	for {
-		if err := fs.Parse(args); err != nil {
-			if errors.Is(err, flag.ErrHelp) {
-				fmt.Fprint(stdout, help)
-				return nil, exitOK, true
-			}
-			fmt.Fprintf(stderr, "lotwatch %s: %v (run \"lotwatch %s -h\" for the options)\n", fs.Name(), err, strings.Fields(fs.Name())[0])
-			return nil, exitUsage, true
-		}
-		rest := fs.Args()
-		if len(rest) == 0 {
-			return pos, 0, false
-		}
-		if len(args) > 0 && len(rest) < len(args) && args[len(args)-len(rest)-1] == "--" {
-			return append(pos, rest...), 0, false
-		}
-		pos = append(pos, rest[0])
-		args = rest[1:]
-	}
-}
-
-// cliHelp is a command's help: head, the options as the flag package
-// lists them from their usage strings, then tail.
-func cliHelp(fs *flag.FlagSet, head, tail string) string {
-	var b strings.Builder
-	b.WriteString(head)
-	fs.SetOutput(&b)
-	fs.PrintDefaults()
-	fs.SetOutput(io.Discard)
-	b.WriteString(tail)
-	return b.String()
-}
-
-// cliNoArgs is the problem of positional arguments given to a command that
-// takes options only.
-func cliNoArgs(pos []string) []string {
-	if len(pos) == 0 {
-		return nil
-	}
-	return []string{fmt.Sprintf("unexpected argument %q", pos[0])}
-}
-
-// cliProblems prints one line per problem and returns exitUsage.
-func cliProblems(stderr io.Writer, cmd string, lines ...string) int {
-	for _, l := range lines {
-		fmt.Fprintf(stderr, "lotwatch %s: %s\n", cmd, l)
-	}
-	return exitUsage
-}
-
-// cliRequire reports the required flags left empty.
-func cliRequire(cmd string, pairs ...string) []string {
-	var out []string
-	for i := 0; i+1 < len(pairs); i += 2 {
-		if pairs[i+1] == "" {
-			out = append(out, fmt.Sprintf("--%s is required", pairs[i]))
-		}
-	}
-	return out
-}
-
-// cliActor is the name recorded in the audit trail for a change made from
-// the command line: --as, else the operating-system user.
-func cliActor(as string) string {
-	if as != "" {
-		return as
-	}
-	if u, err := user.Current(); err == nil && u.Username != "" {
-		return u.Username
-	}
-	if n := os.Getenv("USER"); n != "" {
-		return n
-	}
-	return "cli"
-}
-
-// cliStoreError prints a store error. Bad input (invalid, unknown,
-// conflicting) gives exitUsage with one line per problem; anything else
-// exitFail.
-func cliStoreError(stderr io.Writer, cmd, file string, err error) int {
-	var ve *store.ValidationError
-	if errors.As(err, &ve) {
-		for _, p := range ve.Problems {
-			fmt.Fprintf(stderr, "lotwatch %s: %s\n", cmd, cliProblem(file, p))
-		}
-		if ve.More > 0 {
-			fmt.Fprintf(stderr, "lotwatch %s: … and %d more\n", cmd, ve.More)
-		}
-		return exitUsage
-	}
-	fmt.Fprintf(stderr, "lotwatch %s: %v\n", cmd, err)
-	if errors.Is(err, store.ErrNotFound) || errors.Is(err, store.ErrConflict) || errors.Is(err, store.ErrInvalid) || errors.Is(err, store.ErrNewerSchema) {
-		return exitUsage
-	}
-	return exitFail
-}
-
-// cliProblem formats a problem as FILE:LINE: column C, value "V": reason.
-func cliProblem(file string, p store.Problem) string {
-	var b strings.Builder
-	if file != "" {
-		b.WriteString(file)
-		if p.Line > 0 {
-			fmt.Fprintf(&b, ":%d", p.Line)
-		}
-		b.WriteString(": ")
-	} else if p.Line > 0 {
-		fmt.Fprintf(&b, "line %d: ", p.Line)
-	}
-	if p.Field != "" {
-		fmt.Fprintf(&b, "%s %s", map[bool]string{true: "column", false: "option"}[file != ""], p.Field)
-		if p.Value != "" {
-			fmt.Fprintf(&b, ", value %q", p.Value)
-		}
-		b.WriteString(": ")
-	} else if p.Value != "" {
-		fmt.Fprintf(&b, "value %q: ", p.Value)
-	}
-	b.WriteString(p.Reason)
-	return b.String()
-}
-
-// cliOpen opens the database or prints why not.
-func cliOpen(stderr io.Writer, cmd, path string) (*store.DB, int, bool) {
-	db, err := store.Open(path)
-	if err != nil {
-		return nil, cliStoreError(stderr, cmd, "", err), false
-	}
-	return db, 0, true
-}
 
 func runProcess(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	if len(args) == 0 {

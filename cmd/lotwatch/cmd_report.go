@@ -7,7 +7,6 @@ import (
 	"flag"
 	"fmt"
 	"io"
-	"math"
 	"os"
 	"strings"
 
@@ -104,11 +103,7 @@ func runReport(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	} else if st, err := os.Stat(*dbPath); err != nil || st.IsDir() {
 		u.addf("--db %q is not a lotwatch database file (no such file)", *dbPath)
 	}
-	if *week != "" {
-		if _, _, err := spc.ParseISOWeek(*week); err != nil {
-			u.addf("--week %q %s", *week, strings.TrimPrefix(err.Error(), fmt.Sprintf("week %q ", *week)))
-		}
-	}
+	u.week(*week)
 	m, err := spc.ParseIntervalMethod(*method)
 	if err != nil || m == spc.IntervalPoissonExact {
 		u.addf("--method %q must be wilson, clopper-pearson, agresti-coull, jeffreys or wald (u and c processes always get the exact Poisson interval)", *method)
@@ -164,47 +159,4 @@ func runReport(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		return exitFail
 	}
 	return exitOK
-}
-
-// planProcessCentre reads P0 for `lotwatch plan --process NAME --db FILE`
-// (review.CurrentCentre), adding a usage problem to u for bad input. It
-// returns NaN and "" when there is a problem.
-func planProcessCentre(u *statsUsage, name, dbPath, p0s string) (float64, string) {
-	switch {
-	case p0s != "":
-		u.addf("--p0 %q and --process %q: give one of them, not both", p0s, name)
-		return math.NaN(), ""
-	case name == "":
-		u.addf("--db %q needs --process, the process whose centre is P0", dbPath)
-		return math.NaN(), ""
-	case dbPath == "":
-		u.addf("--process %q needs --db, the lotwatch database holding it", name)
-		return math.NaN(), ""
-	}
-	if st, err := os.Stat(dbPath); err != nil || st.IsDir() {
-		u.addf("--db %q is not a lotwatch database file (no such file)", dbPath)
-		return math.NaN(), ""
-	}
-	db, err := store.Open(dbPath)
-	if err != nil {
-		u.addf("--db %q: %v", dbPath, err)
-		return math.NaN(), ""
-	}
-	defer db.Close()
-	ctx := context.Background()
-	p, err := db.ProcessByName(ctx, name)
-	if err != nil {
-		u.addf("--process %q: %v", name, err)
-		return math.NaN(), ""
-	}
-	c, err := review.CurrentCentre(ctx, db, p)
-	if err != nil {
-		u.addf("--process %q: %v", name, err)
-		return math.NaN(), ""
-	}
-	if err := spc.CheckPlanInput(c.P0, 1, 3); err != nil {
-		u.addf("--process %q: its %s is %s; a plan needs a fraction between 0 and 1, exclusive", name, c.Source, statsRate(c.P0))
-		return math.NaN(), ""
-	}
-	return c.P0, c.Source
 }
