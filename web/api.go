@@ -259,9 +259,8 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 	loc := p.Location()
 	ins, lp, err := decodeLots(r.Body, loc)
 	if err != nil {
-		var tooBig *http.MaxBytesError
-		if errors.As(err, &tooBig) {
-			writeError(w, http.StatusRequestEntityTooLarge, "the request body is larger than "+strconv.FormatInt(tooBig.Limit, 10)+" bytes")
+		if statusOf(err) == http.StatusRequestEntityTooLarge {
+			s.fail(w, r, err)
 			return
 		}
 		writeError(w, http.StatusBadRequest, err.Error())
@@ -296,14 +295,8 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 	case errors.Is(err, store.ErrConflict):
 		writeError(w, http.StatusConflict, strings.ReplaceAll(err.Error(), "\n", "; ")+"; nothing was stored (a stored lot is changed by correcting it, which keeps its history)")
 		return
-	case errors.Is(err, store.ErrNotFound):
-		writeError(w, http.StatusNotFound, err.Error())
-		return
-	case errors.Is(err, store.ErrInvalid):
-		writeError(w, http.StatusBadRequest, err.Error())
-		return
 	case err != nil:
-		s.internalError(w, r, err)
+		s.fail(w, r, err)
 		return
 	}
 	pc, err := s.freshChart(r.Context(), p)

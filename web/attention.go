@@ -333,9 +333,8 @@ func (s *Server) apiPostCause(w http.ResponseWriter, r *http.Request) {
 	}
 	a, ps, err := decodeCause(r.Body)
 	if err != nil {
-		var tooBig *http.MaxBytesError
-		if errors.As(err, &tooBig) {
-			writeError(w, http.StatusRequestEntityTooLarge, "the request body is larger than "+strconv.FormatInt(tooBig.Limit, 10)+" bytes")
+		if statusOf(err) == http.StatusRequestEntityTooLarge {
+			s.fail(w, r, err)
 			return
 		}
 		writeError(w, http.StatusBadRequest, "reading the request body: "+err.Error())
@@ -364,11 +363,8 @@ func (s *Server) apiPostCause(w http.ResponseWriter, r *http.Request) {
 		}
 		writeJSON(w, http.StatusBadRequest, apiError{Error: problemsMessage(ps), Problems: ps})
 		return
-	case errors.Is(err, store.ErrNotFound):
-		writeError(w, http.StatusNotFound, err.Error())
-		return
 	case err != nil:
-		s.internalError(w, r, err)
+		s.fail(w, r, err)
 		return
 	}
 	writeJSON(w, http.StatusCreated, toCauseJSON(stored, l))

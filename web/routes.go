@@ -217,23 +217,10 @@ func (s *Server) identify(w http.ResponseWriter, r *http.Request) (*principal, e
 	return &principal{user: u, session: c.Value}, nil
 }
 
-// internalError logs err and answers 500 without details.
+// internalError answers an error the handler does not answer itself
+// (fail: one mapping of errors to statuses).
 func (s *Server) internalError(w http.ResponseWriter, r *http.Request, err error) {
-	if errors.Is(err, store.ErrReadOnly) {
-		const msg = "This database is served read-only (lotwatch cannot write its file): it can be read, but nothing can be changed."
-		if isAPI(r) {
-			writeError(w, http.StatusServiceUnavailable, msg)
-			return
-		}
-		s.pageError(w, r, http.StatusServiceUnavailable, msg)
-		return
-	}
-	s.log.Error("request failed", "method", r.Method, "path", r.URL.Path, "err", err)
-	if isAPI(r) {
-		writeError(w, http.StatusInternalServerError, "internal error; the server log has the details")
-		return
-	}
-	s.pageError(w, r, http.StatusInternalServerError, "Something went wrong on the server; the server log has the details.")
+	s.fail(w, r, err)
 }
 
 func (s *Server) healthz(w http.ResponseWriter, r *http.Request) {
