@@ -11,12 +11,6 @@ import (
 	"time"
 )
 
-// Audit is the append-only, hash-chained record of every change.
-type Audit interface {
-	VerifyAudit(ctx context.Context) (AuditCheck, error)
-	AuditFor(ctx context.Context, entity string, id int64) ([]AuditEntry, error)
-}
-
 // AuditEntry is one recorded change: who, when, what (entity and id),
 // the values before and after as JSON, and why.
 type AuditEntry struct {

@@ -143,23 +143,6 @@ func (db *DB) queryRowIn(tx *sql.Tx, q string, args ...any) *sql.Row {
 	return tx.QueryRow(q, args...)
 }
 
-// Store is what the rest of lotwatch needs of a store. *DB implements it
-// on SQLite; another back end (e.g. PostgreSQL) can implement it without
-// touching spc or web.
-type Store interface {
-	Users
-	Sessions
-	Tokens
-	Processes
-	Lots
-	LimitSets
-	Annotations
-	Audit
-	Close() error
-}
-
-var _ Store = (*DB)(nil)
-
 func dsn(path string, params string) string {
 	// Escape what a SQLite URI would read as syntax.
 	p := strings.NewReplacer("%", "%25", "?", "%3f", "#", "%23").Replace(path)

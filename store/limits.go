@@ -35,12 +35,6 @@ type LimitSet struct {
 	Reason        string
 }
 
-// LimitSets manages frozen limits.
-type LimitSets interface {
-	FreezeLimitSet(ctx context.Context, actor string, ls LimitSet) (LimitSet, error)
-	LimitSets(ctx context.Context, processID int64) ([]LimitSet, error)
-}
-
 // LimitSetAt returns the set in force at t among sets (oldest first): the
 // last whose EffectiveFrom is not after t; ok is false before the first.
 func LimitSetAt(sets []LimitSet, t time.Time) (ls LimitSet, ok bool) {
@@ -189,14 +183,6 @@ type Annotation struct {
 	At            time.Time
 	ClosedBy      string
 	ClosedAt      time.Time
-}
-
-// Annotations manages annotations.
-type Annotations interface {
-	AddAnnotation(ctx context.Context, actor string, a Annotation) (Annotation, error)
-	CloseAnnotation(ctx context.Context, actor string, id int64, action string) error
-	Annotations(ctx context.Context, processID int64) ([]Annotation, error)
-	AllAnnotations(ctx context.Context) ([]Annotation, error)
 }
 
 type annotationAudit struct {

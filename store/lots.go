@@ -38,17 +38,6 @@ type Lot struct {
 	Reason     string // why this revision was made ("" for the first)
 }
 
-// Lots manages the lots of processes.
-type Lots interface {
-	AddLots(ctx context.Context, actor string, processID int64, in []LotInput) ([]Lot, error)
-	Lots(ctx context.Context, processID int64, from, to time.Time) ([]Lot, error)
-	EachLot(ctx context.Context, processID int64, from, to time.Time, fn func(Lot) error) error
-	LotByID(ctx context.Context, id int64) (Lot, error)
-	CorrectLot(ctx context.Context, actor, reason string, id int64, in LotInput) (Lot, error)
-	VoidLot(ctx context.Context, actor, reason string, id int64) error
-	LotHistory(ctx context.Context, id int64) ([]Lot, error)
-}
-
 // encodeCategories is the stored form: a JSON object with sorted keys,
 // "" for none. Plain names are written directly (this runs once per
 // imported lot); others go through encoding/json.

@@ -61,15 +61,6 @@ func (p Process) Location() *time.Location {
 	return time.UTC
 }
 
-// Processes manages processes.
-type Processes interface {
-	AddProcess(ctx context.Context, actor string, p Process) (Process, error)
-	UpdateProcess(ctx context.Context, actor, reason string, p Process) (Process, error)
-	Processes(ctx context.Context, includeRetired bool) ([]Process, error)
-	Process(ctx context.Context, id int64) (Process, error)
-	ProcessByName(ctx context.Context, name string) (Process, error)
-}
-
 var ruleItem = regexp.MustCompile(`^(we[1-8]|nelson[1-8])$`)
 
 // CheckRules reports whether s is a rule set: "we" (Western Electric),

@@ -50,30 +50,6 @@ type User struct {
 	Created time.Time
 }
 
-// Users manages accounts.
-type Users interface {
-	AddUser(ctx context.Context, actor, name string, role Role, password string) (User, error)
-	Authenticate(ctx context.Context, name, password string) (User, error)
-	SetPassword(ctx context.Context, actor, name, newPassword string) error
-	Users(ctx context.Context) ([]User, error)
-	UserByName(ctx context.Context, name string) (User, error)
-}
-
-// Sessions manages server-side sign-in sessions.
-type Sessions interface {
-	CreateSession(ctx context.Context, userID int64, now time.Time) (string, error)
-	SessionUser(ctx context.Context, rawID string, now time.Time, idle, absolute time.Duration) (User, error)
-	DeleteSession(ctx context.Context, rawID string) error
-}
-
-// Tokens manages API tokens.
-type Tokens interface {
-	CreateToken(ctx context.Context, actor, userName, label string) (string, Token, error)
-	TokenUser(ctx context.Context, raw string) (User, error)
-	RevokeToken(ctx context.Context, actor string, id int64) error
-	Tokens(ctx context.Context) ([]Token, error)
-}
-
 // MinPasswordLen is the shortest password accepted (NIST SP 800-63B §5.1.1.2
 // asks for at least 8 characters).
 const MinPasswordLen = 8
