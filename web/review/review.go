@@ -23,6 +23,7 @@ import (
 	"time"
 
 	"lotwatch/spc"
+	"lotwatch/spc/judge"
 	"lotwatch/store"
 )
 
@@ -656,47 +657,24 @@ func (pr *ProcessReview) judge(lots []store.Lot, sets []store.LimitSet, notes []
 	}
 }
 
-// Judge judges lots (in time order) of process p against its limit sets:
-// the lots before the first set's EffectiveFrom against trial limits
-// estimated from themselves, the lots from each set's EffectiveFrom on
-// against that frozen set (its centre and σ_z as the standard), with the
-// run rules running across the joins (spc.AnalyzePhases). setOf gives for
-// each lot the Number of the set judging it, 0 for trial limits.
+// Judge judges lots (in time order) of process p against its limit sets
+// with judge.Judge: trial limits before the first set, each set from its
+// EffectiveFrom on. setOf gives for each lot the Number of the set
+// judging it, 0 for trial limits.
 func Judge(p store.Process, lots []store.Lot, sets []store.LimitSet, rules spc.RuleSet) (a *spc.Analysis, setOf []int, err error) {
 	if len(lots) == 0 {
 		return nil, nil, errors.New("no lots")
 	}
+	times := make([]time.Time, len(lots))
+	for i, l := range lots {
+		times[i] = l.Time
+	}
 	sets = SortLimitSets(sets)
-	in := spcLots(lots)
-	setOf = make([]int, len(lots))
-	trial := spc.Config{Chart: p.Chart, Method: p.Method, K: p.K}
-	var phases []spc.Phase
-	for _, ls := range sets {
-		i := sort.Search(len(lots), func(i int) bool { return !lots[i].Time.Before(ls.EffectiveFrom) })
-		if i >= len(lots) {
-			break // in force only after the last lot
-		}
-		if len(phases) == 0 && i > 0 {
-			phases = append(phases, spc.Phase{Start: 0, Config: trial})
-		}
-		cfg := spc.Config{Chart: p.Chart, Method: ls.Method, K: ls.K,
-			Standard: &spc.Standard{Center: ls.Center, SigmaZ: ls.SigmaZ}}
-		if n := len(phases); n > 0 && phases[n-1].Start == i {
-			phases[n-1].Config = cfg // a later set from the same lot replaces the earlier
-		} else {
-			phases = append(phases, spc.Phase{Start: i, Config: cfg})
-		}
-		for j := i; j < len(lots); j++ {
-			setOf[j] = ls.Number
-		}
+	js := make([]judge.Set, len(sets))
+	for i, ls := range sets {
+		js[i] = judge.Set{Number: ls.Number, EffectiveFrom: ls.EffectiveFrom, Method: ls.Method, K: ls.K, Center: ls.Center, SigmaZ: ls.SigmaZ}
 	}
-	if len(phases) == 0 {
-		trial.Rules = rules
-		a, err = spc.Analyze(in, trial)
-	} else {
-		a, err = spc.AnalyzePhases(in, phases, rules)
-	}
-	return a, setOf, err
+	return judge.Judge(spcLots(lots), times, spc.Config{Chart: p.Chart, Method: p.Method, K: p.K}, js, rules)
 }
 
 // SortLimitSets returns a copy of the limit sets in the order they come
