@@ -5,6 +5,7 @@ import (
 	"encoding/hex"
 	"encoding/json"
 	"strconv"
+	"strings"
 
 	"lotwatch/spc"
 )
@@ -68,6 +69,28 @@ type limitSetAudit struct {
 func limitSetRecord(ls LimitSet) limitSetAudit {
 	return limitSetAudit{nanos(ls.BaselineFrom), ls.BaselineLots, nanos(ls.BaselineTo), ls.Center, ls.EffectiveFrom.UnixNano(),
 		ls.Excluded, ls.K, ls.Method, ls.Number, ls.ProcessID, ls.SigmaZ}
+}
+
+// alertRuleAudit is an alert rule as the trail states it: everything but
+// the webhook secret, of which only the SHA-256 is stated (the trail is
+// read by many; the secret signs messages).
+type alertRuleAudit struct {
+	ProcessID        int64  `json:"process_id"`
+	Webhook          string `json:"webhook,omitempty"`
+	SecretSHA256     string `json:"secret_sha256,omitempty"`
+	Email            string `json:"email,omitempty"`
+	On               string `json:"on"`
+	UnexplainedAfter int64  `json:"unexplained_after_ns"`
+	Active           bool   `json:"active"`
+}
+
+func auditAlertRule(r AlertRule) alertRuleAudit {
+	a := alertRuleAudit{ProcessID: r.ProcessID, Webhook: r.Webhook, Email: r.Email, On: strings.Join(r.On, ","),
+		UnexplainedAfter: int64(r.UnexplainedAfter), Active: r.Active}
+	if r.Secret != "" {
+		a.SecretSHA256 = credentialDigest([]byte(r.Secret))
+	}
+	return a
 }
 
 // decodeRecord reads an entry's JSON into v; false when it does not read.

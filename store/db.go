@@ -104,7 +104,7 @@ const (
 	qProcessByID = "SELECT " + processCols + " FROM processes WHERE id = ?"
 )
 
-var hotQueries = []string{qSavepoint, qRelease, qHeadSelect, qHeadUpdate, qAuditInsert, qBumpVersion, qLotInsert, qLotByCode, qProcessByID}
+var hotQueries = []string{qSavepoint, qRelease, qHeadSelect, qHeadUpdate, qAuditInsert, qBumpVersion, qLotInsert, qLotByCode, qProcessByID, qAlertEvents}
 
 func (db *DB) prepareHot() error {
 	db.hot = map[string]*sql.Stmt{}

@@ -354,7 +354,10 @@ func (db *DB) AddLots(ctx context.Context, actor string, processID int64, in []L
 		if len(conflicts) > 0 {
 			return &ConflictError{Conflicts: conflicts}
 		}
-		return a.finish("add", fresh, nil)
+		if err := a.finish("add", fresh, nil); err != nil || a.n == 0 {
+			return err
+		}
+		return w.queueAlertEvents(p.ID, a.first, a.last)
 	})
 	if err != nil {
 		return nil, err

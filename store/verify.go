@@ -30,6 +30,7 @@ type dataTrail struct {
 	anns    map[int64]*rowTrail
 	users   map[int64]*rowTrail
 	tokens  map[int64]*rowTrail
+	alerts  map[int64]*rowTrail
 	actors  map[string]string
 }
 
@@ -64,7 +65,7 @@ type rowTrail struct {
 
 func newDataTrail() *dataTrail {
 	return &dataTrail{edits: map[int64][]lotEdit{}, procs: map[int64]*rowTrail{}, sets: map[int64]*rowTrail{},
-		anns: map[int64]*rowTrail{}, users: map[int64]*rowTrail{}, tokens: map[int64]*rowTrail{}, actors: map[string]string{}}
+		anns: map[int64]*rowTrail{}, users: map[int64]*rowTrail{}, tokens: map[int64]*rowTrail{}, alerts: map[int64]*rowTrail{}, actors: map[string]string{}}
 }
 
 func (d *dataTrail) actor(s string) string {
@@ -153,6 +154,13 @@ func (d *dataTrail) note(e *AuditEntry) error {
 		case "state credentials":
 			d.stateCredential(d.tokens, e)
 		}
+	case "alertrule":
+		switch e.Action {
+		case "add":
+			added(d.alerts)
+		case "remove":
+			changed(d.alerts)
+		}
 	}
 	return nil
 }
@@ -209,7 +217,7 @@ type procInfo struct {
 func (d *dataTrail) checkRows(ctx context.Context, tx *sql.Tx) (*rowBreak, error) {
 	procs := map[int64]procInfo{}
 	steps := []func(context.Context, *sql.Tx, map[int64]procInfo) (*rowBreak, error){
-		d.checkProcesses, d.checkUsers, d.checkTokens, d.checkLots, d.checkLimitSets, d.checkAnnotations}
+		d.checkProcesses, d.checkUsers, d.checkTokens, d.checkLots, d.checkLimitSets, d.checkAnnotations, d.checkAlertRules}
 	for _, step := range steps {
 		if rb, err := step(ctx, tx, procs); rb != nil || err != nil {
 			return rb, err
@@ -408,4 +416,32 @@ func (d *dataTrail) checkAnnotations(ctx context.Context, tx *sql.Tx, procs map[
 		return nil, err
 	}
 	return leftover(d.anns, seen, func(id int64) string { return fmt.Sprintf("annotation %d", id) }), nil
+}
+
+func (d *dataTrail) checkAlertRules(ctx context.Context, tx *sql.Tx, _ map[int64]procInfo) (*rowBreak, error) {
+	rows, err := tx.QueryContext(ctx, "SELECT "+alertRuleCols+" FROM alert_rules r LEFT JOIN processes p ON p.id = r.process_id ORDER BY r.id")
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	seen := map[int64]bool{}
+	for rows.Next() {
+		r, err := scanAlertRule(rows)
+		if err != nil {
+			return nil, err
+		}
+		seen[r.ID] = true
+		name := fmt.Sprintf("alert rule %d (process %q)", r.ID, r.Process)
+		t := d.alerts[r.ID]
+		switch {
+		case t == nil || t.addSeq == 0:
+			return unrecorded(name), nil
+		case toJSON(auditAlertRule(r)) != t.next || nanos(r.Created) != t.addAt || r.CreatedBy != t.addActor:
+			return differ(t.seq, name), nil
+		}
+	}
+	if err := rows.Err(); err != nil {
+		return nil, err
+	}
+	return leftover(d.alerts, seen, func(id int64) string { return fmt.Sprintf("alert rule %d", id) }), nil
 }

@@ -106,6 +106,10 @@ var authzRoutes = map[string]authzRoute{
 	"POST /attention/causes":                        {min: store.RoleInspector, form: true, writes: true, ok: 303, setup: fxBulkCause},
 	"GET /api/v1/attention":                         {min: store.RoleViewer, path: "/api/v1/attention", ok: 200},
 	"POST /api/v1/processes/{id}/lots/{lot}/causes": {min: store.RoleInspector, writes: true, ok: 201, setup: fxAPICause},
+	"GET /alerts":                                   {min: store.RoleEngineer, path: "/alerts", ok: 200},
+	"POST /alerts":                                  {min: store.RoleEngineer, form: true, writes: true, ok: 303, setup: fxNewAlertRule},
+	"POST /alerts/{rule}/remove":                    {min: store.RoleEngineer, form: true, writes: true, ok: 303, setup: fxAlertRuleToRemove},
+	"POST /alerts/{rule}/test":                      {min: store.RoleEngineer, form: true, ok: 303, setup: fxAlertRuleToTest},
 }
 
 // The fixtures of the state-changing routes. Each call makes what one
@@ -223,6 +227,32 @@ func fxProcessToEdit(m *matrixEnv, t *testing.T, who caller) sent {
 		t.Fatal(err)
 	}
 	return sent{path: fmt.Sprintf("/processes/%d/settings", p.ID), body: processBody(name, "spot welds, second shift", "describe the cell")}
+}
+
+// fxNewAlertRule is the form of a new webhook rule of the process.
+func fxNewAlertRule(m *matrixEnv, t *testing.T, who caller) sent {
+	m.seq++
+	return sent{path: "/alerts", body: url.Values{"process": {fmt.Sprint(m.proc.ID)}, "target": {"webhook"},
+		"webhook": {fmt.Sprintf("http://127.0.0.1:9/hook/%d", m.seq)}, "secret": {"s3cret"}, "on": {"out_of_limits"}}.Encode()}
+}
+
+// alertRule stores a webhook rule of the process.
+func (m *matrixEnv) alertRule(t *testing.T) store.AlertRule {
+	r, err := m.db.AddAlertRule(context.Background(), "setup", store.AlertRule{ProcessID: m.proc.ID, Webhook: "http://127.0.0.1:9/hook", Secret: "s3cret"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return r
+}
+
+// fxAlertRuleToRemove is a rule in force to remove.
+func fxAlertRuleToRemove(m *matrixEnv, t *testing.T, who caller) sent {
+	return sent{path: fmt.Sprintf("/alerts/%d/remove", m.alertRule(t).ID)}
+}
+
+// fxAlertRuleToTest is a rule to send a test message to.
+func fxAlertRuleToTest(m *matrixEnv, t *testing.T, who caller) sent {
+	return sent{path: fmt.Sprintf("/alerts/%d/test", m.alertRule(t).ID)}
 }
 
 // fxNewUser is the form of a new user.

@@ -59,6 +59,9 @@ type boardData struct {
 	Area      string
 	Areas     []string
 	Shown     int
+	// FailedAlerts counts alert messages given up after a day of failed
+	// attempts (see the alerts page).
+	FailedAlerts int
 }
 
 // tableFrom is the number of processes from which the board shows the
@@ -120,6 +123,7 @@ func (s *Server) boardPage(w http.ResponseWriter, r *http.Request) {
 	slices.Sort(d.Areas)
 	sortBoard(rows)
 	d.Rows, d.Shown = rows, len(rows)
+	d.FailedAlerts = s.failedAlerts(ctx)
 	s.render(w, r, http.StatusOK, "board.html", "Status board", d)
 }
 

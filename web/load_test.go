@@ -21,6 +21,7 @@ import (
 // sends, chart readers and the lots stored beforehand.
 type loadConfig struct {
 	posters, perPoster, readers, preload int
+	setup                                func(e *testEnv) // run on the server's store before the load, when set
 }
 
 // loadPosts is the posts per client: LOTWATCH_LOAD_POSTS, default 20.
@@ -64,6 +65,9 @@ func runLoad(t testing.TB, cfg loadConfig) loadResult {
 	e := newTestEnv(t)
 	if cfg.preload > 0 {
 		e.addLots(t, cfg.preload, func(i int) int64 { return int64(2 + i%5) })
+	}
+	if cfg.setup != nil {
+		cfg.setup(e)
 	}
 	ts := httptest.NewServer(e.h)
 	defer ts.Close()

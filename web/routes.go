@@ -73,6 +73,10 @@ func (s *Server) routes() []route {
 		{"POST", "/settings/processes", store.RoleEngineer, s.addProcess},
 		{"GET", "/processes/{id}/settings", store.RoleEngineer, s.processSettingsPage},
 		{"POST", "/processes/{id}/settings", store.RoleEngineer, s.updateProcess},
+		{"GET", "/alerts", store.RoleEngineer, s.alertsPage},
+		{"POST", "/alerts", store.RoleEngineer, s.addAlertRule},
+		{"POST", "/alerts/{rule}/remove", store.RoleEngineer, s.removeAlertRule},
+		{"POST", "/alerts/{rule}/test", store.RoleEngineer, s.testAlertRule},
 
 		// JSON API.
 		{"GET", "/api/v1/me", store.RoleViewer, s.apiMe},

@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"lotwatch/store"
+	"lotwatch/web/alert"
 )
 
 // Session lifetimes. A session ends after 30 minutes without a request
@@ -41,6 +42,9 @@ type Config struct {
 	// client address (sign-in throttling and the log).
 	TrustedProxies []netip.Prefix
 
+	// Alerts configures the delivery of alerts (see AlertsConfig).
+	Alerts AlertsConfig
+
 	Logger *slog.Logger     // default: slog.Default()
 	Now    func() time.Time // default: time.Now; tests set a fake clock
 }
@@ -60,6 +64,9 @@ type Server struct {
 	summaries summaryCache
 	uploads   *uploads
 	handler   http.Handler
+
+	alerts    *alert.Worker
+	publicURL string
 }
 
 // NewServer checks the configuration and builds the server.
@@ -99,6 +106,9 @@ func NewServer(cfg Config) (*Server, error) {
 		return nil, err
 	}
 	s.pages = pages
+	if s.alerts, err = s.newAlertWorker(cfg.Alerts); err != nil {
+		return nil, err
+	}
 	s.handler = s.buildHandler()
 	return s, nil
 }
@@ -137,6 +147,12 @@ func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
 	if s.cert != "" {
 		hs.TLSConfig = &tls.Config{MinVersion: tls.VersionTLS12}
 	}
+	// Alerts are delivered while the server runs, and stopped only after
+	// the requests in flight are finished.
+	actx, stopAlerts := context.WithCancel(context.WithoutCancel(ctx))
+	alertsDone := make(chan struct{})
+	go func() { defer close(alertsDone); s.alerts.Run(actx) }()
+	defer func() { stopAlerts(); <-alertsDone }()
 	errc := make(chan error, 1)
 	go func() {
 		if s.cert != "" {

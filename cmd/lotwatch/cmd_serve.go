@@ -5,12 +5,15 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"net/url"
 	"os"
 	"os/signal"
+	"strings"
 	"syscall"
 
 	"lotwatch/store"
 	"lotwatch/web"
+	"lotwatch/web/alert"
 )
 
 func init() {
@@ -29,7 +32,12 @@ func runServe(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	key := fs.String("key", "", "TLS private key `file` (PEM)")
 	secure := fs.Bool("behind-tls", false, "the server is reached over HTTPS through a proxy: mark cookies Secure and send HSTS")
 	proxies := fs.String("proxy-addr", "", "comma-separated `addresses` (or CIDR ranges) of the reverse proxies in front of the server;\nonly from them is X-Forwarded-For believed for the client's address")
+	publicURL := fs.String("public-url", "", "the server's `URL` as people reach it, for the links in alerts (default http://ADDR)")
+	smtpAddr := fs.String("smtp-addr", "", "SMTP server `HOST:PORT` for e-mail alerts (STARTTLS when offered)")
+	smtpFrom := fs.String("smtp-from", "", "sender `address` of e-mail alerts")
+	smtpCreds := fs.String("smtp-credentials", "", "`file` with the SMTP user name on its first line and the password on its second\n(or LOTWATCH_SMTP_USER and LOTWATCH_SMTP_PASSWORD in the environment)")
 	help := cliHelp(fs, `Usage: lotwatch serve --db FILE [--addr 127.0.0.1:8080] [--cert FILE --key FILE] [--proxy-addr LIST]
+                      [--public-url URL] [--smtp-addr HOST:PORT --smtp-from ADDR]
 
 Serves the pages (sign-in, processes, control charts) and the JSON API under
 /api/v1/ until interrupted (SIGINT or SIGTERM); requests in flight are
@@ -76,6 +84,11 @@ Options:
 		fmt.Fprintf(stderr, "lotwatch serve: database %s: %v (create it first, e.g. with `lotwatch demo`)\n", *dbPath, err)
 		return exitUsage
 	}
+	alerts, problem := serveAlerts(*publicURL, *smtpAddr, *smtpFrom, *smtpCreds)
+	if problem != "" {
+		fmt.Fprintf(stderr, "lotwatch serve: %s\n", problem)
+		return exitUsage
+	}
 	logger := slog.New(slog.NewTextHandler(stderr, nil))
 	db, err := store.Open(*dbPath)
 	if err != nil {
@@ -85,7 +98,7 @@ Options:
 	if db.ReadOnly() {
 		logger.Warn("the database cannot be written: serving it read-only (pages and charts work, every change is refused)", "db", *dbPath)
 	}
-	srv, err := web.NewServer(web.Config{DB: db, Addr: *addr, CertFile: *cert, KeyFile: *key, Secure: *secure, TrustedProxies: trusted, Logger: logger})
+	srv, err := web.NewServer(web.Config{DB: db, Addr: *addr, CertFile: *cert, KeyFile: *key, Secure: *secure, TrustedProxies: trusted, Logger: logger, Alerts: alerts})
 	if err != nil {
 		db.Close()
 		fmt.Fprintf(stderr, "lotwatch serve: %v\n", err)
@@ -106,4 +119,43 @@ Options:
 		return exitFail
 	}
 	return exitOK
+}
+
+// serveAlerts reads the alert options of serve; problem is one line
+// naming the option and value when one is bad. SMTP credentials come from
+// a file or the environment, never from an option (options are visible
+// to every user of the machine).
+func serveAlerts(publicURL, smtpAddr, smtpFrom, credFile string) (web.AlertsConfig, string) {
+	var cfg web.AlertsConfig
+	if publicURL != "" {
+		u, err := url.Parse(publicURL)
+		if err != nil || (u.Scheme != "http" && u.Scheme != "https") || u.Host == "" {
+			return cfg, fmt.Sprintf("--public-url %q: want an http or https URL such as https://lotwatch.plant.example", publicURL)
+		}
+		cfg.PublicURL = publicURL
+	}
+	if smtpAddr == "" {
+		if smtpFrom != "" || credFile != "" {
+			return cfg, "--smtp-from and --smtp-credentials need --smtp-addr HOST:PORT"
+		}
+		return cfg, ""
+	}
+	mc := alert.MailConfig{Addr: smtpAddr, From: smtpFrom, User: os.Getenv("LOTWATCH_SMTP_USER"), Password: os.Getenv("LOTWATCH_SMTP_PASSWORD")}
+	if credFile != "" {
+		b, err := os.ReadFile(credFile)
+		if err != nil {
+			return cfg, fmt.Sprintf("--smtp-credentials %q: %v", credFile, err)
+		}
+		lines := strings.Split(strings.ReplaceAll(string(b), "\r\n", "\n"), "\n")
+		if len(lines) < 2 || lines[0] == "" {
+			return cfg, fmt.Sprintf("--smtp-credentials %q: want the user name on the first line and the password on the second", credFile)
+		}
+		mc.User, mc.Password = lines[0], lines[1]
+	}
+	m, err := alert.NewMailer(mc)
+	if err != nil {
+		return cfg, err.Error()
+	}
+	cfg.Mail = m
+	return cfg, ""
 }

@@ -1,0 +1,645 @@
+package store
+
+import (
+	"context"
+	"database/sql"
+	"encoding/base64"
+	"errors"
+	"fmt"
+	"net/mail"
+	"net/url"
+	"strings"
+	"time"
+)
+
+// The triggers of an alert rule.
+const (
+	TriggerOutOfLimits = "out_of_limits" // a lot beyond a control limit
+	TriggerRunRule     = "run_rule"      // a lot that completes or extends a run-rule signal
+	TriggerShift       = "shift"         // a small-shift monitor (CUSUM, EWMA) signals at the lot
+	TriggerUnexplained = "unexplained"   // a lot still needing attention after a delay
+)
+
+// Triggers lists every trigger, in the order they are shown.
+var Triggers = []string{TriggerOutOfLimits, TriggerRunRule, TriggerShift, TriggerUnexplained}
+
+// DefaultTriggers is what a rule listens for when none are named.
+var DefaultTriggers = []string{TriggerOutOfLimits, TriggerRunRule, TriggerShift}
+
+// DefaultUnexplainedAfter is the delay of an unexplained rule given none
+// (half a shift; common practice, no source).
+const DefaultUnexplainedAfter = 4 * time.Hour
+
+// AlertRule says which lots of a process raise an alert and where it
+// goes: a webhook (URL and signing secret) or an e-mail address.
+type AlertRule struct {
+	ID               int64
+	ProcessID        int64
+	Process          string // the process's name (filled on read)
+	Webhook          string // URL; "" for e-mail
+	Secret           string // the webhook's signing secret
+	Email            string // address; "" for a webhook
+	On               []string
+	UnexplainedAfter time.Duration // 0 unless On holds unexplained
+	Active           bool
+	Created          time.Time
+	CreatedBy        string
+}
+
+// Target is where the rule's alerts go: the webhook URL or the address.
+func (r AlertRule) Target() string {
+	if r.Webhook != "" {
+		return r.Webhook
+	}
+	return r.Email
+}
+
+// Has reports whether the rule listens for trigger t.
+func (r AlertRule) Has(t string) bool {
+	for _, o := range r.On {
+		if o == t {
+			return true
+		}
+	}
+	return false
+}
+
+// CheckTriggers reads a comma list of triggers; an empty list is the
+// default. Problems name the field "on".
+func CheckTriggers(s string) ([]string, []Problem) {
+	if strings.TrimSpace(s) == "" {
+		return append([]string(nil), DefaultTriggers...), nil
+	}
+	var out []string
+	seen := map[string]bool{}
+	for _, t := range strings.Split(s, ",") {
+		t = strings.TrimSpace(t)
+		known := false
+		for _, k := range Triggers {
+			known = known || k == t
+		}
+		if !known {
+			return nil, []Problem{{Field: "on", Value: t, Reason: "is not a trigger (want a comma list of " + strings.Join(Triggers, ", ") + ")"}}
+		}
+		if !seen[t] {
+			seen[t] = true
+			out = append(out, t)
+		}
+	}
+	return out, nil
+}
+
+// CheckWebhookURL reports why u cannot be a webhook target: it must be an
+// absolute http or https URL with a host. Addresses on loopback or the
+// plant's private network are fine.
+func CheckWebhookURL(u string) []Problem {
+	if ps := checkText("webhook", u, 2000, true); len(ps) > 0 {
+		return ps
+	}
+	p, err := url.Parse(u)
+	switch {
+	case err != nil:
+		return []Problem{{Field: "webhook", Value: u, Reason: "is not a URL"}}
+	case p.Scheme != "http" && p.Scheme != "https":
+		return []Problem{{Field: "webhook", Value: u, Reason: "is not an http or https URL"}}
+	case p.Host == "" || p.Hostname() == "":
+		return []Problem{{Field: "webhook", Value: u, Reason: "has no host"}}
+	}
+	return nil
+}
+
+// WebhookKey is the key a webhook secret signs with, as the Standard
+// Webhooks specification says: for a secret starting "whsec_", the
+// base64-decoded rest; otherwise the secret's UTF-8 bytes exactly as
+// given.
+func WebhookKey(secret string) ([]byte, error) {
+	if rest, ok := strings.CutPrefix(secret, "whsec_"); ok {
+		k, err := base64.StdEncoding.DecodeString(rest)
+		if err != nil {
+			return nil, errors.New("starts with whsec_ but the rest is not base64")
+		}
+		return k, nil
+	}
+	return []byte(secret), nil
+}
+
+// CheckAlertRule checks a rule as given: exactly one of webhook (with a
+// secret) and e-mail, known triggers, a delay for unexplained. It fills
+// in the default triggers and delay.
+func CheckAlertRule(r *AlertRule) []Problem {
+	var ps []Problem
+	switch {
+	case r.Webhook == "" && r.Email == "":
+		ps = append(ps, Problem{Field: "webhook", Reason: "is not given: a rule needs a webhook URL with a secret, or an e-mail address"})
+	case r.Webhook != "" && r.Email != "":
+		ps = append(ps, Problem{Field: "email", Value: r.Email, Reason: "is given with a webhook: a rule has one destination"})
+	case r.Webhook != "":
+		ps = append(ps, CheckWebhookURL(r.Webhook)...)
+		if r.Secret == "" {
+			ps = append(ps, Problem{Field: "secret", Reason: "is empty: a webhook needs a secret to sign its messages"})
+		} else if p := checkText("secret", r.Secret, 1000, true); len(p) > 0 {
+			ps = append(ps, Problem{Field: "secret", Value: "(hidden)", Reason: p[0].Reason})
+		} else if _, err := WebhookKey(r.Secret); err != nil {
+			ps = append(ps, Problem{Field: "secret", Value: "(hidden)", Reason: err.Error()})
+		}
+	default:
+		if r.Secret != "" {
+			ps = append(ps, Problem{Field: "secret", Value: "(hidden)", Reason: "is given with an e-mail address: only a webhook has a secret"})
+		}
+		if a, err := mail.ParseAddress(r.Email); err != nil || a.Address != r.Email || len(r.Email) > 254 {
+			ps = append(ps, Problem{Field: "email", Value: r.Email, Reason: "is not an e-mail address (want name@example.com)"})
+		}
+	}
+	if len(r.On) == 0 {
+		r.On = append([]string(nil), DefaultTriggers...)
+	}
+	for _, t := range r.On {
+		if _, p := CheckTriggers(t); len(p) > 0 {
+			ps = append(ps, p...)
+		}
+	}
+	if !r.Has(TriggerUnexplained) {
+		if r.UnexplainedAfter != 0 {
+			ps = append(ps, Problem{Field: "unexplained-after", Value: r.UnexplainedAfter.String(), Reason: "is given but the rule does not listen for unexplained"})
+		}
+	} else {
+		if r.UnexplainedAfter == 0 {
+			r.UnexplainedAfter = DefaultUnexplainedAfter
+		}
+		if r.UnexplainedAfter < time.Minute || r.UnexplainedAfter > 90*24*time.Hour {
+			ps = append(ps, Problem{Field: "unexplained-after", Value: r.UnexplainedAfter.String(), Reason: "must be between 1m and 90 days"})
+		}
+	}
+	return ps
+}
+
+// AddAlertRule stores a rule for an active process. Bad input gives a
+// *ValidationError naming the field ("webhook", "secret", "email", "on",
+// "unexplained-after") and nothing is stored.
+func (db *DB) AddAlertRule(ctx context.Context, actor string, r AlertRule) (AlertRule, error) {
+	if ps := CheckAlertRule(&r); len(ps) > 0 {
+		return AlertRule{}, invalid(ps...)
+	}
+	err := db.write(ctx, func(w *wtx) error {
+		p, err := w.activeProcess(r.ProcessID)
+		if err != nil {
+			return err
+		}
+		r.Process, r.Active, r.Created, r.CreatedBy = p.Name, true, w.now, actor
+		res, err := w.Exec(`INSERT INTO alert_rules (process_id, webhook, secret, email, triggers, unexplained_after, active, created, created_by)
+			VALUES (?, ?, ?, ?, ?, ?, 1, ?, ?)`, r.ProcessID, r.Webhook, r.Secret, r.Email, strings.Join(r.On, ","), int64(r.UnexplainedAfter), w.now.UnixNano(), actor)
+		if err != nil {
+			return err
+		}
+		r.ID, _ = res.LastInsertId()
+		return w.audit(actor, "add", "alertrule", r.ID, r.ID, nil, auditAlertRule(r), "")
+	})
+	if err != nil {
+		return AlertRule{}, err
+	}
+	return r, nil
+}
+
+// RemoveAlertRule stops a rule. The rule stays stored, marked removed,
+// so its deliveries keep their history; messages already made are still
+// delivered.
+func (db *DB) RemoveAlertRule(ctx context.Context, actor string, id int64) error {
+	return db.write(ctx, func(w *wtx) error {
+		r, err := alertRule(ctx, w.Tx, id)
+		if err != nil {
+			return err
+		}
+		if !r.Active {
+			return fmt.Errorf("alert rule %d is already removed: %w", id, ErrNotFound)
+		}
+		if _, err := w.Exec("UPDATE alert_rules SET active = 0 WHERE id = ?", id); err != nil {
+			return err
+		}
+		old := auditAlertRule(r)
+		r.Active = false
+		return w.audit(actor, "remove", "alertrule", id, id, old, auditAlertRule(r), "")
+	})
+}
+
+const alertRuleCols = `r.id, r.process_id, p.name, r.webhook, r.secret, r.email, r.triggers, r.unexplained_after, r.active, r.created, r.created_by`
+
+func scanAlertRule(s interface{ Scan(...any) error }) (AlertRule, error) {
+	var r AlertRule
+	var on string
+	var after, created int64
+	err := s.Scan(&r.ID, &r.ProcessID, &r.Process, &r.Webhook, &r.Secret, &r.Email, &on, &after, &r.Active, &created, &r.CreatedBy)
+	if on != "" {
+		r.On = strings.Split(on, ",")
+	}
+	r.UnexplainedAfter, r.Created = time.Duration(after), fromNanos(created, time.UTC)
+	return r, err
+}
+
+// AlertRules lists the rules in force (not removed), by id.
+func (db *DB) AlertRules(ctx context.Context) ([]AlertRule, error) {
+	rows, err := db.r.QueryContext(ctx, "SELECT "+alertRuleCols+" FROM alert_rules r JOIN processes p ON p.id = r.process_id WHERE r.active = 1 ORDER BY r.id")
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	var out []AlertRule
+	for rows.Next() {
+		r, err := scanAlertRule(rows)
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, r)
+	}
+	return out, rows.Err()
+}
+
+// AlertRule returns one rule, removed or not.
+func (db *DB) AlertRule(ctx context.Context, id int64) (AlertRule, error) {
+	return alertRule(ctx, db.r, id)
+}
+
+func alertRule(ctx context.Context, q ctxQueryer, id int64) (AlertRule, error) {
+	r, err := scanAlertRule(q.QueryRowContext(ctx, "SELECT "+alertRuleCols+" FROM alert_rules r JOIN processes p ON p.id = r.process_id WHERE r.id = ?", id))
+	if errors.Is(err, sql.ErrNoRows) {
+		return AlertRule{}, fmt.Errorf("alert rule %d: %w", id, ErrNotFound)
+	}
+	return r, err
+}
+
+// qAlertEvents queues the lots first..last of a process for judging when
+// the process has a rule in force; it runs in the lots' transaction.
+const qAlertEvents = `INSERT INTO alert_events (lot_id, process_id, created)
+	SELECT id, process_id, ? FROM lots WHERE id BETWEEN ? AND ? AND process_id = ?
+	AND EXISTS (SELECT 1 FROM alert_rules WHERE process_id = ? AND active = 1)`
+
+// queueAlertEvents puts the lots first..last in the outbox, in the
+// transaction that stores them, when the process has alert rules.
+func (w *wtx) queueAlertEvents(processID, first, last int64) error {
+	_, err := w.db.execIn(w.Tx, qAlertEvents, w.now.UnixNano(), first, last, processID, processID)
+	return err
+}
+
+// AlertEvent is a stored lot waiting to be judged for alerts.
+type AlertEvent struct {
+	ID, LotID, ProcessID int64
+	Created              time.Time
+}
+
+// ClaimAlertEvents takes up to limit pending events for owner until
+// lease ends; an event claimed by another whose lease has not ended is
+// left alone. The claim is in the database, so several servers sharing it
+// each take different events.
+func (db *DB) ClaimAlertEvents(ctx context.Context, owner string, lease time.Duration, limit int) ([]AlertEvent, error) {
+	var out []AlertEvent
+	err := db.write(ctx, func(w *wtx) error {
+		out = out[:0]
+		now := w.now.UnixNano()
+		rows, err := w.Query(`UPDATE alert_events SET lease_owner = ?, lease_until = ?
+			WHERE id IN (SELECT id FROM alert_events WHERE done = 0 AND lease_until < ? ORDER BY id LIMIT ?)
+			RETURNING id, lot_id, process_id, created`, owner, now+int64(lease), now, limit)
+		if err != nil {
+			return err
+		}
+		defer rows.Close()
+		for rows.Next() {
+			var e AlertEvent
+			var c int64
+			if err := rows.Scan(&e.ID, &e.LotID, &e.ProcessID, &c); err != nil {
+				return err
+			}
+			e.Created = fromNanos(c, time.UTC)
+			out = append(out, e)
+		}
+		return rows.Err()
+	})
+	return out, err
+}
+
+// HasPendingAlertEvents reports whether some event waits to be judged
+// (claimed or not), without writing.
+func (db *DB) HasPendingAlertEvents(ctx context.Context) (bool, error) {
+	var n int
+	err := db.r.QueryRowContext(ctx, "SELECT EXISTS (SELECT 1 FROM alert_events WHERE done = 0)").Scan(&n)
+	return n == 1, err
+}
+
+// NewDelivery is a message to make: MsgID is its stable id (the
+// webhook-id); making one whose MsgID exists already does nothing.
+type NewDelivery struct {
+	MsgID   string
+	RuleID  int64
+	LotID   int64 // 0 when about no lot (a test)
+	Type    string
+	Payload string
+}
+
+// FinishAlertEvents makes the deliveries of judged events and marks them
+// done, in one transaction: a crash before it leaves the events pending
+// (they are judged again, and the stable ids keep a message from being
+// made twice); after it, the messages are in the outbox.
+func (db *DB) FinishAlertEvents(ctx context.Context, events []int64, ds []NewDelivery) error {
+	return db.write(ctx, func(w *wtx) error {
+		if err := w.addDeliveries(ds); err != nil {
+			return err
+		}
+		for _, id := range events {
+			if _, err := w.Exec("UPDATE alert_events SET done = ?, lease_owner = '', lease_until = 0 WHERE id = ? AND done = 0", w.now.UnixNano(), id); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+}
+
+// AddDeliveries makes messages (a test alert, an escalation); those whose
+// MsgID is stored already are left as they are.
+func (db *DB) AddDeliveries(ctx context.Context, ds []NewDelivery) error {
+	return db.write(ctx, func(w *wtx) error { return w.addDeliveries(ds) })
+}
+
+func (w *wtx) addDeliveries(ds []NewDelivery) error {
+	for _, d := range ds {
+		var lot any
+		if d.LotID != 0 {
+			lot = d.LotID
+		}
+		if _, err := w.Exec(`INSERT INTO alert_deliveries (msg_id, rule_id, lot_id, type, payload, created, state, next_at)
+			VALUES (?, ?, ?, ?, ?, ?, 'pending', ?) ON CONFLICT (msg_id) DO NOTHING`,
+			d.MsgID, d.RuleID, lot, d.Type, d.Payload, w.now.UnixNano(), w.now.UnixNano()); err != nil {
+			return fmt.Errorf("store: delivery %s: %w", d.MsgID, err)
+		}
+	}
+	return nil
+}
+
+// Delivery states.
+const (
+	DeliveryPending = "pending"
+	DeliverySent    = "sent"
+	DeliveryFailed  = "failed"
+)
+
+// Delivery is one message to one rule's destination and where it stands.
+type Delivery struct {
+	ID        int64
+	MsgID     string
+	RuleID    int64
+	LotID     int64
+	Type      string
+	Payload   string
+	Created   time.Time
+	State     string
+	Attempts  int
+	NextAt    time.Time
+	DoneAt    time.Time
+	LastError string
+	Rule      AlertRule // the rule it goes to (filled by ClaimDeliveries and Deliveries)
+}
+
+const deliveryCols = `d.id, d.msg_id, d.rule_id, COALESCE(d.lot_id, 0), d.type, d.payload, d.created, d.state, d.attempts, d.next_at, d.done_at, d.last_error`
+
+func scanDelivery(s interface{ Scan(...any) error }, d *Delivery, extra ...any) error {
+	var created, next, done int64
+	dest := append([]any{&d.ID, &d.MsgID, &d.RuleID, &d.LotID, &d.Type, &d.Payload, &created, &d.State, &d.Attempts, &next, &done, &d.LastError}, extra...)
+	err := s.Scan(dest...)
+	d.Created, d.NextAt, d.DoneAt = fromNanos(created, time.UTC), fromNanos(next, time.UTC), fromNanos(done, time.UTC)
+	return err
+}
+
+// ClaimDeliveries takes up to limit pending deliveries that are due, for
+// owner until lease ends, with their rules.
+func (db *DB) ClaimDeliveries(ctx context.Context, owner string, lease time.Duration, limit int) ([]Delivery, error) {
+	var ids []int64
+	err := db.write(ctx, func(w *wtx) error {
+		ids = ids[:0]
+		now := w.now.UnixNano()
+		rows, err := w.Query(`UPDATE alert_deliveries SET lease_owner = ?, lease_until = ?
+			WHERE id IN (SELECT id FROM alert_deliveries WHERE state = 'pending' AND next_at <= ? AND lease_until < ? ORDER BY next_at LIMIT ?)
+			RETURNING id`, owner, now+int64(lease), now, now, limit)
+		if err != nil {
+			return err
+		}
+		defer rows.Close()
+		for rows.Next() {
+			var id int64
+			if err := rows.Scan(&id); err != nil {
+				return err
+			}
+			ids = append(ids, id)
+		}
+		return rows.Err()
+	})
+	if err != nil || len(ids) == 0 {
+		return nil, err
+	}
+	out := make([]Delivery, 0, len(ids))
+	for _, id := range ids {
+		d, err := db.Delivery(ctx, id)
+		if err != nil {
+			return nil, err
+		}
+		out = append(out, d)
+	}
+	return out, nil
+}
+
+// NextDeliveryDue returns when the earliest pending delivery is due
+// (zero when none is pending).
+func (db *DB) NextDeliveryDue(ctx context.Context) (time.Time, error) {
+	var n sql.NullInt64
+	err := db.r.QueryRowContext(ctx, "SELECT MIN(max(next_at, lease_until)) FROM alert_deliveries WHERE state = 'pending'").Scan(&n)
+	if err != nil || !n.Valid {
+		return time.Time{}, err
+	}
+	return fromNanos(n.Int64, time.UTC), nil
+}
+
+// Delivery returns one delivery with its rule.
+func (db *DB) Delivery(ctx context.Context, id int64) (Delivery, error) {
+	var d Delivery
+	err := scanDelivery(db.r.QueryRowContext(ctx, "SELECT "+deliveryCols+" FROM alert_deliveries d WHERE d.id = ?", id), &d)
+	if errors.Is(err, sql.ErrNoRows) {
+		return Delivery{}, fmt.Errorf("delivery %d: %w", id, ErrNotFound)
+	}
+	if err != nil {
+		return Delivery{}, err
+	}
+	d.Rule, err = db.AlertRule(ctx, d.RuleID)
+	return d, err
+}
+
+// Attempt is one try of a delivery.
+type Attempt struct {
+	N      int
+	At     time.Time
+	Status int    // HTTP status or SMTP reply code; 0 when no answer came
+	Error  string // "" when delivered
+	Took   time.Duration
+}
+
+// RecordAttempt logs an attempt of a delivery and sets where it stands:
+// sent when a.Error is empty; otherwise pending again from next on, or
+// failed when next is zero. Only the owner of the claim records; a
+// delivery no longer claimed by owner (its lease ran out and another took
+// it) gets the attempt logged but its state is left to the other.
+func (db *DB) RecordAttempt(ctx context.Context, owner string, id int64, a Attempt, next time.Time) error {
+	return db.write(ctx, func(w *wtx) error {
+		var n int
+		var held string
+		if err := w.QueryRow("SELECT attempts, lease_owner FROM alert_deliveries WHERE id = ?", id).Scan(&n, &held); err != nil {
+			return err
+		}
+		n++
+		if _, err := w.Exec("INSERT INTO alert_attempts (delivery_id, n, at, status, error, took) VALUES (?, ?, ?, ?, ?, ?)",
+			id, n, a.At.UnixNano(), a.Status, a.Error, int64(a.Took)); err != nil {
+			return err
+		}
+		state, nextAt, doneAt := DeliveryPending, nanos(next), int64(0)
+		switch {
+		case a.Error == "":
+			state, nextAt, doneAt = DeliverySent, 0, w.now.UnixNano()
+		case next.IsZero():
+			state, doneAt = DeliveryFailed, w.now.UnixNano()
+		}
+		if held != owner {
+			_, err := w.Exec("UPDATE alert_deliveries SET attempts = ? WHERE id = ?", n, id)
+			return err
+		}
+		_, err := w.Exec(`UPDATE alert_deliveries SET attempts = ?, state = ?, next_at = ?, done_at = ?, last_error = ?, lease_owner = '', lease_until = 0
+			WHERE id = ?`, n, state, nextAt, doneAt, a.Error, id)
+		return err
+	})
+}
+
+// Deliveries lists the latest deliveries of a rule (all rules for 0),
+// newest first, at most limit.
+func (db *DB) Deliveries(ctx context.Context, ruleID int64, limit int) ([]Delivery, error) {
+	rows, err := db.r.QueryContext(ctx, "SELECT "+deliveryCols+" FROM alert_deliveries d WHERE ? = 0 OR d.rule_id = ? ORDER BY d.id DESC LIMIT ?", ruleID, ruleID, limit)
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	var out []Delivery
+	for rows.Next() {
+		var d Delivery
+		if err := scanDelivery(rows, &d); err != nil {
+			return nil, err
+		}
+		out = append(out, d)
+	}
+	return out, rows.Err()
+}
+
+// Attempts lists the attempts of a delivery, oldest first.
+func (db *DB) Attempts(ctx context.Context, deliveryID int64) ([]Attempt, error) {
+	rows, err := db.r.QueryContext(ctx, "SELECT n, at, status, error, took FROM alert_attempts WHERE delivery_id = ? ORDER BY n", deliveryID)
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	var out []Attempt
+	for rows.Next() {
+		var a Attempt
+		var at, took int64
+		if err := rows.Scan(&a.N, &at, &a.Status, &a.Error, &took); err != nil {
+			return nil, err
+		}
+		a.At, a.Took = fromNanos(at, time.UTC), time.Duration(took)
+		out = append(out, a)
+	}
+	return out, rows.Err()
+}
+
+// DeliveryCounts counts the deliveries by state.
+func (db *DB) DeliveryCounts(ctx context.Context) (map[string]int, error) {
+	rows, err := db.r.QueryContext(ctx, "SELECT state, COUNT(*) FROM alert_deliveries GROUP BY state")
+	if err != nil {
+		return nil, err
+	}
+	defer rows.Close()
+	out := map[string]int{}
+	for rows.Next() {
+		var s string
+		var n int
+		if err := rows.Scan(&s, &n); err != nil {
+			return nil, err
+		}
+		out[s] = n
+	}
+	return out, rows.Err()
+}
+
+// ReleaseAlertClaims ends the claims owner holds on outbox rows: a
+// server restarted after a crash takes its unfinished work back at once
+// instead of waiting for its old claims to run out.
+func (db *DB) ReleaseAlertClaims(ctx context.Context, owner string) error {
+	return db.write(ctx, func(w *wtx) error {
+		if _, err := w.Exec("UPDATE alert_events SET lease_until = 0, lease_owner = '' WHERE done = 0 AND lease_owner = ?", owner); err != nil {
+			return err
+		}
+		_, err := w.Exec("UPDATE alert_deliveries SET lease_until = 0, lease_owner = '' WHERE state = 'pending' AND lease_owner = ?", owner)
+		return err
+	})
+}
+
+// AlertEventTimes returns, for those of the lots that were put in the
+// outbox, when they were (the first time): the start of an unexplained
+// rule's delay. Lots stored while their process had no rule are left out.
+func (db *DB) AlertEventTimes(ctx context.Context, lotIDs []int64) (map[int64]time.Time, error) {
+	out := map[int64]time.Time{}
+	for len(lotIDs) > 0 {
+		n := min(len(lotIDs), 500)
+		args := make([]any, n)
+		for i, id := range lotIDs[:n] {
+			args[i] = id
+		}
+		rows, err := db.r.QueryContext(ctx, "SELECT lot_id, MIN(created) FROM alert_events WHERE lot_id IN (?"+strings.Repeat(", ?", n-1)+") GROUP BY lot_id", args...)
+		if err != nil {
+			return nil, err
+		}
+		for rows.Next() {
+			var id, c int64
+			if err := rows.Scan(&id, &c); err != nil {
+				rows.Close()
+				return nil, err
+			}
+			out[id] = fromNanos(c, time.UTC)
+		}
+		rows.Close()
+		if err := rows.Err(); err != nil {
+			return nil, err
+		}
+		lotIDs = lotIDs[n:]
+	}
+	return out, nil
+}
+
+// DeliveriesMade reports which of the message ids are made already.
+func (db *DB) DeliveriesMade(ctx context.Context, msgIDs []string) (map[string]bool, error) {
+	out := map[string]bool{}
+	for len(msgIDs) > 0 {
+		n := min(len(msgIDs), 500)
+		args := make([]any, n)
+		for i, id := range msgIDs[:n] {
+			args[i] = id
+		}
+		rows, err := db.r.QueryContext(ctx, "SELECT msg_id FROM alert_deliveries WHERE msg_id IN (?"+strings.Repeat(", ?", n-1)+")", args...)
+		if err != nil {
+			return nil, err
+		}
+		for rows.Next() {
+			var id string
+			if err := rows.Scan(&id); err != nil {
+				rows.Close()
+				return nil, err
+			}
+			out[id] = true
+		}
+		rows.Close()
+		if err := rows.Err(); err != nil {
+			return nil, err
+		}
+		msgIDs = msgIDs[n:]
+	}
+	return out, nil
+}

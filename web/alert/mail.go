@@ -1,0 +1,149 @@
+package alert
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"html/template"
+	"net"
+	"strconv"
+	"strings"
+	textTemplate "text/template"
+	"time"
+
+	mail "github.com/wneessen/go-mail"
+)
+
+// MailConfig is the SMTP server alerts are sent through.
+type MailConfig struct {
+	Addr string // HOST:PORT
+	From string // the sender address
+	// User and Password, when User is set, log in to the server
+	// (the mechanism the server offers; STARTTLS is used when offered).
+	User, Password string
+}
+
+// Mailer sends alerts by e-mail.
+type Mailer struct {
+	cfg  MailConfig
+	host string
+	port int
+}
+
+// NewMailer checks the configuration.
+func NewMailer(cfg MailConfig) (*Mailer, error) {
+	host, ps, err := net.SplitHostPort(cfg.Addr)
+	if err != nil || host == "" {
+		return nil, fmt.Errorf("--smtp-addr %q: want HOST:PORT", cfg.Addr)
+	}
+	port, err := strconv.Atoi(ps)
+	if err != nil || port < 1 || port > 65535 {
+		return nil, fmt.Errorf("--smtp-addr %q: the port is not a number from 1 to 65535", cfg.Addr)
+	}
+	if cfg.From == "" {
+		return nil, errors.New("--smtp-from is required with --smtp-addr")
+	}
+	if err := mail.NewMsg().From(cfg.From); err != nil {
+		return nil, fmt.Errorf("--smtp-from %q: not an e-mail address", cfg.From)
+	}
+	return &Mailer{cfg: cfg, host: host, port: port}, nil
+}
+
+// Send mails the message (a webhook body, see Message) to one address.
+// The Message-ID is derived from msgID, so repeats can be recognised. It
+// returns the server's reply code when the server refused.
+func (m *Mailer) Send(ctx context.Context, to, msgID string, body []byte) (int, error) {
+	var msg Message
+	if err := json.Unmarshal(body, &msg); err != nil {
+		return 0, fmt.Errorf("the stored message is unreadable: %w", err)
+	}
+	em, err := m.compose(to, msgID, msg)
+	if err != nil {
+		return 0, err
+	}
+	opts := []mail.Option{mail.WithPort(m.port), mail.WithTLSPolicy(mail.TLSOpportunistic), mail.WithTimeout(30 * time.Second)}
+	if m.cfg.User != "" {
+		opts = append(opts, mail.WithSMTPAuth(mail.SMTPAuthAutoDiscover), mail.WithUsername(m.cfg.User), mail.WithPassword(m.cfg.Password))
+	}
+	c, err := mail.NewClient(m.host, opts...)
+	if err != nil {
+		return 0, err
+	}
+	if err := c.DialAndSendWithContext(ctx, em); err != nil {
+		var se *mail.SendError
+		if errors.As(err, &se) {
+			return se.ErrorCode(), err
+		}
+		return 0, err
+	}
+	return 250, nil
+}
+
+// Subject is the e-mail subject of a message: process, lot and verdict.
+func Subject(msg Message) string {
+	d := msg.Data
+	switch msg.Type {
+	case TypeTest:
+		return fmt.Sprintf("lotwatch test alert for %s", d.Process)
+	case TypeUnexplained:
+		return fmt.Sprintf("lotwatch: %s lot %s still unexplained: %s", d.Process, d.Lot, d.Verdict)
+	}
+	return fmt.Sprintf("lotwatch: %s lot %s %s", d.Process, d.Lot, d.Verdict)
+}
+
+var plainMail = textTemplate.Must(textTemplate.New("plain").Parse(`{{if eq .Type "alert.test"}}This is a test alert from lotwatch for process {{.Data.Process}}: the rule's e-mail address is reached.
+{{else}}Process:  {{.Data.Process}}
+Lot:      {{.Data.Lot}} (logged {{.Data.Time}})
+Verdict:  {{.Data.Verdict}}
+Value:    {{.Data.Value}} (limits {{.Data.LCL}} to {{.Data.UCL}})
+{{if eq .Type "lot.unexplained"}}
+No cause has been recorded for this lot yet. Recording one on the lot page
+stops these reminders.
+{{end}}
+Open the lot: {{.Data.URL}}
+{{end}}
+A chart in control is not proof that the product meets its specification;
+follow the plant's quality system for release and containment.
+`))
+
+var htmlMail = template.Must(template.New("html").Parse(`<!doctype html>
+<html><body>
+{{if eq .Type "alert.test"}}<p>This is a test alert from lotwatch for process <b>{{.Data.Process}}</b>: the rule's e-mail address is reached.</p>
+{{else}}<table>
+<tr><th align="left">Process</th><td>{{.Data.Process}}</td></tr>
+<tr><th align="left">Lot</th><td>{{.Data.Lot}} (logged {{.Data.Time}})</td></tr>
+<tr><th align="left">Verdict</th><td>{{.Data.Verdict}}</td></tr>
+<tr><th align="left">Value</th><td>{{.Data.Value}} (limits {{.Data.LCL}} to {{.Data.UCL}})</td></tr>
+</table>
+{{if eq .Type "lot.unexplained"}}<p>No cause has been recorded for this lot yet. Recording one on the lot page stops these reminders.</p>{{end}}
+<p><a href="{{.Data.URL}}">Open the lot in lotwatch</a></p>
+{{end}}<p><small>A chart in control is not proof that the product meets its specification; follow the plant's quality system for release and containment.</small></p>
+</body></html>
+`))
+
+// compose builds the e-mail: the subject, a plain-text part and an HTML
+// part with the same facts and the link.
+func (m *Mailer) compose(to, msgID string, msg Message) (*mail.Msg, error) {
+	em := mail.NewMsg()
+	if err := em.From(m.cfg.From); err != nil {
+		return nil, err
+	}
+	if err := em.To(to); err != nil {
+		return nil, err
+	}
+	em.Subject(Subject(msg))
+	em.SetMessageIDWithValue(strings.ReplaceAll(msgID, "@", "_") + "@lotwatch")
+	em.SetDate()
+	var plain, html bytes.Buffer
+	if err := plainMail.Execute(&plain, msg); err != nil {
+		return nil, err
+	}
+	if err := htmlMail.Execute(&html, msg); err != nil {
+		return nil, err
+	}
+	em.SetBodyString(mail.TypeTextPlain, plain.String())
+	em.AddAlternativeString(mail.TypeTextHTML, html.String())
+	return em, nil
+}

@@ -1,0 +1,166 @@
+// Package alert delivers the alerts of lotwatch: it judges the lots the
+// store put in the outbox with the same judging the chart uses, turns
+// those that meet a rule into messages with stable ids, and sends them to
+// webhooks (signed as the Standard Webhooks specification says) and
+// e-mail addresses (over SMTP), retrying with exponential backoff for at
+// least a day and logging every attempt.
+//
+// Everything that must not be lost is in the database: the lot's event is
+// written in the lot's own transaction, the messages are made and the
+// event closed in one transaction, and servers claim work with a lease in
+// the database, so several servers sharing it deliver each alert once and
+// a crash at any point re-does work instead of losing it. A message may be
+// sent twice (a crash after sending, before the attempt is logged), always
+// under the same webhook-id, so that a receiver can drop the repeat.
+package alert
+
+import (
+	"crypto/hmac"
+	"crypto/sha256"
+	"encoding/base64"
+	"encoding/json"
+	"fmt"
+	"math"
+	"strconv"
+	"strings"
+	"time"
+
+	"lotwatch/store"
+)
+
+// Message types (the "type" of a webhook body).
+const (
+	TypeSignal      = "lot.signal"      // a lot out of limits, in a run-rule or shift signal
+	TypeUnexplained = "lot.unexplained" // a signalling lot still unexplained after the rule's delay
+	TypeTest        = "alert.test"      // the test button of a rule
+)
+
+// Message is the body of a webhook and the facts of an e-mail.
+type Message struct {
+	Type      string  `json:"type"`
+	Timestamp string  `json:"timestamp"` // RFC 3339: when the lot was stored (or the escalation/test made)
+	Data      LotData `json:"data"`
+}
+
+// LotData is the lot an alert is about.
+type LotData struct {
+	ProcessID int64    `json:"process_id"`
+	Process   string   `json:"process"`
+	Lot       string   `json:"lot"`
+	LotID     int64    `json:"lot_id"`
+	Time      string   `json:"time"` // RFC 3339: the lot's time
+	Kinds     []string `json:"kinds"`
+	Rules     []string `json:"rules"`
+	Value     float64  `json:"value"`
+	UCL       float64  `json:"ucl"`
+	LCL       float64  `json:"lcl"`
+	URL       string   `json:"url"`
+	Verdict   string   `json:"verdict"` // the same facts in plain words
+}
+
+// Verdict is what the chart says of one lot, for alerting.
+type Verdict struct {
+	Lot             store.Lot
+	Value, UCL, LCL float64
+	Kinds           []string // store.TriggerOutOfLimits, TriggerRunRule, TriggerShift met by the lot
+	Rules           []string // the rules behind them (e.g. we1, nelson2, cusum)
+	Words           string   // plain words, e.g. "above the upper control limit"
+}
+
+// Signals reports whether the lot signals at all.
+func (v Verdict) Signals() bool { return len(v.Kinds) > 0 }
+
+// matches lists the kinds of v that rule r listens for.
+func matches(r store.AlertRule, v Verdict) []string {
+	var out []string
+	for _, k := range v.Kinds {
+		if r.Has(k) {
+			out = append(out, k)
+		}
+	}
+	return out
+}
+
+// finite keeps a limit that does not exist (an infinite or undefined
+// value) out of the JSON, as 0.
+func finite(f float64) float64 {
+	if math.IsNaN(f) || math.IsInf(f, 0) {
+		return 0
+	}
+	return f
+}
+
+// lotMessage is the message of type typ about v's lot.
+func lotMessage(typ string, p store.Process, v Verdict, at time.Time, publicURL string) Message {
+	kinds, rules := v.Kinds, v.Rules
+	if kinds == nil {
+		kinds = []string{}
+	}
+	if rules == nil {
+		rules = []string{}
+	}
+	return Message{Type: typ, Timestamp: at.UTC().Format(time.RFC3339), Data: LotData{
+		ProcessID: p.ID, Process: p.Name, Lot: v.Lot.Lot, LotID: v.Lot.ID, Time: v.Lot.Time.Format(time.RFC3339),
+		Kinds: kinds, Rules: rules, Value: finite(v.Value), UCL: finite(v.UCL), LCL: finite(v.LCL),
+		URL: LotURL(publicURL, v.Lot.ID), Verdict: v.Words}}
+}
+
+// LotURL is the address of a lot's page under the server's public URL.
+func LotURL(publicURL string, lotID int64) string {
+	return strings.TrimRight(publicURL, "/") + "/lots/" + strconv.FormatInt(lotID, 10)
+}
+
+// MsgID is the stable id of the message of type typ about a lot for a
+// rule: judging the lot again gives the same id, so no second message is
+// made, and every attempt carries it as the webhook-id.
+func MsgID(typ string, lotID, ruleID int64) string {
+	kind := "signal"
+	if typ == TypeUnexplained {
+		kind = "unexplained"
+	}
+	return fmt.Sprintf("msg_lot%d_rule%d_%s", lotID, ruleID, kind)
+}
+
+func encode(m Message) (string, error) {
+	b, err := json.Marshal(m)
+	return string(b), err
+}
+
+// Sign returns the webhook-signature header of a message as the Standard
+// Webhooks specification defines it: "v1," and the base64 of the
+// HMAC-SHA256, keyed with store.WebhookKey(secret), of
+// "<webhook-id>.<webhook-timestamp>.<body>".
+func Sign(secret, msgID string, ts int64, body []byte) (string, error) {
+	key, err := store.WebhookKey(secret)
+	if err != nil {
+		return "", err
+	}
+	mac := hmac.New(sha256.New, key)
+	fmt.Fprintf(mac, "%s.%d.", msgID, ts)
+	mac.Write(body)
+	return "v1," + base64.StdEncoding.EncodeToString(mac.Sum(nil)), nil
+}
+
+// Backoff is the wait after the n-th failed attempt (n ≥ 1) with the
+// first wait base (5 s in service): base, then doubling, at most an hour.
+// Exponential backoff: the first retry comes within 10 seconds, and a
+// receiver down for a day is not flooded (common practice, no source).
+func Backoff(n int, base time.Duration) time.Duration {
+	d := base
+	for i := 1; i < n && d < time.Hour; i++ {
+		d *= 2
+	}
+	return min(d, time.Hour)
+}
+
+// GiveUpAfter is how long a message is retried before it is marked failed.
+const GiveUpAfter = 24 * time.Hour
+
+// nextAttempt is when to try again after the n-th failed attempt of a
+// message made at created, or zero when it is to be given up.
+func nextAttempt(created, now time.Time, n int, base time.Duration) time.Time {
+	if now.Sub(created) >= GiveUpAfter {
+		return time.Time{}
+	}
+	return now.Add(Backoff(n, base))
+}

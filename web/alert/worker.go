@@ -1,0 +1,386 @@
+package alert
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"fmt"
+	"io"
+	"log/slog"
+	"net/http"
+	"strconv"
+	"strings"
+	"sync"
+	"time"
+
+	"lotwatch/store"
+)
+
+// Judge judges lots of a process the way its chart does and returns the
+// verdicts of those of ids still on the chart (a voided lot is left out).
+type Judge func(ctx context.Context, p store.Process, ids []int64) (map[int64]Verdict, error)
+
+// Attention lists the lots of a process that still need attention: out
+// of limits or in a signal, and nobody has recorded a cause or the
+// finding that none was found.
+type Attention func(ctx context.Context, p store.Process) ([]int64, error)
+
+// Config configures a Worker.
+type Config struct {
+	DB        *store.DB
+	Judge     Judge
+	Attention Attention // for unexplained rules; nil: they never fire
+	// EscalateEvery is how often unexplained lots are looked for;
+	// default 30 s.
+	EscalateEvery time.Duration
+	// Now is the clock the delays of unexplained rules are measured with;
+	// default time.Now (tests set a fake clock).
+	Now       func() time.Time
+	PublicURL string  // the server's address as people reach it, for links to lots
+	Mail      *Mailer // nil: e-mail rules fail with a message saying so
+	Log       *slog.Logger
+	// Owner names this server in the claims it puts on outbox rows; it
+	// should stay the same across restarts of the same server (then a
+	// restarted server takes back its own claims at once) and differ
+	// between servers sharing a database. Default: "lotwatch".
+	Owner string
+	Poll  time.Duration // how often the outbox is looked at; default 1 s
+	// Timeout bounds one attempt; default 10 s.
+	Timeout time.Duration
+	// RetryBase is the wait after the first failed attempt, doubled after
+	// each further one (see Backoff); default 5 s. Tests shorten it.
+	RetryBase time.Duration
+	// Client sends the webhooks; default: no proxy, no redirects followed.
+	Client *http.Client
+}
+
+// Worker judges the outbox's lots and delivers their alerts.
+type Worker struct {
+	cfg      Config
+	wake     chan struct{}
+	mu       sync.Mutex
+	inflight map[int64]bool
+	sends    sync.WaitGroup
+	// escalated is when unexplained lots were last looked for.
+	escalated time.Time
+}
+
+// Lease is how long a claim on an outbox row holds: long enough for an
+// attempt (Timeout) and its logging, short enough that another server
+// takes over soon after one stops.
+func (w *Worker) lease() time.Duration { return 3*w.cfg.Timeout + 10*time.Second }
+
+// maxInflight bounds the messages being sent at once.
+const maxInflight = 16
+
+// NewWorker checks the configuration and fills in defaults.
+func NewWorker(cfg Config) (*Worker, error) {
+	if cfg.DB == nil || cfg.Judge == nil {
+		return nil, errors.New("alert: the worker needs a database and a judge")
+	}
+	if cfg.Log == nil {
+		cfg.Log = slog.Default()
+	}
+	if cfg.Owner == "" {
+		cfg.Owner = "lotwatch"
+	}
+	if cfg.Poll <= 0 {
+		cfg.Poll = time.Second
+	}
+	if cfg.Timeout <= 0 {
+		cfg.Timeout = 10 * time.Second
+	}
+	if cfg.Now == nil {
+		cfg.Now = time.Now
+	}
+	if cfg.EscalateEvery <= 0 {
+		cfg.EscalateEvery = 30 * time.Second
+	}
+	if cfg.RetryBase <= 0 {
+		cfg.RetryBase = 5 * time.Second
+	}
+	if cfg.Client == nil {
+		cfg.Client = &http.Client{
+			Transport: &http.Transport{Proxy: nil, MaxIdleConnsPerHost: 4, IdleConnTimeout: time.Minute},
+			CheckRedirect: func(*http.Request, []*http.Request) error {
+				return http.ErrUseLastResponse
+			},
+		}
+	}
+	return &Worker{cfg: cfg, wake: make(chan struct{}, 1), inflight: map[int64]bool{}}, nil
+}
+
+// Wake makes the worker look at the outbox now rather than at its next
+// poll (after a lot was posted, a test alert asked for).
+func (w *Worker) Wake() {
+	select {
+	case w.wake <- struct{}{}:
+	default:
+	}
+}
+
+// Run works until ctx ends, then waits for the attempts in flight.
+func (w *Worker) Run(ctx context.Context) {
+	log := w.cfg.Log
+	if w.cfg.DB.ReadOnly() {
+		log.Warn("alerts are not delivered: the database cannot be written (the outbox needs it)")
+		<-ctx.Done()
+		return
+	}
+	if err := w.cfg.DB.ReleaseAlertClaims(context.WithoutCancel(ctx), w.cfg.Owner); err != nil {
+		log.Error("alerts: taking back the claims of an earlier run", "err", err)
+	}
+	t := time.NewTicker(w.cfg.Poll)
+	defer t.Stop()
+	for {
+		if err := w.Step(ctx); err != nil && ctx.Err() == nil {
+			log.Error("alerts", "err", err)
+		}
+		select {
+		case <-ctx.Done():
+			w.sends.Wait()
+			return
+		case <-t.C:
+		case <-w.wake:
+		}
+	}
+}
+
+// Step judges the pending events and starts the attempts that are due.
+func (w *Worker) Step(ctx context.Context) error {
+	for {
+		n, err := w.judgeEvents(ctx)
+		if err != nil {
+			return err
+		}
+		if n == 0 {
+			break
+		}
+	}
+	if err := w.escalate(ctx); err != nil {
+		return err
+	}
+	return w.sendDue(ctx)
+}
+
+// Drain runs Step and waits for its attempts: for tests and for
+// one-off runs.
+func (w *Worker) Drain(ctx context.Context) error {
+	err := w.Step(ctx)
+	w.sends.Wait()
+	return err
+}
+
+// eventBatch is how many events are judged together.
+const eventBatch = 256
+
+// judgeEvents judges one batch of pending events and returns how many it
+// took.
+func (w *Worker) judgeEvents(ctx context.Context) (int, error) {
+	db := w.cfg.DB
+	if ok, err := db.HasPendingAlertEvents(ctx); err != nil || !ok {
+		return 0, err
+	}
+	evs, err := db.ClaimAlertEvents(ctx, w.cfg.Owner, w.lease(), eventBatch)
+	if err != nil || len(evs) == 0 {
+		return 0, err
+	}
+	rules, err := db.AlertRules(ctx)
+	if err != nil {
+		return 0, err
+	}
+	byProc := map[int64][]store.AlertEvent{}
+	var order []int64
+	for _, e := range evs {
+		if byProc[e.ProcessID] == nil {
+			order = append(order, e.ProcessID)
+		}
+		byProc[e.ProcessID] = append(byProc[e.ProcessID], e)
+	}
+	var done []int64
+	var ds []store.NewDelivery
+	for _, pid := range order {
+		es := byProc[pid]
+		made, err := w.judgeProcess(ctx, pid, es, rules)
+		if err != nil {
+			// Left claimed: taken again when the claim runs out.
+			w.cfg.Log.Error("alerts: judging lots", "process", pid, "err", err)
+			continue
+		}
+		ds = append(ds, made...)
+		for _, e := range es {
+			done = append(done, e.ID)
+		}
+	}
+	if len(done) == 0 {
+		return 0, nil
+	}
+	if err := db.FinishAlertEvents(ctx, done, ds); err != nil {
+		return 0, err
+	}
+	if len(ds) > 0 {
+		w.Wake()
+	}
+	return len(evs), nil
+}
+
+// judgeProcess makes the messages of one process's events.
+func (w *Worker) judgeProcess(ctx context.Context, pid int64, es []store.AlertEvent, rules []store.AlertRule) ([]store.NewDelivery, error) {
+	var mine []store.AlertRule
+	for _, r := range rules {
+		if r.ProcessID == pid {
+			mine = append(mine, r)
+		}
+	}
+	if len(mine) == 0 {
+		return nil, nil
+	}
+	p, err := w.cfg.DB.Process(ctx, pid)
+	if err != nil {
+		return nil, err
+	}
+	ids := make([]int64, len(es))
+	for i, e := range es {
+		ids[i] = e.LotID
+	}
+	vs, err := w.cfg.Judge(ctx, p, ids)
+	if err != nil {
+		return nil, err
+	}
+	var ds []store.NewDelivery
+	for _, e := range es {
+		v, ok := vs[e.LotID]
+		if !ok || !v.Signals() {
+			continue
+		}
+		for _, r := range mine {
+			if len(matches(r, v)) == 0 {
+				continue
+			}
+			body, err := encode(lotMessage(TypeSignal, p, v, e.Created, w.cfg.PublicURL))
+			if err != nil {
+				return nil, err
+			}
+			ds = append(ds, store.NewDelivery{MsgID: MsgID(TypeSignal, e.LotID, r.ID), RuleID: r.ID, LotID: e.LotID, Type: TypeSignal, Payload: body})
+		}
+	}
+	return ds, nil
+}
+
+// sendDue claims the deliveries that are due and starts their attempts.
+func (w *Worker) sendDue(ctx context.Context) error {
+	w.mu.Lock()
+	room := maxInflight - len(w.inflight)
+	w.mu.Unlock()
+	if room <= 0 {
+		return nil
+	}
+	due, err := w.cfg.DB.NextDeliveryDue(ctx)
+	if err != nil || due.IsZero() || due.After(time.Now()) {
+		return err
+	}
+	ds, err := w.cfg.DB.ClaimDeliveries(ctx, w.cfg.Owner, w.lease(), room)
+	if err != nil {
+		return err
+	}
+	for _, d := range ds {
+		w.mu.Lock()
+		if w.inflight[d.ID] {
+			w.mu.Unlock()
+			continue
+		}
+		w.inflight[d.ID] = true
+		w.mu.Unlock()
+		w.sends.Add(1)
+		go func() {
+			defer w.sends.Done()
+			defer func() {
+				w.mu.Lock()
+				delete(w.inflight, d.ID)
+				w.mu.Unlock()
+			}()
+			w.attempt(context.WithoutCancel(ctx), d)
+		}()
+	}
+	return nil
+}
+
+// attempt tries one delivery once and logs the attempt.
+func (w *Worker) attempt(ctx context.Context, d store.Delivery) {
+	start := time.Now()
+	status, err := w.deliver(ctx, d)
+	a := store.Attempt{At: start, Status: status, Took: time.Since(start)}
+	var next time.Time
+	if err != nil {
+		a.Error = err.Error()
+		if len(a.Error) > 1000 {
+			a.Error = a.Error[:1000] + "…"
+		}
+		next = nextAttempt(d.Created, time.Now(), d.Attempts+1, w.cfg.RetryBase)
+		w.cfg.Log.Warn("alerts: delivery failed", "msg", d.MsgID, "target", d.Rule.Target(), "attempt", d.Attempts+1, "err", err)
+	}
+	if err := w.cfg.DB.RecordAttempt(ctx, w.cfg.Owner, d.ID, a, next); err != nil {
+		w.cfg.Log.Error("alerts: logging an attempt", "msg", d.MsgID, "err", err)
+	}
+}
+
+// deliver sends d to its rule's destination once.
+func (w *Worker) deliver(ctx context.Context, d store.Delivery) (int, error) {
+	ctx, cancel := context.WithTimeout(ctx, w.cfg.Timeout)
+	defer cancel()
+	if d.Rule.Email != "" {
+		if w.cfg.Mail == nil {
+			return 0, errors.New("no SMTP server is set up (serve --smtp-addr HOST:PORT --smtp-from ADDR)")
+		}
+		return w.cfg.Mail.Send(ctx, d.Rule.Email, d.MsgID, []byte(d.Payload))
+	}
+	return SendWebhook(ctx, w.cfg.Client, d.Rule.Webhook, d.Rule.Secret, d.MsgID, []byte(d.Payload), time.Now())
+}
+
+// SendWebhook posts body to url with the Standard Webhooks headers:
+// webhook-id msgID, webhook-timestamp now in Unix seconds and
+// webhook-signature (see Sign). Any 2xx answer is delivery.
+func SendWebhook(ctx context.Context, c *http.Client, url, secret, msgID string, body []byte, now time.Time) (int, error) {
+	ts := now.Unix()
+	sig, err := Sign(secret, msgID, ts, body)
+	if err != nil {
+		return 0, fmt.Errorf("the secret %w", err)
+	}
+	req, err := http.NewRequestWithContext(ctx, http.MethodPost, url, bytes.NewReader(body))
+	if err != nil {
+		return 0, err
+	}
+	req.Header.Set("Content-Type", "application/json")
+	req.Header.Set("User-Agent", "lotwatch-alerts")
+	req.Header.Set("webhook-id", msgID)
+	req.Header.Set("webhook-timestamp", strconv.FormatInt(ts, 10))
+	req.Header.Set("webhook-signature", sig)
+	resp, err := c.Do(req)
+	if err != nil {
+		return 0, err
+	}
+	defer resp.Body.Close()
+	io.Copy(io.Discard, io.LimitReader(resp.Body, 64<<10))
+	if resp.StatusCode < 200 || resp.StatusCode > 299 {
+		return resp.StatusCode, fmt.Errorf("the receiver answered %s", resp.Status)
+	}
+	return resp.StatusCode, nil
+}
+
+// Test puts a test message for rule in the outbox and wakes the worker:
+// it is sent, retried and logged like an alert.
+func (w *Worker) Test(ctx context.Context, rule store.AlertRule, now time.Time) error {
+	msg := Message{Type: TypeTest, Timestamp: now.UTC().Format(time.RFC3339), Data: LotData{
+		ProcessID: rule.ProcessID, Process: rule.Process, Kinds: []string{}, Rules: []string{},
+		URL: strings.TrimRight(w.cfg.PublicURL, "/") + "/alerts", Verdict: "test alert"}}
+	body, err := encode(msg)
+	if err != nil {
+		return err
+	}
+	id := fmt.Sprintf("msg_test_rule%d_%d", rule.ID, now.UnixNano())
+	if err := w.cfg.DB.AddDeliveries(ctx, []store.NewDelivery{{MsgID: id, RuleID: rule.ID, Type: TypeTest, Payload: body}}); err != nil {
+		return err
+	}
+	w.Wake()
+	return nil
+}
