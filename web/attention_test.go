@@ -2,8 +2,11 @@ package web
 
 import (
 	"context"
+	"html"
+	"maps"
 	"net/http"
 	"net/url"
+	"regexp"
 	"strings"
 	"testing"
 	"time"
@@ -203,5 +206,92 @@ func TestBoardNightShift(t *testing.T) {
 	board = e.do(req{method: "GET", path: "/", cookie: c}).Body.String()
 	if !strings.Contains(board, "Nothing needs attention") || !strings.Contains(board, "1 (closed, or no cause found)") {
 		t.Errorf("board after the finding:\n%s", board)
+	}
+}
+
+// TestWorklistSignalLink: each signal over several lots has a link on the
+// worklist that shows exactly its lots, ticked for the bulk form, and no
+// other lot; one cause recorded through it takes all of them off
+// /api/v1/attention and leaves the other signal and the lot out of limits.
+func TestWorklistSignalLink(t *testing.T) {
+	e := newTestEnv(t)
+	// 40 lots of 200 alternating 3 (even) and 5 (odd), except lot 4 of 30
+	// nonconforming, lots 21–29 all of 5 and lots 30–39 all of 3: 185
+	// nonconforming in 8000, p̄ = 0.023125, centre 4.63 counts, σ 2.13
+	// counts, UCL 11.0 (p̄ ± 3√(p̄(1−p̄)/n), Montgomery, Introduction to
+	// Statistical Quality Control, §7.2). Lot 4 is beyond the UCL; every
+	// other lot is within 1σ, so the only run rule met is Western
+	// Electric rule 4 (8 or more lots in a row on one side of the centre
+	// line; Western Electric, Statistical Quality Control Handbook, 1956):
+	// lots 21–29 above the centre line, and lots 30–39 below it.
+	lots := e.addLots(t, 40, func(i int) int64 {
+		switch {
+		case i == 4:
+			return 30
+		case i >= 21 && i <= 29:
+			return 5
+		case i >= 30 || i%2 == 0:
+			return 3
+		}
+		return 5
+	})
+	ids := func(from, to int) map[string]bool {
+		m := map[string]bool{}
+		for i := from; i <= to; i++ {
+			m[formatID(lots[i].ID)] = true
+		}
+		return m
+	}
+	above, below := ids(21, 29), ids(30, 39)
+	c := e.signIn(t, "inspector1", testPassword)
+	page := e.do(req{method: "GET", path: "/attention", cookie: c}).Body.String()
+	links := regexp.MustCompile(`href="(/attention\?signal=[^"#]+)#bulk">Explain these (\d+) lots together`).FindAllStringSubmatch(page, -1)
+	if len(links) != 2 || links[0][2] != "9" || links[1][2] != "10" {
+		t.Fatalf("signal links %q, want one of 9 lots and one of 10", links)
+	}
+	boxes := regexp.MustCompile(`name="lot" value="(\d+)"[^>]*?( checked)?>`)
+	for k, want := range []map[string]bool{above, below} {
+		link := html.UnescapeString(links[k][1])
+		page = e.do(req{method: "GET", path: link, cookie: c}).Body.String()
+		shown, ticked := map[string]bool{}, map[string]bool{}
+		for _, m := range boxes.FindAllStringSubmatch(page, -1) {
+			shown[m[1]] = true
+			if m[2] != "" {
+				ticked[m[1]] = true
+			}
+		}
+		if !maps.Equal(shown, want) || !maps.Equal(ticked, want) {
+			t.Errorf("%s shows %v, ticks %v; want exactly %v", link, shown, ticked, want)
+		}
+	}
+
+	// Record one cause for the lots above through the first link's form.
+	page = e.do(req{method: "GET", path: html.UnescapeString(links[0][1]), cookie: c}).Body.String()
+	back := regexp.MustCompile(`name="back" value="([^"]*)"`).FindStringSubmatch(page)
+	if back == nil {
+		t.Fatalf("no back field on the signal's page")
+	}
+	form := url.Values{"back": {html.UnescapeString(back[1])}, "cause": {"film roll from the new supplier"}, "action": {"roll changed"}}
+	for _, m := range boxes.FindAllStringSubmatch(page, -1) {
+		if m[2] != "" {
+			form.Add("lot", m[1])
+		}
+	}
+	rec := e.do(req{method: "POST", path: "/attention/causes", body: form.Encode(), form: true, cookie: c, headers: sameOrigin()})
+	if rec.Code != http.StatusSeeOther || rec.Header().Get("Location") != "/attention?done=9" {
+		t.Fatalf("bulk post: %d %q %s", rec.Code, rec.Header().Get("Location"), rec.Body.String())
+	}
+	list := decodeJSON[[]attentionJSON](t, e.do(req{method: "GET", path: "/api/v1/attention", token: e.tokens[store.RoleViewer]}))
+	left := map[string]bool{}
+	for _, a := range list {
+		left[formatID(a.LotID)] = true
+	}
+	want := ids(30, 39)
+	want[formatID(lots[4].ID)] = true
+	if !maps.Equal(left, want) {
+		t.Errorf("after the cause, attention lists %v; want lot 4 and lots 30–39: %v", left, want)
+	}
+	if page := e.do(req{method: "GET", path: html.UnescapeString(links[0][1]), cookie: c}).Body.String(); !strings.Contains(page, "That signal has no lots needing attention any more") {
+		t.Errorf("the explained signal's link does not say it is explained")
 	}
 }

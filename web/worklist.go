@@ -15,11 +15,20 @@ import (
 // worklistRow is one lot needing attention on the worklist.
 type worklistRow struct {
 	attention.Lot
-	Zone  string // the process's zone, for the time
-	Words string // the kind in words
-	// Group names the signal the lot belongs to (process and rules), so
-	// that the lots of one signal can be explained together.
-	Group string
+	Zone   string // the process's zone, for the time
+	Words  string // the kind in words
+	Ticked bool   // ticked for the bulk form: a chosen signal's lot, or one ticked before a refused post
+}
+
+// signalLink is a signal over several lots needing attention, with the
+// worklist address that shows exactly its lots, ticked for one cause.
+type signalLink struct {
+	Process, Rule, Words string
+	First, Last          string // codes of its first and last lot needing attention
+	Lots                 int
+	Href                 string
+	key                  string // attention.Signal.Key
+	ids                  map[int64]bool
 }
 
 // worklistData is the worklist page.
@@ -30,7 +39,9 @@ type worklistData struct {
 	Processes                  []option
 	Areas, Shifts              []string
 	Kinds                      []option
-	Back                       string // this page with its filter, for the forms to return to
+	Signals                    []signalLink // the open signals with a lot shown
+	Signal                     *signalLink  // the signal chosen by ?signal=, whose lots alone are shown
+	Back                       string       // this page with its filter, for the forms to return to
 	Done                       string
 	Problem                    string
 	Form                       map[string]string
@@ -69,6 +80,7 @@ func (s *Server) showWorklist(w http.ResponseWriter, r *http.Request, status int
 		d.Form = map[string]string{}
 	}
 	var all []attention.Lot
+	var signals []signalLink
 	procs := []string{"", "any process"}
 	areas, shifts := map[string]bool{}, map[string]bool{}
 	for _, pp := range pps {
@@ -81,6 +93,28 @@ func (s *Server) showWorklist(w http.ResponseWriter, r *http.Request, status int
 			areas[pp.proc.Area] = true
 		}
 		all = append(all, pp.need...)
+		for _, sg := range pp.sum.flagged.OpenSignals(pp.proc, pp.anns) {
+			signals = append(signals, newSignalLink(pp.proc, sg))
+		}
+	}
+	if key := q.Get("signal"); key != "" {
+		for i, sl := range signals {
+			if sl.key == key {
+				d.Signal = &signals[i]
+			}
+		}
+		if d.Signal == nil {
+			d.Problem = strings.TrimSpace(d.Problem + " That signal has no lots needing attention any more (it was explained, or its lots changed): every lot is shown.")
+		}
+	}
+	ticked := map[int64]bool{}
+	if r.Method == http.MethodPost {
+		for _, raw := range r.PostForm["lot"] {
+			id, _ := strconv.ParseInt(raw, 10, 64)
+			ticked[id] = true
+		}
+	} else if d.Signal != nil {
+		ticked = d.Signal.ids
 	}
 	attention.Oldest(all)
 	zone := map[int64]string{}
@@ -92,12 +126,14 @@ func (s *Server) showWorklist(w http.ResponseWriter, r *http.Request, status int
 			shifts[l.Shift] = true
 		}
 		if d.keeps(l) {
-			row := worklistRow{Lot: l, Words: kindWords[l.Kind], Group: l.Process}
+			row := worklistRow{Lot: l, Words: kindWords[l.Kind], Ticked: ticked[l.LotID]}
 			row.Time = l.Time.In(store.Process{TimeZone: zone[l.ProcessID]}.Location())
-			if len(l.Rules) > 0 {
-				row.Group += " · " + strings.Join(l.Rules, ", ")
-			}
 			d.Rows = append(d.Rows, row)
+		}
+	}
+	for _, sl := range signals {
+		if slices.ContainsFunc(d.Rows, func(row worklistRow) bool { return sl.ids[row.LotID] }) {
+			d.Signals = append(d.Signals, sl)
 		}
 	}
 	d.Total = len(all)
@@ -105,7 +141,7 @@ func (s *Server) showWorklist(w http.ResponseWriter, r *http.Request, status int
 	d.Kinds = options(d.Kind, "", "any kind", string(attention.OutOfLimits), "out of limits", string(attention.RunRule), "run-rule signal", string(attention.Shift), "small-shift signal")
 	d.Areas, d.Shifts = sortedKeys(areas), sortedKeys(shifts)
 	back := url.Values{}
-	for _, k := range []string{"process", "area", "shift", "kind"} {
+	for _, k := range []string{"process", "area", "shift", "kind", "signal"} {
 		if v := q.Get(k); v != "" {
 			back.Set(k, v)
 		}
@@ -117,8 +153,28 @@ func (s *Server) showWorklist(w http.ResponseWriter, r *http.Request, status int
 	s.render(w, r, status, "worklist.html", "Worklist: lots needing attention", d)
 }
 
-// keeps reports whether a lot passes the worklist's filter.
+// newSignalLink describes an open signal of the process for the worklist.
+func newSignalLink(p store.Process, sg attention.Signal) signalLink {
+	sl := signalLink{Process: p.Name, Rule: sg.Rule.String(), Words: sg.Rule.Describe(), Lots: len(sg.Lots),
+		First: sg.Lots[0].Lot, Last: sg.Lots[len(sg.Lots)-1].Lot, Href: signalHref(sg.Key()), key: sg.Key(), ids: map[int64]bool{}}
+	for _, l := range sg.Lots {
+		sl.ids[l.LotID] = true
+	}
+	return sl
+}
+
+// signalHref is the worklist showing only the lots of the signal with
+// the key, ticked, at the bulk form.
+func signalHref(key string) string {
+	return "/attention?" + url.Values{"signal": {key}}.Encode() + "#bulk"
+}
+
+// keeps reports whether a lot passes the worklist's filter: a chosen
+// signal's lots, or the lots of the process, area, shift and kind asked.
 func (d *worklistData) keeps(l attention.Lot) bool {
+	if d.Signal != nil {
+		return d.Signal.ids[l.LotID]
+	}
 	return (d.Process == "" || d.Process == formatID(l.ProcessID)) && (d.Area == "" || d.Area == l.Area) &&
 		(d.Shift == "" || d.Shift == l.Shift) && (d.Kind == "" || d.Kind == string(l.Kind))
 }
@@ -186,6 +242,14 @@ func (s *Server) postWorklistCauses(w http.ResponseWriter, r *http.Request) {
 	back := r.PostFormValue("back")
 	if !isWorklistPath(back) {
 		back = "/attention"
+	}
+	if u, err := url.Parse(back); err == nil && u.Query().Has("signal") {
+		q := u.Query() // the signal is explained now: back to the whole list
+		q.Del("signal")
+		back = "/attention"
+		if len(q) > 0 {
+			back += "?" + q.Encode()
+		}
 	}
 	sep := "?"
 	if strings.Contains(back, "?") {

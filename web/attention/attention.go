@@ -15,6 +15,7 @@ package attention
 
 import (
 	"slices"
+	"strconv"
 	"strings"
 	"time"
 
@@ -157,12 +158,7 @@ func (f *Flagged) Unexplained(p store.Process, anns []store.Annotation) []Lot {
 	if f == nil || len(f.Lots) == 0 {
 		return nil
 	}
-	onLot := map[int64][]store.Annotation{}
-	for _, an := range anns {
-		if an.LotID != 0 {
-			onLot[an.LotID] = append(onLot[an.LotID], an)
-		}
-	}
+	onLot := byLot(anns)
 	explained := make([]bool, len(f.Signals))
 	for k, sg := range f.Signals {
 		explained[k] = signalExplained(sg, onLot)
@@ -197,6 +193,62 @@ func (f *Flagged) Unexplained(p store.Process, anns []store.Annotation) []Lot {
 			e.Kind = RunRule
 		}
 		out = append(out, e)
+	}
+	return out
+}
+
+// byLot groups the annotations on a lot by the lot's store id.
+func byLot(anns []store.Annotation) map[int64][]store.Annotation {
+	onLot := map[int64][]store.Annotation{}
+	for _, an := range anns {
+		if an.LotID != 0 {
+			onLot[an.LotID] = append(onLot[an.LotID], an)
+		}
+	}
+	return onLot
+}
+
+// Signal is a run-rule or small-shift signal nobody has explained yet,
+// with those of its lots that still need attention: the lots one cause
+// found for the signal explains together.
+type Signal struct {
+	FlaggedSignal
+	Lots []Lot // in chart order
+}
+
+// Key names the signal in a worklist address: its rule and the store ids
+// of its first and last lot.
+func (sg Signal) Key() string {
+	return sg.Rule.String() + "-" + strconv.FormatInt(sg.LotIDs[0], 10) + "-" + strconv.FormatInt(sg.LotIDs[len(sg.LotIDs)-1], 10)
+}
+
+// OpenSignals returns the run-rule and small-shift signals of the chart
+// that nobody has explained and that still hold more than one lot needing
+// attention, in chart order. A lot out of limits is its own signal and
+// is explained on its own.
+func (f *Flagged) OpenSignals(p store.Process, anns []store.Annotation) []Signal {
+	if f == nil {
+		return nil
+	}
+	need := map[int64]Lot{}
+	for _, l := range f.Unexplained(p, anns) {
+		need[l.LotID] = l
+	}
+	onLot := byLot(anns)
+	var out []Signal
+	for _, fs := range f.Signals {
+		if fs.Kind == OutOfLimits || signalExplained(fs, onLot) {
+			continue
+		}
+		sg := Signal{FlaggedSignal: fs}
+		for _, id := range fs.LotIDs {
+			if l, ok := need[id]; ok {
+				sg.Lots = append(sg.Lots, l)
+			}
+		}
+		if len(sg.Lots) > 1 {
+			out = append(out, sg)
+		}
 	}
 	return out
 }
