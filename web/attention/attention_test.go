@@ -172,3 +172,54 @@ func TestOldest(t *testing.T) {
 		t.Errorf("order %v", got)
 	}
 }
+
+// TestOpenSignals: the rule-4 run of runSeries is one open signal whose
+// lots are the run's, until a cause explains the run; a lot explained on
+// its own leaves the signal; a lot out of limits is never such a signal.
+func TestOpenSignals(t *testing.T) {
+	p := store.Process{ID: 7, Name: "Line 4"}
+	runLots, runA := chart(t, runSeries())
+	outLots, outA := chart(t, outSeries())
+	var run []int
+	for _, sg := range runA.Signals {
+		if sg.Rule == spc.RuleWE4 {
+			for i := sg.First; i <= sg.Last; i++ {
+				run = append(run, i)
+			}
+		}
+	}
+	if len(run) < 8 {
+		t.Fatalf("no rule-4 run in the fixture: %+v", runA.Signals)
+	}
+	first := runLots[run[0]].ID
+	cases := []struct {
+		name string
+		lots []store.Lot
+		a    *spc.Analysis
+		anns []store.Annotation
+		want [][]int64
+	}{
+		{"run, unexplained", runLots, runA, nil, [][]int64{lotIDs(runLots, run)}},
+		{"run explained by a cause on one lot", runLots, runA, []store.Annotation{{LotID: first, Cause: "new supplier"}}, nil},
+		{"one lot explained for another rule", runLots, runA, []store.Annotation{{LotID: first, Rule: "we2", Cause: "gauge"}}, [][]int64{lotIDs(runLots, run[1:])}},
+		{"out of limits only", outLots, outA, nil, nil},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			var got [][]int64
+			for _, sg := range Flag(c.lots, c.a).OpenSignals(p, c.anns) {
+				var ids []int64
+				for _, l := range sg.Lots {
+					ids = append(ids, l.LotID)
+				}
+				got = append(got, ids)
+				if sg.Key() != fmt.Sprintf("we4-%d-%d", runLots[run[0]].ID, runLots[run[len(run)-1]].ID) {
+					t.Errorf("key %q", sg.Key())
+				}
+			}
+			if !slices.EqualFunc(got, c.want, slices.Equal) {
+				t.Errorf("signals %v, want %v", got, c.want)
+			}
+		})
+	}
+}
