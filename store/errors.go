@@ -31,11 +31,18 @@ type Problem struct {
 	Field  string
 	Value  string
 	Reason string
+	// Sheet is the worksheet of a spreadsheet file; Line is then its row.
+	Sheet string
 }
 
 // String is the problem as one line, written as the lot file reader
-// writes its own: `line 3: inspected "0" must be …`.
+// writes its own: `line 3: inspected "0" must be …` (`Lots!3: …` for a
+// row of a worksheet).
 func (p Problem) String() string { return lotcsv.Problem(p).String() }
+
+// Where is the place of the problem in the file: "line 5", "Lots!5", or
+// "" when there is no line.
+func (p Problem) Where() string { return lotcsv.Problem(p).Where() }
 
 // fileProblems are the lot file reader's problems as the store's.
 func fileProblems(ps lotcsv.Problems) []Problem {

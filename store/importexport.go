@@ -33,14 +33,21 @@ type ImportOptions struct {
 	// Progress, if set, is called every few thousand rows with the rows
 	// and bytes read so far.
 	Progress func(rows int, bytes int64)
-	// Format is "csv" (the default) or "json" (what Export writes with
-	// Format "json"; Process may then be empty to take the file's).
+	// Format is "csv" (the default: CSV separated by commas, semicolons
+	// or tabs, or an XLSX workbook, told apart by the file's first bytes),
+	// "xlsx" (the same) or "json" (what Export writes with Format "json";
+	// Process may then be empty to take the file's).
 	Format string
 	// SkipConflicts imports the other lots of a file in which some lot
 	// codes are stored with other values, reporting those in
 	// ImportResult.Conflicts. Without it such a lot is a problem of the
 	// file like any other, and nothing is written.
 	SkipConflicts bool
+	// Sheet is the worksheet of an XLSX file (default the first).
+	Sheet string
+	// Ignore names columns of the file to skip on purpose; any other
+	// column that is neither a lot column nor a category is refused.
+	Ignore []string
 }
 
 // ImportResult is what an import did.
@@ -99,11 +106,11 @@ func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportO
 		max = 100
 	}
 	switch opt.Format {
-	case "", "csv":
+	case "", "csv", "xlsx":
 	case "json":
 		return db.importJSON(ctx, actor, r, opt, max)
 	default:
-		return ImportResult{}, invalid(Problem{Field: "format", Value: opt.Format, Reason: "is not csv or json"})
+		return ImportResult{}, invalid(Problem{Field: "format", Value: opt.Format, Reason: "is not csv, xlsx or json"})
 	}
 	var res ImportResult
 	err := db.write(ctx, func(w *wtx) error {
@@ -117,15 +124,16 @@ func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportO
 		} else if err != nil {
 			return err
 		}
-		ropt := lotcsv.Options{Chart: p.Chart, Categories: p.Categories, Location: p.Location(), MaxProblems: max}
+		ropt := p.ReadOptions()
 		if create {
 			tz := opt.TimeZone
 			if tz == "" {
 				tz = "UTC"
 			}
 			p = Process{Name: opt.Process, TimeZone: tz}
-			ropt = lotcsv.Options{CategoriesFromHeader: true, Location: p.Location(), MaxProblems: max}
+			ropt = lotcsv.Options{CategoriesFromHeader: true, Location: p.Location()}
 		}
+		ropt.MaxProblems, ropt.Sheet, ropt.Ignore = max, opt.Sheet, opt.Ignore
 		rd, err := lotcsv.NewReader(cr, ropt)
 		if err != nil {
 			var ps lotcsv.Problems
@@ -158,6 +166,9 @@ func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportO
 			note: rd.Has(lotcsv.ColNote), categories: rd.Categories()}
 		ve := &ValidationError{}
 		problem := func(pr Problem) {
+			if pr.Line > 0 && pr.Sheet == "" {
+				pr.Sheet = rd.Sheet()
+			}
 			if len(ve.Problems) < max {
 				ve.Problems = append(ve.Problems, pr)
 			} else {

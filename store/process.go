@@ -61,6 +61,12 @@ func (p Process) Location() *time.Location {
 	return time.UTC
 }
 
+// ReadOptions are the options for reading a lot file of the process:
+// its chart, categories and time zone.
+func (p Process) ReadOptions() lotcsv.Options {
+	return lotcsv.Options{Chart: p.Chart, Categories: p.Categories, Location: p.Location()}
+}
+
 var ruleItem = regexp.MustCompile(`^(we[1-8]|nelson[1-8])$`)
 
 // CheckRules reports whether s is a rule set: "we" (Western Electric),

@@ -133,17 +133,20 @@ func cliStoreError(stderr io.Writer, cmd, file string, err error) int {
 	return exitFail
 }
 
-// cliProblem formats a problem as FILE:LINE: column C, value "V": reason.
+// cliProblem formats a problem as FILE:LINE: column C, value "V": reason
+// (FILE:SHEET!ROW for a row of a worksheet).
 func cliProblem(file string, p store.Problem) string {
 	var b strings.Builder
 	if file != "" {
 		b.WriteString(file)
-		if p.Line > 0 {
+		if p.Line > 0 && p.Sheet != "" {
+			fmt.Fprintf(&b, ":%s!%d", p.Sheet, p.Line)
+		} else if p.Line > 0 {
 			fmt.Fprintf(&b, ":%d", p.Line)
 		}
 		b.WriteString(": ")
-	} else if p.Line > 0 {
-		fmt.Fprintf(&b, "line %d: ", p.Line)
+	} else if w := p.Where(); w != "" {
+		b.WriteString(w + ": ")
 	}
 	if p.Field != "" {
 		fmt.Fprintf(&b, "%s %s", map[bool]string{true: "column", false: "option"}[file != ""], p.Field)

@@ -36,6 +36,7 @@ type analyzeOptions struct {
 	format       string
 	standardized bool
 	baseline     int
+	sheet        string
 }
 
 func runAnalyze(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
@@ -56,10 +57,12 @@ func runAnalyze(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	})
 	fs.IntVar(&o.baseline, "baseline", 0, "estimate the centre (and σ_z) from the first `N` lots only, then judge every lot\nagainst those limits as if frozen; 0 uses all lots (trial limits)")
 	fs.StringVar(&o.format, "format", "text", "the output: `text`, json or csv")
+	fs.StringVar(&o.sheet, "sheet", "", "the worksheet of an XLSX file, `NAME` (default the first)")
 	fs.BoolVar(&o.standardized, "standardized", false, "plot the standardized values z with limits in z units")
 	help := cliHelp(fs, `Usage: lotwatch analyze [options] FILE.csv
 
-Reads inspected lots from FILE.csv (- reads standard input) and prints the
+Reads inspected lots from FILE.csv (separated by commas, semicolons or
+tabs) or from an XLSX workbook (- reads standard input) and prints the
 control chart: the centre line, each lot's limits (they differ lot by lot when
 the number inspected varies), its standardized value z, the lots outside the
 limits, the run-rule signals, and warnings about the data (poor normal
@@ -98,7 +101,7 @@ Options:
 		defer f.Close()
 		in = f
 	}
-	lots, chart, bad := readAnalyzeLots(file, in, cfg.Chart)
+	lots, chart, bad := readAnalyzeLots(file, in, lotcsv.Options{Chart: cfg.Chart, Sheet: o.sheet})
 	if len(bad) > 0 {
 		for _, p := range bad {
 			fmt.Fprintln(stderr, p)
@@ -229,14 +232,21 @@ func checkStandardCenter(chart spc.Chart, v float64) error {
 	return nil
 }
 
-// readAnalyzeLots reads and checks every lot of a file. It returns one
-// line per problem, naming the file, line, column and value.
-func readAnalyzeLots(file string, r io.Reader, chart spc.Chart) ([]spc.Lot, spc.Chart, []string) {
+// readAnalyzeLots reads and checks every lot of a file (columns other than
+// the lot's are skipped: analyze reads no categories). It returns one
+// line per problem, naming the file, line (or SHEET!ROW), column and value.
+func readAnalyzeLots(file string, r io.Reader, opt lotcsv.Options) ([]spc.Lot, spc.Chart, []string) {
 	var bad []string
 	say := func(p lotcsv.Problem) {
+		if p.Sheet != "" {
+			bad = append(bad, file+":"+p.String())
+			return
+		}
 		bad = append(bad, file+": "+p.String())
 	}
-	rd, err := lotcsv.NewReader(r, lotcsv.Options{Chart: chart})
+	chart := opt.Chart
+	opt.IgnoreUnknown = true
+	rd, err := lotcsv.NewReader(r, opt)
 	if err != nil {
 		var ps lotcsv.Problems
 		if errors.As(err, &ps) {
@@ -269,7 +279,7 @@ func readAnalyzeLots(file string, r io.Reader, chart spc.Chart) ([]spc.Lot, spc.
 			break
 		}
 		if first, dup := seen[row.Lot]; dup {
-			say(lotcsv.Problem{Line: row.Line, Field: lotcsv.ColLot, Value: row.Lot, Reason: fmt.Sprintf("appears twice (first on line %d)", first)})
+			say(lotcsv.Problem{Line: row.Line, Sheet: rd.Sheet(), Field: lotcsv.ColLot, Value: row.Lot, Reason: fmt.Sprintf("appears twice (first on line %d)", first)})
 			continue
 		}
 		seen[row.Lot] = row.Line
@@ -280,9 +290,9 @@ func readAnalyzeLots(file string, r io.Reader, chart spc.Chart) ([]spc.Lot, spc.
 				if field != lotcsv.ColInspected {
 					field = rd.CountColumn()
 				}
-				say(lotcsv.Problem{Line: row.Line, Field: field, Value: fe.Value, Reason: fe.Reason})
+				say(lotcsv.Problem{Line: row.Line, Sheet: rd.Sheet(), Field: field, Value: fe.Value, Reason: fe.Reason})
 			} else {
-				say(lotcsv.Problem{Line: row.Line, Reason: err.Error()})
+				say(lotcsv.Problem{Line: row.Line, Sheet: rd.Sheet(), Reason: err.Error()})
 			}
 			continue
 		}

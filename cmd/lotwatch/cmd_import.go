@@ -18,15 +18,16 @@ import (
 func init() {
 	register(command{
 		name:    "import",
-		summary: "read a CSV or JSON file of lots into a process (all or nothing)",
+		summary: "read a CSV, XLSX or JSON file of lots into a process (all or nothing)",
 		run:     runImport,
 	})
 }
 
 const importHelp = `Usage: lotwatch import --db FILE --process NAME [options] FILE.csv
+       lotwatch import --db FILE --process NAME [--sheet NAME] [options] FILE.xlsx
        lotwatch import --db FILE [--process NAME] [options] FILE.json
 
-Reads a CSV file of lots into a process. The whole file is checked first:
+Reads a CSV file or an XLSX workbook of lots into a process. The whole file is checked first:
 if any row is wrong, every problem is listed with its line and nothing is
 written. Importing the same file again adds nothing. A lot code already
 stored with other values is a problem like any other (exit 2, each one
@@ -43,10 +44,22 @@ Columns (header names in any letter case, in any order):
              the process's time zone; without it the lot gets the import time
   shift, inspector, note   optional text
   any other column named like one of the process's defect categories holds
-  that category's count; other columns are ignored
+  that category's count; any other column is refused (with the nearest
+  known name) unless --ignore-columns names it
+The fields may be separated by commas, semicolons or tabs (found from the
+header line). In a file separated by semicolons a comma in a number is a
+decimal comma: counts are whole numbers, so it is refused as a fraction.
+Times written day-first or month-first (05.03.2025 14:30, 03/05/2025 14:30)
+are read only when the process names its date order (lotwatch process
+update --date-order); they are never guessed.
 The file may be UTF-8 with or without a byte-order mark, with CRLF line
 ends and quoted fields. A leading single quote that lotwatch's export put
 before text starting with = + - @ tab or CR is removed again.
+
+An XLSX workbook is read from its first worksheet (or --sheet NAME) with
+the same columns in its first row; numbers may be stored as numbers or as
+text, times as spreadsheet dates (read in the process's time zone) or as
+text. Problems are named FILE:SHEET!ROW.
 
 A JSON file is what "lotwatch export --format json" writes: an object
 {"process": {"name", "chart", "categories", "time_zone"}, "lots": [...]},
@@ -63,8 +76,11 @@ Options:
                    categories from the extra columns
   --tz ZONE        time zone of a process made with --create (default UTC,
                    or for JSON the file's)
-  --format F       csv or json (default: json for a FILE ending in .json,
-                   else csv)
+  --format F       csv, xlsx or json (default: json for a FILE ending in
+                   .json, else csv or xlsx as the file's first bytes show)
+  --sheet NAME     the worksheet of an XLSX file (default the first)
+  --ignore-columns A,B
+                   columns of the file to skip on purpose (header names)
   --as NAME        the name recorded in the audit trail (default: your user
                    name on this computer)
   --skip-conflicts import the other lots of a file in which some lot codes
@@ -89,6 +105,8 @@ func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	as := fs.String("as", "", "")
 	format := fs.String("format", "", "")
 	skip := fs.Bool("skip-conflicts", false, "")
+	sheet := fs.String("sheet", "", "")
+	ignore := fs.String("ignore-columns", "", "")
 	pos, code, done := cliParse(fs, args, importHelp, stdout, stderr)
 	if done {
 		return code
@@ -101,14 +119,14 @@ func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	}
 	probs := cliRequire("import", "db", *dbPath)
 	switch *format {
-	case "csv":
+	case "csv", "xlsx":
 		probs = append(probs, cliRequire("import", "process", *process)...)
 		if *tz == "" {
 			*tz = "UTC"
 		}
 	case "json":
 	default:
-		probs = append(probs, fmt.Sprintf("--format %q: want csv or json", *format))
+		probs = append(probs, fmt.Sprintf("--format %q: want csv, xlsx or json", *format))
 	}
 	switch len(pos) {
 	case 0:
@@ -138,7 +156,7 @@ func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		return code
 	}
 	defer db.Close()
-	opt := store.ImportOptions{Process: *process, Create: *create, TimeZone: *tz, Format: *format, SkipConflicts: *skip}
+	opt := store.ImportOptions{Process: *process, Create: *create, TimeZone: *tz, Format: *format, SkipConflicts: *skip, Sheet: *sheet, Ignore: splitList(*ignore)}
 	var progressShown bool
 	if f, ok := stderr.(*os.File); ok && term.IsTerminal(int(f.Fd())) {
 		last := time.Now()
@@ -191,6 +209,18 @@ func storedOtherwise(err error) bool {
 		}
 	}
 	return false
+}
+
+// splitList splits a comma-separated list of names, trimmed, leaving out
+// empty ones.
+func splitList(s string) []string {
+	var out []string
+	for _, v := range strings.Split(s, ",") {
+		if v = strings.TrimSpace(v); v != "" {
+			out = append(out, v)
+		}
+	}
+	return out
 }
 
 func plural(n int, one, many string) string {

@@ -32,6 +32,7 @@ package lotcsv
 
 import (
 	"bufio"
+	"bytes"
 	"encoding/csv"
 	"errors"
 	"fmt"
@@ -52,12 +53,27 @@ type Problem struct {
 	Field  string
 	Value  string
 	Reason string
+	// Sheet is the worksheet of a spreadsheet file; Line is then its
+	// row number (written SHEET!ROW).
+	Sheet string
+}
+
+// Where is the place of the problem in the file: "line 5", "Lots!5" for
+// a row of a worksheet, or "" when there is no line.
+func (p Problem) Where() string {
+	switch {
+	case p.Line <= 0:
+		return ""
+	case p.Sheet != "":
+		return fmt.Sprintf("%s!%d", p.Sheet, p.Line)
+	}
+	return fmt.Sprintf("line %d", p.Line)
 }
 
 func (p Problem) String() string {
 	var b strings.Builder
-	if p.Line > 0 {
-		fmt.Fprintf(&b, "line %d: ", p.Line)
+	if w := p.Where(); w != "" {
+		b.WriteString(w + ": ")
 	}
 	if p.Field != "" {
 		b.WriteString(p.Field)
@@ -103,7 +119,30 @@ type Options struct {
 	// MaxProblems caps the problems kept by the reader (Problems); more
 	// are only counted (MoreProblems). 0 means 100.
 	MaxProblems int
+	// DateOrder reads local dates written day-first (DateDayFirst:
+	// 05.03.2024 14:30, 05/03/2024 14:30) or month-first (DateMonthFirst:
+	// 03/05/2024 14:30). Empty refuses them: the order is never guessed.
+	DateOrder string
+	// Columns maps the plant's own header names (any letter case) to
+	// lotwatch's columns or to categories of the process, e.g.
+	// "Qty inspected" → "inspected".
+	Columns map[string]string
+	// Ignore names columns to skip on purpose. Any other column that is
+	// neither a lotwatch column nor a category is refused, so that no
+	// count is dropped by a misspelt header.
+	Ignore []string
+	// IgnoreUnknown skips every unknown column (for analyze, which reads
+	// no categories).
+	IgnoreUnknown bool
+	// Sheet is the worksheet of a spreadsheet file; empty reads the first.
+	Sheet string
 }
+
+// The date orders of Options.DateOrder.
+const (
+	DateDayFirst   = "day-first"
+	DateMonthFirst = "month-first"
+)
 
 // Row is one lot as read from the file.
 type Row struct {
@@ -132,7 +171,7 @@ const (
 
 // Reader reads rows of a lot file.
 type Reader struct {
-	cr   *csv.Reader
+	src  records
 	opt  Options
 	loc  *time.Location
 	cols []column // by position
@@ -143,6 +182,9 @@ type Reader struct {
 	ignored    []string
 	ncols      int
 	done       bool
+	// delim is the field separator found in the header (0 for a
+	// spreadsheet); a semicolon file writes fractions with a decimal comma.
+	delim rune
 
 	problems []Problem
 	more     int
@@ -170,42 +212,133 @@ type column struct {
 
 var bom = []byte{0xEF, 0xBB, 0xBF}
 
-// NewReader reads the header of a lot file from r. A bad header is an
-// error of type Problems naming the column.
+// records are the rows of a lot file with their place in it.
+type records interface {
+	// Read returns the next record, io.EOF at the end.
+	Read() ([]string, error)
+	// Line is the line (or row) where field i of the last record starts.
+	Line(i int) int
+	// Sheet is the worksheet name of a spreadsheet ("" for CSV).
+	Sheet() string
+}
+
+// csvRecords are the records of a CSV file.
+type csvRecords struct{ cr *csv.Reader }
+
+func (c csvRecords) Read() ([]string, error) { return c.cr.Read() }
+func (c csvRecords) Line(i int) int          { l, _ := c.cr.FieldPos(i); return l }
+func (c csvRecords) Sheet() string           { return "" }
+
+// delimiters are the field separators a lot file may use, in the order
+// they are preferred when a header splits on several.
+var delimiters = []rune{',', ';', '\t'}
+
+// NewReader reads the header of a lot file from r: CSV separated by
+// commas, semicolons or tabs (found from the header line), or an XLSX
+// workbook (found from its first bytes; see NewXLSXReader). A bad header
+// is an error of type Problems naming the column.
 func NewReader(r io.Reader, opt Options) (*Reader, error) {
 	br := bufio.NewReaderSize(r, 64<<10)
+	if b, err := br.Peek(len(zipMagic)); err == nil && string(b) == zipMagic {
+		return NewXLSXReader(br, opt)
+	}
 	if b, err := br.Peek(3); err == nil && string(b) == string(bom) {
 		br.Discard(3)
 	}
+	delim, err := headerDelimiter(br)
+	if err != nil {
+		return nil, err
+	}
 	cr := csv.NewReader(br)
+	cr.Comma = delim
 	cr.ReuseRecord = true
 	cr.FieldsPerRecord = -1
-	rd := &Reader{cr: cr, opt: opt, loc: opt.Location, has: map[string]bool{}}
+	return newReader(csvRecords{cr}, delim, opt)
+}
+
+// headerDelimiter finds the separator of the header line: the one of
+// comma, semicolon and tab found most often outside quotes. A header on
+// none of them is a problem that shows the header as read.
+func headerDelimiter(br *bufio.Reader) (rune, error) {
+	b, _ := br.Peek(br.Size())
+	if i := bytes.IndexByte(b, '\n'); i >= 0 {
+		b = b[:i]
+	}
+	line := strings.TrimRight(string(b), "\r")
+	counts := map[rune]int{}
+	quoted := false
+	for _, c := range line {
+		if c == '"' {
+			quoted = !quoted
+		} else if !quoted {
+			counts[c]++
+		}
+	}
+	best := delimiters[0]
+	for _, d := range delimiters {
+		if counts[d] > counts[best] {
+			best = d
+		}
+	}
+	if counts[best] > 0 || strings.TrimSpace(line) == "" {
+		return best, nil
+	}
+	shown := strings.ToValidUTF8(line, "\uFFFD")
+	if len(shown) > 80 {
+		shown = shown[:80] + "…"
+	}
+	return 0, Problems{{Line: 1, Value: shown, Reason: "is the header, and it does not split into columns: lotwatch tried a comma, a semicolon and a tab as the separator (the header names lot, inspected, and defective or defects)"}}
+}
+
+func newReader(src records, delim rune, opt Options) (*Reader, error) {
+	rd := &Reader{src: src, opt: opt, loc: opt.Location, has: map[string]bool{}, delim: delim}
 	if rd.loc == nil {
 		rd.loc = time.UTC
 	}
 	if rd.opt.MaxProblems <= 0 {
 		rd.opt.MaxProblems = 100
 	}
-	head, err := cr.Read()
+	head, err := src.Read()
 	if err == io.EOF {
-		return nil, Problems{{Line: 1, Reason: "the file is empty: it needs a header line naming the columns (lot, inspected, defective or defects, …)"}}
+		return nil, rd.stamp(Problems{{Line: 1, Reason: "the file is empty: it needs a header line naming the columns (lot, inspected, defective or defects, …)"}})
 	}
 	if err != nil {
-		return nil, csvProblem(err)
+		return nil, rd.stamp(csvProblem(err))
 	}
 	if err := rd.header(head); err != nil {
-		return nil, err
+		return nil, rd.stamp(err.(Problems))
 	}
 	return rd, nil
 }
 
+// stamp names the worksheet in problems of a spreadsheet.
+func (rd *Reader) stamp(ps Problems) Problems {
+	if sh := rd.src.Sheet(); sh != "" {
+		for i := range ps {
+			ps[i].Sheet = sh
+		}
+	}
+	return ps
+}
+
+// Sheet is the worksheet read from a spreadsheet file ("" for CSV).
+// Callers naming a row's problems set Problem.Sheet to it.
+func (rd *Reader) Sheet() string { return rd.src.Sheet() }
+
 func (rd *Reader) header(head []string) error {
 	var ps Problems
-	line, _ := rd.cr.FieldPos(0)
+	line := rd.src.Line(0)
 	cats := map[string]string{}
 	for _, c := range rd.opt.Categories {
 		cats[strings.ToLower(strings.TrimSpace(c))] = c
+	}
+	mapped := map[string]string{}
+	for from, to := range rd.opt.Columns {
+		mapped[strings.ToLower(strings.TrimSpace(from))] = strings.ToLower(strings.TrimSpace(to))
+	}
+	ignore := map[string]bool{}
+	for _, c := range rd.opt.Ignore {
+		ignore[strings.ToLower(strings.TrimSpace(c))] = true
 	}
 	seen := map[string]int{}
 	rd.ncols = len(head)
@@ -227,8 +360,22 @@ func (rd *Reader) header(head []string) error {
 			rd.cols = append(rd.cols, column{})
 			continue
 		}
+		ign := ignore[key]
+		if to, ok := mapped[key]; ok && !ign {
+			key = to
+			if j, dup := seen[key]; dup {
+				ps = append(ps, Problem{Line: line, Field: name, Value: key, Reason: fmt.Sprintf("is mapped to a column the header already has (column %d)", j+1)})
+				rd.cols = append(rd.cols, column{})
+				continue
+			}
+		}
 		seen[key] = i
 		col := column{name: name}
+		if ign {
+			rd.ignored = append(rd.ignored, name)
+			rd.cols = append(rd.cols, col)
+			continue
+		}
 		switch key {
 		case ColLot:
 			col.kind = kindLot
@@ -250,10 +397,13 @@ func (rd *Reader) header(head []string) error {
 			} else if rd.opt.CategoriesFromHeader {
 				col.kind, col.cat = kindCategory, name
 			}
-			if col.kind == kindCategory {
+			switch {
+			case col.kind == kindCategory:
 				rd.categories = append(rd.categories, col.cat)
-			} else {
+			case rd.opt.IgnoreUnknown:
 				rd.ignored = append(rd.ignored, name)
+			default:
+				ps = append(ps, rd.unknown(line, name))
 			}
 		}
 		if col.kind != kindIgnore && col.kind != kindCategory {
@@ -298,6 +448,61 @@ func (rd *Reader) header(head []string) error {
 	return nil
 }
 
+// unknown is the problem of a column that is neither a lotwatch column
+// nor a category of the process: refused, so that a misspelt category
+// does not drop its counts, with the nearest known name as a hint.
+func (rd *Reader) unknown(line int, name string) Problem {
+	known := []string{ColLot, ColTime, ColShift, ColInspected, ColDefective, ColDefects, ColInspector, ColNote}
+	known = append(known, rd.opt.Categories...)
+	reason := "is neither a lotwatch column nor a defect category of the process"
+	if near := Nearest(name, known); near != "" {
+		reason += fmt.Sprintf(" (did you mean %s?)", near)
+	}
+	reason += "; rename or map it, or ignore it on purpose"
+	return Problem{Line: line, Field: name, Reason: reason}
+}
+
+// Nearest is the name of known closest to name by edit distance (letter
+// case aside), when it is close enough to be a likely misspelling: at
+// most a third of the letters differ (two at least). "" when none is.
+func Nearest(name string, known []string) string {
+	a := strings.ToLower(name)
+	best, bestD := "", -1
+	for _, k := range known {
+		d := editDistance(a, strings.ToLower(k))
+		if bestD < 0 || d < bestD {
+			best, bestD = k, d
+		}
+	}
+	if bestD < 0 || bestD > max(2, utf8.RuneCountInString(a)/3) {
+		return ""
+	}
+	return best
+}
+
+// editDistance is the Levenshtein distance between a and b in letters
+// (insertions, deletions and substitutions, each counting one).
+func editDistance(a, b string) int {
+	ra, rb := []rune(a), []rune(b)
+	prev := make([]int, len(rb)+1)
+	cur := make([]int, len(rb)+1)
+	for j := range prev {
+		prev[j] = j
+	}
+	for i := 1; i <= len(ra); i++ {
+		cur[0] = i
+		for j := 1; j <= len(rb); j++ {
+			cost := 1
+			if ra[i-1] == rb[j-1] {
+				cost = 0
+			}
+			cur[j] = min(prev[j]+1, cur[j-1]+1, prev[j-1]+cost)
+		}
+		prev, cur = cur, prev
+	}
+	return prev[len(rb)]
+}
+
 // CountColumn is the count column found: "defective" or "defects".
 func (rd *Reader) CountColumn() string { return rd.countCol }
 
@@ -310,7 +515,8 @@ func (rd *Reader) Has(name string) bool { return rd.has[name] }
 // Options.Categories (or as in the header with CategoriesFromHeader).
 func (rd *Reader) Categories() []string { return rd.categories }
 
-// Ignored are the header names of the columns the reader skips.
+// Ignored are the header names of the columns the reader skips (named in
+// Options.Ignore, or any unknown one with Options.IgnoreUnknown).
 func (rd *Reader) Ignored() []string { return rd.ignored }
 
 // Problems are the problems found so far, at most Options.MaxProblems.
@@ -338,7 +544,7 @@ func (rd *Reader) Next() (Row, error) {
 	if rd.done {
 		return Row{}, io.EOF
 	}
-	rec, err := rd.cr.Read()
+	rec, err := rd.src.Read()
 	if err == io.EOF {
 		rd.done = true
 		return Row{}, io.EOF
@@ -353,7 +559,7 @@ func (rd *Reader) Next() (Row, error) {
 		}
 		return Row{}, err
 	}
-	line, _ := rd.cr.FieldPos(0)
+	line := rd.src.Line(0)
 	row := Row{Line: line}
 	var ps Problems
 	if len(rec) != rd.ncols {
@@ -367,7 +573,7 @@ func (rd *Reader) Next() (Row, error) {
 		if col.kind == kindIgnore {
 			continue
 		}
-		fl, _ := rd.cr.FieldPos(i)
+		fl := rd.src.Line(i)
 		if !utf8.ValidString(v) {
 			ps = append(ps, Problem{Line: fl, Field: col.name, Value: strings.ToValidUTF8(v, "\uFFFD"), Reason: "is not valid UTF-8 text"})
 			continue
@@ -385,13 +591,13 @@ func (rd *Reader) Next() (Row, error) {
 		case kindNote:
 			row.Note = Restore(v)
 		case kindTime:
-			t, err := ParseTime(v, rd.loc)
+			t, err := rd.parseTime(v, i)
 			if err != nil {
 				ps = append(ps, Problem{Line: fl, Field: col.name, Value: v, Reason: err.Error()})
 			}
 			row.Time = t
 		case kindInspected, kindCount:
-			n, err := ParseCount(v)
+			n, err := parseCount(v, rd.delim == ';')
 			if err != nil {
 				ps = append(ps, Problem{Line: fl, Field: col.name, Value: v, Reason: err.Error()})
 			}
@@ -404,7 +610,7 @@ func (rd *Reader) Next() (Row, error) {
 			if strings.TrimSpace(v) == "" {
 				continue // not recorded
 			}
-			n, err := ParseCount(v)
+			n, err := parseCount(v, rd.delim == ';')
 			if err != nil {
 				ps = append(ps, Problem{Line: fl, Field: col.name, Value: v, Reason: err.Error()})
 				continue
@@ -416,10 +622,22 @@ func (rd *Reader) Next() (Row, error) {
 		}
 	}
 	if len(ps) > 0 {
+		ps = rd.stamp(ps)
 		rd.keep(ps)
 		return row, ps
 	}
 	return row, nil
+}
+
+// parseTime reads the time of field i: a spreadsheet date (from an XLSX
+// file) or text in the forms of ParseLocalTime.
+func (rd *Reader) parseTime(v string, i int) (time.Time, error) {
+	if x, ok := rd.src.(*xlsxRecords); ok {
+		if t, ok, err := x.date(i, rd.loc); ok {
+			return t, err
+		}
+	}
+	return ParseLocalTime(v, rd.loc, rd.opt.DateOrder)
 }
 
 func csvProblem(err error) Problems {
@@ -442,7 +660,12 @@ func csvProblem(err error) Problems {
 // ParseCount reads a whole number: optional minus sign and decimal digits
 // only, surrounding spaces ignored. Fractions, exponents, thousands
 // separators and numbers beyond int64 are errors saying so.
-func ParseCount(s string) (int64, error) {
+func ParseCount(s string) (int64, error) { return parseCount(s, false) }
+
+// parseCount is ParseCount; with decimalComma (a semicolon-separated
+// file, as spreadsheets write where the comma marks fractions) a comma is
+// read as a decimal mark and a point as a thousands separator.
+func parseCount(s string, decimalComma bool) (int64, error) {
 	t := strings.TrimSpace(s)
 	if t == "" {
 		return 0, errors.New("is empty: a whole number is needed")
@@ -452,6 +675,14 @@ func ParseCount(s string) (int64, error) {
 		c := digits[i]
 		if c >= '0' && c <= '9' {
 			continue
+		}
+		if decimalComma && i > 0 {
+			switch c {
+			case ',':
+				return 0, errors.New("is not a whole number (no fractions; in a file separated by semicolons the comma is read as a decimal comma)")
+			case '.':
+				return 0, errors.New("is not a whole number (write it without thousands separators)")
+			}
 		}
 		switch {
 		case c == '.' && i > 0:
@@ -483,6 +714,35 @@ const LocalLayout = "2006-01-02 15:04"
 // ParseTime reads an RFC 3339 time (with offset) or YYYY-MM-DD HH:MM in loc.
 // An empty cell is the zero time.
 func ParseTime(s string, loc *time.Location) (time.Time, error) {
+	return ParseLocalTime(s, loc, "")
+}
+
+// localForms are the day-first layouts (Go reference time: day 2, month
+// 1) with points, slashes or hyphens between the parts, one or two digits
+// for day, month and hour, with or without seconds.
+var localForms = func() []string {
+	var out []string
+	for _, sep := range []string{".", "/", "-"} {
+		for _, sec := range []string{"", ":05"} {
+			out = append(out, "2"+sep+"1"+sep+"2006 15:04"+sec)
+		}
+	}
+	return out
+}()
+
+// monthFirst turns a day-first layout into the month-first one.
+func monthFirst(layout string) string {
+	sep := layout[1:2]
+	return "1" + sep + "2" + layout[3:]
+}
+
+// ParseLocalTime reads an RFC 3339 time (with offset), YYYY-MM-DD HH:MM
+// (seconds optional) in loc, and, when order is DateDayFirst or
+// DateMonthFirst, the local forms such as 05.03.2024 14:30 or
+// 03/05/2024 14:30 in that order. A local form without an order is
+// refused: 05/03/2024 is 5 March in one plant and 3 May in another.
+// An empty cell is the zero time.
+func ParseLocalTime(s string, loc *time.Location, order string) (time.Time, error) {
 	t := strings.TrimSpace(s)
 	if t == "" {
 		return time.Time{}, nil
@@ -493,8 +753,25 @@ func ParseTime(s string, loc *time.Location) (time.Time, error) {
 	if loc == nil {
 		loc = time.UTC
 	}
-	if tt, err := time.ParseInLocation(LocalLayout, t, loc); err == nil {
-		return tt, nil
+	for _, layout := range []string{LocalLayout, LocalLayout + ":05", "2006-01-02T15:04:05", "2006-01-02T15:04"} {
+		if tt, err := time.ParseInLocation(layout, t, loc); err == nil {
+			return tt, nil
+		}
+	}
+	for _, layout := range localForms {
+		dmy, errD := time.ParseInLocation(layout, t, loc)
+		mdy, errM := time.ParseInLocation(monthFirst(layout), t, loc)
+		switch {
+		case errD != nil && errM != nil:
+			continue
+		case order == DateDayFirst && errD == nil:
+			return dmy, nil
+		case order == DateMonthFirst && errM == nil:
+			return mdy, nil
+		case order == DateDayFirst || order == DateMonthFirst:
+			return time.Time{}, fmt.Errorf("is not a date written %s (the process's date order)", order)
+		}
+		return time.Time{}, errors.New("is a date written day-first or month-first, and lotwatch does not guess which: set the process's date order (day-first or month-first), or write YYYY-MM-DD HH:MM")
 	}
 	return time.Time{}, errors.New("is not a time: write RFC 3339 (2024-03-05T14:30:00+01:00) or YYYY-MM-DD HH:MM in the plant's time zone")
 }

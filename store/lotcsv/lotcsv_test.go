@@ -118,14 +118,16 @@ func TestHeaderProblems(t *testing.T) {
 	if _, err := NewReader(strings.NewReader(""), Options{}); err == nil {
 		t.Error("empty file accepted")
 	}
-	rd, err := NewReader(strings.NewReader("lot,inspected,defects,colour\n"), Options{})
-	if err != nil {
-		t.Fatal(err)
+	for _, opt := range []Options{{Ignore: []string{"COLOUR"}}, {IgnoreUnknown: true}} {
+		rd, err := NewReader(strings.NewReader("lot,inspected,defects,colour\n"), opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if rd.CountColumn() != "defects" || len(rd.Ignored()) != 1 || rd.Ignored()[0] != "colour" {
+			t.Errorf("CountColumn %q, Ignored %v", rd.CountColumn(), rd.Ignored())
+		}
 	}
-	if rd.CountColumn() != "defects" || len(rd.Ignored()) != 1 || rd.Ignored()[0] != "colour" {
-		t.Errorf("CountColumn %q, Ignored %v", rd.CountColumn(), rd.Ignored())
-	}
-	rd, err = NewReader(strings.NewReader("lot,inspected,defects,Colour\n"), Options{CategoriesFromHeader: true})
+	rd, err := NewReader(strings.NewReader("lot,inspected,defects,Colour\n"), Options{CategoriesFromHeader: true})
 	if err != nil {
 		t.Fatal(err)
 	}
