@@ -44,6 +44,10 @@ func (p Problem) String() string { return lotcsv.Problem(p).String() }
 // "" when there is no line.
 func (p Problem) Where() string { return lotcsv.Problem(p).Where() }
 
+// UnknownColumn reports whether p refuses a column of the file that is
+// neither a lot column nor a category (see lotcsv.Problem.UnknownColumn).
+func (p Problem) UnknownColumn() bool { return lotcsv.Problem(p).UnknownColumn() }
+
 // fileProblems are the lot file reader's problems as the store's.
 func fileProblems(ps lotcsv.Problems) []Problem {
 	out := make([]Problem, len(ps))

@@ -37,6 +37,13 @@ type Process struct {
 	Area    string
 	Active  bool // false once retired
 	Created time.Time
+	// ColumnMap maps the plant's own lot-file headers (any letter case) to
+	// lotwatch's columns or the process's categories, e.g.
+	// "Qty inspected" → "inspected". Empty when none.
+	ColumnMap map[string]string
+	// DateOrder is how the plant writes local dates: "" (only
+	// YYYY-MM-DD), lotcsv.DateDayFirst or lotcsv.DateMonthFirst.
+	DateOrder string
 }
 
 var locCache sync.Map // zone name → *time.Location
@@ -64,7 +71,52 @@ func (p Process) Location() *time.Location {
 // ReadOptions are the options for reading a lot file of the process:
 // its chart, categories and time zone.
 func (p Process) ReadOptions() lotcsv.Options {
-	return lotcsv.Options{Chart: p.Chart, Categories: p.Categories, Location: p.Location()}
+	return lotcsv.Options{Chart: p.Chart, Categories: p.Categories, Location: p.Location(), Columns: p.ColumnMap, DateOrder: p.DateOrder}
+}
+
+// MapTargets are the names a column map may point a header to: the lot
+// columns and the process's categories.
+func (p Process) MapTargets() []string {
+	t := []string{lotcsv.ColLot, lotcsv.ColTime, lotcsv.ColShift, lotcsv.ColInspected, CountField(p.Chart), lotcsv.ColInspector, lotcsv.ColNote}
+	return append(t, p.Categories...)
+}
+
+// checkColumnMap checks the column map of p and spells each target as
+// MapTargets does: a header is a plain name, not one of lotwatch's own
+// columns nor a category (those are read as they are), given once; a
+// target is a lot column or a category of the process.
+func checkColumnMap(p *Process) []Problem {
+	var ps []Problem
+	targets := map[string]string{}
+	for _, t := range p.MapTargets() {
+		targets[strings.ToLower(t)] = t
+	}
+	cats := map[string]bool{}
+	for _, c := range p.Categories {
+		cats[strings.ToLower(c)] = true
+	}
+	seen := map[string]bool{}
+	out := make(map[string]string, len(p.ColumnMap))
+	for from, to := range p.ColumnMap {
+		key := strings.ToLower(from)
+		t, ok := targets[strings.ToLower(strings.TrimSpace(to))]
+		switch {
+		case from == "" || strings.TrimSpace(from) != from || strings.IndexFunc(from, unicode.IsControl) >= 0 || !utf8.ValidString(from) || len(from) > 100:
+			ps = append(ps, Problem{Field: "map", Value: strings.ToValidUTF8(from, "\uFFFD"), Reason: "is not a header name (1 to 100 bytes, no control characters, no spaces at either end)"})
+		case reservedColumns[key] || cats[key]:
+			ps = append(ps, Problem{Field: "map", Value: from, Reason: "is already a column lotwatch reads; it cannot be mapped"})
+		case seen[key]:
+			ps = append(ps, Problem{Field: "map", Value: from, Reason: "is given twice"})
+		case !ok:
+			ps = append(ps, Problem{Field: "map", Value: from + "=" + to, Reason: fmt.Sprintf("maps to %q, which is not one of %s", to, strings.Join(p.MapTargets(), ", "))})
+		}
+		seen[key] = true
+		out[from] = t
+	}
+	if len(ps) == 0 {
+		p.ColumnMap = out
+	}
+	return ps
 }
 
 var ruleItem = regexp.MustCompile(`^(we[1-8]|nelson[1-8])$`)
@@ -152,6 +204,12 @@ func normalizeProcess(p *Process) []Problem {
 	if p.Categories == nil {
 		p.Categories = []string{}
 	}
+	switch p.DateOrder {
+	case "", lotcsv.DateDayFirst, lotcsv.DateMonthFirst:
+	default:
+		ps = append(ps, Problem{Field: "date-order", Value: p.DateOrder, Reason: "is not day-first or month-first (or empty: YYYY-MM-DD only)"})
+	}
+	ps = append(ps, checkColumnMap(p)...)
 	return ps
 }
 
@@ -166,10 +224,23 @@ type processAudit struct {
 	TimeZone    string    `json:"time_zone"`
 	Active      bool      `json:"active"`
 	Area        string    `json:"area,omitempty"`
+	// Left out when empty, so that entries written before these settings
+	// existed still match their rows.
+	ColumnMap map[string]string `json:"column_map,omitempty"`
+	DateOrder string            `json:"date_order,omitempty"`
 }
 
 func auditProcess(p Process) processAudit {
-	return processAudit{p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Area}
+	return processAudit{p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Area, p.ColumnMap, p.DateOrder}
+}
+
+// columnMapJSON is the stored form of a column map.
+func columnMapJSON(m map[string]string) string {
+	if len(m) == 0 {
+		return "{}"
+	}
+	b, _ := json.Marshal(m)
+	return string(b)
 }
 
 // AddProcess creates an active process. Defaults: limits sigma, k 3,
@@ -204,8 +275,9 @@ func errRetired(p Process) error {
 func (w *wtx) addProcess(actor string, p Process) (Process, error) {
 	cats, _ := json.Marshal(p.Categories)
 	p.Created = w.now.UTC()
-	res, err := w.Exec(`INSERT INTO processes (name, description, chart, method, k, rules, categories, time_zone, active, created, area)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`, p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, w.now.UnixNano(), p.Area)
+	res, err := w.Exec(`INSERT INTO processes (name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`, p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, w.now.UnixNano(), p.Area,
+		columnMapJSON(p.ColumnMap), p.DateOrder)
 	if isUnique(err) {
 		return p, fmt.Errorf("process %q already exists: %w", p.Name, ErrConflict)
 	}
@@ -252,8 +324,9 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 			}
 		}
 		cats, _ := json.Marshal(p.Categories)
-		_, err = w.Exec(`UPDATE processes SET name = ?, description = ?, chart = ?, method = ?, k = ?, rules = ?, categories = ?, time_zone = ?, active = ?, area = ? WHERE id = ?`,
-			p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, p.Area, p.ID)
+		_, err = w.Exec(`UPDATE processes SET name = ?, description = ?, chart = ?, method = ?, k = ?, rules = ?, categories = ?, time_zone = ?, active = ?, area = ?,
+			column_map = ?, date_order = ? WHERE id = ?`,
+			p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, p.Area, columnMapJSON(p.ColumnMap), p.DateOrder, p.ID)
 		if isUnique(err) {
 			return fmt.Errorf("process %q already exists: %w", p.Name, ErrConflict)
 		}
@@ -271,7 +344,7 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 	return p, nil
 }
 
-const processCols = "id, name, description, chart, method, k, rules, categories, time_zone, active, created, area"
+const processCols = "id, name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order"
 
 type queryer interface {
 	QueryRow(query string, args ...any) *sql.Row
@@ -279,13 +352,19 @@ type queryer interface {
 
 func scanProcess(s interface{ Scan(...any) error }) (Process, error) {
 	var p Process
-	var cats string
+	var cats, cmap string
 	var created int64
-	if err := s.Scan(&p.ID, &p.Name, &p.Description, &p.Chart, &p.Method, &p.K, &p.Rules, &cats, &p.TimeZone, &p.Active, &created, &p.Area); err != nil {
+	if err := s.Scan(&p.ID, &p.Name, &p.Description, &p.Chart, &p.Method, &p.K, &p.Rules, &cats, &p.TimeZone, &p.Active, &created, &p.Area, &cmap, &p.DateOrder); err != nil {
 		return Process{}, err
 	}
 	if err := json.Unmarshal([]byte(cats), &p.Categories); err != nil {
 		return Process{}, fmt.Errorf("store: process %d: categories: %w", p.ID, err)
+	}
+	if err := json.Unmarshal([]byte(cmap), &p.ColumnMap); err != nil {
+		return Process{}, fmt.Errorf("store: process %d: column map: %w", p.ID, err)
+	}
+	if len(p.ColumnMap) == 0 {
+		p.ColumnMap = nil
 	}
 	p.Created = fromNanos(created, time.UTC)
 	return p, nil

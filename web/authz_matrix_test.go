@@ -81,6 +81,8 @@ var authzRoutes = map[string]authzRoute{
 	"GET /upload":                                   {min: store.RoleInspector, path: "/upload", ok: 200},
 	"POST /upload":                                  {min: store.RoleInspector, ok: 200, setup: fxUpload},
 	"POST /upload/{key}":                            {min: store.RoleInspector, form: true, writes: true, ok: 200, setup: fxWaitingUpload},
+	"POST /upload/{key}/ignore":                     {min: store.RoleInspector, form: true, ok: 200, setup: fxUnknownColumn("ignore", store.RoleInspector)},
+	"POST /upload/{key}/map":                        {min: store.RoleEngineer, form: true, writes: true, ok: 200, setup: fxUnknownColumn("map", store.RoleEngineer)},
 	"GET /processes/{id}/limits":                    {min: store.RoleEngineer, path: "/processes/{id}/limits", ok: 200},
 	"POST /processes/{id}/limits":                   {min: store.RoleEngineer, path: "/processes/{id}/limits", body: "reason=baseline+of+the+first+lots", form: true, writes: true, ok: 303},
 	"GET /settings/processes":                       {min: store.RoleEngineer, path: "/settings/processes", ok: 200},
@@ -204,6 +206,38 @@ func fxWaitingUpload(m *matrixEnv, t *testing.T, who caller) sent {
 		t.Fatalf("upload as %s: status %d, no confirmation form\n%s", who.name, rec.Code, trim(rec.Body.String()))
 	}
 	return sent{path: k[1]}
+}
+
+var columnsAction = regexp.MustCompile(`action="/upload/([0-9a-f]+)/ignore"`)
+
+// fxUnknownColumn is an upload of who's own session whose file has a
+// column the process does not know, waiting for who to ignore it or map
+// it onto the category dent (action "ignore" or "map").
+func fxUnknownColumn(action string, min store.Role) func(m *matrixEnv, t *testing.T, who caller) sent {
+	return func(m *matrixEnv, t *testing.T, who caller) sent {
+		if who.via != "session" || !who.role.AtLeast(min) {
+			return sent{path: "/upload/00112233445566778899aabbccddeeff/" + action}
+		}
+		m.seq++
+		col := fmt.Sprintf("Grat%05d", m.seq)
+		var b bytes.Buffer
+		mw := multipart.NewWriter(&b)
+		mw.WriteField("process", fmt.Sprint(m.proc.ID))
+		fw, _ := mw.CreateFormFile("file", "plant.csv")
+		fmt.Fprintf(fw, "lot;inspected;defective;%s\nUP%05d;150;2;1\n", col, m.seq)
+		mw.Close()
+		rec := m.do(req{method: "POST", path: "/upload", body: b.String(), cookie: m.cookie(t, who.role),
+			headers: map[string]string{"Sec-Fetch-Site": "same-origin", "Content-Type": mw.FormDataContentType()}})
+		k := columnsAction.FindStringSubmatch(rec.Body.String())
+		if rec.Code != 400 || k == nil {
+			t.Fatalf("upload as %s: status %d, no form for the unknown column\n%s", who.name, rec.Code, trim(rec.Body.String()))
+		}
+		body := url.Values{"ignore": {col}}
+		if action == "map" {
+			body = url.Values{"header": {col}, "target": {"dent"}}
+		}
+		return sent{path: "/upload/" + k[1] + "/" + action, body: body.Encode()}
+	}
 }
 
 func processBody(name, description, reason string) string {

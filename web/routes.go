@@ -59,6 +59,8 @@ func (s *Server) routes() []route {
 		{"POST", "/upload/{key}", store.RoleInspector, s.confirmUpload},
 		{"GET", "/attention", store.RoleViewer, s.worklistPage},
 		{"POST", "/attention/causes", store.RoleInspector, s.postWorklistCauses},
+		{"POST", "/upload/{key}/ignore", store.RoleInspector, s.ignoreColumns},
+		{"POST", "/upload/{key}/map", store.RoleEngineer, s.mapColumns},
 		{"GET", "/review", store.RoleViewer, s.reviewPage},
 		{"GET", "/review/download", store.RoleViewer, s.reviewDownload},
 		{"GET", "/review/review.css", anyone, reviewCSS},

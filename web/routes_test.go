@@ -90,6 +90,8 @@ func TestRouteRoles(t *testing.T) {
 		{"POST", "/upload/0123456789abcdef", func() string { return "" }, true, least(store.RoleInspector, notFound), "/upload/{key}"},
 		{"GET", "/attention?kind=run_rule", nil, false, all(see, ok), "/attention"},
 		{"POST", "/attention/causes", fresh("lot=" + lot + "&cause=cause+%d"), true, least(store.RoleInspector, see), ""},
+		{"POST", "/upload/0123456789abcdef/ignore", func() string { return "ignore=x" }, true, least(store.RoleInspector, notFound), "/upload/{key}/ignore"},
+		{"POST", "/upload/0123456789abcdef/map", func() string { return "header=x&target=lot" }, true, least(store.RoleEngineer, notFound), "/upload/{key}/map"},
 		{"GET", "/review", nil, false, all(see, ok), ""},
 		{"GET", "/review/download?format=json", nil, false, all(see, ok), "/review/download"},
 		{"GET", "/review/review.css", nil, false, all(ok, ok), ""},

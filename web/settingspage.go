@@ -153,6 +153,7 @@ func (s *Server) updateProcess(w http.ResponseWriter, r *http.Request) {
 	f.Proc, f.Editing = old, true
 	p := readProcessForm(r, &f)
 	p.ID = old.ID
+	p.ColumnMap, p.DateOrder = old.ColumnMap, old.DateOrder // not on this form
 	reason := strings.TrimSpace(f.Values["reason"])
 	if reason == "" {
 		f.Problems["reason"] = "is empty: say why the process changes"

@@ -52,6 +52,7 @@ type pendingUpload struct {
 	user      string
 	name      string
 	created   time.Time
+	ignore    []string // columns the user chose to skip on purpose
 }
 
 // uploads holds the pending uploads. Their files live in a folder of
@@ -188,6 +189,15 @@ type uploadData struct {
 	Ignored   []string
 	CountCol  string
 	Cats      []string
+	// unknown columns: the file waits under ColumnsKey for the user to
+	// ignore them (tick boxes) or, for an engineer, to map them onto
+	// Targets and keep the map in the process
+	Unknown    []store.Problem
+	ColumnsKey string
+	Targets    []string
+	CanMap     bool
+	Others     []store.Problem // the header's other problems
+	headerOnly bool            // the problems are the header's
 	// result
 	Result *store.ImportResult
 }
@@ -266,42 +276,138 @@ func (s *Server) postUpload(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	d.Proc, d.FileName = proc, hdr.Filename
-	if err := s.previewFile(r, tmp.Name(), *proc, &d); err != nil {
-		os.Remove(tmp.Name())
+	s.previewAndKeep(w, r, &pendingUpload{path: tmp.Name(), processID: proc.ID, session: who(r).session, user: who(r).user.Name,
+		name: hdr.Filename, created: s.now()}, *proc, d)
+}
+
+// previewAndKeep previews a kept file and answers with the preview. A file
+// that passes waits for its confirmation; one whose only problems are
+// unknown columns waits for the user to ignore or map them; any other
+// problem drops it.
+func (s *Server) previewAndKeep(w http.ResponseWriter, r *http.Request, pu *pendingUpload, p store.Process, d uploadData) {
+	d.Proc, d.FileName = &p, pu.name
+	if err := s.previewFile(r, pu.path, p, pu.ignore, &d); err != nil {
+		os.Remove(pu.path)
 		s.internalError(w, r, err)
 		return
 	}
-	if len(d.Problems) > 0 || d.Rows == 0 {
-		os.Remove(tmp.Name())
-		status := http.StatusBadRequest
+	for _, pr := range d.Problems {
+		if pr.UnknownColumn() {
+			d.Unknown = append(d.Unknown, pr)
+		} else {
+			d.Others = append(d.Others, pr)
+		}
+	}
+	// A header with unknown columns waits: mapping them may also supply
+	// the columns found missing.
+	onlyColumns := d.headerOnly && len(d.Unknown) > 0
+	if (len(d.Problems) > 0 || d.Rows == 0) && !onlyColumns {
+		os.Remove(pu.path)
 		if d.Rows == 0 && len(d.Problems) == 0 {
 			d.Problem = "The file has a header but no lots."
 		}
-		s.render(w, r, status, "upload.html", "Upload a lot file", d)
+		s.render(w, r, http.StatusBadRequest, "upload.html", "Upload a lot file", d)
 		return
 	}
-	key, err := s.uploads.put(&pendingUpload{path: tmp.Name(), processID: proc.ID, session: who(r).session,
-		user: who(r).user.Name, name: hdr.Filename, created: s.now()}, s.now())
+	key, err := s.uploads.put(pu, s.now())
 	if errors.Is(err, errTooManyPreviews) {
-		os.Remove(tmp.Name())
-		d.Key, d.Sample = "", nil
-		fail(http.StatusServiceUnavailable, fmt.Sprintf("%d uploads are waiting for confirmation on the server, the most it keeps. "+
-			"Try again later: an upload waits at most an hour.", s.uploads.maxTotal))
+		os.Remove(pu.path)
+		d.Key, d.Sample, d.Problem = "", nil, fmt.Sprintf("%d uploads are waiting for confirmation on the server, the most it keeps. "+
+			"Try again later: an upload waits at most an hour.", s.uploads.maxTotal)
+		s.render(w, r, http.StatusServiceUnavailable, "upload.html", "Upload a lot file", d)
 		return
 	}
 	if err != nil {
-		os.Remove(tmp.Name())
+		os.Remove(pu.path)
 		s.internalError(w, r, err)
+		return
+	}
+	if onlyColumns {
+		d.ColumnsKey, d.Targets = key, p.MapTargets()
+		d.CanMap = who(r).user.Role.AtLeast(store.RoleEngineer)
+		s.render(w, r, http.StatusBadRequest, "upload.html", "Upload a lot file", d)
 		return
 	}
 	d.Key = key
 	s.render(w, r, http.StatusOK, "upload.html", "Upload a lot file", d)
 }
 
+// takeUpload takes the waiting upload of the path's key for this session
+// and its process, or answers that it is gone.
+func (s *Server) takeUpload(w http.ResponseWriter, r *http.Request) (*pendingUpload, store.Process, bool) {
+	pu, ok := s.uploads.take(chi.URLParam(r, "key"), who(r).session, s.now())
+	if !ok {
+		s.pageError(w, r, http.StatusNotFound, "This upload is no longer waiting (it was imported, it expired after an hour, or it belongs to another session). Upload the file again.")
+		return nil, store.Process{}, false
+	}
+	p, err := s.db.Process(r.Context(), pu.processID)
+	if err != nil {
+		os.Remove(pu.path)
+		s.internalError(w, r, err)
+		return nil, store.Process{}, false
+	}
+	return pu, p, true
+}
+
+// ignoreColumns previews a waiting upload again with the columns ticked
+// to be skipped on purpose (for this file only).
+func (s *Server) ignoreColumns(w http.ResponseWriter, r *http.Request) {
+	pu, p, ok := s.takeUpload(w, r)
+	if !ok {
+		return
+	}
+	r.ParseForm()
+	pu.ignore = append(pu.ignore, r.PostForm["ignore"]...)
+	s.previewAndKeep(w, r, pu, p, uploadData{})
+}
+
+// mapColumns keeps the headers an engineer mapped onto lotwatch's columns
+// or categories in the process's column map (recorded in the audit
+// trail), so that the plant's next files read as they are, and previews
+// the waiting upload again with it.
+func (s *Server) mapColumns(w http.ResponseWriter, r *http.Request) {
+	pu, p, ok := s.takeUpload(w, r)
+	if !ok {
+		return
+	}
+	r.ParseForm()
+	pu.ignore = append(pu.ignore, r.PostForm["ignore"]...)
+	heads, targets := r.PostForm["header"], r.PostForm["target"]
+	m := map[string]string{}
+	for k, v := range p.ColumnMap {
+		m[k] = v
+	}
+	n := 0
+	for i := range heads {
+		if i < len(targets) && targets[i] != "" {
+			m[heads[i]] = targets[i]
+			n++
+		}
+	}
+	d := uploadData{}
+	if n == 0 {
+		s.previewAndKeep(w, r, pu, p, d)
+		return
+	}
+	np := p
+	np.ColumnMap = m
+	np, err := s.db.UpdateProcess(r.Context(), who(r).user.Name, "column map from the upload of "+pu.name, np)
+	switch {
+	case errors.Is(err, store.ErrInvalid):
+		d.Problem = "The map was not kept: " + err.Error()
+		np = p
+	case err != nil:
+		os.Remove(pu.path)
+		s.internalError(w, r, err)
+		return
+	}
+	s.previewAndKeep(w, r, pu, np, d)
+}
+
 // previewSample is how many rows the preview shows.
 const previewSample = 8
 
-func (s *Server) previewFile(r *http.Request, path string, p store.Process, d *uploadData) error {
+func (s *Server) previewFile(r *http.Request, path string, p store.Process, ignore []string, d *uploadData) error {
 	f, err := os.Open(path)
 	if err != nil {
 		return err
@@ -315,12 +421,15 @@ func (s *Server) previewFile(r *http.Request, path string, p store.Process, d *u
 			d.More++
 		}
 	}
-	rd, err := lotcsv.NewReader(f, lotcsv.Options{Chart: p.Chart, Categories: p.Categories, Location: p.Location(), MaxProblems: max})
+	ropt := p.ReadOptions()
+	ropt.MaxProblems, ropt.Ignore = max, ignore
+	rd, err := lotcsv.NewReader(f, ropt)
 	var hps lotcsv.Problems
 	if errors.As(err, &hps) {
 		for _, pr := range hps {
 			add(store.Problem(pr))
 		}
+		d.headerOnly = true
 		return nil
 	}
 	if err != nil {
@@ -360,12 +469,12 @@ func (s *Server) previewFile(r *http.Request, path string, p store.Process, d *u
 			if pr.Field == "defective" || pr.Field == "defects" {
 				pr.Field = rd.CountColumn()
 			}
-			pr.Line = row.Line
+			pr.Line, pr.Sheet = row.Line, rd.Sheet()
 			add(pr)
 			bad = true
 		}
 		if first, dup := seen[row.Lot]; dup {
-			add(store.Problem{Line: row.Line, Field: "lot", Value: row.Lot, Reason: fmt.Sprintf("appears more than once in the file (first on line %d)", first)})
+			add(store.Problem{Line: row.Line, Sheet: rd.Sheet(), Field: "lot", Value: row.Lot, Reason: fmt.Sprintf("appears more than once in the file (first on line %d)", first)})
 			bad = true
 		}
 		seen[row.Lot] = row.Line
@@ -391,24 +500,18 @@ func (s *Server) previewFile(r *http.Request, path string, p store.Process, d *u
 // confirmUpload imports the previewed file with the store's import (all
 // or nothing; it checks everything again).
 func (s *Server) confirmUpload(w http.ResponseWriter, r *http.Request) {
-	pu, ok := s.uploads.take(chi.URLParam(r, "key"), who(r).session, s.now())
+	pu, p, ok := s.takeUpload(w, r)
 	if !ok {
-		s.pageError(w, r, http.StatusNotFound, "This upload is no longer waiting (it was imported, it expired after an hour, or it belongs to another session). Upload the file again.")
 		return
 	}
 	defer os.Remove(pu.path)
-	p, err := s.db.Process(r.Context(), pu.processID)
-	if err != nil {
-		s.internalError(w, r, err)
-		return
-	}
 	f, err := os.Open(pu.path)
 	if err != nil {
 		s.internalError(w, r, err)
 		return
 	}
 	defer f.Close()
-	res, err := s.db.Import(r.Context(), who(r).user.Name, f, store.ImportOptions{Process: p.Name})
+	res, err := s.db.Import(r.Context(), who(r).user.Name, f, store.ImportOptions{Process: p.Name, Ignore: pu.ignore})
 	d := uploadData{Proc: &p, FileName: pu.name}
 	var ve *store.ValidationError
 	switch {

@@ -199,3 +199,60 @@ func TestCLIImportUnknownColumn(t *testing.T) {
 }
 
 func timeParseUTC(s string) (time.Time, error) { return time.Parse("2006-01-02 15:04", s) }
+
+// A process keeps the plant's own headers (process update --map, kept in
+// the audit trail) and its date order; import reads the plant's file with
+// them as it is kept.
+func TestCLIColumnMapAndDateOrder(t *testing.T) {
+	dir := t.TempDir()
+	db := filepath.Join(dir, "lotwatch.db")
+	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "weld", "--categories", "dent", "--tz", "Europe/Berlin", "--as", "qa"); code != exitOK {
+		t.Fatal(errs)
+	}
+	plant := writeFile(t, dir, "plant.csv", "Batch;Date;Qty inspected;Rejects;Dents\nB1;05.03.2026 14:30;200;3;2\n")
+	code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "weld", "--as", "qa", plant)
+	if code != exitUsage || !strings.Contains(errs, "column Batch: is neither") {
+		t.Fatalf("without a map: exit %d %q", code, errs)
+	}
+	bad := []struct{ m, want string }{
+		{"Rejects", `"Rejects" is not HEADER=COLUMN`},
+		{"Rejects=defects", `maps to "defects", which is not one of`}, // a p chart counts defective
+		{"lot=inspected", "is already a column lotwatch reads"},
+		{"Dent=dent", "is already a column lotwatch reads"},
+		{"Rejects=colour", `maps to "colour"`},
+	}
+	for _, b := range bad {
+		code, _, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "weld", "--map", b.m, "--reason", "plant headers", "--as", "qa")
+		if code != exitUsage || !strings.Contains(errs, b.want) {
+			t.Errorf("--map %q: exit %d %q, want %q", b.m, code, errs, b.want)
+		}
+	}
+	code, out, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "weld", "--as", "qa", "--reason", "the plant's own headers",
+		"--map", "Batch=lot, Date=time, Qty inspected=inspected, Rejects=Defective, Dents=dent")
+	if code != exitOK {
+		t.Fatalf("--map: exit %d %q %q", code, out, errs)
+	}
+	code, _, errs = runCLI(t, "", "import", "--db", db, "--process", "weld", "--as", "qa", plant)
+	if code != exitUsage || !strings.Contains(errs, `column Date, value "05.03.2026 14:30"`) || !strings.Contains(errs, "does not guess") {
+		t.Fatalf("without a date order: exit %d %q", code, errs)
+	}
+	if code, _, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "weld", "--as", "qa", "--reason", "dates are day-first", "--date-order", "day-first"); code != exitOK {
+		t.Fatal(errs)
+	}
+	code, out, errs = runCLI(t, "", "import", "--db", db, "--process", "weld", "--as", "qa", plant)
+	if code != exitOK || !strings.Contains(out, "1 added") {
+		t.Fatalf("with the map: exit %d %q %q", code, out, errs)
+	}
+	_, exported, _ := runCLI(t, "", "export", "--db", db, "--process", "weld")
+	// 14:30 on 5 March 2026 in Berlin is CET, UTC+1 (IANA tz database).
+	if !strings.Contains(exported, "B1,2026-03-05T14:30:00+01:00,,200,3,2,,") {
+		t.Errorf("export:\n%s", exported)
+	}
+	_, list, _ := runCLI(t, "", "process", "list", "--db", db, "--format", "json")
+	if !strings.Contains(list, `"Qty inspected": "inspected"`) || !strings.Contains(list, `"Rejects": "defective"`) || !strings.Contains(list, `"date_order": "day-first"`) {
+		t.Errorf("process list: %s", list)
+	}
+	if code, out, errs := runCLI(t, "", "audit", "verify", "--db", db); code != exitOK {
+		t.Errorf("audit verify: %d %q %q", code, out, errs)
+	}
+}

@@ -52,6 +52,15 @@ Options of "add":
   --sigma K          k, the width of the limits in sigmas (default 3)
   --rules SET        run rules: we (Western Electric, the default), nelson,
                      none, or a list such as we1,nelson3
+  --map "HEADER=COLUMN,..."
+                     the plant's own lot-file headers and the lotwatch
+                     column (lot, time, shift, inspected, defective or
+                     defects, inspector, note) or category each one holds,
+                     e.g. "Qty inspected=inspected,Rejects=defective";
+                     import, analyze --process and the upload page use it
+  --date-order ORDER day-first or month-first: how the plant writes local
+                     dates (05.03.2025 14:30); without it only YYYY-MM-DD
+                     is read, as the order is never guessed
   --as NAME          the name recorded in the audit trail (default: your
                      user name on this computer)
 
@@ -59,7 +68,10 @@ Options of "update" (only the options given change; the change and its
 reason go to the audit trail):
   --db FILE, --name NAME   the database and the process to change
   --description TEXT, --area TEXT, --limits METHOD, --sigma K, --rules SET,
-  --tz ZONE          as for "add"
+  --tz ZONE, --date-order ORDER
+                     as for "add" (--date-order "" reads YYYY-MM-DD only)
+  --map "HEADER=COLUMN,..."
+                     the whole new column map ("" removes it)
   --categories LIST  the whole new list of defect categories: categories
                      may be added, but none removed or renamed (the lots
                      keep their counts under them)
@@ -76,6 +88,26 @@ Options of "list":
 Exit status: 0 when done, 2 for bad input (each problem on standard error,
 nothing on standard output), 1 when the database fails.
 `
+
+// parseColumnMap reads --map "HEADER=COLUMN,...": a header may hold
+// spaces but no comma or equals sign. The store checks the names.
+func parseColumnMap(s string) (map[string]string, []string) {
+	if strings.TrimSpace(s) == "" {
+		return nil, nil
+	}
+	m := map[string]string{}
+	var probs []string
+	for _, it := range strings.Split(s, ",") {
+		from, to, ok := strings.Cut(it, "=")
+		from, to = strings.TrimSpace(from), strings.TrimSpace(to)
+		if !ok || from == "" || to == "" {
+			probs = append(probs, fmt.Sprintf("--map: %q is not HEADER=COLUMN (e.g. \"Qty inspected=inspected\")", strings.TrimSpace(it)))
+			continue
+		}
+		m[from] = to
+	}
+	return m, probs
+}
 
 func runProcess(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	if len(args) == 0 {
@@ -107,6 +139,8 @@ func runProcessAdd(args []string, stdout, stderr io.Writer) int {
 	limits := fs.String("limits", "sigma", "")
 	sigma := fs.String("sigma", "3", "")
 	rules := fs.String("rules", "we", "")
+	cmap := fs.String("map", "", "")
+	dateOrder := fs.String("date-order", "", "")
 	as := fs.String("as", "", "")
 	pos, code, done := cliParse(fs, args, processHelp, stdout, stderr)
 	if done {
@@ -114,7 +148,9 @@ func runProcessAdd(args []string, stdout, stderr io.Writer) int {
 	}
 	probs := cliRequire("process add", "db", *dbPath, "name", *name)
 	probs = append(probs, cliNoArgs(pos)...)
-	p := store.Process{Name: *name, Description: *desc, Area: *area, Rules: *rules, TimeZone: *tz}
+	p := store.Process{Name: *name, Description: *desc, Area: *area, Rules: *rules, TimeZone: *tz, DateOrder: *dateOrder}
+	m, mprobs := parseColumnMap(*cmap)
+	p.ColumnMap, probs = m, append(probs, mprobs...)
 	if c, err := spc.ParseChart(*chart); err != nil {
 		probs = append(probs, fmt.Sprintf("--chart %q: want p, np, u or c", *chart))
 	} else {
@@ -169,6 +205,8 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 	retire := fs.Bool("retire", false, "")
 	activate := fs.Bool("activate", false, "")
 	reason := fs.String("reason", "", "")
+	cmap := fs.String("map", "", "")
+	dateOrder := fs.String("date-order", "", "")
 	as := fs.String("as", "", "")
 	pos, code, done := cliParse(fs, args, processHelp, stdout, stderr)
 	if done {
@@ -185,14 +223,16 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 		probs = append(probs, "--retire and --activate exclude each other")
 	}
 	changes := 0
-	for _, f := range []string{"description", "area", "limits", "sigma", "rules", "categories", "tz", "retire", "activate"} {
+	for _, f := range []string{"description", "area", "limits", "sigma", "rules", "categories", "tz", "retire", "activate", "map", "date-order"} {
 		if set[f] {
 			changes++
 		}
 	}
 	if changes == 0 {
-		probs = append(probs, "nothing to change: give --description, --area, --limits, --sigma, --rules, --categories, --tz, --retire or --activate")
+		probs = append(probs, "nothing to change: give --description, --area, --limits, --sigma, --rules, --categories, --tz, --map, --date-order, --retire or --activate")
 	}
+	newMap, mprobs := parseColumnMap(*cmap)
+	probs = append(probs, mprobs...)
 	var method spc.Method
 	if set["limits"] {
 		m, err := spc.ParseMethod(*limits)
@@ -256,6 +296,12 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 			}
 		}
 	}
+	if set["map"] {
+		p.ColumnMap = newMap
+	}
+	if set["date-order"] {
+		p.DateOrder = *dateOrder
+	}
 	if *retire {
 		p.Active = false
 	}
@@ -276,18 +322,20 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 }
 
 type processJSON struct {
-	ID          int64     `json:"id"`
-	Name        string    `json:"name"`
-	Description string    `json:"description"`
-	Chart       spc.Chart `json:"chart"`
-	Limits      string    `json:"limits"`
-	Sigma       float64   `json:"sigma"`
-	Rules       string    `json:"rules"`
-	Categories  []string  `json:"categories"`
-	TimeZone    string    `json:"tz"`
-	Active      bool      `json:"active"`
-	Created     string    `json:"created"`
-	Area        string    `json:"area"`
+	ID          int64             `json:"id"`
+	Name        string            `json:"name"`
+	Description string            `json:"description"`
+	Chart       spc.Chart         `json:"chart"`
+	Limits      string            `json:"limits"`
+	Sigma       float64           `json:"sigma"`
+	Rules       string            `json:"rules"`
+	Categories  []string          `json:"categories"`
+	TimeZone    string            `json:"tz"`
+	Active      bool              `json:"active"`
+	Created     string            `json:"created"`
+	Area        string            `json:"area"`
+	ColumnMap   map[string]string `json:"map,omitempty"`
+	DateOrder   string            `json:"date_order,omitempty"`
 }
 
 func runProcessList(args []string, stdout, stderr io.Writer) int {
@@ -322,7 +370,7 @@ func runProcessList(args []string, stdout, stderr io.Writer) int {
 	if *format == "json" {
 		out := make([]processJSON, 0, len(ps))
 		for _, p := range ps {
-			out = append(out, processJSON{p.ID, p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Created.Format("2006-01-02T15:04:05Z07:00"), p.Area})
+			out = append(out, processJSON{p.ID, p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Created.Format("2006-01-02T15:04:05Z07:00"), p.Area, p.ColumnMap, p.DateOrder})
 		}
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")

@@ -454,13 +454,21 @@ func (rd *Reader) header(head []string) error {
 func (rd *Reader) unknown(line int, name string) Problem {
 	known := []string{ColLot, ColTime, ColShift, ColInspected, ColDefective, ColDefects, ColInspector, ColNote}
 	known = append(known, rd.opt.Categories...)
-	reason := "is neither a lotwatch column nor a defect category of the process"
+	reason := unknownReason
 	if near := Nearest(name, known); near != "" {
 		reason += fmt.Sprintf(" (did you mean %s?)", near)
 	}
 	reason += "; rename or map it, or ignore it on purpose"
 	return Problem{Line: line, Field: name, Reason: reason}
 }
+
+// unknownReason starts the reason of an unknown column's problem.
+const unknownReason = "is neither a lotwatch column nor a defect category of the process"
+
+// UnknownColumn reports whether p is the refusal of an unknown column of
+// the header (Field is then the column's header name), which a user may
+// map or ignore on purpose.
+func (p Problem) UnknownColumn() bool { return strings.HasPrefix(p.Reason, unknownReason) }
 
 // Nearest is the name of known closest to name by edit distance (letter
 // case aside), when it is close enough to be a likely misspelling: at
