@@ -4,6 +4,8 @@ import (
 	"context"
 	"database/sql"
 	"errors"
+	"fmt"
+	"os"
 )
 
 // LotsVersion is the change counter of what a process's chart is drawn
@@ -59,4 +61,23 @@ func (db *DB) AllLotsVersions(ctx context.Context) (map[int64]LotsVersion, error
 		out[id] = v
 	}
 	return out, rows.Err()
+}
+
+// FileSchemaVersion reads the schema version of the database file at
+// path without changing it (no migration is applied): what `lotwatch
+// version --db` reports beside SchemaVersion.
+func FileSchemaVersion(ctx context.Context, path string) (int, error) {
+	if _, err := os.Stat(path); err != nil {
+		return 0, fmt.Errorf("store: %w", err)
+	}
+	f, err := sql.Open("sqlite3", dsn(path, "mode=ro&_query_only=1"))
+	if err != nil {
+		return 0, err
+	}
+	defer f.Close()
+	var v int
+	if err := f.QueryRowContext(ctx, "SELECT COALESCE(MAX(version), 0) FROM schema_migrations").Scan(&v); err != nil {
+		return 0, fmt.Errorf("store: %s is not a lotwatch database: %w", path, err)
+	}
+	return v, nil
 }

@@ -47,6 +47,9 @@ func run(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		return exitUsage
 	}
 	name := args[0]
+	if name == "-version" || name == "--version" {
+		name, args = "version", append([]string{"version"}, args[1:]...)
+	}
 	if name == "help" || name == "-h" || name == "--help" {
 		if len(args) > 1 {
 			if c, ok := commands[args[1]]; ok {
