@@ -299,6 +299,7 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 		s.fail(w, r, err)
 		return
 	}
+	s.obs.LotsAccepted("api", len(stored))
 	pc, err := s.freshChart(r.Context(), p)
 	if err != nil {
 		// The lots are stored; say so even though they cannot be judged.

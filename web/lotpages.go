@@ -277,6 +277,7 @@ func (s *Server) postLot(w http.ResponseWriter, r *http.Request) {
 		s.internalError(w, r, err)
 		return
 	}
+	s.obs.LotsAccepted("form", len(stored))
 	http.Redirect(w, r, "/lots/"+formatID(stored[0].ID)+"?logged=1", http.StatusSeeOther)
 }
 

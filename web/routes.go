@@ -101,7 +101,7 @@ func (s *Server) buildHandler() http.Handler {
 	r := chi.NewRouter()
 	r.Use(middleware.GetHead) // HEAD is answered like GET, with no body
 	for _, rt := range s.routes() {
-		r.Method(rt.method, rt.pattern, s.guard(rt))
+		r.Method(rt.method, rt.pattern, s.observed(rt, s.guard(rt)))
 	}
 	r.NotFound(func(w http.ResponseWriter, r *http.Request) {
 		if isAPI(r) {

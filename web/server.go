@@ -44,6 +44,9 @@ type Config struct {
 
 	// Alerts configures the delivery of alerts (see AlertsConfig).
 	Alerts AlertsConfig
+	// Observer is told what the server does, for monitoring; nil
+	// observes nothing.
+	Observer Observer
 
 	Logger *slog.Logger     // default: slog.Default()
 	Now    func() time.Time // default: time.Now; tests set a fake clock
@@ -67,6 +70,7 @@ type Server struct {
 
 	alerts    *alert.Worker
 	publicURL string
+	obs       Observer
 }
 
 // NewServer checks the configuration and builds the server.
@@ -85,6 +89,10 @@ func NewServer(cfg Config) (*Server, error) {
 		secure: cfg.Secure || cfg.CertFile != "",
 		log:    cfg.Logger,
 		now:    cfg.Now,
+		obs:    cfg.Observer,
+	}
+	if s.obs == nil {
+		s.obs = nopObserver{}
 	}
 	if s.addr == "" {
 		s.addr = "127.0.0.1:8080"

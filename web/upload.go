@@ -529,6 +529,7 @@ func (s *Server) confirmUpload(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	d.Result = &res
+	s.obs.LotsAccepted("upload", res.Added)
 	for _, c := range res.Conflicts {
 		d.Conflicts = append(d.Conflicts, c.String())
 	}

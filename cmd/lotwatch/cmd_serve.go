@@ -5,15 +5,19 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"net"
+	"net/http"
 	"net/url"
 	"os"
 	"os/signal"
 	"strings"
 	"syscall"
+	"time"
 
 	"lotwatch/store"
 	"lotwatch/web"
 	"lotwatch/web/alert"
+	"lotwatch/web/metrics"
 )
 
 func init() {
@@ -36,8 +40,9 @@ func runServe(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	smtpAddr := fs.String("smtp-addr", "", "SMTP server `HOST:PORT` for e-mail alerts (STARTTLS when offered)")
 	smtpFrom := fs.String("smtp-from", "", "sender `address` of e-mail alerts")
 	smtpCreds := fs.String("smtp-credentials", "", "`file` with the SMTP user name on its first line and the password on its second\n(or LOTWATCH_SMTP_USER and LOTWATCH_SMTP_PASSWORD in the environment)")
+	metricsAddr := fs.String("metrics-addr", "", "serve Prometheus metrics at http://`HOST:PORT`/metrics, a listener of its own apart\nfrom the public one (no sign-in: keep it on a private address)")
 	help := cliHelp(fs, `Usage: lotwatch serve --db FILE [--addr 127.0.0.1:8080] [--cert FILE --key FILE] [--proxy-addr LIST]
-                      [--public-url URL] [--smtp-addr HOST:PORT --smtp-from ADDR]
+                      [--public-url URL] [--smtp-addr HOST:PORT --smtp-from ADDR] [--metrics-addr HOST:PORT]
 
 Serves the pages (sign-in, processes, control charts) and the JSON API under
 /api/v1/ until interrupted (SIGINT or SIGTERM); requests in flight are
@@ -98,7 +103,13 @@ Options:
 	if db.ReadOnly() {
 		logger.Warn("the database cannot be written: serving it read-only (pages and charts work, every change is refused)", "db", *dbPath)
 	}
-	srv, err := web.NewServer(web.Config{DB: db, Addr: *addr, CertFile: *cert, KeyFile: *key, Secure: *secure, TrustedProxies: trusted, Logger: logger, Alerts: alerts})
+	cfg := web.Config{DB: db, Addr: *addr, CertFile: *cert, KeyFile: *key, Secure: *secure, TrustedProxies: trusted, Logger: logger, Alerts: alerts}
+	var m *metrics.Metrics
+	if *metricsAddr != "" {
+		m = metrics.New(db, logger)
+		cfg.Observer = m
+	}
+	srv, err := web.NewServer(cfg)
 	if err != nil {
 		db.Close()
 		fmt.Fprintf(stderr, "lotwatch serve: %v\n", err)
@@ -106,6 +117,16 @@ Options:
 	}
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
 	defer stop()
+	if m != nil {
+		m.Watch(srv, logger)
+		stopMetrics, err := serveMetrics(ctx, *metricsAddr, m, logger)
+		if err != nil {
+			db.Close()
+			fmt.Fprintf(stderr, "lotwatch serve: --metrics-addr: %v\n", err)
+			return exitUsage
+		}
+		defer stopMetrics()
+	}
 	serveErr := srv.ListenAndServe(ctx)
 	// Shutdown has waited for every request in flight; only now close the
 	// database, so that no acknowledged write is lost.
@@ -158,4 +179,21 @@ func serveAlerts(publicURL, smtpAddr, smtpFrom, credFile string) (web.AlertsConf
 	}
 	cfg.Mail = m
 	return cfg, ""
+}
+
+// serveMetrics serves the metrics on their own listener until ctx ends;
+// the returned function stops it.
+func serveMetrics(ctx context.Context, addr string, m *metrics.Metrics, log *slog.Logger) (func(), error) {
+	ln, err := net.Listen("tcp", addr)
+	if err != nil {
+		return nil, err
+	}
+	hs := &http.Server{Handler: m.Handler(), ReadHeaderTimeout: 10 * time.Second, WriteTimeout: 60 * time.Second}
+	go hs.Serve(ln)
+	log.Info("lotwatch metrics", "url", "http://"+ln.Addr().String()+"/metrics")
+	go func() {
+		<-ctx.Done()
+		hs.Close()
+	}()
+	return func() { hs.Close() }, nil
 }
