@@ -95,6 +95,7 @@ var authzRoutes = map[string]authzRoute{
 	"POST /admin/users/{name}/active":               {min: store.RoleAdmin, form: true, writes: true, ok: 303, setup: fxUserToDeactivate},
 	"POST /admin/tokens":                            {min: store.RoleAdmin, path: "/admin/tokens", body: "user=viewer1&label=line+terminal", form: true, writes: true, ok: 200},
 	"POST /admin/tokens/{tok}/revoke":               {min: store.RoleAdmin, form: true, writes: true, ok: 303, setup: fxTokenToRevoke},
+	"GET /api/v1/openapi.json":                      {min: anyone, path: "/api/v1/openapi.json", ok: 200},
 	"GET /api/v1/me":                                {min: store.RoleViewer, path: "/api/v1/me", ok: 200},
 	"GET /api/v1/processes":                         {min: store.RoleViewer, path: "/api/v1/processes", ok: 200},
 	"GET /api/v1/processes/{id}":                    {min: store.RoleViewer, path: "/api/v1/processes/{id}", ok: 200},

@@ -81,6 +81,7 @@ func (s *Server) routes() []route {
 		{"POST", "/alerts/{rule}/test", store.RoleEngineer, s.testAlertRule},
 
 		// JSON API.
+		{"GET", "/api/v1/openapi.json", anyone, s.apiOpenAPI},
 		{"GET", "/api/v1/me", store.RoleViewer, s.apiMe},
 		{"GET", "/api/v1/processes", store.RoleViewer, s.apiProcesses},
 		{"GET", "/api/v1/processes/{id}", store.RoleViewer, s.apiProcess},

@@ -106,6 +106,7 @@ func TestRouteRoles(t *testing.T) {
 		{"GET", "/static/charts.js", nil, false, all(ok, ok), ""},
 		{"GET", "/static/echarts.min.js", nil, false, all(ok, ok), ""},
 		{"GET", "/healthz", nil, false, all(ok, ok), ""},
+		{"GET", "/api/v1/openapi.json", nil, false, all(ok, ok), ""},
 		{"GET", "/signin", nil, false, all(ok, see), ""}, // signed in: sent on
 		{"POST", "/signin", func() string { return "name=&password=" }, true, all(bad, bad), ""},
 		{"GET", "/", nil, false, all(see, ok), ""},
