@@ -1,6 +1,7 @@
 package main
 
 import (
+	"context"
 	"encoding/csv"
 	"encoding/json"
 	"errors"
@@ -37,6 +38,7 @@ type analyzeOptions struct {
 	standardized bool
 	baseline     int
 	sheet        string
+	db, process  string
 }
 
 func runAnalyze(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
@@ -58,6 +60,8 @@ func runAnalyze(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs.IntVar(&o.baseline, "baseline", 0, "estimate the centre (and σ_z) from the first `N` lots only, then judge every lot\nagainst those limits as if frozen; 0 uses all lots (trial limits)")
 	fs.StringVar(&o.format, "format", "text", "the output: `text`, json or csv")
 	fs.StringVar(&o.sheet, "sheet", "", "the worksheet of an XLSX file, `NAME` (default the first)")
+	fs.StringVar(&o.process, "process", "", "read the file as the lot files of the process `NAME` (with --db): its column map,\ndate order, time zone and categories, and its chart unless --chart is given;\nan unknown column is then refused, as by import")
+	fs.StringVar(&o.db, "db", "", "the lotwatch database `FILE` that holds --process")
 	fs.BoolVar(&o.standardized, "standardized", false, "plot the standardized values z with limits in z units")
 	help := cliHelp(fs, `Usage: lotwatch analyze [options] FILE.csv
 
@@ -69,7 +73,8 @@ limits, the run-rule signals, and warnings about the data (poor normal
 approximation, overdispersion, too few lots for trial limits).
 
 The header names at least lot, inspected, and defective (p, np) or defects
-(u, c), in any case; other columns are ignored.
+(u, c), in any case; other columns are ignored (with --process, read
+through the process's column map, and refused unless they are categories).
 
 Options:
 `, "\nExit status: 0 when the analysis ran (whatever it found), 2 for bad input.\n\n"+caution)
@@ -101,7 +106,11 @@ Options:
 		defer f.Close()
 		in = f
 	}
-	lots, chart, bad := readAnalyzeLots(file, in, lotcsv.Options{Chart: cfg.Chart, Sheet: o.sheet})
+	ropt, code, ok := o.readOptions(stderr, cfg.Chart)
+	if !ok {
+		return code
+	}
+	lots, chart, bad := readAnalyzeLots(file, in, ropt)
 	if len(bad) > 0 {
 		for _, p := range bad {
 			fmt.Fprintln(stderr, p)
@@ -232,8 +241,37 @@ func checkStandardCenter(chart spc.Chart, v float64) error {
 	return nil
 }
 
-// readAnalyzeLots reads and checks every lot of a file (columns other than
-// the lot's are skipped: analyze reads no categories). It returns one
+// readOptions are the options of reading the file: those of --process
+// (its column map, date order, zone, categories and chart), or else any
+// column beyond the lot's skipped (analyze reads no categories).
+func (o analyzeOptions) readOptions(stderr io.Writer, chart spc.Chart) (lotcsv.Options, int, bool) {
+	if o.process == "" {
+		return lotcsv.Options{Chart: chart, Sheet: o.sheet, IgnoreUnknown: true}, 0, true
+	}
+	if o.db == "" {
+		return lotcsv.Options{}, cliProblems(stderr, "analyze", "--process needs --db FILE, the database that holds it"), false
+	}
+	if _, err := os.Stat(o.db); err != nil {
+		return lotcsv.Options{}, cliProblems(stderr, "analyze", fmt.Sprintf("--db %s: no such database file", o.db)), false
+	}
+	db, code, ok := cliOpen(stderr, "analyze", o.db)
+	if !ok {
+		return lotcsv.Options{}, code, false
+	}
+	defer db.Close()
+	p, err := db.ProcessByName(context.Background(), o.process)
+	if err != nil {
+		return lotcsv.Options{}, cliStoreError(stderr, "analyze", "", err), false
+	}
+	opt := p.ReadOptions()
+	if chart != "" {
+		opt.Chart = chart
+	}
+	opt.Sheet = o.sheet
+	return opt, 0, true
+}
+
+// readAnalyzeLots reads and checks every lot of a file. It returns one
 // line per problem, naming the file, line (or SHEET!ROW), column and value.
 func readAnalyzeLots(file string, r io.Reader, opt lotcsv.Options) ([]spc.Lot, spc.Chart, []string) {
 	var bad []string
@@ -245,7 +283,6 @@ func readAnalyzeLots(file string, r io.Reader, opt lotcsv.Options) ([]spc.Lot, s
 		bad = append(bad, file+": "+p.String())
 	}
 	chart := opt.Chart
-	opt.IgnoreUnknown = true
 	rd, err := lotcsv.NewReader(r, opt)
 	if err != nil {
 		var ps lotcsv.Problems

@@ -124,6 +124,14 @@ func TestCLIImportPlantFormats(t *testing.T) {
 			t.Errorf("%s exports\n%s\nwant (as the comma file)\n%s", name, got, want)
 		}
 	}
+	// analyze reads the same files to the same chart.
+	_, wantChart, _ := runCLI(t, "", "analyze", "--format", "json", files["comma.csv"])
+	for _, name := range []string{"semicolon.csv", "tab.csv", "text.xlsx", "dates.xlsx"} {
+		code, got, errs := runCLI(t, "", "analyze", "--format", "json", files[name])
+		if code != exitOK || got != wantChart {
+			t.Errorf("analyze %s: exit %d %q\n%s\nwant\n%s", name, code, errs, got, wantChart)
+		}
+	}
 }
 
 // The bad-input battery of CSV, kept in an XLSX worksheet: refused with
@@ -247,6 +255,13 @@ func TestCLIColumnMapAndDateOrder(t *testing.T) {
 	// 14:30 on 5 March 2026 in Berlin is CET, UTC+1 (IANA tz database).
 	if !strings.Contains(exported, "B1,2026-03-05T14:30:00+01:00,,200,3,2,,") {
 		t.Errorf("export:\n%s", exported)
+	}
+	// analyze --process reads the plant's file through the same map.
+	if code, _, errs := runCLI(t, "", "analyze", plant); code != exitUsage || !strings.Contains(errs, "lot column is missing") {
+		t.Errorf("analyze without --process: exit %d %q", code, errs)
+	}
+	if code, out, errs := runCLI(t, "", "analyze", "--db", db, "--process", "weld", "--format", "csv", plant); code != exitOK || !strings.Contains(out, "B1,200,3,") {
+		t.Errorf("analyze --process: exit %d %q %q", code, out, errs)
 	}
 	_, list, _ := runCLI(t, "", "process", "list", "--db", db, "--format", "json")
 	if !strings.Contains(list, `"Qty inspected": "inspected"`) || !strings.Contains(list, `"Rejects": "defective"`) || !strings.Contains(list, `"date_order": "day-first"`) {
