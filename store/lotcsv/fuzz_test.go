@@ -36,6 +36,11 @@ func FuzzReader(f *testing.F) {
 		"lot,inspected,defective\n\xff\xfe,10,1\n",
 		"",
 		"\n\n\n",
+		"lot;inspected;defective;dent\nA1;2,5;0;1\nA2;1.250;0;\n",
+		"lot\tinspected\tdefects\nA1\t10\t1\n",
+		"lot|inspected|defective\nA1|10|1\n",
+		"lot,time,inspected,defective,dnet\nA1,05.03.2024 14:30,10,1,1\n",
+		"PK\x03\x04not a workbook",
 	} {
 		f.Add([]byte(s), uint8(0), true)
 	}
