@@ -175,6 +175,7 @@ func TestOpenAPIAnswers(t *testing.T) {
 		{"GET", "/api/v1/processes/{id}", "/api/v1/processes/x", viewer, "", 400},
 		{"GET", "/api/v1/processes/{id}/chart", "/api/v1/processes/" + id + "/chart", viewer, "", 200},
 		{"GET", "/api/v1/processes/{id}/chart", "/api/v1/processes/" + id + "/chart?from=yesterday", viewer, "", 400},
+		{"GET", "/api/v1/processes/{id}/chart", "/api/v1/processes/" + id + "/chart?limit=10", viewer, "", 200},
 		{"GET", "/api/v1/processes/{id}/lots", "/api/v1/processes/" + id + "/lots", viewer, "", 200},
 		{"POST", "/api/v1/processes/{id}/lots", "/api/v1/processes/" + id + "/lots", inspector, `{"lot":"OA-1","inspected":200,"defective":3,"categories":{"scratch":2}}`, 201},
 		{"POST", "/api/v1/processes/{id}/lots", "/api/v1/processes/" + id + "/lots", inspector, `[{"lot":"OA-2","inspected":200,"defective":1},{"lot":"OA-3","inspected":0,"defective":1}]`, 400},
