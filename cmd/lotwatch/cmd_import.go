@@ -178,6 +178,9 @@ func runImport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		if storedOtherwise(err) {
 			fmt.Fprintln(stderr, "lotwatch import: to import the other lots and leave those as stored, run again with --skip-conflicts")
 		}
+		if cols := unknownColumns(err); len(cols) > 0 {
+			fmt.Fprintf(stderr, "lotwatch import: to skip those columns on purpose, run again with --ignore-columns %q; to read them as a lot column or a category, map them: lotwatch process update --map \"HEADER=COLUMN,...\"\n", strings.Join(cols, ","))
+		}
 		return code
 	}
 	if res.Created {
@@ -209,6 +212,21 @@ func storedOtherwise(err error) bool {
 		}
 	}
 	return false
+}
+
+// unknownColumns are the header names of the unknown columns of a
+// refused file.
+func unknownColumns(err error) []string {
+	var ve *store.ValidationError
+	var cols []string
+	if errors.As(err, &ve) {
+		for _, p := range ve.Problems {
+			if p.UnknownColumn() {
+				cols = append(cols, p.Field)
+			}
+		}
+	}
+	return cols
 }
 
 // splitList splits a comma-separated list of names, trimmed, leaving out
