@@ -1,8 +1,9 @@
 // Package metrics exposes what a lotwatch server does to Prometheus, on a
 // listener of its own (lotwatch serve --metrics-addr), never on the
 // public one: lots stored and refused by source, lots in the database,
-// signals on the charts and lots needing attention by kind, request time
-// by route, store commit time and the database's size on disk.
+// signals on the charts and lots needing attention by kind, alert
+// deliveries by state, request time by route, store commit time and the
+// database's size on disk.
 //
 // It is the only package that imports the Prometheus client: the server
 // reports through web.Observer and the store through DB.OnCommit, so spc
@@ -91,8 +92,37 @@ func New(db *store.DB, log *slog.Logger) *Metrics {
 		}
 		return float64(n)
 	}))
+	m.reg.MustRegister(&deliveryCollector{db: db, log: log})
 	db.OnCommit(func(d time.Duration, writes int) { m.commits.Observe(d.Seconds()) })
 	return m
+}
+
+var deliveriesDesc = prometheus.NewDesc("lotwatch_alert_deliveries",
+	"Alert deliveries (one per message and receiver) by state: pending (waiting or being retried), sent, failed (given up after retrying).", []string{"state"}, nil)
+
+// deliveryStates are the states of an alert delivery, each reported even
+// at zero.
+var deliveryStates = []string{"pending", "sent", "failed"}
+
+// deliveryCollector reads the alert deliveries at each scrape.
+type deliveryCollector struct {
+	db  *store.DB
+	log *slog.Logger
+}
+
+func (c *deliveryCollector) Describe(ch chan<- *prometheus.Desc) { ch <- deliveriesDesc }
+
+func (c *deliveryCollector) Collect(ch chan<- prometheus.Metric) {
+	ctx, cancel := context.WithTimeout(context.Background(), scrapeTimeout)
+	defer cancel()
+	n, err := c.db.DeliveryCounts(ctx)
+	if err != nil {
+		c.log.Warn("metrics: alert deliveries", "err", err)
+		return
+	}
+	for _, st := range deliveryStates {
+		ch <- prometheus.MustNewConstMetric(deliveriesDesc, prometheus.GaugeValue, float64(n[st]), st)
+	}
 }
 
 // Watch adds the figures read from the plant at each scrape: lots needing

@@ -136,6 +136,11 @@ func TestMetricsCountPostedLot(t *testing.T) {
 			t.Errorf("no signals of kind %s", k)
 		}
 	}
+	for _, st := range []string{"pending", "sent", "failed"} {
+		if _, ok := after["lotwatch_alert_deliveries{state="+st+"}"]; !ok {
+			t.Errorf("no alert deliveries in state %s", st)
+		}
+	}
 	// The metrics are on their own listener, not the public one.
 	res, err := http.Get(public.URL + "/metrics")
 	if err != nil {
