@@ -539,3 +539,31 @@ func TestAlertUnexplained(t *testing.T) {
 		t.Errorf("%d requests: a lot was escalated more than once", len(hs))
 	}
 }
+
+// TestFailedAlertShown: a message given up after its day of attempts is
+// shown on the status board and on the alerts page.
+func TestFailedAlertShown(t *testing.T) {
+	e := newTestEnv(t)
+	ctx := context.Background()
+	r := e.alertRule(t, store.AlertRule{Webhook: "http://127.0.0.1:9/hook", Secret: "s"})
+	if err := e.db.AddDeliveries(ctx, []store.NewDelivery{{MsgID: "msg_test_failed", RuleID: r.ID, Type: alert.TypeTest, Payload: "{}"}}); err != nil {
+		t.Fatal(err)
+	}
+	ds, err := e.db.ClaimDeliveries(ctx, "test", time.Minute, 1)
+	if err != nil || len(ds) != 1 {
+		t.Fatalf("claim: %v %v", ds, err)
+	}
+	if err := e.db.RecordAttempt(ctx, "test", ds[0].ID, store.Attempt{At: time.Now(), Error: "connection refused"}, time.Time{}); err != nil {
+		t.Fatal(err)
+	}
+	board := e.do(req{method: "GET", path: "/", cookie: e.signIn(t, "viewer1", testPassword)}).Body.String()
+	if !strings.Contains(board, "1 alert message was not delivered after a day of attempts") {
+		t.Error("the board does not show the failed message")
+	}
+	page := e.do(req{method: "GET", path: "/alerts", cookie: e.signIn(t, "engineer1", testPassword)}).Body.String()
+	for _, s := range []string{"given up after a day", "msg_test_failed", "connection refused", "<strong>failed</strong>"} {
+		if !strings.Contains(page, s) {
+			t.Errorf("the alerts page does not show %q", s)
+		}
+	}
+}
