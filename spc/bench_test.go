@@ -30,7 +30,7 @@ func benchSeries() []Lot {
 		for i := range benchData {
 			n := int64(50 + 5*rng.IntN(300))
 			d := distuv.Binomial{N: float64(n), P: 0.03, Src: rng}.Rand()
-			benchData[i] = Lot{ID: "lot", Inspected: n, Count: int64(d)}
+			benchData[i] = Lot{Code: "lot", Inspected: n, Count: int64(d)}
 		}
 	})
 	return benchData

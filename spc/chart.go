@@ -240,13 +240,13 @@ func analyze(lots []Lot, cfg Config, offset int, e *ruleEngine) (*Analysis, erro
 		// The conditions of CheckLot, tested inline; CheckLot words the error.
 		if l.Inspected <= 0 || l.Inspected > MaxInspected || l.Count < 0 || l.Count > MaxInspected || (units && l.Count > l.Inspected) {
 			if err := CheckLot(cfg.Chart, l.Inspected, l.Count); err != nil {
-				return nil, fmt.Errorf("lot %d (%q): %w", offset+i+1, l.ID, err)
+				return nil, fmt.Errorf("lot %d (%q): %w", offset+i+1, l.Code, err)
 			}
 		}
 		minN = min(minN, l.Inspected)
 		maxN = max(maxN, l.Inspected)
 		allN += float64(l.Inspected)
-		if excluding && cfg.Exclude[l.ID] {
+		if excluding && cfg.Exclude[l.Code] {
 			if excluded == nil {
 				excluded = make([]bool, len(lots))
 			}

@@ -20,7 +20,7 @@ var orangeJuice = []int64{12, 15, 8, 10, 4, 7, 16, 9, 14, 10, 5, 6, 17, 12, 22, 
 func constLots(n int64, counts []int64) []Lot {
 	lots := make([]Lot, len(counts))
 	for i, c := range counts {
-		lots[i] = Lot{ID: fmt.Sprintf("L%02d", i+1), Inspected: n, Count: c}
+		lots[i] = Lot{Code: fmt.Sprintf("L%02d", i+1), Inspected: n, Count: c}
 	}
 	return lots
 }
@@ -70,10 +70,10 @@ func TestTextbookCharts(t *testing.T) {
 			var above, below []string
 			for _, p := range a.Points {
 				if p.Above {
-					above = append(above, p.Lot.ID)
+					above = append(above, p.Lot.Code)
 				}
 				if p.Below {
-					below = append(below, p.Lot.ID)
+					below = append(below, p.Lot.Code)
 				}
 			}
 			if fmt.Sprint(above) != fmt.Sprint(tc.wantAbove) || fmt.Sprint(below) != fmt.Sprint(tc.wantBelow) {

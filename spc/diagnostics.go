@@ -40,8 +40,8 @@ const (
 func unknownExclusions(lots []Lot, exclude map[string]bool) []Warning {
 	have := make(map[string]bool, len(exclude))
 	for i := range lots {
-		if exclude[lots[i].ID] {
-			have[lots[i].ID] = true
+		if exclude[lots[i].Code] {
+			have[lots[i].Code] = true
 		}
 	}
 	var missing []string

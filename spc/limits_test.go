@@ -72,7 +72,7 @@ func loadReference(t *testing.T) *reference {
 func pairLots(pairs [][2]int64) []Lot {
 	lots := make([]Lot, len(pairs))
 	for i, p := range pairs {
-		lots[i] = Lot{ID: string(rune('A' + i)), Inspected: p[0], Count: p[1]}
+		lots[i] = Lot{Code: string(rune('A' + i)), Inspected: p[0], Count: p[1]}
 	}
 	return lots
 }
@@ -219,7 +219,7 @@ func simLots(seed uint64, m int, sizes []int64, p, spread float64) []Lot {
 			pi = distuv.Beta{Alpha: a, Beta: b, Src: rng}.Rand()
 		}
 		d := distuv.Binomial{N: float64(n), P: pi, Src: rng}.Rand()
-		lots[i] = Lot{ID: "s", Inspected: n, Count: int64(d)}
+		lots[i] = Lot{Code: "s", Inspected: n, Count: int64(d)}
 	}
 	return lots
 }
@@ -252,7 +252,7 @@ func TestLimitsWidenAsLotsShrink(t *testing.T) {
 	lots := make([]Lot, 200)
 	for i := range lots {
 		n := int64(20 + rng.IntN(2000))
-		lots[i] = Lot{ID: "x", Inspected: n, Count: int64(rng.IntN(int(n / 10)))}
+		lots[i] = Lot{Code: "x", Inspected: n, Count: int64(rng.IntN(int(n / 10)))}
 	}
 	for _, ch := range []Chart{ChartP, ChartU} {
 		for _, m := range []Method{MethodSigma, MethodLaney, MethodExact} {

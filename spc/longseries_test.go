@@ -28,7 +28,7 @@ func longSeries(m int) []Lot {
 		}
 		n := int64(40 + 10*rng.IntN(120))
 		d := distuv.Binomial{N: float64(n), P: p, Src: rng}.Rand()
-		lots[i] = Lot{ID: fmt.Sprintf("S%05d", i), Inspected: n, Count: int64(d)}
+		lots[i] = Lot{Code: fmt.Sprintf("S%05d", i), Inspected: n, Count: int64(d)}
 	}
 	return lots
 }
@@ -65,7 +65,7 @@ func TestLongSeriesAgainstDirect(t *testing.T) {
 			}
 			var sn, sd float64
 			for _, l := range lots {
-				if !tc.exclude[l.ID] {
+				if !tc.exclude[l.Code] {
 					sn += float64(l.Inspected)
 					sd += float64(l.Count)
 				}
@@ -86,7 +86,7 @@ func TestLongSeriesAgainstDirect(t *testing.T) {
 				s := math.Sqrt(pb * (1 - pb) / n)
 				ucl, lcl := math.Min(1, pb+3*s), math.Max(0, pb-3*s)
 				z := (v - pb) / s
-				if p.Lot != l || p.Excluded != tc.exclude[l.ID] {
+				if p.Lot != l || p.Excluded != tc.exclude[l.Code] {
 					t.Fatalf("point %d: lot %+v excluded %v", i, p.Lot, p.Excluded)
 				}
 				if !rel(p.Z, z) || p.Above != (v > ucl) || p.Below != (v < lcl) {
@@ -109,7 +109,7 @@ func TestLongSeriesAgainstDirect(t *testing.T) {
 				if math.Abs(p.TailP-tail) > 1e-9*tail {
 					t.Fatalf("point %d (n %d, d %d): tail %v, want %v", i, l.Inspected, l.Count, p.TailP, tail)
 				}
-				if !tc.exclude[l.ID] {
+				if !tc.exclude[l.Code] {
 					chi += z * z
 					if havePrev {
 						mr += math.Abs(z - prev)

@@ -49,11 +49,11 @@ func TestAnalyzePhases(t *testing.T) {
 	// Judged separately the run is cut in two and neither half signals.
 	for _, part := range [][]Lot{lots[:10], lots[10:]} {
 		b, _ := Analyze(part, Config{Chart: ChartP, Standard: &Standard{Center: 0.1}, Rules: RuleNelson2.Set()})
-		if part[0].ID == "L11" {
+		if part[0].Code == "L11" {
 			b, _ = Analyze(part, Config{Chart: ChartP, Standard: &Standard{Center: 0.05}, Rules: RuleNelson2.Set()})
 		}
 		if len(b.Signals) != 0 {
-			t.Errorf("half %s signals %+v", part[0].ID, b.Signals)
+			t.Errorf("half %s signals %+v", part[0].Code, b.Signals)
 		}
 	}
 }

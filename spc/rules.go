@@ -442,7 +442,7 @@ func (e *ruleEngine) cover(r Rule, from, to int) {
 	bit := r.Set()
 	for j := from; j <= to; j++ {
 		e.pts[j].Rules |= bit
-		e.ids[r] = append(e.ids[r], e.pts[j].Lot.ID)
+		e.ids[r] = append(e.ids[r], e.pts[j].Lot.Code)
 	}
 }
 
@@ -459,7 +459,7 @@ func (e *ruleEngine) prepend(r Rule, from, before, have int) {
 	copy(ids[at+add:], ids[at:at+have])
 	for j := from; j < before; j++ {
 		e.pts[j].Rules |= r.Set()
-		ids[at+j-from] = e.pts[j].Lot.ID
+		ids[at+j-from] = e.pts[j].Lot.Code
 	}
 	e.ids[r] = ids
 }

@@ -13,7 +13,7 @@ func judge(set RuleSet, k float64, zs []float64) []Signal {
 	var e ruleEngine
 	e.reset(set)
 	for i, z := range zs {
-		pts[i] = Point{Lot: Lot{ID: fmt.Sprint(i)}, Z: z, Above: z > k, Below: z < -k}
+		pts[i] = Point{Lot: Lot{Code: fmt.Sprint(i)}, Z: z, Above: z > k, Below: z < -k}
 		e.step(i, &pts[i], k)
 	}
 	return e.finish(pts)

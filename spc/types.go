@@ -49,7 +49,7 @@ func ParseMethod(s string) (Method, error) {
 // Lot is one inspected subgroup: Inspected units were examined and Count
 // nonconforming units (p, np) or defects (u, c) were found.
 type Lot struct {
-	ID        string
+	Code      string // the lot code
 	Inspected int64
 	Count     int64
 }

@@ -68,11 +68,11 @@ func TestAnalyzeLargestLots(t *testing.T) {
 			for _, p := range a.Points {
 				for _, v := range []float64{p.Value, p.Center, p.UCL, p.LCL, p.Z, p.TailP} {
 					if math.IsNaN(v) || math.IsInf(v, 0) {
-						t.Errorf("%s %s lot %s: non-finite value in %+v", c, m, p.Lot.ID, p)
+						t.Errorf("%s %s lot %s: non-finite value in %+v", c, m, p.Lot.Code, p)
 					}
 				}
 				if p.TailP < 0 || p.TailP > 1 {
-					t.Errorf("%s %s lot %s: tail probability %v", c, m, p.Lot.ID, p.TailP)
+					t.Errorf("%s %s lot %s: tail probability %v", c, m, p.Lot.Code, p.TailP)
 				}
 			}
 		}

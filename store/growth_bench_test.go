@@ -133,7 +133,7 @@ func BenchmarkGrowth(b *testing.B) {
 			for b.Loop() {
 				lots := make([]spc.Lot, 0, n)
 				if err := db.EachLot(ctx, p.ID, time.Time{}, time.Time{}, func(l Lot) error {
-					lots = append(lots, spc.Lot{ID: l.Lot, Inspected: l.Inspected, Count: l.Count})
+					lots = append(lots, spc.Lot{Code: l.Lot, Inspected: l.Inspected, Count: l.Count})
 					return nil
 				}); err != nil {
 					b.Fatal(err)

@@ -123,7 +123,7 @@ func analysisHead(a *spc.Analysis) *ChartJSON {
 // pointJSON is one lot's point in the shared shape.
 func pointJSON(p spc.Point) LotJSON {
 	return LotJSON{
-		Lot:         p.Lot.ID,
+		Lot:         p.Lot.Code,
 		Inspected:   p.Lot.Inspected,
 		Count:       p.Lot.Count,
 		Value:       Num(p.Value),

@@ -248,7 +248,7 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 	for k := lo; k < hi; k++ {
 		g, pt := gs[k], a.Points[k]
 		first := pc.lots[g[0]]
-		vp := viewPoint{Label: pt.Lot.ID, Time: first.Time.In(loc), Shift: first.Shift, Lots: g[1] - g[0],
+		vp := viewPoint{Label: pt.Lot.Code, Time: first.Time.In(loc), Shift: first.Shift, Lots: g[1] - g[0],
 			Inspected: pt.Lot.Inspected, Count: pt.Lot.Count, Value: pt.Value, Center: pt.Center, UCL: pt.UCL, LCL: pt.LCL,
 			Z: pt.Z, TailP: pt.TailP, Above: pt.Above, Below: pt.Below, Rules: ruleNames(pt.Rules), Excluded: pt.Excluded}
 		if by == byLot {
@@ -291,7 +291,7 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 			continue
 		}
 		vs := viewSignal{Rule: ruleName(sg.Rule), Description: sg.Description,
-			First: a.Points[sg.First].Lot.ID, Last: a.Points[sg.Last].Lot.ID}
+			First: a.Points[sg.First].Lot.Code, Last: a.Points[sg.Last].Lot.Code}
 		lastGroup := gs[sg.Last]
 		vs.LastLotID = pc.lots[lastGroup[1]-1].ID
 		for i := gs[sg.First][0]; i < lastGroup[1]; i++ {

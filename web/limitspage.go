@@ -178,7 +178,7 @@ func (s *Server) limitsData(r *http.Request, p store.Process, b baseline) (*limi
 	in := make([]spc.Lot, len(base))
 	known := map[string]bool{}
 	for i, l := range base {
-		in[i] = spc.Lot{ID: l.Lot, Inspected: l.Inspected, Count: l.Count}
+		in[i] = spc.Lot{Code: l.Lot, Inspected: l.Inspected, Count: l.Count}
 		known[l.Lot] = true
 	}
 	ex := map[string]bool{}

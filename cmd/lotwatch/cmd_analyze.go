@@ -121,7 +121,7 @@ Options:
 	if cfg.Exclude != nil {
 		known := make(map[string]bool, len(lots))
 		for _, l := range lots {
-			known[l.ID] = true
+			known[l.Code] = true
 		}
 		var missing []string
 		for id := range cfg.Exclude {
@@ -333,7 +333,7 @@ func readAnalyzeLots(file string, r io.Reader, opt lotcsv.Options) ([]spc.Lot, s
 			}
 			continue
 		}
-		lots = append(lots, spc.Lot{ID: row.Lot, Inspected: row.Inspected, Count: row.Count})
+		lots = append(lots, spc.Lot{Code: row.Lot, Inspected: row.Inspected, Count: row.Count})
 	}
 	for _, p := range rd.Problems() {
 		say(p)
@@ -353,7 +353,7 @@ func writeAnalysisCSV(w io.Writer, a *spc.Analysis) {
 	cw.Write([]string{"lot", "inspected", "count", "value", "center", "lcl", "ucl", "z", "out_of_limits", "signals", "excluded", "tail_p"})
 	f := func(v float64) string { return strconv.FormatFloat(v, 'g', 10, 64) }
 	for _, p := range a.Points {
-		cw.Write([]string{lotcsv.Neutralise(p.Lot.ID), strconv.FormatInt(p.Lot.Inspected, 10), strconv.FormatInt(p.Lot.Count, 10),
+		cw.Write([]string{lotcsv.Neutralise(p.Lot.Code), strconv.FormatInt(p.Lot.Inspected, 10), strconv.FormatInt(p.Lot.Count, 10),
 			f(p.Value), f(p.Center), f(p.LCL), f(p.UCL), f(p.Z), strconv.FormatBool(p.OutOfLimits()),
 			ruleList(p.Rules), strconv.FormatBool(p.Excluded), f(p.TailP)})
 	}
@@ -403,7 +403,7 @@ func writeAnalysisText(w io.Writer, file string, a *spc.Analysis, baseline int) 
 		if p.Excluded {
 			mark = strings.TrimSpace(mark + " (excluded)")
 		}
-		fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t%.2f\t%s\t\n", p.Lot.ID, p.Lot.Inspected, p.Lot.Count,
+		fmt.Fprintf(tw, "%s\t%d\t%d\t%s\t%s\t%s\t%s\t%.2f\t%s\t\n", p.Lot.Code, p.Lot.Inspected, p.Lot.Count,
 			fmtStat(a.Chart, p.Value), fmtStat(a.Chart, p.LCL), fmtStat(a.Chart, p.Center), fmtStat(a.Chart, p.UCL), p.Z, mark)
 	}
 	tw.Flush()

@@ -169,7 +169,7 @@ func freezeDemoLimits(ctx context.Context, db *store.DB, p store.Process, dp dem
 		if !l.Time.Before(end) {
 			break
 		}
-		base = append(base, spc.Lot{ID: l.Code, Inspected: l.Inspected, Count: l.Count})
+		base = append(base, spc.Lot{Code: l.Code, Inspected: l.Inspected, Count: l.Count})
 		last = l.Time
 	}
 	a, err := spc.Analyze(base, spc.Config{Chart: dp.Chart, Method: dp.Method, K: 3})

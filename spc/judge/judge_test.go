@@ -17,7 +17,7 @@ func TestJudgeSetsChooseThePhases(t *testing.T) {
 	var lots []spc.Lot
 	var times []time.Time
 	for i := range 6 {
-		lots = append(lots, spc.Lot{ID: string(rune('A' + i)), Inspected: 200, Count: int64(2 + i%3)})
+		lots = append(lots, spc.Lot{Code: string(rune('A' + i)), Inspected: 200, Count: int64(2 + i%3)})
 		times = append(times, t0.Add(time.Duration(i)*time.Hour))
 	}
 	set := func(n, from int) Set {

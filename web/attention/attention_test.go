@@ -20,7 +20,7 @@ func chart(t *testing.T, counts []int64) ([]store.Lot, *spc.Analysis) {
 	sl := make([]spc.Lot, len(counts))
 	for i, c := range counts {
 		lots[i] = store.Lot{ID: int64(i + 1), LotInput: store.LotInput{Lot: fmt.Sprintf("L%02d", i+1), Time: t0.Add(time.Duration(i) * time.Hour), Inspected: 100, Count: c}}
-		sl[i] = spc.Lot{ID: lots[i].Lot, Inspected: 100, Count: c}
+		sl[i] = spc.Lot{Code: lots[i].Lot, Inspected: 100, Count: c}
 	}
 	a, err := spc.Analyze(sl, spc.Config{Chart: spc.ChartP, Rules: spc.RulesWE})
 	if err != nil {

@@ -693,7 +693,7 @@ func SortLimitSets(sets []store.LimitSet) []store.LimitSet {
 func spcLots(lots []store.Lot) []spc.Lot {
 	in := make([]spc.Lot, len(lots))
 	for i, l := range lots {
-		in[i] = spc.Lot{ID: l.Lot, Inspected: l.Inspected, Count: l.Count}
+		in[i] = spc.Lot{Code: l.Lot, Inspected: l.Inspected, Count: l.Count}
 	}
 	return in
 }
