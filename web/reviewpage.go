@@ -8,6 +8,7 @@ import (
 	"math"
 	"net/http"
 	"net/url"
+	"sort"
 	"strconv"
 	"strings"
 
@@ -19,6 +20,8 @@ import (
 type reviewPageData struct {
 	Week     string
 	Filter   string
+	Area     string
+	Areas    []string
 	FDR      bool
 	Problem  string
 	Fragment template.HTML
@@ -39,7 +42,7 @@ func (s *Server) reviewOptions(r *http.Request) review.Options {
 
 // reviewPage shows the weekly review inside the site's layout: the summary
 // of every process, sorted by concern, then the sections of the processes
-// matching the filter (a part of the name, any case) when they are few, with links
+// matching the filter (a part of the name, any case, and the area) when they are few, with links
 // to download the review as a self-contained HTML document, CSV or JSON.
 // The review is always built over every active process, so that a
 // process's verdict and adjusted p-value do not depend on the filter.
@@ -47,7 +50,7 @@ func (s *Server) reviewOptions(r *http.Request) review.Options {
 func (s *Server) reviewPage(w http.ResponseWriter, r *http.Request) {
 	opt := s.reviewOptions(r)
 	q := r.URL.Query()
-	d := reviewPageData{Week: opt.Week, FDR: opt.FDR, Filter: strings.TrimSpace(q.Get("process"))}
+	d := reviewPageData{Week: opt.Week, FDR: opt.FDR, Filter: strings.TrimSpace(q.Get("process")), Area: strings.TrimSpace(q.Get("area"))}
 	rv, err := review.Build(r.Context(), s.db, opt)
 	var oe *review.OptionError
 	switch {
@@ -72,9 +75,17 @@ func (s *Server) reviewPage(w http.ResponseWriter, r *http.Request) {
 		}
 		return "/review?" + u.Encode() + "#p-" + strconv.FormatInt(pr.Process.ID, 10)
 	}}
-	if f := strings.ToLower(d.Filter); f != "" {
+	seen := map[string]bool{}
+	for _, pr := range rv.Processes {
+		if a := pr.Process.Area; a != "" && !seen[a] {
+			seen[a] = true
+			d.Areas = append(d.Areas, a)
+		}
+	}
+	sort.Strings(d.Areas)
+	if f, area := strings.ToLower(d.Filter), d.Area; f != "" || area != "" {
 		v.Match = func(pr *review.ProcessReview) bool {
-			return strings.Contains(strings.ToLower(pr.Process.Name), f)
+			return strings.Contains(strings.ToLower(pr.Process.Name), f) && (area == "" || pr.Process.Area == area)
 		}
 	}
 	if d.Fragment, err = rv.HTMLView(v); err != nil {

@@ -113,9 +113,9 @@ func (r *Review) WriteText(w io.Writer) error {
 		}
 		for _, pr := range byConcern {
 			ch := pr.Process.Chart
-			fmt.Fprintf(b, "  %s: rate %s, change %s, %s; %d outside limits (%d no cause), %d signals (%d no cause)\n",
+			fmt.Fprintf(b, "  %s: rate %s, change %s, %s; %d outside limits (%d no cause), %d signals (%d no cause); %d lots of the record need attention\n",
 				pr.Process.Name, FormatRate(ch, pr.Current.Rate), formatDiff(ch, pr.Change.Difference), pr.Change.VerdictText(),
-				len(pr.OutOfLimits), pr.UnexplainedOut(), len(pr.Signals), pr.UnexplainedSignals())
+				len(pr.OutOfLimits), pr.UnexplainedOut(), len(pr.Signals), pr.UnexplainedSignals(), pr.NeedAttention)
 		}
 	}
 	for _, pr := range byConcern {
@@ -280,6 +280,7 @@ type jsonReview struct {
 
 type jsonProcess struct {
 	Process   string    `json:"process"`
+	Area      string    `json:"area,omitempty"`
 	Chart     string    `json:"chart"`
 	TimeZone  string    `json:"time_zone"`
 	Start     string    `json:"start"`
@@ -311,6 +312,7 @@ type jsonProcess struct {
 	Dispersion    *jsonDispersion  `json:"dispersion"`
 	Warnings      []jsonWarning    `json:"warnings"`
 	Notes         []string         `json:"notes"`
+	NeedAttention int              `json:"lots_needing_attention"`
 }
 
 type jsonWeek struct {
@@ -418,7 +420,7 @@ func (r *Review) jsonValue() jsonReview {
 	for _, pr := range r.Processes {
 		loc := pr.Process.Location()
 		cur := pr.Current
-		j := jsonProcess{Process: pr.Process.Name, Chart: string(pr.Process.Chart), TimeZone: loc.String(),
+		j := jsonProcess{Process: pr.Process.Name, Area: pr.Process.Area, NeedAttention: pr.NeedAttention, Chart: string(pr.Process.Chart), TimeZone: loc.String(),
 			Start: stamp(cur.Start, loc), End: stamp(cur.End, loc), Method: string(pr.Method),
 			Lots: cur.Lots, Inspected: cur.Inspected, Count: cur.Count,
 			Rate: NullFloat(cur.Rate), Lower: NullFloat(cur.Lower), Upper: NullFloat(cur.Upper),
@@ -481,7 +483,7 @@ func (r *Review) WriteJSON(w io.Writer) error {
 var CSVHeader = []string{"week", "process", "chart", "method", "level", "lots", "inspected", "count", "rate", "lower", "upper",
 	"previous_week", "previous_lots", "previous_inspected", "previous_count", "previous_rate", "previous_lower", "previous_upper",
 	"difference", "difference_lower", "difference_upper", "p_value", "verdict", "out_of_limits", "signals", "top_category",
-	"adjusted_p_value"}
+	"adjusted_p_value", "lots_needing_attention"}
 
 // WriteCSV writes one row per process under CSVHeader: rates as
 // fractions, empty where a week has no lots.
@@ -508,7 +510,7 @@ func (r *Review) WriteCSV(w io.Writer) error {
 			strconv.Itoa(cur.Lots), strconv.FormatInt(cur.Inspected, 10), strconv.FormatInt(cur.Count, 10), num(cur.Rate), num(cur.Lower), num(cur.Upper),
 			prev.Week, strconv.Itoa(prev.Lots), strconv.FormatInt(prev.Inspected, 10), strconv.FormatInt(prev.Count, 10), num(prev.Rate), num(prev.Lower), num(prev.Upper),
 			num(c.Difference), num(c.Lower), num(c.Upper), num(c.PValue), c.Verdict,
-			strconv.Itoa(len(pr.OutOfLimits)), strconv.Itoa(len(pr.Signals)), lotcsv.Neutralise(top), num(c.AdjustedP)}
+			strconv.Itoa(len(pr.OutOfLimits)), strconv.Itoa(len(pr.Signals)), lotcsv.Neutralise(top), num(c.AdjustedP), strconv.Itoa(pr.NeedAttention)}
 		if err := cw.Write(row); err != nil {
 			return err
 		}

@@ -25,6 +25,7 @@ import (
 	"lotwatch/spc"
 	"lotwatch/spc/judge"
 	"lotwatch/store"
+	"lotwatch/web/attention"
 )
 
 // Source is what the review reads from the store.
@@ -166,6 +167,9 @@ type ProcessReview struct {
 	Warnings []spc.Warning
 	// Notes are problems met while reviewing, in plain words.
 	Notes []string
+	// NeedAttention counts the lots of the whole record, of any age, that
+	// need attention: flagged and not yet explained (package attention).
+	NeedAttention int
 }
 
 // WeekStat sums the lots of one ISO week of a process.
@@ -621,6 +625,7 @@ func (pr *ProcessReview) judge(lots []store.Lot, sets []store.LimitSet, notes []
 		pr.Notes = append(pr.Notes, "The lots could not be judged against their limits: "+err.Error()+".")
 		return
 	}
+	pr.NeedAttention = len(attention.Find(p, lots, a, notes))
 	byLot := map[int64][]store.Annotation{}
 	for _, n := range notes {
 		if n.LotID != 0 {
@@ -743,7 +748,7 @@ func (pr *ProcessReview) concern() int {
 	if c.StatesChange() && c.Difference > 0 {
 		rank += 8
 	}
-	if pr.Unexplained() > 0 {
+	if pr.Unexplained() > 0 || pr.NeedAttention > 0 {
 		rank += 4
 	}
 	if c.Compared && !c.StatesChange() && c.Difference > 0 && strings.HasPrefix(c.Verdict, "too close") {
@@ -757,7 +762,8 @@ func (pr *ProcessReview) concern() int {
 
 // ByConcern returns the processes of the review, those asking most for
 // attention first (a stated rise, unexplained lots outside their limits or
-// signals, a rise too close to call, a stated fall), then by the number of
+// signals or lots needing attention, a rise too close to call, a stated
+// fall), then by the number of lots needing attention, of the week's
 // unexplained lots and signals, the p-value of the change, and the name.
 func (r *Review) ByConcern() []*ProcessReview {
 	out := append([]*ProcessReview(nil), r.Processes...)
@@ -771,6 +777,9 @@ func (r *Review) ByConcern() []*ProcessReview {
 		a, b := out[i], out[j]
 		if ca, cb := a.concern(), b.concern(); ca != cb {
 			return ca > cb
+		}
+		if ua, ub := a.NeedAttention, b.NeedAttention; ua != ub {
+			return ua > ub
 		}
 		if ua, ub := a.Unexplained(), b.Unexplained(); ua != ub {
 			return ua > ub
