@@ -18,6 +18,16 @@ import (
 // Σ(cᵢ − c̄)²/c̄ for c — the sum of the squared sigma-method zᵢ — with
 // DF = m − 1 degrees of freedom (m when a standard gives the centre).
 // PValue is its chi-square upper tail, Ratio = ChiSquare/DF.
+//
+// The lots a chart exists to find, those with an assignable cause, inflate
+// that statistic: one lot at z = 20 adds 400 to it. So when it finds extra
+// spread the check is run again two ways that such lots cannot drive:
+// without the baseline lots beyond the k-sigma binomial or Poisson limits
+// (Beyond of them), the centre estimated again from the rest (Trimmed*),
+// and on the median moving range of the z of consecutive baseline lots
+// (RobustSigmaZ), which a single wild lot or a step in the rate hardly
+// moves. Overdispersed, and the advice to use Laney limits, need all three
+// to find the extra spread.
 type Dispersion struct {
 	ChiSquare     float64
 	DF            int
@@ -25,14 +35,29 @@ type Dispersion struct {
 	PValue        float64
 	SigmaZ        float64
 	Overdispersed bool
-	// Advice says in plain words what the check means for the limits.
+	// Beyond counts the baseline lots beyond the sigma limits left out of
+	// the trimmed check. TrimmedDF is 0 when the trimmed check was not
+	// run (the whole-baseline check found no extra spread).
+	Beyond           int
+	TrimmedChiSquare float64
+	TrimmedDF        int
+	TrimmedRatio     float64
+	TrimmedPValue    float64
+	// RobustSigmaZ is the median moving range of the baseline lots' z,
+	// divided by 0.954 (see robustSigmaZ); 0 when not computed.
+	RobustSigmaZ float64
+	// Advice says in plain words what the check means for the limits, and
+	// why.
 	Advice string
 }
 
-// Thresholds of the dispersion advice (common practice, no source).
+// Thresholds of the dispersion advice (common practice, no source). The
+// robust σ_z must exceed √1.5, the σ_z that the ratio threshold stands for
+// (the ratio estimates σ_z²).
 const (
 	overdispersionP     = 0.01
 	overdispersionRatio = 1.5
+	medianMRConstant    = 0.9539 // median of |Z₁ − Z₂| for independent standard normals: √2·Φ⁻¹(0.75)
 	minExpected         = 5  // nᵢp̄ and nᵢ(1−p̄), or nᵢū, below this: normal approximation poor
 	minBaselineLots     = 20 // trial limits are usually set from 20–25 lots
 )
@@ -180,19 +205,126 @@ func dispersion(a *Analysis, cfg Config, sigmaZ float64, zeroSpread bool) {
 	chi := distuv.ChiSquared{K: float64(d.DF)}
 	d.PValue = chi.Survival(d.ChiSquare)
 	low := chi.CDF(d.ChiSquare)
-	d.Overdispersed = d.PValue < overdispersionP && d.Ratio > overdispersionRatio
+	whole := d.PValue < overdispersionP && d.Ratio > overdispersionRatio
 	test := fmt.Sprintf("chi-square %.4g on %d degrees of freedom, p = %.3g, ratio %.3g, σ_z = %.3g", d.ChiSquare, d.DF, d.PValue, d.Ratio, d.SigmaZ)
+	rule := "p < 0.01 and a ratio above 1.5, common practice"
+	if !whole {
+		switch {
+		case d.PValue < 0.05:
+			d.Advice = fmt.Sprintf("The lots vary somewhat more than %s sampling alone explains (%s), but the excess is small, so limits from %s sampling still serve (Laney limits are advised only at %s).", model, test, model, rule)
+		case low < overdispersionP:
+			d.Advice = fmt.Sprintf("The lots vary less than %s sampling would predict (%s); check that the counts are independent and were not adjusted.", model, test)
+		default:
+			d.Advice = fmt.Sprintf("The spread of the lots is within what %s sampling alone produces (%s).", model, test)
+		}
+		return
+	}
+	robustSpread(a, cfg)
+	trimmed := d.TrimmedDF > 0 && d.TrimmedPValue < overdispersionP && d.TrimmedRatio > overdispersionRatio
+	steady := d.RobustSigmaZ > math.Sqrt(overdispersionRatio)
+	d.Overdispersed = trimmed && steady
+	without := fmt.Sprintf("without the %s beyond the %g-sigma %s limits: chi-square %.4g on %d degrees of freedom, p = %.3g, ratio %.3g",
+		plural(d.Beyond, "lot", "lots"), a.K, model, d.TrimmedChiSquare, d.TrimmedDF, d.TrimmedPValue, d.TrimmedRatio)
+	if d.Beyond == 0 {
+		without = fmt.Sprintf("no lot is beyond the %g-sigma %s limits", a.K, model)
+	}
+	moving := fmt.Sprintf("σ_z from the median moving range %.3g", d.RobustSigmaZ)
 	switch {
 	case d.Overdispersed && cfg.Method == MethodLaney:
-		d.Advice = fmt.Sprintf("The lots vary more than %s sampling alone explains (%s); the Laney limits in use allow for this.", model, test)
+		d.Advice = fmt.Sprintf("The lots vary more than %s sampling alone explains (%s), and the excess persists (%s; %s); the Laney limits in use allow for this.", model, test, without, moving)
 	case d.Overdispersed:
-		d.Advice = fmt.Sprintf("The lots vary more than %s sampling alone explains (%s). Limits from %s sampling will flag many ordinary lots; Laney limits, which widen them by σ_z, suit this process better (common practice: switch when p < 0.01 and the ratio is above 1.5).", model, test, model)
+		d.Advice = fmt.Sprintf("The lots vary more than %s sampling alone explains (%s), and the excess persists (%s; %s). Limits from %s sampling will flag many ordinary lots; Laney limits, which widen them by σ_z, suit this process better (advised at %s, on the whole baseline, without the lots beyond the limits and lot to lot).", model, test, without, moving, model, rule)
 		a.Warnings = append(a.Warnings, Warning{Code: "overdispersion", Message: d.Advice})
-	case d.PValue < 0.05:
-		d.Advice = fmt.Sprintf("The lots vary somewhat more than %s sampling alone explains (%s), but the excess is small, so limits from %s sampling still serve (common practice: widen with Laney limits when p < 0.01 and the ratio is above 1.5).", model, test, model)
-	case low < overdispersionP:
-		d.Advice = fmt.Sprintf("The lots vary less than %s sampling would predict (%s); check that the counts are independent and were not adjusted.", model, test)
+	case !trimmed:
+		it, those := "it", "that lot"
+		if d.Beyond != 1 {
+			it, those = "them", "those lots"
+		}
+		d.Advice = fmt.Sprintf("The lots vary more than %s sampling alone explains (%s) only because of the %s beyond the %g-sigma %s limits: without %s (chi-square %.4g on %d degrees of freedom, p = %.3g, ratio %.3g) the spread is within what %s sampling produces. Look for the assignable causes of %s rather than widening the limits with Laney.",
+			model, test, plural(d.Beyond, "lot", "lots"), a.K, model, it, d.TrimmedChiSquare, d.TrimmedDF, d.TrimmedPValue, d.TrimmedRatio, model, those)
 	default:
-		d.Advice = fmt.Sprintf("The spread of the lots is within what %s sampling alone produces (%s).", model, test)
+		d.Advice = fmt.Sprintf("The lots vary more than %s sampling alone explains (%s; %s), but from one lot to the next they vary no more than sampling explains (%s): the rate moved between groups of lots, a shift or a drift, rather than spreading lot by lot. Look for when and why it moved rather than widening the limits with Laney.", model, test, without, moving)
 	}
+}
+
+// robustSpread runs the dispersion check again without the baseline lots
+// beyond the k-sigma limits of the binomial or Poisson model, the centre
+// estimated again from the lots kept (or the standard's, when one is
+// given), and computes robustSigmaZ of the baseline lots against that
+// centre. It fills the Beyond, Trimmed* and RobustSigmaZ fields.
+func robustSpread(a *Analysis, cfg Config) {
+	d := &a.Dispersion
+	var base []Lot
+	for _, pt := range a.Points {
+		if !pt.Excluded {
+			base = append(base, pt.Lot)
+		}
+	}
+	rate := a.Rate
+	var kept []Lot
+	for _, l := range base {
+		v, ctr, sig := model(cfg.Chart, rate, float64(l.Inspected), float64(l.Count))
+		if math.Abs(zOf(v-ctr, sig)) > a.K {
+			d.Beyond++
+			continue
+		}
+		kept = append(kept, l)
+	}
+	if cfg.Standard == nil && len(kept) > 0 {
+		var sc, sn float64
+		for _, l := range kept {
+			sc += float64(l.Count)
+			sn += float64(l.Inspected)
+		}
+		if cfg.Chart == ChartC {
+			sn = float64(len(kept))
+		}
+		rate = sc / sn
+	}
+	z := func(l Lot) float64 {
+		v, ctr, sig := model(cfg.Chart, rate, float64(l.Inspected), float64(l.Count))
+		return zOf(v-ctr, sig)
+	}
+	var chi float64
+	for _, l := range kept {
+		chi += z(l) * z(l)
+	}
+	d.TrimmedDF = len(kept)
+	if cfg.Standard == nil {
+		d.TrimmedDF--
+	}
+	if d.TrimmedDF > 0 {
+		d.TrimmedChiSquare = chi
+		d.TrimmedRatio = chi / float64(d.TrimmedDF)
+		d.TrimmedPValue = distuv.ChiSquared{K: float64(d.TrimmedDF)}.Survival(chi)
+	}
+	zs := make([]float64, len(base))
+	for i, l := range base {
+		zs[i] = z(l)
+	}
+	d.RobustSigmaZ = robustSigmaZ(zs)
+}
+
+// robustSigmaZ estimates the spread of z from its median moving range:
+// for independent normal z with standard deviation σ, |zᵢ − zᵢ₋₁| has
+// median σ·√2·Φ⁻¹(0.75) = 0.9539σ (the median moving range estimator;
+// Montgomery, Introduction to Statistical Quality Control, 6th ed., §6.4,
+// from memory). One wild lot changes two moving ranges, which barely moves
+// their median, and a step in the rate changes one. 0 with fewer than 2
+// values.
+func robustSigmaZ(z []float64) float64 {
+	if len(z) < 2 {
+		return 0
+	}
+	mr := make([]float64, len(z)-1)
+	for i := 1; i < len(z); i++ {
+		mr[i-1] = math.Abs(z[i] - z[i-1])
+	}
+	sort.Float64s(mr)
+	m := len(mr)
+	med := mr[m/2]
+	if m%2 == 0 {
+		med = (mr[m/2-1] + mr[m/2]) / 2
+	}
+	return med / medianMRConstant
 }

@@ -1,8 +1,11 @@
 package spc
 
 import (
+	"math"
 	"strings"
 	"testing"
+
+	"gonum.org/v1/gonum/stat/distuv"
 )
 
 func warningText(a *Analysis, code string) string {
@@ -54,5 +57,96 @@ func TestDiagnosticWarnings(t *testing.T) {
 	}
 	if ok.Dispersion.Advice == "" || ok.Dispersion.Overdispersed {
 		t.Errorf("dispersion %+v", ok.Dispersion)
+	}
+}
+
+// TestDispersionNotDrivenBySpecialCauses: the cases that made the check
+// advise Laney limits on the strength of the very lots a chart is there to
+// find. Each whole-baseline check finds extra spread; the robust checks
+// (without the lots beyond the limits, and lot to lot) do not, so the
+// advice says why and no overdispersion warning is given. Binomial lots
+// simulated with a fixed seed (simLots), p = 0.02, n 150–250.
+func TestDispersionNotDrivenBySpecialCauses(t *testing.T) {
+	sizes := []int64{150, 200, 250}
+	base := simLots(11, 60, sizes, 0.02, 0)
+	// One bad lot in the baseline (40 of 200: z ≈ 19).
+	bad := append([]Lot(nil), base...)
+	bad[30] = Lot{ID: "bad", Inspected: 200, Count: 40}
+	// A typo: 100 nonconforming keyed for 10 of the 250 inspected.
+	typo := append([]Lot(nil), base...)
+	typo[45] = Lot{ID: "typo", Inspected: 250, Count: 100}
+	// Four lots shifted to three times the rate after the limits were
+	// frozen at the in-control centre.
+	shifted := append([]Lot(nil), base[:40]...)
+	for i := range 4 {
+		shifted = append(shifted, Lot{ID: "s", Inspected: 200, Count: int64(11 + i)})
+	}
+	tests := []struct {
+		name string
+		lots []Lot
+		cfg  Config
+		why  string
+	}{
+		{"one bad lot", bad, Config{Chart: ChartP}, "only because of the 1 lot beyond the 3-sigma"},
+		{"one bad lot, Laney in use", bad, Config{Chart: ChartP, Method: MethodLaney}, "only because of the 1 lot beyond the 3-sigma"},
+		{"a typo lot", typo, Config{Chart: ChartNP}, "only because of the 1 lot beyond the 3-sigma"},
+		{"four shifted lots after freezing", shifted, Config{Chart: ChartP, Standard: &Standard{Center: 0.02, SigmaZ: 1}}, "beyond the 3-sigma binomial limits"},
+	}
+	for _, tt := range tests {
+		a, err := Analyze(tt.lots, tt.cfg)
+		if err != nil {
+			t.Fatal(err)
+		}
+		d := a.Dispersion
+		if !(d.PValue < 0.01 && d.Ratio > 1.5) {
+			t.Errorf("%s: the whole-baseline check finds no extra spread (p %.3g ratio %.3g); the case tests nothing", tt.name, d.PValue, d.Ratio)
+		}
+		if d.Overdispersed || hasWarning(a, "overdispersion") || d.Beyond == 0 || d.RobustSigmaZ > 1.3 {
+			t.Errorf("%s: %+v", tt.name, d)
+		}
+		if !strings.Contains(d.Advice, tt.why) || strings.Contains(d.Advice, "suit this process better") {
+			t.Errorf("%s: advice %q, want %q", tt.name, d.Advice, tt.why)
+		}
+	}
+	// The same lots without the special causes: nothing to explain.
+	a, _ := Analyze(base, Config{Chart: ChartP})
+	if a.Dispersion.Overdispersed || a.Dispersion.TrimmedDF != 0 {
+		t.Errorf("in-control lots: %+v", a.Dispersion)
+	}
+}
+
+// TestDispersionShiftNotSpread: a rate that steps up halfway, with no lot
+// beyond the limits, looks overdispersed on the whole baseline but not
+// from one lot to the next; the advice names the shift. Lots of 1000 at
+// p = 0.03 then 0.05, no randomness (hand arithmetic: the z of the two
+// halves are about ±1.8 around p̄ = 0.04, within 3 sigma).
+func TestDispersionShiftNotSpread(t *testing.T) {
+	var lots []Lot
+	for i := range 40 {
+		d := int64(30 + i%3 - 1)
+		if i >= 20 {
+			d = int64(50 + i%3 - 1)
+		}
+		lots = append(lots, Lot{ID: "x", Inspected: 1000, Count: d})
+	}
+	a, _ := Analyze(lots, Config{Chart: ChartP})
+	d := a.Dispersion
+	if !(d.PValue < 0.01 && d.Ratio > 1.5) || d.Beyond != 0 {
+		t.Fatalf("whole-baseline check %+v; the case tests nothing", d)
+	}
+	if d.Overdispersed || !strings.Contains(d.Advice, "a shift or a drift") {
+		t.Errorf("%+v", d)
+	}
+}
+
+// TestMedianMovingRangeConstant: the median of |Z₁ − Z₂| for independent
+// standard normals is √2·Φ⁻¹(0.75) (Z₁ − Z₂ is normal with variance 2).
+func TestMedianMovingRangeConstant(t *testing.T) {
+	if want := math.Sqrt2 * distuv.UnitNormal.Quantile(0.75); math.Abs(medianMRConstant-want) > 5e-5 {
+		t.Errorf("constant %v, want %v", medianMRConstant, want)
+	}
+	// 1, 3, 2, 6: moving ranges 2, 1, 4, median 2.
+	if got := robustSigmaZ([]float64{1, 3, 2, 6}); math.Abs(got-2/medianMRConstant) > 1e-12 {
+		t.Errorf("robustSigmaZ = %v", got)
 	}
 }
