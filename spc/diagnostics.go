@@ -58,8 +58,8 @@ const (
 	overdispersionP     = 0.01
 	overdispersionRatio = 1.5
 	medianMRConstant    = 0.9539 // median of |Z₁ − Z₂| for independent standard normals: √2·Φ⁻¹(0.75)
-	minExpected         = 5  // nᵢp̄ and nᵢ(1−p̄), or nᵢū, below this: normal approximation poor
-	minBaselineLots     = 20 // trial limits are usually set from 20–25 lots
+	minExpected         = 5      // nᵢp̄ and nᵢ(1−p̄), or nᵢū, below this: normal approximation poor
+	minBaselineLots     = 20     // trial limits are usually set from 20–25 lots
 )
 
 func unknownExclusions(lots []Lot, exclude map[string]bool) []Warning {
