@@ -112,9 +112,12 @@ func diagnose(a *Analysis, cfg Config, minN, maxN int64, sigmaZ float64, cnt poi
 		a.Warnings = append(a.Warnings, Warning{Code: "zero-spread", Message: fmt.Sprintf(
 			"The lots cannot be standardized because %s: a lot on the centre line gets z = 0 and any other lot z = ±%g, and the limits collapse onto the centre line.", what, ZLimit)})
 	}
+	// The messages carry no "(common practice, no source)": that marks the
+	// rules of thumb in the code (see minBaselineLots, minExpected), not
+	// a phrase for the people reading the chart.
 	if cfg.Standard == nil && a.Baseline < minBaselineLots {
 		a.Warnings = append(a.Warnings, Warning{Code: "few-lots", Message: fmt.Sprintf(
-			"Only %s in the baseline; trial limits are usually set from 20 to 25 lots, so these limits are rough (common practice, no source).", plural(a.Baseline, "lot", "lots"))})
+			"Only %s in the baseline; trial limits are usually set from 20 to 25 lots, so these limits are rough.", plural(a.Baseline, "lot", "lots"))})
 	}
 
 	small, lclZero := cnt.small, cnt.lclZero
@@ -127,7 +130,7 @@ func diagnose(a *Analysis, cfg Config, minN, maxN int64, sigmaZ float64, cnt poi
 			rule = "c̄ below 5"
 		}
 		a.Warnings = append(a.Warnings, Warning{Code: "small-expected", Message: fmt.Sprintf(
-			"%s of %d expect so few counts (%s) that the normal approximation behind these limits is poor; exact limits suit them better (common practice, no source).",
+			"%s of %d expect so few counts (%s) that the normal approximation behind these limits is poor; exact limits suit them better.",
 			plural(small, "lot", "lots"), len(a.Points), rule)})
 	}
 	if lclZero > 0 && !zeroSpread {
@@ -207,7 +210,7 @@ func dispersion(a *Analysis, cfg Config, sigmaZ float64, zeroSpread bool) {
 	low := chi.CDF(d.ChiSquare)
 	whole := d.PValue < overdispersionP && d.Ratio > overdispersionRatio
 	test := fmt.Sprintf("chi-square %.4g on %d degrees of freedom, p = %.3g, ratio %.3g, σ_z = %.3g", d.ChiSquare, d.DF, d.PValue, d.Ratio, d.SigmaZ)
-	rule := "p < 0.01 and a ratio above 1.5, common practice"
+	rule := "p < 0.01 and a ratio above 1.5"
 	if !whole {
 		switch {
 		case d.PValue < 0.05:

@@ -540,7 +540,9 @@ func (sg *Signal) appendDescription(b []byte) []byte {
 		if sg.Rule == RuleWE3 || sg.Rule == RuleNelson6 {
 			z, tail, wide = sg.k/3, ", at least 4 in every 5", n > 5
 		}
-		b = append(num(b, sg.hits), " of "...)
+		if sg.hits < n {
+			b = append(num(b, sg.hits), " of "...)
+		}
 		b = append(num(b, n), " lots in a row more than "...)
 		b = append(append(append(zone(b, z), ' '), where...), " the centre line"...)
 		if wide {

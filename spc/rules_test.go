@@ -144,6 +144,9 @@ func TestSignalDescriptions(t *testing.T) {
 		{RuleNelson2.Set(), rep(0.4, 9), "9 lots in a row above the centre line"},
 		{RuleWE1.Set(), []float64{-3.5}, "1 lot below the lower control limit"},
 		{RuleWE2.Set(), []float64{2.1, 0, 2.1}, "2 of 3 lots in a row more than 2σ above the centre line"},
+		// Two in a row beyond 2σ meet the 2-of-3 rule without a third lot:
+		// the words say what the lots did, not "2 of 2".
+		{RuleWE2.Set(), []float64{0, 2.1, 2.1}, "2 lots in a row more than 2σ above the centre line"},
 		{RuleNelson3.Set(), ramp(0, -0.1, 6), "6 lots in a row each lower than the one before"},
 	} {
 		got := judge(tc.set, 3, tc.zs)
