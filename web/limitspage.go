@@ -3,8 +3,10 @@ package web
 import (
 	"errors"
 	"fmt"
+	"math"
 	"net/http"
 	"net/url"
+	"slices"
 	"strings"
 	"time"
 
@@ -18,19 +20,37 @@ type baseline struct {
 	First, Last string // lot codes; when given they take precedence
 	Excluded    map[string]string
 	Order       []string // excluded codes in the order given
+	// AsCause holds the excluded lots whose reason is to be recorded as
+	// the lot's assignable cause when the limits are frozen.
+	AsCause map[string]bool
 }
 
 func readBaseline(get func(string) string, all func(string) []string) baseline {
 	b := baseline{From: strings.TrimSpace(get("from")), To: strings.TrimSpace(get("to")),
-		First: strings.TrimSpace(get("first")), Last: strings.TrimSpace(get("last")), Excluded: map[string]string{}}
+		First: strings.TrimSpace(get("first")), Last: strings.TrimSpace(get("last")), Excluded: map[string]string{}, AsCause: map[string]bool{}}
 	for _, code := range all("ex") {
 		if _, dup := b.Excluded[code]; dup || code == "" {
 			continue
 		}
 		b.Excluded[code] = strings.TrimSpace(get("why:" + code))
 		b.Order = append(b.Order, code)
+		if get("cause:"+code) == "1" {
+			b.AsCause[code] = true
+		}
 	}
 	return b
+}
+
+// reasoned returns the exclusions that carry a reason: a lot is left out
+// of a baseline only with a reason, on Recompute as on Freeze.
+func (b baseline) reasoned() map[string]bool {
+	ex := map[string]bool{}
+	for code, why := range b.Excluded {
+		if why != "" {
+			ex[code] = true
+		}
+	}
+	return ex
 }
 
 // query is the baseline as URL parameters.
@@ -44,6 +64,9 @@ func (b baseline) query() url.Values {
 	for _, c := range b.Order {
 		q.Add("ex", c)
 		q.Set("why:"+c, b.Excluded[c])
+		if b.AsCause[c] {
+			q.Set("cause:"+c, "1")
+		}
 	}
 	return q
 }
@@ -111,6 +134,20 @@ type limitsData struct {
 	Reason    string
 	Problems  map[string]string
 	Units     string
+	// Methods compares the limits of the same baseline by each method,
+	// before freezing.
+	Methods []methodRow
+}
+
+// methodRow is the baseline judged by one limit method.
+type methodRow struct {
+	Method         spc.Method
+	InUse          bool
+	Centre, SigmaZ float64
+	N              int64   // the lot size the limits are shown for
+	LCL, UCL       float64 // at N
+	Out, Signals   int
+	Problem        string
 }
 
 // flaggedLot is a baseline lot that is out of limits, in a signal, or
@@ -118,6 +155,8 @@ type limitsData struct {
 type flaggedLot struct {
 	Code, Why, What string
 	Excluded        bool
+	AsCause         bool
+	HasCause        bool
 	Problem         string
 }
 
@@ -147,8 +186,9 @@ func (s *Server) showLimits(w http.ResponseWriter, r *http.Request, status int, 
 		d.Effective = s.now().In(p.Location()).Format(formTime)
 	}
 	for i := range d.Flagged {
-		if d.Flagged[i].Excluded && strings.TrimSpace(d.Flagged[i].Why) == "" && problems["excluded"] != "" {
-			d.Flagged[i].Problem = "give a reason for leaving this lot out"
+		f := &d.Flagged[i]
+		if _, asked := b.Excluded[f.Code]; asked && strings.TrimSpace(f.Why) == "" {
+			f.Problem = "give a reason for leaving this lot out; it stays in the estimate until then"
 		}
 	}
 	s.render(w, r, status, "limits.html", "Limits — "+p.Name, d)
@@ -181,13 +221,12 @@ func (s *Server) limitsData(r *http.Request, p store.Process, b baseline) (*limi
 		in[i] = spc.Lot{Code: l.Lot, Inspected: l.Inspected, Count: l.Count}
 		known[l.Lot] = true
 	}
-	ex := map[string]bool{}
+	ex := b.reasoned()
 	for code := range b.Excluded {
 		if !known[code] {
 			d.Problem = joinMsg(d.Problem, fmt.Sprintf("excluded lot %q is not in the baseline", code))
-			continue
+			delete(ex, code)
 		}
-		ex[code] = true
 	}
 	a, err := spc.Analyze(in, spc.Config{Chart: p.Chart, Method: p.Method, K: p.K, Rules: rules, Exclude: ex})
 	if err != nil {
@@ -212,7 +251,8 @@ func (s *Server) limitsData(r *http.Request, p store.Process, b baseline) (*limi
 		if !pt.Excluded && !pt.OutOfLimits() && pt.Rules == 0 {
 			continue
 		}
-		f := flaggedLot{Code: code, Excluded: pt.Excluded, Why: b.Excluded[code]}
+		_, asked := b.Excluded[code]
+		f := flaggedLot{Code: code, Excluded: pt.Excluded || asked, Why: b.Excluded[code], AsCause: b.AsCause[code]}
 		switch {
 		case pt.Above:
 			f.What = "above the UCL"
@@ -226,12 +266,52 @@ func (s *Server) limitsData(r *http.Request, p store.Process, b baseline) (*limi
 		}
 		for _, an := range anns {
 			if an.LotID == base[i].ID {
-				f.What += "; cause recorded: " + an.Cause
+				f.HasCause = true
+				if an.NoCauseFound {
+					f.What += "; no assignable cause found: " + an.Reason
+				} else {
+					f.What += "; cause recorded: " + an.Cause
+				}
 			}
 		}
 		d.Flagged = append(d.Flagged, f)
 	}
+	d.Methods = compareMethods(in, p, ex, rules)
 	return d, a, base, nil
+}
+
+// compareMethods judges the baseline by each limit method, with the same
+// exclusions, for the table beside the freeze form: the centre, σ_z, the
+// limits at the baseline's median lot size, and how many lots fall
+// outside and how many run-rule signals result.
+func compareMethods(in []spc.Lot, p store.Process, ex map[string]bool, rules spc.RuleSet) []methodRow {
+	sizes := make([]int64, len(in))
+	for i, l := range in {
+		sizes[i] = l.Inspected
+	}
+	slices.Sort(sizes)
+	n := sizes[len(sizes)/2]
+	var rows []methodRow
+	for _, m := range []spc.Method{spc.MethodSigma, spc.MethodExact, spc.MethodLaney} {
+		row := methodRow{Method: m, InUse: m == p.Method, N: n}
+		a, err := spc.Analyze(in, spc.Config{Chart: p.Chart, Method: m, K: p.K, Rules: rules, Exclude: ex})
+		if err != nil {
+			row.Problem = err.Error()
+			rows = append(rows, row)
+			continue
+		}
+		row.Centre, row.SigmaZ, row.Signals = a.Rate, a.SigmaZ, len(a.Signals)
+		for i, pt := range a.Points {
+			if pt.OutOfLimits() {
+				row.Out++
+			}
+			if in[i].Inspected == n && row.UCL == 0 {
+				row.LCL, row.UCL = math.Max(0, pt.LCL), pt.UCL
+			}
+		}
+		rows = append(rows, row)
+	}
+	return rows
 }
 
 // freezeLimits recomputes the trial limits of the posted baseline and
@@ -266,6 +346,10 @@ func (s *Server) freezeLimits(w http.ResponseWriter, r *http.Request) {
 			problems["excluded"] = fmt.Sprintf("lot %s is left out without a reason", code)
 		}
 	}
+	lotID := map[string]int64{}
+	for _, l := range base {
+		lotID[l.Lot] = l.ID
+	}
 	if reason == "" {
 		problems["reason"] = "is empty: say why these limits are frozen"
 	}
@@ -299,6 +383,19 @@ func (s *Server) freezeLimits(w http.ResponseWriter, r *http.Request) {
 	if err != nil {
 		s.internalError(w, r, err)
 		return
+	}
+	// The reasons marked so become the lots' assignable causes, in the
+	// same step (the limit set first, so that a refused freeze records
+	// nothing).
+	for _, code := range b.Order {
+		if !b.AsCause[code] || lotID[code] == 0 {
+			continue
+		}
+		if _, err := s.db.AddAnnotation(r.Context(), who(r).user.Name, store.Annotation{ProcessID: p.ID, LotID: lotID[code],
+			Cause: b.Excluded[code], Action: fmt.Sprintf("left out of the baseline of limit set %d", ls.Number)}); err != nil {
+			s.internalError(w, r, fmt.Errorf("limit set %d is frozen, but the cause of lot %s could not be recorded: %w", ls.Number, code, err))
+			return
+		}
 	}
 	q := b.query()
 	q.Set("frozen", fmt.Sprint(ls.Number))

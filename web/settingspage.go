@@ -2,7 +2,9 @@ package web
 
 import (
 	"errors"
+	"fmt"
 	"net/http"
+	"net/url"
 	"strconv"
 	"strings"
 
@@ -22,6 +24,8 @@ type processForm struct {
 	Zones    []string
 	HasLots  bool
 	Done     bool
+	// MethodChange says what a change of the limit method changed.
+	MethodChange string
 }
 
 // Problem returns the message for a field, for the template.
@@ -135,6 +139,10 @@ func (s *Server) processSettingsPage(w http.ResponseWriter, r *http.Request) {
 	}
 	f := newProcessForm(processValues(p))
 	f.Proc, f.Editing, f.Done = p, true, r.URL.Query().Get("done") == "1"
+	if was := r.URL.Query().Get("was"); f.Done && was != "" && was != string(p.Method) {
+		f.MethodChange = fmt.Sprintf("The limit method changed from %s to %s. The trial limits, on which every lot before the first frozen limit set is judged, use %s from now on, and so will the next limit set you freeze; limit sets already frozen keep the method they were frozen with.",
+			was, p.Method, p.Method)
+	}
 	f.HasLots = s.hasLots(r, p)
 	s.render(w, r, http.StatusOK, "processform.html", "Settings — "+p.Name, f)
 }
@@ -160,7 +168,11 @@ func (s *Server) updateProcess(w http.ResponseWriter, r *http.Request) {
 	}
 	if len(f.Problems) == 0 {
 		np, err := s.db.UpdateProcess(r.Context(), who(r).user.Name, reason, p)
-		if s.savedProcess(w, r, &f, np, err) {
+		was := ""
+		if err == nil && np.Method != old.Method {
+			was = "&was=" + url.QueryEscape(string(old.Method))
+		}
+		if s.savedProcess(w, r, &f, np, err, was) {
 			return
 		}
 	}
@@ -172,7 +184,7 @@ func (s *Server) updateProcess(w http.ResponseWriter, r *http.Request) {
 // (true), or puts the store's refusal beside the form's fields (false:
 // the caller shows the form again); any other error is answered as an
 // internal error (true).
-func (s *Server) savedProcess(w http.ResponseWriter, r *http.Request, f *processForm, p store.Process, err error) bool {
+func (s *Server) savedProcess(w http.ResponseWriter, r *http.Request, f *processForm, p store.Process, err error, extra ...string) bool {
 	var ve *store.ValidationError
 	switch {
 	case errors.As(err, &ve):
@@ -185,6 +197,6 @@ func (s *Server) savedProcess(w http.ResponseWriter, r *http.Request, f *process
 		s.internalError(w, r, err)
 		return true
 	}
-	http.Redirect(w, r, "/processes/"+formatID(p.ID)+"/settings?done=1", http.StatusSeeOther)
+	http.Redirect(w, r, "/processes/"+formatID(p.ID)+"/settings?done=1"+strings.Join(extra, ""), http.StatusSeeOther)
 	return true
 }
