@@ -210,6 +210,15 @@ func dispersion(a *Analysis, cfg Config, sigmaZ float64, zeroSpread bool) {
 	low := chi.CDF(d.ChiSquare)
 	whole := d.PValue < overdispersionP && d.Ratio > overdispersionRatio
 	test := fmt.Sprintf("chi-square %.4g on %d degrees of freedom, p = %.3g, ratio %.3g, σ_z = %.3g", d.ChiSquare, d.DF, d.PValue, d.Ratio, d.SigmaZ)
+	if cfg.Standard != nil {
+		// Lots judged against a given centre are being monitored, not
+		// used to set limits: their spread about that centre mixes any
+		// shift with the lot-to-lot spread, and lots beyond the limits
+		// are signals to explain. The advice on the limits belongs to the
+		// baseline they were set from.
+		d.Advice = fmt.Sprintf("These lots are judged against a given centre (a frozen limit set), so their spread about it (%s) does not decide the limit method: the spread is checked on the baseline that limits are set from, and lots beyond these limits are signals to explain.", test)
+		return
+	}
 	rule := "p < 0.01 and a ratio above 1.5"
 	if !whole {
 		switch {

@@ -92,6 +92,9 @@ type chartView struct {
 	Signals     []viewSignal
 	Marks       []setMark
 	Notes       []string
+	// NotesScope says, when the period is narrower than the record, that
+	// the notes are about the limits worked out on the whole record.
+	NotesScope  string
 	Limits      string
 	Trial       bool
 	OutCount    int
@@ -304,28 +307,70 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 		v.Signals = append(v.Signals, vs)
 	}
 	v.SignalCount = len(v.Signals)
+	// The notes are about the limits the lots are judged against, worked
+	// out on the whole record: none when the period has no lot, and a
+	// period narrower than the record says so.
 	seenNote := map[string]bool{}
 	for _, w := range a.Warnings {
-		if !seenNote[w.Message] {
+		if len(v.Points) > 0 && !seenNote[w.Message] {
 			seenNote[w.Message] = true
 			v.Notes = append(v.Notes, w.Message)
 		}
 	}
-	if d := a.Dispersion; d.Overdispersed && d.Advice != "" && !seenNote[d.Advice] {
+	if d := a.Dispersion; len(v.Points) > 0 && d.Overdispersed && d.Advice != "" && !seenNote[d.Advice] {
 		v.Notes = append(v.Notes, d.Advice)
 	}
+	if len(v.Notes) > 0 && len(v.Points) < len(a.Points) {
+		v.NotesScope = fmt.Sprintf("worked out on the whole record of %s, on which the lots of this period are judged", plural(len(a.Points), v.Unit, v.Unit+"s"))
+	}
+	v.describeLimits(pc, setOf, lo, hi, a)
+	return v, nil
+}
+
+// describeLimits names the limits the page's badge and summary speak of,
+// from one source so that they agree: the limit set judging the last lot
+// of the period (or, for a period with no lot, the last lot of the
+// record), with that set's own method, k and centre; trial limits when
+// that lot is on trial limits, or when no set is frozen.
+func (v *chartView) describeLimits(pc *processChart, setOf []int, lo, hi int, a *spc.Analysis) {
+	loc := pc.proc.Location()
+	n := 0
 	switch {
-	case len(pc.sets) == 0:
-		v.Limits = "estimated from the lots themselves; an engineer freezes a limit set once a clean baseline is found"
-	default:
-		last := pc.sets[len(pc.sets)-1]
-		v.Limits = fmt.Sprintf("limit set %d, in force from %s (%s, k = %s)", last.Number,
-			fmtWhen(last.EffectiveFrom.In(loc)), last.Method, fmtFloat(last.K))
-		if v.Trial {
-			v.Limits += "; lots before the first set are on trial limits — not frozen"
+	case hi > lo:
+		n = setOf[hi-1]
+	case len(setOf) > 0:
+		n = setOf[len(setOf)-1]
+	}
+	var set *store.LimitSet
+	for i := range pc.sets {
+		if pc.sets[i].Number == n {
+			set = &pc.sets[i]
 		}
 	}
-	return v, nil
+	if set == nil {
+		v.Trial = true
+		v.Method, v.K, v.Rate = string(a.Method), a.K, a.Rate
+		if len(pc.sets) == 0 {
+			v.Limits = "estimated from the lots themselves; an engineer freezes a limit set once a clean baseline is found"
+		} else {
+			v.Limits = "estimated from the lots before the first limit set"
+		}
+	} else {
+		v.Method, v.K, v.Rate = string(set.Method), set.K, set.Center
+		v.Limits = fmt.Sprintf("limit set %d, in force from %s (%s, k = %s)", set.Number,
+			fmtWhen(set.EffectiveFrom.In(loc)), set.Method, fmtFloat(set.K))
+		if v.Trial {
+			v.Limits += "; lots of this period before the first set are on trial limits — not frozen"
+		}
+	}
+	if len(pc.lots) > 0 {
+		last := pc.lots[len(pc.lots)-1].Time
+		for _, ls := range pc.sets {
+			if ls.EffectiveFrom.After(last) {
+				v.Limits += fmt.Sprintf("; limit set %d comes into force from %s", ls.Number, fmtWhen(ls.EffectiveFrom.In(loc)))
+			}
+		}
+	}
 }
 
 func setFrom(sets []store.LimitSet, n int, loc *time.Location) string {
