@@ -20,7 +20,8 @@ import (
 // processes and the planning page in a real browser at a desktop width and
 // at 390 px (a phone): the review leads with its summary, sorted by
 // concern, and keeps its tables within the page; the filter narrows it to
-// one process with its section; the planning page draws its ARL chart.
+// one process with its section; the planning page draws its ARL chart;
+// the chart page and a lot's page (its history table) stay within 390 px.
 // Screenshots go to the screenshot folder (see DEVELOPERS.md).
 func TestE2EReviewAndPlanScreens(t *testing.T) {
 	if testing.Short() && os.Getenv("CI") != "true" {
@@ -50,7 +51,7 @@ func TestE2EReviewAndPlanScreens(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	e.addLots(t, 30, func(i int) int64 { return 4 })
+	own := e.addLots(t, 30, func(i int) int64 { return int64(2 + i%5) })
 	prev := spc.FormatISOWeek(spc.PreviousISOWeek(year, week))
 	srv := httptest.NewServer(e.h)
 	defer srv.Close()
@@ -68,6 +69,8 @@ func TestE2EReviewAndPlanScreens(t *testing.T) {
 		{"review", "/review?week=" + prev, `table.lw-summary`},
 		{"review-filtered", "/review?week=" + prev + "&process=line+03", `section.lw-process`},
 		{"plan", fmt.Sprintf("/plan?process=%d&p1=0.06&arl1=2", e.proc.ID), `#plan-chart[data-chart-ready]`},
+		{"chart", fmt.Sprintf("/processes/%d?period=all", e.proc.ID), `#chart[data-chart-ready]`},
+		{"lot", fmt.Sprintf("/lots/%d", own[3].ID), `#history`},
 	}
 	for _, pg := range pages {
 		for _, w := range []int64{1280, 390} {

@@ -75,12 +75,15 @@ func chartOptions(title string, v *chartView, idx []int) (options map[string]any
 	line.AssetsHost = "/static/"
 	line.SetGlobalOptions(
 		charts.WithAnimation(false),
-		charts.WithTitleOpts(opts.Title{Title: title}),
+		// The title sits inside the card's border, the legend on one
+		// line that scrolls on a narrow screen, and the y-axis name along
+		// the axis, where neither the card's edge nor the legend cuts it.
+		charts.WithTitleOpts(opts.Title{Title: title, Top: "8", Left: "10"}),
 		charts.WithTooltipOpts(opts.Tooltip{Show: opts.Bool(true), Trigger: "axis"}),
-		charts.WithLegendOpts(opts.Legend{Show: opts.Bool(true), Top: "28"}),
-		charts.WithGridOpts(opts.Grid{Left: "64", Right: "24", Top: "72", Bottom: "84"}),
+		charts.WithLegendOpts(opts.Legend{Show: opts.Bool(true), Type: "scroll", Top: "36", Left: "10", Right: "10"}),
+		charts.WithGridOpts(opts.Grid{Left: "72", Right: "24", Top: "72", Bottom: "84"}),
 		charts.WithXAxisOpts(opts.XAxis{Type: "category", Name: v.Unit, NameLocation: "middle", NameGap: 28, Data: codes}),
-		charts.WithYAxisOpts(opts.YAxis{Type: "value", Name: valueName(string(v.Proc.Chart)), Scale: opts.Bool(true)}),
+		charts.WithYAxisOpts(opts.YAxis{Type: "value", Name: valueName(string(v.Proc.Chart)), NameLocation: "middle", NameGap: 52, Scale: opts.Bool(true)}),
 		charts.WithDataZoomOpts(opts.DataZoom{Type: "inside"}, opts.DataZoom{Type: "slider"}),
 	)
 	line.SetXAxis(codes)

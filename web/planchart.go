@@ -48,7 +48,7 @@ func planChartOptions(curve []spc.Plan, floor, target float64, mark int64) map[s
 		charts.WithAnimation(false),
 		charts.WithTitleOpts(opts.Title{Title: "Run lengths against lot size", Top: "6", Left: "8", TitleStyle: &opts.TextStyle{FontSize: 15}}),
 		charts.WithTooltipOpts(opts.Tooltip{Show: opts.Bool(true), Trigger: "axis"}),
-		charts.WithLegendOpts(opts.Legend{Show: opts.Bool(true), Top: "34", Left: "8"}),
+		charts.WithLegendOpts(opts.Legend{Show: opts.Bool(true), Type: "scroll", Top: "34", Left: "8", Right: "8"}),
 		charts.WithGridOpts(opts.Grid{Left: "72", Right: "32", Top: "96", Bottom: "64"}),
 		charts.WithXAxisOpts(opts.XAxis{Type: "log", Name: "units per lot (log scale)", NameLocation: "middle", NameGap: 30}),
 		charts.WithYAxisOpts(opts.YAxis{Type: "log", Name: "lots (log scale)", NameLocation: "middle", NameGap: 48}),
