@@ -21,10 +21,10 @@ type Role string
 
 // The roles.
 const (
-	RoleViewer    Role = "viewer"    // reads charts and reports
-	RoleInspector Role = "inspector" // also logs lots
-	RoleEngineer  Role = "engineer"  // also sets limits, corrects lots, annotates
-	RoleAdmin     Role = "admin"     // also manages users and processes
+	RoleViewer    Role = "viewer"    // reads the board, charts, lots, reviews, plans
+	RoleInspector Role = "inspector" // also logs, corrects and voids lots; records causes
+	RoleEngineer  Role = "engineer"  // also adds and changes processes; freezes limit sets
+	RoleAdmin     Role = "admin"     // also manages users and API tokens
 )
 
 var roleRank = map[Role]int{RoleViewer: 1, RoleInspector: 2, RoleEngineer: 3, RoleAdmin: 4}

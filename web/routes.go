@@ -26,9 +26,11 @@ type route struct {
 	handle  func(w http.ResponseWriter, r *http.Request)
 }
 
-// routes is the route table. Roles: a viewer reads; an inspector also
-// logs lots and annotates; an engineer also manages processes and limit
-// sets; an admin also manages users and tokens.
+// routes is the route table, holding the least role of every route as
+// README's table of roles states them: a viewer reads; an inspector also
+// logs, corrects and voids lots and records causes; an engineer also adds
+// and changes processes and freezes limit sets; an admin also manages
+// users and tokens (TestRolesAsWrittenInREADME).
 func (s *Server) routes() []route {
 	return []route{
 		// Static files and sign-in are open.
@@ -177,7 +179,7 @@ func (s *Server) guard(rt route) http.Handler {
 			return
 		}
 		if !p.user.Role.AtLeast(rt.min) {
-			msg := "this needs the " + string(rt.min) + " role; " + p.user.Name + " is " + string(p.user.Role)
+			msg := "this needs the " + string(rt.min) + " role; you are signed in as " + p.user.Name + ", whose role is " + string(p.user.Role)
 			if isAPI(r) {
 				writeError(w, http.StatusForbidden, msg)
 				return

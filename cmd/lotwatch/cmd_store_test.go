@@ -10,6 +10,8 @@ import (
 	"testing"
 
 	_ "github.com/mattn/go-sqlite3"
+
+	"lotwatch/store"
 )
 
 // runCLI runs lotwatch with args and stdin and returns the exit status,
@@ -373,5 +375,33 @@ func TestEveryCommandHelpOnStdout(t *testing.T) {
 		if code != exitUsage || out != "" || strings.Count(errs, "\n") != 1 || !strings.Contains(errs, "no-such-option") {
 			t.Errorf("%s --no-such-option: exit %d, stdout %q, stderr %q", name, code, out, errs)
 		}
+	}
+}
+
+// TestUserHelpRolesAsREADME: `lotwatch user -h` states each role with the
+// words of README's table of roles (the one statement of them).
+func TestUserHelpRolesAsREADME(t *testing.T) {
+	b, err := os.ReadFile("../../README.md")
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, help, _ := runCLI(t, "", "user", "-h")
+	flat := strings.Join(strings.Fields(help), " ")
+	n := 0
+	for _, line := range strings.Split(string(b), "\n") {
+		cells := strings.Split(strings.Trim(line, "| "), " | ")
+		if len(cells) != 2 {
+			continue
+		}
+		if _, err := store.ParseRole(cells[0]); err != nil || cells[0] == "" {
+			continue
+		}
+		n++
+		if want := cells[0] + " " + cells[1]; !strings.Contains(flat, want) {
+			t.Errorf("user -h lacks %q", want)
+		}
+	}
+	if n != 4 {
+		t.Errorf("README's table of roles has %d rows, want 4", n)
 	}
 }

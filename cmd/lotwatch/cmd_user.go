@@ -43,11 +43,14 @@ Options:
   --db FILE     the lotwatch database file (created if missing)
   --name NAME   the sign-in name (no spaces)
   --role ROLE   what the user may do; each role may do all of the ones
-                before it:
-                  viewer     look at charts and reports
-                  inspector  also log lots
-                  engineer   also set limits, correct lots, annotate
-                  admin      also manage users and processes
+                before it (the table of roles in README.md):
+                  viewer     read the status board, charts, lots, the worklist,
+                             the weekly review and planning
+                  inspector  log lots (form, CSV upload, API); correct and void
+                             lots, each with a reason; record and close
+                             assignable causes
+                  engineer   add and change processes; freeze limit sets
+                  admin      manage users and API tokens
   --as NAME     the name recorded in the audit trail (default: your user
                 name on this computer)
   --format F    text (the default) or json, for list
