@@ -48,7 +48,9 @@ and thirteen weeks of lots drawn from a fixed seed (a drift on the harness line,
 a spike with its recorded assignable cause on the housing line, frozen limit
 sets on some processes and trial limits on others, one sign-in per role), then
 serves it. An existing database file is served as it is; delete it to start
-the demo afresh (the lots are placed so that the last of them is today).
+the demo afresh. The lots end on 27 November 2026 and the server's clock
+starts there, so that the pages show the same lots, with the same values,
+as testdata/demo and the README's worked example.
 
 Options:
 `, "\n"+caution)
@@ -59,9 +61,9 @@ Options:
 	if len(pos) > 0 {
 		return cliProblems(stderr, "demo", cliNoArgs(pos)...)
 	}
-	now := time.Now()
+	started := time.Now()
 	if *csvDir != "" {
-		if err := writeDemoCSV(*csvDir, demoPlant(now, demoSeed)); err != nil {
+		if err := writeDemoCSV(*csvDir, demoPlant(demoEnd, demoSeed)); err != nil {
 			fmt.Fprintf(stderr, "lotwatch demo: %v\n", err)
 			return exitFail
 		}
@@ -82,7 +84,7 @@ Options:
 	defer db.Close()
 	if fresh {
 		fmt.Fprintf(stdout, "building the demo plant in %s …\n", *dbPath)
-		if err := seedDemo(ctx, db, demoPlant(now, demoSeed)); err != nil {
+		if err := seedDemo(ctx, db, demoPlant(demoEnd, demoSeed)); err != nil {
 			db.Close()
 			os.Remove(*dbPath)
 			fmt.Fprintf(stderr, "lotwatch demo: %v\n", err)
@@ -90,7 +92,7 @@ Options:
 		}
 	}
 
-	srv, err := web.NewServer(web.Config{DB: db, Addr: *addr})
+	srv, err := web.NewServer(web.Config{DB: db, Addr: *addr, Now: demoClock(started)})
 	if err != nil {
 		fmt.Fprintf(stderr, "lotwatch demo: %v\n", err)
 		return exitFail
@@ -99,6 +101,7 @@ Options:
 	for _, u := range demoUsers {
 		fmt.Fprintf(stdout, "    %-10s password %-16s (%s)\n", u.name, u.password, u.role)
 	}
+	fmt.Fprintf(stdout, "  the demo's clock starts at %s, the end of its lots\n", demoEnd.Format("2006-01-02 15:04 MST"))
 	fmt.Fprintf(stdout, "  database: %s; stop with Ctrl-C\n\n%s", *dbPath, caution)
 	if err := srv.ListenAndServe(ctx); err != nil {
 		fmt.Fprintf(stderr, "lotwatch demo: %v\n", err)

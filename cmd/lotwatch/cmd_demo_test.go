@@ -6,7 +6,9 @@ import (
 	"fmt"
 	"net/http"
 	"net/http/httptest"
+	"os"
 	"path/filepath"
+	"regexp"
 	"testing"
 	"time"
 
@@ -26,11 +28,12 @@ func TestDemoDatabase(t *testing.T) {
 		t.Fatal(err)
 	}
 	defer db.Close()
-	end := time.Date(2026, 11, 27, 18, 0, 0, 0, time.UTC)
+	end := demoEnd
 	plant := demoPlant(end, demoSeed)
 	if err := seedDemo(ctx, db, plant); err != nil {
 		t.Fatal(err)
 	}
+	checkREADMEExample(t, db)
 	for _, u := range demoUsers {
 		if _, err := db.Authenticate(ctx, u.name, u.password); err != nil {
 			t.Errorf("demo sign-in %s: %v", u.name, err)
@@ -116,6 +119,42 @@ func TestDemoDatabase(t *testing.T) {
 		}
 		if len(notes) != len(dp.Causes) {
 			t.Errorf("%s: %d annotations, want %d", dp.Name, len(notes), len(dp.Causes))
+		}
+	}
+}
+
+// checkREADMEExample: every lot row of README's worked example (code,
+// inspected, count) is a lot of the demo database with those values, so
+// that the example is what a new user sees on screen.
+func checkREADMEExample(t *testing.T, db *store.DB) {
+	t.Helper()
+	b, err := os.ReadFile("../../README.md")
+	if err != nil {
+		t.Fatal(err)
+	}
+	stored := map[string][2]int64{}
+	procs, err := db.Processes(context.Background(), true)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, p := range procs {
+		lots, err := db.Lots(context.Background(), p.ID, time.Time{}, time.Time{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, l := range lots {
+			stored[l.Lot] = [2]int64{l.Inspected, l.Count}
+		}
+	}
+	row := regexp.MustCompile(`(?m)^\s+([A-Z][0-9]-\d{6}-\d{2})\s+(\d+)\s+(\d+)\s`)
+	rows := row.FindAllStringSubmatch(string(b), -1)
+	if len(rows) == 0 {
+		t.Fatal("no lot rows found in README's worked example")
+	}
+	for _, m := range rows {
+		got, ok := stored[m[1]]
+		if want := m[2] + "/" + m[3]; !ok || fmt.Sprintf("%d/%d", got[0], got[1]) != want {
+			t.Errorf("README shows lot %s as %s inspected/count; the demo database holds %v (present: %v)", m[1], want, got, ok)
 		}
 	}
 }

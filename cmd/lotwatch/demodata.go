@@ -80,6 +80,20 @@ var demoInspectors = []string{"badge 114", "badge 207", "badge 318", "badge 425"
 // demoWeeks weeks that end on the day of end (in the plant's zone). The
 // values depend only on the seed; end only places them in time, so that
 // the demo always shows "today".
+// demoEnd is the end of the demo plant's record: the last of its lots
+// comes before it. The demo database, `demo --csv` and testdata/demo (the
+// README's worked example) are all drawn up to it, so that a lot code holds
+// the same values wherever a new user meets it; the demo server's clock
+// starts there (demoClock).
+var demoEnd = time.Date(2026, 11, 27, 18, 0, 0, 0, time.UTC)
+
+// demoClock is the clock of the demo server: demoEnd when the server
+// starts, running on from there, so that "today" on the board is the demo
+// plant's last day.
+func demoClock(started time.Time) func() time.Time {
+	return func() time.Time { return demoEnd.Add(time.Since(started)) }
+}
+
 func demoPlant(end time.Time, seed uint64) []demoProcess {
 	loc, err := time.LoadLocation(demoZone)
 	if err != nil {

@@ -6,21 +6,16 @@ import (
 	"os"
 	"path/filepath"
 	"testing"
-	"time"
 )
 
 var updateFixtures = flag.Bool("update", false, "rewrite the demo CSV files in testdata/demo from the generator")
-
-// demoFixtureEnd anchors the committed demo CSV files in time; the live
-// demo anchors the same seeded values at the day it is built.
-var demoFixtureEnd = time.Date(2026, 11, 27, 18, 0, 0, 0, time.UTC)
 
 // TestDemoCSVFixtures keeps testdata/demo (used by the README's worked
 // example) equal to what the seeded generator writes.
 // Regenerate with: go test ./cmd/lotwatch -run DemoCSVFixtures -update
 func TestDemoCSVFixtures(t *testing.T) {
 	dir := filepath.Join("..", "..", "testdata", "demo")
-	for _, dp := range demoPlant(demoFixtureEnd, demoSeed) {
+	for _, dp := range demoPlant(demoEnd, demoSeed) {
 		name := filepath.Join(dir, demoFileName(dp.Name))
 		want := demoCSV(dp)
 		if *updateFixtures {
