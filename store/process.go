@@ -260,6 +260,13 @@ func (db *DB) AddProcess(ctx context.Context, actor string, p Process) (Process,
 // addActiveProcess checks p, fills its defaults and adds it as active: for
 // AddProcess and for an import that creates its process.
 func (w *wtx) addActiveProcess(actor string, p Process) (Process, error) {
+	if strings.TrimSpace(p.TimeZone) == "" {
+		tz, err := plantTimeZoneIn(w.Tx)
+		if err != nil {
+			return Process{}, err
+		}
+		p.TimeZone = tz // the plant's zone, for a process given none
+	}
 	if ps := normalizeProcess(&p); len(ps) > 0 {
 		return Process{}, invalid(ps...)
 	}

@@ -87,6 +87,7 @@ var authzRoutes = map[string]authzRoute{
 	"POST /processes/{id}/limits":                   {min: store.RoleEngineer, path: "/processes/{id}/limits", body: "reason=baseline+of+the+first+lots", form: true, writes: true, ok: 303},
 	"GET /settings/processes":                       {min: store.RoleEngineer, path: "/settings/processes", ok: 200},
 	"POST /settings/processes":                      {min: store.RoleEngineer, form: true, writes: true, ok: 303, setup: fxNewProcess},
+	"POST /settings/plant":                          {min: store.RoleEngineer, path: "/settings/plant", body: "tz=Europe%2FBerlin&reason=the+plant+is+in+Berlin", form: true, writes: true, ok: 303},
 	"GET /processes/{id}/settings":                  {min: store.RoleEngineer, path: "/processes/{id}/settings", ok: 200},
 	"POST /processes/{id}/settings":                 {min: store.RoleEngineer, form: true, writes: true, ok: 303, setup: fxProcessToEdit},
 	"GET /admin/users":                              {min: store.RoleAdmin, path: "/admin/users", ok: 200},

@@ -72,3 +72,23 @@ func TestMethodChangeSaysWhatItChanges(t *testing.T) {
 		}
 	}
 }
+
+// TestPlantZoneForNewProcesses: the new-process form starts with the
+// plant's time zone once an engineer sets it.
+func TestPlantZoneForNewProcesses(t *testing.T) {
+	e := newTestEnv(t)
+	c := e.signIn(t, "engineer1", testPassword)
+	form := url.Values{"tz": {"Europe/Warsaw"}, "reason": {"the plant is in Poznań"}}
+	rec := e.do(req{method: "POST", path: "/settings/plant", cookie: c, form: true, headers: sameOriginForm(), body: form.Encode()})
+	if rec.Code != http.StatusSeeOther {
+		t.Fatalf("set zone: status %d", rec.Code)
+	}
+	body := e.do(req{method: "GET", path: "/settings/processes", cookie: c}).Body.String()
+	if !strings.Contains(body, `name="tz" type="text" value="Europe/Warsaw"`) || !strings.Contains(body, "<strong>Europe/Warsaw</strong>") {
+		t.Error("the new-process form does not start with the plant's zone")
+	}
+	rec = e.do(req{method: "POST", path: "/settings/plant", cookie: c, form: true, headers: sameOriginForm(), body: url.Values{"tz": {"Nowhere/Else"}, "reason": {"x"}}.Encode()})
+	if rec.Code != http.StatusBadRequest || !strings.Contains(rec.Body.String(), "Nowhere/Else") {
+		t.Errorf("bad zone: status %d", rec.Code)
+	}
+}

@@ -53,6 +53,7 @@ func TestRolesAsWrittenInREADME(t *testing.T) {
 		{"record and close assignable causes", []string{"POST /lots/{lot}/causes", "POST /lots/{lot}/causes/{ann}/close", "POST /api/v1/processes/{id}/lots/{lot}/causes"}},
 		{"add and change processes", []string{"POST /settings/processes", "POST /processes/{id}/settings"}},
 		{"freeze limit sets", []string{"POST /processes/{id}/limits"}},
+		{"set the plant's time zone", []string{"POST /settings/plant"}},
 		{"manage users and API tokens", []string{"POST /admin/users", "POST /admin/tokens"}},
 	} {
 		var role store.Role

@@ -75,6 +75,7 @@ func (s *Server) routes() []route {
 		{"POST", "/admin/tokens/{tok}/revoke", store.RoleAdmin, s.revokeToken},
 		{"GET", "/settings/processes", store.RoleEngineer, s.processListPage},
 		{"POST", "/settings/processes", store.RoleEngineer, s.addProcess},
+		{"POST", "/settings/plant", store.RoleEngineer, s.setPlantZone},
 		{"GET", "/processes/{id}/settings", store.RoleEngineer, s.processSettingsPage},
 		{"POST", "/processes/{id}/settings", store.RoleEngineer, s.updateProcess},
 		{"GET", "/alerts", store.RoleEngineer, s.alertsPage},

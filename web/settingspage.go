@@ -105,19 +105,59 @@ func (f *processForm) place(ps []store.Problem) {
 type processListData struct {
 	Processes []store.Process
 	Form      processForm
+	// PlantZone is the zone new processes get; ZoneForm its form.
+	PlantZone string
+	ZoneForm  processForm
+	ZoneSaved bool
 }
 
+// processListPage lists the processes with the form for a new one, whose
+// time zone starts as the plant's, and the form setting the plant's zone.
 func (s *Server) processListPage(w http.ResponseWriter, r *http.Request) {
-	s.showProcessList(w, r, http.StatusOK, newProcessForm(map[string]string{"chart": "p", "method": "sigma", "k": "3", "rules": "we", "tz": "UTC"}))
+	tz, err := s.db.PlantTimeZone(r.Context())
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	s.showProcessList(w, r, http.StatusOK, newProcessForm(map[string]string{"chart": "p", "method": "sigma", "k": "3", "rules": "we", "tz": tz}),
+		newProcessForm(map[string]string{"tz": tz}))
 }
 
-func (s *Server) showProcessList(w http.ResponseWriter, r *http.Request, status int, f processForm) {
+func (s *Server) showProcessList(w http.ResponseWriter, r *http.Request, status int, f processForm, zf ...processForm) {
 	ps, err := s.db.Processes(r.Context(), true)
 	if err != nil {
 		s.internalError(w, r, err)
 		return
 	}
-	s.render(w, r, status, "processlist.html", "Processes", processListData{Processes: ps, Form: f})
+	tz, err := s.db.PlantTimeZone(r.Context())
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
+	d := processListData{Processes: ps, Form: f, PlantZone: tz, ZoneForm: newProcessForm(map[string]string{"tz": tz}),
+		ZoneSaved: r.URL.Query().Get("zone") == "saved"}
+	if len(zf) > 0 {
+		d.ZoneForm = zf[0]
+	}
+	s.render(w, r, status, "processlist.html", "Processes", d)
+}
+
+// setPlantZone sets the plant's time zone, which new processes get.
+func (s *Server) setPlantZone(w http.ResponseWriter, r *http.Request) {
+	zf := newProcessForm(map[string]string{"tz": strings.TrimSpace(r.PostFormValue("tz")), "reason": r.PostFormValue("reason")})
+	err := s.db.SetPlantTimeZone(r.Context(), who(r).user.Name, zf.Values["reason"], zf.Values["tz"])
+	var ve *store.ValidationError
+	switch {
+	case errors.As(err, &ve):
+		for _, pr := range ve.Problems {
+			zf.Problems[pr.Field] = pr.String()
+		}
+		s.showProcessList(w, r, http.StatusBadRequest, newProcessForm(map[string]string{"chart": "p", "method": "sigma", "k": "3", "rules": "we", "tz": zf.Values["tz"]}), zf)
+	case err != nil:
+		s.internalError(w, r, err)
+	default:
+		http.Redirect(w, r, "/settings/processes?zone=saved", http.StatusSeeOther)
+	}
 }
 
 func (s *Server) addProcess(w http.ResponseWriter, r *http.Request) {

@@ -119,6 +119,9 @@ func seedDemo(ctx context.Context, db *store.DB, plant []demoProcess) error {
 			return fmt.Errorf("demo user %s: %w", u.name, err)
 		}
 	}
+	if err := db.SetPlantTimeZone(ctx, "engineer", "Quillmoor Works runs on Berlin time", demoZone); err != nil {
+		return fmt.Errorf("demo time zone: %w", err)
+	}
 	for _, dp := range plant {
 		p, err := db.AddProcess(ctx, "engineer", store.Process{
 			Name: dp.Name, Description: dp.Description, Chart: dp.Chart, Method: dp.Method,

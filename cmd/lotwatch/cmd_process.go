@@ -40,9 +40,10 @@ Options of "add":
   --categories LIST  defect categories counted per lot, comma-separated,
                      e.g. dent,scratch,burr (each becomes a column of the
                      lot file)
-  --tz ZONE          the plant's time zone, an IANA name such as
-                     Europe/Berlin (default UTC); lot times written without
-                     an offset are read in it
+  --tz ZONE          the process's time zone, an IANA name such as
+                     Europe/Berlin (default: the plant's time zone, set on
+                     the web's Processes page; UTC until set); lot times
+                     written without an offset are read in it
   --description TEXT what the process is
   --area TEXT        the plant's area or line the process belongs to, e.g.
                      "Line 4" (for filtering the status board and worklist)
@@ -133,7 +134,7 @@ func runProcessAdd(args []string, stdout, stderr io.Writer) int {
 	name := fs.String("name", "", "")
 	chart := fs.String("chart", "p", "")
 	cats := fs.String("categories", "", "")
-	tz := fs.String("tz", "UTC", "")
+	tz := fs.String("tz", "", "")
 	desc := fs.String("description", "", "")
 	area := fs.String("area", "", "")
 	limits := fs.String("limits", "sigma", "")
@@ -166,7 +167,7 @@ func runProcessAdd(args []string, stdout, stderr io.Writer) int {
 	} else {
 		p.K = k
 	}
-	if _, err := time.LoadLocation(*tz); err != nil || *tz == "" || *tz == "Local" {
+	if _, err := time.LoadLocation(*tz); *tz != "" && (err != nil || *tz == "Local") {
 		probs = append(probs, fmt.Sprintf("--tz %q: want an IANA time zone name such as Europe/Berlin or UTC", *tz))
 	}
 	if *cats != "" {

@@ -49,7 +49,8 @@ Options:
                   inspector  log lots (form, CSV upload, API); correct and void
                              lots, each with a reason; record and close
                              assignable causes
-                  engineer   add and change processes; freeze limit sets
+                  engineer   add and change processes; set the plant's time
+                             zone; freeze limit sets
                   admin      manage users and API tokens
   --as NAME     the name recorded in the audit trail (default: your user
                 name on this computer)
