@@ -85,6 +85,7 @@ func TestRouteRoles(t *testing.T) {
 		{"POST", "/alerts/999999/remove", func() string { return "" }, true, least(store.RoleEngineer, notFound), "/alerts/{rule}/remove"},
 		{"POST", "/alerts/999999/test", func() string { return "" }, true, least(store.RoleEngineer, notFound), "/alerts/{rule}/test"},
 		{"POST", "/settings/processes", fresh("name=Press+%d&chart=c&method=sigma&k=3&rules=we&tz=UTC"), true, least(store.RoleEngineer, see), ""},
+		{"POST", "/settings/plant", func() string { return "tz=UTC&reason=" }, true, least(store.RoleEngineer, bad), ""},
 		{"GET", "/upload", nil, false, least(store.RoleInspector, ok), ""},
 		{"POST", "/upload", func() string { return "process=" + id }, true, least(store.RoleInspector, bad), ""},
 		{"POST", "/upload/0123456789abcdef", func() string { return "" }, true, least(store.RoleInspector, notFound), "/upload/{key}"},
