@@ -1,4 +1,4 @@
--- 0007: settings of the plant as a whole, one value per key. The first is
+-- 0008: settings of the plant as a whole, one value per key. The first is
 -- time_zone, the IANA zone that new processes get when none is given
 -- (UTC while unset). Changes are written through SetPlantTimeZone, which
 -- records them in the audit trail.
