@@ -71,15 +71,15 @@ func TestDispersionNotDrivenBySpecialCauses(t *testing.T) {
 	base := simLots(11, 60, sizes, 0.02, 0)
 	// One bad lot in the baseline (40 of 200: z ≈ 19).
 	bad := append([]Lot(nil), base...)
-	bad[30] = Lot{ID: "bad", Inspected: 200, Count: 40}
+	bad[30] = Lot{Code: "bad", Inspected: 200, Count: 40}
 	// A typo: 100 nonconforming keyed for 10 of the 250 inspected.
 	typo := append([]Lot(nil), base...)
-	typo[45] = Lot{ID: "typo", Inspected: 250, Count: 100}
+	typo[45] = Lot{Code: "typo", Inspected: 250, Count: 100}
 	// Four lots shifted to three times the rate after the limits were
 	// frozen at the in-control centre.
 	shifted := append([]Lot(nil), base[:40]...)
 	for i := range 4 {
-		shifted = append(shifted, Lot{ID: "s", Inspected: 200, Count: int64(11 + i)})
+		shifted = append(shifted, Lot{Code: "s", Inspected: 200, Count: int64(11 + i)})
 	}
 	tests := []struct {
 		name string
@@ -127,7 +127,7 @@ func TestDispersionShiftNotSpread(t *testing.T) {
 		if i >= 20 {
 			d = int64(50 + i%3 - 1)
 		}
-		lots = append(lots, Lot{ID: "x", Inspected: 1000, Count: d})
+		lots = append(lots, Lot{Code: "x", Inspected: 1000, Count: d})
 	}
 	a, _ := Analyze(lots, Config{Chart: ChartP})
 	d := a.Dispersion
