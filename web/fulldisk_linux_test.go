@@ -15,9 +15,9 @@ import (
 	"lotwatch/store"
 )
 
-// fullDisk mounts a small tmpfs (Linux) for a database, or skips the test when
-// it may not (mounting needs root, as the tests run in CI). It returns
-// the folder and a function that fills the disk to the last byte.
+// fullDisk mounts a small tmpfs for a database, or skips the test when
+// it may not (mounting needs root, which the tests have in CI). It
+// returns the folder and a function that fills the disk to the last byte.
 func fullDisk(t *testing.T) (dir string, fill func()) {
 	t.Helper()
 	dir = t.TempDir()
