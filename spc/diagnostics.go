@@ -275,8 +275,7 @@ func robustSpread(a *Analysis, cfg Config) {
 	rate := a.Rate
 	var kept []Lot
 	for _, l := range base {
-		v, ctr, sig := model(cfg.Chart, rate, float64(l.Inspected), float64(l.Count))
-		if math.Abs(zOf(v-ctr, sig)) > a.K {
+		if math.Abs(lotZ(newModel(cfg.Chart, rate), l)) > a.K {
 			d.Beyond++
 			continue
 		}
@@ -293,10 +292,8 @@ func robustSpread(a *Analysis, cfg Config) {
 		}
 		rate = sc / sn
 	}
-	z := func(l Lot) float64 {
-		v, ctr, sig := model(cfg.Chart, rate, float64(l.Inspected), float64(l.Count))
-		return zOf(v-ctr, sig)
-	}
+	m := newModel(cfg.Chart, rate)
+	z := func(l Lot) float64 { return lotZ(m, l) }
 	var chi float64
 	for _, l := range kept {
 		chi += z(l) * z(l)
@@ -315,6 +312,12 @@ func robustSpread(a *Analysis, cfg Config) {
 		zs[i] = z(l)
 	}
 	d.RobustSigmaZ = robustSigmaZ(zs)
+}
+
+// lotZ is the standardized distance of lot l from the centre of model m.
+func lotZ(m model, l Lot) float64 {
+	n := float64(l.Inspected)
+	return zOf(m.value(n, float64(l.Count))-m.center(n), m.sigma(n))
 }
 
 // robustSigmaZ estimates the spread of z from its median moving range:

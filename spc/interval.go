@@ -199,7 +199,8 @@ func agrestiCoull(d, n int64, level float64) (lo, hi float64) {
 // jeffreys returns the Jeffreys interval, the equal-tailed interval of the
 // beta(d+½, n−d+½) posterior under the Jeffreys prior, with the boundary
 // convention of Brown, Cai & DasGupta (2001, Statistical Science 16(2),
-// §4.1.2): lower = 0 at d = 0 and upper = 1 at d = n.
+// §4.1.2): lower = 0 at d = 0 and upper = 1 at d = n, where it is
+// therefore not equal-tailed.
 func jeffreys(d, n int64, level float64) (lo, hi float64) {
 	alpha := 1 - level
 	b := distuv.Beta{Alpha: float64(d) + 0.5, Beta: float64(n-d) + 0.5}

@@ -3,6 +3,7 @@ package spc
 import (
 	"errors"
 	"fmt"
+	"sort"
 )
 
 // Phase is one run of lots judged against one limit set: the lots from
@@ -56,7 +57,7 @@ func AnalyzePhases(lots []Lot, phases []Phase, rules RuleSet) (*Analysis, error)
 		}
 		cfg := ph.Config
 		cfg.Rules = 0
-		a, err := analyze(lots[ph.Start:end], cfg, ph.Start, nil)
+		a, err := analyze(lots[ph.Start:end], cfg, ph.Start)
 		if err != nil {
 			return nil, fmt.Errorf("phase %d: %w", j+1, err)
 		}
@@ -70,16 +71,9 @@ func AnalyzePhases(lots []Lot, phases []Phase, rules RuleSet) (*Analysis, error)
 		out.Chart, out.Method, out.K, out.Alpha = a.Chart, a.Method, a.K, a.Alpha
 		out.Rate, out.Center, out.SigmaZ, out.Baseline, out.Dispersion = a.Rate, a.Center, a.SigmaZ, a.Baseline, a.Dispersion
 	}
-	var e ruleEngine
-	e.reset(rules)
-	e.pts = out.Points
-	j := 0
-	for i := range out.Points {
-		for j+1 < len(phases) && i >= phases[j+1].Start {
-			j++
-		}
-		e.step(i, &out.Points[i], ks[j])
+	phaseOf := func(i int) int {
+		return sort.Search(len(phases), func(j int) bool { return phases[j].Start > i }) - 1
 	}
-	out.Signals = e.finish(out.Points)
+	out.Signals = applyRules(out.Points, rules, func(i int) float64 { return ks[phaseOf(i)] })
 	return out, nil
 }

@@ -2,8 +2,6 @@ package spc
 
 import (
 	"fmt"
-	"math"
-	"math/bits"
 	"strconv"
 	"strings"
 )
@@ -32,8 +30,14 @@ const (
 	RuleNelson5             // 2 of 3 lots in a row beyond 2σ on the same side
 	RuleNelson6             // 4 of 5 lots in a row beyond 1σ on the same side
 	RuleNelson7             // 15 lots in a row within 1σ of the centre line
-	RuleNelson8             // 8 lots in a row beyond 1σ, on either side
-	numRules
+	RuleNelson8             // 8 lots in a row beyond 1σ, on both sides of the centre line
+	numRunRules
+
+	// The shift monitors watched beside the chart (WatchShifts): their
+	// signals are of kind "shift".
+	RuleCUSUM = numRunRules     // the CUSUM reached its decision interval
+	RuleEWMA  = numRunRules + 1 // the EWMA beyond its limits
+	numRules  = numRunRules + 2
 )
 
 // RuleSet is a set of run rules, one bit per Rule. The zero value selects
@@ -51,6 +55,7 @@ const (
 var ruleNames = [numRules]string{
 	"we1", "we2", "we3", "we4",
 	"nelson1", "nelson2", "nelson3", "nelson4", "nelson5", "nelson6", "nelson7", "nelson8",
+	"cusum", "ewma",
 }
 
 var ruleDescriptions = [numRules]string{
@@ -65,7 +70,9 @@ var ruleDescriptions = [numRules]string{
 	"Nelson test 5: 2 of 3 lots in a row more than 2σ from the centre line on the same side",
 	"Nelson test 6: 4 of 5 lots in a row more than 1σ from the centre line on the same side",
 	"Nelson test 7: 15 lots in a row within 1σ of the centre line, on either side",
-	"Nelson test 8: 8 lots in a row more than 1σ from the centre line, on either side",
+	"Nelson test 8: 8 lots in a row more than 1σ from the centre line, on both sides of it",
+	"CUSUM: the cumulative sum of evidence for the shift to watch for reached its decision interval",
+	"EWMA: the weighted moving average of the rates beyond its limits",
 }
 
 // String returns the rule's short name, "we1" … "we4", "nelson1" … "nelson8".
@@ -84,6 +91,19 @@ func (r Rule) Describe() string {
 		return ruleDescriptions[r]
 	}
 	return "unknown rule"
+}
+
+// Kind is what sort of finding the rule's signals are: "limits" (a lot
+// beyond a control limit), "run" (a pattern of the run rules) or "shift"
+// (a CUSUM or EWMA signal).
+func (r Rule) Kind() string {
+	switch r {
+	case RuleWE1, RuleNelson1:
+		return "limits"
+	case RuleCUSUM, RuleEWMA:
+		return "shift"
+	}
+	return "run"
 }
 
 // Set returns the set holding only r.
@@ -118,6 +138,17 @@ func (s RuleSet) String() string {
 	return b.String()
 }
 
+// ParseRule returns the rule or shift monitor named exactly by name, as
+// Rule.String writes it ("we1" … "nelson8", "cusum", "ewma").
+func ParseRule(name string) (Rule, error) {
+	for r, n := range ruleNames {
+		if n == name {
+			return Rule(r), nil
+		}
+	}
+	return 0, fmt.Errorf("unknown rule %q", name)
+}
+
 // ParseRules returns the rule set named by s: "we" (Western Electric 1–4),
 // "nelson" (Nelson 1–8), "none", or a comma list of these and single rule
 // names such as "we1,nelson3".
@@ -140,7 +171,7 @@ func ParseRules(s string) (RuleSet, error) {
 			continue
 		}
 		found := false
-		for r, n := range ruleNames {
+		for r, n := range ruleNames[:numRunRules] {
 			if n == name {
 				set |= Rule(r).Set()
 				found = true
@@ -154,375 +185,260 @@ func ParseRules(s string) (RuleSet, error) {
 	return set, nil
 }
 
-// ruleEngine judges points one at a time with O(1) work and no allocation
-// per lot; it allocates only when a signal starts or grows, and then
-// only when a list of signals or lot IDs outgrows its capacity.
+// mark is what the run rules see of a judged lot: its z, the limit width
+// K of the limits it was judged against (zones at K/3 and 2K/3) and
+// whether it is beyond a control limit.
+type mark struct {
+	z, k         float64
+	above, below bool
+}
+
+func (m mark) beyond1(side int8) bool { return float64(side)*m.z > m.k/3 }
+func (m mark) beyond2(side int8) bool { return float64(side)*m.z > 2*m.k/3 }
+
+// A finding is a rule met at the latest lot: the pattern covers the last
+// span lots, on side (+1 above or increasing, −1 below or decreasing, 0
+// either), with hits of them taking part. span 0 means not met.
+type finding struct {
+	span, hits int
+	side       int8
+}
+
+// A check looks at the lots judged so far, h (the latest last), and
+// reports whether its rule is met at the latest lot.
 //
-// Conventions (documented on Analyze): a pattern signals at the lot that
-// completes it, and that lot must itself take part in the pattern (for
-// "2 of 3" the current lot is one of the two); "beyond" and "within" are
-// strict (a z exactly on a zone boundary is neither); z = 0 is on neither
-// side and breaks a same-side run; equal successive z break a trend and an
-// alternation. A signal that continues or repeats on the same side while
-// overlapping or touching the open signal of the same rule extends that
-// signal instead of adding another.
-type ruleEngine struct {
-	set            RuleSet
-	regs           ruleRegs
-	runUp, runDown int
-	alt            int
-	lastDir        int8
-	runInside      int
-	runOutside     int
-	prevZ          float64
-	havePrev       bool
-	open           [numRules]int
-	// signals are the signals found so far, without their lots and
-	// descriptions, which finish adds; they hold no pointer, so that
-	// growing the list neither clears nor scans memory.
-	signals []finding
+// Conventions: a pattern signals at the lot that completes it, and that
+// lot must itself take part in the pattern (for "2 of 3" the current lot
+// is one of the two); "beyond" and "within" are strict (a z exactly on a
+// zone boundary is neither); z = 0 is on neither side and breaks a
+// same-side run; equal successive z break a trend and an alternation. No
+// check looks back more than 15 lots.
+type check func(h []mark) finding
 
-	// pts are the points judged, when known while stepping: emit then
-	// marks their Rules and gathers the IDs of the lots of each rule's
-	// signals, in order, into ids; otherwise finish does.
-	pts []Point
-	ids [numRules][]string
-
-	// Which state the selected rules need, fixed by reset, so that a
-	// lot costs only the work of the rules chosen.
-	zones, sides, nelson bool
-	beyond               uint8 // 1 when rule 1 (WE or Nelson) is selected
-	// z1 and z2 are the zone boundaries K/3 and 2K/3 of zk.
-	zk, z1, z2 float64
+// beyondLimits: one lot beyond a control limit (Western Electric rule 1,
+// Nelson test 1).
+func beyondLimits(h []mark) finding {
+	switch last := h[len(h)-1]; {
+	case last.above:
+		return finding{1, 1, 1}
+	case last.below:
+		return finding{1, 1, -1}
+	}
+	return finding{}
 }
 
-func (e *ruleEngine) reset(set RuleSet) {
-	*e = ruleEngine{set: set}
-	for i := range e.open {
-		e.open[i] = -1
-	}
-	e.zones = set&(RuleWE2.Set()|RuleNelson5.Set()|RuleWE3.Set()|RuleNelson6.Set()) != 0
-	e.sides = set&(RuleWE4.Set()|RuleNelson2.Set()) != 0
-	e.nelson = set&(RuleNelson3.Set()|RuleNelson4.Set()|RuleNelson7.Set()|RuleNelson8.Set()) != 0
-	e.beyond = b2u(set&(RuleWE1.Set()|RuleNelson1.Set()) != 0)
-	e.zk = math.NaN()
-}
+// twoOfThreeBeyond2: 2 of 3 lots in a row more than 2σ from the centre
+// line on the same side (Western Electric rule 2, Nelson test 5).
+func twoOfThreeBeyond2(h []mark) finding { return someOf(h, 2, 3, mark.beyond2) }
 
-func b2u(b bool) uint8 {
-	if b {
-		return 1
-	}
-	return 0
-}
+// fourOfFiveBeyond1: 4 of 5 lots in a row more than 1σ from the centre
+// line on the same side (Western Electric rule 3, Nelson test 6).
+func fourOfFiveBeyond1(h []mark) finding { return someOf(h, 4, 5, mark.beyond1) }
 
-// twoOfThree[w] is 1 when the current lot (bit 0) is beyond the zone and
-// at least 2 of the 3 lots in w are; fourOfFive likewise for 4 of 5.
-var twoOfThree, fourOfFive = func() (a [8]uint8, b [32]uint8) {
-	for w := range a {
-		a[w] = b2u(w&1 != 0 && bits.OnesCount8(uint8(w)) >= 2)
-	}
-	for w := range b {
-		b[w] = b2u(w&1 != 0 && bits.OnesCount8(uint8(w)) >= 4)
-	}
-	return
-}()
-
-// step judges point i. k is the limit width in σ that sets the zones.
-//
-// The state of every selected rule is updated without branching on z;
-// only when some selected rule may be met at this lot does fire look at
-// the rules one by one.
-func (e *ruleEngine) step(i int, p *Point, k float64) {
-	if e.set == 0 {
-		return
-	}
-	z := p.Z
-	if k != e.zk {
-		e.zk, e.z1, e.z2 = k, k/3, 2*k/3
-	}
-	var may uint8
-	e.regs, may = e.regs.advance(z, e.z1, e.z2, e.zones, e.sides)
-	may |= e.beyond & (b2u(p.Above) | b2u(p.Below))
-	if e.nelson {
-		e.stepNelson(z, e.z1)
-		may |= b2u(e.runUp >= 5) | b2u(e.runDown >= 5) | b2u(e.alt >= 13) | b2u(e.runInside >= 15) | b2u(e.runOutside >= 8)
-	}
-	if may != 0 {
-		e.fire(i, p, k)
-	}
-}
-
-// ruleRegs is the state of the zone and same-side rules (Western
-// Electric 2–4, Nelson 2, 5 and 6), small enough for a loop to keep in
-// registers.
-type ruleRegs struct {
-	// zones holds four shift registers of the last lots, bit 0 = the
-	// current lot, one per byte: beyond +2σ, beyond −2σ, beyond +1σ,
-	// beyond −1σ.
-	zones              uint32
-	runAbove, runBelow int
-}
-
-// The bytes of ruleRegs.zones.
-const (
-	hi2Shift = 0
-	lo2Shift = 8
-	hi1Shift = 16
-	lo1Shift = 24
-)
-
-// advance takes in the z of the next lot, updating the zone registers
-// when zones is set and the same-side runs when sides is set, and
-// reports 1 when a zone or same-side rule may be met at this lot.
-func (r ruleRegs) advance(z, z1, z2 float64, zones, sides bool) (ruleRegs, uint8) {
-	var may uint8
-	if zones {
-		r.zones = r.zones<<1&0xfefefefe | uint32(b2u(z > z2))<<hi2Shift | uint32(b2u(z < -z2))<<lo2Shift |
-			uint32(b2u(z > z1))<<hi1Shift | uint32(b2u(z < -z1))<<lo1Shift
-		may = twoOfThree[r.zones>>hi2Shift&7] | twoOfThree[r.zones>>lo2Shift&7] |
-			fourOfFive[r.zones>>hi1Shift&31] | fourOfFive[r.zones>>lo1Shift&31]
-	}
-	if sides {
-		r.runAbove = (r.runAbove + 1) * int(b2u(z > 0))
-		r.runBelow = (r.runBelow + 1) * int(b2u(z < 0))
-		may |= b2u(r.runAbove >= 8) | b2u(r.runBelow >= 8)
-	}
-	return r, may
-}
-
-// advanceBits is advance for a lot whose comparisons of z are already
-// made: zones holds its bits of the zone registers (0 when no zone rule
-// is selected) and flags its recPos and recNeg bits (0 when no same-side
-// rule is selected).
-func (r ruleRegs) advanceBits(zones uint32, flags uint8) (ruleRegs, uint8) {
-	r.zones = r.zones<<1&0xfefefefe | zones
-	may := twoOfThree[r.zones>>hi2Shift&7] | twoOfThree[r.zones>>lo2Shift&7] |
-		fourOfFive[r.zones>>hi1Shift&31] | fourOfFive[r.zones>>lo1Shift&31]
-	r.runAbove = (r.runAbove + 1) * int(flags>>recPosBit&1)
-	r.runBelow = (r.runBelow + 1) * int(flags>>recNegBit&1)
-	may |= b2u(r.runAbove >= 8) | b2u(r.runBelow >= 8)
-	return r, may
-}
-
-// stepNelson updates the trend, alternation and zone-run counts.
-func (e *ruleEngine) stepNelson(z, z1 float64) {
-	if e.havePrev {
-		var dir int8
-		switch {
-		case z > e.prevZ:
-			dir = 1
-			e.runUp++
-			e.runDown = 0
-		case z < e.prevZ:
-			dir = -1
-			e.runDown++
-			e.runUp = 0
-		default:
-			e.runUp, e.runDown = 0, 0
+// someOf reports need of the last width lots beyond a zone on the side of
+// the latest lot, which must be one of them; the pattern starts at the
+// earliest of them.
+func someOf(h []mark, need, width int, beyond func(mark, int8) bool) finding {
+	for _, side := range []int8{1, -1} {
+		if !beyond(h[len(h)-1], side) {
+			continue
 		}
-		switch {
-		case dir == 0:
-			e.alt = 0
-		case e.lastDir != 0 && dir == -e.lastDir:
-			e.alt++
-		default:
-			e.alt = 1
-		}
-		e.lastDir = dir
-	}
-	e.prevZ, e.havePrev = z, true
-	e.runInside = (e.runInside + 1) * int(b2u(z < z1 && z > -z1))
-	e.runOutside = (e.runOutside + 1) * int(b2u(z > z1 || z < -z1))
-}
-
-// fire emits the signals of the selected rules met at lot i.
-func (e *ruleEngine) fire(i int, p *Point, k float64) {
-	s := e.set
-	if s&(RuleWE1.Set()|RuleNelson1.Set()) != 0 && (p.Above || p.Below) {
-		side := int8(1)
-		if p.Below {
-			side = -1
-		}
-		e.emitBoth(RuleWE1, RuleNelson1, i, i, side, 1, k)
-	}
-	if s&(RuleWE2.Set()|RuleNelson5.Set()) != 0 {
-		e.window(RuleWE2, RuleNelson5, i, uint8(e.regs.zones>>hi2Shift), 0b111, 2, 1, k)
-		e.window(RuleWE2, RuleNelson5, i, uint8(e.regs.zones>>lo2Shift), 0b111, 2, -1, k)
-	}
-	if s&(RuleWE3.Set()|RuleNelson6.Set()) != 0 {
-		e.window(RuleWE3, RuleNelson6, i, uint8(e.regs.zones>>hi1Shift), 0b11111, 4, 1, k)
-		e.window(RuleWE3, RuleNelson6, i, uint8(e.regs.zones>>lo1Shift), 0b11111, 4, -1, k)
-	}
-	if e.regs.runAbove >= 8 {
-		if s.Has(RuleWE4) {
-			e.emit(RuleWE4, i-e.regs.runAbove+1, i, 1, 1, k)
-		}
-		if e.regs.runAbove >= 9 && s.Has(RuleNelson2) {
-			e.emit(RuleNelson2, i-e.regs.runAbove+1, i, 1, 1, k)
-		}
-	}
-	if e.regs.runBelow >= 8 {
-		if s.Has(RuleWE4) {
-			e.emit(RuleWE4, i-e.regs.runBelow+1, i, -1, 1, k)
-		}
-		if e.regs.runBelow >= 9 && s.Has(RuleNelson2) {
-			e.emit(RuleNelson2, i-e.regs.runBelow+1, i, -1, 1, k)
-		}
-	}
-	if s.Has(RuleNelson3) {
-		if e.runUp >= 5 {
-			e.emit(RuleNelson3, i-e.runUp, i, 1, 1, k)
-		} else if e.runDown >= 5 {
-			e.emit(RuleNelson3, i-e.runDown, i, -1, 1, k)
-		}
-	}
-	if e.alt >= 13 && s.Has(RuleNelson4) {
-		e.emit(RuleNelson4, i-e.alt, i, 0, 1, k)
-	}
-	if e.runInside >= 15 && s.Has(RuleNelson7) {
-		e.emit(RuleNelson7, i-e.runInside+1, i, 0, 1, k)
-	}
-	if e.runOutside >= 8 && s.Has(RuleNelson8) {
-		e.emit(RuleNelson8, i-e.runOutside+1, i, 0, 1, k)
-	}
-}
-
-// window checks a "need of width" pattern: the current lot (bit 0) takes
-// part and at least need of the lots in mask do.
-func (e *ruleEngine) window(we, nelson Rule, i int, reg, mask uint8, need int, side int8, k float64) {
-	w := reg & mask
-	if w&1 == 0 || bits.OnesCount8(w) < need {
-		return
-	}
-	first := i - (7 - bits.LeadingZeros8(w)) // earliest lot taking part
-	e.emitBoth(we, nelson, first, i, side, bits.OnesCount8(w), k)
-}
-
-func (e *ruleEngine) emitBoth(we, nelson Rule, first, last int, side int8, hits int, k float64) {
-	if e.set.Has(we) {
-		e.emit(we, first, last, side, hits, k)
-	}
-	if e.set.Has(nelson) {
-		e.emit(nelson, first, last, side, hits, k)
-	}
-}
-
-// emit records that rule r is met over lots first..last. hits is the
-// number of lots taking part when a signal starts; an extension adds one
-// (the current lot).
-//
-// The lots newly covered are marked, and their IDs gathered, now, while
-// their points are still in the cache. A rule's open signal is its
-// latest, so its IDs are the end of the rule's list.
-func (e *ruleEngine) emit(r Rule, first, last int, side int8, hits int, k float64) {
-	if o := e.open[r]; o >= 0 {
-		sg := &e.signals[o]
-		if sg.Side == side && first <= sg.Last+1 {
-			if first < sg.First {
-				e.prepend(r, first, sg.First, sg.Last-sg.First+1)
-				sg.First = first
+		hits, span := 0, 0
+		for back := 1; back <= width && back <= len(h); back++ {
+			if beyond(h[len(h)-back], side) {
+				hits, span = hits+1, back
 			}
-			e.cover(r, sg.Last+1, last)
-			sg.Last = last
-			sg.hits++
-			return
+		}
+		if hits >= need {
+			return finding{span, hits, side}
 		}
 	}
-	e.open[r] = len(e.signals)
-	e.signals = append(e.signals, finding{Rule: r, First: first, Last: last, Side: side, hits: hits, k: k})
-	e.cover(r, first, last)
+	return finding{}
 }
 
-// cover marks lots from..to as taking part in rule r and appends their
-// IDs to the rule's list. It does nothing while the points are unknown.
-func (e *ruleEngine) cover(r Rule, from, to int) {
-	if e.pts == nil {
-		return
+// eightOnOneSide: 8 lots in a row on the same side of the centre line
+// (Western Electric rule 4).
+func eightOnOneSide(h []mark) finding { return sameSide(h, 8) }
+
+// nineOnOneSide: 9 lots in a row on the same side of the centre line
+// (Nelson test 2).
+func nineOnOneSide(h []mark) finding { return sameSide(h, 9) }
+
+// sameSide reports the last n lots all above, or all below, the centre.
+func sameSide(h []mark, n int) finding {
+	if len(h) < n {
+		return finding{}
 	}
-	bit := r.Set()
-	for j := from; j <= to; j++ {
-		e.pts[j].Rules |= bit
-		e.ids[r] = append(e.ids[r], e.pts[j].Lot.Code)
+	for _, side := range []int8{1, -1} {
+		if all(h[len(h)-n:], func(m mark) bool { return float64(side)*m.z > 0 }) {
+			return finding{n, 1, side}
+		}
 	}
+	return finding{}
 }
 
-// prepend puts the lots from up to before in front of the last have IDs
-// of rule r's list.
-func (e *ruleEngine) prepend(r Rule, from, before, have int) {
-	if e.pts == nil {
-		return
+// sixTrending: 6 lots in a row steadily increasing or steadily
+// decreasing (Nelson test 3).
+func sixTrending(h []mark) finding {
+	const n = 6
+	if len(h) < n {
+		return finding{}
 	}
-	add := before - from
-	ids := e.ids[r]
-	at := len(ids) - have
-	ids = append(ids, make([]string, add)...)
-	copy(ids[at+add:], ids[at:at+have])
-	for j := from; j < before; j++ {
-		e.pts[j].Rules |= r.Set()
-		ids[at+j-from] = e.pts[j].Lot.Code
+	last := h[len(h)-n:]
+	for _, side := range []int8{1, -1} {
+		steady := true
+		for j := 1; j < n && steady; j++ {
+			steady = float64(side)*(last[j].z-last[j-1].z) > 0
+		}
+		if steady {
+			return finding{n, 1, side}
+		}
 	}
-	e.ids[r] = ids
+	return finding{}
 }
 
-// finish fills in the lots and descriptions of the signals of the points
-// pts, marking the points first if the engine did not know them. The lot
-// IDs of the signals of one rule share that rule's list (each Lots slice
-// is capped, so appending to one copies it) and the descriptions one
-// string, so that the cost in allocations does not grow with the number
-// of signals.
-func (e *ruleEngine) finish(pts []Point) []Signal {
-	if len(e.signals) == 0 {
+// fourteenAlternating: 14 lots in a row alternating up and down (Nelson
+// test 4).
+func fourteenAlternating(h []mark) finding {
+	const n = 14
+	if len(h) < n {
+		return finding{}
+	}
+	last := h[len(h)-n:]
+	for j := 1; j < n; j++ {
+		d := last[j].z - last[j-1].z
+		if d == 0 || j > 1 && (d > 0) == (last[j-1].z-last[j-2].z > 0) {
+			return finding{}
+		}
+	}
+	return finding{n, 1, 0}
+}
+
+// fifteenWithin1: 15 lots in a row within 1σ of the centre line, on
+// either side (Nelson test 7).
+func fifteenWithin1(h []mark) finding {
+	const n = 15
+	if len(h) < n || !all(h[len(h)-n:], func(m mark) bool { return m.z < m.k/3 && m.z > -m.k/3 }) {
+		return finding{}
+	}
+	return finding{n, 1, 0}
+}
+
+// eightBeyond1: 8 lots in a row more than 1σ from the centre line, on
+// both sides of it, none within 1σ (Nelson test 8, as Nelson 1984 reads;
+// 8 on one side are already caught by tests 2, 5 and 6).
+func eightBeyond1(h []mark) finding {
+	const n = 8
+	if len(h) < n {
+		return finding{}
+	}
+	last := h[len(h)-n:]
+	if !all(last, func(m mark) bool { return m.beyond1(1) || m.beyond1(-1) }) ||
+		all(last, func(m mark) bool { return m.z > 0 }) || all(last, func(m mark) bool { return m.z < 0 }) {
+		return finding{}
+	}
+	return finding{n, 1, 0}
+}
+
+func all(h []mark, ok func(mark) bool) bool {
+	for _, m := range h {
+		if !ok(m) {
+			return false
+		}
+	}
+	return true
+}
+
+// checks holds the check of each rule, in the order they are applied at
+// a lot (which orders the signals found at the same lot).
+var checks = []ruleCheck{
+	{RuleWE1, beyondLimits},
+	{RuleNelson1, beyondLimits},
+	{RuleWE2, twoOfThreeBeyond2},
+	{RuleNelson5, twoOfThreeBeyond2},
+	{RuleWE3, fourOfFiveBeyond1},
+	{RuleNelson6, fourOfFiveBeyond1},
+	{RuleWE4, eightOnOneSide},
+	{RuleNelson2, nineOnOneSide},
+	{RuleNelson3, sixTrending},
+	{RuleNelson4, fourteenAlternating},
+	{RuleNelson7, fifteenWithin1},
+	{RuleNelson8, eightBeyond1},
+}
+
+type ruleCheck struct {
+	rule  Rule
+	check check
+}
+
+// longestLook is the most lots a check looks back at.
+const longestLook = 15
+
+// applyRules applies the rules of set to the points in order and returns
+// their signals; kOf gives the limit width of the limits point i was
+// judged against. It marks each point with the rules whose signals it
+// takes part in.
+//
+// A rule met again on the same side while its pattern overlaps or
+// touches the rule's latest signal (first ≤ that signal's last lot + 1)
+// extends that signal rather than starting another, so a run that keeps
+// going is one signal however long it grows.
+func applyRules(pts []Point, set RuleSet, kOf func(i int) float64) []Signal {
+	if set == 0 {
 		return nil
 	}
-	if e.pts == nil {
-		e.pts = pts
-		for si := range e.signals {
-			sg := &e.signals[si]
-			e.cover(sg.Rule, sg.First, sg.Last)
+	var active []ruleCheck
+	for _, c := range checks {
+		if set.Has(c.rule) {
+			active = append(active, c)
 		}
 	}
-	var from [numRules]int
-	text := make([]byte, 0, 64*len(e.signals))
-	ends := make([]int, len(e.signals))
-	out := make([]Signal, len(e.signals))
-	for si := range e.signals {
-		f := &e.signals[si]
-		sg := &out[si]
-		*sg = Signal{Rule: f.Rule, First: f.First, Last: f.Last, Side: f.Side, hits: f.hits, k: f.k}
-		at, n := from[sg.Rule], sg.Last-sg.First+1
-		sg.Lots = e.ids[sg.Rule][at : at+n : at+n]
-		from[sg.Rule] += n
-		text = sg.appendDescription(text)
-		ends[si] = len(text)
+	var signals []Signal
+	var open [numRules]int // index of each rule's latest signal, +1; 0 none
+	h := make([]mark, 0, 2*longestLook)
+	for i := range pts {
+		p := &pts[i]
+		if len(h) == cap(h) {
+			h = append(h[:0], h[len(h)-longestLook+1:]...)
+		}
+		h = append(h, mark{z: p.Z, k: kOf(i), above: p.Above, below: p.Below})
+		for _, c := range active {
+			f := c.check(h)
+			if f.span == 0 {
+				continue
+			}
+			first := i - f.span + 1
+			if o := open[c.rule] - 1; o >= 0 && signals[o].Side == f.side && first <= signals[o].Last+1 {
+				sg := &signals[o]
+				sg.First = min(sg.First, first)
+				sg.Last = i
+				sg.hits++
+				continue
+			}
+			signals = append(signals, Signal{Rule: c.rule, First: first, Last: i, Side: f.side, hits: f.hits, k: kOf(i)})
+			open[c.rule] = len(signals)
+		}
 	}
-	all := string(text)
-	at := 0
-	for si := range out {
-		out[si].Description = all[at:ends[si]]
-		at = ends[si]
+	for s := range signals {
+		sg := &signals[s]
+		sg.Lots = make([]string, 0, sg.Last-sg.First+1)
+		for j := sg.First; j <= sg.Last; j++ {
+			pts[j].Rules |= sg.Rule.Set()
+			sg.Lots = append(sg.Lots, pts[j].Lot.Code)
+		}
+		sg.Description = sg.describe()
 	}
-	return out
+	return signals
 }
 
-// finding is a Signal while the engine runs: its rule, lots, side, the
-// lots taking part and the limit width.
-type finding struct {
-	Rule        Rule
-	Side        int8
-	First, Last int
-	hits        int
-	k           float64
-}
-
-// appendDescription appends the signal in plain words to b.
-func (sg *Signal) appendDescription(b []byte) []byte {
+// describe says what the signal found, in plain words.
+func (sg *Signal) describe() string {
 	n := sg.Last - sg.First + 1
 	where := "above"
 	if sg.Side < 0 {
 		where = "below"
 	}
-	num := func(b []byte, v int) []byte { return strconv.AppendInt(b, int64(v), 10) }
-	zone := func(b []byte, z float64) []byte { return append(strconv.AppendFloat(b, z, 'g', 3, 64), "σ"...) }
+	zone := func(z float64) string { return strconv.FormatFloat(z, 'g', 3, 64) + "σ" }
 	switch sg.Rule {
 	case RuleWE1, RuleNelson1:
 		limit := "upper"
@@ -530,38 +446,43 @@ func (sg *Signal) appendDescription(b []byte) []byte {
 			limit = "lower"
 		}
 		if n == 1 {
-			return append(append(append(append(append(b, "1 lot "...), where...), " the "...), limit...), " control limit"...)
+			return fmt.Sprintf("1 lot %s the %s control limit", where, limit)
 		}
-		b = append(num(b, n), " lots in a row "...)
-		return append(append(append(append(b, where...), " the "...), limit...), " control limit"...)
-	case RuleWE2, RuleNelson5, RuleWE3, RuleNelson6:
-		z, tail := 2*sg.k/3, ", at least 2 in every 3"
-		wide := n > 3
-		if sg.Rule == RuleWE3 || sg.Rule == RuleNelson6 {
-			z, tail, wide = sg.k/3, ", at least 4 in every 5", n > 5
+		return fmt.Sprintf("%d lots in a row %s the %s control limit", n, where, limit)
+	case RuleWE2, RuleNelson5:
+		s := inRow(sg.hits, n) + fmt.Sprintf(" more than %s %s the centre line", zone(2*sg.k/3), where)
+		if n > 3 {
+			s += ", at least 2 in every 3"
 		}
-		if sg.hits < n {
-			b = append(num(b, sg.hits), " of "...)
+		return s
+	case RuleWE3, RuleNelson6:
+		s := inRow(sg.hits, n) + fmt.Sprintf(" more than %s %s the centre line", zone(sg.k/3), where)
+		if n > 5 {
+			s += ", at least 4 in every 5"
 		}
-		b = append(num(b, n), " lots in a row more than "...)
-		b = append(append(append(zone(b, z), ' '), where...), " the centre line"...)
-		if wide {
-			b = append(b, tail...)
-		}
-		return b
+		return s
 	case RuleWE4, RuleNelson2:
-		return append(append(append(num(b, n), " lots in a row "...), where...), " the centre line"...)
+		return fmt.Sprintf("%d lots in a row %s the centre line", n, where)
 	case RuleNelson3:
 		if sg.Side > 0 {
-			return append(num(b, n), " lots in a row each higher than the one before"...)
+			return fmt.Sprintf("%d lots in a row each higher than the one before", n)
 		}
-		return append(num(b, n), " lots in a row each lower than the one before"...)
+		return fmt.Sprintf("%d lots in a row each lower than the one before", n)
 	case RuleNelson4:
-		return append(num(b, n), " lots in a row alternating up and down"...)
+		return fmt.Sprintf("%d lots in a row alternating up and down", n)
 	case RuleNelson7:
-		return append(zone(append(num(b, n), " lots in a row within "...), sg.k/3), " of the centre line"...)
+		return fmt.Sprintf("%d lots in a row within %s of the centre line", n, zone(sg.k/3))
 	case RuleNelson8:
-		return append(zone(append(num(b, n), " lots in a row more than "...), sg.k/3), " from the centre line"...)
+		return fmt.Sprintf("%d lots in a row more than %s from the centre line, on both sides of it", n, zone(sg.k/3))
 	}
-	return append(b, sg.Rule.Describe()...)
+	return sg.Rule.Describe()
+}
+
+// inRow says how many of a zone signal's lots lie in the zone: "2 lots in a
+// row" when all of them do, "2 of 3 lots in a row" otherwise.
+func inRow(hits, n int) string {
+	if hits == n {
+		return fmt.Sprintf("%d lots in a row", n)
+	}
+	return fmt.Sprintf("%d of %d lots in a row", hits, n)
 }

@@ -10,13 +10,10 @@ import (
 // the limits when |z| > k, as with sigma limits.
 func judge(set RuleSet, k float64, zs []float64) []Signal {
 	pts := make([]Point, len(zs))
-	var e ruleEngine
-	e.reset(set)
 	for i, z := range zs {
 		pts[i] = Point{Lot: Lot{Code: fmt.Sprint(i)}, Z: z, Above: z > k, Below: z < -k}
-		e.step(i, &pts[i], k)
 	}
-	return e.finish(pts)
+	return applyRules(pts, set, func(int) float64 { return k })
 }
 
 func rep(z float64, n int) []float64 {
@@ -111,6 +108,9 @@ func TestRuleDefinitions(t *testing.T) {
 		{"nelson7 on the zone line is not within", RuleNelson7, 3, cat(rep(0.1, 7), []float64{1}, rep(0.1, 7)), nil},
 		{"nelson8 eight beyond 1σ", RuleNelson8, 3, cat([]float64{0}, alternate(1.5, -1.5, 8)), []span{{1, 8, 0}}},
 		{"nelson8 seven", RuleNelson8, 3, alternate(1.5, -1.5, 7), nil},
+		// Nelson (1984): "on both sides of the centre line"; one side is not test 8.
+		{"nelson8 all on one side", RuleNelson8, 3, rep(1.5, 10), nil},
+		{"nelson8 one lot on the other side", RuleNelson8, 3, cat(rep(1.5, 7), []float64{-1.5}), []span{{0, 7, 0}}},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {
@@ -174,24 +174,6 @@ func TestRulesThroughAnalyze(t *testing.T) {
 	}
 	if a.Points[14].Rules != RuleWE1.Set()|RuleNelson1.Set() || a.Points[13].Rules != 0 {
 		t.Errorf("point rules %v %v", a.Points[14].Rules, a.Points[13].Rules)
-	}
-}
-
-func TestRulesAllocateNothingPerLot(t *testing.T) {
-	// In-control z values that start no signal: stepping must not allocate.
-	pts := make([]Point, 1000)
-	for i := range pts {
-		pts[i].Z = []float64{0.3, -0.2, 0.9, -1.2, 0.1}[i%5]
-	}
-	var e ruleEngine
-	allocs := testing.AllocsPerRun(10, func() {
-		e.reset(RulesWE | RulesNelson)
-		for i := range pts {
-			e.step(i, &pts[i], 3)
-		}
-	})
-	if allocs != 0 {
-		t.Errorf("%v allocations per 1000 lots", allocs)
 	}
 }
 

@@ -1,72 +1,48 @@
 package spc
 
-import (
-	"math"
+import "math"
 
-	"gonum.org/v1/gonum/mathext"
-	"gonum.org/v1/gonum/stat/distuv"
-)
-
-// countDist is the distribution of a lot's count under the centre line:
-// binomial(n, p) or Poisson(mean).
+// countDist is the distribution of a lot's count when the process runs at
+// its centre line: binomial(n, p) for units (p and np charts) or
+// Poisson(mean) for defects (u and c charts).
 type countDist struct {
 	binomial bool
 	n        int64
 	p        float64
 	mean, sd float64
-	alpha2   float64
-
-	lcl, ucl int64 // exact limits; lcl < 0 until computed
-
-	// Per lot size, filled by prepare, which sets ready: centre, σᵢ and
-	// scaled σᵢ of the plotted statistic, the limits in plotted units,
-	// 1 when the expected counts are too small for normal limits and 1
-	// when the lower limit is 0, and the values a point of this size
-	// gets for Center, UCL, LCL and Sigma.
-	ready                          bool
-	ctr, sig, sigS                 float64
-	uclV, lclV                     float64
-	smallLot, lclZeroLot           int
-	outCtr, outUCL, outLCL, outSig float64
-
-	// The tails of the binomial counts near the mean, from one table
-	// (see tailTable) once calls counts have been asked for one by one.
-	calls    int
-	tabTried bool
-	tab      *tailTable
-	// many reports that many lots of this size are expected, so that the
-	// table is built at the first count asked for.
-	many bool
 }
 
-// tailWindow bounds the counts whose points are cached per lot size;
-// counts outside the window are rare and computed directly.
-const tailWindow = 4096
-
-// window returns the counts lo … lo+size−1 cached for this lot size: the
-// mean ± 12σ and 16 more on each side. ok is false when the window would
-// hold more than tailWindow counts.
-func (d *countDist) window() (lo int64, size int, ok bool) {
-	lo = max(0, int64(math.Floor(d.mean-12*d.sd-16)))
-	hi := int64(math.Ceil(d.mean + 12*d.sd + 16))
-	if d.binomial {
-		hi = min(hi, d.n)
-	}
-	if hi-lo+1 > tailWindow {
-		return 0, 0, false
-	}
-	return lo, int(hi - lo + 1), true
+// binomialDist returns the count distribution of a lot of n units at the
+// fraction nonconforming p.
+func binomialDist(n int64, p float64) countDist {
+	mean := float64(n) * p
+	return countDist{binomial: true, n: n, p: p, mean: mean, sd: math.Sqrt(mean * (1 - p))}
 }
 
-func (d *countDist) degenerate() bool {
+// poissonDist returns the count distribution of defects with the given mean.
+func poissonDist(mean float64) countDist {
+	return countDist{mean: mean, sd: math.Sqrt(mean)}
+}
+
+func (d countDist) degenerate() bool {
 	if d.binomial {
 		return d.p <= 0 || d.p >= 1
 	}
 	return d.mean <= 0
 }
 
+// tail returns the one-sided probability, under the centre line, of a
+// count at least as far from the mean as count in the direction observed:
+// P(X ≥ count) at or above the mean, P(X ≤ count) below it (Point.TailP).
+func (d countDist) tail(count int64) float64 {
+	if float64(count) >= d.mean {
+		return d.upper(count)
+	}
+	return d.lower(count)
+}
+
 // lower returns P(X ≤ k).
-func (d *countDist) lower(k int64) float64 {
+func (d countDist) lower(k int64) float64 {
 	switch {
 	case k < 0:
 		return 0
@@ -75,20 +51,16 @@ func (d *countDist) lower(k int64) float64 {
 			return 1
 		}
 		return 0
-	case d.binomial:
-		if k >= d.n {
-			return 1
-		}
-		return distuv.Binomial{N: float64(d.n), P: d.p}.CDF(float64(k))
+	case d.binomial && k >= d.n:
+		return 1
+	case float64(k) >= d.mean:
+		return 1 - d.upper(k+1)
 	}
-	return distuv.Poisson{Lambda: d.mean}.CDF(float64(k))
+	return d.sumDown(k)
 }
 
-// upper returns P(X ≥ k), computed without cancellation: for the
-// binomial as P(n − X ≤ n − k) with n − X ~ binomial(n, 1 − p); for the
-// Poisson as the regularized lower incomplete gamma P(k, λ)
-// (Abramowitz & Stegun 26.4.21 via 6.5.1).
-func (d *countDist) upper(k int64) float64 {
+// upper returns P(X ≥ k).
+func (d countDist) upper(k int64) float64 {
 	switch {
 	case k <= 0:
 		return 1
@@ -97,208 +69,139 @@ func (d *countDist) upper(k int64) float64 {
 			return 1
 		}
 		return 0
-	case d.binomial:
-		if k > d.n {
-			return 0
-		}
-		return distuv.Binomial{N: float64(d.n), P: 1 - d.p}.CDF(float64(d.n - k))
+	case d.binomial && k > d.n:
+		return 0
+	case float64(k) < d.mean:
+		return 1 - d.lower(k-1)
 	}
-	return mathext.GammaIncReg(float64(k), d.mean)
+	return d.sumUp(k)
 }
 
-// tailDirect returns the one-sided tail probability of count in the
-// direction observed (see Point.TailP).
-func (d *countDist) tailDirect(count int64) float64 {
-	if d.tab == nil && d.binomial && !d.tabTried && d.n <= tableMaxN {
-		// A table costs about as much as 32 calls per count it holds
-		// (a step of a recurrence against a continued fraction), so it
-		// is built once the counts asked for suggest it pays.
-		d.calls++
-		if _, size, ok := d.window(); ok && (d.many || d.calls >= 4 && d.calls*32 >= size) {
-			d.buildTable()
-		}
-	}
-	if t := d.tab; t != nil && count > 0 && count < d.n {
-		if j := uint64(count - t.lo); j < uint64(len(t.upper)) {
-			if float64(count) >= d.mean {
-				return t.upper[j]
-			}
-			return t.lower[j]
-		}
-	}
-	if float64(count) >= d.mean {
-		return d.upper(count)
-	}
-	return d.lower(count)
-}
-
-// buildTable makes the tail table of the counts of the window, once.
-func (d *countDist) buildTable() {
-	if d.tabTried || !d.binomial || d.n > tableMaxN {
-		return
-	}
-	d.tabTried = true
-	if lo, size, ok := d.window(); ok {
-		d.tab = newTailTable(d.n, d.p, lo, lo+int64(size)-1)
-	}
-}
-
-// tableCounts returns the counts lo … hi whose tails tailDirect takes
-// from the table; ok is false when there is no table.
-func (d *countDist) tableCounts() (lo, hi int64, ok bool) {
-	t := d.tab
-	if t == nil || len(t.upper) == 0 {
-		return 0, 0, false
-	}
-	return max(t.lo, 1), min(t.lo+int64(len(t.upper))-1, d.n-1), true
-}
-
-// distNormalQ returns the standard normal quantile of 1 − q, the
-// normal-theory starting point for the exact limit search.
-func distNormalQ(q float64) float64 {
-	return distuv.UnitNormal.Quantile(1 - q)
-}
-
-// tailTable holds P(X ≤ k) and P(X ≥ k) of a binomial(n, p) count X for
-// the counts k = lo … lo+len(lower)−1.
-type tailTable struct {
-	lo           int64
-	lower, upper []float64
-}
-
-// Bounds of the counts a tailTable holds: at most tableSteps steps of the
-// recurrence from the mode, so that rounding errors (at most about 2.5
-// units in the last place per step) stay below 10⁻¹², and probabilities
-// no smaller than tableTiny times that of the mode, far from underflow.
+// sumUp returns P(X ≥ k) for a count k at or above the mean, and sumDown
+// P(X ≤ k) for a count below it, as the probability of k times the sum of
+// the ratios of the probabilities of the counts beyond it,
 //
-// The table is used for lot sizes up to tableMaxN and tails from
-// tableMinTail, where it and the incomplete beta function of
-// Binomial.CDF agree to a relative 10⁻¹² (TestTailTable); beyond, the
-// latter's own error grows (to about 2·10⁻¹⁰ at n = 70000, where the
-// table agrees with SciPy's binom to 10⁻¹⁴).
-const (
-	tableSteps   = 1000
-	tableTiny    = 1e-250
-	tableMaxN    = 2000
-	tableMinTail = 1e-20
-)
-
-// farTail sums the terms t·ρ₀, t·ρ₀ρ₁, … with ρᵢ = ratio(i), for the
-// steps i < steps away from the mode, until the rest cannot change the sum:
-// away from the mode the ratios fall, so the rest is at most t·ρ/(1−ρ).
-// The terms are added from the far end inward, so that a small tail is a
-// sum of small terms and keeps its relative accuracy. buf is scratch
-// space, returned for reuse.
-func farTail(t float64, steps int64, ratio func(step int64) float64, buf []float64) (float64, []float64) {
-	buf = buf[:0]
-	sum := 0.0
-	for i := int64(0); i < steps; i++ {
-		rho := ratio(i)
+//	binomial: P(j+1)/P(j) = (n−j)/(j+1) · p/(1−p),   Poisson: P(j+1)/P(j) = λ/(j+1)
+//
+// (Johnson, Kemp & Kotz, Univariate Discrete Distributions, 3rd ed.,
+// eqs. 3.3 and 4.5), summed until the rest cannot change the sum. Away
+// from the mean the ratios fall, so the rest after a term t with ratio
+// ρ < 1 is at most t·ρ/(1−ρ). Every term is positive, so a small tail
+// keeps its relative accuracy; no subtraction is made.
+func (d countDist) sumUp(k int64) float64 {
+	t := d.pmf(k)
+	sum := t
+	q := d.p / (1 - d.p)
+	for j := k; t > 0 && (!d.binomial || j < d.n); j++ {
+		var rho float64
+		if d.binomial {
+			rho = float64(d.n-j) / float64(j+1) * q
+		} else {
+			rho = d.mean / float64(j+1)
+		}
 		t *= rho
-		buf = append(buf, t)
 		sum += t
-		if rho < 1 && t*rho/(1-rho) < 0x1p-60*sum || t == 0 {
+		if rho < 1 && t*rho/(1-rho) < 0x1p-60*sum {
 			break
 		}
 	}
-	total := 0.0
-	for j := len(buf) - 1; j >= 0; j-- {
-		total += buf[j]
-	}
-	return total, buf
+	return min(sum, 1)
 }
 
-// newTailTable returns the tails of binomial(n, p) for the counts lo … hi
-// (clamped to those it can hold with full accuracy), or nil when it holds
-// none.
+func (d countDist) sumDown(k int64) float64 {
+	t := d.pmf(k)
+	sum := t
+	q := d.p / (1 - d.p)
+	for j := k; t > 0 && j > 0; j-- {
+		var rho float64
+		if d.binomial {
+			rho = float64(j) / (float64(d.n-j+1) * q)
+		} else {
+			rho = float64(j) / d.mean
+		}
+		t *= rho
+		sum += t
+		if rho < 1 && t*rho/(1-rho) < 0x1p-60*sum {
+			break
+		}
+	}
+	return min(sum, 1)
+}
+
+// pmf returns P(X = k) by the saddle-point form of Loader (2000), "Fast
+// and accurate computation of binomial probabilities", which keeps full
+// relative accuracy for lots of any size:
 //
-// The probabilities relative to the mode m = ⌊(n+1)p⌋ follow from the
-// recurrence of the binomial probabilities (Johnson, Kemp & Kotz,
-// Univariate Discrete Distributions, 3rd ed., eq. 3.3),
+//	binomial: e^(δ(n) − δ(k) − δ(n−k) − D(k, np) − D(n−k, n(1−p))) · √(n / (2πk(n−k)))
+//	Poisson:  e^(−δ(k) − D(k, λ)) / √(2πk)
 //
-//	P(k+1)/P(k) = (n−k)/(k+1) · p/(1−p),
-//
-// outward from the mode, where each term is accurate to a few units in the
-// last place relative to itself. They are continued beyond lo and hi until
-// the rest cannot change the sums, then divided by their total. Each tail
-// is summed from its far end inward, so that a small tail is a sum of
-// small terms and keeps its relative accuracy.
-func newTailTable(n int64, p float64, lo, hi int64) *tailTable {
-	if !(p > 0 && p < 1) || n <= 1 {
-		return nil
+// with δ the error of Stirling's formula (stirlerr) and D the deviance
+// term (bd0).
+func (d countDist) pmf(k int64) float64 {
+	if d.binomial {
+		n, p := d.n, d.p
+		switch k {
+		case 0:
+			return math.Exp(float64(n) * math.Log1p(-p))
+		case n:
+			return math.Exp(float64(n) * math.Log(p))
+		}
+		nf, kf := float64(n), float64(k)
+		lc := stirlerr(nf) - stirlerr(kf) - stirlerr(nf-kf) - bd0(kf, nf*p) - bd0(nf-kf, nf*(1-p))
+		lf := math.Log(2*math.Pi) + math.Log(kf) + math.Log1p(-kf/nf)
+		return math.Exp(lc - 0.5*lf)
 	}
-	q := p / (1 - p)
-	m := int64(math.Floor(float64(n+1) * p))
-	m = min(max(m, 0), n)
-	lo = max(lo, 0, m-tableSteps)
-	hi = min(hi, n, m+tableSteps)
-	if lo > m || hi < m {
-		return nil
+	if k == 0 {
+		return math.Exp(-d.mean)
 	}
-	// r[k−lo] = P(k)/P(m) for lo ≤ k ≤ hi.
-	r := make([]float64, hi-lo+1)
-	r[m-lo] = 1
-	for k := m; k < hi; k++ {
-		r[k+1-lo] = r[k-lo] * (float64(n-k) / float64(k+1) * q)
+	kf := float64(k)
+	return math.Exp(-stirlerr(kf)-bd0(kf, d.mean)) / math.Sqrt(2*math.Pi*kf)
+}
+
+// stirlerr returns δ(n) = ln n! − ln(√(2πn)·(n/e)ⁿ), from ln Γ for small
+// n and from the Stirling series (1/12n − 1/360n³ + 1/1260n⁵ − …) above
+// (Loader 2000).
+func stirlerr(n float64) float64 {
+	const (
+		s0 = 1.0 / 12
+		s1 = 1.0 / 360
+		s2 = 1.0 / 1260
+		s3 = 1.0 / 1680
+		s4 = 1.0 / 1188
+	)
+	if n <= 15 {
+		lg, _ := math.Lgamma(n + 1)
+		return lg - (n+0.5)*math.Log(n) + n - 0.5*math.Log(2*math.Pi)
 	}
-	for k := m; k > lo; k-- {
-		r[k-1-lo] = r[k-lo] / (float64(n-k+1) / float64(k) * q)
+	nn := n * n
+	switch {
+	case n > 500:
+		return (s0 - s1/nn) / n
+	case n > 80:
+		return (s0 - (s1-s2/nn)/nn) / n
+	case n > 35:
+		return (s0 - (s1-(s2-s3/nn)/nn)/nn) / n
 	}
-	// Cut the counts whose terms are too small to hold.
-	a, b := int64(0), int64(len(r)-1)
-	for a < m-lo && r[a] < tableTiny {
-		a++
+	return (s0 - (s1-(s2-(s3-s4/nn)/nn)/nn)/nn) / n
+}
+
+// bd0 returns D(x, m) = x·ln(x/m) + m − x without cancellation: by its
+// series in v = (x−m)/(x+m) when x is near m (Loader 2000).
+func bd0(x, m float64) float64 {
+	if math.Abs(x-m) < 0.1*(x+m) {
+		v := (x - m) / (x + m)
+		s := (x - m) * v
+		ej := 2 * x * v
+		v *= v
+		for j := 1; j < 1000; j++ {
+			ej *= v
+			s1 := s + ej/float64(2*j+1)
+			if s1 == s {
+				return s1
+			}
+			s = s1
+		}
+		return s
 	}
-	for b > m-lo && r[b] < tableTiny {
-		b--
-	}
-	r = r[a : b+1]
-	lo += a
-	hi = lo + int64(len(r)) - 1
-	// The sums beyond hi and below lo (farTail).
-	var above, below float64
-	var buf []float64
-	if hi < n {
-		above, buf = farTail(r[len(r)-1], n-hi, func(step int64) float64 {
-			k := hi + step
-			return float64(n-k) / float64(k+1) * q // P(k+1)/P(k)
-		}, buf)
-	}
-	if lo > 0 {
-		below, _ = farTail(r[0], lo, func(step int64) float64 {
-			k := lo - step
-			return float64(k) / (float64(n-k+1) * q) // P(k−1)/P(k)
-		}, buf)
-	}
-	tt := &tailTable{lo: lo, lower: make([]float64, len(r)), upper: make([]float64, len(r))}
-	s := below
-	for i, v := range r {
-		s += v
-		tt.lower[i] = s
-	}
-	s = above
-	for i := len(r) - 1; i >= 0; i-- {
-		s += r[i]
-		tt.upper[i] = s
-	}
-	total := tt.lower[len(r)-1] + above
-	for i := range r {
-		tt.lower[i] /= total
-		tt.upper[i] /= total
-	}
-	// Keep the counts whose tails are at least tableMinTail, where the table
-	// and the incomplete beta function agree.
-	a, b = 0, int64(len(r)-1)
-	for a <= b && tt.lower[a] < tableMinTail {
-		a++
-	}
-	for b >= a && tt.upper[b] < tableMinTail {
-		b--
-	}
-	if a > b {
-		return nil
-	}
-	tt.lo += a
-	tt.lower, tt.upper = tt.lower[a:b+1], tt.upper[a:b+1]
-	return tt
+	return x*math.Log(x/m) + m - x
 }

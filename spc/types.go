@@ -56,18 +56,28 @@ type Lot struct {
 
 // MaxInspected is the largest number of units (or inspection units) one
 // lot may have, and the largest count: 10⁷, ten million, beyond any lot
-// that is inspected unit by unit. Up to it the binomial tail
-// probabilities agree with SciPy to 10⁻⁶ (relative) in the tails and to
-// 0.3 % at the centre (TestTailLargeLots); beyond about 3·10⁷ units the
-// incomplete-beta continued fraction behind gonum's binomial CDF fails
-// near the centre (it gave negative probabilities at 10⁹).
+// that is inspected unit by unit. It bounds what is logged (CheckLot);
+// subgroups pooled from several lots may be larger (MaxPooled).
 const MaxInspected = 10_000_000
+
+// MaxPooled is the largest number of units of a subgroup that pools
+// several lots (a day's or a shift's, Σn), and the largest count: 10¹²,
+// a hundred thousand lots of MaxInspected. Analyze takes such subgroups;
+// its tail probabilities are sums of binomial or Poisson terms and stay
+// accurate at any size (see countDist.sumUp).
+const MaxPooled = 1_000_000_000_000
 
 // CheckLot reports what is wrong with a lot's numbers for the chart, or
 // nil. It is the one validation rule for counts shared by the command
 // line, the store, the form and the API. The returned error names the
 // field ("inspected", "defective" or "defects").
 func CheckLot(chart Chart, inspected, count int64) error {
+	return checkCounts(chart, inspected, count, MaxInspected, "one lot")
+}
+
+// checkCounts is CheckLot with the bound of the sizes and counts, and the
+// words naming what may have that many ("one lot", "a pooled subgroup").
+func checkCounts(chart Chart, inspected, count, bound int64, what string) error {
 	countField := "defects"
 	if chart.CountsUnits() {
 		countField = "defective"
@@ -75,10 +85,10 @@ func CheckLot(chart Chart, inspected, count int64) error {
 	switch {
 	case inspected <= 0:
 		return &FieldError{Field: "inspected", Value: fmt.Sprint(inspected), Reason: "must be a whole number greater than 0"}
-	case inspected > MaxInspected:
-		return &FieldError{Field: "inspected", Value: fmt.Sprint(inspected), Reason: fmt.Sprintf("is more than %d, the most one lot may have", int64(MaxInspected))}
-	case count > MaxInspected:
-		return &FieldError{Field: countField, Value: fmt.Sprint(count), Reason: fmt.Sprintf("is more than %d, the most one lot may have", int64(MaxInspected))}
+	case inspected > bound:
+		return &FieldError{Field: "inspected", Value: fmt.Sprint(inspected), Reason: fmt.Sprintf("is more than %d, the most %s may have", bound, what)}
+	case count > bound:
+		return &FieldError{Field: countField, Value: fmt.Sprint(count), Reason: fmt.Sprintf("is more than %d, the most %s may have", bound, what)}
 	case count < 0:
 		return &FieldError{Field: countField, Value: fmt.Sprint(count), Reason: "must not be negative"}
 	case chart.CountsUnits() && count > inspected:

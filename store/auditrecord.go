@@ -57,7 +57,12 @@ type limitSetAudit struct {
 	BaselineLots  int               `json:"baseline_lots"`
 	BaselineTo    int64             `json:"baseline_to"`
 	Center        float64           `json:"center"`
+	CUSUMARL0     float64           `json:"cusum_arl0,omitempty"`
+	CUSUMH        float64           `json:"cusum_h,omitempty"`
+	CUSUMShift    float64           `json:"cusum_shift,omitempty"`
 	EffectiveFrom int64             `json:"effective_from"`
+	EWMALambda    float64           `json:"ewma_lambda,omitempty"`
+	EWMAWidth     float64           `json:"ewma_width,omitempty"`
 	Excluded      map[string]string `json:"excluded"`
 	K             float64           `json:"k"`
 	Method        spc.Method        `json:"method"`
@@ -67,8 +72,9 @@ type limitSetAudit struct {
 }
 
 func limitSetRecord(ls LimitSet) limitSetAudit {
-	return limitSetAudit{nanos(ls.BaselineFrom), ls.BaselineLots, nanos(ls.BaselineTo), ls.Center, ls.EffectiveFrom.UnixNano(),
-		ls.Excluded, ls.K, ls.Method, ls.Number, ls.ProcessID, ls.SigmaZ}
+	m := ls.Monitors
+	return limitSetAudit{nanos(ls.BaselineFrom), ls.BaselineLots, nanos(ls.BaselineTo), ls.Center, m.CUSUMARL0, m.CUSUMH, m.CUSUMShift,
+		ls.EffectiveFrom.UnixNano(), m.EWMALambda, m.EWMAWidth, ls.Excluded, ls.K, ls.Method, ls.Number, ls.ProcessID, ls.SigmaZ}
 }
 
 // alertRuleAudit is an alert rule as the trail states it: everything but

@@ -24,6 +24,9 @@ type LimitSet struct {
 	K             float64
 	Center        float64 // the per-unit rate spc.Analysis.Rate: p̄ (p and np), ū (u) or c̄ (c)
 	SigmaZ        float64 // Laney σ_z (1 for the other methods)
+	// Monitors are the CUSUM (with its decision interval CUSUMH) and EWMA
+	// frozen with the centre; zero when the process watched none.
+	Monitors spc.Monitors
 
 	BaselineFrom, BaselineTo time.Time
 	BaselineLots             int
@@ -88,6 +91,9 @@ func (db *DB) FreezeLimitSet(ctx context.Context, actor string, ls LimitSet) (Li
 		}
 	}
 	ps = append(ps, checkReason(ls.Reason, "say why the limits are frozen")...)
+	if m := ls.Monitors; m.CUSUMShift != 0 && !(m.CUSUMH > 0 && m.CUSUMH < 1e6) {
+		ps = append(ps, Problem{Field: "cusum_h", Value: fmt.Sprint(m.CUSUMH), Reason: "must be a decision interval above 0 when a CUSUM is frozen"})
+	}
 	if len(ps) > 0 {
 		return LimitSet{}, invalid(ps...)
 	}
@@ -114,10 +120,16 @@ func (db *DB) FreezeLimitSet(ctx context.Context, actor string, ls LimitSet) (Li
 		}
 		ls.Number = last + 1
 		ls.FrozenBy, ls.FrozenAt = actor, w.now.UTC()
+		if ps := checkMonitors(p.Chart, &spc.Monitors{CUSUMShift: ls.Monitors.CUSUMShift, CUSUMARL0: ls.Monitors.CUSUMARL0, EWMALambda: ls.Monitors.EWMALambda, EWMAWidth: ls.Monitors.EWMAWidth}); len(ps) > 0 {
+			return invalid(ps...)
+		}
 		excl, _ := json.Marshal(ls.Excluded)
-		res, err := w.Exec(`INSERT INTO limit_sets (process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason)
-			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`, p.ID, ls.Number, ls.Method, ls.K, ls.Center, ls.SigmaZ,
-			nanos(ls.BaselineFrom), nanos(ls.BaselineTo), ls.BaselineLots, string(excl), ls.EffectiveFrom.UnixNano(), actor, w.now.UnixNano(), ls.Reason)
+		m := ls.Monitors
+		res, err := w.Exec(`INSERT INTO limit_sets (process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason,
+			cusum_shift, cusum_arl0, cusum_h, ewma_lambda, ewma_width)
+			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`, p.ID, ls.Number, ls.Method, ls.K, ls.Center, ls.SigmaZ,
+			nanos(ls.BaselineFrom), nanos(ls.BaselineTo), ls.BaselineLots, string(excl), ls.EffectiveFrom.UnixNano(), actor, w.now.UnixNano(), ls.Reason,
+			m.CUSUMShift, m.CUSUMARL0, m.CUSUMH, m.EWMALambda, m.EWMAWidth)
 		if err != nil {
 			return err
 		}
@@ -141,7 +153,8 @@ func (db *DB) LimitSets(ctx context.Context, processID int64) ([]LimitSet, error
 		return nil, err
 	}
 	loc := p.Location()
-	rows, err := db.r.QueryContext(ctx, `SELECT id, process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason
+	rows, err := db.r.QueryContext(ctx, `SELECT id, process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason,
+		cusum_shift, cusum_arl0, cusum_h, ewma_lambda, ewma_width
 		FROM limit_sets WHERE process_id = ? ORDER BY number`, processID)
 	if err != nil {
 		return nil, err
@@ -152,7 +165,8 @@ func (db *DB) LimitSets(ctx context.Context, processID int64) ([]LimitSet, error
 		var ls LimitSet
 		var bf, bt, ef, fa int64
 		var excl string
-		if err := rows.Scan(&ls.ID, &ls.ProcessID, &ls.Number, &ls.Method, &ls.K, &ls.Center, &ls.SigmaZ, &bf, &bt, &ls.BaselineLots, &excl, &ef, &ls.FrozenBy, &fa, &ls.Reason); err != nil {
+		if err := rows.Scan(&ls.ID, &ls.ProcessID, &ls.Number, &ls.Method, &ls.K, &ls.Center, &ls.SigmaZ, &bf, &bt, &ls.BaselineLots, &excl, &ef, &ls.FrozenBy, &fa, &ls.Reason,
+			&ls.Monitors.CUSUMShift, &ls.Monitors.CUSUMARL0, &ls.Monitors.CUSUMH, &ls.Monitors.EWMALambda, &ls.Monitors.EWMAWidth); err != nil {
 			return nil, err
 		}
 		if err := json.Unmarshal([]byte(excl), &ls.Excluded); err != nil {
@@ -203,9 +217,8 @@ func checkRule(rule string) []Problem {
 	if rule == "" {
 		return nil
 	}
-	rs, err := spc.ParseRules(rule)
-	if err != nil || len(rs.Rules()) != 1 || rs.Rules()[0].String() != rule {
-		return []Problem{{Field: "rule", Value: rule, Reason: "is not the name of one run rule (we1 … we4, nelson1 … nelson8)"}}
+	if _, err := spc.ParseRule(rule); err != nil {
+		return []Problem{{Field: "rule", Value: rule, Reason: "is not the name of one run rule (we1 … we4, nelson1 … nelson8) or shift monitor (cusum, ewma)"}}
 	}
 	return nil
 }

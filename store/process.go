@@ -34,9 +34,13 @@ type Process struct {
 	// Area is the plant's area or line the process belongs to ("Press
 	// shop", "Line 4"): a label for finding a process among many; "" when
 	// none.
-	Area    string
-	Active  bool // false once retired
-	Created time.Time
+	Area string
+	// Monitors are the CUSUM and EWMA watched beside the chart for small
+	// sustained shifts (spc.Monitors; its CUSUMH is never stored here, a
+	// frozen limit set holds the decision interval in force).
+	Monitors spc.Monitors
+	Active   bool // false once retired
+	Created  time.Time
 	// ColumnMap maps the plant's own lot-file headers (any letter case) to
 	// lotwatch's columns or the process's categories, e.g.
 	// "Qty inspected" → "inspected". Empty when none.
@@ -152,6 +156,7 @@ func normalizeProcess(p *Process) []Problem {
 	ps = append(ps, checkText("name", p.Name, 100, true)...)
 	ps = append(ps, checkText("description", p.Description, 4000, false)...)
 	ps = append(ps, checkText("area", p.Area, 100, true)...)
+	ps = append(ps, checkMonitors(p.Chart, &p.Monitors)...)
 	if _, err := spc.ParseChart(string(p.Chart)); err != nil {
 		ps = append(ps, Problem{Field: "chart", Value: string(p.Chart), Reason: "is not p, np, u or c"})
 	}
@@ -226,12 +231,18 @@ type processAudit struct {
 	Area        string    `json:"area,omitempty"`
 	// Left out when empty, so that entries written before these settings
 	// existed still match their rows.
-	ColumnMap map[string]string `json:"column_map,omitempty"`
-	DateOrder string            `json:"date_order,omitempty"`
+	ColumnMap  map[string]string `json:"column_map,omitempty"`
+	DateOrder  string            `json:"date_order,omitempty"`
+	CUSUMShift float64           `json:"cusum_shift,omitempty"`
+	CUSUMARL0  float64           `json:"cusum_arl0,omitempty"`
+	EWMALambda float64           `json:"ewma_lambda,omitempty"`
+	EWMAWidth  float64           `json:"ewma_width,omitempty"`
 }
 
 func auditProcess(p Process) processAudit {
-	return processAudit{p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Area, p.ColumnMap, p.DateOrder}
+	m := p.Monitors
+	return processAudit{p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Area, p.ColumnMap, p.DateOrder,
+		m.CUSUMShift, m.CUSUMARL0, m.EWMALambda, m.EWMAWidth}
 }
 
 // columnMapJSON is the stored form of a column map.
@@ -241,6 +252,41 @@ func columnMapJSON(m map[string]string) string {
 	}
 	b, _ := json.Marshal(m)
 	return string(b)
+}
+
+// checkMonitors checks the shift monitors of a process of chart ch.
+func checkMonitors(ch spc.Chart, m *spc.Monitors) []Problem {
+	var ps []Problem
+	m.CUSUMH = 0
+	bad := func(field string, v float64, why string) {
+		ps = append(ps, Problem{Field: field, Value: fmt.Sprint(v), Reason: why})
+	}
+	finite := func(v float64) bool { return !math.IsNaN(v) && !math.IsInf(v, 0) }
+	switch s := m.CUSUMShift; {
+	case s == 0:
+		if m.CUSUMARL0 != 0 {
+			bad("cusum_arl0", m.CUSUMARL0, "is set without a shift for the CUSUM to catch")
+		}
+	case !finite(s) || s < 0 || ch.CountsUnits() && s >= 1:
+		what := "a rate above 0"
+		if ch.CountsUnits() {
+			what = "a fraction strictly between 0 and 1"
+		}
+		bad("cusum_shift", s, "is not "+what)
+	}
+	if a := m.CUSUMARL0; a != 0 && (!finite(a) || a < 1) {
+		bad("cusum_arl0", a, "is not a number of lots of 1 or more")
+	}
+	if l := m.EWMALambda; l != 0 && (!finite(l) || l < 0 || l > 1) {
+		bad("ewma_lambda", l, "is not a weight above 0 and at most 1")
+	}
+	if w := m.EWMAWidth; w != 0 && (!finite(w) || w < 0) {
+		bad("ewma_width", w, "is not a width above 0")
+	}
+	if m.EWMALambda == 0 && m.EWMAWidth != 0 {
+		bad("ewma_width", m.EWMAWidth, "is set without an EWMA weight")
+	}
+	return ps
 }
 
 // AddProcess creates an active process. Defaults: limits sigma, k 3,
@@ -282,9 +328,10 @@ func errRetired(p Process) error {
 func (w *wtx) addProcess(actor string, p Process) (Process, error) {
 	cats, _ := json.Marshal(p.Categories)
 	p.Created = w.now.UTC()
-	res, err := w.Exec(`INSERT INTO processes (name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`, p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, w.now.UnixNano(), p.Area,
-		columnMapJSON(p.ColumnMap), p.DateOrder)
+	m := p.Monitors
+	res, err := w.Exec(`INSERT INTO processes (name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order, cusum_shift, cusum_arl0, ewma_lambda, ewma_width)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`, p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, w.now.UnixNano(), p.Area,
+		columnMapJSON(p.ColumnMap), p.DateOrder, m.CUSUMShift, m.CUSUMARL0, m.EWMALambda, m.EWMAWidth)
 	if isUnique(err) {
 		return p, fmt.Errorf("process %q already exists: %w", p.Name, ErrConflict)
 	}
@@ -331,9 +378,11 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 			}
 		}
 		cats, _ := json.Marshal(p.Categories)
+		m := p.Monitors
 		_, err = w.Exec(`UPDATE processes SET name = ?, description = ?, chart = ?, method = ?, k = ?, rules = ?, categories = ?, time_zone = ?, active = ?, area = ?,
-			column_map = ?, date_order = ? WHERE id = ?`,
-			p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, p.Area, columnMapJSON(p.ColumnMap), p.DateOrder, p.ID)
+			column_map = ?, date_order = ?, cusum_shift = ?, cusum_arl0 = ?, ewma_lambda = ?, ewma_width = ? WHERE id = ?`,
+			p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, p.Area, columnMapJSON(p.ColumnMap), p.DateOrder,
+			m.CUSUMShift, m.CUSUMARL0, m.EWMALambda, m.EWMAWidth, p.ID)
 		if isUnique(err) {
 			return fmt.Errorf("process %q already exists: %w", p.Name, ErrConflict)
 		}
@@ -351,7 +400,7 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 	return p, nil
 }
 
-const processCols = "id, name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order"
+const processCols = "id, name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order, cusum_shift, cusum_arl0, ewma_lambda, ewma_width"
 
 type queryer interface {
 	QueryRow(query string, args ...any) *sql.Row
@@ -361,7 +410,8 @@ func scanProcess(s interface{ Scan(...any) error }) (Process, error) {
 	var p Process
 	var cats, cmap string
 	var created int64
-	if err := s.Scan(&p.ID, &p.Name, &p.Description, &p.Chart, &p.Method, &p.K, &p.Rules, &cats, &p.TimeZone, &p.Active, &created, &p.Area, &cmap, &p.DateOrder); err != nil {
+	if err := s.Scan(&p.ID, &p.Name, &p.Description, &p.Chart, &p.Method, &p.K, &p.Rules, &cats, &p.TimeZone, &p.Active, &created, &p.Area, &cmap, &p.DateOrder,
+		&p.Monitors.CUSUMShift, &p.Monitors.CUSUMARL0, &p.Monitors.EWMALambda, &p.Monitors.EWMAWidth); err != nil {
 		return Process{}, err
 	}
 	if err := json.Unmarshal([]byte(cats), &p.Categories); err != nil {

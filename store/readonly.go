@@ -86,7 +86,8 @@ func openReadOnly(path string) (*DB, error) {
 	return db, nil
 }
 
-// memSessions are the sign-in sessions of a read-only database.
+// memSessions are the sign-in sessions of a read-only database, and
+// those begun on a full disk.
 type memSessions struct {
 	mu sync.Mutex
 	m  map[string]*memSession // by the id's hash
@@ -118,6 +119,18 @@ func (ms *memSessions) get(hash []byte, now time.Time) (userID, created, seen in
 	userID, created, seen = s.userID, s.created, s.lastS
 	s.lastS = now.UnixNano()
 	return userID, created, seen, true
+}
+
+// removeUser ends every session of the user (a new password, a
+// deactivation).
+func (ms *memSessions) removeUser(userID int64) {
+	ms.mu.Lock()
+	defer ms.mu.Unlock()
+	for k, s := range ms.m {
+		if s.userID == userID {
+			delete(ms.m, k)
+		}
+	}
 }
 
 func (ms *memSessions) remove(hash []byte) {

@@ -8,6 +8,7 @@ import (
 	"encoding/base64"
 	"errors"
 	"fmt"
+	"github.com/mattn/go-sqlite3"
 	"strings"
 	"time"
 	"unicode"
@@ -175,6 +176,7 @@ func (db *DB) SetPassword(ctx context.Context, actor, name, newPassword string) 
 		if _, err := w.Exec("DELETE FROM sessions WHERE user_id = ?", id); err != nil {
 			return err
 		}
+		db.mem.removeUser(id)
 		return w.audit(actor, "set password", "user", id, id, nil, credentialAudit{Password: credentialDigest(hash)}, "")
 	})
 }
@@ -200,6 +202,7 @@ func (db *DB) SetUserActive(ctx context.Context, actor, name string, active bool
 			if _, err := w.Exec("DELETE FROM sessions WHERE user_id = ?", id); err != nil {
 				return err
 			}
+			db.mem.removeUser(id)
 		}
 		return w.audit(actor, "set active", "user", id, id, userAudit{Name: name, Role: role, Active: was}, userAudit{Name: name, Role: role, Active: active}, reason)
 	})
@@ -271,6 +274,13 @@ func (db *DB) CreateSession(ctx context.Context, userID int64, now time.Time) (s
 		_, err := w.Exec("INSERT INTO sessions (id_hash, user_id, created, last_seen) VALUES (?, ?, ?, ?)", secretHash(raw), userID, now.UnixNano(), now.UnixNano())
 		return err
 	})
+	if diskFull(err) {
+		// A full disk must not keep users from reading: the session
+		// is kept in memory, as for a read-only database, until the
+		// server stops.
+		db.mem.create(secretHash(raw), userID, now)
+		return raw, nil
+	}
 	if err != nil {
 		return "", fmt.Errorf("store: create session: %w", err)
 	}
@@ -296,7 +306,7 @@ func (db *DB) SessionUser(ctx context.Context, rawID string, now time.Time, idle
 	var ucreated int64
 	err := row.Scan(&u.ID, &u.Name, &u.Role, &u.Active, &ucreated, &created, &seen)
 	if errors.Is(err, sql.ErrNoRows) {
-		return User{}, fmt.Errorf("session: %w", ErrNotFound)
+		return db.memSessionUser(ctx, h, now, idle, absolute) // begun on a full disk, or unknown
 	}
 	if err != nil {
 		return User{}, err
@@ -329,6 +339,7 @@ func (db *DB) DeleteSession(ctx context.Context, rawID string) error {
 		db.mem.remove(secretHash(rawID))
 		return nil
 	}
+	db.mem.remove(secretHash(rawID))
 	return db.write(ctx, func(w *wtx) error {
 		_, err := w.Exec("DELETE FROM sessions WHERE id_hash = ?", secretHash(rawID))
 		return err
@@ -440,4 +451,10 @@ func (db *DB) Tokens(ctx context.Context) ([]Token, error) {
 		out = append(out, t)
 	}
 	return out, rows.Err()
+}
+
+// diskFull reports whether a write failed because the disk is full.
+func diskFull(err error) bool {
+	var se sqlite3.Error
+	return errors.As(err, &se) && se.Code == sqlite3.ErrFull
 }

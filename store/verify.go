@@ -342,7 +342,8 @@ func (d *dataTrail) checkTokens(ctx context.Context, tx *sql.Tx, _ map[int64]pro
 }
 
 func (d *dataTrail) checkLimitSets(ctx context.Context, tx *sql.Tx, procs map[int64]procInfo) (*rowBreak, error) {
-	rows, err := tx.QueryContext(ctx, `SELECT id, process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason
+	rows, err := tx.QueryContext(ctx, `SELECT id, process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason,
+		cusum_shift, cusum_arl0, cusum_h, ewma_lambda, ewma_width
 		FROM limit_sets ORDER BY id`)
 	if err != nil {
 		return nil, err
@@ -354,7 +355,9 @@ func (d *dataTrail) checkLimitSets(ctx context.Context, tx *sql.Tx, procs map[in
 		var number, blots int
 		var method, excl, by, reason string
 		var k, center, sz float64
-		if err := rows.Scan(&id, &pid, &number, &method, &k, &center, &sz, &bf, &bt, &blots, &excl, &ef, &by, &fa, &reason); err != nil {
+		var m spc.Monitors
+		if err := rows.Scan(&id, &pid, &number, &method, &k, &center, &sz, &bf, &bt, &blots, &excl, &ef, &by, &fa, &reason,
+			&m.CUSUMShift, &m.CUSUMARL0, &m.CUSUMH, &m.EWMALambda, &m.EWMAWidth); err != nil {
 			return nil, err
 		}
 		seen[id] = true
@@ -368,7 +371,7 @@ func (d *dataTrail) checkLimitSets(ctx context.Context, tx *sql.Tx, procs map[in
 			return differ(t.seq, name), nil
 		}
 		rec := limitSetRecord(LimitSet{ProcessID: pid, Number: number, Method: spc.Method(method), K: k, Center: center, SigmaZ: sz,
-			BaselineFrom: fromNanos(bf, time.UTC), BaselineTo: fromNanos(bt, time.UTC), BaselineLots: blots, Excluded: ex, EffectiveFrom: time.Unix(0, ef)})
+			BaselineFrom: fromNanos(bf, time.UTC), BaselineTo: fromNanos(bt, time.UTC), BaselineLots: blots, Excluded: ex, EffectiveFrom: time.Unix(0, ef), Monitors: m})
 		if toJSON(rec) != t.next || by != t.actor || fa != t.at || reason != t.reason {
 			return differ(t.seq, name), nil
 		}

@@ -150,7 +150,8 @@ func cursor(l store.Lot) string {
 
 // chartJSON renders a page of the lots of the chart that fall in the
 // window, with the signals that touch them (their first and last lot
-// counted within the page, and cut to it).
+// counted within the page, and their lots cut to it, so that a signal
+// running through the whole record does not list it on every page).
 func (pc *processChart) chartJSON(w window, pg chartPage) *ChartJSON {
 	loc := pc.proc.Location()
 	if pc.a == nil {
@@ -195,8 +196,11 @@ func (pc *processChart) chartJSON(w window, pg chartPage) *ChartJSON {
 			continue
 		}
 		sg := toSignalJSON(s)
-		sg.First = max(sg.First-lo, 0)
-		sg.Last = min(sg.Last-lo, hi-lo-1)
+		first, last := max(s.First, lo), min(s.Last, hi-1)
+		if len(sg.Lots) == s.Last-s.First+1 {
+			sg.Lots = sg.Lots[first-s.First : last-s.First+1]
+		}
+		sg.First, sg.Last = first-lo, last-lo
 		out.Signals = append(out.Signals, sg)
 	}
 	return out

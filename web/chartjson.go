@@ -52,9 +52,11 @@ type LotJSON struct {
 	LimitSet int    `json:"limit_set,omitempty"` // the frozen set's number
 }
 
-// SignalJSON is one run-rule signal.
+// SignalJSON is one signal: of a run rule, or of a shift monitor
+// (CUSUM, EWMA). Kind is "limits", "run" or "shift" (spc.Rule.Kind).
 type SignalJSON struct {
 	Rule        string   `json:"rule"`
+	Kind        string   `json:"kind"`
 	Lots        []string `json:"lots"`
 	Description string   `json:"description"`
 	First       int      `json:"first"`
@@ -149,6 +151,7 @@ func toSignalJSON(s spc.Signal) SignalJSON {
 	}
 	return SignalJSON{
 		Rule:        ruleName(s.Rule),
+		Kind:        s.Rule.Kind(),
 		Lots:        lots,
 		Description: s.Description,
 		First:       s.First,

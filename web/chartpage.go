@@ -21,6 +21,7 @@ type chartPageData struct {
 	Kind        string
 	Options     map[string]any
 	Details     [][]string
+	ShiftCharts []shiftChart
 	Drawn       int
 	Thinned     bool
 	Rows        []viewPoint
@@ -98,6 +99,7 @@ func (s *Server) chartPage(w http.ResponseWriter, r *http.Request) {
 	d.Drawn, d.Thinned = len(idx), thinned
 	if len(idx) > 0 {
 		d.Options, d.Details = chartOptions(v.Proc.Name+" — "+string(v.Proc.Chart)+" chart", v, idx)
+		d.ShiftCharts = shiftChartOptions(v, idx)
 	}
 	for i := len(v.Points) - 1; i >= 0 && len(d.Rows) < tableRows; i-- {
 		d.Rows = append(d.Rows, v.Points[i])

@@ -20,7 +20,8 @@ func TestAPIChartIsPaged(t *testing.T) {
 	}
 	e := newTestEnv(t)
 	n := maxChartPage + 1500
-	e.addLots(t, n, func(i int) int64 { return int64(i%7) + 1 })
+	// The rate rises half-way, so that a run-rule signal lasts thousands of lots.
+	e.addLots(t, n, func(i int) int64 { return int64(i%7) + 1 + int64(i/(n/2))*6 })
 	get := func(query string) ChartJSON {
 		t.Helper()
 		rec := e.do(req{method: "GET", path: fmt.Sprintf("/api/v1/processes/%d/chart%s", e.proc.ID, query), token: e.tokens[store.RoleViewer]})
@@ -37,7 +38,7 @@ func TestAPIChartIsPaged(t *testing.T) {
 	}
 	// Smaller pages, following the cursors, hold every lot once, in order.
 	var codes []string
-	cursor := ""
+	cursor, longest := "", 0
 	for pages := 0; ; pages++ {
 		q := "?limit=4000"
 		if cursor != "" {
@@ -54,6 +55,10 @@ func TestAPIChartIsPaged(t *testing.T) {
 			if sg.First < 0 || sg.Last >= len(pg.Lots) || sg.First > sg.Last {
 				t.Fatalf("page %d: signal %s at %d…%d outside the page's %d lots", pages, sg.Rule, sg.First, sg.Last, len(pg.Lots))
 			}
+			if len(sg.Lots) != sg.Last-sg.First+1 || sg.Lots[0] != pg.Lots[sg.First].Lot {
+				t.Fatalf("page %d: signal %s at %d…%d lists %d lots from %s, want those of the page", pages, sg.Rule, sg.First, sg.Last, len(sg.Lots), sg.Lots[0])
+			}
+			longest = max(longest, len(sg.Lots))
 		}
 		if cursor = pg.Next; cursor == "" {
 			break
@@ -64,6 +69,9 @@ func TestAPIChartIsPaged(t *testing.T) {
 	}
 	if len(codes) != n {
 		t.Fatalf("the pages hold %d lots, the record %d", len(codes), n)
+	}
+	if longest < 1000 {
+		t.Errorf("the longest signal on a page has %d lots: the record does not test long signals", longest)
 	}
 	for i, c := range codes {
 		if c != lotCode(i) {

@@ -45,6 +45,17 @@ type viewPoint struct {
 	Notes     []string
 	Excluded  bool
 	Stretch   *stretch // on a thinned chart, what the drawn point stands for
+	// Monitor holds the CUSUM and EWMA after this point, when the process
+	// watches them.
+	Monitor *shiftPoint
+}
+
+// shiftPoint is the CUSUM's S and the EWMA with its limits after one
+// point; HasCUSUM and HasEWMA say which the process watches.
+type shiftPoint struct {
+	HasCUSUM, HasEWMA bool
+	S                 float64
+	Z, UCL, LCL       float64
 }
 
 // Out reports a point beyond a limit.
@@ -102,6 +113,9 @@ type chartView struct {
 	Method      string
 	K           float64
 	Rate        float64
+	// Shift is what the process's CUSUM and EWMA found, nil when it
+	// watches neither.
+	Shift *spc.ShiftWatch
 }
 
 // periodOf reads the period of the chart page: today, the latest shift,
@@ -238,6 +252,7 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 		a, setOf = pg.a, pg.setOf
 	}
 	v.Method, v.K, v.Rate = string(a.Method), a.K, a.Rate
+	v.Shift = a.Shift
 	lo := sort.Search(len(gs), func(k int) bool { return win.from.IsZero() || !pc.lots[gs[k][0]].Time.Before(win.from) })
 	hi := sort.Search(len(gs), func(k int) bool { return !win.to.IsZero() && pc.lots[gs[k][0]].Time.After(win.to) })
 	if hi < lo {
@@ -256,6 +271,17 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 			Z: pt.Z, TailP: pt.TailP, Above: pt.Above, Below: pt.Below, Rules: ruleNames(pt.Rules), Excluded: pt.Excluded}
 		if by == byLot {
 			vp.LotID = first.ID
+		}
+		if sw := a.Shift; sw != nil {
+			sp := &shiftPoint{HasCUSUM: sw.CUSUM != nil, HasEWMA: sw.EWMA != nil}
+			if sp.HasCUSUM {
+				sp.S = sw.CUSUMPoints[k].S
+			}
+			if sp.HasEWMA {
+				e := sw.EWMAPoints[k]
+				sp.Z, sp.UCL, sp.LCL = e.Z, e.UCL, e.LCL
+			}
+			vp.Monitor = sp
 		}
 		for i := g[0]; i < g[1]; i++ {
 			for _, an := range byLotID[pc.lots[i].ID] {

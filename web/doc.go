@@ -11,7 +11,8 @@
 //     (12 h) after sign-in. Each sign-in issues a new id and ends the
 //     browser's previous session; a password change ends all the user's
 //     sessions and gives this browser a new one. Noting a session as seen
-//     is best effort, so that pages stay readable on a full disk.
+//     is best effort, and a session begun on a full disk is kept in
+//     memory until the server stops, so that pages stay readable there.
 //   - Roles: the least role of each route is in Server.routes and checked
 //     by Server.guard, nowhere else.
 //   - CSRF: http.CrossOriginProtection refuses cross-origin POSTs (by

@@ -359,6 +359,25 @@ func (s *Server) freezeLimits(w http.ResponseWriter, r *http.Request) {
 			problems["effective"] = fmt.Sprintf("%q is not a date and time", effective)
 		}
 	}
+	// The process's monitors are frozen with the centre; the CUSUM's
+	// decision interval is designed now, over the baseline's lot sizes.
+	mon := p.Monitors
+	if mon.CUSUMShift != 0 {
+		sizes := make([]int64, len(base))
+		for i, l := range base {
+			sizes[i] = l.Inspected
+		}
+		arl0 := mon.CUSUMARL0
+		if arl0 == 0 {
+			arl0 = spc.DefaultARL0
+		}
+		c, err := spc.DesignCUSUM(p.Chart, a.Rate, mon.CUSUMShift, sizes, arl0, 0)
+		if err != nil {
+			problems["baseline"] = "the process's CUSUM cannot be designed from this baseline: " + err.Error()
+		} else {
+			mon.CUSUMH = c.H
+		}
+	}
 	if len(problems) > 0 {
 		fail()
 		return
@@ -366,7 +385,7 @@ func (s *Server) freezeLimits(w http.ResponseWriter, r *http.Request) {
 	ls, err := s.db.FreezeLimitSet(r.Context(), who(r).user.Name, store.LimitSet{
 		ProcessID: p.ID, Method: a.Method, K: a.K, Center: a.Rate, SigmaZ: a.SigmaZ,
 		BaselineFrom: base[0].Time, BaselineTo: base[len(base)-1].Time, BaselineLots: a.Baseline,
-		Excluded: b.Excluded, EffectiveFrom: eff, Reason: reason,
+		Excluded: b.Excluded, EffectiveFrom: eff, Reason: reason, Monitors: mon,
 	})
 	var ve *store.ValidationError
 	if errors.As(err, &ve) {

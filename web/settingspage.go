@@ -47,12 +47,25 @@ func newProcessForm(vals map[string]string) processForm {
 func processValues(p store.Process) map[string]string {
 	return map[string]string{"name": p.Name, "description": p.Description, "area": p.Area, "chart": string(p.Chart),
 		"method": string(p.Method), "k": strconv.FormatFloat(p.K, 'g', -1, 64), "rules": p.Rules,
-		"categories": strings.Join(p.Categories, ", "), "tz": p.TimeZone, "retired": map[bool]string{true: "", false: "1"}[p.Active]}
+		"categories": strings.Join(p.Categories, ", "), "tz": p.TimeZone, "retired": map[bool]string{true: "", false: "1"}[p.Active],
+		"cusum_shift": monitorValue(p.Monitors.CUSUMShift), "cusum_arl0": monitorValue(p.Monitors.CUSUMARL0),
+		"ewma_lambda": monitorValue(p.Monitors.EWMALambda), "ewma_width": monitorValue(p.Monitors.EWMAWidth)}
+}
+
+// monitorKeys are the form fields of the shift monitors.
+var monitorKeys = []string{"cusum_shift", "cusum_arl0", "ewma_lambda", "ewma_width"}
+
+// monitorValue shows a monitor setting in the form: empty when not set.
+func monitorValue(v float64) string {
+	if v == 0 {
+		return ""
+	}
+	return strconv.FormatFloat(v, 'g', -1, 64)
 }
 
 // readProcessForm reads the posted form into a process.
 func readProcessForm(r *http.Request, f *processForm) store.Process {
-	for _, k := range []string{"name", "description", "area", "chart", "method", "k", "rules", "categories", "tz", "retired", "reason"} {
+	for _, k := range append([]string{"name", "description", "area", "chart", "method", "k", "rules", "categories", "tz", "retired", "reason"}, monitorKeys...) {
 		f.Values[k] = r.PostFormValue(k)
 	}
 	*f = newProcessFormKeep(*f)
@@ -65,6 +78,16 @@ func readProcessForm(r *http.Request, f *processForm) store.Process {
 			f.Problems["k"] = strconv.Quote(k) + " is not a number"
 		}
 		p.K = v
+	}
+	for k, dst := range map[string]*float64{"cusum_shift": &p.Monitors.CUSUMShift, "cusum_arl0": &p.Monitors.CUSUMARL0,
+		"ewma_lambda": &p.Monitors.EWMALambda, "ewma_width": &p.Monitors.EWMAWidth} {
+		if s := strings.TrimSpace(f.Values[k]); s != "" {
+			v, err := strconv.ParseFloat(s, 64)
+			if err != nil {
+				f.Problems[k] = strconv.Quote(s) + " is not a number"
+			}
+			*dst = v
+		}
 	}
 	p.Categories = []string{}
 	for _, c := range strings.Split(f.Values["categories"], ",") {
@@ -94,7 +117,7 @@ func (f *processForm) place(ps []store.Problem) {
 			msg = strconv.Quote(pr.Value) + " " + pr.Reason
 		}
 		switch k {
-		case "name", "description", "area", "chart", "method", "k", "rules", "categories", "tz", "reason":
+		case "name", "description", "area", "chart", "method", "k", "rules", "categories", "tz", "reason", "cusum_shift", "cusum_arl0", "ewma_lambda", "ewma_width":
 			f.Problems[k] = joinMsg(f.Problems[k], msg)
 		default:
 			f.Other = append(f.Other, pr.String())

@@ -39,14 +39,15 @@ type analyzeOptions struct {
 	baseline     int
 	sheet        string
 	db, process  string
+	monitors     monitorOptions
 }
 
 func runAnalyze(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	var o analyzeOptions
 	fs := cliFlags("analyze")
-	fs.StringVar(&o.chart, "chart", "", "the chart: `p` (fraction nonconforming), np (number nonconforming, constant n),\nu (defects per unit) or c (defects per lot, constant n).\nDefault: p when the file has a defective column, u when it has defects")
+	fs.StringVar(&o.chart, "chart", "", "the chart: `p` (fraction nonconforming), np (number nonconforming; meant for lots of\none size, and lots of other sizes get their own limits and a warning),\nu (defects per unit) or c (defects per lot, meant for one size likewise).\nDefault: p when the file has a defective column, u when it has defects")
 	fs.StringVar(&o.limits, "limits", "sigma", "how the limits are computed: `sigma` (centre ± K standard errors of each lot),\nexact (binomial or Poisson quantiles of each lot, for small n·p̄),\nor laney (Laney p′/u′, widened by the lot-to-lot variation σ_z)")
-	fs.Float64Var(&o.sigma, "sigma", 3, "the width of the limits in standard errors, `K`; exact limits use the same\ntwo-sided false-alarm probability (0.0027 for K = 3)")
+	fs.Float64Var(&o.sigma, "sigma", 3, "the width of the limits in standard errors, `K`; exact limits keep the false alarms\nof each tail at or below half the two-sided probability of K (0.00135 for K = 3),\nan upper bound: counts are whole numbers, so it is usually less, and it is 0 in the\nlower tail when even a count of 0 is not rare enough (small n·p̄)")
 	fs.StringVar(&o.rules, "rules", "we", "run rules on the standardized values: `we` (the four Western Electric rules),\nnelson (Nelson's eight tests), none, or a list such as we1,we4,nelson3")
 	fs.StringVar(&o.exclude, "exclude", "", "lots left out of the centre estimate (an assignable cause was found),\nstill plotted and judged: `LOT,LOT,...`")
 	fs.Func("center", "a known standard centre `P` (fraction for p and np, defects per unit for u,\ndefects per lot for c) instead of the centre estimated from the file", func(s string) error {
@@ -63,6 +64,7 @@ func runAnalyze(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs.StringVar(&o.process, "process", "", "read the file as the lot files of the process `NAME` (with --db): its column map,\ndate order, time zone and categories, and its chart unless --chart is given;\nan unknown column is then refused, as by import")
 	fs.StringVar(&o.db, "db", "", "the lotwatch database `FILE` that holds --process")
 	fs.BoolVar(&o.standardized, "standardized", false, "plot the standardized values z with limits in z units")
+	o.monitors.addFlags(fs)
 	help := cliHelp(fs, `Usage: lotwatch analyze [options] FILE.csv
 
 Reads inspected lots from FILE.csv (separated by commas, semicolons or
@@ -89,6 +91,7 @@ Options:
 	file := pos[0]
 
 	cfg, problems := o.config()
+	problems = append(problems, o.monitors.problems()...)
 	if len(problems) > 0 {
 		for _, p := range problems {
 			fmt.Fprintln(stderr, "lotwatch analyze: "+p)
@@ -165,18 +168,37 @@ Options:
 		fmt.Fprintf(stderr, "%s: %v\n", file, err)
 		return exitUsage
 	}
+	var mon *monitorResult
+	if o.monitors.cusum || o.monitors.ewma {
+		// The monitors watch for a change from the chart's centre; their
+		// run lengths are for lot sizes like the baseline's.
+		sizes := make([]int64, 0, len(lots))
+		base := lots
+		if o.baseline > 0 {
+			base = lots[:o.baseline]
+		}
+		for _, l := range base {
+			sizes = append(sizes, l.Inspected)
+		}
+		if mon, err = o.monitors.run(chart, lots, a.Rate, sizes); err != nil {
+			fmt.Fprintf(stderr, "lotwatch analyze: %v\n", err)
+			return exitUsage
+		}
+	}
 	switch o.format {
 	case "json":
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
-		if err := enc.Encode(web.AnalysisJSON(a)); err != nil {
+		out := analyzeOut{ChartJSON: web.AnalysisJSON(a)}
+		mon.json(&out)
+		if err := enc.Encode(out); err != nil {
 			fmt.Fprintf(stderr, "lotwatch analyze: %v\n", err)
 			return exitFail
 		}
 	case "csv":
-		writeAnalysisCSV(stdout, a)
+		writeAnalysisCSV(stdout, a, mon)
 	default:
-		writeAnalysisText(stdout, file, a, o.baseline)
+		writeAnalysisText(stdout, file, a, o.baseline, mon)
 	}
 	return exitOK
 }
@@ -211,6 +233,9 @@ func (o analyzeOptions) config() (spc.Config, []string) {
 	case "text", "json", "csv":
 	default:
 		problems = append(problems, fmt.Sprintf("--format: unknown format %q (want text, json or csv)", o.format))
+	}
+	if o.baseline < 0 {
+		problems = append(problems, fmt.Sprintf("--baseline: %d is not a number of lots (0 for all lots)", o.baseline))
 	}
 	if o.exclude != "" {
 		cfg.Exclude = map[string]bool{}
@@ -348,14 +373,14 @@ func readAnalyzeLots(file string, r io.Reader, opt lotcsv.Options) ([]spc.Lot, s
 }
 
 // writeAnalysisCSV writes one row per lot.
-func writeAnalysisCSV(w io.Writer, a *spc.Analysis) {
+func writeAnalysisCSV(w io.Writer, a *spc.Analysis, mon *monitorResult) {
 	cw := csv.NewWriter(w)
-	cw.Write([]string{"lot", "inspected", "count", "value", "center", "lcl", "ucl", "z", "out_of_limits", "signals", "excluded", "tail_p"})
+	cw.Write(append([]string{"lot", "inspected", "count", "value", "center", "lcl", "ucl", "z", "out_of_limits", "signals", "excluded", "tail_p"}, mon.csvHeader()...))
 	f := func(v float64) string { return strconv.FormatFloat(v, 'g', 10, 64) }
-	for _, p := range a.Points {
-		cw.Write([]string{lotcsv.Neutralise(p.Lot.Code), strconv.FormatInt(p.Lot.Inspected, 10), strconv.FormatInt(p.Lot.Count, 10),
+	for i, p := range a.Points {
+		cw.Write(append([]string{lotcsv.Neutralise(p.Lot.Code), strconv.FormatInt(p.Lot.Inspected, 10), strconv.FormatInt(p.Lot.Count, 10),
 			f(p.Value), f(p.Center), f(p.LCL), f(p.UCL), f(p.Z), strconv.FormatBool(p.OutOfLimits()),
-			ruleList(p.Rules), strconv.FormatBool(p.Excluded), f(p.TailP)})
+			ruleList(p.Rules), strconv.FormatBool(p.Excluded), f(p.TailP)}, mon.csvRow(i)...))
 	}
 	cw.Flush()
 }
@@ -369,7 +394,7 @@ func ruleList(rs spc.RuleSet) string {
 }
 
 // writeAnalysisText writes the analysis for a person to read.
-func writeAnalysisText(w io.Writer, file string, a *spc.Analysis, baseline int) {
+func writeAnalysisText(w io.Writer, file string, a *spc.Analysis, baseline int, mon *monitorResult) {
 	unit := map[spc.Chart]string{spc.ChartP: "fraction nonconforming", spc.ChartNP: "number nonconforming",
 		spc.ChartU: "defects per unit", spc.ChartC: "defects per lot"}[a.Chart]
 	fmt.Fprintf(w, "%s chart (%s) of %s, %s limits at %g sigma\n", a.Chart, unit, file, a.Method, a.K)
@@ -433,6 +458,7 @@ func writeAnalysisText(w io.Writer, file string, a *spc.Analysis, baseline int) 
 			fmt.Fprintf(w, "  - %s\n", wr.Message)
 		}
 	}
+	mon.text(w, a.Chart)
 	fmt.Fprint(w, "\n"+caution)
 }
 

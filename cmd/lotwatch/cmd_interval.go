@@ -34,7 +34,9 @@ Options:
                    clopper-pearson  exact binomial interval; never covers less
                                     often than stated, usually more, so it is wider
                    agresti-coull    simple adjusted interval, close to Wilson
-                   jeffreys         equal-tailed interval from the Jeffreys prior
+                   jeffreys         interval from the Jeffreys prior, equal-tailed
+                                    except at D = 0 (lower end 0) and D = N
+                                    (upper end 1)
                    wald             the textbook normal approximation; covers far
                                     less often than stated for small N or rates
                                     near 0 or 1

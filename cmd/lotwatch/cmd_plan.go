@@ -81,7 +81,12 @@ type planJSON struct {
 	UCL             float64  `json:"ucl"`
 	LCL             float64  `json:"lcl"`
 	TargetARL1      *float64 `json:"arl1_target,omitempty"`
-	P0Source        string   `json:"p0_source,omitempty"`
+	// CUSUM is the CUSUM for the same shift at the same ARL0, with lots of
+	// N units; Sooner says which catches the shift sooner on average
+	// ("cusum", "chart" or "same"). Both only with --p1.
+	CUSUM    *planCUSUMJSON `json:"cusum,omitempty"`
+	Sooner   string         `json:"sooner,omitempty"`
+	P0Source string         `json:"p0_source,omitempty"`
 }
 
 func finiteOrNil(x float64) *float64 {
@@ -188,8 +193,10 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		}
 	}
 	pl := spc.PlanLimits(p0, n, k)
+	var cusum *spc.CUSUM
 	if *p1s != "" {
 		pl = pl.WithShift(p1)
+		cusum = planCUSUM(p0, p1, n, pl.ARL0)
 	}
 
 	if asJSON {
@@ -203,6 +210,10 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		}
 		if *arl1s != "" {
 			out.TargetARL1 = &target
+		}
+		if cusum != nil {
+			out.CUSUM = &planCUSUMJSON{H: cusum.H, ARL0: cusum.ARL0, ARL1: cusum.ARL1}
+			out.Sooner = sooner(pl.ARL1, cusum.ARL1)
 		}
 		return statsJSON(stdout, out)
 	}
@@ -237,6 +248,18 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 				verdict = "does not meet"
 			}
 			fmt.Fprintf(&b, "  this %s the target of %s lots.\n", verdict, strconv.FormatFloat(target, 'g', -1, 64))
+		}
+	}
+	if cusum != nil {
+		fmt.Fprintf(&b, "\nA CUSUM on the same lots (decision interval h = %.2f), with no more false alarms than the chart\n(one every %.1f lots on average), signals a shift to %s on average after %.1f lots.\n",
+			cusum.H, cusum.ARL0, statsRate(p1), cusum.ARL1)
+		switch sooner(pl.ARL1, cusum.ARL1) {
+		case "cusum":
+			fmt.Fprintf(&b, "The CUSUM catches this shift sooner: %.1f lots against %s for the chart.\n", cusum.ARL1, planLots(pl.ARL1))
+		case "chart":
+			fmt.Fprintf(&b, "The chart catches this shift sooner: %s against %.1f lots for the CUSUM.\n", planLots(pl.ARL1), cusum.ARL1)
+		default:
+			fmt.Fprintf(&b, "The chart and the CUSUM catch this shift equally soon, after about %.1f lots.\n", cusum.ARL1)
 		}
 	}
 	if pl.ARL0 < spc.DefaultMinARL0 {
@@ -302,4 +325,44 @@ func planProcessCentre(u *statsUsage, name, dbPath, p0s string) (float64, string
 		return math.NaN(), ""
 	}
 	return c.P0, c.Source
+}
+
+type planCUSUMJSON struct {
+	H    float64 `json:"h"`
+	ARL0 float64 `json:"arl0"`
+	ARL1 float64 `json:"arl1"`
+}
+
+// planCUSUM returns the CUSUM for a shift from p0 to p1 with lots of n
+// units, designed for an in-control ARL of at least the chart's arl0
+// (370 when no lot can signal on the chart), or nil when none can be
+// designed.
+func planCUSUM(p0, p1 float64, n int64, arl0 float64) *spc.CUSUM {
+	if math.IsInf(arl0, 1) || !(arl0 >= 1) {
+		arl0 = spc.DefaultARL0
+	}
+	c, err := spc.DesignCUSUM(spc.ChartP, p0, p1, []int64{n}, arl0, 0)
+	if err != nil {
+		return nil
+	}
+	return c
+}
+
+// sooner says which average run length is shorter, by more than 1 %.
+func sooner(chart, cusum float64) string {
+	switch {
+	case cusum < 0.99*chart:
+		return "cusum"
+	case chart < 0.99*cusum:
+		return "chart"
+	}
+	return "same"
+}
+
+// planLots says a run length in lots, or that the chart never signals.
+func planLots(arl float64) string {
+	if math.IsInf(arl, 1) {
+		return "never"
+	}
+	return strconv.FormatFloat(arl, 'f', 1, 64) + " lots"
 }

@@ -62,6 +62,17 @@ Options of "add":
   --date-order ORDER day-first or month-first: how the plant writes local
                      dates (05.03.2025 14:30); without it only YYYY-MM-DD
                      is read, as the order is never guessed
+  --cusum-shift P1   also watch a CUSUM for a sustained change of the rate
+                     to P1 (a fraction for p and np, defects per unit for u,
+                     defects per lot for c; above the centre it watches for a
+                     rise, below for a fall); 0, the default, watches none
+  --cusum-arl0 A     how many lots on average between the CUSUM's false
+                     alarms while the rate stays at the centre (default 370)
+  --ewma-lambda L    also watch an EWMA of the rates with weight L for the
+                     newest lot, above 0 and at most 1 (0.2 is usual); 0, the
+                     default, watches none
+  --ewma-width W     the width of the EWMA's limits in its standard
+                     deviations (default 3)
   --as NAME          the name recorded in the audit trail (default: your
                      user name on this computer)
 
@@ -69,8 +80,10 @@ Options of "update" (only the options given change; the change and its
 reason go to the audit trail):
   --db FILE, --name NAME   the database and the process to change
   --description TEXT, --area TEXT, --limits METHOD, --sigma K, --rules SET,
-  --tz ZONE, --date-order ORDER
-                     as for "add" (--date-order "" reads YYYY-MM-DD only)
+  --tz ZONE, --date-order ORDER, --cusum-shift P1, --cusum-arl0 A,
+  --ewma-lambda L, --ewma-width W
+                     as for "add" (--date-order "" reads YYYY-MM-DD only;
+                     0 turns a monitor off)
   --map "HEADER=COLUMN,..."
                      the whole new column map ("" removes it)
   --categories LIST  the whole new list of defect categories: categories
@@ -142,6 +155,7 @@ func runProcessAdd(args []string, stdout, stderr io.Writer) int {
 	rules := fs.String("rules", "we", "")
 	cmap := fs.String("map", "", "")
 	dateOrder := fs.String("date-order", "", "")
+	mon := monitorFlags(fs)
 	as := fs.String("as", "", "")
 	pos, code, done := cliParse(fs, args, processHelp, stdout, stderr)
 	if done {
@@ -175,6 +189,7 @@ func runProcessAdd(args []string, stdout, stderr io.Writer) int {
 			p.Categories = append(p.Categories, strings.TrimSpace(c))
 		}
 	}
+	probs = append(probs, mon.apply(&p.Monitors, nil)...)
 	if len(probs) > 0 {
 		return cliProblems(stderr, "process add", probs...)
 	}
@@ -203,6 +218,7 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 	rules := fs.String("rules", "", "")
 	cats := fs.String("categories", "", "")
 	tz := fs.String("tz", "", "")
+	mon := monitorFlags(fs)
 	retire := fs.Bool("retire", false, "")
 	activate := fs.Bool("activate", false, "")
 	reason := fs.String("reason", "", "")
@@ -224,16 +240,18 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 		probs = append(probs, "--retire and --activate exclude each other")
 	}
 	changes := 0
-	for _, f := range []string{"description", "area", "limits", "sigma", "rules", "categories", "tz", "retire", "activate", "map", "date-order"} {
+	for _, f := range []string{"description", "area", "limits", "sigma", "rules", "categories", "tz", "retire", "activate", "map", "date-order", "cusum-shift", "cusum-arl0", "ewma-lambda", "ewma-width"} {
 		if set[f] {
 			changes++
 		}
 	}
 	if changes == 0 {
-		probs = append(probs, "nothing to change: give --description, --area, --limits, --sigma, --rules, --categories, --tz, --map, --date-order, --retire or --activate")
+		probs = append(probs, "nothing to change: give --description, --area, --limits, --sigma, --rules, --categories, --tz, --map, --date-order, a monitor option, --retire or --activate")
 	}
 	newMap, mprobs := parseColumnMap(*cmap)
 	probs = append(probs, mprobs...)
+	var monitors spc.Monitors
+	probs = append(probs, mon.apply(&monitors, set)...)
 	var method spc.Method
 	if set["limits"] {
 		m, err := spc.ParseMethod(*limits)
@@ -303,6 +321,7 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 	if set["date-order"] {
 		p.DateOrder = *dateOrder
 	}
+	mon.update(&p.Monitors, monitors, set)
 	if *retire {
 		p.Active = false
 	}
@@ -389,4 +408,52 @@ func runProcessList(args []string, stdout, stderr io.Writer) int {
 	}
 	tw.Flush()
 	return exitOK
+}
+
+// processMonitors are the shift-monitor options of "process add" and
+// "process update", as typed.
+type processMonitors struct {
+	cusumShift, cusumARL0, ewmaLambda, ewmaWidth *string
+}
+
+func monitorFlags(fs *flag.FlagSet) processMonitors {
+	return processMonitors{fs.String("cusum-shift", "", ""), fs.String("cusum-arl0", "", ""), fs.String("ewma-lambda", "", ""), fs.String("ewma-width", "", "")}
+}
+
+// apply reads the options given (all of them when set is nil) into m;
+// the store checks the values against the chart.
+func (o processMonitors) apply(m *spc.Monitors, set map[string]bool) []string {
+	var probs []string
+	for _, f := range []struct {
+		name string
+		v    *string
+		dst  *float64
+	}{{"cusum-shift", o.cusumShift, &m.CUSUMShift}, {"cusum-arl0", o.cusumARL0, &m.CUSUMARL0}, {"ewma-lambda", o.ewmaLambda, &m.EWMALambda}, {"ewma-width", o.ewmaWidth, &m.EWMAWidth}} {
+		if (set == nil && *f.v == "") || (set != nil && !set[f.name]) {
+			continue
+		}
+		v, err := strconv.ParseFloat(*f.v, 64)
+		if err != nil || v < 0 || v != v || v > 1e12 {
+			probs = append(probs, fmt.Sprintf("--%s %q: want a number of 0 or more", f.name, *f.v))
+			continue
+		}
+		*f.dst = v
+	}
+	return probs
+}
+
+// update copies into p the monitor settings of m that were given.
+func (o processMonitors) update(p *spc.Monitors, m spc.Monitors, set map[string]bool) {
+	if set["cusum-shift"] {
+		p.CUSUMShift = m.CUSUMShift
+	}
+	if set["cusum-arl0"] {
+		p.CUSUMARL0 = m.CUSUMARL0
+	}
+	if set["ewma-lambda"] {
+		p.EWMALambda = m.EWMALambda
+	}
+	if set["ewma-width"] {
+		p.EWMAWidth = m.EWMAWidth
+	}
 }

@@ -104,6 +104,11 @@ type PlanResult struct {
 	Curve []spc.Plan
 	// MinARL0 is the floor on ARL0 that the search kept to.
 	MinARL0 float64
+	// CUSUM is, for the requested N, the CUSUM for the same shift with no
+	// more false alarms than the chart (nil without N); Sooner says in
+	// words which of the two catches the shift sooner on average.
+	CUSUM  *spc.CUSUM
+	Sooner string
 	// Warnings say in plain words where the plan falls short: a floor
 	// lowered below the default, a lot size asked whose ARL0 is below it.
 	Warnings []string
@@ -150,6 +155,7 @@ func PlanFor(c Centre, req PlanRequest) (*PlanResult, error) {
 	if req.N > 0 {
 		pl := spc.PlanLimits(c.P0, req.N, k).WithShift(req.P1)
 		res.Plan = &pl
+		res.CUSUM, res.Sooner = compareCUSUM(c.P0, req.P1, req.N, pl)
 		if bar := math.Max(floor, spc.DefaultMinARL0); pl.ARL0 < bar {
 			res.Warnings = append(res.Warnings, fmt.Sprintf("At %d units per lot an in-control process raises a false alarm once every %s lots on average, more often than once in %s lots.",
 				req.N, lots(pl.ARL0), strconv.FormatFloat(bar, 'g', -1, 64)))
@@ -196,4 +202,30 @@ func CurveSizes(hi int64, count int) []int64 {
 		out = append(out, hi)
 	}
 	return out
+}
+
+// compareCUSUM returns the CUSUM for a shift from p0 to p1 in lots of n
+// units designed for an in-control ARL no shorter than the chart's (370
+// when the chart cannot signal), and says which catches the shift sooner.
+func compareCUSUM(p0, p1 float64, n int64, pl spc.Plan) (*spc.CUSUM, string) {
+	lots := func(x float64) string { return strconv.FormatFloat(x, 'f', 1, 64) }
+	arl0 := pl.ARL0
+	if math.IsInf(arl0, 1) || !(arl0 >= 1) {
+		arl0 = spc.DefaultARL0
+	}
+	c, err := spc.DesignCUSUM(spc.ChartP, p0, p1, []int64{n}, arl0, 0)
+	if err != nil {
+		return nil, ""
+	}
+	chart := "never"
+	if !math.IsInf(pl.ARL1, 1) {
+		chart = lots(pl.ARL1) + " lots"
+	}
+	switch {
+	case c.ARL1 < 0.99*pl.ARL1:
+		return c, fmt.Sprintf("A CUSUM (h = %.2f, a false alarm once every %s lots) catches this shift sooner: after %s lots on average, against %s for the chart.", c.H, lots(c.ARL0), lots(c.ARL1), chart)
+	case pl.ARL1 < 0.99*c.ARL1:
+		return c, fmt.Sprintf("The chart catches this shift sooner: after %s on average, against %s lots for a CUSUM (h = %.2f, a false alarm once every %s lots).", chart, lots(c.ARL1), c.H, lots(c.ARL0))
+	}
+	return c, fmt.Sprintf("The chart and a CUSUM (h = %.2f) catch this shift equally soon, after about %s lots.", c.H, lots(c.ARL1))
 }

@@ -679,7 +679,38 @@ func Judge(p store.Process, lots []store.Lot, sets []store.LimitSet, rules spc.R
 	for i, ls := range sets {
 		js[i] = judge.Set{Number: ls.Number, EffectiveFrom: ls.EffectiveFrom, Method: ls.Method, K: ls.K, Center: ls.Center, SigmaZ: ls.SigmaZ}
 	}
-	return judge.Judge(spcLots(lots), times, spc.Config{Chart: p.Chart, Method: p.Method, K: p.K}, js, rules)
+	in := spcLots(lots)
+	a, setOf, err = judge.Judge(in, times, spc.Config{Chart: p.Chart, Method: p.Method, K: p.K}, js, rules)
+	// The monitors of the limit set in force at the last lot, frozen with
+	// its centre, or else the process's own.
+	mon := p.Monitors
+	var inForce *store.LimitSet
+	for i := range sets {
+		if !sets[i].EffectiveFrom.After(lots[len(lots)-1].Time) {
+			inForce = &sets[i]
+		}
+	}
+	if inForce != nil && inForce.Monitors.On() {
+		mon = inForce.Monitors
+	}
+	if err == nil && mon.On() {
+		watchShifts(a, in, mon)
+	}
+	return a, setOf, err
+}
+
+// watchShifts adds the signals of the process's CUSUM and EWMA (kind
+// "shift") to its judged chart, watched from the centre in force, the
+// CUSUM's run lengths over the sizes of the lots. A monitor that cannot
+// run (a centre of 0 leaves no shift to weigh) becomes a warning.
+func watchShifts(a *spc.Analysis, in []spc.Lot, m spc.Monitors) {
+	sizes := make([]int64, len(in))
+	for i, l := range in {
+		sizes[i] = l.Inspected
+	}
+	if _, err := spc.WatchShifts(a, in, m, sizes); err != nil {
+		a.Warnings = append(a.Warnings, spc.Warning{Code: "shift-monitor", Message: "The shift monitors cannot run: " + err.Error() + "."})
+	}
 }
 
 // SortLimitSets returns a copy of the limit sets in the order they come

@@ -16,8 +16,8 @@ import (
 )
 
 // fullDisk mounts a small tmpfs for a database, or skips the test when
-// it may not (mounting needs root, as the tests run in CI). It returns
-// the folder and a function that fills the disk to the last byte.
+// it may not (mounting needs root, which the tests have in CI). It
+// returns the folder and a function that fills the disk to the last byte.
 func fullDisk(t *testing.T) (dir string, fill func()) {
 	t.Helper()
 	dir = t.TempDir()
@@ -46,8 +46,8 @@ func fullDisk(t *testing.T) (dir string, fill func()) {
 
 // TestPagesReadableOnAFullDisk: with the disk full, a signed-in user
 // still reads the board, a chart and the API, although the session's
-// last-seen time cannot be written (before, every page answered 500).
-// Writes fail with a message, and work again when space returns.
+// last-seen time cannot be written (before, every page answered 500), and
+// a user can sign in. Writes fail, and work again when space returns.
 func TestPagesReadableOnAFullDisk(t *testing.T) {
 	dir, fill := fullDisk(t)
 	db, err := store.Open(filepath.Join(dir, "lotwatch.db"))
@@ -88,6 +88,11 @@ func TestPagesReadableOnAFullDisk(t *testing.T) {
 	if rec := e.do(req{method: "GET", path: "/api/v1/processes/" + formatID(e.proc.ID) + "/chart", token: e.tokens[store.RoleViewer]}); rec.Code != http.StatusOK {
 		t.Errorf("API chart on a full disk: %d, want 200", rec.Code)
 	}
+	// Signing in works too: the session is kept in memory.
+	fresh := e.signIn(t, "viewer1", testPassword)
+	if rec := e.do(req{method: "GET", path: "/", cookie: fresh}); rec.Code != http.StatusOK {
+		t.Errorf("the board for a session begun on a full disk: %d, want 200", rec.Code)
+	}
 
 	// Space returns: the next write works.
 	if err := os.Remove(filepath.Join(dir, "filler")); err != nil {
@@ -95,5 +100,12 @@ func TestPagesReadableOnAFullDisk(t *testing.T) {
 	}
 	if _, err := db.AddLots(ctx, "setup", e.proc.ID, []store.LotInput{{Lot: "FULL-2", Inspected: 10, Count: 0, Time: clk.Now()}}); err != nil {
 		t.Errorf("after space returned: %v", err)
+	}
+	// A new password ends the sessions kept in memory as well.
+	if err := db.SetPassword(ctx, "setup", "viewer1", "another-long-password"); err != nil {
+		t.Fatal(err)
+	}
+	if rec := e.do(req{method: "GET", path: "/", cookie: fresh}); rec.Code != http.StatusSeeOther {
+		t.Errorf("a session begun on a full disk outlived a new password: %d, want 303 to sign in", rec.Code)
 	}
 }

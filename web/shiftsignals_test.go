@@ -1,0 +1,154 @@
+package web
+
+import (
+	"encoding/json"
+	"fmt"
+	"strings"
+	"testing"
+	"time"
+
+	"lotwatch/spc"
+	"lotwatch/store"
+)
+
+// TestShiftSignalsOnTheChart: a process set up with a CUSUM and an EWMA
+// gets their signals, of kind "shift", in the API's chart answer beside
+// the run-rule signals, on a sustained rise from 1 % to about 2.7 % in
+// lots of 200 that no single lot shows beyond its 3σ limit; the chart
+// page lists them.
+func TestShiftSignalsOnTheChart(t *testing.T) {
+	e := newTestEnv(t)
+	ctx := t.Context()
+	p := e.proc
+	p.Monitors = spc.Monitors{CUSUMShift: 0.02, EWMALambda: 0.2}
+	p, err := e.db.UpdateProcess(ctx, "setup", "watch for a small rise", p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := e.db.FreezeLimitSet(ctx, "setup", store.LimitSet{ProcessID: p.ID, Method: spc.MethodSigma, K: 3, Center: 0.01, SigmaZ: 1,
+		EffectiveFrom: time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC), Reason: "the customer's 1 %"}); err != nil {
+		t.Fatal(err)
+	}
+	var in []store.LotInput
+	t0 := time.Date(2026, 3, 2, 6, 0, 0, 0, time.UTC)
+	for i := 0; i < 60; i++ {
+		d := int64([]int{2, 1, 3, 2, 2}[i%5])
+		if i >= 40 {
+			d = int64([]int{5, 6, 4, 6, 5}[i%5])
+		}
+		in = append(in, store.LotInput{Lot: fmt.Sprintf("R%02d", i), Time: t0.Add(time.Duration(i) * time.Hour), Inspected: 200, Count: d})
+	}
+	if _, err := e.db.AddLots(ctx, "setup", p.ID, in); err != nil {
+		t.Fatal(err)
+	}
+	rec := e.do(req{method: "GET", path: fmt.Sprintf("/api/v1/processes/%d/chart", p.ID), token: e.tokens[store.RoleViewer]})
+	if rec.Code != 200 {
+		t.Fatalf("status %d: %s", rec.Code, rec.Body)
+	}
+	var got ChartJSON
+	if err := json.Unmarshal(rec.Body.Bytes(), &got); err != nil {
+		t.Fatal(err)
+	}
+	kinds := map[string]int{}
+	for _, s := range got.Signals {
+		if s.Kind == "shift" {
+			kinds[s.Rule]++
+			if s.First < 38 {
+				t.Errorf("shift signal before the rise: %+v", s)
+			}
+		} else if s.Kind == "" {
+			t.Errorf("signal without a kind: %+v", s)
+		}
+	}
+	if kinds["cusum"] == 0 || kinds["ewma"] == 0 {
+		t.Errorf("shift signals %v in %+v", kinds, got.Signals)
+	}
+	c := e.signIn(t, "viewer1", testPassword)
+	page := e.do(req{method: "GET", path: fmt.Sprintf("/processes/%d?period=all", p.ID), cookie: c})
+	if page.Code != 200 || !strings.Contains(page.Body.String(), "cusum") {
+		t.Errorf("chart page %d does not list the CUSUM signal", page.Code)
+	}
+}
+
+// TestPlanPageComparesCUSUM: for a lot size and a shift, the planning
+// page says whether the chart or a CUSUM with no more false alarms
+// catches the shift sooner (here the CUSUM: lots of 200 at 2 %, a shift
+// to 4 %).
+func TestPlanPageComparesCUSUM(t *testing.T) {
+	e := newTestEnv(t)
+	e.addLots(t, 40, func(i int) int64 { return 4 }) // 4 of 200 each: p̄ = 0.02
+	c := e.signIn(t, "viewer1", testPassword)
+	rec := e.do(req{method: "GET", path: fmt.Sprintf("/plan?process=%d&p1=0.04&n=200", e.proc.ID), cookie: c})
+	body := rec.Body.String()
+	if rec.Code != 200 || !strings.Contains(body, `id="plan-cusum"`) || !strings.Contains(body, "catches this shift sooner") {
+		t.Errorf("status %d; the page does not compare the CUSUM:\n%.2000s", rec.Code, body)
+	}
+}
+
+// TestFrozenLimitsFreezeMonitors: freezing limits on the limits page
+// freezes the process's CUSUM (with a decision interval designed from the
+// baseline) and EWMA; a later change of the process's monitors leaves the
+// judged chart on the frozen ones.
+func TestFrozenLimitsFreezeMonitors(t *testing.T) {
+	e := newTestEnv(t)
+	ctx := t.Context()
+	p := e.proc
+	p.Monitors = spc.Monitors{CUSUMShift: 0.04, EWMALambda: 0.3, EWMAWidth: 2.8}
+	p, err := e.db.UpdateProcess(ctx, "setup", "watch for a rise", p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	e.addLots(t, 30, func(i int) int64 { return int64(2 + i%4) })
+	c := e.signIn(t, "engineer1", testPassword)
+	rec := e.do(req{method: "POST", path: fmt.Sprintf("/processes/%d/limits", p.ID), cookie: c,
+		body: "reason=thirty+lots+in+control", form: true})
+	if rec.Code >= 400 {
+		t.Fatalf("freeze: status %d: %.500s", rec.Code, rec.Body.String())
+	}
+	sets, err := e.db.LimitSets(ctx, p.ID)
+	if err != nil || len(sets) != 1 {
+		t.Fatalf("sets %+v %v", sets, err)
+	}
+	m := sets[0].Monitors
+	if m.CUSUMShift != 0.04 || !(m.CUSUMH > 0) || m.EWMALambda != 0.3 || m.EWMAWidth != 2.8 {
+		t.Fatalf("frozen monitors %+v", m)
+	}
+	p.Monitors = spc.Monitors{EWMALambda: 0.1}
+	if _, err := e.db.UpdateProcess(ctx, "setup", "try another weight", p); err != nil {
+		t.Fatal(err)
+	}
+	rec = e.do(req{method: "GET", path: fmt.Sprintf("/api/v1/processes/%d/chart", p.ID), token: e.tokens[store.RoleViewer]})
+	if rec.Code != 200 {
+		t.Fatalf("chart: %d", rec.Code)
+	}
+	if chk, err := e.db.VerifyAudit(ctx); err != nil || !chk.OK {
+		t.Errorf("audit: %+v %v", chk, err)
+	}
+}
+
+// TestProcessFormMonitors: the settings form sets the CUSUM and EWMA of
+// a process, and refuses a shift the chart cannot have beside its field,
+// changing nothing.
+func TestProcessFormMonitors(t *testing.T) {
+	e := newTestEnv(t)
+	c := e.signIn(t, "engineer1", testPassword)
+	form := func(shift string) string {
+		return "name=Final+visual+check&chart=p&method=sigma&k=3&rules=we&categories=scratch,dent&tz=Europe/Berlin&reason=watch+small+shifts" +
+			"&cusum_shift=" + shift + "&cusum_arl0=500&ewma_lambda=0.2&ewma_width="
+	}
+	rec := e.do(req{method: "POST", path: fmt.Sprintf("/processes/%d/settings", e.proc.ID), cookie: c, body: form("0.02"), form: true})
+	if rec.Code != 303 {
+		t.Fatalf("status %d: %.800s", rec.Code, rec.Body.String())
+	}
+	p, _ := e.db.Process(t.Context(), e.proc.ID)
+	if p.Monitors != (spc.Monitors{CUSUMShift: 0.02, CUSUMARL0: 500, EWMALambda: 0.2}) {
+		t.Errorf("monitors %+v", p.Monitors)
+	}
+	rec = e.do(req{method: "POST", path: fmt.Sprintf("/processes/%d/settings", e.proc.ID), cookie: c, body: form("1.5"), form: true})
+	if rec.Code != 400 || !strings.Contains(rec.Body.String(), "1.5") {
+		t.Errorf("a shift of 1.5: status %d", rec.Code)
+	}
+	if again, _ := e.db.Process(t.Context(), e.proc.ID); again.Monitors != p.Monitors {
+		t.Errorf("a refused form changed the monitors: %+v", again.Monitors)
+	}
+}
