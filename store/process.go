@@ -123,7 +123,7 @@ func checkColumnMap(p *Process) []Problem {
 	return ps
 }
 
-var ruleItem = regexp.MustCompile(`^(we[1-8]|nelson[1-8])$`)
+var ruleItem = regexp.MustCompile(`^(we[1-4]|nelson[1-8])$`)
 
 // CheckRules reports whether s is a rule set: "we" (Western Electric),
 // "nelson" (Nelson), "none", or a comma list of single rules such as
