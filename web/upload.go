@@ -52,6 +52,7 @@ type pendingUpload struct {
 	user      string
 	name      string
 	created   time.Time
+	order     uint64   // the order of upload, which decides the oldest when clock times tie
 	ignore    []string // columns the user chose to skip on purpose
 }
 
@@ -64,6 +65,7 @@ type uploads struct {
 	pending  map[string]*pendingUpload
 	dir      string
 	maxTotal int
+	uploaded uint64 // previews kept so far, numbering each one's order
 }
 
 // previewRoot is the folder holding every server's preview folder.
@@ -140,11 +142,13 @@ func (u *uploads) put(p *pendingUpload, now time.Time) (string, error) {
 	if len(mine) < previewsPerUser && len(u.pending) >= u.maxTotal {
 		return "", errTooManyPreviews
 	}
-	sort.Slice(mine, func(i, j int) bool { return u.pending[mine[i]].created.Before(u.pending[mine[j]].created) })
+	sort.Slice(mine, func(i, j int) bool { return u.pending[mine[i]].order < u.pending[mine[j]].order })
 	for _, k := range mine[:max(len(mine)-previewsPerUser+1, 0)] {
 		os.Remove(u.pending[k].path)
 		delete(u.pending, k)
 	}
+	u.uploaded++
+	p.order = u.uploaded
 	u.pending[key] = p
 	return key, nil
 }
