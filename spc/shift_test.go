@@ -8,6 +8,14 @@ import (
 // TestWatchShifts: a sustained rise from 1 % to 3 % in lots of 200 that
 // no single lot shows beyond the 3σ limits is signalled by the CUSUM and
 // the EWMA as signals of kind "shift", with the lots marked.
+//
+// Sources: the upper limit is n·(p0 + 3√(p0(1−p0)/n)) = 200·(0.01 +
+// 3·0.00704) = 6.22 nonconforming units (the p chart with a standard given,
+// Montgomery, Introduction to Statistical Quality Control, §7.2, from
+// memory); that a CUSUM (Page 1954) and an EWMA (Roberts 1959) find a
+// sustained shift no single lot shows is what they are for (Montgomery
+// ch. 9, from memory). The scores and statistics themselves are checked
+// against their formulas and a simulation in cusum_test.go.
 func TestWatchShifts(t *testing.T) {
 	var lots []Lot
 	for i := 0; i < 60; i++ {
