@@ -329,3 +329,42 @@ func (u *statsUsage) week(s string) {
 		u.addf("--week %q %s", s, strings.TrimPrefix(err.Error(), fmt.Sprintf("week %q ", s)))
 	}
 }
+
+// cliAction is one action of a command that takes several, such as
+// "process add".
+type cliAction struct {
+	name string
+	run  func(args []string, stdout, stderr io.Writer) int
+}
+
+// cliActions runs the action args[0] names, prints help for -h, and
+// otherwise says which actions the command takes, in one line.
+func cliActions(cmd, help string, args []string, stdout, stderr io.Writer, actions ...cliAction) int {
+	names := make([]string, len(actions))
+	quoted := make([]string, len(actions))
+	for i, a := range actions {
+		names[i], quoted[i] = a.name, strconv.Quote(a.name)
+	}
+	if len(args) == 0 {
+		return cliProblems(stderr, cmd, fmt.Sprintf("say %s (run \"lotwatch %s -h\" for the options)", orList(quoted), cmd))
+	}
+	switch args[0] {
+	case "-h", "--help", "help":
+		fmt.Fprint(stdout, help)
+		return exitOK
+	}
+	for _, a := range actions {
+		if a.name == args[0] {
+			return a.run(args[1:], stdout, stderr)
+		}
+	}
+	return cliProblems(stderr, cmd, fmt.Sprintf("unknown action %q: say %s", args[0], orList(names)))
+}
+
+// orList joins words as "a, b or c".
+func orList(words []string) string {
+	if len(words) < 2 {
+		return strings.Join(words, "")
+	}
+	return strings.Join(words[:len(words)-1], ", ") + " or " + words[len(words)-1]
+}

@@ -65,21 +65,11 @@ option and value; nothing is stored), 1 when the database fails.
 `
 
 func runAlert(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
-	if len(args) == 0 {
-		return cliProblems(stderr, "alert", `say "add", "list" or "remove" (run "lotwatch alert -h" for the options)`)
-	}
-	switch args[0] {
-	case "-h", "--help", "help":
-		fmt.Fprint(stdout, alertHelp)
-		return exitOK
-	case "add":
-		return runAlertAdd(args[1:], stdout, stderr)
-	case "list":
-		return runAlertList(args[1:], stdout, stderr)
-	case "remove":
-		return runAlertRemove(args[1:], stdout, stderr)
-	}
-	return cliProblems(stderr, "alert", fmt.Sprintf("unknown action %q: say add, list or remove", args[0]))
+	return cliActions("alert", alertHelp, args, stdout, stderr,
+		cliAction{"add", runAlertAdd},
+		cliAction{"list", runAlertList},
+		cliAction{"remove", runAlertRemove},
+	)
 }
 
 // alertProblem is a rule's problem as one line naming the option.

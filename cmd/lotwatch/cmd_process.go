@@ -124,21 +124,11 @@ func parseColumnMap(s string) (map[string]string, []string) {
 }
 
 func runProcess(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
-	if len(args) == 0 {
-		return cliProblems(stderr, "process", `say "add", "update" or "list" (run "lotwatch process -h" for the options)`)
-	}
-	switch args[0] {
-	case "-h", "--help", "help":
-		fmt.Fprint(stdout, processHelp)
-		return exitOK
-	case "add":
-		return runProcessAdd(args[1:], stdout, stderr)
-	case "update":
-		return runProcessUpdate(args[1:], stdout, stderr)
-	case "list":
-		return runProcessList(args[1:], stdout, stderr)
-	}
-	return cliProblems(stderr, "process", fmt.Sprintf("unknown action %q: say add, update or list", args[0]))
+	return cliActions("process", processHelp, args, stdout, stderr,
+		cliAction{"add", runProcessAdd},
+		cliAction{"update", runProcessUpdate},
+		cliAction{"list", runProcessList},
+	)
 }
 
 func runProcessAdd(args []string, stdout, stderr io.Writer) int {
