@@ -216,66 +216,24 @@ func analyze(lots []Lot, cfg Config, offset int) (*Analysis, error) {
 		return nil, errors.New("no lots to analyze")
 	}
 	a := &Analysis{Chart: cfg.Chart, Method: cfg.Method, K: cfg.K, Alpha: AlphaForK(cfg.K)}
-
-	// The baseline: the lots not excluded.
-	var sumN, sumC, allN float64
-	minN, maxN := lots[0].Inspected, lots[0].Inspected
-	m := 0
-	var excluded []bool // nil when no lot is excluded
-	for i, l := range lots {
-		if err := checkCounts(cfg.Chart, l.Inspected, l.Count, MaxPooled, "a pooled subgroup"); err != nil {
-			return nil, fmt.Errorf("lot %d (%q): %w", offset+i+1, l.Code, err)
-		}
-		minN = min(minN, l.Inspected)
-		maxN = max(maxN, l.Inspected)
-		allN += float64(l.Inspected)
-		if cfg.Exclude[l.Code] {
-			if excluded == nil {
-				excluded = make([]bool, len(lots))
-			}
-			excluded[i] = true
-			continue
-		}
-		sumN += float64(l.Inspected)
-		sumC += float64(l.Count)
-		m++
+	b, err := baselineOf(lots, cfg, offset)
+	if err != nil {
+		return nil, err
 	}
 	if len(cfg.Exclude) > 0 {
 		a.Warnings = append(a.Warnings, unknownExclusions(lots, cfg.Exclude)...)
 	}
-
-	// The centre.
-	var rate float64
-	switch {
-	case cfg.Standard != nil:
-		rate = cfg.Standard.Center
-	case m == 0:
-		return nil, errors.New("every lot is excluded: at least one lot must remain to estimate the centre line")
-	case cfg.Chart == ChartC:
-		rate = sumC / float64(m)
-	default:
-		rate = sumC / sumN
+	if err := a.setCentre(b, cfg, len(lots)); err != nil {
+		return nil, err
 	}
-	a.Rate = rate
-	a.Center = rate
-	if cfg.Chart == ChartNP {
-		if cfg.Standard != nil {
-			a.Center = rate * allN / float64(len(lots))
-		} else {
-			a.Center = rate * sumN / float64(m)
-		}
-	}
-	if cfg.Standard == nil {
-		a.Baseline = m
-	}
-	mod := newModel(cfg.Chart, rate)
+	mod := newModel(cfg.Chart, a.Rate)
 
 	// Laney limits need σ_z before any lot is judged.
 	laney := cfg.Method == MethodLaney
 	var sp spread
 	sigmaZ := 1.0
 	if laney {
-		sp = baselineSpread(lots, mod, excluded)
+		sp = baselineSpread(lots, mod, b.excluded)
 		a.SigmaZ = sp.sigmaZ()
 		sigmaZ = a.SigmaZ
 		if cfg.Standard != nil && cfg.Standard.SigmaZ > 0 {
@@ -295,42 +253,20 @@ func analyze(lots []Lot, cfg Config, offset int) (*Analysis, error) {
 			lim = newLotLimits(mod, cfg.Method, cfg.K, sigmaZ, l.Inspected)
 			sizes[l.Inspected] = lim
 		}
-		v := mod.value(float64(l.Inspected), float64(l.Count))
-		z := zOf(v-lim.center, lim.sigma)
 		p := &a.Points[i]
-		p.Lot = l
-		p.Excluded = excluded != nil && excluded[i]
+		judgePoint(p, l, mod, lim, cfg)
+		p.Excluded = b.excluded != nil && b.excluded[i]
 		if !laney && !p.Excluded {
-			sp.add(z) // z is the sigma-method z
+			sp.add(p.Z) // the sigma-method z
 		}
-		p.Z = z
-		p.TailP = lim.tail(l.Count)
-		if cfg.Method == MethodExact {
-			p.Above, p.Below = l.Count > lim.uclN, l.Count < lim.lclN
-		} else {
-			p.Above, p.Below = v > lim.ucl, v < lim.lcl
-		}
-		switch {
-		case !cfg.Standardized:
-			p.Value, p.Center, p.UCL, p.LCL, p.Sigma = v, lim.center, lim.ucl, lim.lcl, lim.sigma
-		case cfg.Method == MethodExact:
-			p.Value, p.Center, p.UCL, p.LCL, p.Sigma = z, 0, zOf(lim.ucl-lim.center, lim.sigma), zOf(lim.lcl-lim.center, lim.sigma), 1
-		default:
-			p.Value, p.Center, p.UCL, p.LCL, p.Sigma = z, 0, cfg.K, -cfg.K, 1
-		}
-		if lim.small {
-			cnt.small++
-		}
-		if lim.lcl <= 0 {
-			cnt.lclZero++
-		}
+		cnt.add(lim)
 	}
 	if !laney {
 		a.SigmaZ = sp.sigmaZ()
 		sigmaZ = 0
 	}
 	a.Dispersion.ChiSquare, a.Dispersion.DF = sp.chi, sp.df(cfg.Standard != nil)
-	diagnose(a, cfg, minN, maxN, sigmaZ, cnt)
+	diagnose(a, cfg, b.minN, b.maxN, sigmaZ, cnt)
 	if laney {
 		// The σ_z the limits use, which a standard may give; the
 		// dispersion check keeps the lots' own.
@@ -339,8 +275,103 @@ func analyze(lots []Lot, cfg Config, offset int) (*Analysis, error) {
 	return a, nil
 }
 
+// baseline sums the lots that estimate the centre line: those not excluded.
+type baseline struct {
+	sumN, sumC float64 // over the baseline lots
+	allN       float64 // over every lot (an np chart's centre under a standard)
+	m          int     // baseline lots
+	minN, maxN int64   // lot sizes over every lot
+	excluded   []bool  // nil when no lot is excluded
+}
+
+// baselineOf checks every lot's counts and sums the baseline.
+func baselineOf(lots []Lot, cfg Config, offset int) (baseline, error) {
+	b := baseline{minN: lots[0].Inspected, maxN: lots[0].Inspected}
+	for i, l := range lots {
+		if err := checkCounts(cfg.Chart, l.Inspected, l.Count, MaxPooled, "a pooled subgroup"); err != nil {
+			return b, fmt.Errorf("lot %d (%q): %w", offset+i+1, l.Code, err)
+		}
+		b.minN = min(b.minN, l.Inspected)
+		b.maxN = max(b.maxN, l.Inspected)
+		b.allN += float64(l.Inspected)
+		if cfg.Exclude[l.Code] {
+			if b.excluded == nil {
+				b.excluded = make([]bool, len(lots))
+			}
+			b.excluded[i] = true
+			continue
+		}
+		b.sumN += float64(l.Inspected)
+		b.sumC += float64(l.Count)
+		b.m++
+	}
+	return b, nil
+}
+
+// setCentre sets the rate (p̄, ū or c̄) and the centre line in the chart's
+// units from the baseline, or from the standard when one is given.
+func (a *Analysis) setCentre(b baseline, cfg Config, lots int) error {
+	var rate float64
+	switch {
+	case cfg.Standard != nil:
+		rate = cfg.Standard.Center
+	case b.m == 0:
+		return errors.New("every lot is excluded: at least one lot must remain to estimate the centre line")
+	case cfg.Chart == ChartC:
+		rate = b.sumC / float64(b.m)
+	default:
+		rate = b.sumC / b.sumN
+	}
+	a.Rate = rate
+	a.Center = rate
+	if cfg.Chart == ChartNP {
+		if cfg.Standard != nil {
+			a.Center = rate * b.allN / float64(lots)
+		} else {
+			a.Center = rate * b.sumN / float64(b.m)
+		}
+	}
+	if cfg.Standard == nil {
+		a.Baseline = b.m
+	}
+	return nil
+}
+
+// judgePoint places lot l against the limits of its size: its z, tail
+// probability, side beyond the limits, and the values the chart draws.
+func judgePoint(p *Point, l Lot, mod model, lim *lotLimits, cfg Config) {
+	v := mod.value(float64(l.Inspected), float64(l.Count))
+	z := zOf(v-lim.center, lim.sigma)
+	p.Lot = l
+	p.Z = z
+	p.TailP = lim.tail(l.Count)
+	if cfg.Method == MethodExact {
+		p.Above, p.Below = l.Count > lim.uclN, l.Count < lim.lclN
+	} else {
+		p.Above, p.Below = v > lim.ucl, v < lim.lcl
+	}
+	switch {
+	case !cfg.Standardized:
+		p.Value, p.Center, p.UCL, p.LCL, p.Sigma = v, lim.center, lim.ucl, lim.lcl, lim.sigma
+	case cfg.Method == MethodExact:
+		p.Value, p.Center, p.UCL, p.LCL, p.Sigma = z, 0, zOf(lim.ucl-lim.center, lim.sigma), zOf(lim.lcl-lim.center, lim.sigma), 1
+	default:
+		p.Value, p.Center, p.UCL, p.LCL, p.Sigma = z, 0, cfg.K, -cfg.K, 1
+	}
+}
+
 // pointCounts are the per-lot diagnostics gathered while finishing points.
 type pointCounts struct {
 	lclZero int // lower limit 0 in the chart's units
 	small   int // expected counts too small for the normal approximation
+}
+
+// add counts the diagnostics of one lot's limits.
+func (c *pointCounts) add(lim *lotLimits) {
+	if lim.small {
+		c.small++
+	}
+	if lim.lcl <= 0 {
+		c.lclZero++
+	}
 }
