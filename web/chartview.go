@@ -214,7 +214,6 @@ func groups(lots []store.Lot, by string, loc *time.Location) [][2]int {
 // estimated from the pooled subgroups before the first set.
 func buildView(pc *processChart, win window, by string, anns []store.Annotation) (*chartView, error) {
 	p := pc.proc
-	loc := p.Location()
 	v := &chartView{Proc: p, Subgroup: by, Unit: "lot", Method: string(p.Method), K: p.K}
 	if len(pc.lots) == 0 || pc.a == nil {
 		v.Limits = "no lots yet"
@@ -224,28 +223,11 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 	for _, a := range anns {
 		byLotID[a.LotID] = append(byLotID[a.LotID], a)
 	}
+	gs := groups(pc.lots, by, p.Location())
 	a, setOf := pc.a, pc.setOf
-	var gs [][2]int
-	if by == byLot {
-		gs = groups(pc.lots, byLot, loc)
-	} else {
+	if by != byLot {
 		v.Unit = "subgroup"
-		gs = groups(pc.lots, by, loc)
-		pooled := make([]store.Lot, len(gs))
-		for k, g := range gs {
-			first := pc.lots[g[0]]
-			var n, c int64
-			for i := g[0]; i < g[1]; i++ {
-				n += pc.lots[i].Inspected
-				c += pc.lots[i].Count
-			}
-			label := first.Time.In(loc).Format("2006-01-02")
-			if by == byShift {
-				label += " " + orDash(first.Shift, "(no shift)")
-			}
-			pooled[k] = store.Lot{ID: int64(k), LotInput: store.LotInput{Lot: label, Time: first.Time, Shift: first.Shift, Inspected: n, Count: c}}
-		}
-		pg, err := judge(p, pooled, pc.sets)
+		pg, err := judgePooled(pc, gs, by)
 		if err != nil {
 			return nil, err
 		}
@@ -258,6 +240,38 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 	if hi < lo {
 		hi = lo
 	}
+	v.addPoints(pc, gs, a, setOf, lo, hi, byLotID)
+	v.addSignals(pc, gs, a, lo, hi, byLotID)
+	v.addRecordNotes(a)
+	v.describeLimits(pc, setOf, lo, hi, a)
+	return v, nil
+}
+
+// judgePooled judges the subgroups gs (the lots of a day or a shift
+// pooled: Σd over Σn) against the process's limit sets.
+func judgePooled(pc *processChart, gs [][2]int, by string) (*processChart, error) {
+	loc := pc.proc.Location()
+	pooled := make([]store.Lot, len(gs))
+	for k, g := range gs {
+		first := pc.lots[g[0]]
+		var n, c int64
+		for i := g[0]; i < g[1]; i++ {
+			n += pc.lots[i].Inspected
+			c += pc.lots[i].Count
+		}
+		label := first.Time.In(loc).Format("2006-01-02")
+		if by == byShift {
+			label += " " + orDash(first.Shift, "(no shift)")
+		}
+		pooled[k] = store.Lot{ID: int64(k), LotInput: store.LotInput{Lot: label, Time: first.Time, Shift: first.Shift, Inspected: n, Count: c}}
+	}
+	return judge(pc.proc, pooled, pc.sets)
+}
+
+// addPoints adds the points lo ≤ k < hi of the judged groups, with their
+// monitor values, recorded causes and the limit set judging each.
+func (v *chartView) addPoints(pc *processChart, gs [][2]int, a *spc.Analysis, setOf []int, lo, hi int, byLotID map[int64][]store.Annotation) {
+	loc := pc.proc.Location()
 	v.Points = make([]viewPoint, 0, hi-lo)
 	prevSet := -1
 	if lo > 0 {
@@ -269,35 +283,12 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 		vp := viewPoint{Label: pt.Lot.Code, Time: first.Time.In(loc), Shift: first.Shift, Lots: g[1] - g[0],
 			Inspected: pt.Lot.Inspected, Count: pt.Lot.Count, Value: pt.Value, Center: pt.Center, UCL: pt.UCL, LCL: pt.LCL,
 			Z: pt.Z, TailP: pt.TailP, Above: pt.Above, Below: pt.Below, Rules: ruleNames(pt.Rules), Excluded: pt.Excluded}
-		if by == byLot {
+		if v.Subgroup == byLot {
 			vp.LotID = first.ID
 		}
-		if sw := a.Shift; sw != nil {
-			sp := &shiftPoint{HasCUSUM: sw.CUSUM != nil, HasEWMA: sw.EWMA != nil}
-			if sp.HasCUSUM {
-				sp.S = sw.CUSUMPoints[k].S
-			}
-			if sp.HasEWMA {
-				e := sw.EWMAPoints[k]
-				sp.Z, sp.UCL, sp.LCL = e.Z, e.UCL, e.LCL
-			}
-			vp.Monitor = sp
-		}
+		vp.Monitor = monitorPoint(a.Shift, k)
 		for i := g[0]; i < g[1]; i++ {
-			for _, an := range byLotID[pc.lots[i].ID] {
-				state := "open"
-				if an.Closed {
-					state = "closed"
-				}
-				note := "cause (" + state + "): " + an.Cause
-				if an.NoCauseFound {
-					note = "no assignable cause found: " + an.Reason
-				}
-				if by != byLot {
-					note = pc.lots[i].Lot + " " + note
-				}
-				vp.Notes = append(vp.Notes, note)
-			}
+			vp.Notes = append(vp.Notes, causeNotes(pc.lots[i], byLotID[pc.lots[i].ID], v.Subgroup != byLot)...)
 		}
 		n := setOf[k]
 		if n > 0 {
@@ -315,6 +306,48 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 		}
 		v.Points = append(v.Points, vp)
 	}
+}
+
+// monitorPoint is point k of the CUSUM and EWMA, nil without a monitor.
+func monitorPoint(sw *spc.ShiftWatch, k int) *shiftPoint {
+	if sw == nil {
+		return nil
+	}
+	sp := &shiftPoint{HasCUSUM: sw.CUSUM != nil, HasEWMA: sw.EWMA != nil}
+	if sp.HasCUSUM {
+		sp.S = sw.CUSUMPoints[k].S
+	}
+	if sp.HasEWMA {
+		e := sw.EWMAPoints[k]
+		sp.Z, sp.UCL, sp.LCL = e.Z, e.UCL, e.LCL
+	}
+	return sp
+}
+
+// causeNotes are the recorded causes of a lot as a point's notes; in a
+// pooled subgroup each names its lot.
+func causeNotes(l store.Lot, anns []store.Annotation, pooled bool) []string {
+	var notes []string
+	for _, an := range anns {
+		state := "open"
+		if an.Closed {
+			state = "closed"
+		}
+		note := "cause (" + state + "): " + an.Cause
+		if an.NoCauseFound {
+			note = "no assignable cause found: " + an.Reason
+		}
+		if pooled {
+			note = l.Lot + " " + note
+		}
+		notes = append(notes, note)
+	}
+	return notes
+}
+
+// addSignals adds the run-rule signals that touch the points lo ≤ k < hi,
+// each with the causes recorded for its lots.
+func (v *chartView) addSignals(pc *processChart, gs [][2]int, a *spc.Analysis, lo, hi int, byLotID map[int64][]store.Annotation) {
 	for _, sg := range a.Signals {
 		if sg.Last < lo || sg.First >= hi {
 			continue
@@ -333,9 +366,12 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 		v.Signals = append(v.Signals, vs)
 	}
 	v.SignalCount = len(v.Signals)
-	// The notes are about the limits the lots are judged against, worked
-	// out on the whole record: none when the period has no lot, and a
-	// period narrower than the record says so.
+}
+
+// addRecordNotes adds the notes about the limits the lots are judged
+// against, worked out on the whole record: none when the period has no
+// lot, and a period narrower than the record says so.
+func (v *chartView) addRecordNotes(a *spc.Analysis) {
 	seenNote := map[string]bool{}
 	for _, w := range a.Warnings {
 		if len(v.Points) > 0 && !seenNote[w.Message] {
@@ -349,8 +385,6 @@ func buildView(pc *processChart, win window, by string, anns []store.Annotation)
 	if len(v.Notes) > 0 && len(v.Points) < len(a.Points) {
 		v.NotesScope = fmt.Sprintf("worked out on the whole record of %s, on which the lots of this period are judged", plural(len(a.Points), v.Unit, v.Unit+"s"))
 	}
-	v.describeLimits(pc, setOf, lo, hi, a)
-	return v, nil
 }
 
 // describeLimits names the limits the page's badge and summary speak of,
