@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"lotwatch/spc"
+	"lotwatch/spc/chartjson"
 	"lotwatch/store"
 	"lotwatch/web/review"
 )
@@ -152,13 +153,13 @@ func cursor(l store.Lot) string {
 // window, with the signals that touch them (their first and last lot
 // counted within the page, and their lots cut to it, so that a signal
 // running through the whole record does not list it on every page).
-func (pc *processChart) chartJSON(w window, pg chartPage) *ChartJSON {
+func (pc *processChart) chartJSON(w window, pg chartPage) *chartjson.Chart {
 	loc := pc.proc.Location()
 	if pc.a == nil {
-		return &ChartJSON{Chart: string(pc.proc.Chart), Method: string(pc.proc.Method), Sigma: Num(pc.proc.K),
-			Lots: []LotJSON{}, Signals: []SignalJSON{}, Warnings: []string{}}
+		return &chartjson.Chart{Chart: string(pc.proc.Chart), Method: string(pc.proc.Method), Sigma: Num(pc.proc.K),
+			Lots: []chartjson.Lot{}, Signals: []chartjson.Signal{}, Warnings: []string{}}
 	}
-	out := analysisHead(pc.a)
+	out := chartjson.Head(pc.a)
 	lo, end := 0, len(pc.lots)
 	if !w.from.IsZero() {
 		lo = sort.Search(len(pc.lots), func(i int) bool { return !pc.lots[i].Time.Before(w.from) })
@@ -179,9 +180,9 @@ func (pc *processChart) chartJSON(w window, pg chartPage) *ChartJSON {
 	if hi < end {
 		out.Next = cursor(pc.lots[hi-1])
 	}
-	out.Lots = make([]LotJSON, 0, hi-lo)
+	out.Lots = make([]chartjson.Lot, 0, hi-lo)
 	for i := lo; i < hi; i++ {
-		l := pointJSON(pc.a.Points[i])
+		l := chartjson.PointOf(pc.a.Points[i])
 		l.ID = pc.lots[i].ID
 		l.Time = pc.lots[i].Time.In(loc).Format(time.RFC3339)
 		if n := pc.setOf[i]; n > 0 {
@@ -195,7 +196,7 @@ func (pc *processChart) chartJSON(w window, pg chartPage) *ChartJSON {
 		if s.Last < lo || s.First >= hi {
 			continue
 		}
-		sg := toSignalJSON(s)
+		sg := chartjson.SignalOf(s)
 		first, last := max(s.First, lo), min(s.Last, hi-1)
 		if len(sg.Lots) == s.Last-s.First+1 {
 			sg.Lots = sg.Lots[first-s.First : last-s.First+1]

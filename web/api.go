@@ -9,6 +9,7 @@ import (
 
 	"github.com/go-chi/chi/v5"
 
+	"lotwatch/spc/chartjson"
 	"lotwatch/store"
 )
 
@@ -345,7 +346,7 @@ func (pc *processChart) verdicts(stored []store.Lot) []verdictJSON {
 			pt := pc.a.Points[i]
 			v.Value, v.Center, v.UCL, v.LCL, v.Z = Num(pt.Value), Num(pt.Center), Num(pt.UCL), Num(pt.LCL), Num(pt.Z)
 			v.OutOfLimits = pt.Above || pt.Below
-			v.Signals = ruleNames(pt.Rules)
+			v.Signals = chartjson.RuleNames(pt.Rules)
 			if n := pc.setOf[i]; n > 0 {
 				v.Limits, v.LimitSet = "frozen", n
 			}
@@ -388,7 +389,7 @@ func (pc *processChart) signals(win window, anns []store.Annotation) []signalJSO
 		if (!win.to.IsZero() && first.Time.After(win.to)) || (!win.from.IsZero() && last.Time.Before(win.from)) {
 			continue
 		}
-		rule := ruleName(sg.Rule)
+		rule := sg.Rule.String()
 		ids := map[int64]bool{}
 		for i := sg.First; i <= sg.Last; i++ {
 			ids[pc.lots[i].ID] = true

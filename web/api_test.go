@@ -11,6 +11,7 @@ import (
 	"testing"
 	"time"
 
+	"lotwatch/spc/chartjson"
 	"lotwatch/store"
 )
 
@@ -285,7 +286,7 @@ func TestChartWindow(t *testing.T) {
 		}
 		var ids []string
 		if what == "chart" {
-			c := decodeJSON[ChartJSON](t, rec)
+			c := decodeJSON[chartjson.Chart](t, rec)
 			for _, l := range c.Lots {
 				ids = append(ids, l.Lot)
 			}
@@ -430,7 +431,7 @@ func TestChartLimitSets(t *testing.T) {
 	if rec.Code != 200 {
 		t.Fatalf("status %d: %s", rec.Code, rec.Body.String())
 	}
-	c := decodeJSON[ChartJSON](t, rec)
+	c := decodeJSON[chartjson.Chart](t, rec)
 	var sum int64
 	for _, l := range lots[:25] {
 		sum += l.Count

@@ -7,6 +7,7 @@ import (
 	"strings"
 	"testing"
 
+	"lotwatch/spc/chartjson"
 	"lotwatch/store"
 )
 
@@ -22,13 +23,13 @@ func TestAPIChartIsPaged(t *testing.T) {
 	n := maxChartPage + 1500
 	// The rate rises half-way, so that a run-rule signal lasts thousands of lots.
 	e.addLots(t, n, func(i int) int64 { return int64(i%7) + 1 + int64(i/(n/2))*6 })
-	get := func(query string) ChartJSON {
+	get := func(query string) chartjson.Chart {
 		t.Helper()
 		rec := e.do(req{method: "GET", path: fmt.Sprintf("/api/v1/processes/%d/chart%s", e.proc.ID, query), token: e.tokens[store.RoleViewer]})
 		if rec.Code != http.StatusOK {
 			t.Fatalf("GET chart%s: %d %.300s", query, rec.Code, rec.Body.String())
 		}
-		return decodeJSON[ChartJSON](t, rec)
+		return decodeJSON[chartjson.Chart](t, rec)
 	}
 	first := get("")
 	rec := e.do(req{method: "GET", path: fmt.Sprintf("/api/v1/processes/%d/chart", e.proc.ID), token: e.tokens[store.RoleViewer]})

@@ -9,6 +9,7 @@ import (
 	"time"
 
 	"lotwatch/spc"
+	"lotwatch/spc/chartjson"
 	"lotwatch/store"
 )
 
@@ -282,7 +283,7 @@ func (v *chartView) addPoints(pc *processChart, gs [][2]int, a *spc.Analysis, se
 		first := pc.lots[g[0]]
 		vp := viewPoint{Label: pt.Lot.Code, Time: first.Time.In(loc), Shift: first.Shift, Lots: g[1] - g[0],
 			Inspected: pt.Lot.Inspected, Count: pt.Lot.Count, Value: pt.Value, Center: pt.Center, UCL: pt.UCL, LCL: pt.LCL,
-			Z: pt.Z, TailP: pt.TailP, Above: pt.Above, Below: pt.Below, Rules: ruleNames(pt.Rules), Excluded: pt.Excluded}
+			Z: pt.Z, TailP: pt.TailP, Above: pt.Above, Below: pt.Below, Rules: chartjson.RuleNames(pt.Rules), Excluded: pt.Excluded}
 		if v.Subgroup == byLot {
 			vp.LotID = first.ID
 		}
@@ -352,7 +353,7 @@ func (v *chartView) addSignals(pc *processChart, gs [][2]int, a *spc.Analysis, l
 		if sg.Last < lo || sg.First >= hi {
 			continue
 		}
-		vs := viewSignal{Rule: ruleName(sg.Rule), Description: sg.Description,
+		vs := viewSignal{Rule: sg.Rule.String(), Description: sg.Description,
 			First: a.Points[sg.First].Lot.Code, Last: a.Points[sg.Last].Lot.Code}
 		lastGroup := gs[sg.Last]
 		vs.LastLotID = pc.lots[lastGroup[1]-1].ID

@@ -62,7 +62,7 @@
 //	GET  /api/v1/me                         who the token or session is
 //	GET  /api/v1/processes                  [{"id","name","chart",...}]
 //	GET  /api/v1/processes/{id}             one process
-//	GET  /api/v1/processes/{id}/chart       the analyze JSON shape (ChartJSON), in pages of
+//	GET  /api/v1/processes/{id}/chart       the analyze JSON shape (chartjson.Chart), in pages of
 //	                                        limit= lots (at most and by default 10,000) with
 //	                                        "total" and the "next" page's cursor=
 //	GET  /api/v1/processes/{id}/lots        stored lots

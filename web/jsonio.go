@@ -4,8 +4,9 @@ import (
 	"encoding/json"
 	"math"
 	"net/http"
-	"strconv"
 	"strings"
+
+	"lotwatch/spc/chartjson"
 )
 
 // isAPI reports whether the request is for the JSON API, whose errors are
@@ -56,18 +57,9 @@ func writeError(w http.ResponseWriter, status int, msg string) {
 	writeJSON(w, status, apiError{Error: msg})
 }
 
-// Num is a float64 that encodes NaN and ±Inf (an undefined limit, say) as
-// JSON null instead of failing; every other value is a JSON number.
-type Num float64
-
-// MarshalJSON implements json.Marshaler.
-func (n Num) MarshalJSON() ([]byte, error) {
-	f := float64(n)
-	if math.IsNaN(f) || math.IsInf(f, 0) {
-		return []byte("null"), nil
-	}
-	return strconv.AppendFloat(make([]byte, 0, 24), f, 'g', -1, 64), nil
-}
+// Num is the analysis's JSON number (NaN and ±Inf as null), so that
+// every number the API shows is written the same way.
+type Num = chartjson.Num
 
 // nan marks a number that is not defined (a lot not on the chart).
 var nan = math.NaN()

@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"lotwatch/spc"
+	"lotwatch/spc/chartjson"
 	"lotwatch/store"
 )
 
@@ -107,7 +108,7 @@ func TestChartCacheFollowsChanges(t *testing.T) {
 		if served != fresh {
 			t.Fatalf("after %s the served chart differs from a fresh one:\n%s\n%s", s.name, served, fresh)
 		}
-		var c ChartJSON
+		var c chartjson.Chart
 		json.Unmarshal([]byte(served), &c)
 		if s.name != "first read" && len(c.Lots) == n && s.name != "correct a lot" && s.name != "freeze limits" && s.name != "new settings" {
 			t.Errorf("after %s the chart still has %d lots", s.name, n)

@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"lotwatch/spc"
+	"lotwatch/spc/chartjson"
 	"lotwatch/store"
 )
 
@@ -261,7 +262,7 @@ func (s *Server) limitsData(r *http.Request, p store.Process, b baseline) (*limi
 		default:
 			f.What = "within limits"
 		}
-		if names := ruleNames(pt.Rules); len(names) > 0 {
+		if names := chartjson.RuleNames(pt.Rules); len(names) > 0 {
 			f.What += "; " + strings.Join(names, ", ")
 		}
 		for _, an := range anns {

@@ -392,7 +392,7 @@ func (s *Server) showLot(w http.ResponseWriter, r *http.Request, status int, pro
 	rules := []string{"", "the lot itself"}
 	seen := map[string]bool{}
 	for _, sg := range d.Signals {
-		if n := ruleName(sg.Rule); !seen[n] {
+		if n := sg.Rule.String(); !seen[n] {
 			seen[n] = true
 			rules = append(rules, n, "signal "+n+": "+sg.Description)
 		}

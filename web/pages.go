@@ -44,7 +44,7 @@ var templateFuncs = template.FuncMap{
 	"catlist":    categoryList,
 	"plural":     plural,
 	"thousands":  func(n int) string { return thousands(int64(n)) },
-	"ruleName":   ruleName,
+	"ruleName":   spc.Rule.String,
 	"sub":        func(a, b int) int { return a - b },
 	"valueShort": func(c spc.Chart) string { return valueShort(string(c)) },
 	// seg escapes a name for one segment of a path (a user name in

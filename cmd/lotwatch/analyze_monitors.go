@@ -9,7 +9,7 @@ import (
 	"text/tabwriter"
 
 	"lotwatch/spc"
-	"lotwatch/web"
+	"lotwatch/spc/chartjson"
 )
 
 // monitorOptions are the flags of `lotwatch analyze` for the CUSUM and
@@ -158,46 +158,9 @@ func (m *monitorOptions) run(ch spc.Chart, lots []spc.Lot, p0 float64, sizes []i
 // analyzeOut is the JSON of `lotwatch analyze`: the chart, and the
 // monitors when asked for.
 type analyzeOut struct {
-	*web.ChartJSON
-	CUSUM *cusumJSON `json:"cusum,omitempty"`
-	EWMA  *ewmaJSON  `json:"ewma,omitempty"`
-}
-
-type cusumJSON struct {
-	P0         web.Num           `json:"p0"`
-	P1         web.Num           `json:"p1"`
-	H          web.Num           `json:"h"`
-	ARL0       web.Num           `json:"arl0"`
-	ARL1       web.Num           `json:"arl1"`
-	ARL0Target *web.Num          `json:"arl0_target,omitempty"`
-	Points     []cusumPointJSON  `json:"points"`
-	Signals    []cusumSignalJSON `json:"signals"`
-}
-
-type cusumPointJSON struct {
-	Lot    string  `json:"lot"`
-	S      web.Num `json:"s"`
-	Signal bool    `json:"signal"`
-}
-
-type cusumSignalJSON struct {
-	Lot   string `json:"lot"`
-	Start string `json:"start"`
-}
-
-type ewmaJSON struct {
-	P0     web.Num         `json:"p0"`
-	Lambda web.Num         `json:"lambda"`
-	Width  web.Num         `json:"width"`
-	Points []ewmaPointJSON `json:"points"`
-}
-
-type ewmaPointJSON struct {
-	Lot    string  `json:"lot"`
-	Z      web.Num `json:"z"`
-	UCL    web.Num `json:"ucl"`
-	LCL    web.Num `json:"lcl"`
-	Signal bool    `json:"signal"`
+	*chartjson.Chart
+	CUSUM *chartjson.CUSUM `json:"cusum,omitempty"`
+	EWMA  *chartjson.EWMA  `json:"ewma,omitempty"`
 }
 
 // json fills in the monitors' part of the JSON.
@@ -206,26 +169,14 @@ func (r *monitorResult) json(out *analyzeOut) {
 		return
 	}
 	if c := r.cusum; c != nil {
-		j := &cusumJSON{P0: web.Num(c.P0), P1: web.Num(c.P1), H: web.Num(c.H), ARL0: web.Num(c.ARL0), ARL1: web.Num(c.ARL1),
-			Points: make([]cusumPointJSON, len(r.cPoints)), Signals: make([]cusumSignalJSON, len(r.cSigs))}
+		out.CUSUM = chartjson.CUSUMOf(c, r.cPoints, r.cSigs)
 		if r.target > 0 {
-			t := web.Num(r.target)
-			j.ARL0Target = &t
+			t := chartjson.Num(r.target)
+			out.CUSUM.ARL0Target = &t
 		}
-		for i, p := range r.cPoints {
-			j.Points[i] = cusumPointJSON{Lot: p.Lot, S: web.Num(p.S), Signal: p.Signal}
-		}
-		for i, s := range r.cSigs {
-			j.Signals[i] = cusumSignalJSON{Lot: s.LotID, Start: s.StartID}
-		}
-		out.CUSUM = j
 	}
 	if e := r.ewma; e != nil {
-		j := &ewmaJSON{P0: web.Num(e.P0), Lambda: web.Num(e.Lambda), Width: web.Num(e.L), Points: make([]ewmaPointJSON, len(r.ePoints))}
-		for i, p := range r.ePoints {
-			j.Points[i] = ewmaPointJSON{Lot: p.Lot, Z: web.Num(p.Z), UCL: web.Num(p.UCL), LCL: web.Num(p.LCL), Signal: p.Signal}
-		}
-		out.EWMA = j
+		out.EWMA = chartjson.EWMAOf(*e, r.ePoints)
 	}
 }
 

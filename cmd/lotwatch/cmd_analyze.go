@@ -13,8 +13,8 @@ import (
 	"text/tabwriter"
 
 	"lotwatch/spc"
+	"lotwatch/spc/chartjson"
 	"lotwatch/store/lotcsv"
-	"lotwatch/web"
 )
 
 func init() {
@@ -189,7 +189,7 @@ Options:
 	case "json":
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
-		out := analyzeOut{ChartJSON: web.AnalysisJSON(a)}
+		out := analyzeOut{Chart: chartjson.Analysis(a)}
 		mon.json(&out)
 		if err := enc.Encode(out); err != nil {
 			fmt.Fprintf(stderr, "lotwatch analyze: %v\n", err)

@@ -8,8 +8,8 @@ import (
 	"testing"
 
 	"lotwatch/spc"
+	"lotwatch/spc/chartjson"
 	"lotwatch/store/lotcsv"
-	"lotwatch/web"
 )
 
 var (
@@ -95,7 +95,7 @@ func FuzzAnalyze(f *testing.F) {
 				t.Fatalf("signal %v spans %d..%d of %d points", s.Rule, s.First, s.Last, len(a.Points))
 			}
 		}
-		if _, err := json.Marshal(web.AnalysisJSON(a)); err != nil {
+		if _, err := json.Marshal(chartjson.Analysis(a)); err != nil {
 			t.Fatalf("the analysis does not encode as JSON: %v", err)
 		}
 	})

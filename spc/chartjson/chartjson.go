@@ -1,25 +1,44 @@
-package web
+// Package chartjson is the JSON shape of an analysis, shared by the API
+// (GET /api/v1/processes/{id}/chart) and `lotwatch analyze --format
+// json`: the chart's figures, one entry per lot, the signals, and the
+// shift monitors. Like spc, it does no I/O; the web package fills the
+// fields that come from the store (a lot's id, time and limit set).
+package chartjson
 
 import (
+	"math"
+	"strconv"
+
 	"lotwatch/spc"
 )
 
-// ChartJSON is the analysis of one chart in the JSON shape shared by the
-// API (GET /api/v1/processes/{id}/chart) and `lotwatch analyze --json`.
-// "sigma" is the limit multiplier K. Fields after the shared ones are
-// additions; the web package fills ID, Time, Limits and LimitSet.
-type ChartJSON struct {
-	Chart      string          `json:"chart"`
-	Method     string          `json:"method"`
-	Center     Num             `json:"center"`
-	Sigma      Num             `json:"sigma"`
-	Alpha      Num             `json:"alpha"`
-	Rate       Num             `json:"rate"`
-	SigmaZ     Num             `json:"sigma_z"`
-	Lots       []LotJSON       `json:"lots"`
-	Signals    []SignalJSON    `json:"signals"`
-	Warnings   []string        `json:"warnings"`
-	Dispersion *DispersionJSON `json:"dispersion"`
+// Num is a float64 that encodes NaN and ±Inf (an undefined limit, say) as
+// JSON null instead of failing; every other value is a JSON number.
+type Num float64
+
+// MarshalJSON implements json.Marshaler.
+func (n Num) MarshalJSON() ([]byte, error) {
+	f := float64(n)
+	if math.IsNaN(f) || math.IsInf(f, 0) {
+		return []byte("null"), nil
+	}
+	return strconv.AppendFloat(make([]byte, 0, 24), f, 'g', -1, 64), nil
+}
+
+// Chart is the analysis of one chart. "sigma" is the limit multiplier K.
+// Fields after the shared ones are additions.
+type Chart struct {
+	Chart      string      `json:"chart"`
+	Method     string      `json:"method"`
+	Center     Num         `json:"center"`
+	Sigma      Num         `json:"sigma"`
+	Alpha      Num         `json:"alpha"`
+	Rate       Num         `json:"rate"`
+	SigmaZ     Num         `json:"sigma_z"`
+	Lots       []Lot       `json:"lots"`
+	Signals    []Signal    `json:"signals"`
+	Warnings   []string    `json:"warnings"`
+	Dispersion *Dispersion `json:"dispersion"`
 
 	// Filled by the API, whose chart comes in pages: the lots in the
 	// window, and the cursor of the next page (absent on the last).
@@ -27,8 +46,8 @@ type ChartJSON struct {
 	Next  string `json:"next,omitempty"`
 }
 
-// LotJSON is one lot's point on the chart.
-type LotJSON struct {
+// Lot is one lot's point on the chart.
+type Lot struct {
 	Lot         string   `json:"lot"`
 	Inspected   int64    `json:"inspected"`
 	Count       int64    `json:"count"`
@@ -52,9 +71,9 @@ type LotJSON struct {
 	LimitSet int    `json:"limit_set,omitempty"` // the frozen set's number
 }
 
-// SignalJSON is one signal: of a run rule, or of a shift monitor
-// (CUSUM, EWMA). Kind is "limits", "run" or "shift" (spc.Rule.Kind).
-type SignalJSON struct {
+// Signal is one signal: of a run rule, or of a shift monitor (CUSUM,
+// EWMA). Kind is "limits", "run" or "shift" (spc.Rule.Kind).
+type Signal struct {
 	Rule        string   `json:"rule"`
 	Kind        string   `json:"kind"`
 	Lots        []string `json:"lots"`
@@ -63,9 +82,9 @@ type SignalJSON struct {
 	Last        int      `json:"last"`
 }
 
-// DispersionJSON is the check of the lot-to-lot variation against the
+// Dispersion is the check of the lot-to-lot variation against the
 // binomial or Poisson model.
-type DispersionJSON struct {
+type Dispersion struct {
 	ChiSquare     Num    `json:"chi_square"`
 	DF            int    `json:"df"`
 	Ratio         Num    `json:"ratio"`
@@ -75,26 +94,27 @@ type DispersionJSON struct {
 	Advice        string `json:"advice,omitempty"`
 }
 
-// AnalysisJSON renders an analysis in the shared JSON shape. It never
-// returns nil for a non-nil analysis; slices are empty, not null.
-func AnalysisJSON(a *spc.Analysis) *ChartJSON {
+// Analysis renders an analysis, every lot and signal. It never returns
+// nil for a non-nil analysis; slices are empty, not null.
+func Analysis(a *spc.Analysis) *Chart {
 	if a == nil {
 		return nil
 	}
-	out := analysisHead(a)
-	out.Lots = make([]LotJSON, len(a.Points))
+	out := Head(a)
+	out.Lots = make([]Lot, len(a.Points))
 	for i, p := range a.Points {
-		out.Lots[i] = pointJSON(p)
+		out.Lots[i] = PointOf(p)
 	}
 	for _, s := range a.Signals {
-		out.Signals = append(out.Signals, toSignalJSON(s))
+		out.Signals = append(out.Signals, SignalOf(s))
 	}
 	return out
 }
 
-// analysisHead is the chart's figures without its lots and signals.
-func analysisHead(a *spc.Analysis) *ChartJSON {
-	out := &ChartJSON{
+// Head is the chart's figures without its lots and signals (empty
+// slices), for a caller that renders a part of them.
+func Head(a *spc.Analysis) *Chart {
+	out := &Chart{
 		Chart:    string(a.Chart),
 		Method:   string(a.Method),
 		Center:   Num(a.Center),
@@ -102,15 +122,15 @@ func analysisHead(a *spc.Analysis) *ChartJSON {
 		Alpha:    Num(a.Alpha),
 		Rate:     Num(a.Rate),
 		SigmaZ:   Num(a.SigmaZ),
-		Lots:     []LotJSON{},
-		Signals:  make([]SignalJSON, 0, len(a.Signals)),
+		Lots:     []Lot{},
+		Signals:  make([]Signal, 0, len(a.Signals)),
 		Warnings: make([]string, 0, len(a.Warnings)),
 	}
 	for _, w := range a.Warnings {
 		out.Warnings = append(out.Warnings, w.Message)
 	}
 	d := a.Dispersion
-	out.Dispersion = &DispersionJSON{
+	out.Dispersion = &Dispersion{
 		ChiSquare:     Num(d.ChiSquare),
 		DF:            int(d.DF),
 		Ratio:         Num(d.Ratio),
@@ -122,9 +142,9 @@ func analysisHead(a *spc.Analysis) *ChartJSON {
 	return out
 }
 
-// pointJSON is one lot's point in the shared shape.
-func pointJSON(p spc.Point) LotJSON {
-	return LotJSON{
+// PointOf is one lot's point.
+func PointOf(p spc.Point) Lot {
+	return Lot{
 		Lot:         p.Lot.Code,
 		Inspected:   p.Lot.Inspected,
 		Count:       p.Lot.Count,
@@ -139,18 +159,18 @@ func pointJSON(p spc.Point) LotJSON {
 		Above:       p.Above,
 		Below:       p.Below,
 		Excluded:    p.Excluded,
-		Signals:     ruleNames(p.Rules),
+		Signals:     RuleNames(p.Rules),
 	}
 }
 
-// toSignalJSON is one signal in the shared shape.
-func toSignalJSON(s spc.Signal) SignalJSON {
+// SignalOf is one signal.
+func SignalOf(s spc.Signal) Signal {
 	lots := s.Lots
 	if lots == nil {
 		lots = []string{}
 	}
-	return SignalJSON{
-		Rule:        ruleName(s.Rule),
+	return Signal{
+		Rule:        s.Rule.String(),
 		Kind:        s.Rule.Kind(),
 		Lots:        lots,
 		Description: s.Description,
@@ -159,9 +179,9 @@ func toSignalJSON(s spc.Signal) SignalJSON {
 	}
 }
 
-// ruleNames lists the short names of the rules in s ("we1", "nelson3"),
+// RuleNames lists the short names of the rules in s ("we1", "nelson3"),
 // never nil.
-func ruleNames(s spc.RuleSet) []string {
+func RuleNames(s spc.RuleSet) []string {
 	rs := s.Rules()
 	out := make([]string, len(rs))
 	for i, r := range rs {
@@ -169,5 +189,3 @@ func ruleNames(s spc.RuleSet) []string {
 	}
 	return out
 }
-
-func ruleName(r spc.Rule) string { return r.String() }
