@@ -45,7 +45,7 @@ const recentSpan = 48 * time.Hour
 
 // summarize reduces a judged chart to its summary.
 func summarize(pc *processChart, v store.LotsVersion) (*procSummary, error) {
-	sum := &procSummary{proc: pc.proc, version: v, flagged: attention.Flag(pc.lots, pc.a), trial: len(pc.sets) == 0}
+	sum := &procSummary{proc: pc.proc, version: v, flagged: attention.Flag(pc.lots, pc.a, pc.setOf), trial: len(pc.sets) == 0}
 	n := len(pc.lots)
 	sum.count = n
 	if n == 0 || pc.a == nil {

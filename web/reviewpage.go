@@ -2,6 +2,7 @@ package web
 
 import (
 	"bytes"
+	"context"
 	"errors"
 	"fmt"
 	"html/template"
@@ -14,6 +15,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/web/attention"
 	"lotwatch/web/review"
 )
 
@@ -35,9 +37,26 @@ const reviewMaxDetails = 12
 
 // reviewOptions reads the week (ISO 8601, "2026-W48"; default the last
 // complete week) and the false-discovery-rate choice of a review request.
+// The review takes each process's judged record from the summaries the
+// status board keeps (judging a process only when its summary is missing
+// or older than its lots), so it reads only the lots of the trend's weeks.
 func (s *Server) reviewOptions(r *http.Request) review.Options {
 	q := r.URL.Query()
-	return review.Options{Week: strings.TrimSpace(q.Get("week")), Now: s.now(), FDR: q.Get("fdr") == "1"}
+	return review.Options{Week: strings.TrimSpace(q.Get("week")), Now: s.now(), FDR: q.Get("fdr") == "1", Judged: s.judgedRecord}
+}
+
+// judgedRecord gives what the process's whole record flags, as of its
+// change counter now or later.
+func (s *Server) judgedRecord(ctx context.Context, p store.Process) (*attention.Flagged, error) {
+	v, err := s.db.LotsVersion(ctx, p.ID)
+	if err != nil {
+		return nil, err
+	}
+	sum, err := s.summaryOf(ctx, p, v)
+	if err != nil {
+		return nil, err
+	}
+	return sum.flagged, nil
 }
 
 // reviewPage shows the weekly review inside the site's layout: the summary

@@ -53,7 +53,8 @@ Options:
               100 is allowed, with a warning on standard error
   --max-n N   largest lot size tried when searching (default 100000,
               at most 10000000)
-  --format F  text (default) or json
+  --format F  text (default) or json; in json, lcl_count and lcl are null
+              when no lot can signal low at the lot size
   -h          show this help
 
 Because counts are whole numbers, the ARL does not fall steadily as lots grow:
@@ -69,9 +70,12 @@ named on standard error).
 const planMaxN = 10_000_000
 
 type planJSON struct {
-	N               int64    `json:"n"`
-	UCLCount        int64    `json:"ucl_count"`
-	LCLCount        int64    `json:"lcl_count"`
+	N        int64 `json:"n"`
+	UCLCount int64 `json:"ucl_count"`
+	// LCLCount and LCL are null when no lot can signal low (the lower
+	// limit is at or below zero): a count of −1 or a negative fraction is
+	// no limit a lot could fall below.
+	LCLCount        *int64   `json:"lcl_count"`
 	ARL0            *float64 `json:"arl0"` // null when no lot can signal
 	ARL1            *float64 `json:"arl1"` // null without --p1, or when no lot can signal
 	MinNPositiveLCL int64    `json:"min_n_positive_lcl"`
@@ -79,7 +83,7 @@ type planJSON struct {
 	P1              *float64 `json:"p1"`
 	Sigma           float64  `json:"sigma"`
 	UCL             float64  `json:"ucl"`
-	LCL             float64  `json:"lcl"`
+	LCL             *float64 `json:"lcl"`
 	TargetARL1      *float64 `json:"arl1_target,omitempty"`
 	// CUSUM is the CUSUM for the same shift at the same ARL0, with lots of
 	// N units; Sooner says which catches the shift sooner on average
@@ -201,9 +205,12 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 
 	if asJSON {
 		out := planJSON{
-			N: pl.N, UCLCount: pl.UCLCount, LCLCount: pl.LCLCount,
+			N: pl.N, UCLCount: pl.UCLCount,
 			ARL0: finiteOrNil(pl.ARL0), MinNPositiveLCL: pl.MinNPositiveLCL,
-			P0: p0, Sigma: k, UCL: pl.UCL, LCL: pl.LCL, P0Source: p0Source,
+			P0: p0, Sigma: k, UCL: pl.UCL, P0Source: p0Source,
+		}
+		if pl.LCLCount > 0 {
+			out.LCLCount, out.LCL = &pl.LCLCount, &pl.LCL
 		}
 		if *p1s != "" {
 			out.P1, out.ARL1 = &p1, finiteOrNil(pl.ARL1)
@@ -233,7 +240,7 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	} else {
 		fmt.Fprintf(&b, "  upper limit %s: a lot signals when it has more than %d nonconforming units.\n", statsRate(pl.UCL), pl.UCLCount)
 	}
-	if pl.LCLCount < 0 {
+	if pl.LCLCount < 1 {
 		fmt.Fprintf(&b, "  no lower limit: no lot can signal low at this size; that needs lots of at least %d units.\n",
 			pl.MinNPositiveLCL)
 	} else {

@@ -199,6 +199,16 @@ func TestPlanCommand(t *testing.T) {
 	if !strings.Contains(out, "no lot can signal low at this size") || strings.Contains(out, "-1") || !strings.Contains(out, "Warning: at this size") {
 		t.Errorf("plan text at n = 3:\n%s", out)
 	}
+	// At n = 3 the lower limit 0.02 − 3·√(0.02·0.98/3) is below zero (hand
+	// arithmetic): no count can signal low, so the JSON gives no lower
+	// count or limit rather than −1 or a negative fraction.
+	_, out, _ = runStats("plan", "--p0", "0.02", "--n", "3", "--format", "json")
+	m = decodeStats(t, out)
+	for _, field := range []string{"lcl_count", "lcl"} {
+		if v, ok := m[field]; !ok || v != nil {
+			t.Errorf("plan json at n = 3: %s = %v, want null", field, v)
+		}
+	}
 
 	// No p1: arl1 is null; a 1-unit lot at p0 = 0.5 can never signal: arl0 null.
 	_, out, _ = runStats("plan", "--p0", "0.5", "--n", "1", "--format", "json")

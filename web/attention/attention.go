@@ -80,7 +80,8 @@ type Flagged struct {
 	Signals []FlaggedSignal
 }
 
-// FlaggedLot is one lot the chart flags.
+// FlaggedLot is one lot the chart flags, with its judged point: what a
+// report of the lot's week shows of it without judging the record again.
 type FlaggedLot struct {
 	LotID   int64
 	Lot     string
@@ -89,6 +90,12 @@ type FlaggedLot struct {
 	Index   int   // position on the chart
 	Out     bool  // beyond a control limit
 	Signals []int // indices into Flagged.Signals of the signals it is part of
+	// Value, UCL and LCL are the lot's plotted value and limits, Above
+	// whether it lies beyond the upper limit; Set is the number of the
+	// limit set judging it, 0 for trial limits.
+	Value, UCL, LCL float64
+	Above           bool
+	Set             int
 }
 
 // FlaggedSignal is one signal of the chart, with the store ids of its
@@ -98,11 +105,15 @@ type FlaggedSignal struct {
 	Kind        Kind
 	First, Last int // chart positions of its first and last lot
 	LotIDs      []int64
+	Description string
+	Side        int8
 }
 
 // Flag collects what the chart flags. lots are the chart's lots in the
-// order of a.Points; a is nil for a process without lots.
-func Flag(lots []store.Lot, a *spc.Analysis) *Flagged {
+// order of a.Points; a is nil for a process without lots. setOf gives for
+// each lot the number of the limit set judging it (nil: trial limits for
+// all).
+func Flag(lots []store.Lot, a *spc.Analysis, setOf []int) *Flagged {
 	f := &Flagged{}
 	if a == nil || len(a.Points) == 0 {
 		return f
@@ -114,7 +125,13 @@ func Flag(lots []store.Lot, a *spc.Analysis) *Flagged {
 			l := lots[i]
 			k = len(f.Lots)
 			at[i] = k
-			f.Lots = append(f.Lots, FlaggedLot{LotID: l.ID, Lot: l.Lot, Time: l.Time, Shift: l.Shift, Index: i})
+			pt := a.Points[i]
+			fl := FlaggedLot{LotID: l.ID, Lot: l.Lot, Time: l.Time, Shift: l.Shift, Index: i,
+				Value: pt.Value, UCL: pt.UCL, LCL: pt.LCL, Above: pt.Above}
+			if i < len(setOf) {
+				fl.Set = setOf[i]
+			}
+			f.Lots = append(f.Lots, fl)
 		}
 		return &f.Lots[k]
 	}
@@ -124,7 +141,7 @@ func Flag(lots []store.Lot, a *spc.Analysis) *Flagged {
 		}
 	}
 	for _, sg := range a.Signals {
-		fs := FlaggedSignal{Rule: sg.Rule, Kind: SignalKind(sg.Rule), First: sg.First, Last: sg.Last}
+		fs := FlaggedSignal{Rule: sg.Rule, Kind: SignalKind(sg.Rule), First: sg.First, Last: sg.Last, Description: sg.Description, Side: sg.Side}
 		for i := sg.First; i <= sg.Last && i < len(lots); i++ {
 			fs.LotIDs = append(fs.LotIDs, lots[i].ID)
 			fl := flag(i)
@@ -136,10 +153,33 @@ func Flag(lots []store.Lot, a *spc.Analysis) *Flagged {
 	return f
 }
 
+// At returns the flagged lot at chart position i, or nil when the chart
+// does not flag it.
+func (f *Flagged) At(i int) *FlaggedLot {
+	k, ok := slices.BinarySearchFunc(f.Lots, i, func(fl FlaggedLot, i int) int { return fl.Index - i })
+	if !ok {
+		return nil
+	}
+	return &f.Lots[k]
+}
+
+// Size is the number of entries the flagged record holds (lots, and lots
+// of signals), a measure of its memory for caches with a size limit.
+func (f *Flagged) Size() int {
+	n := len(f.Lots) + len(f.Signals)
+	for _, sg := range f.Signals {
+		n += len(sg.LotIDs)
+	}
+	for _, fl := range f.Lots {
+		n += len(fl.Signals)
+	}
+	return n
+}
+
 // Find returns the lots of one judged chart that need attention, oldest
 // first: Flag, then Unexplained.
 func Find(p store.Process, lots []store.Lot, a *spc.Analysis, anns []store.Annotation) []Lot {
-	return Flag(lots, a).Unexplained(p, anns)
+	return Flag(lots, a, nil).Unexplained(p, anns)
 }
 
 // Unexplained returns the flagged lots that need attention given the

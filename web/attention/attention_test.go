@@ -207,7 +207,7 @@ func TestOpenSignals(t *testing.T) {
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
 			var got [][]int64
-			for _, sg := range Flag(c.lots, c.a).OpenSignals(p, c.anns) {
+			for _, sg := range Flag(c.lots, c.a, nil).OpenSignals(p, c.anns) {
 				var ids []int64
 				for _, l := range sg.Lots {
 					ids = append(ids, l.LotID)

@@ -91,7 +91,7 @@ var fragmentTmpl = template.Must(template.New("fragment").Funcs(funcs).Parse(`<d
 {{with .Chance.Sentence .FDR}}<p>{{.}}</p>{{end}}
 <div class="lw-scroll"><table class="lw-summary">
 <thead><tr><th scope="col">Process</th><th scope="col">Rate {{.Week}}</th><th scope="col">{{level .Level}} interval</th><th scope="col">Change</th><th scope="col">Verdict</th><th scope="col">Adjusted p</th><th scope="col">Outside limits</th><th scope="col">Signals</th><th scope="col">Lots needing attention</th></tr></thead>
-<tbody>{{range .Rows}}{{$ch := .Process.Chart}}<tr><td>{{with $.Link .}}<a href="{{.}}">{{end}}{{.Process.Name}}{{if $.Link .}}</a>{{end}}{{with .Process.Area}} <span class="muted">({{.}})</span>{{end}}</td><td class="num">{{rate $ch .Current.Rate}}</td><td>{{if .Current.HasLots}}{{rate $ch .Current.Lower}} to {{rate $ch .Current.Upper}}{{else}}—{{end}}</td><td class="num">{{diff $ch .Change.Difference}}</td><td class="verdict{{if and .Change.StatesChange (gt .Change.Difference 0.0)}} rise{{end}}">{{.Change.VerdictText}}</td><td class="num">{{adjp .Change}}</td><td class="num">{{len .OutOfLimits}}{{with .UnexplainedOut}} ({{.}} no cause){{end}}</td><td class="num">{{len .Signals}}{{with .UnexplainedSignals}} ({{.}} no cause){{end}}</td><td class="num">{{.NeedAttention}}</td></tr>
+<tbody>{{range .Rows}}{{$ch := .Process.Chart}}<tr><td>{{with $.Link .}}<a href="{{.}}">{{end}}{{.Process.Name}}{{if $.Link .}}</a>{{end}}{{with .Process.Area}} <span class="muted">({{.}})</span>{{end}}</td><td class="num">{{rate $ch .Current.Rate}}</td><td>{{if .Current.HasLots}}{{rate $ch .Current.Lower}} to {{rate $ch .Current.Upper}}{{else}}—{{end}}</td><td class="num">{{diff $ch .Change.Difference}}</td><td class="verdict{{if and .Change.StatesChange (gt .Change.Difference 0.0)}} rise{{end}}">{{.Change.VerdictText}}</td><td class="num">{{adjp .Change}}</td><td class="num">{{len .OutOfLimits}}{{with .UnexplainedOut}} ({{.}} no cause){{end}}</td><td class="num">{{len .Signals}}{{with .UnexplainedSignals}} ({{.}} no cause){{end}}{{with .Shifts}}<br><span class="muted">{{.}} of a sustained small shift</span>{{end}}</td><td class="num">{{.NeedAttention}}</td></tr>
 {{end}}</tbody></table></div>
 {{if .Hidden}}<p class="muted">The details of {{.Hidden}} processes are not on this page: choose a process in the summary, or narrow the filter.</p>{{end}}
 </section>{{end}}
@@ -111,10 +111,10 @@ var fragmentTmpl = template.Must(template.New("fragment").Funcs(funcs).Parse(`<d
 {{range .OutOfLimits}}<tr><td>{{.Lot.Lot}}</td><td>{{when .Lot.Time $loc}}</td><td class="num">{{.Lot.Count}} / {{.Lot.Inspected}}</td><td>{{if .Above}}above the upper limit {{plotted $ch .UCL}}{{else}}below the lower limit {{plotted $ch .LCL}}{{end}} ({{.Limits}})</td><td>{{status .Annotations}}{{range .Annotations}}<br>{{if .NoCauseFound}}no assignable cause found: {{.Reason}}{{else}}{{.Cause}}{{end}}{{with .Action}}; action: {{.}}{{end}} <span class="muted">({{.By}}, {{if .Closed}}closed{{else}}open{{end}})</span>{{end}}</td></tr>
 {{end}}</table></div>{{else}}<p>None.</p>{{end}}
 
-<h3>Run-rule signals touching the week</h3>
+<h3>Signals touching the week <span class="muted">(run rules and small shifts)</span></h3>
 {{if .Signals}}<div class="lw-scroll"><table>
 <tr><th>Rule</th><th>What</th><th>Lots</th><th>Cause</th></tr>
-{{range .Signals}}<tr><td>{{.Rule}}</td><td>{{.Description}}</td><td>{{lots .Lots}}</td><td>{{status .Annotations}}{{range .Annotations}}<br>{{if .NoCauseFound}}no assignable cause found: {{.Reason}}{{else}}{{.Cause}}{{end}}{{with .Action}}; action: {{.}}{{end}} <span class="muted">({{.By}}, {{if .Closed}}closed{{else}}open{{end}})</span>{{end}}</td></tr>
+{{range .Signals}}<tr><td>{{.Rule}}{{if .Meaning}}<br><span class="muted">sustained small shift</span>{{end}}</td><td>{{.Description}}{{with .Meaning}}<br><span class="muted">{{.}}</span>{{end}}</td><td>{{lots .Lots}}</td><td>{{status .Annotations}}{{range .Annotations}}<br>{{if .NoCauseFound}}no assignable cause found: {{.Reason}}{{else}}{{.Cause}}{{end}}{{with .Action}}; action: {{.}}{{end}} <span class="muted">({{.By}}, {{if .Closed}}closed{{else}}open{{end}})</span>{{end}}</td></tr>
 {{end}}</table></div>{{else}}<p>None.</p>{{end}}
 
 <h3>Defect categories</h3>

@@ -14,6 +14,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/web/attention"
 )
 
 // dateOnly formats the local date of a time.
@@ -113,9 +114,13 @@ func (r *Review) WriteText(w io.Writer) error {
 		}
 		for _, pr := range byConcern {
 			ch := pr.Process.Chart
-			fmt.Fprintf(b, "  %s: rate %s, change %s, %s; %d outside limits (%d no cause), %d signals (%d no cause); %d lots of the record need attention\n",
+			shifts := ""
+			if n := pr.Shifts(); n > 0 {
+				shifts = fmt.Sprintf(", %s of a sustained small shift", plural(n, "signal", "signals"))
+			}
+			fmt.Fprintf(b, "  %s: rate %s, change %s, %s; %d outside limits (%d no cause), %d signals (%d no cause)%s; %d lots of the record need attention\n",
 				pr.Process.Name, FormatRate(ch, pr.Current.Rate), formatDiff(ch, pr.Change.Difference), pr.Change.VerdictText(),
-				len(pr.OutOfLimits), pr.UnexplainedOut(), len(pr.Signals), pr.UnexplainedSignals(), pr.NeedAttention)
+				len(pr.OutOfLimits), pr.UnexplainedOut(), len(pr.Signals), pr.UnexplainedSignals(), shifts, pr.NeedAttention)
 		}
 	}
 	for _, pr := range byConcern {
@@ -159,12 +164,19 @@ func (pr *ProcessReview) writeText(b *bufio.Writer, r *Review) {
 			o.Lot.Count, o.Lot.Inspected, side, plotted(ch, lim), o.Limits, CauseStatus(o.Annotations))
 		writeAnnotations(b, o.Annotations, loc)
 	}
-	b.WriteString("\nRun-rule signals touching the week:\n")
+	b.WriteString("\nSignals touching the week (run rules and small shifts):\n")
 	if len(pr.Signals) == 0 {
 		b.WriteString("  none\n")
 	}
 	for _, s := range pr.Signals {
-		fmt.Fprintf(b, "  %s: %s; lots %s; %s\n", s.Rule, s.Description, lotList(s.Lots), CauseStatus(s.Annotations))
+		what := s.Rule
+		if s.Kind == attention.Shift {
+			what += " (a sustained small shift)"
+		}
+		fmt.Fprintf(b, "  %s: %s; lots %s; %s\n", what, s.Description, lotList(s.Lots), CauseStatus(s.Annotations))
+		if m := s.Meaning(); m != "" {
+			fmt.Fprintf(b, "    What it means: %s\n", m)
+		}
 		writeAnnotations(b, s.Annotations, loc)
 	}
 
@@ -341,7 +353,11 @@ type jsonAnnotation struct {
 }
 
 type jsonSignal struct {
-	Rule        string           `json:"rule"`
+	Rule string `json:"rule"`
+	// Kind is "run_rule" or "shift"; Meaning says what a shift means
+	// (absent for a run rule).
+	Kind        string           `json:"kind"`
+	Meaning     string           `json:"meaning,omitempty"`
 	Description string           `json:"description"`
 	Side        int8             `json:"side"`
 	Lots        []string         `json:"lots"`
@@ -445,7 +461,7 @@ func (r *Review) jsonValue() jsonReview {
 				Side: side, Limits: o.Limits, Status: CauseStatus(o.Annotations), Annotations: annotationsJSON(o.Annotations, lotCode, loc)})
 		}
 		for _, s := range pr.Signals {
-			j.Signals = append(j.Signals, jsonSignal{Rule: s.Rule, Description: s.Description, Side: s.Side,
+			j.Signals = append(j.Signals, jsonSignal{Rule: s.Rule, Kind: string(s.Kind), Meaning: s.Meaning(), Description: s.Description, Side: s.Side,
 				Lots: append([]string{}, s.Lots...), First: stamp(s.First, loc), Last: stamp(s.Last, loc),
 				Status: CauseStatus(s.Annotations), Annotations: annotationsJSON(s.Annotations, nil, loc)})
 		}
@@ -483,10 +499,12 @@ func (r *Review) WriteJSON(w io.Writer) error {
 var CSVHeader = []string{"week", "process", "chart", "method", "level", "lots", "inspected", "count", "rate", "lower", "upper",
 	"previous_week", "previous_lots", "previous_inspected", "previous_count", "previous_rate", "previous_lower", "previous_upper",
 	"difference", "difference_lower", "difference_upper", "p_value", "verdict", "out_of_limits", "signals", "top_category",
-	"adjusted_p_value", "lots_needing_attention"}
+	"adjusted_p_value", "lots_needing_attention", "shift_signals"}
 
 // WriteCSV writes one row per process under CSVHeader: rates as
-// fractions, empty where a week has no lots.
+// fractions, empty where a week has no lots. "signals" counts every signal
+// touching the week, "shift_signals" those of a sustained small shift
+// (CUSUM or EWMA), which call for a cause like any other.
 func (r *Review) WriteCSV(w io.Writer) error {
 	cw := csv.NewWriter(w)
 	if err := cw.Write(CSVHeader); err != nil {
@@ -510,7 +528,7 @@ func (r *Review) WriteCSV(w io.Writer) error {
 			strconv.Itoa(cur.Lots), strconv.FormatInt(cur.Inspected, 10), strconv.FormatInt(cur.Count, 10), num(cur.Rate), num(cur.Lower), num(cur.Upper),
 			prev.Week, strconv.Itoa(prev.Lots), strconv.FormatInt(prev.Inspected, 10), strconv.FormatInt(prev.Count, 10), num(prev.Rate), num(prev.Lower), num(prev.Upper),
 			num(c.Difference), num(c.Lower), num(c.Upper), num(c.PValue), c.Verdict,
-			strconv.Itoa(len(pr.OutOfLimits)), strconv.Itoa(len(pr.Signals)), lotcsv.Neutralise(top), num(c.AdjustedP), strconv.Itoa(pr.NeedAttention)}
+			strconv.Itoa(len(pr.OutOfLimits)), strconv.Itoa(len(pr.Signals)), lotcsv.Neutralise(top), num(c.AdjustedP), strconv.Itoa(pr.NeedAttention), strconv.Itoa(pr.Shifts())}
 		if err := cw.Write(row); err != nil {
 			return err
 		}

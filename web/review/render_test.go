@@ -4,9 +4,12 @@ import (
 	"bufio"
 	"bytes"
 	"encoding/csv"
+	"fmt"
 	"math"
 	"os"
 	"regexp"
+	"slices"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -159,5 +162,67 @@ func TestCauseStatusNoCauseFound(t *testing.T) {
 	w.Flush()
 	if !strings.Contains(buf.String(), "no assignable cause found: gauge and film batch checked (ana, closed") {
 		t.Errorf("text: %q", buf.String())
+	}
+}
+
+// TestShiftWording: a CUSUM signal in the reviewed week is named a
+// sustained small shift, with what it means, in every rendering. The
+// record is 30 lots at 2% and then lots at 6% (200 units each); the CUSUM
+// for a rise to 5% from the trial centre catches the rise (Page 1954; its
+// decision interval by spc.DesignCUSUM).
+func TestShiftWording(t *testing.T) {
+	f := &fakeSource{}
+	start, _ := spc.ISOWeekRange(2026, 48, time.UTC)
+	var lots []store.Lot
+	for i := range 44 {
+		d := int64(4)
+		if i >= 30 {
+			d = 12
+		}
+		lots = append(lots, lot(fmt.Sprintf("S%02d", i), start.Add(time.Duration(i-30)*8*time.Hour), 200, d))
+	}
+	f.add(store.Process{Name: "seal", Chart: spc.ChartP, K: 3, Rules: "none", TimeZone: "UTC", Monitors: spc.Monitors{CUSUMShift: 0.05}}, lots...)
+	r, err := Build(ctx, f, Options{Week: "2026-W48"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pr := r.Processes[0]
+	if pr.Shifts() == 0 {
+		t.Fatalf("no shift signal among %+v", pr.Signals)
+	}
+	var text, js, csvOut bytes.Buffer
+	if err := r.WriteText(&text); err != nil {
+		t.Fatal(err)
+	}
+	if err := r.WriteJSON(&js); err != nil {
+		t.Fatal(err)
+	}
+	if err := r.WriteCSV(&csvOut); err != nil {
+		t.Fatal(err)
+	}
+	html, err := r.HTMLFragment()
+	if err != nil {
+		t.Fatal(err)
+	}
+	for name, c := range map[string]struct {
+		got  string
+		want []string
+	}{
+		"text": {text.String(), []string{"cusum (a sustained small shift): CUSUM for a rise", "What it means: " + ShiftMeaning, plural(pr.Shifts(), "signal", "signals") + " of a sustained small shift"}},
+		"json": {js.String(), []string{`"kind": "shift"`, `"meaning": "` + ShiftMeaning + `"`}},
+		"html": {string(html), []string{"sustained small shift</span>", ShiftMeaning}},
+	} {
+		for _, w := range c.want {
+			if !strings.Contains(c.got, w) {
+				t.Errorf("%s lacks %q:\n%s", name, w, c.got)
+			}
+		}
+	}
+	rows, err := csv.NewReader(&csvOut).ReadAll()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if col := slices.Index(rows[0], "shift_signals"); col < 0 || rows[1][col] != strconv.Itoa(pr.Shifts()) {
+		t.Errorf("CSV %v: want shift_signals %d", rows, pr.Shifts())
 	}
 }

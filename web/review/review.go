@@ -52,6 +52,10 @@ type Options struct {
 	Week string
 	// Now is the current time, for the default week; zero means time.Now().
 	Now time.Time
+	// Judged, when set, gives each process's judged record from a store
+	// of judged records the caller keeps (see JudgedFunc); nil judges
+	// each process's whole record here.
+	Judged JudgedFunc
 	// Processes names the processes to review; none means every active
 	// process. A named process is reviewed even when retired.
 	Processes []string
@@ -206,9 +210,13 @@ type Change struct {
 	Verdict, Detail string
 }
 
-// Signal is a run-rule signal touching the reviewed week.
+// Signal is a run-rule or small-shift signal touching the reviewed week.
 type Signal struct {
-	Rule        string // e.g. "we1", "nelson2"
+	Rule string // e.g. "we1", "nelson2", "cusum"
+	// Kind is what kind of evidence the signal is, in the words of the
+	// API: "run_rule" (a pattern of lots, or a lot beyond a limit) or
+	// "shift" (a CUSUM or EWMA signal: a small shift that lasts).
+	Kind        attention.Kind
 	Description string
 	Side        int8
 	Lots        []string // lot codes, in time order
@@ -304,7 +312,7 @@ func Build(ctx context.Context, src Source, opt Options) (*Review, error) {
 	for range min(runtime.GOMAXPROCS(0), len(procs)) {
 		wg.Go(func() {
 			for i := range next {
-				r.Processes[i], errs[i] = buildProcess(ctx, src, procs[i], year, week, method, level, weeks)
+				r.Processes[i], errs[i] = buildProcess(ctx, src, procs[i], year, week, method, level, weeks, opt.Judged)
 			}
 		})
 	}
@@ -419,8 +427,10 @@ func LastCompleteWeek(now time.Time, procs []store.Process) (year, week int) {
 	return year, week
 }
 
-// buildProcess reviews one process.
-func buildProcess(ctx context.Context, src Source, p store.Process, year, week int, method spc.IntervalMethod, level float64, nweeks int) (*ProcessReview, error) {
+// buildProcess reviews one process: the trend and the week are summed
+// from their own lots; the verdicts on the week's lots come from the
+// whole record judged (judged, or here).
+func buildProcess(ctx context.Context, src Source, p store.Process, year, week int, method spc.IntervalMethod, level float64, nweeks int, judged JudgedFunc) (*ProcessReview, error) {
 	loc := p.Location()
 	pr := &ProcessReview{Process: p, Method: method}
 	if !p.Chart.CountsUnits() {
@@ -438,18 +448,9 @@ func buildProcess(ctx context.Context, src Source, p store.Process, year, week i
 		index[[2]int{y, w}] = i
 		y, w = spc.PreviousISOWeek(y, w)
 	}
-	// Every lot of the record is read: the lots are judged on the whole
-	// record, as on the chart page (trial limits from all lots before the
-	// first frozen set), so that a lot's verdict is the same wherever it
-	// is shown. The trend and the week are summed from their own lots.
-	lots, err := src.Lots(ctx, p.ID, time.Time{}, time.Time{})
+	lots, flagged, err := readJudged(ctx, src, p, pr.Trend[0].Start, pr.Trend[nweeks-1].End, judged)
 	if err != nil {
-		return nil, fmt.Errorf("reading lots: %w", err)
-	}
-	sort.SliceStable(lots, func(i, j int) bool { return lots[i].Time.Before(lots[j].Time) })
-	sets, err := src.LimitSets(ctx, p.ID)
-	if err != nil {
-		return nil, fmt.Errorf("reading limit sets: %w", err)
+		return nil, err
 	}
 	notes, err := src.Annotations(ctx, p.ID)
 	if err != nil {
@@ -494,11 +495,97 @@ func buildProcess(ctx context.Context, src Source, p store.Process, year, week i
 	}
 	pr.Uncategorized = max(0, pr.Current.Count-categorized)
 
+	pr.Notes = append(pr.Notes, flagged.notes...)
+	if flagged.f != nil {
+		pr.NeedAttention = len(flagged.f.Unexplained(p, notes))
+	}
 	if weekLo >= 0 {
-		pr.judge(lots, sets, notes, weekLo, weekHi)
+		if flagged.err != nil {
+			pr.Notes = append(pr.Notes, "The lots could not be judged against their limits: "+flagged.err.Error()+".")
+		} else {
+			pr.week(flagged.f, lots[weekLo:weekHi], notes)
+		}
 		pr.checkWeek(lots[weekLo:weekHi])
 	}
 	return pr, nil
+}
+
+// JudgedFunc gives what a process's whole record, judged against its
+// limit sets (Judge), flags: its lots out of limits and its signals, each
+// with its judged point (attention.Flag). A caller that keeps these for
+// the status board (keyed by the store's change counter) hands them to
+// Build, which then reads only the lots of the trend's weeks; the figures
+// are the same as when Build judges the record itself.
+type JudgedFunc func(ctx context.Context, p store.Process) (*attention.Flagged, error)
+
+// judgedRecord is what judging a record gave: the flags, notes on how it
+// was judged, or why it could not be.
+type judgedRecord struct {
+	f     *attention.Flagged
+	notes []string
+	err   error
+}
+
+// readJudged reads the process's lots from from to to (in time order)
+// and what its whole record flags: from judged when given, or else by
+// reading and judging every lot of the record here.
+func readJudged(ctx context.Context, src Source, p store.Process, from, to time.Time, judged JudgedFunc) ([]store.Lot, judgedRecord, error) {
+	byTime := func(lots []store.Lot) {
+		sort.SliceStable(lots, func(i, j int) bool { return lots[i].Time.Before(lots[j].Time) })
+	}
+	if judged != nil {
+		var jr judgedRecord
+		jr.f, jr.err = judged(ctx, p)
+		lots, err := src.Lots(ctx, p.ID, from, to)
+		if err != nil {
+			return nil, jr, fmt.Errorf("reading lots: %w", err)
+		}
+		byTime(lots)
+		return lots, jr, nil
+	}
+	// Every lot of the record is read: the lots are judged on the whole
+	// record, as on the chart page (trial limits from all lots before the
+	// first frozen set), so that a lot's verdict is the same wherever it
+	// is shown.
+	all, err := src.Lots(ctx, p.ID, time.Time{}, time.Time{})
+	if err != nil {
+		return nil, judgedRecord{}, fmt.Errorf("reading lots: %w", err)
+	}
+	byTime(all)
+	sets, err := src.LimitSets(ctx, p.ID)
+	if err != nil {
+		return nil, judgedRecord{}, fmt.Errorf("reading limit sets: %w", err)
+	}
+	jr := judgeRecord(p, all, sets)
+	lo := sort.Search(len(all), func(i int) bool { return !all[i].Time.Before(from) })
+	hi := sort.Search(len(all), func(i int) bool { return !all[i].Time.Before(to) })
+	return all[lo:hi], jr, nil
+}
+
+// judgeRecord judges a process's whole record (in time order) against its
+// limit sets and collects what it flags. Run rules that cannot be read
+// are left out, with a note.
+func judgeRecord(p store.Process, lots []store.Lot, sets []store.LimitSet) judgedRecord {
+	var jr judgedRecord
+	if len(lots) == 0 {
+		jr.f = &attention.Flagged{}
+		return jr
+	}
+	rules := spc.RulesNone
+	if p.Rules != "" {
+		var err error
+		if rules, err = spc.ParseRules(p.Rules); err != nil {
+			jr.notes = append(jr.notes, fmt.Sprintf("The run rules %q of the process cannot be read (%v); only the limits were judged.", p.Rules, err))
+			rules = spc.RulesNone
+		}
+	}
+	a, setOf, err := Judge(p, lots, sets, rules)
+	if err != nil {
+		jr.err = err
+		return jr
+	}
+	jr.f = attention.Flag(lots, a, setOf)
+	return jr
 }
 
 // estimate sets the rate and its interval.
@@ -608,51 +695,47 @@ func FormatP(p float64) string {
 	return "p = " + strconv.FormatFloat(p, 'g', 2, 64)
 }
 
-// judge judges the record's lots against the limit sets in force and
-// keeps what touches the reviewed week, lots[lo:hi].
-func (pr *ProcessReview) judge(lots []store.Lot, sets []store.LimitSet, notes []store.Annotation, lo, hi int) {
-	p := pr.Process
-	rules := spc.RulesNone
-	if p.Rules != "" {
-		var err error
-		if rules, err = spc.ParseRules(p.Rules); err != nil {
-			pr.Notes = append(pr.Notes, fmt.Sprintf("The run rules %q of the process cannot be read (%v); only the limits were judged.", p.Rules, err))
-			rules = spc.RulesNone
-		}
+// week keeps what the judged record flags among the reviewed week's lots
+// (weekLots, in time order): the lots beyond a limit, and the signals with
+// a lot in the week, each with the causes recorded on its lots.
+func (pr *ProcessReview) week(f *attention.Flagged, weekLots []store.Lot, notes []store.Annotation) {
+	start, end := weekLots[0].Time, weekLots[len(weekLots)-1].Time
+	inWeek := make(map[int64]store.Lot, len(weekLots))
+	for _, l := range weekLots {
+		inWeek[l.ID] = l
 	}
-	a, setOf, err := Judge(p, lots, sets, rules)
-	if err != nil {
-		pr.Notes = append(pr.Notes, "The lots could not be judged against their limits: "+err.Error()+".")
-		return
-	}
-	pr.NeedAttention = len(attention.Find(p, lots, a, notes))
 	byLot := map[int64][]store.Annotation{}
 	for _, n := range notes {
 		if n.LotID != 0 {
 			byLot[n.LotID] = append(byLot[n.LotID], n)
 		}
 	}
-	for i := lo; i < hi; i++ {
-		pt := a.Points[i]
-		if !pt.OutOfLimits() {
+	for _, fl := range f.Lots {
+		l, ok := inWeek[fl.LotID]
+		if !fl.Out || !ok {
 			continue
 		}
 		lim := "trial limits"
-		if setOf[i] > 0 {
-			lim = "limit set " + strconv.Itoa(setOf[i])
+		if fl.Set > 0 {
+			lim = "limit set " + strconv.Itoa(fl.Set)
 		}
-		pr.OutOfLimits = append(pr.OutOfLimits, OutOfLimit{Lot: lots[i], Value: pt.Value, UCL: pt.UCL, LCL: pt.LCL,
-			Above: pt.Above, Limits: lim, Annotations: byLot[lots[i].ID]})
+		pr.OutOfLimits = append(pr.OutOfLimits, OutOfLimit{Lot: l, Value: fl.Value, UCL: fl.UCL, LCL: fl.LCL,
+			Above: fl.Above, Limits: lim, Annotations: byLot[l.ID]})
 	}
-	for _, sg := range a.Signals {
-		if sg.Last < lo || sg.First >= hi {
+	for _, sg := range f.Signals {
+		first, last := f.At(sg.First), f.At(sg.Last)
+		if first == nil || last == nil || last.Time.Before(start) || first.Time.After(end) {
 			continue
 		}
-		s := Signal{Rule: sg.Rule.String(), Description: sg.Description, Side: sg.Side,
-			First: lots[sg.First].Time, Last: lots[sg.Last].Time}
+		s := Signal{Rule: sg.Rule.String(), Kind: signalKind(sg.Rule), Description: sg.Description, Side: sg.Side,
+			First: first.Time, Last: last.Time}
 		for i := sg.First; i <= sg.Last; i++ {
-			s.Lots = append(s.Lots, lots[i].Lot)
-			for _, n := range byLot[lots[i].ID] {
+			if fl := f.At(i); fl != nil {
+				s.Lots = append(s.Lots, fl.Lot)
+			}
+		}
+		for _, id := range sg.LotIDs {
+			for _, n := range byLot[id] {
 				if n.Rule == "" || n.Rule == s.Rule {
 					s.Annotations = append(s.Annotations, n)
 				}
@@ -660,6 +743,42 @@ func (pr *ProcessReview) judge(lots []store.Lot, sets []store.LimitSet, notes []
 		}
 		pr.Signals = append(pr.Signals, s)
 	}
+}
+
+// signalKind is "shift" for the CUSUM and EWMA, "run_rule" for every
+// other signal (a lot beyond a limit is listed among the run rules, as
+// Western Electric rule 1 and Nelson test 1 are).
+func signalKind(r spc.Rule) attention.Kind {
+	if attention.SignalKind(r) == attention.Shift {
+		return attention.Shift
+	}
+	return attention.RunRule
+}
+
+// ShiftMeaning says in plain words what a small-shift signal (CUSUM or
+// EWMA) means, for every rendering of the review.
+const ShiftMeaning = "A sustained small shift: weighing many lots together, the monitor finds that the rate has moved " +
+	"from its centre and stayed moved, often by too little in any one lot for the control limits to catch. " +
+	"Like any signal it calls for its cause to be found and recorded (or the finding that none was found)."
+
+// Meaning is the plain-words reading of the signal's kind: ShiftMeaning
+// for a small shift, "" for a run rule (its description says it all).
+func (s Signal) Meaning() string {
+	if s.Kind == attention.Shift {
+		return ShiftMeaning
+	}
+	return ""
+}
+
+// Shifts counts the small-shift signals touching the week.
+func (pr *ProcessReview) Shifts() int {
+	n := 0
+	for _, s := range pr.Signals {
+		if s.Kind == attention.Shift {
+			n++
+		}
+	}
+	return n
 }
 
 // Judge judges lots (in time order) of process p against its limit sets
