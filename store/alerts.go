@@ -186,12 +186,11 @@ func (db *DB) AddAlertRule(ctx context.Context, actor string, r AlertRule) (Aler
 			return err
 		}
 		r.Process, r.Active, r.Created, r.CreatedBy = p.Name, true, w.now, actor
-		res, err := w.Exec(`INSERT INTO alert_rules (process_id, webhook, secret, email, triggers, unexplained_after, active, created, created_by)
-			VALUES (?, ?, ?, ?, ?, ?, 1, ?, ?)`, r.ProcessID, r.Webhook, r.Secret, r.Email, strings.Join(r.On, ","), int64(r.UnexplainedAfter), w.now.UnixNano(), actor)
+		err = w.QueryRow(`INSERT INTO alert_rules (process_id, webhook, secret, email, triggers, unexplained_after, active, created, created_by)
+			VALUES (?, ?, ?, ?, ?, ?, 1, ?, ?) RETURNING id`, r.ProcessID, r.Webhook, r.Secret, r.Email, strings.Join(r.On, ","), int64(r.UnexplainedAfter), w.now.UnixNano(), actor).Scan(&r.ID)
 		if err != nil {
 			return err
 		}
-		r.ID, _ = res.LastInsertId()
 		return w.audit(actor, "add", "alertrule", r.ID, r.ID, nil, auditAlertRule(r), "")
 	})
 	if err != nil {
@@ -447,7 +446,7 @@ func (db *DB) ClaimDeliveries(ctx context.Context, owner string, lease time.Dura
 // (zero when none is pending).
 func (db *DB) NextDeliveryDue(ctx context.Context) (time.Time, error) {
 	var n sql.NullInt64
-	err := db.r.QueryRowContext(ctx, "SELECT MIN(max(next_at, lease_until)) FROM alert_deliveries WHERE state = 'pending'").Scan(&n)
+	err := db.r.QueryRowContext(ctx, "SELECT MIN("+db.d.greatest+"(next_at, lease_until)) FROM alert_deliveries WHERE state = 'pending'").Scan(&n)
 	if err != nil || !n.Valid {
 		return time.Time{}, err
 	}

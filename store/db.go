@@ -19,8 +19,35 @@ import (
 	"github.com/mattn/go-sqlite3"
 )
 
-//go:embed migrations/*.sql
+//go:embed migrations/*.sql migrations/postgres/*.sql
 var migrationFS embed.FS
+
+// dialect is what differs between the two databases a store can live in,
+// kept in one place: the migrations (each database has its own, numbered
+// and recorded in schema_migrations), and the few statements whose SQL is
+// not the same. Every other query is written once, with ? placeholders
+// (numbered for PostgreSQL by rebind).
+type dialect struct {
+	name       string // "sqlite" or "postgres"
+	migrations string // folder of the embedded migrations
+	// headSelect reads the audit chain head at the start of each writer
+	// transaction. SQLite's BEGIN IMMEDIATE already holds the file's write
+	// lock; on PostgreSQL the row lock makes the writers of several
+	// servers append to the chain one after another.
+	headSelect string
+	// lotsRead names the lots table for reading a process's lots in time
+	// order: SQLite is told to use its covering index.
+	lotsRead string
+	// greatest is the function of the larger of two values.
+	greatest string
+}
+
+var (
+	sqliteDialect = &dialect{name: "sqlite", migrations: "migrations",
+		headSelect: qHeadSelect, lotsRead: "lots INDEXED BY lots_read", greatest: "max"}
+	postgresDialect = &dialect{name: "postgres", migrations: "migrations/postgres",
+		headSelect: qHeadSelect + " FOR UPDATE", lotsRead: "lots", greatest: "GREATEST"}
+)
 
 // migration is one forward-only schema step, numbered from 1.
 type migration struct {
@@ -29,15 +56,17 @@ type migration struct {
 	sql     string
 }
 
-func migrations() ([]migration, error) {
-	names, err := fs.Glob(migrationFS, "migrations/*.sql")
+func migrations() ([]migration, error) { return migrationsOf(sqliteDialect) }
+
+func migrationsOf(d *dialect) ([]migration, error) {
+	names, err := fs.Glob(migrationFS, d.migrations+"/*.sql")
 	if err != nil {
 		return nil, err
 	}
 	sort.Strings(names)
 	var ms []migration
 	for i, n := range names {
-		base := strings.TrimPrefix(n, "migrations/")
+		base := strings.TrimPrefix(n, d.migrations+"/")
 		v, err := strconv.Atoi(strings.SplitN(base, "_", 2)[0])
 		if err != nil || v != i+1 {
 			return nil, fmt.Errorf("store: migration %s is out of sequence", base)
@@ -51,7 +80,7 @@ func migrations() ([]migration, error) {
 	return ms, nil
 }
 
-// SchemaVersion is the schema version this build writes.
+// SchemaVersion is the schema version this build writes in a SQLite file.
 func SchemaVersion() int {
 	ms, _ := migrations()
 	return len(ms)
@@ -67,10 +96,11 @@ func SchemaVersion() int {
 // in its own savepoint, and answers each caller only after COMMIT; with
 // synchronous=FULL an acknowledged write survives a power cut.
 type DB struct {
-	path string
-	w    *sql.DB // exactly one connection
-	r    *sql.DB // read-only pool
-	lock *dbLock // shared, while open (see lockShared)
+	path string   // the file, or the URL without its password
+	d    *dialect // what differs between SQLite and PostgreSQL
+	w    *sql.DB  // exactly one connection
+	r    *sql.DB  // read-only pool
+	lock *dbLock  // shared, while open (see lockShared)
 
 	readOnly bool        // see ReadOnly: w is nil
 	mem      memSessions // the sessions of a read-only database
@@ -101,18 +131,18 @@ const (
 	qAuditInsert = `INSERT INTO audit (seq, at, actor, action, entity, entity_id, entity_to, old, new, reason, prev_hash, hash)
 		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`
 	qBumpVersion = `INSERT INTO lot_versions (process_id, version, rewrites) VALUES (?, 1, ?)
-		ON CONFLICT (process_id) DO UPDATE SET version = version + 1, rewrites = rewrites + excluded.rewrites`
+		ON CONFLICT (process_id) DO UPDATE SET version = lot_versions.version + 1, rewrites = lot_versions.rewrites + excluded.rewrites`
 	qLotInsert = `INSERT INTO lots (process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, 1, 0, ?, ?) ON CONFLICT (process_id, lot) DO NOTHING`
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, 1, 0, ?, ?) ON CONFLICT (process_id, lot) DO NOTHING RETURNING id`
 	qLotByCode   = "SELECT " + lotCols + " FROM lots WHERE process_id = ? AND lot = ?"
 	qProcessByID = "SELECT " + processCols + " FROM processes WHERE id = ?"
 )
 
-var hotQueries = []string{qSavepoint, qRelease, qHeadSelect, qHeadUpdate, qAuditInsert, qBumpVersion, qLotInsert, qLotByCode, qProcessByID, qAlertEvents}
+var hotQueries = []string{qSavepoint, qRelease, qHeadUpdate, qAuditInsert, qBumpVersion, qLotInsert, qLotByCode, qProcessByID, qAlertEvents}
 
 func (db *DB) prepareHot() error {
 	db.hot = map[string]*sql.Stmt{}
-	for _, q := range hotQueries {
+	for _, q := range append([]string{db.d.headSelect}, hotQueries...) {
 		st, err := db.w.Prepare(q)
 		if err != nil {
 			return fmt.Errorf("store: prepare %q: %w", q, err)
@@ -155,8 +185,13 @@ func dsn(path string, params string) string {
 
 // Open opens (creating if needed) the database at path and applies the
 // embedded migrations it lacks. A database written by a newer lotwatch is
-// refused with ErrNewerSchema.
+// refused with ErrNewerSchema. A postgres:// or postgresql:// URL opens
+// that PostgreSQL database instead (see IsURL); its errors never hold the
+// password, and wrap ErrBadURL or ErrUnreachable where they apply.
 func Open(path string) (*DB, error) {
+	if IsURL(path) {
+		return openPostgres(path)
+	}
 	lock, err := lockShared(path)
 	if err != nil {
 		return nil, err
@@ -195,7 +230,7 @@ func open(path string) (*DB, error) {
 		w.Close()
 		return nil, fmt.Errorf("store: open %s: %w", path, err)
 	}
-	if err := migrate(w, path); err != nil {
+	if err := migrateWith(w, path, sqliteDialect); err != nil {
 		w.Close()
 		return nil, err
 	}
@@ -212,7 +247,7 @@ func open(path string) (*DB, error) {
 	}
 	r.SetMaxOpenConns(8)
 	r.SetMaxIdleConns(8)
-	db := &DB{path: path, w: w, r: r, jobs: make(chan *job, 256), quit: make(chan struct{}), done: make(chan struct{})}
+	db := &DB{path: path, d: sqliteDialect, w: w, r: r, jobs: make(chan *job, 256), quit: make(chan struct{}), done: make(chan struct{})}
 	if err := db.loadChain(context.Background()); err != nil {
 		db.w.Close()
 		db.r.Close()
@@ -227,13 +262,13 @@ func open(path string) (*DB, error) {
 	return db, nil
 }
 
-func migrate(w *sql.DB, path string) error {
-	ms, err := migrations()
+func migrateWith(w *sql.DB, path string, d *dialect) error {
+	ms, err := migrationsOf(d)
 	if err != nil {
 		return err
 	}
 	if _, err := w.Exec(`CREATE TABLE IF NOT EXISTS schema_migrations (
-		version INTEGER PRIMARY KEY, name TEXT NOT NULL, applied INTEGER NOT NULL)`); err != nil {
+		version INTEGER PRIMARY KEY, name TEXT NOT NULL, applied BIGINT NOT NULL)`); err != nil {
 		return fmt.Errorf("store: %s: %w", path, err)
 	}
 	var have int
@@ -252,7 +287,7 @@ func migrate(w *sql.DB, path string) error {
 			tx.Rollback()
 			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
 		}
-		if up := upgrades[m.version]; up != nil {
+		if up := upgrades[m.version]; up != nil && d == sqliteDialect {
 			if err := up(tx, m); err != nil {
 				tx.Rollback()
 				return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
@@ -262,9 +297,11 @@ func migrate(w *sql.DB, path string) error {
 			tx.Rollback()
 			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
 		}
-		if _, err := tx.Exec(fmt.Sprintf("PRAGMA user_version = %d", m.version)); err != nil {
-			tx.Rollback()
-			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
+		if d == sqliteDialect {
+			if _, err := tx.Exec(fmt.Sprintf("PRAGMA user_version = %d", m.version)); err != nil {
+				tx.Rollback()
+				return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
+			}
 		}
 		if err := tx.Commit(); err != nil {
 			return fmt.Errorf("store: %s: migration %s: %w", path, m.name, err)
@@ -368,7 +405,7 @@ func (db *DB) runBatch(batch []*job) {
 	// Another program (a command-line import while the server runs) may
 	// have written since: take the chain head as the file has it now,
 	// under this transaction's write lock.
-	if err := db.queryRowIn(tx, qHeadSelect).Scan(&db.chain.seq, &db.chain.hash); err != nil {
+	if err := db.queryRowIn(tx, db.d.headSelect).Scan(&db.chain.seq, &db.chain.hash); err != nil {
 		tx.Rollback()
 		fail(fmt.Errorf("store: audit head: %w", err))
 		return
@@ -438,6 +475,9 @@ func (db *DB) write(ctx context.Context, fn func(*wtx) error) error {
 
 // isUnique reports a UNIQUE constraint failure.
 func isUnique(err error) bool {
+	if pgCode(err) == "23505" {
+		return true
+	}
 	var se sqlite3.Error
 	return errors.As(err, &se) && se.ExtendedCode == sqlite3.ErrConstraintUnique
 }

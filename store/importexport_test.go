@@ -30,161 +30,167 @@ func importString(t *testing.T, db *DB, process, src string, create bool) (Impor
 }
 
 func TestImportCreateIdempotentConflict(t *testing.T) {
-	db, _ := openTemp(t)
-	res, err := importString(t, db, "weld", sampleCSV, true)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if !res.Created || res.Added != 3 || res.Process.Chart != spc.ChartP || !reflect.DeepEqual(res.Process.Categories, []string{"dent", "scratch"}) {
-		t.Fatalf("result %+v", res)
-	}
-	lots, _ := db.Lots(ctx, res.Process.ID, time.Time{}, time.Time{})
-	// 06:10 in Berlin on 3 March 2025 (CET, UTC+1) is 05:10 UTC.
-	if len(lots) != 3 || !lots[0].Time.Equal(time.Date(2025, 3, 3, 5, 10, 0, 0, time.UTC)) {
-		t.Fatalf("lots %+v", lots)
-	}
-	if _, ok := lots[1].Categories["dent"]; ok || lots[1].Categories["scratch"] != 2 || lots[1].Note != "two\nlines" {
-		t.Errorf("B2 read as %+v", lots[1])
-	}
-	// Again: nothing added.
-	res, err = importString(t, db, "weld", sampleCSV, false)
-	if err != nil || res.Added != 0 || res.Unchanged != 3 || len(res.Conflicts) != 0 {
-		t.Fatalf("re-import: %+v %v", res, err)
-	}
-	// Changed values: a problem naming the line and the fields, and
-	// nothing of the file is written (all or nothing)...
-	changed := strings.Replace(sampleCSV, "B1,2025-03-03 06:10,early,200,4,3,1,kim", "B1,2025-03-03 06:10,late,200,5,3,1,kim", 1) + "B4,2025-03-05 06:00,early,100,1,1,0,kim,\r\n"
-	_, err = importString(t, db, "weld", changed, false)
-	var ve *ValidationError
-	if !errors.As(err, &ve) || len(ve.Problems) != 1 || ve.Problems[0].Line != 2 || ve.Problems[0].Value != "B1" ||
-		!strings.Contains(ve.Problems[0].Reason, "already stored with other values (shift, count)") {
-		t.Fatalf("conflicting import: %v, want one problem on line 2 naming B1, shift and count", err)
-	}
-	if n, _ := db.Lots(ctx, res.Process.ID, time.Time{}, time.Time{}); len(n) != 3 {
-		t.Fatalf("a refused import stored lots: %d, want 3", len(n))
-	}
-	// ...unless conflicts are skipped on purpose: then the other lots go
-	// in and each conflict is reported, never an overwrite.
-	res, err = db.Import(ctx, "tester", strings.NewReader(changed), ImportOptions{Process: "weld", SkipConflicts: true})
-	if err != nil || res.Added != 1 || res.Unchanged != 2 || len(res.Conflicts) != 1 {
-		t.Fatalf("import skipping conflicts: %+v %v", res, err)
-	}
-	if c := res.Conflicts[0]; c.Line != 2 || c.Lot != "B1" || !reflect.DeepEqual(c.Fields, []string{"shift", "count"}) {
-		t.Errorf("conflict %+v", c)
-	}
-	l, _ := db.LotByID(ctx, lots[0].ID)
-	if l.Count != 4 || l.Shift != "early" {
-		t.Errorf("stored lot overwritten: %+v", l)
-	}
+	forEachBackend(t, func(t *testing.T, open opener) {
+		db, _ := open(t)
+		res, err := importString(t, db, "weld", sampleCSV, true)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !res.Created || res.Added != 3 || res.Process.Chart != spc.ChartP || !reflect.DeepEqual(res.Process.Categories, []string{"dent", "scratch"}) {
+			t.Fatalf("result %+v", res)
+		}
+		lots, _ := db.Lots(ctx, res.Process.ID, time.Time{}, time.Time{})
+		// 06:10 in Berlin on 3 March 2025 (CET, UTC+1) is 05:10 UTC.
+		if len(lots) != 3 || !lots[0].Time.Equal(time.Date(2025, 3, 3, 5, 10, 0, 0, time.UTC)) {
+			t.Fatalf("lots %+v", lots)
+		}
+		if _, ok := lots[1].Categories["dent"]; ok || lots[1].Categories["scratch"] != 2 || lots[1].Note != "two\nlines" {
+			t.Errorf("B2 read as %+v", lots[1])
+		}
+		// Again: nothing added.
+		res, err = importString(t, db, "weld", sampleCSV, false)
+		if err != nil || res.Added != 0 || res.Unchanged != 3 || len(res.Conflicts) != 0 {
+			t.Fatalf("re-import: %+v %v", res, err)
+		}
+		// Changed values: a problem naming the line and the fields, and
+		// nothing of the file is written (all or nothing)...
+		changed := strings.Replace(sampleCSV, "B1,2025-03-03 06:10,early,200,4,3,1,kim", "B1,2025-03-03 06:10,late,200,5,3,1,kim", 1) + "B4,2025-03-05 06:00,early,100,1,1,0,kim,\r\n"
+		_, err = importString(t, db, "weld", changed, false)
+		var ve *ValidationError
+		if !errors.As(err, &ve) || len(ve.Problems) != 1 || ve.Problems[0].Line != 2 || ve.Problems[0].Value != "B1" ||
+			!strings.Contains(ve.Problems[0].Reason, "already stored with other values (shift, count)") {
+			t.Fatalf("conflicting import: %v, want one problem on line 2 naming B1, shift and count", err)
+		}
+		if n, _ := db.Lots(ctx, res.Process.ID, time.Time{}, time.Time{}); len(n) != 3 {
+			t.Fatalf("a refused import stored lots: %d, want 3", len(n))
+		}
+		// ...unless conflicts are skipped on purpose: then the other lots go
+		// in and each conflict is reported, never an overwrite.
+		res, err = db.Import(ctx, "tester", strings.NewReader(changed), ImportOptions{Process: "weld", SkipConflicts: true})
+		if err != nil || res.Added != 1 || res.Unchanged != 2 || len(res.Conflicts) != 1 {
+			t.Fatalf("import skipping conflicts: %+v %v", res, err)
+		}
+		if c := res.Conflicts[0]; c.Line != 2 || c.Lot != "B1" || !reflect.DeepEqual(c.Fields, []string{"shift", "count"}) {
+			t.Errorf("conflict %+v", c)
+		}
+		l, _ := db.LotByID(ctx, lots[0].ID)
+		if l.Count != 4 || l.Shift != "early" {
+			t.Errorf("stored lot overwritten: %+v", l)
+		}
+	})
 }
 
 func TestImportAllOrNothing(t *testing.T) {
-	db, _ := openTemp(t)
-	p := addProcess(t, db, "weld", spc.ChartP, "dent")
-	src := "lot,inspected,defective,dent\n" +
-		"C1,100,2,1\n" + // line 2 fine
-		"C2,100,101,\n" + // line 3 defective > inspected
-		"C3,100,2,burr\n" + // line 4 not a number
-		"C1,100,2,1\n" + // line 5 duplicate of line 2
-		"C5,10,1,11\n" // line 6 category over inspected
-	_, err := importString(t, db, "weld", src, false)
-	var ve *ValidationError
-	if !errors.As(err, &ve) {
-		t.Fatalf("err %v", err)
-	}
-	want := []struct {
-		line  int
-		field string
-	}{{3, "defective"}, {4, "dent"}, {5, "lot"}, {6, "dent"}}
-	if len(ve.Problems) != len(want) {
-		t.Fatalf("problems %v", ve.Problems)
-	}
-	for i, w := range want {
-		if ve.Problems[i].Line != w.line || ve.Problems[i].Field != w.field {
-			t.Errorf("problem %d: %+v, want line %d field %s", i, ve.Problems[i], w.line, w.field)
+	forEachBackend(t, func(t *testing.T, open opener) {
+		db, _ := open(t)
+		p := addProcess(t, db, "weld", spc.ChartP, "dent")
+		src := "lot,inspected,defective,dent\n" +
+			"C1,100,2,1\n" + // line 2 fine
+			"C2,100,101,\n" + // line 3 defective > inspected
+			"C3,100,2,burr\n" + // line 4 not a number
+			"C1,100,2,1\n" + // line 5 duplicate of line 2
+			"C5,10,1,11\n" // line 6 category over inspected
+		_, err := importString(t, db, "weld", src, false)
+		var ve *ValidationError
+		if !errors.As(err, &ve) {
+			t.Fatalf("err %v", err)
 		}
-	}
-	if lots, _ := db.Lots(ctx, p.ID, time.Time{}, time.Time{}); len(lots) != 0 {
-		t.Errorf("%d lots written by a refused import", len(lots))
-	}
-	// Unknown process without create; wrong count column for the chart.
-	if _, err := importString(t, db, "nope", src, false); !errors.Is(err, ErrNotFound) {
-		t.Errorf("unknown process: %v", err)
-	}
-	if _, err := importString(t, db, "weld", "lot,inspected,defects\nX,1,1\n", false); !errors.Is(err, ErrInvalid) {
-		t.Errorf("defects column for a p chart: %v", err)
-	}
-	// The cap: 150 bad rows give 100 problems and "150 - 100 more".
-	var b strings.Builder
-	b.WriteString("lot,inspected,defective\n")
-	for i := 0; i < 150; i++ {
-		fmt.Fprintf(&b, "D%d,0,0\n", i)
-	}
-	_, err = importString(t, db, "weld", b.String(), false)
-	if !errors.As(err, &ve) || len(ve.Problems) != 100 || ve.More != 50 || !strings.Contains(ve.Error(), "and 50 more") {
-		t.Errorf("cap: %d problems, %d more", len(ve.Problems), ve.More)
-	}
+		want := []struct {
+			line  int
+			field string
+		}{{3, "defective"}, {4, "dent"}, {5, "lot"}, {6, "dent"}}
+		if len(ve.Problems) != len(want) {
+			t.Fatalf("problems %v", ve.Problems)
+		}
+		for i, w := range want {
+			if ve.Problems[i].Line != w.line || ve.Problems[i].Field != w.field {
+				t.Errorf("problem %d: %+v, want line %d field %s", i, ve.Problems[i], w.line, w.field)
+			}
+		}
+		if lots, _ := db.Lots(ctx, p.ID, time.Time{}, time.Time{}); len(lots) != 0 {
+			t.Errorf("%d lots written by a refused import", len(lots))
+		}
+		// Unknown process without create; wrong count column for the chart.
+		if _, err := importString(t, db, "nope", src, false); !errors.Is(err, ErrNotFound) {
+			t.Errorf("unknown process: %v", err)
+		}
+		if _, err := importString(t, db, "weld", "lot,inspected,defects\nX,1,1\n", false); !errors.Is(err, ErrInvalid) {
+			t.Errorf("defects column for a p chart: %v", err)
+		}
+		// The cap: 150 bad rows give 100 problems and "150 - 100 more".
+		var b strings.Builder
+		b.WriteString("lot,inspected,defective\n")
+		for i := 0; i < 150; i++ {
+			fmt.Fprintf(&b, "D%d,0,0\n", i)
+		}
+		_, err = importString(t, db, "weld", b.String(), false)
+		if !errors.As(err, &ve) || len(ve.Problems) != 100 || ve.More != 50 || !strings.Contains(ve.Error(), "and 50 more") {
+			t.Errorf("cap: %d problems, %d more", len(ve.Problems), ve.More)
+		}
+	})
 }
 
 // Export, then import into a fresh database: the same lots, including text
 // that a spreadsheet would run as a formula.
 func TestExportImportRoundTrip(t *testing.T) {
-	db, _ := openTemp(t)
-	p, err := db.AddProcess(ctx, "t", Process{Name: "paint", Chart: spc.ChartU, Categories: []string{"run", "sag"}, TimeZone: "America/Chicago"})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t0 := time.Date(2025, 7, 1, 13, 14, 15, 123456789, time.UTC)
-	in := []LotInput{
-		{Lot: "=1+2", Time: t0, Shift: "+night", Inspected: 5, Count: 9, Categories: map[string]int64{"run": 9}, Inspector: "@ana", Note: "-minus"},
-		{Lot: "'=quoted", Time: t0.Add(time.Minute), Inspected: 5, Count: 0, Note: "\ttab"},
-		{Lot: "'plain", Time: t0.Add(2 * time.Minute), Inspected: 7, Count: 1, Categories: map[string]int64{"run": 0, "sag": 1}, Note: "line\nbreak, \"quoted\""},
-		{Lot: "L4", Time: t0.Add(3 * time.Minute), Inspected: 1, Count: 0, Note: "\rcr"},
-	}
-	if _, err := db.AddLots(ctx, "t", p.ID, in); err != nil {
-		t.Fatal(err)
-	}
-	var out bytes.Buffer
-	if err := db.Export(ctx, &out, p.ID, ExportOptions{}); err != nil {
-		t.Fatal(err)
-	}
-	for _, bad := range []string{"\n=1+2", ",+night", ",@ana", ",-minus"} {
-		if strings.Contains(out.String(), bad) {
-			t.Errorf("export has an unguarded cell %q:\n%s", bad, out.String())
+	forEachBackend(t, func(t *testing.T, open opener) {
+		db, _ := open(t)
+		p, err := db.AddProcess(ctx, "t", Process{Name: "paint", Chart: spc.ChartU, Categories: []string{"run", "sag"}, TimeZone: "America/Chicago"})
+		if err != nil {
+			t.Fatal(err)
 		}
-	}
-	db2, _ := openTemp(t)
-	if _, err := db2.AddProcess(ctx, "t", Process{Name: "paint", Chart: spc.ChartU, Categories: []string{"run", "sag"}, TimeZone: "America/Chicago"}); err != nil {
-		t.Fatal(err)
-	}
-	res, err := db2.Import(ctx, "t", bytes.NewReader(out.Bytes()), ImportOptions{Process: "paint"})
-	if err != nil || res.Added != len(in) {
-		t.Fatalf("import of export: %+v %v\n%s", res, err, out.String())
-	}
-	a, _ := db.Lots(ctx, p.ID, time.Time{}, time.Time{})
-	b, _ := db2.Lots(ctx, res.Process.ID, time.Time{}, time.Time{})
-	for i := range a {
-		if !a[i].Time.Equal(b[i].Time) {
-			t.Errorf("lot %d time %v, read back %v", i, a[i].Time, b[i].Time)
+		t0 := time.Date(2025, 7, 1, 13, 14, 15, 123456789, time.UTC)
+		in := []LotInput{
+			{Lot: "=1+2", Time: t0, Shift: "+night", Inspected: 5, Count: 9, Categories: map[string]int64{"run": 9}, Inspector: "@ana", Note: "-minus"},
+			{Lot: "'=quoted", Time: t0.Add(time.Minute), Inspected: 5, Count: 0, Note: "\ttab"},
+			{Lot: "'plain", Time: t0.Add(2 * time.Minute), Inspected: 7, Count: 1, Categories: map[string]int64{"run": 0, "sag": 1}, Note: "line\nbreak, \"quoted\""},
+			{Lot: "L4", Time: t0.Add(3 * time.Minute), Inspected: 1, Count: 0, Note: "\rcr"},
 		}
-		a[i].Time, b[i].Time = time.Time{}, time.Time{}
-		if !reflect.DeepEqual(a[i].LotInput, b[i].LotInput) {
-			t.Errorf("lot %d: %+v\nread back %+v", i, a[i].LotInput, b[i].LotInput)
+		if _, err := db.AddLots(ctx, "t", p.ID, in); err != nil {
+			t.Fatal(err)
 		}
-	}
-	// And into the same database: all unchanged.
-	res, err = db.Import(ctx, "t", bytes.NewReader(out.Bytes()), ImportOptions{Process: "paint"})
-	if err != nil || res.Unchanged != len(in) || res.Added != 0 || len(res.Conflicts) != 0 {
-		t.Errorf("re-import of export: %+v %v", res, err)
-	}
-	// Date range and JSON.
-	out.Reset()
-	if err := db.Export(ctx, &out, p.ID, ExportOptions{From: t0.Add(time.Minute), To: t0.Add(3 * time.Minute), Format: "json"}); err != nil {
-		t.Fatal(err)
-	}
-	if n := strings.Count(out.String(), `"lot":`); n != 2 || !strings.Contains(out.String(), `"defects":9`) == strings.Contains(out.String(), `"lot":"=1+2"`) {
-		t.Errorf("json range export:\n%s", out.String())
-	}
+		var out bytes.Buffer
+		if err := db.Export(ctx, &out, p.ID, ExportOptions{}); err != nil {
+			t.Fatal(err)
+		}
+		for _, bad := range []string{"\n=1+2", ",+night", ",@ana", ",-minus"} {
+			if strings.Contains(out.String(), bad) {
+				t.Errorf("export has an unguarded cell %q:\n%s", bad, out.String())
+			}
+		}
+		db2, _ := open(t)
+		if _, err := db2.AddProcess(ctx, "t", Process{Name: "paint", Chart: spc.ChartU, Categories: []string{"run", "sag"}, TimeZone: "America/Chicago"}); err != nil {
+			t.Fatal(err)
+		}
+		res, err := db2.Import(ctx, "t", bytes.NewReader(out.Bytes()), ImportOptions{Process: "paint"})
+		if err != nil || res.Added != len(in) {
+			t.Fatalf("import of export: %+v %v\n%s", res, err, out.String())
+		}
+		a, _ := db.Lots(ctx, p.ID, time.Time{}, time.Time{})
+		b, _ := db2.Lots(ctx, res.Process.ID, time.Time{}, time.Time{})
+		for i := range a {
+			if !a[i].Time.Equal(b[i].Time) {
+				t.Errorf("lot %d time %v, read back %v", i, a[i].Time, b[i].Time)
+			}
+			a[i].Time, b[i].Time = time.Time{}, time.Time{}
+			if !reflect.DeepEqual(a[i].LotInput, b[i].LotInput) {
+				t.Errorf("lot %d: %+v\nread back %+v", i, a[i].LotInput, b[i].LotInput)
+			}
+		}
+		// And into the same database: all unchanged.
+		res, err = db.Import(ctx, "t", bytes.NewReader(out.Bytes()), ImportOptions{Process: "paint"})
+		if err != nil || res.Unchanged != len(in) || res.Added != 0 || len(res.Conflicts) != 0 {
+			t.Errorf("re-import of export: %+v %v", res, err)
+		}
+		// Date range and JSON.
+		out.Reset()
+		if err := db.Export(ctx, &out, p.ID, ExportOptions{From: t0.Add(time.Minute), To: t0.Add(3 * time.Minute), Format: "json"}); err != nil {
+			t.Fatal(err)
+		}
+		if n := strings.Count(out.String(), `"lot":`); n != 2 || !strings.Contains(out.String(), `"defects":9`) == strings.Contains(out.String(), `"lot":"=1+2"`) {
+			t.Errorf("json range export:\n%s", out.String())
+		}
+	})
 }
 
 // generateCSV writes n valid lots of a p chart with two categories.

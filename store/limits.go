@@ -125,15 +125,14 @@ func (db *DB) FreezeLimitSet(ctx context.Context, actor string, ls LimitSet) (Li
 		}
 		excl, _ := json.Marshal(ls.Excluded)
 		m := ls.Monitors
-		res, err := w.Exec(`INSERT INTO limit_sets (process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason,
+		err = w.QueryRow(`INSERT INTO limit_sets (process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason,
 			cusum_shift, cusum_arl0, cusum_h, ewma_lambda, ewma_width)
-			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`, p.ID, ls.Number, ls.Method, ls.K, ls.Center, ls.SigmaZ,
+			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) RETURNING id`, p.ID, ls.Number, ls.Method, ls.K, ls.Center, ls.SigmaZ,
 			nanos(ls.BaselineFrom), nanos(ls.BaselineTo), ls.BaselineLots, string(excl), ls.EffectiveFrom.UnixNano(), actor, w.now.UnixNano(), ls.Reason,
-			m.CUSUMShift, m.CUSUMARL0, m.CUSUMH, m.EWMALambda, m.EWMAWidth)
+			m.CUSUMShift, m.CUSUMARL0, m.CUSUMH, m.EWMALambda, m.EWMAWidth).Scan(&ls.ID)
 		if err != nil {
 			return err
 		}
-		ls.ID, _ = res.LastInsertId()
 		if err := w.bumpVersion(p.ID, true); err != nil {
 			return err
 		}
@@ -260,12 +259,11 @@ func (db *DB) AddAnnotation(ctx context.Context, actor string, a Annotation) (An
 		if a.Closed {
 			a.ClosedBy, a.ClosedAt, closedAt = actor, a.At, w.now.UnixNano()
 		}
-		res, err := w.Exec(`INSERT INTO annotations (process_id, lot_id, rule, cause, action, closed, by, at, closed_by, closed_at, no_cause, reason) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`,
-			a.ProcessID, lotID, a.Rule, a.Cause, a.Action, a.Closed, actor, w.now.UnixNano(), a.ClosedBy, closedAt, a.NoCauseFound, a.Reason)
+		err := w.QueryRow(`INSERT INTO annotations (process_id, lot_id, rule, cause, action, closed, by, at, closed_by, closed_at, no_cause, reason) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) RETURNING id`,
+			a.ProcessID, lotID, a.Rule, a.Cause, a.Action, a.Closed, actor, w.now.UnixNano(), a.ClosedBy, closedAt, a.NoCauseFound, a.Reason).Scan(&a.ID)
 		if err != nil {
 			return err
 		}
-		a.ID, _ = res.LastInsertId()
 		return w.audit(actor, "add", "annotation", a.ID, a.ID, nil, annotationAudit{a.ProcessID, a.LotID, a.Rule, a.Cause, a.Action, a.Closed, a.NoCauseFound, a.Reason}, "")
 	})
 	if err != nil {

@@ -213,15 +213,12 @@ func (a *lotAdder) add(in *LotInput) (id int64, added bool, err error) {
 		t = a.w.now
 	}
 	cats := encodeCategories(in.Categories)
-	res, err := a.ins.Exec(a.p.ID, in.Lot, t.UnixNano(), in.Shift, in.Inspected, in.Count, cats, in.Inspector, in.Note, a.w.now.UnixNano(), a.actor)
-	if err != nil {
-		return 0, false, fmt.Errorf("store: add lot %q: %w", in.Lot, err)
-	}
-	if n, _ := res.RowsAffected(); n == 0 {
+	err = a.ins.QueryRow(a.p.ID, in.Lot, t.UnixNano(), in.Shift, in.Inspected, in.Count, cats, in.Inspector, in.Note, a.w.now.UnixNano(), a.actor).Scan(&id)
+	if errors.Is(err, sql.ErrNoRows) { // the lot code is stored
 		return 0, false, nil
 	}
-	if id, err = res.LastInsertId(); err != nil {
-		return 0, false, err
+	if err != nil {
+		return 0, false, fmt.Errorf("store: add lot %q: %w", in.Lot, err)
 	}
 	in.Time = t
 	if a.n == 0 {
@@ -372,7 +369,7 @@ func (db *DB) Lots(ctx context.Context, processID int64, from, to time.Time) ([]
 	// once instead of copying it as it grows.
 	lo, hi := timeBounds(from, to)
 	var n int
-	if err := db.r.QueryRowContext(ctx, `SELECT COUNT(*) FROM lots INDEXED BY lots_read
+	if err := db.r.QueryRowContext(ctx, `SELECT COUNT(*) FROM `+db.d.lotsRead+`
 		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ?`, processID, lo, hi).Scan(&n); err != nil {
 		return nil, err
 	}
@@ -399,7 +396,7 @@ func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, 
 		return err
 	}
 	lo, hi := timeBounds(from, to)
-	return db.walkLots(ctx, p, `SELECT `+readCols+` FROM lots INDEXED BY lots_read
+	return db.walkLots(ctx, p, `SELECT `+readCols+` FROM `+db.d.lotsRead+`
 		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ? ORDER BY time, id`, fn, processID, lo, hi)
 }
 
@@ -622,7 +619,7 @@ func (db *DB) LotHistory(ctx context.Context, id int64) ([]Lot, error) {
 		return nil, err
 	}
 	loc := Process{TimeZone: tz}.Location()
-	rows, err := tx.QueryContext(ctx, `SELECT lot_id, ?, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason
+	rows, err := tx.QueryContext(ctx, `SELECT lot_id, CAST(? AS BIGINT), lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by, reason
 		FROM lot_revisions WHERE lot_id = ? ORDER BY revision`, cur.ProcessID, id)
 	if err != nil {
 		return nil, err

@@ -329,16 +329,15 @@ func (w *wtx) addProcess(actor string, p Process) (Process, error) {
 	cats, _ := json.Marshal(p.Categories)
 	p.Created = w.now.UTC()
 	m := p.Monitors
-	res, err := w.Exec(`INSERT INTO processes (name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order, cusum_shift, cusum_arl0, ewma_lambda, ewma_width)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`, p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, w.now.UnixNano(), p.Area,
-		columnMapJSON(p.ColumnMap), p.DateOrder, m.CUSUMShift, m.CUSUMARL0, m.EWMALambda, m.EWMAWidth)
+	err := w.QueryRow(`INSERT INTO processes (name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order, cusum_shift, cusum_arl0, ewma_lambda, ewma_width)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) RETURNING id`, p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, w.now.UnixNano(), p.Area,
+		columnMapJSON(p.ColumnMap), p.DateOrder, m.CUSUMShift, m.CUSUMARL0, m.EWMALambda, m.EWMAWidth).Scan(&p.ID)
 	if isUnique(err) {
 		return p, fmt.Errorf("process %q already exists: %w", p.Name, ErrConflict)
 	}
 	if err != nil {
 		return p, err
 	}
-	p.ID, _ = res.LastInsertId()
 	return p, w.audit(actor, "add", "process", p.ID, p.ID, nil, auditProcess(p), "")
 }
 

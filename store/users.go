@@ -112,14 +112,13 @@ func (db *DB) AddUser(ctx context.Context, actor, name string, role Role, passwo
 	u := User{Name: name, Role: role, Active: true}
 	err = db.write(ctx, func(w *wtx) error {
 		u.Created = w.now
-		res, err := w.Exec("INSERT INTO users (name, role, password_hash, active, created) VALUES (?, ?, ?, 1, ?)", name, role, string(hash), w.now.UnixNano())
+		err := w.QueryRow("INSERT INTO users (name, role, password_hash, active, created) VALUES (?, ?, ?, 1, ?) RETURNING id", name, role, string(hash), w.now.UnixNano()).Scan(&u.ID)
 		if isUnique(err) {
 			return fmt.Errorf("user %q already exists: %w", name, ErrConflict)
 		}
 		if err != nil {
 			return err
 		}
-		u.ID, _ = res.LastInsertId()
 		return w.audit(actor, "add", "user", u.ID, u.ID, nil, userAudit{name, role, true, credentialDigest(hash)}, "")
 	})
 	if err != nil {
@@ -389,11 +388,10 @@ func (db *DB) CreateToken(ctx context.Context, actor, userName, label string) (s
 		}
 		t.Created = w.now.UTC()
 		hash := secretHash(raw)
-		res, err := w.Exec("INSERT INTO tokens (user_id, label, hash, created) VALUES (?, ?, ?, ?)", t.UserID, label, hash, w.now.UnixNano())
+		err := w.QueryRow("INSERT INTO tokens (user_id, label, hash, created) VALUES (?, ?, ?, ?) RETURNING id", t.UserID, label, hash, w.now.UnixNano()).Scan(&t.ID)
 		if err != nil {
 			return err
 		}
-		t.ID, _ = res.LastInsertId()
 		return w.audit(actor, "add", "token", t.ID, t.ID, nil, tokenAudit{Label: label, User: userName, Hash: credentialDigest(hash)}, "")
 	})
 	if err != nil {

@@ -210,11 +210,13 @@ func TestMigration0002KeepsEarlierTamperingVisible(t *testing.T) {
 // A fresh database gets no migration entry: its trail starts with the
 // first change a user makes.
 func TestMigrationNewDatabaseNoEntry(t *testing.T) {
-	db, _ := openTemp(t)
-	chk, err := db.VerifyAudit(ctx)
-	if err != nil || !chk.OK || chk.Entries != 0 {
-		t.Fatalf("%+v %v", chk, err)
-	}
+	forEachBackend(t, func(t *testing.T, open opener) {
+		db, _ := open(t)
+		chk, err := db.VerifyAudit(ctx)
+		if err != nil || !chk.OK || chk.Entries != 0 {
+			t.Fatalf("%+v %v", chk, err)
+		}
+	})
 }
 
 // A database written at schema 2, whose lots carried a packed copy and
@@ -312,34 +314,36 @@ func TestMigration0004FromSchema2(t *testing.T) {
 // Each lot read has a Categories map of its own: changing one changes no
 // other lot (lots of equal counts are decoded once and copied).
 func TestLotsOwnTheirCategories(t *testing.T) {
-	db, _ := openTemp(t)
-	p, err := db.AddProcess(ctx, "t", Process{Name: "own maps", Chart: spc.ChartP, Categories: []string{"dent"}, TimeZone: "UTC"})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t0 := time.Date(2025, 3, 3, 6, 0, 0, 0, time.UTC)
-	var in []LotInput
-	for i := range 3 {
-		in = append(in, LotInput{Lot: string(rune('A' + i)), Time: t0.Add(time.Duration(i) * time.Hour), Inspected: 50, Count: 1, Categories: map[string]int64{"dent": 1}})
-	}
-	if _, err := db.AddLots(ctx, "t", p.ID, in); err != nil {
-		t.Fatal(err)
-	}
-	var walked []Lot
-	if err := db.EachLot(ctx, p.ID, time.Time{}, time.Time{}, func(l Lot) error { walked = append(walked, l); return nil }); err != nil {
-		t.Fatal(err)
-	}
-	lots, err := db.Lots(ctx, p.ID, time.Time{}, time.Time{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	walked[0].Categories["dent"] = 9
-	lots[0].Categories["dent"] = 9
-	for i, l := range append(walked[1:], lots[1:]...) {
-		if l.Categories["dent"] != 1 {
-			t.Errorf("lot %d read after another's map was changed: %v", i, l.Categories)
+	forEachBackend(t, func(t *testing.T, open opener) {
+		db, _ := open(t)
+		p, err := db.AddProcess(ctx, "t", Process{Name: "own maps", Chart: spc.ChartP, Categories: []string{"dent"}, TimeZone: "UTC"})
+		if err != nil {
+			t.Fatal(err)
 		}
-	}
+		t0 := time.Date(2025, 3, 3, 6, 0, 0, 0, time.UTC)
+		var in []LotInput
+		for i := range 3 {
+			in = append(in, LotInput{Lot: string(rune('A' + i)), Time: t0.Add(time.Duration(i) * time.Hour), Inspected: 50, Count: 1, Categories: map[string]int64{"dent": 1}})
+		}
+		if _, err := db.AddLots(ctx, "t", p.ID, in); err != nil {
+			t.Fatal(err)
+		}
+		var walked []Lot
+		if err := db.EachLot(ctx, p.ID, time.Time{}, time.Time{}, func(l Lot) error { walked = append(walked, l); return nil }); err != nil {
+			t.Fatal(err)
+		}
+		lots, err := db.Lots(ctx, p.ID, time.Time{}, time.Time{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		walked[0].Categories["dent"] = 9
+		lots[0].Categories["dent"] = 9
+		for i, l := range append(walked[1:], lots[1:]...) {
+			if l.Categories["dent"] != 1 {
+				t.Errorf("lot %d read after another's map was changed: %v", i, l.Categories)
+			}
+		}
+	})
 }
 
 // An import entry written before imports listed their lots carries the

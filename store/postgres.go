@@ -1,0 +1,249 @@
+package store
+
+import (
+	"context"
+	"database/sql"
+	"database/sql/driver"
+	"errors"
+	"fmt"
+	"net/url"
+	"strings"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgconn"
+	"github.com/jackc/pgx/v5/stdlib"
+)
+
+// ErrBadURL is returned by Open for a postgres:// URL it cannot read.
+var ErrBadURL = errors.New("malformed database URL")
+
+// ErrUnreachable is returned by Open when the PostgreSQL server cannot be
+// reached or refuses the login.
+var ErrUnreachable = errors.New("cannot connect to the database server")
+
+// IsURL reports whether a --db value names a PostgreSQL database
+// (postgres:// or postgresql://) rather than a SQLite file.
+func IsURL(db string) bool {
+	l := strings.ToLower(db)
+	return strings.HasPrefix(l, "postgres://") || strings.HasPrefix(l, "postgresql://")
+}
+
+// Redact returns a --db value fit to print: a URL without its password
+// (user@host kept, so that the reader knows which server is meant), a
+// file path as it is.
+func Redact(db string) string {
+	if !IsURL(db) {
+		return db
+	}
+	u, err := url.Parse(db)
+	if err != nil {
+		// Cut everything between the scheme and the host: it may hold the
+		// password in a form url.Parse refused.
+		scheme, rest, _ := strings.Cut(db, "://")
+		if i := strings.LastIndex(rest, "@"); i >= 0 {
+			rest = rest[i+1:]
+		}
+		return scheme + "://" + rest
+	}
+	if u.User != nil {
+		u.User = url.User(u.User.Username())
+	}
+	q := u.Query()
+	if q.Has("password") {
+		q.Del("password")
+		u.RawQuery = q.Encode()
+	}
+	return u.String()
+}
+
+// secretsOf lists the texts of a URL that must never be printed: its
+// password, raw and decoded.
+func secretsOf(db string) []string {
+	var out []string
+	if u, err := url.Parse(db); err == nil {
+		if p, ok := u.User.Password(); ok && p != "" {
+			out = append(out, p, url.QueryEscape(p), url.PathEscape(p))
+		}
+		if p := u.Query().Get("password"); p != "" {
+			out = append(out, p, url.QueryEscape(p))
+		}
+	} else if _, rest, ok := strings.Cut(db, "://"); ok {
+		if at := strings.LastIndex(rest, "@"); at >= 0 {
+			if _, p, ok := strings.Cut(rest[:at], ":"); ok && p != "" {
+				out = append(out, p)
+			}
+		}
+	}
+	return out
+}
+
+// scrubbed is an error from the database driver with the password cut
+// out of its text (the driver's messages may quote the connection string).
+type scrubbed struct {
+	msg string
+	err error
+}
+
+func (e *scrubbed) Error() string { return e.msg }
+func (e *scrubbed) Unwrap() error { return e.err }
+
+func scrub(err error, secrets []string) error {
+	if err == nil {
+		return nil
+	}
+	msg := strings.ReplaceAll(err.Error(), "\n", "; ")
+	for _, s := range secrets {
+		msg = strings.ReplaceAll(msg, s, "********")
+	}
+	return &scrubbed{msg: msg, err: err}
+}
+
+// pgHost names the server of a connection configuration as host:port.
+func pgHost(cfg *pgconn.Config) string {
+	if strings.HasPrefix(cfg.Host, "/") {
+		return fmt.Sprintf("%s (port %d)", cfg.Host, cfg.Port)
+	}
+	return fmt.Sprintf("%s:%d", cfg.Host, cfg.Port)
+}
+
+// openPostgres opens the PostgreSQL database of the URL raw, applying the
+// migrations it lacks. The writer and the readers are connections of
+// their own, as on SQLite; the readers' transactions are read-only.
+func openPostgres(raw string) (*DB, error) {
+	name, secrets := Redact(raw), secretsOf(raw)
+	cfg, err := pgx.ParseConfig(raw)
+	if err != nil {
+		return nil, fmt.Errorf("store: %s: %w: %w", name, ErrBadURL, scrub(err, secrets))
+	}
+	if cfg.ConnectTimeout == 0 {
+		cfg.ConnectTimeout = 10 * time.Second
+	}
+	w := sql.OpenDB(rebindConnector{stdlib.GetConnector(*cfg)})
+	w.SetMaxOpenConns(1)
+	w.SetMaxIdleConns(1)
+	ctx, cancel := context.WithTimeout(context.Background(), cfg.ConnectTimeout+5*time.Second)
+	defer cancel()
+	if err := w.PingContext(ctx); err != nil {
+		w.Close()
+		return nil, fmt.Errorf("store: %s: %w at %s: %w", name, ErrUnreachable, pgHost(&cfg.Config), scrub(err, secrets))
+	}
+	if err := migrateWith(w, name, postgresDialect); err != nil {
+		w.Close()
+		return nil, scrub(err, secrets)
+	}
+	rcfg := cfg.Copy()
+	rcfg.RuntimeParams["default_transaction_read_only"] = "on"
+	r := sql.OpenDB(rebindConnector{stdlib.GetConnector(*rcfg)})
+	r.SetMaxOpenConns(8)
+	r.SetMaxIdleConns(8)
+	db := &DB{path: name, d: postgresDialect, w: w, r: r, jobs: make(chan *job, 256), quit: make(chan struct{}), done: make(chan struct{})}
+	if err := db.loadChain(ctx); err != nil {
+		w.Close()
+		r.Close()
+		return nil, scrub(err, secrets)
+	}
+	if err := db.prepareHot(); err != nil {
+		w.Close()
+		r.Close()
+		return nil, scrub(err, secrets)
+	}
+	go db.writer()
+	return db, nil
+}
+
+// rebindConnector hands out PostgreSQL connections that take the store's
+// queries as they are written, with ? placeholders: it numbers them $1,
+// $2, … (see rebind), so that each query of the store exists once.
+type rebindConnector struct{ driver.Connector }
+
+func (c rebindConnector) Connect(ctx context.Context) (driver.Conn, error) {
+	conn, err := c.Connector.Connect(ctx)
+	if err != nil {
+		return nil, err
+	}
+	return rebindConn{conn.(*stdlib.Conn)}, nil
+}
+
+type rebindConn struct{ *stdlib.Conn }
+
+func (c rebindConn) Prepare(q string) (driver.Stmt, error) { return c.Conn.Prepare(rebind(q)) }
+func (c rebindConn) PrepareContext(ctx context.Context, q string) (driver.Stmt, error) {
+	return c.Conn.PrepareContext(ctx, rebind(q))
+}
+func (c rebindConn) ExecContext(ctx context.Context, q string, args []driver.NamedValue) (driver.Result, error) {
+	return c.Conn.ExecContext(ctx, rebind(q), args)
+}
+func (c rebindConn) QueryContext(ctx context.Context, q string, args []driver.NamedValue) (driver.Rows, error) {
+	return c.Conn.QueryContext(ctx, rebind(q), args)
+}
+
+// rebind numbers the ? placeholders of q as $1, $2, …, leaving quoted
+// text, quoted names and comments alone.
+func rebind(q string) string {
+	if !strings.Contains(q, "?") {
+		return q
+	}
+	var b strings.Builder
+	n := 0
+	for i := 0; i < len(q); i++ {
+		c := q[i]
+		switch {
+		case c == '\'' || c == '"':
+			j := strings.IndexByte(q[i+1:], c)
+			if j < 0 {
+				b.WriteString(q[i:])
+				return b.String()
+			}
+			b.WriteString(q[i : i+j+2])
+			i += j + 1
+		case c == '-' && i+1 < len(q) && q[i+1] == '-':
+			j := strings.IndexByte(q[i:], '\n')
+			if j < 0 {
+				b.WriteString(q[i:])
+				return b.String()
+			}
+			b.WriteString(q[i : i+j])
+			i += j - 1
+		case c == '?':
+			n++
+			fmt.Fprintf(&b, "$%d", n)
+		default:
+			b.WriteByte(c)
+		}
+	}
+	return b.String()
+}
+
+// pgCode is the SQLSTATE of a PostgreSQL error, "" for other errors.
+func pgCode(err error) string {
+	var pe *pgconn.PgError
+	if errors.As(err, &pe) {
+		return pe.Code
+	}
+	return ""
+}
+
+// CheckNamedValue passes a Go bool as 0 or 1: the store's flags are
+// INTEGER columns on both databases, as SQLite stores them.
+func (c rebindConn) CheckNamedValue(nv *driver.NamedValue) error {
+	if b, ok := nv.Value.(bool); ok {
+		nv.Value = int64(0)
+		if b {
+			nv.Value = int64(1)
+		}
+		return nil
+	}
+	return c.Conn.CheckNamedValue(nv)
+}
+
+// rawPostgres opens the database of the URL as plain SQL with the store's
+// placeholders, without migrating it: for reading the tables of a
+// database that may not be a lotwatch one yet (and for tests).
+func rawPostgres(raw string) (*sql.DB, error) {
+	cfg, err := pgx.ParseConfig(raw)
+	if err != nil {
+		return nil, fmt.Errorf("store: %s: %w: %w", Redact(raw), ErrBadURL, scrub(err, secretsOf(raw)))
+	}
+	return sql.OpenDB(rebindConnector{stdlib.GetConnector(*cfg)}), nil
+}
