@@ -190,133 +190,137 @@ func TestImportBadInput(t *testing.T) {
 	if len(cases) < 40 {
 		t.Fatalf("the battery has %d cases; it promises at least 40", len(cases))
 	}
-	for _, c := range cases {
-		t.Run(c.name, func(t *testing.T) {
-			db, p := badInputDB(t)
-			before, auditBefore := exportOf(t, db, p), auditOf(t, db)
-			res, err := db.Import(context.Background(), "tester", strings.NewReader(c.file), ImportOptions{Process: p.Name})
-			if c.want == nil {
-				if err != nil {
-					t.Fatalf("a valid file was refused: %v", err)
+	forEachBackend(t, func(t *testing.T, open opener) {
+		for _, c := range cases {
+			t.Run(c.name, func(t *testing.T) {
+				db, p := badInputDB(t, open)
+				before, auditBefore := exportOf(t, db, p), auditOf(t, db)
+				res, err := db.Import(context.Background(), "tester", strings.NewReader(c.file), ImportOptions{Process: p.Name})
+				if c.want == nil {
+					if err != nil {
+						t.Fatalf("a valid file was refused: %v", err)
+					}
+					c.check(t, db, p, res)
+					return
 				}
-				c.check(t, db, p, res)
-				return
-			}
-			var ve *ValidationError
-			if !errors.As(err, &ve) || !errors.Is(err, ErrInvalid) {
-				t.Fatalf("error %T %v, want a *ValidationError", err, err)
-			}
-			for _, w := range c.want {
-				if !hasProblem(ve.Problems, w) {
-					t.Errorf("no problem like %+v among:\n%v", w, ve)
+				var ve *ValidationError
+				if !errors.As(err, &ve) || !errors.Is(err, ErrInvalid) {
+					t.Fatalf("error %T %v, want a *ValidationError", err, err)
 				}
-			}
-			for _, pr := range ve.Problems {
-				if pr.Line == 0 {
-					t.Errorf("problem without a line: %v", pr)
+				for _, w := range c.want {
+					if !hasProblem(ve.Problems, w) {
+						t.Errorf("no problem like %+v among:\n%v", w, ve)
+					}
 				}
-			}
-			if after := exportOf(t, db, p); after != before {
-				t.Errorf("a refused file changed the stored lots:\nbefore %q\nafter  %q", before, after)
-			}
-			if a := auditOf(t, db); a != auditBefore {
-				t.Errorf("a refused file changed the audit trail: %s, was %s", a, auditBefore)
-			}
-		})
-	}
+				for _, pr := range ve.Problems {
+					if pr.Line == 0 {
+						t.Errorf("problem without a line: %v", pr)
+					}
+				}
+				if after := exportOf(t, db, p); after != before {
+					t.Errorf("a refused file changed the stored lots:\nbefore %q\nafter  %q", before, after)
+				}
+				if a := auditOf(t, db); a != auditBefore {
+					t.Errorf("a refused file changed the audit trail: %s, was %s", a, auditBefore)
+				}
+			})
+		}
+	})
 }
 
 // TestImportManyProblemsCapped: a long bad file lists the first 100
 // problems with their lines and counts the rest, and writes nothing.
 func TestImportManyProblemsCapped(t *testing.T) {
-	db, p := badInputDB(t)
-	before := exportOf(t, db, p)
-	var b strings.Builder
-	b.WriteString(head)
-	for i := range 150 {
-		fmt.Fprintf(&b, "Q%d,2025-03-05 10:00,10,%d,,,\n", i, 11+i)
-	}
-	_, err := db.Import(context.Background(), "tester", strings.NewReader(b.String()), ImportOptions{Process: p.Name})
-	var ve *ValidationError
-	if !errors.As(err, &ve) || len(ve.Problems) != 100 || ve.More != 50 {
-		t.Fatalf("error %v, want 100 problems and 50 more", err)
-	}
-	if pr := ve.Problems[99]; pr.Line != 101 || pr.Value != "110" {
-		t.Errorf("100th problem %v, want line 101 value 110", pr)
-	}
-	if !strings.HasSuffix(err.Error(), "… and 50 more") {
-		t.Errorf("message does not say how many more: …%s", err.Error()[len(err.Error())-40:])
-	}
-	if exportOf(t, db, p) != before {
-		t.Error("a refused file changed the stored lots")
-	}
+	forEachBackend(t, func(t *testing.T, open opener) {
+		db, p := badInputDB(t, open)
+		before := exportOf(t, db, p)
+		var b strings.Builder
+		b.WriteString(head)
+		for i := range 150 {
+			fmt.Fprintf(&b, "Q%d,2025-03-05 10:00,10,%d,,,\n", i, 11+i)
+		}
+		_, err := db.Import(context.Background(), "tester", strings.NewReader(b.String()), ImportOptions{Process: p.Name})
+		var ve *ValidationError
+		if !errors.As(err, &ve) || len(ve.Problems) != 100 || ve.More != 50 {
+			t.Fatalf("error %v, want 100 problems and 50 more", err)
+		}
+		if pr := ve.Problems[99]; pr.Line != 101 || pr.Value != "110" {
+			t.Errorf("100th problem %v, want line 101 value 110", pr)
+		}
+		if !strings.HasSuffix(err.Error(), "… and 50 more") {
+			t.Errorf("message does not say how many more: …%s", err.Error()[len(err.Error())-40:])
+		}
+		if exportOf(t, db, p) != before {
+			t.Error("a refused file changed the stored lots")
+		}
+	})
 }
 
 // TestImportUnknownProcess: a file for a process that does not exist is
 // refused (not created) unless asked, and nothing is written.
 func TestImportUnknownProcess(t *testing.T) {
-	db, _ := badInputDB(t)
-	_, err := db.Import(context.Background(), "tester", strings.NewReader(head+"A1,2025-03-05 10:00,10,1,,,\n"), ImportOptions{Process: "no such line"})
-	if !errors.Is(err, ErrNotFound) || !strings.Contains(err.Error(), "no such line") {
-		t.Fatalf("error %v, want not found naming the process", err)
-	}
-	ps, _ := db.Processes(context.Background(), true)
-	if len(ps) != 1 {
-		t.Errorf("%d processes, want 1", len(ps))
-	}
+	forEachBackend(t, func(t *testing.T, open opener) {
+		db, _ := badInputDB(t, open)
+		_, err := db.Import(context.Background(), "tester", strings.NewReader(head+"A1,2025-03-05 10:00,10,1,,,\n"), ImportOptions{Process: "no such line"})
+		if !errors.Is(err, ErrNotFound) || !strings.Contains(err.Error(), "no such line") {
+			t.Fatalf("error %v, want not found naming the process", err)
+		}
+		ps, _ := db.Processes(context.Background(), true)
+		if len(ps) != 1 {
+			t.Errorf("%d processes, want 1", len(ps))
+		}
+	})
 }
 
 // TestAddLotsBadInput: the same rules through AddLots (the API and the
 // form): every problem names the lot's position and field, and a refused
 // batch stores nothing.
 func TestAddLotsBadInput(t *testing.T) {
-	db, p := badInputDB(t)
-	before, auditBefore := exportOf(t, db, p), auditOf(t, db)
-	future := time.Now().Add(48 * time.Hour)
-	cases := []struct {
-		in   LotInput
-		want want
-	}{
-		{LotInput{Lot: "A", Inspected: 0, Count: 0}, want{1, "inspected", "0", "greater than 0"}},
-		{LotInput{Lot: "A", Inspected: 10, Count: 11}, want{1, "defective", "11", "more than"}},
-		{LotInput{Lot: "A", Inspected: 10, Count: -1}, want{1, "defective", "-1", "negative"}},
-		{LotInput{Lot: "A", Inspected: -1 << 63, Count: 0}, want{1, "inspected", "-9223372036854775808", "greater than 0"}},
-		{LotInput{Lot: "", Inspected: 10, Count: 1}, want{1, "lot", "", "empty"}},
-		{LotInput{Lot: " A", Inspected: 10, Count: 1}, want{1, "lot", " A", "spaces"}},
-		{LotInput{Lot: "A\nB", Inspected: 10, Count: 1}, want{1, "lot", "A\nB", "control"}},
-		{LotInput{Lot: "A", Inspected: 10, Count: 1, Note: "\xff"}, want{1, "note", "\uFFFD", "UTF-8"}},
-		{LotInput{Lot: "A", Inspected: 10, Count: 1, Time: future}, want{1, "time", "", "future"}},
-		{LotInput{Lot: "A", Inspected: 10, Count: 1, Time: time.Date(1900, 1, 1, 0, 0, 0, 0, time.UTC)}, want{1, "time", "1900", "before 1970"}},
-		{LotInput{Lot: "A", Inspected: 10, Count: 1, Categories: map[string]int64{"paint": 1}}, want{1, "paint", "1", "not a defect category"}},
-		{LotInput{Lot: "S1", Inspected: 200, Count: 5}, want{}}, // conflict with the stored S1
-	}
-	for _, c := range cases {
-		_, err := db.AddLots(context.Background(), "tester", p.ID, []LotInput{{Lot: "OK1", Inspected: 10, Count: 1}, c.in})
-		if c.want.field == "" {
-			var ce *ConflictError
-			if !errors.As(err, &ce) || ce.Conflicts[0].Line != 2 || ce.Conflicts[0].Lot != "S1" {
-				t.Errorf("%+v: error %v, want a conflict at 2 naming S1", c.in, err)
+	forEachBackend(t, func(t *testing.T, open opener) {
+		db, p := badInputDB(t, open)
+		before, auditBefore := exportOf(t, db, p), auditOf(t, db)
+		future := time.Now().Add(48 * time.Hour)
+		cases := []struct {
+			in   LotInput
+			want want
+		}{
+			{LotInput{Lot: "A", Inspected: 0, Count: 0}, want{1, "inspected", "0", "greater than 0"}},
+			{LotInput{Lot: "A", Inspected: 10, Count: 11}, want{1, "defective", "11", "more than"}},
+			{LotInput{Lot: "A", Inspected: 10, Count: -1}, want{1, "defective", "-1", "negative"}},
+			{LotInput{Lot: "A", Inspected: -1 << 63, Count: 0}, want{1, "inspected", "-9223372036854775808", "greater than 0"}},
+			{LotInput{Lot: "", Inspected: 10, Count: 1}, want{1, "lot", "", "empty"}},
+			{LotInput{Lot: " A", Inspected: 10, Count: 1}, want{1, "lot", " A", "spaces"}},
+			{LotInput{Lot: "A\nB", Inspected: 10, Count: 1}, want{1, "lot", "A\nB", "control"}},
+			{LotInput{Lot: "A", Inspected: 10, Count: 1, Note: "\xff"}, want{1, "note", "\uFFFD", "UTF-8"}},
+			{LotInput{Lot: "A", Inspected: 10, Count: 1, Time: future}, want{1, "time", "", "future"}},
+			{LotInput{Lot: "A", Inspected: 10, Count: 1, Time: time.Date(1900, 1, 1, 0, 0, 0, 0, time.UTC)}, want{1, "time", "1900", "before 1970"}},
+			{LotInput{Lot: "A", Inspected: 10, Count: 1, Categories: map[string]int64{"paint": 1}}, want{1, "paint", "1", "not a defect category"}},
+			{LotInput{Lot: "S1", Inspected: 200, Count: 5}, want{}}, // conflict with the stored S1
+		}
+		for _, c := range cases {
+			_, err := db.AddLots(context.Background(), "tester", p.ID, []LotInput{{Lot: "OK1", Inspected: 10, Count: 1}, c.in})
+			if c.want.field == "" {
+				var ce *ConflictError
+				if !errors.As(err, &ce) || ce.Conflicts[0].Line != 2 || ce.Conflicts[0].Lot != "S1" {
+					t.Errorf("%+v: error %v, want a conflict at 2 naming S1", c.in, err)
+				}
+				continue
 			}
-			continue
+			c.want.line = 2
+			var ve *ValidationError
+			if !errors.As(err, &ve) || !hasProblem(ve.Problems, c.want) {
+				t.Errorf("%+v: error %v, want %+v", c.in, err, c.want)
+			}
 		}
-		c.want.line = 2
-		var ve *ValidationError
-		if !errors.As(err, &ve) || !hasProblem(ve.Problems, c.want) {
-			t.Errorf("%+v: error %v, want %+v", c.in, err, c.want)
+		if exportOf(t, db, p) != before || auditOf(t, db) != auditBefore {
+			t.Error("refused batches changed the store")
 		}
-	}
-	if exportOf(t, db, p) != before || auditOf(t, db) != auditBefore {
-		t.Error("refused batches changed the store")
-	}
+	})
 }
 
-func badInputDB(t *testing.T) (*DB, Process) {
+func badInputDB(t *testing.T, open opener) (*DB, Process) {
 	t.Helper()
-	db, err := Open(filepath.Join(t.TempDir(), "bad.db"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { db.Close() })
+	db, _ := open(t)
 	p, err := db.AddProcess(context.Background(), "tester", Process{Name: "weld", Chart: spc.ChartP, Categories: []string{"dent", "scratch"}, TimeZone: "UTC"})
 	if err != nil {
 		t.Fatal(err)

@@ -92,7 +92,7 @@ func scrub(err error, secrets []string) error {
 	if err == nil {
 		return nil
 	}
-	msg := strings.ReplaceAll(err.Error(), "\n", "; ")
+	msg := strings.Join(strings.Fields(err.Error()), " ") // one line
 	for _, s := range secrets {
 		msg = strings.ReplaceAll(msg, s, "********")
 	}
@@ -246,4 +246,20 @@ func rawPostgres(raw string) (*sql.DB, error) {
 		return nil, fmt.Errorf("store: %s: %w: %w", Redact(raw), ErrBadURL, scrub(err, secretsOf(raw)))
 	}
 	return sql.OpenDB(rebindConnector{stdlib.GetConnector(*cfg)}), nil
+}
+
+// Secrets returns the passwords of the database URLs among a command's
+// arguments (given as a value of their own or after "="), for masking
+// wherever the command prints.
+func Secrets(args []string) []string {
+	var out []string
+	for _, a := range args {
+		if i := strings.Index(a, "="); i >= 0 && strings.HasPrefix(a, "-") {
+			a = a[i+1:]
+		}
+		if IsURL(a) {
+			out = append(out, secretsOf(a)...)
+		}
+	}
+	return out
 }

@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"math/rand/v2"
-	"path/filepath"
 	"reflect"
 	"testing"
 	"time"
@@ -20,79 +19,77 @@ import (
 // corrections and voids among them. The reference is the row as stored
 // (a property of the store itself; no outside source applies).
 func TestReadPathsAgree(t *testing.T) {
-	ctx := context.Background()
-	db, err := Open(filepath.Join(t.TempDir(), "read.db"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer db.Close()
-	p, err := db.AddProcess(ctx, "t", Process{Name: "read paths", Chart: spc.ChartP, Method: spc.MethodSigma, K: 3,
-		Rules: "we", Categories: []string{"a", "b", "c"}, TimeZone: "Europe/Berlin", Active: true})
-	if err != nil {
-		t.Fatal(err)
-	}
-	rng := rand.New(rand.NewPCG(7, 11))
-	start := time.Date(2026, 3, 1, 6, 0, 0, 0, time.UTC)
-	var in []LotInput
-	for i := 0; i < 3000; i++ {
-		n := int64(50 + rng.IntN(200))
-		d := int64(rng.IntN(6))
-		cats := map[string]int64{"a": int64(rng.IntN(3)), "b": int64(rng.IntN(2))}
-		if rng.IntN(4) == 0 {
-			cats = nil // not recorded
-		}
-		note := ""
-		if rng.IntN(5) == 0 {
-			note = fmt.Sprintf("note %d", rng.IntN(40))
-		}
-		in = append(in, LotInput{Lot: fmt.Sprintf("R%05d", i), Time: start.Add(time.Duration(i) * 17 * time.Minute),
-			Shift: fmt.Sprintf("shift %d", rng.IntN(90)), Inspected: n, Count: d, Categories: cats,
-			Inspector: fmt.Sprintf("badge %d", rng.IntN(7)), Note: note})
-	}
-	stored, err := db.AddLots(ctx, "t", p.ID, in)
-	if err != nil {
-		t.Fatal(err)
-	}
-	for i := 0; i < 100; i++ {
-		l := stored[rng.IntN(len(stored))]
-		c := l.LotInput
-		c.Count = (c.Count + 1) % 5
-		c.Note = "corrected"
-		if _, err := db.CorrectLot(ctx, "t", "recount", l.ID, c); err != nil {
-			t.Fatal(err)
-		}
-	}
-	for i := 0; i < 20; i++ {
-		if err := db.VoidLot(ctx, "t", "wrong line", stored[5+i*137].ID); err != nil {
-			t.Fatal(err)
-		}
-	}
-	lots, err := db.Lots(ctx, p.ID, time.Time{}, time.Time{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	var walked []Lot
-	if err := db.EachLot(ctx, p.ID, time.Time{}, time.Time{}, func(l Lot) error {
-		l.Categories = cloneCounts(l.Categories)
-		walked = append(walked, l)
-		return nil
-	}); err != nil {
-		t.Fatal(err)
-	}
-	if len(lots) != len(walked) || len(lots) != len(stored)-20 {
-		t.Fatalf("Lots %d, EachLot %d", len(lots), len(walked))
-	}
-	for i, l := range lots {
-		ref, err := db.LotByID(ctx, l.ID)
+	forEachBackend(t, func(t *testing.T, open opener) {
+		ctx := context.Background()
+		db, _ := open(t)
+		p, err := db.AddProcess(ctx, "t", Process{Name: "read paths", Chart: spc.ChartP, Method: spc.MethodSigma, K: 3,
+			Rules: "we", Categories: []string{"a", "b", "c"}, TimeZone: "Europe/Berlin", Active: true})
 		if err != nil {
 			t.Fatal(err)
 		}
-		for _, got := range []Lot{l, walked[i]} {
-			if !sameLot(got, ref) {
-				t.Fatalf("lot %s read as\n%+v\nstored\n%+v", l.Lot, got, ref)
+		rng := rand.New(rand.NewPCG(7, 11))
+		start := time.Date(2026, 3, 1, 6, 0, 0, 0, time.UTC)
+		var in []LotInput
+		for i := 0; i < 3000; i++ {
+			n := int64(50 + rng.IntN(200))
+			d := int64(rng.IntN(6))
+			cats := map[string]int64{"a": int64(rng.IntN(3)), "b": int64(rng.IntN(2))}
+			if rng.IntN(4) == 0 {
+				cats = nil // not recorded
+			}
+			note := ""
+			if rng.IntN(5) == 0 {
+				note = fmt.Sprintf("note %d", rng.IntN(40))
+			}
+			in = append(in, LotInput{Lot: fmt.Sprintf("R%05d", i), Time: start.Add(time.Duration(i) * 17 * time.Minute),
+				Shift: fmt.Sprintf("shift %d", rng.IntN(90)), Inspected: n, Count: d, Categories: cats,
+				Inspector: fmt.Sprintf("badge %d", rng.IntN(7)), Note: note})
+		}
+		stored, err := db.AddLots(ctx, "t", p.ID, in)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for i := 0; i < 100; i++ {
+			l := stored[rng.IntN(len(stored))]
+			c := l.LotInput
+			c.Count = (c.Count + 1) % 5
+			c.Note = "corrected"
+			if _, err := db.CorrectLot(ctx, "t", "recount", l.ID, c); err != nil {
+				t.Fatal(err)
 			}
 		}
-	}
+		for i := 0; i < 20; i++ {
+			if err := db.VoidLot(ctx, "t", "wrong line", stored[5+i*137].ID); err != nil {
+				t.Fatal(err)
+			}
+		}
+		lots, err := db.Lots(ctx, p.ID, time.Time{}, time.Time{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var walked []Lot
+		if err := db.EachLot(ctx, p.ID, time.Time{}, time.Time{}, func(l Lot) error {
+			l.Categories = cloneCounts(l.Categories)
+			walked = append(walked, l)
+			return nil
+		}); err != nil {
+			t.Fatal(err)
+		}
+		if len(lots) != len(walked) || len(lots) != len(stored)-20 {
+			t.Fatalf("Lots %d, EachLot %d", len(lots), len(walked))
+		}
+		for i, l := range lots {
+			ref, err := db.LotByID(ctx, l.ID)
+			if err != nil {
+				t.Fatal(err)
+			}
+			for _, got := range []Lot{l, walked[i]} {
+				if !sameLot(got, ref) {
+					t.Fatalf("lot %s read as\n%+v\nstored\n%+v", l.Lot, got, ref)
+				}
+			}
+		}
+	})
 }
 
 func cloneCounts(m map[string]int64) map[string]int64 {

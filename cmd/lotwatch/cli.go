@@ -127,7 +127,7 @@ func cliStoreError(stderr io.Writer, cmd, file string, err error) int {
 		return exitUsage
 	}
 	fmt.Fprintf(stderr, "lotwatch %s: %v\n", cmd, err)
-	if errors.Is(err, store.ErrNotFound) || errors.Is(err, store.ErrConflict) || errors.Is(err, store.ErrInvalid) || errors.Is(err, store.ErrNewerSchema) {
+	if errors.Is(err, store.ErrNotFound) || errors.Is(err, store.ErrConflict) || errors.Is(err, store.ErrInvalid) || errors.Is(err, store.ErrNewerSchema) || errors.Is(err, store.ErrBadURL) {
 		return exitUsage
 	}
 	return exitFail
@@ -170,11 +170,33 @@ func cliOpen(stderr io.Writer, cmd, path string) (*store.DB, int, bool) {
 	return db, 0, true
 }
 
+// cliNoFile reports a --db value that names no file. A PostgreSQL URL is
+// not a file: it is checked when it is opened.
+func cliNoFile(db string) bool {
+	if store.IsURL(db) {
+		return false
+	}
+	_, err := os.Stat(db)
+	return err != nil
+}
+
+// cliNotAFile is cliNoFile, also for a folder.
+func cliNotAFile(db string) bool {
+	if store.IsURL(db) {
+		return false
+	}
+	st, err := os.Stat(db)
+	return err != nil || st.IsDir()
+}
+
 // statsUsage collects the usage problems of one command invocation, one
 // line each, so that all of them are reported at once.
 type statsUsage struct {
 	cmd      string
 	problems []string
+	// failed: a problem is not the command line's but the database
+	// server's (unreachable, login refused): exitFail, not exitUsage.
+	failed bool
 }
 
 func (u *statsUsage) addf(format string, a ...any) {
@@ -189,6 +211,9 @@ func (u *statsUsage) report(stderr io.Writer) int {
 	}
 	for _, p := range u.problems {
 		fmt.Fprintf(stderr, "lotwatch %s: %s\n", u.cmd, p)
+	}
+	if u.failed {
+		return exitFail
 	}
 	return exitUsage
 }

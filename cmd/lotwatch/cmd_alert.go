@@ -7,7 +7,6 @@ import (
 	"flag"
 	"fmt"
 	"io"
-	"os"
 	"strconv"
 	"strings"
 	"text/tabwriter"
@@ -83,7 +82,7 @@ func cliExistingDB(path string) []string {
 	if path == "" {
 		return nil
 	}
-	if _, err := os.Stat(path); err != nil {
+	if cliNoFile(path) {
 		return []string{fmt.Sprintf("--db %q: no such database file", path)}
 	}
 	return nil

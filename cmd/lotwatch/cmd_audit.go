@@ -4,7 +4,6 @@ import (
 	"context"
 	"fmt"
 	"io"
-	"os"
 )
 
 func init() {
@@ -61,7 +60,7 @@ func runAudit(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	if len(probs) > 0 {
 		return cliProblems(stderr, "audit verify", probs...)
 	}
-	if _, err := os.Stat(*dbPath); err != nil {
+	if cliNoFile(*dbPath) {
 		return cliProblems(stderr, "audit verify", fmt.Sprintf("--db %s: no such database file", *dbPath))
 	}
 	db, code, ok := cliOpen(stderr, "audit verify", *dbPath)

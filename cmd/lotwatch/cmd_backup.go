@@ -5,7 +5,6 @@ import (
 	"errors"
 	"fmt"
 	"io"
-	"os"
 
 	"lotwatch/store"
 )
@@ -68,7 +67,7 @@ func runBackup(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	if len(probs) > 0 {
 		return cliProblems(stderr, "backup", probs...)
 	}
-	if _, err := os.Stat(*dbPath); err != nil {
+	if cliNoFile(*dbPath) {
 		return cliProblems(stderr, "backup", fmt.Sprintf("--db %s: no such database file", *dbPath))
 	}
 	db, code, ok := cliOpen(stderr, "backup", *dbPath)
@@ -80,7 +79,7 @@ func runBackup(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		fmt.Fprintf(stderr, "lotwatch backup: %v\n", err)
 		return exitFail
 	}
-	fmt.Fprintf(stdout, "backed up %s to %s\n", *dbPath, *to)
+	fmt.Fprintf(stdout, "backed up %s to %s\n", store.Redact(*dbPath), *to)
 	return exitOK
 }
 

@@ -5,7 +5,6 @@ import (
 	"context"
 	"fmt"
 	"io"
-	"os"
 	"time"
 
 	"lotwatch/store"
@@ -60,7 +59,7 @@ func runExport(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	if len(probs) > 0 {
 		return cliProblems(stderr, "export", probs...)
 	}
-	if _, err := os.Stat(*dbPath); err != nil {
+	if cliNoFile(*dbPath) {
 		return cliProblems(stderr, "export", fmt.Sprintf("--db %s: no such database file", *dbPath))
 	}
 	db, code, ok := cliOpen(stderr, "export", *dbPath)

@@ -7,7 +7,6 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"os"
 	"strconv"
 	"strings"
 
@@ -306,13 +305,14 @@ func planProcessCentre(u *statsUsage, name, dbPath, p0s string) (float64, string
 		u.addf("--process %q needs --db, the lotwatch database holding it", name)
 		return math.NaN(), ""
 	}
-	if st, err := os.Stat(dbPath); err != nil || st.IsDir() {
+	if cliNotAFile(dbPath) {
 		u.addf("--db %q is not a lotwatch database file (no such file)", dbPath)
 		return math.NaN(), ""
 	}
 	db, err := store.Open(dbPath)
 	if err != nil {
-		u.addf("--db %q: %v", dbPath, err)
+		u.addf("--db %q: %v", store.Redact(dbPath), err)
+		u.failed = !errors.Is(err, store.ErrBadURL) // the server, not the command line
 		return math.NaN(), ""
 	}
 	defer db.Close()

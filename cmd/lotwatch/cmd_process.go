@@ -6,7 +6,6 @@ import (
 	"flag"
 	"fmt"
 	"io"
-	"os"
 	"strconv"
 	"strings"
 	"text/tabwriter"
@@ -266,7 +265,7 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 	if len(probs) > 0 {
 		return cliProblems(stderr, "process update", probs...)
 	}
-	if _, err := os.Stat(*dbPath); err != nil {
+	if cliNoFile(*dbPath) {
 		return cliProblems(stderr, "process update", fmt.Sprintf("--db %s: no such database file", *dbPath))
 	}
 	db, code, ok := cliOpen(stderr, "process update", *dbPath)
@@ -365,7 +364,7 @@ func runProcessList(args []string, stdout, stderr io.Writer) int {
 	if len(probs) > 0 {
 		return cliProblems(stderr, "process list", probs...)
 	}
-	if _, err := os.Stat(*dbPath); err != nil {
+	if cliNoFile(*dbPath) {
 		return cliProblems(stderr, "process list", fmt.Sprintf("--db %s: no such database file", *dbPath))
 	}
 	db, code, ok := cliOpen(stderr, "process list", *dbPath)

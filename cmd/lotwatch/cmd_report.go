@@ -7,7 +7,6 @@ import (
 	"flag"
 	"fmt"
 	"io"
-	"os"
 	"strings"
 
 	"lotwatch/spc"
@@ -100,7 +99,7 @@ func runReport(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	u := &statsUsage{cmd: "report"}
 	if *dbPath == "" {
 		u.addf("--db is required: the lotwatch database file")
-	} else if st, err := os.Stat(*dbPath); err != nil || st.IsDir() {
+	} else if cliNotAFile(*dbPath) {
 		u.addf("--db %q is not a lotwatch database file (no such file)", *dbPath)
 	}
 	u.week(*week)
@@ -123,7 +122,10 @@ func runReport(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 
 	db, err := store.Open(*dbPath)
 	if err != nil {
-		fmt.Fprintf(stderr, "lotwatch report: --db %q: %v\n", *dbPath, err)
+		fmt.Fprintf(stderr, "lotwatch report: --db %q: %v\n", store.Redact(*dbPath), err)
+		if errors.Is(err, store.ErrBadURL) {
+			return exitUsage
+		}
 		return exitFail
 	}
 	defer db.Close()

@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
 	"log/slog"
@@ -85,7 +86,7 @@ Options:
 		fmt.Fprintf(stderr, "lotwatch serve: --proxy-addr: %v\n", err)
 		return exitUsage
 	}
-	if _, err := os.Stat(*dbPath); err != nil {
+	if _, err := os.Stat(*dbPath); err != nil && !store.IsURL(*dbPath) {
 		fmt.Fprintf(stderr, "lotwatch serve: database %s: %v (create it first, e.g. with `lotwatch demo`)\n", *dbPath, err)
 		return exitUsage
 	}
@@ -98,6 +99,9 @@ Options:
 	db, err := store.Open(*dbPath)
 	if err != nil {
 		fmt.Fprintf(stderr, "lotwatch serve: %v\n", err)
+		if errors.Is(err, store.ErrBadURL) {
+			return exitUsage
+		}
 		return exitFail
 	}
 	if db.ReadOnly() {

@@ -180,7 +180,7 @@ func runUserList(args []string, stdout, stderr io.Writer) int {
 	if len(probs) > 0 {
 		return cliProblems(stderr, "user list", probs...)
 	}
-	if _, err := os.Stat(*dbPath); err != nil {
+	if cliNoFile(*dbPath) {
 		return cliProblems(stderr, "user list", fmt.Sprintf("--db %s: no such database file", *dbPath))
 	}
 	db, code, ok := cliOpen(stderr, "user list", *dbPath)
@@ -270,7 +270,7 @@ func runToken(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	if len(probs) > 0 {
 		return cliProblems(stderr, cmd, probs...)
 	}
-	if _, err := os.Stat(*dbPath); err != nil {
+	if cliNoFile(*dbPath) {
 		return cliProblems(stderr, cmd, fmt.Sprintf("--db %s: no such database file", *dbPath))
 	}
 	db, code, ok := cliOpen(stderr, cmd, *dbPath)

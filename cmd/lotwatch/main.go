@@ -11,6 +11,9 @@ import (
 	"io"
 	"os"
 	"sort"
+	"strings"
+
+	"lotwatch/store"
 )
 
 // exit codes shared by every subcommand.
@@ -59,6 +62,11 @@ func run(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		usage(stdout)
 		return exitOK
 	}
+	if secrets := store.Secrets(args); len(secrets) > 0 {
+		// A database URL's password never reaches the output, whatever
+		// message would quote the URL.
+		stdout, stderr = scrubWriter{stdout, secrets}, scrubWriter{stderr, secrets}
+	}
 	c, ok := commands[name]
 	if !ok {
 		fmt.Fprintf(stderr, "lotwatch: unknown command %q; run `lotwatch help` for the list\n", name)
@@ -96,3 +104,20 @@ specification, and lotwatch does not replace the plant's release or
 acceptance procedure. Defer to the quality system, customer requirements
 and local regulations.
 `
+
+// scrubWriter writes through to w with every secret masked.
+type scrubWriter struct {
+	w       io.Writer
+	secrets []string
+}
+
+func (s scrubWriter) Write(p []byte) (int, error) {
+	t := string(p)
+	for _, sec := range s.secrets {
+		t = strings.ReplaceAll(t, sec, "********")
+	}
+	if _, err := io.WriteString(s.w, t); err != nil {
+		return 0, err
+	}
+	return len(p), nil
+}
