@@ -95,10 +95,71 @@ func (sum *procSummary) today(midnight time.Time) (lots, out, signals int, ok bo
 	return lots, out, signals, true
 }
 
-// summaryCache holds one summary per process.
+// summaryCache holds one summary per process, within a size limit.
 type summaryCache struct {
-	mu  sync.Mutex
-	sum map[int64]*procSummary
+	mu      sync.Mutex
+	sum     map[int64]*procSummary
+	entries int // the entries the kept summaries hold (procSummary.size)
+	// maxEntries overrides summaryCacheEntries when set (tests).
+	maxEntries int
+}
+
+// summaryCacheEntries bounds the summaries kept, in entries: flagged lots,
+// the lots of signals and recent lot times, some 100 bytes each, so about
+// 50 MB in all whatever the length of the records. A plant of 500
+// processes with two years of three lots a day holds some 200,000. The
+// board and the review read every active process's summary in turn,
+// which a least-recently-used cache would evict just before it is needed
+// again; so a summary that does not fit serves the request that built it
+// and is not kept, while the kept ones stay until newer lots replace them
+// or their process is retired.
+const summaryCacheEntries = 500_000
+
+// size is the entries the summary holds, for the cache's limit.
+func (sum *procSummary) size() int { return 1 + sum.flagged.Size() + len(sum.recent) }
+
+// keep stores sum unless a newer summary of its process is kept or it
+// does not fit within the limit. The caller holds c.mu.
+func (c *summaryCache) keep(sum *procSummary) {
+	if c.sum == nil {
+		c.sum = map[int64]*procSummary{}
+	}
+	id := sum.proc.ID
+	if old := c.sum[id]; old != nil {
+		if old.version.Version > sum.version.Version {
+			return
+		}
+		c.entries -= old.size()
+		delete(c.sum, id)
+	}
+	limit := summaryCacheEntries
+	if c.maxEntries > 0 {
+		limit = c.maxEntries
+	}
+	if n := sum.size(); c.entries+n <= limit {
+		c.sum[id] = sum
+		c.entries += n
+	}
+}
+
+// prune drops the summaries of processes not in active (retired or
+// removed), so that they make room for the others.
+func (c *summaryCache) prune(active map[int64]bool) {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	for id, sum := range c.sum {
+		if !active[id] {
+			c.entries -= sum.size()
+			delete(c.sum, id)
+		}
+	}
+}
+
+// size is the number of summaries kept and the entries they hold.
+func (c *summaryCache) size() (summaries, entries int) {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	return len(c.sum), c.entries
 }
 
 // summaryOf returns the process's summary as of version v or later.
@@ -118,12 +179,7 @@ func (s *Server) summaryOf(ctx context.Context, p store.Process, v store.LotsVer
 		return nil, err
 	}
 	c.mu.Lock()
-	if c.sum == nil {
-		c.sum = map[int64]*procSummary{}
-	}
-	if old := c.sum[p.ID]; old == nil || old.version.Version <= v.Version {
-		c.sum[p.ID] = sum
-	}
+	c.keep(sum)
 	c.mu.Unlock()
 	return sum, nil
 }
@@ -158,6 +214,11 @@ func (s *Server) plant(ctx context.Context) ([]plantProcess, error) {
 	for _, a := range all {
 		anns[a.ProcessID] = append(anns[a.ProcessID], a)
 	}
+	active := make(map[int64]bool, len(ps))
+	for _, p := range ps {
+		active[p.ID] = true
+	}
+	s.summaries.prune(active)
 	out := make([]plantProcess, len(ps))
 	var wg sync.WaitGroup
 	sem := make(chan struct{}, 4) // charts to judge are judged a few at a time

@@ -2,6 +2,7 @@ package web
 
 import (
 	"context"
+	"fmt"
 	"html"
 	"maps"
 	"net/http"
@@ -11,6 +12,7 @@ import (
 	"testing"
 	"time"
 
+	"lotwatch/spc"
 	"lotwatch/store"
 )
 
@@ -293,5 +295,79 @@ func TestWorklistSignalLink(t *testing.T) {
 	}
 	if page := e.do(req{method: "GET", path: html.UnescapeString(links[0][1]), cookie: c}).Body.String(); !strings.Contains(page, "That signal has no lots needing attention any more") {
 		t.Errorf("the explained signal's link does not say it is explained")
+	}
+}
+
+// TestSummaryCacheLimit: the process summaries the board keeps stay
+// within their size limit; a process whose summary does not fit is judged
+// for each request and shown the same, and retiring a process frees its
+// room.
+func TestSummaryCacheLimit(t *testing.T) {
+	e := newTestEnv(t)
+	ctx := context.Background()
+	e.addLots(t, 30, func(i int) int64 {
+		if i == 12 {
+			return 40 // far beyond the limits: one flagged lot
+		}
+		return int64(2 + i%3)
+	})
+	var others []store.Process
+	for i := range 3 {
+		p, err := e.db.AddProcess(ctx, "setup", store.Process{Name: fmt.Sprintf("Press %d", i), Chart: spc.ChartP, Method: spc.MethodSigma, K: 3,
+			Rules: "we", TimeZone: "UTC", Active: true})
+		if err != nil {
+			t.Fatal(err)
+		}
+		in := make([]store.LotInput, 20)
+		for j := range in {
+			in[j] = store.LotInput{Lot: fmt.Sprintf("P%d-%02d", i, j), Time: e.clock.Now().Add(-time.Duration(30-j) * time.Hour), Inspected: 100, Count: int64(1 + j%2)}
+		}
+		if _, err := e.db.AddLots(ctx, "setup", p.ID, in); err != nil {
+			t.Fatal(err)
+		}
+		others = append(others, p)
+	}
+	// The first process's summary: itself, its flagged lot (and the we1
+	// signal's lot) and its lots of the last 48 hours.
+	pc, err := e.srv.freshChart(ctx, e.proc)
+	if err != nil {
+		t.Fatal(err)
+	}
+	one, err := summarize(pc, store.LotsVersion{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	e.srv.summaries.maxEntries = one.size() + 25 // room for it and one other at most
+	c := e.signIn(t, "viewer1", testPassword)
+	var first string
+	for k := range 3 {
+		rec := e.do(req{method: "GET", path: "/?view=table", cookie: c})
+		if rec.Code != 200 {
+			t.Fatalf("board: %d", rec.Code)
+		}
+		kept, entries := e.srv.summaries.size()
+		if entries > e.srv.summaries.maxEntries || kept >= 4 || kept == 0 {
+			t.Errorf("board %d: %d summaries of %d entries kept, limit %d", k, kept, entries, e.srv.summaries.maxEntries)
+		}
+		body := rec.Body.String()
+		if k == 0 {
+			first = body
+		} else if body != first {
+			t.Errorf("board %d differs from the first", k)
+		}
+		if !strings.Contains(body, "need attention in 1 process") {
+			t.Errorf("board %d lacks the lots needing attention", k)
+		}
+	}
+	// Retire every process but one: the others' summaries leave.
+	for _, p := range append(others[1:], e.proc) {
+		p.Active = false
+		if _, err := e.db.UpdateProcess(ctx, "setup", "line closed", p); err != nil {
+			t.Fatal(err)
+		}
+	}
+	e.do(req{method: "GET", path: "/?view=table", cookie: c})
+	if kept, _ := e.srv.summaries.size(); kept != 1 {
+		t.Errorf("%d summaries kept with one active process", kept)
 	}
 }

@@ -127,6 +127,33 @@ func (s *Server) boardPage(w http.ResponseWriter, r *http.Request) {
 	s.render(w, r, http.StatusOK, "board.html", "Status board", d)
 }
 
+// warmUp judges every active process's record once when the server
+// starts, in the background, and keeps the summaries the status board,
+// the worklist and the weekly review read: judging a plant's whole record
+// takes seconds (mostly reading every lot), which the first person to
+// open the board after a start would otherwise wait through. A request
+// arriving meanwhile judges only the processes not yet done.
+func (s *Server) warmUp(ctx context.Context) {
+	t0 := time.Now()
+	pps, err := s.plant(ctx)
+	if err != nil {
+		if ctx.Err() == nil {
+			s.log.Warn("judging the plant at start", "err", err)
+		}
+		return
+	}
+	if ctx.Err() != nil {
+		return // the server stopped first
+	}
+	failed := 0
+	for _, pp := range pps {
+		if pp.err != nil {
+			failed++
+		}
+	}
+	s.log.Info("judged the plant at start", "processes", len(pps), "failed", failed, "took", time.Since(t0).Round(time.Millisecond))
+}
+
 // keeps reports whether the row passes the board's filter: a part of the
 // name (any case), a state ("attention" for out or signal) and an area.
 func (d *boardData) keeps(row boardRow) bool {

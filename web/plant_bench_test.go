@@ -65,15 +65,19 @@ func heapMB() float64 {
 	return float64(m.HeapAlloc) / 1e6
 }
 
-// BenchmarkBoardPlant: the status board (table view) and the attention
-// list at plant scale, 500 processes (LOTWATCH_BENCH_PROCESSES) of 2,190
-// lots (1.1 M lots). Reported: the first board (every chart judged:
-// "cold"), the board and GET /api/v1/attention once the process
-// summaries are kept ("warm"; the board also in processor time, which a
-// machine shared with other work does not inflate), the live heap of the whole test process
-// with the server warm and the lots its chart cache holds, and, as the
-// baseline measured in the same run, the read of every lot of every
-// process from the store; "ratio" is the warm board over that read.
+// BenchmarkBoardPlant: the status board (table view), the attention list
+// and the weekly review page at plant scale, 500 processes
+// (LOTWATCH_BENCH_PROCESSES) of 2,190 lots (1.1 M lots). Reported: the
+// first board (every chart judged: "cold"), the board and GET
+// /api/v1/attention once the process summaries are kept ("warm"; the
+// board also in processor time, which a machine shared with other work
+// does not inflate), the review page of the last complete week with the
+// summaries kept (warm) and as the first page a newly started server
+// serves (cold), the live heap of the whole test process with the server
+// warm, the lots its chart cache holds and the entries its summaries hold,
+// and, as the baseline measured in the same run, the read of every lot of
+// every process from the store; "ratio" is the warm board over that read,
+// "review-ratio" and "cold-review-ratio" the reviews over it.
 func BenchmarkBoardPlant(b *testing.B) {
 	procs := 500
 	if v := os.Getenv("LOTWATCH_BENCH_PROCESSES"); v != "" {
@@ -140,14 +144,40 @@ func BenchmarkBoardPlant(b *testing.B) {
 			shifted[l.ProcessID] = true
 		}
 	}
+	review := func() (time.Duration, string) {
+		t0 := time.Now()
+		rec := e.do(req{method: "GET", path: "/review", cookie: cookie})
+		if rec.Code != 200 {
+			b.Fatalf("review: %d", rec.Code)
+		}
+		return time.Since(t0), rec.Body.String()
+	}
+	review()
+	warmReview, reviewPage := review()
 	heap := heapMB()
 	charts, lots := e.srv.judges.cachedLots()
+	summaries, entries := e.srv.summaries.size()
+	// A newly started server on the same database: its first page is the
+	// review, which judges every record.
+	srv, err := NewServer(Config{DB: e.db, Now: e.clock.Now, Logger: e.srv.log})
+	if err != nil {
+		b.Fatal(err)
+	}
+	e.srv, e.h = srv, srv.Handler()
+	coldReview, _ := review()
 	b.ReportMetric(float64(warm.Microseconds())/1e3, "ms/board")
 	b.ReportMetric(float64(warmCPU.Microseconds())/1e3, "cpu-ms/board")
 	b.ReportMetric(float64(cold.Milliseconds()), "ms/cold-board")
 	b.ReportMetric(float64(list.Milliseconds()), "ms/attention")
 	b.ReportMetric(float64(base.Milliseconds()), "ms/read-all")
 	b.ReportMetric(float64(warm)/float64(base), "ratio")
+	b.ReportMetric(float64(warmReview.Milliseconds()), "ms/review")
+	b.ReportMetric(float64(coldReview.Milliseconds()), "ms/cold-review")
+	b.ReportMetric(float64(warmReview)/float64(base), "review-ratio")
+	b.ReportMetric(float64(coldReview)/float64(base), "cold-review-ratio")
+	b.ReportMetric(float64(len(reviewPage))/1e6, "MB/review-page")
+	b.ReportMetric(float64(summaries), "summaries")
+	b.ReportMetric(float64(entries), "summary-entries")
 	b.ReportMetric(heap, "MB/heap")
 	b.ReportMetric(heap-before, "MB/server")
 	b.ReportMetric(float64(lots), "cached-lots")

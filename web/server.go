@@ -161,6 +161,10 @@ func (s *Server) Serve(ctx context.Context, ln net.Listener) error {
 	alertsDone := make(chan struct{})
 	go func() { defer close(alertsDone); s.alerts.Run(actx) }()
 	defer func() { stopAlerts(); <-alertsDone }()
+	warmCtx, stopWarm := context.WithCancel(context.WithoutCancel(ctx))
+	warmDone := make(chan struct{})
+	go func() { defer close(warmDone); s.warmUp(warmCtx) }()
+	defer func() { stopWarm(); <-warmDone }()
 	errc := make(chan error, 1)
 	go func() {
 		if s.cert != "" {
