@@ -55,7 +55,7 @@ func (s *Server) adminFail(w http.ResponseWriter, r *http.Request, err error, va
 		if errors.Is(err, store.ErrConflict) {
 			msg = "a user of that name already exists"
 		}
-		s.showAdmin(w, r, http.StatusBadRequest, adminData{Problem: "Not done: " + msg, Values: vals})
+		s.showAdmin(w, r, statusOf(errFormRefused), adminData{Problem: "Not done: " + msg, Values: vals})
 		return
 	}
 	s.internalError(w, r, err)
@@ -94,7 +94,7 @@ func (s *Server) setUserActive(w http.ResponseWriter, r *http.Request) {
 	}
 	active := r.PostFormValue("active") == "1"
 	if !active && name == who(r).user.Name {
-		s.showAdmin(w, r, http.StatusBadRequest, adminData{Problem: "You cannot deactivate yourself."})
+		s.showAdmin(w, r, statusOf(errFormRefused), adminData{Problem: "You cannot deactivate yourself."})
 		return
 	}
 	reason := strings.TrimSpace(r.PostFormValue("reason"))

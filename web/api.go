@@ -132,26 +132,18 @@ func (s *Server) pathProcess(w http.ResponseWriter, r *http.Request) (store.Proc
 	}
 	p, err := s.db.Process(r.Context(), id)
 	if errors.Is(err, store.ErrNotFound) {
-		if isAPI(r) {
-			writeError(w, http.StatusNotFound, "no process with id "+raw)
-		} else {
-			s.pageError(w, r, http.StatusNotFound, "There is no process with id "+raw+".")
-		}
-		return store.Process{}, false
+		err = refuse(store.ErrNotFound, "no process with id "+raw, "There is no process with id "+raw+".")
 	}
 	if err != nil {
-		s.internalError(w, r, err)
+		s.fail(w, r, err)
 		return store.Process{}, false
 	}
 	return p, true
 }
 
+// badRequest answers bad input told in msg (400), on a page or in the API.
 func (s *Server) badRequest(w http.ResponseWriter, r *http.Request, msg string) {
-	if isAPI(r) {
-		writeError(w, http.StatusBadRequest, msg)
-		return
-	}
-	s.pageError(w, r, http.StatusBadRequest, msg)
+	s.fail(w, r, invalid(msg))
 }
 
 func (s *Server) apiMe(w http.ResponseWriter, r *http.Request) {
@@ -195,12 +187,12 @@ func (s *Server) apiWindowedChart(w http.ResponseWriter, r *http.Request) (*proc
 	}
 	win, err := parseWindow(r.URL.Query(), p.Location())
 	if err != nil {
-		writeError(w, http.StatusBadRequest, err.Error())
+		s.fail(w, r, invalidBecause(err))
 		return nil, window{}, false
 	}
 	pc, err := s.freshChart(r.Context(), p)
 	if err != nil {
-		s.internalError(w, r, err)
+		s.fail(w, r, err)
 		return nil, window{}, false
 	}
 	return pc, win, true
@@ -211,7 +203,7 @@ func (s *Server) apiWindowedChart(w http.ResponseWriter, r *http.Request) (*proc
 func (s *Server) apiChart(w http.ResponseWriter, r *http.Request) {
 	pg, err := parseChartPage(r.URL.Query())
 	if err != nil {
-		writeError(w, http.StatusBadRequest, err.Error())
+		s.fail(w, r, invalidBecause(err))
 		return
 	}
 	if pc, win, ok := s.apiWindowedChart(w, r); ok {
@@ -227,7 +219,7 @@ func (s *Server) apiLots(w http.ResponseWriter, r *http.Request) {
 	loc := p.Location()
 	win, err := parseWindow(r.URL.Query(), loc)
 	if err != nil {
-		writeError(w, http.StatusBadRequest, err.Error())
+		s.fail(w, r, invalidBecause(err))
 		return
 	}
 	to := win.to
@@ -260,11 +252,7 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 	loc := p.Location()
 	ins, lp, err := decodeLots(r.Body, loc)
 	if err != nil {
-		if statusOf(err) == http.StatusRequestEntityTooLarge {
-			s.fail(w, r, err)
-			return
-		}
-		writeError(w, http.StatusBadRequest, err.Error())
+		s.fail(w, r, invalidBecause(err))
 		return
 	}
 	if !lp.any() {
@@ -275,7 +263,7 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 		}
 	}
 	if lp.any() {
-		writeJSON(w, http.StatusBadRequest, lp.answer())
+		s.fail(w, r, lp)
 		return
 	}
 	actor := who(r).user.Name
@@ -291,10 +279,10 @@ func (s *Server) apiPostLots(w http.ResponseWriter, r *http.Request) {
 			lp.add(i, lotField(pr.Field), pr.Value, pr.Reason)
 		}
 		lp.more += ve.More
-		writeJSON(w, http.StatusBadRequest, lp.answer())
+		s.fail(w, r, lp)
 		return
 	case errors.Is(err, store.ErrConflict):
-		writeError(w, http.StatusConflict, strings.ReplaceAll(err.Error(), "\n", "; ")+"; nothing was stored (a stored lot is changed by correcting it, which keeps its history)")
+		s.fail(w, r, refuse(store.ErrConflict, strings.ReplaceAll(err.Error(), "\n", "; ")+"; nothing was stored (a stored lot is changed by correcting it, which keeps its history)", ""))
 		return
 	case err != nil:
 		s.fail(w, r, err)

@@ -79,22 +79,25 @@ func (s *Server) signIn(w http.ResponseWriter, r *http.Request) {
 	name := strings.TrimSpace(r.PostFormValue("name"))
 	password := r.PostFormValue("password")
 	data := signInData{Name: name, Next: safeNext(r.PostFormValue("next"))}
+	// The form is shown again with what refused the sign-in, under its
+	// status.
+	again := func(err error) {
+		data.Problem = err.Error()
+		s.render(w, r, statusOf(err), "signin.html", "Sign in", data)
+	}
 	if len(name) > maxNameBytes {
 		data.Name = ""
-		data.Problem = "A user name is at most " + strconv.Itoa(maxNameBytes) + " bytes long."
-		s.render(w, r, http.StatusBadRequest, "signin.html", "Sign in", data)
+		again(invalid("A user name is at most " + strconv.Itoa(maxNameBytes) + " bytes long."))
 		return
 	}
 	addr := s.clientAddr(r)
 	if wait := s.gate.wait(name, addr); wait > 0 {
 		w.Header().Set("Retry-After", retryAfter(wait))
-		data.Problem = "Too many sign-in attempts. Wait " + retryAfter(wait) + " seconds and try again."
-		s.render(w, r, http.StatusTooManyRequests, "signin.html", "Sign in", data)
+		again(refuse(errTooMany, "Too many sign-in attempts. Wait "+retryAfter(wait)+" seconds and try again.", ""))
 		return
 	}
 	if name == "" || password == "" {
-		data.Problem = "Enter your user name and password."
-		s.render(w, r, http.StatusBadRequest, "signin.html", "Sign in", data)
+		again(invalid("Enter your user name and password."))
 		return
 	}
 	u, err := s.db.Authenticate(r.Context(), name, password)
@@ -103,11 +106,11 @@ func (s *Server) signIn(w http.ResponseWriter, r *http.Request) {
 	}
 	if errors.Is(err, store.ErrBadCredentials) {
 		s.log.Warn("sign-in refused", "name", name, "addr", addr)
-		data.Problem = "The user name or password is not right."
+		msg := "The user name or password is not right."
 		if wait := s.gate.fail(name, addr); wait > 0 {
-			data.Problem += " Too many failed attempts: wait " + retryAfter(wait) + " seconds before the next."
+			msg += " Too many failed attempts: wait " + retryAfter(wait) + " seconds before the next."
 		}
-		s.render(w, r, http.StatusUnauthorized, "signin.html", "Sign in", data)
+		again(refuse(errSignIn, msg, ""))
 		return
 	}
 	if err != nil {
@@ -161,34 +164,35 @@ func (s *Server) changePassword(w http.ResponseWriter, r *http.Request) {
 	current := r.PostFormValue("current")
 	next := r.PostFormValue("new")
 	confirm := r.PostFormValue("confirm")
-	fail := func(status int, msg string) {
-		s.render(w, r, status, "password.html", "Change password", passwordData{Problem: msg})
+	// The form is shown again with what refused it, under its status.
+	again := func(err error) {
+		s.render(w, r, statusOf(err), "password.html", "Change password", passwordData{Problem: err.Error()})
 	}
 	if p.token {
-		writeError(w, http.StatusForbidden, "a password cannot be changed with an API token")
+		s.fail(w, r, refuse(errForbidden, "a password cannot be changed with an API token", ""))
 		return
 	}
 	addr := s.clientAddr(r)
 	if wait := s.gate.wait(p.user.Name, addr); wait > 0 {
 		w.Header().Set("Retry-After", retryAfter(wait))
-		fail(http.StatusTooManyRequests, "Too many attempts. Wait "+retryAfter(wait)+" seconds and try again.")
+		again(refuse(errTooMany, "Too many attempts. Wait "+retryAfter(wait)+" seconds and try again.", ""))
 		return
 	}
 	switch {
 	case current == "":
-		fail(http.StatusBadRequest, "Enter your current password.")
+		again(invalid("Enter your current password."))
 		return
 	case next == "":
-		fail(http.StatusBadRequest, "Enter a new password.")
+		again(invalid("Enter a new password."))
 		return
 	case next != confirm:
-		fail(http.StatusBadRequest, "The new password and its confirmation differ.")
+		again(invalid("The new password and its confirmation differ."))
 		return
 	}
 	if _, err := s.db.Authenticate(r.Context(), p.user.Name, current); err != nil {
 		if errors.Is(err, store.ErrBadCredentials) {
 			s.gate.fail(p.user.Name, addr)
-			fail(http.StatusUnauthorized, "The current password is not right.")
+			again(refuse(errSignIn, "The current password is not right.", ""))
 			return
 		}
 		s.internalError(w, r, err)
@@ -196,7 +200,7 @@ func (s *Server) changePassword(w http.ResponseWriter, r *http.Request) {
 	}
 	if err := s.db.SetPassword(r.Context(), p.user.Name, p.user.Name, next); err != nil {
 		if errors.Is(err, store.ErrInvalid) {
-			fail(http.StatusBadRequest, "The new password was refused: "+err.Error())
+			again(invalid("The new password was refused: " + err.Error()))
 			return
 		}
 		s.internalError(w, r, err)

@@ -331,7 +331,7 @@ func (s *Server) freezeLimits(w http.ResponseWriter, r *http.Request) {
 	reason := strings.TrimSpace(r.PostForm.Get("reason"))
 	effective := strings.TrimSpace(r.PostForm.Get("effective"))
 	problems := map[string]string{}
-	fail := func() { s.showLimits(w, r, http.StatusBadRequest, b, reason, problems, effective, "") }
+	fail := func() { s.showLimits(w, r, statusOf(errFormRefused), b, reason, problems, effective, "") }
 	d, a, base, err := s.limitsData(r, p, b)
 	if err != nil {
 		s.internalError(w, r, err)

@@ -49,6 +49,12 @@ func (lp *lotProblems) add(index int, field, value, reason string) {
 	lp.list = append(lp.list, p)
 }
 
+// Error makes the problems a refusal of the request as bad input (400):
+// the API answers with the list (fail).
+func (lp *lotProblems) Error() string { return lp.message() }
+
+func (lp *lotProblems) Unwrap() error { return store.ErrInvalid }
+
 // any reports whether a problem was found.
 func (lp *lotProblems) any() bool { return len(lp.list) > 0 }
 

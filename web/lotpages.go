@@ -228,7 +228,7 @@ func (s *Server) lotFormPage(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	if !p.Active {
-		s.pageError(w, r, http.StatusConflict, "Process "+p.Name+" is retired: it takes no new lots.")
+		s.fail(w, r, refuse(store.ErrConflict, "Process "+p.Name+" is retired: it takes no new lots.", ""))
 		return
 	}
 	vals := map[string]string{"time": s.now().In(p.Location()).Format(formTime), "inspector": who(r).user.Name}
@@ -253,7 +253,7 @@ func (s *Server) postLot(w http.ResponseWriter, r *http.Request) {
 	in, f := readLotForm(r, p)
 	f.Action = "/processes/" + formatID(p.ID) + "/lots"
 	fail := func() {
-		s.render(w, r, http.StatusBadRequest, "lotform.html", "Log a lot — "+p.Name, f)
+		s.render(w, r, statusOf(errFormRefused), "lotform.html", "Log a lot — "+p.Name, f)
 	}
 	// every problem at once: the shared validation runs even when a
 	// number could not be read (that field keeps its own message)
@@ -312,11 +312,10 @@ func (s *Server) pathLot(w http.ResponseWriter, r *http.Request) (store.Lot, sto
 	}
 	l, err := s.db.LotByID(r.Context(), id)
 	if errors.Is(err, store.ErrNotFound) {
-		s.pageError(w, r, http.StatusNotFound, "There is no lot with id "+raw+".")
-		return store.Lot{}, store.Process{}, false
+		err = refuse(store.ErrNotFound, "no lot with id "+raw, "There is no lot with id "+raw+".")
 	}
 	if err != nil {
-		s.internalError(w, r, err)
+		s.fail(w, r, err)
 		return store.Lot{}, store.Process{}, false
 	}
 	p, err := s.db.Process(r.Context(), l.ProcessID)
@@ -456,7 +455,7 @@ func (s *Server) postCause(w http.ResponseWriter, r *http.Request) {
 		NoCauseFound: r.PostFormValue("no_cause") == "1", Reason: strings.TrimSpace(vals["reason"])}
 	if _, err := s.db.AddAnnotation(r.Context(), who(r).user.Name, a); err != nil {
 		if errors.Is(err, store.ErrInvalid) {
-			s.showLot(w, r, http.StatusBadRequest, "The cause was not recorded: "+err.Error(), vals, nil)
+			s.showLot(w, r, statusOf(err), "The cause was not recorded: "+err.Error(), vals, nil)
 			return
 		}
 		s.internalError(w, r, err)
@@ -490,12 +489,12 @@ func (s *Server) closeCause(w http.ResponseWriter, r *http.Request) {
 		found = found || (a.ID == aid && a.LotID == l.ID)
 	}
 	if !found {
-		s.pageError(w, r, http.StatusNotFound, "Lot "+l.Lot+" has no annotation "+strconv.FormatInt(aid, 10)+".")
+		s.fail(w, r, refuse(store.ErrNotFound, "Lot "+l.Lot+" has no annotation "+strconv.FormatInt(aid, 10)+".", ""))
 		return
 	}
 	if err := s.db.CloseAnnotation(r.Context(), who(r).user.Name, aid, strings.TrimSpace(r.PostFormValue("action"))); err != nil {
 		if errors.Is(err, store.ErrInvalid) {
-			s.showLot(w, r, http.StatusBadRequest, "The cause was not closed: "+err.Error(), nil, nil)
+			s.showLot(w, r, statusOf(err), "The cause was not closed: "+err.Error(), nil, nil)
 			return
 		}
 		s.internalError(w, r, err)
@@ -521,7 +520,7 @@ func (s *Server) correctLot(w http.ResponseWriter, r *http.Request) {
 	}
 	f.addProblems(store.ValidateLot(p, in))
 	if f.hasProblems() {
-		s.showLot(w, r, http.StatusBadRequest, "The correction was not saved; see the fields marked below.", nil, &f)
+		s.showLot(w, r, statusOf(errFormRefused), "The correction was not saved; see the fields marked below.", nil, &f)
 		return
 	}
 	_, err := s.db.CorrectLot(r.Context(), who(r).user.Name, reason, l.ID, in)
@@ -529,11 +528,11 @@ func (s *Server) correctLot(w http.ResponseWriter, r *http.Request) {
 	switch {
 	case errors.As(err, &ve):
 		f.addProblems(ve.Problems)
-		s.showLot(w, r, http.StatusBadRequest, "The correction was not saved; see the fields marked below.", nil, &f)
+		s.showLot(w, r, statusOf(errFormRefused), "The correction was not saved; see the fields marked below.", nil, &f)
 		return
 	case errors.Is(err, store.ErrConflict):
 		f.Problems["lot"] = "another lot of this process already has the code " + strconv.Quote(in.Lot)
-		s.showLot(w, r, http.StatusBadRequest, "The correction was not saved.", nil, &f)
+		s.showLot(w, r, statusOf(errFormRefused), "The correction was not saved.", nil, &f)
 		return
 	case err != nil:
 		s.internalError(w, r, err)
@@ -551,7 +550,7 @@ func (s *Server) voidLot(w http.ResponseWriter, r *http.Request) {
 	}
 	err := s.db.VoidLot(r.Context(), who(r).user.Name, strings.TrimSpace(r.PostFormValue("reason")), l.ID)
 	if errors.Is(err, store.ErrInvalid) {
-		s.showLot(w, r, http.StatusBadRequest, "The lot was not voided: "+err.Error(), nil, nil)
+		s.showLot(w, r, statusOf(err), "The lot was not voided: "+err.Error(), nil, nil)
 		return
 	}
 	if err != nil {

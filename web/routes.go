@@ -108,22 +108,14 @@ func (s *Server) buildHandler() http.Handler {
 		r.Method(rt.method, rt.pattern, s.observed(rt, s.guard(rt)))
 	}
 	r.NotFound(func(w http.ResponseWriter, r *http.Request) {
-		if isAPI(r) {
-			writeError(w, http.StatusNotFound, "no such resource: "+r.URL.Path)
-			return
-		}
-		s.pageError(w, r, http.StatusNotFound, "There is no page at this address.")
+		s.fail(w, r, refuse(store.ErrNotFound, "no such resource: "+r.URL.Path, "There is no page at this address."))
 	})
 	r.MethodNotAllowed(func(w http.ResponseWriter, r *http.Request) {
-		if isAPI(r) {
-			writeError(w, http.StatusMethodNotAllowed, "method "+r.Method+" is not allowed on "+r.URL.Path)
-			return
-		}
-		s.pageError(w, r, http.StatusMethodNotAllowed, "This address does not accept that request.")
+		s.fail(w, r, refuse(errMethod, "method "+r.Method+" is not allowed on "+r.URL.Path, "This address does not accept that request."))
 	})
 	var h http.Handler = r
 	h = http.MaxBytesHandler(h, 8<<20)
-	h = crossOriginGuard(h)
+	h = crossOriginGuard(h, s.fail)
 	h = securityHeaders(s.secure, h)
 	return h
 }
@@ -144,7 +136,7 @@ func who(r *http.Request) *principal {
 }
 
 // errBadToken is a Bearer token that is unknown, revoked or malformed.
-var errBadToken = errors.New("the API token is not valid (unknown, revoked, or its user is disabled)")
+var errBadToken = refuse(errSignIn, "the API token is not valid (unknown, revoked, or its user is disabled)", "")
 
 // guard authenticates the request and enforces the route's least role.
 func (s *Server) guard(rt route) http.Handler {
@@ -153,10 +145,8 @@ func (s *Server) guard(rt route) http.Handler {
 		if err != nil {
 			if errors.Is(err, errBadToken) {
 				w.Header().Set("WWW-Authenticate", `Bearer error="invalid_token"`)
-				writeError(w, http.StatusUnauthorized, err.Error())
-				return
 			}
-			s.internalError(w, r, err)
+			s.fail(w, r, err)
 			return
 		}
 		if p != nil {
@@ -169,7 +159,7 @@ func (s *Server) guard(rt route) http.Handler {
 		if p == nil {
 			if isAPI(r) {
 				w.Header().Set("WWW-Authenticate", `Bearer`)
-				writeError(w, http.StatusUnauthorized, "authentication required: send an API token as \"Authorization: Bearer TOKEN\"")
+				s.fail(w, r, refuse(errSignIn, "authentication required: send an API token as \"Authorization: Bearer TOKEN\"", ""))
 				return
 			}
 			next := r.URL.Path
@@ -180,12 +170,7 @@ func (s *Server) guard(rt route) http.Handler {
 			return
 		}
 		if !p.user.Role.AtLeast(rt.min) {
-			msg := "this needs the " + string(rt.min) + " role; you are signed in as " + p.user.Name + ", whose role is " + string(p.user.Role)
-			if isAPI(r) {
-				writeError(w, http.StatusForbidden, msg)
-				return
-			}
-			s.pageError(w, r, http.StatusForbidden, msg)
+			s.fail(w, r, refuse(errForbidden, "this needs the "+string(rt.min)+" role; you are signed in as "+p.user.Name+", whose role is "+string(p.user.Role), ""))
 			return
 		}
 		rt.handle(w, r)

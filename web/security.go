@@ -42,15 +42,11 @@ func securityHeaders(secure bool, next http.Handler) http.Handler {
 // (net/http.CrossOriginProtection). Together with SameSite session cookies
 // this is the CSRF defence. Requests without either header (command-line
 // clients with a Bearer token) pass: they carry no ambient credentials.
-func crossOriginGuard(next http.Handler) http.Handler {
+// A refused request is answered by deny (Server.fail: 403).
+func crossOriginGuard(next http.Handler, deny func(http.ResponseWriter, *http.Request, error)) http.Handler {
 	p := http.NewCrossOriginProtection()
 	p.SetDenyHandler(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
-		msg := "cross-origin request refused: the request did not come from a lotwatch page"
-		if isAPI(r) {
-			writeError(w, http.StatusForbidden, msg)
-			return
-		}
-		http.Error(w, msg, http.StatusForbidden)
+		deny(w, r, refuse(errForbidden, "cross-origin request refused: the request did not come from a lotwatch page", ""))
 	}))
 	return p.Handler(next)
 }

@@ -127,7 +127,8 @@ func TestSecurityHeaders(t *testing.T) {
 
 func TestCrossOriginGuard(t *testing.T) {
 	reached := 0
-	h := crossOriginGuard(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) { reached++ }))
+	deny := func(w http.ResponseWriter, r *http.Request, err error) { w.WriteHeader(statusOf(err)) }
+	h := crossOriginGuard(http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) { reached++ }), deny)
 	cases := []struct {
 		name    string
 		method  string

@@ -175,7 +175,7 @@ func (s *Server) setPlantZone(w http.ResponseWriter, r *http.Request) {
 		for _, pr := range ve.Problems {
 			zf.Problems[pr.Field] = pr.String()
 		}
-		s.showProcessList(w, r, http.StatusBadRequest, newProcessForm(map[string]string{"chart": "p", "method": "sigma", "k": "3", "rules": "we", "tz": zf.Values["tz"]}), zf)
+		s.showProcessList(w, r, statusOf(errFormRefused), newProcessForm(map[string]string{"chart": "p", "method": "sigma", "k": "3", "rules": "we", "tz": zf.Values["tz"]}), zf)
 	case err != nil:
 		s.internalError(w, r, err)
 	default:
@@ -192,7 +192,7 @@ func (s *Server) addProcess(w http.ResponseWriter, r *http.Request) {
 			return
 		}
 	}
-	s.showProcessList(w, r, http.StatusBadRequest, f)
+	s.showProcessList(w, r, statusOf(errFormRefused), f)
 }
 
 func (s *Server) processSettingsPage(w http.ResponseWriter, r *http.Request) {
@@ -240,7 +240,7 @@ func (s *Server) updateProcess(w http.ResponseWriter, r *http.Request) {
 		}
 	}
 	f.HasLots = s.hasLots(r, old)
-	s.render(w, r, http.StatusBadRequest, "processform.html", "Settings — "+old.Name, f)
+	s.render(w, r, statusOf(errFormRefused), "processform.html", "Settings — "+old.Name, f)
 }
 
 // savedProcess answers a saved process with a redirect to its settings

@@ -228,17 +228,19 @@ func (s *Server) postUpload(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	d := uploadData{Processes: ps}
-	fail := func(status int, msg string) {
-		d.Problem = msg
-		s.render(w, r, status, "upload.html", "Upload a lot file", d)
+	// The form is shown again with what refused the upload, under its
+	// status.
+	again := func(err error) {
+		d.Problem = err.Error()
+		s.render(w, r, statusOf(err), "upload.html", "Upload a lot file", d)
 	}
 	if err := r.ParseMultipartForm(1 << 20); err != nil {
 		var tooBig *http.MaxBytesError
 		if errors.As(err, &tooBig) {
-			fail(http.StatusRequestEntityTooLarge, "The file is larger than the server accepts (8 MiB). Split it, or use `lotwatch import`.")
+			again(refuse(errTooLarge, "The file is larger than the server accepts (8 MiB). Split it, or use `lotwatch import`.", ""))
 			return
 		}
-		fail(http.StatusBadRequest, "The upload could not be read: choose a process and a CSV file.")
+		again(invalid("The upload could not be read: choose a process and a CSV file."))
 		return
 	}
 	defer r.MultipartForm.RemoveAll()
@@ -251,12 +253,12 @@ func (s *Server) postUpload(w http.ResponseWriter, r *http.Request) {
 		}
 	}
 	if proc == nil {
-		fail(http.StatusBadRequest, "Choose the process the lots belong to.")
+		again(invalid("Choose the process the lots belong to."))
 		return
 	}
 	file, hdr, err := r.FormFile("file")
 	if err != nil {
-		fail(http.StatusBadRequest, "Choose a CSV file to upload.")
+		again(invalid("Choose a CSV file to upload."))
 		return
 	}
 	defer file.Close()
@@ -276,7 +278,7 @@ func (s *Server) postUpload(w http.ResponseWriter, r *http.Request) {
 	}
 	if n > maxUpload {
 		os.Remove(tmp.Name())
-		fail(http.StatusRequestEntityTooLarge, fmt.Sprintf("The file is larger than %d MiB. Split it, or use `lotwatch import`.", maxUpload>>20))
+		again(refuse(errTooLarge, fmt.Sprintf("The file is larger than %d MiB. Split it, or use `lotwatch import`.", maxUpload>>20), ""))
 		return
 	}
 	d.Proc, d.FileName = proc, hdr.Filename
@@ -310,7 +312,7 @@ func (s *Server) previewAndKeep(w http.ResponseWriter, r *http.Request, pu *pend
 		if d.Rows == 0 && len(d.Problems) == 0 {
 			d.Problem = "The file has a header but no lots."
 		}
-		s.render(w, r, http.StatusBadRequest, "upload.html", "Upload a lot file", d)
+		s.render(w, r, statusOf(errFormRefused), "upload.html", "Upload a lot file", d)
 		return
 	}
 	key, err := s.uploads.put(pu, s.now())
@@ -318,7 +320,7 @@ func (s *Server) previewAndKeep(w http.ResponseWriter, r *http.Request, pu *pend
 		os.Remove(pu.path)
 		d.Key, d.Sample, d.Problem = "", nil, fmt.Sprintf("%d uploads are waiting for confirmation on the server, the most it keeps. "+
 			"Try again later: an upload waits at most an hour.", s.uploads.maxTotal)
-		s.render(w, r, http.StatusServiceUnavailable, "upload.html", "Upload a lot file", d)
+		s.render(w, r, statusOf(errBusy), "upload.html", "Upload a lot file", d)
 		return
 	}
 	if err != nil {
@@ -329,7 +331,7 @@ func (s *Server) previewAndKeep(w http.ResponseWriter, r *http.Request, pu *pend
 	if onlyColumns {
 		d.ColumnsKey, d.Targets = key, p.MapTargets()
 		d.CanMap = who(r).user.Role.AtLeast(store.RoleEngineer)
-		s.render(w, r, http.StatusBadRequest, "upload.html", "Upload a lot file", d)
+		s.render(w, r, statusOf(errFormRefused), "upload.html", "Upload a lot file", d)
 		return
 	}
 	d.Key = key
@@ -341,7 +343,7 @@ func (s *Server) previewAndKeep(w http.ResponseWriter, r *http.Request, pu *pend
 func (s *Server) takeUpload(w http.ResponseWriter, r *http.Request) (*pendingUpload, store.Process, bool) {
 	pu, ok := s.uploads.take(chi.URLParam(r, "key"), who(r).session, s.now())
 	if !ok {
-		s.pageError(w, r, http.StatusNotFound, "This upload is no longer waiting (it was imported, it expired after an hour, or it belongs to another session). Upload the file again.")
+		s.fail(w, r, refuse(store.ErrNotFound, "This upload is no longer waiting (it was imported, it expired after an hour, or it belongs to another session). Upload the file again.", ""))
 		return nil, store.Process{}, false
 	}
 	p, err := s.db.Process(r.Context(), pu.processID)
@@ -522,11 +524,11 @@ func (s *Server) confirmUpload(w http.ResponseWriter, r *http.Request) {
 	case errors.As(err, &ve):
 		d.Problems, d.More = ve.Problems, ve.More
 		d.Problem = "Nothing was imported: the file no longer passes the checks."
-		s.render(w, r, http.StatusBadRequest, "upload.html", "Upload a lot file", d)
+		s.render(w, r, statusOf(errFormRefused), "upload.html", "Upload a lot file", d)
 		return
 	case errors.Is(err, store.ErrInvalid):
 		d.Problem = "Nothing was imported: " + err.Error()
-		s.render(w, r, http.StatusBadRequest, "upload.html", "Upload a lot file", d)
+		s.render(w, r, statusOf(err), "upload.html", "Upload a lot file", d)
 		return
 	case err != nil:
 		s.internalError(w, r, err)

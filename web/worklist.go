@@ -205,19 +205,19 @@ func (s *Server) postWorklistCauses(w http.ResponseWriter, r *http.Request) {
 	}
 	ids := r.PostForm["lot"]
 	if len(ids) == 0 {
-		s.showWorklist(w, r, http.StatusBadRequest, "Nothing was recorded: tick the lots the cause is for (field lot).", form)
+		s.showWorklist(w, r, statusOf(errFormRefused), "Nothing was recorded: tick the lots the cause is for (field lot).", form)
 		return
 	}
 	var lots []store.Lot
 	for _, raw := range ids {
 		id, err := strconv.ParseInt(raw, 10, 64)
 		if err != nil || id <= 0 {
-			s.showWorklist(w, r, http.StatusBadRequest, "Nothing was recorded: lot id "+strconv.Quote(raw)+" is not a positive whole number.", form)
+			s.showWorklist(w, r, statusOf(errFormRefused), "Nothing was recorded: lot id "+strconv.Quote(raw)+" is not a positive whole number.", form)
 			return
 		}
 		l, err := s.db.LotByID(r.Context(), id)
 		if errors.Is(err, store.ErrNotFound) || (err == nil && l.Voided) {
-			s.showWorklist(w, r, http.StatusNotFound, "Nothing was recorded: there is no lot with id "+raw+".", form)
+			s.showWorklist(w, r, statusOf(store.ErrNotFound), "Nothing was recorded: there is no lot with id "+raw+".", form)
 			return
 		}
 		if err != nil {
@@ -232,7 +232,7 @@ func (s *Server) postWorklistCauses(w http.ResponseWriter, r *http.Request) {
 			Closed: form["closed"] == "1", NoCauseFound: form["no_cause"] == "1", Reason: strings.TrimSpace(form["reason"])}
 		if _, err := s.db.AddAnnotation(r.Context(), actor, a); err != nil {
 			if errors.Is(err, store.ErrInvalid) && i == 0 {
-				s.showWorklist(w, r, http.StatusBadRequest, "Nothing was recorded: "+err.Error(), form)
+				s.showWorklist(w, r, statusOf(err), "Nothing was recorded: "+err.Error(), form)
 				return
 			}
 			s.internalError(w, r, err)
