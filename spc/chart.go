@@ -105,7 +105,11 @@ func (p Point) OutOfLimits() bool { return p.Above || p.Below }
 // Signal is one run-rule finding over the lots Points[First..Last].
 type Signal struct {
 	Rule        Rule
-	First, Last int      // indices into Points
+	First, Last int // indices into Points
+	// Start is the index of the lot at which the signal was first
+	// detected (the lot that completed the pattern); the lots after it up
+	// to Last extend it.
+	Start       int
 	Lots        []string // IDs of the lots First..Last
 	Side        int8     // +1 above the centre (or increasing), −1 below (or decreasing), 0 either
 	Description string   // plain words, e.g. "9 lots in a row above the centre line"

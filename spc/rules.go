@@ -415,7 +415,7 @@ func applyRules(pts []Point, set RuleSet, kOf func(i int) float64) []Signal {
 				sg.hits++
 				continue
 			}
-			signals = append(signals, Signal{Rule: c.rule, First: first, Last: i, Side: f.side, hits: f.hits, k: kOf(i)})
+			signals = append(signals, Signal{Rule: c.rule, First: first, Start: i, Last: i, Side: f.side, hits: f.hits, k: kOf(i)})
 			open[c.rule] = len(signals)
 		}
 	}

@@ -210,3 +210,27 @@ func TestParseRules(t *testing.T) {
 		}
 	}
 }
+
+// TestSignalStart checks which lot a signal starts at: the lot that first
+// completes the pattern, while the lots after it extend it. The patterns
+// are the rules' definitions (Nelson 1984, "The Shewhart control chart —
+// tests for special causes", J. Quality Technology 16(4); Western Electric
+// Statistical Quality Control Handbook, 1956), here as 9 lots on one side
+// (Nelson 2) and 2 of 3 beyond 2σ (Western Electric 2).
+func TestSignalStart(t *testing.T) {
+	for _, tc := range []struct {
+		name               string
+		set                RuleSet
+		zs                 []float64
+		first, start, last int
+	}{
+		{"9 in a row, completed at the 9th lot", RuleNelson2.Set(), rep(0.4, 9), 0, 8, 8},
+		{"9 in a row extended by 3 lots", RuleNelson2.Set(), cat(rep(-0.2, 2), rep(0.4, 12)), 2, 10, 13},
+		{"2 of 3 beyond 2σ, then a third", RuleWE2.Set(), []float64{0, 2.1, 0.5, 2.2, 2.3}, 1, 3, 4},
+	} {
+		got := judge(tc.set, 3, tc.zs)
+		if len(got) != 1 || got[0].First != tc.first || got[0].Start != tc.start || got[0].Last != tc.last {
+			t.Errorf("%s: %+v, want one signal %d…%d started at %d", tc.name, got, tc.first, tc.last, tc.start)
+		}
+	}
+}

@@ -68,7 +68,7 @@ func WatchShifts(a *Analysis, lots []Lot, m Monitors, sizes []int64) (*ShiftWatc
 			side = -1
 		}
 		for _, s := range w.CUSUMSignals {
-			a.addSignal(Signal{Rule: RuleCUSUM, First: s.Start, Last: s.Lot, Side: side,
+			a.addSignal(Signal{Rule: RuleCUSUM, First: s.Start, Start: s.Lot, Last: s.Lot, Side: side,
 				Description: fmt.Sprintf("CUSUM for a %s to %s reached h = %.2f at lot %s; the change probably began at lot %s",
 					map[int8]string{1: "rise", -1: "fall"}[side], strconv.FormatFloat(c.P1, 'g', 4, 64), c.H, s.LotID, s.StartID)})
 		}
@@ -103,7 +103,7 @@ func WatchShifts(a *Analysis, lots []Lot, m Monitors, sizes []int64) (*ShiftWatc
 			if j > i {
 				what = strconv.Itoa(j-i+1) + " lots in a row"
 			}
-			a.addSignal(Signal{Rule: RuleEWMA, First: i, Last: j, Side: side,
+			a.addSignal(Signal{Rule: RuleEWMA, First: i, Start: i, Last: j, Side: side,
 				Description: fmt.Sprintf("EWMA of the rates (λ %g) %s limit for %s", e.Lambda, where, what)})
 			i = j + 1
 		}

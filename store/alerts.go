@@ -8,6 +8,7 @@ import (
 	"fmt"
 	"net/mail"
 	"net/url"
+	"sort"
 	"strings"
 	"time"
 )
@@ -15,7 +16,7 @@ import (
 // The triggers of an alert rule.
 const (
 	TriggerOutOfLimits = "out_of_limits" // a lot beyond a control limit
-	TriggerRunRule     = "run_rule"      // a lot that completes or extends a run-rule signal
+	TriggerRunRule     = "run_rule"      // a lot that completes a run-rule signal (or extends one, for a rule with EachLot)
 	TriggerShift       = "shift"         // a small-shift monitor (CUSUM, EWMA) signals at the lot
 	TriggerUnexplained = "unexplained"   // a lot still needing attention after a delay
 )
@@ -41,9 +42,13 @@ type AlertRule struct {
 	Email            string // address; "" for a webhook
 	On               []string
 	UnexplainedAfter time.Duration // 0 unless On holds unexplained
-	Active           bool
-	Created          time.Time
-	CreatedBy        string
+	// EachLot makes the rule hear of every lot that extends a run-rule or
+	// shift signal; otherwise it hears of the lot that starts the signal
+	// only (the unexplained trigger reminds of it).
+	EachLot   bool
+	Active    bool
+	Created   time.Time
+	CreatedBy string
 }
 
 // Target is where the rule's alerts go: the webhook URL or the address.
@@ -158,6 +163,9 @@ func CheckAlertRule(r *AlertRule) []Problem {
 			ps = append(ps, p...)
 		}
 	}
+	if r.EachLot && !r.Has(TriggerRunRule) && !r.Has(TriggerShift) {
+		ps = append(ps, Problem{Field: "each-lot", Value: "true", Reason: "is given but the rule listens for neither run_rule nor shift"})
+	}
 	if !r.Has(TriggerUnexplained) {
 		if r.UnexplainedAfter != 0 {
 			ps = append(ps, Problem{Field: "unexplained-after", Value: r.UnexplainedAfter.String(), Reason: "is given but the rule does not listen for unexplained"})
@@ -186,8 +194,8 @@ func (db *DB) AddAlertRule(ctx context.Context, actor string, r AlertRule) (Aler
 			return err
 		}
 		r.Process, r.Active, r.Created, r.CreatedBy = p.Name, true, w.now, actor
-		err = w.QueryRow(`INSERT INTO alert_rules (process_id, webhook, secret, email, triggers, unexplained_after, active, created, created_by)
-			VALUES (?, ?, ?, ?, ?, ?, 1, ?, ?) RETURNING id`, r.ProcessID, r.Webhook, r.Secret, r.Email, strings.Join(r.On, ","), int64(r.UnexplainedAfter), w.now.UnixNano(), actor).Scan(&r.ID)
+		err = w.QueryRow(`INSERT INTO alert_rules (process_id, webhook, secret, email, triggers, unexplained_after, each_lot, active, created, created_by)
+			VALUES (?, ?, ?, ?, ?, ?, ?, 1, ?, ?) RETURNING id`, r.ProcessID, r.Webhook, r.Secret, r.Email, strings.Join(r.On, ","), int64(r.UnexplainedAfter), boolInt(r.EachLot), w.now.UnixNano(), actor).Scan(&r.ID)
 		if err != nil {
 			return err
 		}
@@ -220,13 +228,13 @@ func (db *DB) RemoveAlertRule(ctx context.Context, actor string, id int64) error
 	})
 }
 
-const alertRuleCols = `r.id, r.process_id, p.name, r.webhook, r.secret, r.email, r.triggers, r.unexplained_after, r.active, r.created, r.created_by`
+const alertRuleCols = `r.id, r.process_id, p.name, r.webhook, r.secret, r.email, r.triggers, r.unexplained_after, r.each_lot, r.active, r.created, r.created_by`
 
 func scanAlertRule(s interface{ Scan(...any) error }) (AlertRule, error) {
 	var r AlertRule
 	var on string
 	var after, created int64
-	err := s.Scan(&r.ID, &r.ProcessID, &r.Process, &r.Webhook, &r.Secret, &r.Email, &on, &after, &r.Active, &created, &r.CreatedBy)
+	err := s.Scan(&r.ID, &r.ProcessID, &r.Process, &r.Webhook, &r.Secret, &r.Email, &on, &after, &r.EachLot, &r.Active, &created, &r.CreatedBy)
 	if on != "" {
 		r.On = strings.Split(on, ",")
 	}
@@ -278,10 +286,74 @@ func (w *wtx) queueAlertEvents(processID, first, last int64) error {
 	return err
 }
 
+// RuleLookBack is how many lots a run rule looks at, at most (the
+// longest pattern, Nelson 4's 14 lots alternating, plus one): a change to
+// one lot can complete a signal at it or at up to this many lots after.
+const RuleLookBack = 15
+
+// queueAlertFollowing puts in the outbox, with cause, the lot id itself
+// when self, and the RuleLookBack lots of the process that follow it at
+// time t (in chart order, not voided): the lots whose judging a change
+// to lot id can alter. Nothing is written when the process has no rule
+// in force.
+func (w *wtx) queueAlertFollowing(processID, id int64, t time.Time, self bool, cause string) error {
+	has, err := w.hasAlertRules(processID)
+	if err != nil || !has {
+		return err
+	}
+	now := w.now.UnixNano()
+	if self {
+		if _, err := w.Exec("INSERT INTO alert_events (lot_id, process_id, created, cause) VALUES (?, ?, ?, ?)", id, processID, now, cause); err != nil {
+			return err
+		}
+	}
+	_, err = w.Exec(`INSERT INTO alert_events (lot_id, process_id, created, cause)
+		SELECT id, process_id, ?, ? FROM lots WHERE process_id = ? AND voided = 0 AND id <> ? AND (time > ? OR (time = ? AND id > ?))
+		ORDER BY time, id LIMIT ?`, now, cause, processID, id, t.UnixNano(), t.UnixNano(), id, RuleLookBack)
+	return err
+}
+
+// queueAlertCorrection puts in the outbox the lots whose judging the
+// correction of lot id can alter: the lot and those after it, and when
+// its time changed, those after the place it left.
+func (w *wtx) queueAlertCorrection(processID, id int64, was, now time.Time, cause string) error {
+	if err := w.queueAlertFollowing(processID, id, now, true, cause); err != nil || was.Equal(now) {
+		return err
+	}
+	return w.queueAlertFollowing(processID, id, was, false, cause)
+}
+
+// queueAlertImport puts the lots an import added in the outbox as one
+// batch (one message per rule, however many lots).
+func (a *lotAdder) queueAlertImport() error {
+	if a.n == 0 {
+		return nil
+	}
+	return a.w.queueAlertBatch(AlertBatch{ProcessID: a.p.ID, Kind: BatchImport, First: a.first, Last: a.last,
+		Cause: fmt.Sprintf("%d lots imported by %s", a.n, a.actor)})
+}
+
+func (w *wtx) hasAlertRules(processID int64) (bool, error) {
+	var n int
+	err := w.QueryRow("SELECT COUNT(*) FROM alert_rules WHERE process_id = ? AND active = 1", processID).Scan(&n)
+	return n > 0, err
+}
+
+// boolInt is a flag as the INTEGER 0 or 1 the tables keep it in.
+func boolInt(b bool) int {
+	if b {
+		return 1
+	}
+	return 0
+}
+
 // AlertEvent is a stored lot waiting to be judged for alerts.
 type AlertEvent struct {
 	ID, LotID, ProcessID int64
 	Created              time.Time
+	// Cause is "" for a lot posted; otherwise the change that put the
+	// lot in the outbox again, in plain words.
+	Cause string
 }
 
 // ClaimAlertEvents takes up to limit pending events for owner until
@@ -295,7 +367,7 @@ func (db *DB) ClaimAlertEvents(ctx context.Context, owner string, lease time.Dur
 		now := w.now.UnixNano()
 		rows, err := w.Query(`UPDATE alert_events SET lease_owner = ?, lease_until = ?
 			WHERE id IN (SELECT id FROM alert_events WHERE done = 0 AND lease_until < ? ORDER BY id LIMIT ?)
-			RETURNING id, lot_id, process_id, created`, owner, now+int64(lease), now, limit)
+			RETURNING id, lot_id, process_id, created, cause`, owner, now+int64(lease), now, limit)
 		if err != nil {
 			return err
 		}
@@ -303,7 +375,7 @@ func (db *DB) ClaimAlertEvents(ctx context.Context, owner string, lease time.Dur
 		for rows.Next() {
 			var e AlertEvent
 			var c int64
-			if err := rows.Scan(&e.ID, &e.LotID, &e.ProcessID, &c); err != nil {
+			if err := rows.Scan(&e.ID, &e.LotID, &e.ProcessID, &c, &e.Cause); err != nil {
 				return err
 			}
 			e.Created = fromNanos(c, time.UTC)
@@ -311,6 +383,9 @@ func (db *DB) ClaimAlertEvents(ctx context.Context, owner string, lease time.Dur
 		}
 		return rows.Err()
 	})
+	// RETURNING gives no order on PostgreSQL: the events in the order
+	// they were written.
+	sort.Slice(out, func(i, j int) bool { return out[i].ID < out[j].ID })
 	return out, err
 }
 
@@ -576,6 +651,9 @@ func (db *DB) ReleaseAlertClaims(ctx context.Context, owner string) error {
 		if _, err := w.Exec("UPDATE alert_events SET lease_until = 0, lease_owner = '' WHERE done = 0 AND lease_owner = ?", owner); err != nil {
 			return err
 		}
+		if _, err := w.Exec("UPDATE alert_batches SET lease_until = 0, lease_owner = '' WHERE done = 0 AND lease_owner = ?", owner); err != nil {
+			return err
+		}
 		_, err := w.Exec("UPDATE alert_deliveries SET lease_until = 0, lease_owner = '' WHERE state = 'pending' AND lease_owner = ?", owner)
 		return err
 	})
@@ -641,4 +719,81 @@ func (db *DB) DeliveriesMade(ctx context.Context, msgIDs []string) (map[string]b
 		msgIDs = msgIDs[n:]
 	}
 	return out, nil
+}
+
+// Kinds of alert batches.
+const (
+	BatchImport = "import" // the lots an imported file added
+	BatchLimits = "limits" // the lots a frozen limit set judges
+)
+
+// AlertBatch is a change that judges many lots at once, waiting to be
+// judged for alerts: it raises one message per rule, not one per lot.
+type AlertBatch struct {
+	ID, ProcessID int64
+	Kind          string    // BatchImport or BatchLimits
+	First, Last   int64     // import: the ids of the lots it added
+	From          time.Time // limits: the set is in force from then
+	Cause         string    // the change in plain words
+	Created       time.Time
+}
+
+// queueAlertBatch puts b in the outbox, in the transaction of its change,
+// when the process has a rule in force.
+func (w *wtx) queueAlertBatch(b AlertBatch) error {
+	has, err := w.hasAlertRules(b.ProcessID)
+	if err != nil || !has {
+		return err
+	}
+	_, err = w.Exec(`INSERT INTO alert_batches (process_id, kind, first_lot, last_lot, from_time, cause, created) VALUES (?, ?, ?, ?, ?, ?, ?)`,
+		b.ProcessID, b.Kind, b.First, b.Last, nanos(b.From), b.Cause, w.now.UnixNano())
+	return err
+}
+
+// ClaimAlertBatches takes up to limit pending batches for owner until
+// lease ends, as ClaimAlertEvents does events.
+func (db *DB) ClaimAlertBatches(ctx context.Context, owner string, lease time.Duration, limit int) ([]AlertBatch, error) {
+	var out []AlertBatch
+	err := db.write(ctx, func(w *wtx) error {
+		out = out[:0]
+		now := w.now.UnixNano()
+		rows, err := w.Query(`UPDATE alert_batches SET lease_owner = ?, lease_until = ?
+			WHERE id IN (SELECT id FROM alert_batches WHERE done = 0 AND lease_until < ? ORDER BY id LIMIT ?)
+			RETURNING id, process_id, kind, first_lot, last_lot, from_time, cause, created`, owner, now+int64(lease), now, limit)
+		if err != nil {
+			return err
+		}
+		defer rows.Close()
+		for rows.Next() {
+			var b AlertBatch
+			var from, c int64
+			if err := rows.Scan(&b.ID, &b.ProcessID, &b.Kind, &b.First, &b.Last, &from, &b.Cause, &c); err != nil {
+				return err
+			}
+			b.From, b.Created = fromNanos(from, time.UTC), fromNanos(c, time.UTC)
+			out = append(out, b)
+		}
+		return rows.Err()
+	})
+	sort.Slice(out, func(i, j int) bool { return out[i].ID < out[j].ID })
+	return out, err
+}
+
+// HasPendingAlertBatches reports whether some batch waits to be judged.
+func (db *DB) HasPendingAlertBatches(ctx context.Context) (bool, error) {
+	var n int
+	err := db.r.QueryRowContext(ctx, "SELECT COUNT(*) FROM alert_batches WHERE done = 0").Scan(&n)
+	return n > 0, err
+}
+
+// FinishAlertBatch makes the messages of a judged batch and marks it
+// done, in one transaction (see FinishAlertEvents).
+func (db *DB) FinishAlertBatch(ctx context.Context, id int64, ds []NewDelivery) error {
+	return db.write(ctx, func(w *wtx) error {
+		if err := w.addDeliveries(ds); err != nil {
+			return err
+		}
+		_, err := w.Exec("UPDATE alert_batches SET done = ?, lease_owner = '', lease_until = 0 WHERE id = ? AND done = 0", w.now.UnixNano(), id)
+		return err
+	})
 }

@@ -2,6 +2,7 @@ package store
 
 import (
 	"errors"
+	"fmt"
 	"strings"
 	"testing"
 	"time"
@@ -164,6 +165,96 @@ func TestAlertRulesAudited(t *testing.T) {
 		}
 		if c, err := db.VerifyAudit(ctx); err != nil || c.OK || !strings.Contains(c.Entity, "alert rule") {
 			t.Errorf("verify after tampering: %+v %v", c, err)
+		}
+	})
+}
+
+// outboxRows counts the rows of the outbox tables.
+func outboxRows(t *testing.T, db *DB) (events, batches int) {
+	t.Helper()
+	if err := db.r.QueryRow("SELECT (SELECT COUNT(*) FROM alert_events), (SELECT COUNT(*) FROM alert_batches)").Scan(&events, &batches); err != nil {
+		t.Fatal(err)
+	}
+	return events, batches
+}
+
+// TestAlertOutboxChanges: an import, a correction, a void and a frozen
+// limit set each write their outbox rows in their own transaction, for a
+// process with rules only: an import one batch however many lots it adds
+// (and none when it is refused), a correction the lot and the 15 lots
+// after it, a void the 15 lots after it, a freeze one batch from the
+// set's start.
+func TestAlertOutboxChanges(t *testing.T) {
+	forEachBackend(t, func(t *testing.T, open opener) {
+		db, _ := open(t)
+		p := addProcess(t, db, "press", spc.ChartP)
+		t0 := time.Date(2026, 3, 2, 6, 0, 0, 0, time.UTC)
+		csv := func(from, n int) string {
+			var b strings.Builder
+			b.WriteString("lot,time,inspected,defective\n")
+			for i := from; i < from+n; i++ {
+				b.WriteString(fmt.Sprintf("M%04d,%s,100,%d\n", i, t0.Add(time.Duration(i)*time.Minute).Format(time.RFC3339), i%3))
+			}
+			return b.String()
+		}
+		if _, err := db.Import(ctx, "tester", strings.NewReader(csv(0, 50)), ImportOptions{Process: "press"}); err != nil {
+			t.Fatal(err)
+		}
+		if ev, ba := outboxRows(t, db); ev != 0 || ba != 0 {
+			t.Fatalf("without rules: %d events, %d batches", ev, ba)
+		}
+		if _, err := db.AddAlertRule(ctx, "tester", AlertRule{ProcessID: p.ID, Webhook: "http://127.0.0.1:9/", Secret: "s"}); err != nil {
+			t.Fatal(err)
+		}
+		if _, err := db.Import(ctx, "tester", strings.NewReader(csv(50, 40)+"BAD,2026-03-02T06:00:00Z,100,500\n"), ImportOptions{Process: "press"}); err == nil {
+			t.Fatal("a file with a bad lot was imported")
+		}
+		if ev, ba := outboxRows(t, db); ev != 0 || ba != 0 {
+			t.Fatalf("a refused file wrote %d events, %d batches", ev, ba)
+		}
+		res, err := db.Import(ctx, "importer", strings.NewReader(csv(50, 1000)), ImportOptions{Process: "press"})
+		if err != nil {
+			t.Fatal(err)
+		}
+		bs, err := db.ClaimAlertBatches(ctx, "one", time.Minute, 10)
+		if err != nil || len(bs) != 1 || bs[0].Kind != BatchImport || bs[0].Last-bs[0].First+1 != int64(res.Added) || bs[0].Cause != "1000 lots imported by importer" {
+			t.Fatalf("after an import of %d lots: %+v %v", res.Added, bs, err)
+		}
+		if ev, _ := outboxRows(t, db); ev != 0 {
+			t.Errorf("an import wrote %d lot events", ev)
+		}
+		if err := db.FinishAlertBatch(ctx, bs[0].ID, nil); err != nil {
+			t.Fatal(err)
+		}
+		lots, err := db.Lots(ctx, p.ID, time.Time{}, time.Time{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		l := lots[10]
+		in := l.LotInput
+		in.Count = 7
+		if _, err := db.CorrectLot(ctx, "kim", "count misread", l.ID, in); err != nil {
+			t.Fatal(err)
+		}
+		evs, err := db.ClaimAlertEvents(ctx, "one", time.Minute, 100)
+		if err != nil || len(evs) != 1+RuleLookBack || evs[0].LotID != l.ID || evs[1].LotID != lots[11].ID || evs[RuleLookBack].LotID != lots[10+RuleLookBack].ID ||
+			evs[0].Cause != "lot M0010 corrected by kim: count misread" {
+			t.Fatalf("after a correction: %d events %+v (%v)", len(evs), evs, err)
+		}
+		if err := db.VoidLot(ctx, "kim", "wrong line", lots[20].ID); err != nil {
+			t.Fatal(err)
+		}
+		evs, err = db.ClaimAlertEvents(ctx, "one", time.Minute, 100)
+		if err != nil || len(evs) != RuleLookBack || evs[0].LotID != lots[21].ID || evs[0].Cause != "lot M0020 voided by kim: wrong line" {
+			t.Fatalf("after a void: %d events %+v (%v)", len(evs), evs, err)
+		}
+		from := t0.Add(500 * time.Minute)
+		if _, err := db.FreezeLimitSet(ctx, "ann", LimitSet{ProcessID: p.ID, Method: spc.MethodSigma, K: 3, Center: 0.01, EffectiveFrom: from, Reason: "new die"}); err != nil {
+			t.Fatal(err)
+		}
+		bs, err = db.ClaimAlertBatches(ctx, "one", time.Minute, 10)
+		if err != nil || len(bs) != 1 || bs[0].Kind != BatchLimits || !bs[0].From.Equal(from) || bs[0].Cause != "limit set 1 frozen by ann: new die" {
+			t.Fatalf("after a freeze: %+v %v", bs, err)
 		}
 	})
 }

@@ -221,8 +221,11 @@ func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportO
 			return ve
 		}
 		res.FileSHA256 = hex.EncodeToString(h.Sum(nil))
-		return a.finish("import", nil, map[string]any{"file_sha256": res.FileSHA256, "rows": res.Rows,
-			"unchanged": res.Unchanged, "conflicts": len(res.Conflicts) + res.MoreConflicts})
+		if err := a.finish("import", nil, map[string]any{"file_sha256": res.FileSHA256, "rows": res.Rows,
+			"unchanged": res.Unchanged, "conflicts": len(res.Conflicts) + res.MoreConflicts}); err != nil {
+			return err
+		}
+		return a.queueAlertImport()
 	})
 	if err != nil {
 		return ImportResult{}, err

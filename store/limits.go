@@ -137,7 +137,11 @@ func (db *DB) FreezeLimitSet(ctx context.Context, actor string, ls LimitSet) (Li
 			return err
 		}
 		ls.ProcessID = p.ID
-		return w.audit(actor, "freeze", "limitset", ls.ID, ls.ID, nil, limitSetRecord(ls), ls.Reason)
+		if err := w.audit(actor, "freeze", "limitset", ls.ID, ls.ID, nil, limitSetRecord(ls), ls.Reason); err != nil {
+			return err
+		}
+		return w.queueAlertBatch(AlertBatch{ProcessID: p.ID, Kind: BatchLimits, From: ls.EffectiveFrom,
+			Cause: fmt.Sprintf("limit set %d frozen by %s: %s", ls.Number, actor, ls.Reason)})
 	})
 	if err != nil {
 		return LimitSet{}, err

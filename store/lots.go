@@ -562,7 +562,10 @@ func (db *DB) CorrectLot(ctx context.Context, actor, reason string, id int64, in
 		if err := w.bumpVersion(p.ID, true); err != nil {
 			return err
 		}
-		return w.audit(actor, "correct", "lot", id, id, contentOf(old.LotInput, false), contentOf(in, false), reason)
+		if err := w.audit(actor, "correct", "lot", id, id, contentOf(old.LotInput, false), contentOf(in, false), reason); err != nil {
+			return err
+		}
+		return w.queueAlertCorrection(p.ID, id, old.Time, in.Time, fmt.Sprintf("lot %s corrected by %s: %s", in.Lot, actor, reason))
 	})
 	if err != nil {
 		return Lot{}, err
@@ -598,7 +601,10 @@ func (db *DB) VoidLot(ctx context.Context, actor, reason string, id int64) error
 		if err := w.bumpVersion(p.ID, true); err != nil {
 			return err
 		}
-		return w.audit(actor, "void", "lot", id, id, contentOf(old.LotInput, false), contentOf(old.LotInput, true), reason)
+		if err := w.audit(actor, "void", "lot", id, id, contentOf(old.LotInput, false), contentOf(old.LotInput, true), reason); err != nil {
+			return err
+		}
+		return w.queueAlertFollowing(p.ID, id, old.Time, false, fmt.Sprintf("lot %s voided by %s: %s", old.Lot, actor, reason))
 	})
 }
 

@@ -58,10 +58,12 @@ func (s *Server) RunAlerts(ctx context.Context) { s.alerts.Run(ctx) }
 
 // judgeLots is the alert.Judge of the server: the lots' points on the
 // process's chart as the chart page shows it (the whole record against
-// the limit sets): out of limits, and the signals each lot completes or
-// extends (a signal whose last lot it is), of the kind the attention
-// model gives them (attention.SignalKind: run_rule, or shift for the
-// small-shift monitors).
+// the limit sets): out of limits, and the signals of the kind the
+// attention model gives them (attention.SignalKind: run_rule, or shift for
+// the small-shift monitors). A signal is the lot's when the lot starts it
+// (completes its pattern, spc.Signal.Start); the lots after it that keep
+// the pattern going only extend it (Verdict.Extends), so that a run of 30
+// lots above the centre line is one alert, not 23.
 func (s *Server) judgeLots(ctx context.Context, p store.Process, ids []int64) (map[int64]alert.Verdict, error) {
 	pc, err := s.freshChart(ctx, p)
 	if err != nil {
@@ -92,23 +94,39 @@ func (s *Server) judgeLots(ctx context.Context, p store.Process, ids []int64) (m
 		at[i] = l.ID
 	}
 	for _, sg := range pc.a.Signals {
-		id, ok := at[sg.Last]
-		if !ok {
-			continue
-		}
-		v := out[id]
-		v.Rules = append(v.Rules, sg.Rule.String())
-		if k := string(attention.SignalKind(sg.Rule)); k != store.TriggerOutOfLimits {
-			if !hasString(v.Kinds, k) {
-				v.Kinds = append(v.Kinds, k)
+		k := string(attention.SignalKind(sg.Rule))
+		for i := max(sg.First, sg.Start); i <= sg.Last; i++ {
+			id, ok := at[i]
+			if !ok {
+				continue
 			}
-			v.Words = joinWords(v.Words, sg.Description)
+			v := out[id]
+			switch {
+			case k == store.TriggerOutOfLimits:
+				// A lot beyond a limit alerts by itself (above); the
+				// rule is named on each such lot.
+				if hasString(v.Kinds, k) {
+					v.Rules = append(v.Rules, sg.Rule.String())
+				}
+			case i == sg.Start:
+				v.Rules = append(v.Rules, sg.Rule.String())
+				if !hasString(v.Kinds, k) {
+					v.Kinds = append(v.Kinds, k)
+				}
+				v.Words = joinWords(v.Words, sg.Description)
+			default:
+				v.ExtendRules = append(v.ExtendRules, sg.Rule.String())
+				if !hasString(v.Extends, k) {
+					v.Extends = append(v.Extends, k)
+				}
+				v.ExtendWords = joinWords(v.ExtendWords, "extends: "+sg.Description)
+			}
+			out[id] = v
 		}
-		out[id] = v
 	}
 	for id, v := range out {
 		if v.Words == "" {
-			v.Words = "within limits"
+			v.Words = alert.WithinLimits
 			out[id] = v
 		}
 	}
@@ -242,8 +260,11 @@ func (s *Server) addAlertRule(w http.ResponseWriter, r *http.Request) {
 		on[t] = true
 		list = append(list, t)
 	}
+	if r.PostFormValue("each_lot") != "" {
+		vals["each_lot"] = "1"
+	}
 	var problems []string
-	rule := store.AlertRule{Secret: r.PostFormValue("secret")}
+	rule := store.AlertRule{Secret: r.PostFormValue("secret"), EachLot: vals["each_lot"] != ""}
 	pid, err := strconv.ParseInt(vals["process"], 10, 64)
 	if err != nil {
 		problems = append(problems, fmt.Sprintf("process %q: choose a process", vals["process"]))

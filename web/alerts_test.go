@@ -487,8 +487,12 @@ func TestAlertRuleForm(t *testing.T) {
 		t.Fatalf("add: status %d: %s", rec.Code, rec.Body.String())
 	}
 	rs, _ := e.db.AlertRules(context.Background())
-	if len(rs) != 1 || rs[0].Webhook != "http://10.1.2.3:8080/hook" || rs[0].UnexplainedAfter != 2*time.Hour || strings.Join(rs[0].On, ",") != "out_of_limits,unexplained" {
+	if len(rs) != 1 || rs[0].Webhook != "http://10.1.2.3:8080/hook" || rs[0].UnexplainedAfter != 2*time.Hour || strings.Join(rs[0].On, ",") != "out_of_limits,unexplained" || rs[0].EachLot {
 		t.Errorf("stored %+v", rs)
+	}
+	rec = post("process=" + pid + "&target=webhook&webhook=http://10.1.2.3:8080/runs&secret=s&on=run_rule&each_lot=1")
+	if rs, _ := e.db.AlertRules(context.Background()); rec.Code != http.StatusSeeOther || len(rs) != 2 || !rs[1].EachLot {
+		t.Errorf("add with each_lot: status %d, stored %+v", rec.Code, rs)
 	}
 }
 

@@ -24,8 +24,8 @@ func init() {
 }
 
 const alertHelp = `Usage:
-  lotwatch alert add --db FILE --process NAME --webhook URL --secret S [--on LIST] [--unexplained-after DURATION] [--as NAME]
-  lotwatch alert add --db FILE --process NAME --email ADDR [--on LIST] [--unexplained-after DURATION] [--as NAME]
+  lotwatch alert add --db FILE --process NAME --webhook URL --secret S [--on LIST] [--each-lot] [--unexplained-after DURATION] [--as NAME]
+  lotwatch alert add --db FILE --process NAME --email ADDR [--on LIST] [--each-lot] [--unexplained-after DURATION] [--as NAME]
   lotwatch alert list --db FILE [--format text|json]
   lotwatch alert remove --db FILE --id N [--as NAME]
 
@@ -33,7 +33,9 @@ An alert rule sends a message when a lot of its process signals, while
 "lotwatch serve" runs: to a webhook (a chat channel, a paging system; the
 message is signed as the Standard Webhooks specification says, with the
 secret) or to an e-mail address (serve --smtp-addr and --smtp-from).
-"add" prints the new rule's id first.
+"add" prints the new rule's id first. Lots posted, corrected or voided
+alert one by one; an imported file and frozen limits that judge stored
+lots again send one message naming the lots that signal.
 
 Options:
   --db FILE          the lotwatch database file
@@ -45,12 +47,17 @@ Options:
   --email ADDR       an e-mail address, instead of a webhook
   --on LIST          what raises an alert, a comma list of:
                        out_of_limits  a lot beyond a control limit
-                       run_rule       a lot completing or extending a
-                                      run-rule signal
-                       shift          a small-shift monitor signals
+                       run_rule       a lot completing a run-rule
+                                      signal (where it starts)
+                       shift          a small-shift monitor (CUSUM,
+                                      EWMA) signals at the lot
                        unexplained    a signalling lot with no recorded
                                       cause after --unexplained-after
                      (default out_of_limits,run_rule,shift)
+  --each-lot         also alert on every lot that extends a run-rule or
+                     shift signal already alerted (by default only the
+                     lot where a signal starts alerts; unexplained
+                     reminds of it)
   --unexplained-after DURATION
                      the delay of unexplained, e.g. 4h or 90m (default 4h)
   --id N             the rule number shown by list
@@ -98,6 +105,7 @@ func runAlertAdd(args []string, stdout, stderr io.Writer) int {
 	email := fs.String("email", "", "")
 	on := fs.String("on", "", "")
 	after := fs.String("unexplained-after", "", "")
+	eachLot := fs.Bool("each-lot", false, "")
 	as := fs.String("as", "", "")
 	pos, code, done := cliParse(fs, args, alertHelp, stdout, stderr)
 	if done {
@@ -123,7 +131,7 @@ func runAlertAdd(args []string, stdout, stderr io.Writer) int {
 	if len(ps) > 0 {
 		return fail(alertProblem(ps[0]))
 	}
-	r := store.AlertRule{Webhook: *webhook, Secret: *secret, Email: *email, On: triggers}
+	r := store.AlertRule{Webhook: *webhook, Secret: *secret, Email: *email, On: triggers, EachLot: *eachLot}
 	if *after != "" {
 		d, err := time.ParseDuration(*after)
 		if err != nil {
@@ -217,10 +225,11 @@ func runAlertList(args []string, stdout, stderr io.Writer) int {
 			Target           string   `json:"target"`
 			On               []string `json:"on"`
 			UnexplainedAfter string   `json:"unexplained_after"`
+			EachLot          bool     `json:"each_lot"`
 		}
 		out := []rj{}
 		for _, r := range rules {
-			out = append(out, rj{r.ID, r.Process, r.Target(), r.On, shortDuration(r.UnexplainedAfter)})
+			out = append(out, rj{r.ID, r.Process, r.Target(), r.On, shortDuration(r.UnexplainedAfter), r.EachLot})
 		}
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
@@ -228,9 +237,13 @@ func runAlertList(args []string, stdout, stderr io.Writer) int {
 		return exitOK
 	}
 	tw := tabwriter.NewWriter(stdout, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "ID\tPROCESS\tTARGET\tON\tUNEXPLAINED AFTER")
+	fmt.Fprintln(tw, "ID\tPROCESS\tTARGET\tON\tUNEXPLAINED AFTER\tEACH LOT")
 	for _, r := range rules {
-		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%s\n", r.ID, r.Process, r.Target(), strings.Join(r.On, ","), orNone(shortDuration(r.UnexplainedAfter)))
+		each := "no"
+		if r.EachLot {
+			each = "yes"
+		}
+		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%s\t%s\n", r.ID, r.Process, r.Target(), strings.Join(r.On, ","), orNone(shortDuration(r.UnexplainedAfter)), each)
 	}
 	tw.Flush()
 	return exitOK

@@ -116,7 +116,7 @@ func (w *Worker) escalateProcess(ctx context.Context, pid int64, rules []store.A
 		if !ok {
 			continue
 		}
-		body, err := encode(lotMessage(TypeUnexplained, p, v, now, w.cfg.PublicURL))
+		body, err := encode(lotMessage(TypeUnexplained, p, v, now, w.cfg.PublicURL, ""))
 		if err != nil {
 			return nil, err
 		}

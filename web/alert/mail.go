@@ -55,9 +55,9 @@ func NewMailer(cfg MailConfig) (*Mailer, error) {
 // The Message-ID is derived from msgID, so repeats can be recognised. It
 // returns the server's reply code when the server refused.
 func (m *Mailer) Send(ctx context.Context, to, msgID string, body []byte) (int, error) {
-	var msg Message
-	if err := json.Unmarshal(body, &msg); err != nil {
-		return 0, fmt.Errorf("the stored message is unreadable: %w", err)
+	msg, err := readMail(body)
+	if err != nil {
+		return 0, err
 	}
 	em, err := m.compose(to, msgID, msg)
 	if err != nil {
@@ -81,10 +81,50 @@ func (m *Mailer) Send(ctx context.Context, to, msgID string, body []byte) (int, 
 	return 250, nil
 }
 
-// Subject is the e-mail subject of a message: process, lot and verdict.
+// mailFacts is what an e-mail says: a message about one lot, or (Batch
+// set) about a change that judged many.
+type mailFacts struct {
+	Type  string
+	Data  LotData
+	Batch *BatchData
+}
+
+// readMail reads a stored message body (a webhook body) for mailing.
+func readMail(body []byte) (mailFacts, error) {
+	var head struct {
+		Type string          `json:"type"`
+		Data json.RawMessage `json:"data"`
+	}
+	err := json.Unmarshal(body, &head)
+	f := mailFacts{Type: head.Type}
+	if err == nil && head.Type == TypeBatch {
+		f.Batch = &BatchData{}
+		err = json.Unmarshal(head.Data, f.Batch)
+	} else if err == nil {
+		err = json.Unmarshal(head.Data, &f.Data)
+	}
+	if err != nil {
+		return mailFacts{}, fmt.Errorf("the stored message is unreadable: %w", err)
+	}
+	return f, nil
+}
+
+// Subject is the e-mail subject of a message: process, lot and verdict
+// (for a batch, the process, the change and how many lots signal).
 func Subject(msg Message) string {
-	d := msg.Data
-	switch msg.Type {
+	return mailFacts{Type: msg.Type, Data: msg.Data}.subject()
+}
+
+func (f mailFacts) subject() string {
+	if b := f.Batch; b != nil {
+		lots := "lots signal"
+		if b.Signalling == 1 {
+			lots = "lot signals"
+		}
+		return fmt.Sprintf("lotwatch: %s: %d %s after %s", b.Process, b.Signalling, lots, b.Cause)
+	}
+	d := f.Data
+	switch f.Type {
 	case TypeTest:
 		return fmt.Sprintf("lotwatch test alert for %s", d.Process)
 	case TypeUnexplained:
@@ -93,12 +133,22 @@ func Subject(msg Message) string {
 	return fmt.Sprintf("lotwatch: %s lot %s %s", d.Process, d.Lot, d.Verdict)
 }
 
-var plainMail = textTemplate.Must(textTemplate.New("plain").Parse(`{{if eq .Type "alert.test"}}This is a test alert from lotwatch for process {{.Data.Process}}: the rule's e-mail address is reached.
+var plainMail = textTemplate.Must(textTemplate.New("plain").Parse(`{{if .Batch}}{{with .Batch}}Process:  {{.Process}}
+Change:   {{.Cause}}
+Verdict:  {{.Verdict}}
+{{range .Lots}}
+- lot {{.Lot}} (logged {{.Time}}): {{.Verdict}}; value {{.Value}} (limits {{.LCL}} to {{.UCL}}) {{.URL}}{{end}}
+{{if .More}}
+… and {{.More}} more signalling lots: see the chart.
+{{end}}
+Open the chart: {{.URL}}
+{{end}}{{else if eq .Type "alert.test"}}This is a test alert from lotwatch for process {{.Data.Process}}: the rule's e-mail address is reached.
 {{else}}Process:  {{.Data.Process}}
 Lot:      {{.Data.Lot}} (logged {{.Data.Time}})
 Verdict:  {{.Data.Verdict}}
 Value:    {{.Data.Value}} (limits {{.Data.LCL}} to {{.Data.UCL}})
-{{if eq .Type "lot.unexplained"}}
+{{with .Data.Cause}}Judged again after: {{.}}
+{{end}}{{if eq .Type "lot.unexplained"}}
 No cause has been recorded for this lot yet. Recording one on the lot page
 stops these reminders.
 {{end}}
@@ -110,12 +160,21 @@ follow the plant's quality system for release and containment.
 
 var htmlMail = template.Must(template.New("html").Parse(`<!doctype html>
 <html><body>
-{{if eq .Type "alert.test"}}<p>This is a test alert from lotwatch for process <b>{{.Data.Process}}</b>: the rule's e-mail address is reached.</p>
+{{if .Batch}}{{with .Batch}}<table>
+<tr><th align="left">Process</th><td>{{.Process}}</td></tr>
+<tr><th align="left">Change</th><td>{{.Cause}}</td></tr>
+<tr><th align="left">Verdict</th><td>{{.Verdict}}</td></tr>
+</table>
+<ul>{{range .Lots}}<li><a href="{{.URL}}">lot {{.Lot}}</a> (logged {{.Time}}): {{.Verdict}}; value {{.Value}} (limits {{.LCL}} to {{.UCL}})</li>{{end}}</ul>
+{{if .More}}<p>… and {{.More}} more signalling lots: see the chart.</p>{{end}}
+<p><a href="{{.URL}}">Open the chart in lotwatch</a></p>
+{{end}}{{else if eq .Type "alert.test"}}<p>This is a test alert from lotwatch for process <b>{{.Data.Process}}</b>: the rule's e-mail address is reached.</p>
 {{else}}<table>
 <tr><th align="left">Process</th><td>{{.Data.Process}}</td></tr>
 <tr><th align="left">Lot</th><td>{{.Data.Lot}} (logged {{.Data.Time}})</td></tr>
 <tr><th align="left">Verdict</th><td>{{.Data.Verdict}}</td></tr>
 <tr><th align="left">Value</th><td>{{.Data.Value}} (limits {{.Data.LCL}} to {{.Data.UCL}})</td></tr>
+{{with .Data.Cause}}<tr><th align="left">Judged again after</th><td>{{.}}</td></tr>{{end}}
 </table>
 {{if eq .Type "lot.unexplained"}}<p>No cause has been recorded for this lot yet. Recording one on the lot page stops these reminders.</p>{{end}}
 <p><a href="{{.Data.URL}}">Open the lot in lotwatch</a></p>
@@ -125,7 +184,7 @@ var htmlMail = template.Must(template.New("html").Parse(`<!doctype html>
 
 // compose builds the e-mail: the subject, a plain-text part and an HTML
 // part with the same facts and the link.
-func (m *Mailer) compose(to, msgID string, msg Message) (*mail.Msg, error) {
+func (m *Mailer) compose(to, msgID string, msg mailFacts) (*mail.Msg, error) {
 	em := mail.NewMsg()
 	if err := em.From(m.cfg.From); err != nil {
 		return nil, err
@@ -133,7 +192,7 @@ func (m *Mailer) compose(to, msgID string, msg Message) (*mail.Msg, error) {
 	if err := em.To(to); err != nil {
 		return nil, err
 	}
-	em.Subject(Subject(msg))
+	em.Subject(msg.subject())
 	em.SetMessageIDWithValue(strings.ReplaceAll(msgID, "@", "_") + "@lotwatch")
 	em.SetDate()
 	var plain, html bytes.Buffer

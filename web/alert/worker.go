@@ -157,6 +157,9 @@ func (w *Worker) Step(ctx context.Context) error {
 			break
 		}
 	}
+	if err := w.judgeBatches(ctx); err != nil {
+		return err
+	}
 	if err := w.escalate(ctx); err != nil {
 		return err
 	}
@@ -257,7 +260,7 @@ func (w *Worker) judgeProcess(ctx context.Context, pid int64, es []store.AlertEv
 			if len(matches(r, v)) == 0 {
 				continue
 			}
-			body, err := encode(lotMessage(TypeSignal, p, v, e.Created, w.cfg.PublicURL))
+			body, err := encode(lotMessage(TypeSignal, p, heard(r, v), e.Created, w.cfg.PublicURL, e.Cause))
 			if err != nil {
 				return nil, err
 			}
