@@ -13,6 +13,7 @@ import (
 	"time"
 
 	"lotwatch/spc"
+	"lotwatch/spc/chartjson"
 	"lotwatch/store"
 	"lotwatch/web/alert"
 )
@@ -154,7 +155,7 @@ func TestAlertShiftSignal(t *testing.T) {
 	}
 	// Where the chart says the shift signals start.
 	rec := e.do(req{method: "GET", path: fmt.Sprintf("/api/v1/processes/%d/chart", p.ID), token: e.tokens[store.RoleViewer]})
-	var chart ChartJSON
+	var chart chartjson.Chart
 	if err := json.Unmarshal(rec.Body.Bytes(), &chart); err != nil {
 		t.Fatal(err)
 	}
