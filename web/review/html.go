@@ -33,6 +33,7 @@ const Stylesheet = `.lw-review{font-family:sans-serif;color:#222;max-width:60rem
 .lw-review table.lw-summary td,.lw-review table.lw-summary th{padding:.15rem .4rem}
 .lw-review table.lw-summary .verdict{font-weight:normal}
 .lw-review .rise{font-weight:bold}
+.lw-review .lw-glance{font-weight:bold}
 @media (max-width:40rem){.lw-review th,.lw-review td{padding:.15rem .25rem;font-size:.85rem}}
 @media print{
 .lw-summary-block{break-after:page;page-break-after:always}
@@ -87,6 +88,7 @@ var fragmentTmpl = template.Must(template.New("fragment").Funcs(funcs).Parse(`<d
 {{if not .Processes}}<p>No processes to review.</p>{{end}}
 {{if .Processes}}<section class="lw-summary-block">
 <h2>Summary{{if .Filtered}} <span class="muted">({{len .Rows}} of {{len .Processes}} processes)</span>{{end}}</h2>
+<p class="lw-glance">{{.Glance.Sentence}}</p>
 <p>Processes asking most for attention first: a rise unlikely from sampling alone, lots outside their limits or in run-rule signals with no cause recorded, a rise too close to call. "Outside limits" and "Signals" count the week's; "Lots needing attention" counts every lot of the record, of any age, flagged and not yet explained.</p>
 {{with .Chance.Sentence .FDR}}<p>{{.}}</p>{{end}}
 <div class="lw-scroll"><table class="lw-summary">

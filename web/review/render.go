@@ -108,6 +108,7 @@ func (r *Review) WriteText(w io.Writer) error {
 	}
 	byConcern := r.ByConcern()
 	if len(byConcern) > 0 {
+		fmt.Fprintf(b, "\n%s\n", r.Glance().Sentence())
 		b.WriteString("\nSummary (processes asking most for attention first):\n")
 		if s := r.Chance.Sentence(r.FDR); s != "" {
 			fmt.Fprintf(b, "%s\n", s)
@@ -286,8 +287,22 @@ type jsonReview struct {
 		AfterFDR int     `json:"stated_after_fdr"`
 		Sentence string  `json:"sentence"`
 	} `json:"multiplicity"`
+	Glance    jsonGlance    `json:"at_a_glance"`
 	Processes []jsonProcess `json:"processes"`
 	Caution   string        `json:"caution"`
+}
+
+// jsonGlance is Glance: counts of processes, and of lots needing attention.
+type jsonGlance struct {
+	Processes     int    `json:"processes"`
+	Rises         int    `json:"rises"`
+	Falls         int    `json:"falls"`
+	NotCompared   int    `json:"not_compared"`
+	Unexplained   int    `json:"unexplained"`
+	Shifts        int    `json:"shifts"`
+	NeedProcesses int    `json:"needing_attention"`
+	NeedLots      int    `json:"lots_needing_attention"`
+	Sentence      string `json:"sentence"`
 }
 
 type jsonProcess struct {
@@ -430,6 +445,8 @@ func (r *Review) jsonValue() jsonReview {
 	out := jsonReview{Week: r.Week, From: r.FirstDay.Format(dateOnly), To: r.LastDay.Format(dateOnly),
 		Method: string(r.Method), Level: r.Level, TrendWeeks: r.TrendWeeks, Generated: r.Generated.UTC().Format(time.RFC3339),
 		Processes: make([]jsonProcess, 0, len(r.Processes)), Caution: Caution, FDR: r.FDR}
+	g := r.Glance()
+	out.Glance = jsonGlance{g.Processes, g.Rises, g.Falls, g.NotCompared, g.Unexplained, g.Shifts, g.NeedProcesses, g.NeedLots, g.Sentence()}
 	m := r.Chance
 	out.Chance.Compared, out.Chance.Alpha, out.Chance.Expected = m.Compared, m.Alpha, m.Expected
 	out.Chance.Stated, out.Chance.AfterFDR, out.Chance.Sentence = m.Stated, m.AfterFDR, m.Sentence(r.FDR)

@@ -226,3 +226,28 @@ func TestShiftWording(t *testing.T) {
 		t.Errorf("CSV %v: want shift_signals %d", rows, pr.Shifts())
 	}
 }
+
+// TestGlance: the lines at the head of a plant-wide review count the
+// processes by what they ask for, each process's own figures summed.
+func TestGlance(t *testing.T) {
+	rise := Change{Compared: true, Difference: 0.02, Verdict: "a rise unlikely from sampling alone (p = 0.001)"}
+	fall := Change{Compared: true, Difference: -0.02, Verdict: "a fall unlikely from sampling alone (p = 0.002)"}
+	quiet := Change{Compared: true, Difference: 0.001, Verdict: "within what sampling alone produces (p = 0.6)"}
+	r := &Review{Processes: []*ProcessReview{
+		{Change: rise, NeedAttention: 3, Signals: []Signal{{Rule: "cusum", Kind: "shift"}}},
+		{Change: fall, OutOfLimits: []OutOfLimit{{}}},
+		{Change: quiet, NeedAttention: 1, OutOfLimits: []OutOfLimit{{Annotations: []store.Annotation{{Cause: "jam"}}}}},
+		{Change: Change{Verdict: VerdictNoLots}},
+	}}
+	want := Glance{Processes: 4, Rises: 1, Falls: 1, NotCompared: 1, Unexplained: 2, Shifts: 1, NeedProcesses: 2, NeedLots: 4}
+	if g := r.Glance(); g != want {
+		t.Errorf("glance %+v, want %+v", g, want)
+	}
+	s := want.Sentence()
+	for _, w := range []string{"of 4 processes: 1 with a rise", "2 with lots beyond their limits or signals this week and no cause recorded",
+		"2 with lots of the record needing attention (4 lots)", "1 could not be compared"} {
+		if !strings.Contains(s, w) {
+			t.Errorf("%q lacks %q", s, w)
+		}
+	}
+}

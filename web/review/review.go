@@ -910,6 +910,73 @@ func (pr *ProcessReview) concern() int {
 	return rank
 }
 
+// Glance counts the processes of a review by what they ask for: the first
+// lines a reader of a plant-wide review sees, before the table of every
+// process.
+type Glance struct {
+	Processes int
+	// Rises and Falls count the changes stated (unlikely from sampling
+	// alone, on the p-values the verdicts use); NotCompared the processes
+	// without lots in one of the two weeks.
+	Rises, Falls, NotCompared int
+	// Unexplained counts the processes with lots of the week beyond their
+	// limits or signals with no cause recorded; Shifts those with a
+	// sustained small shift (CUSUM or EWMA) touching the week.
+	Unexplained, Shifts int
+	// NeedProcesses counts the processes with lots of the record, of any
+	// age, needing attention, and NeedLots those lots.
+	NeedProcesses, NeedLots int
+}
+
+// Glance counts the review's processes by what they ask for.
+func (r *Review) Glance() Glance {
+	g := Glance{Processes: len(r.Processes)}
+	for _, pr := range r.Processes {
+		c := pr.Change
+		switch {
+		case !c.Compared:
+			g.NotCompared++
+		case c.StatesChange() && c.Difference > 0:
+			g.Rises++
+		case c.StatesChange() && c.Difference < 0:
+			g.Falls++
+		}
+		if pr.Unexplained() > 0 {
+			g.Unexplained++
+		}
+		if pr.Shifts() > 0 {
+			g.Shifts++
+		}
+		if pr.NeedAttention > 0 {
+			g.NeedProcesses++
+			g.NeedLots += pr.NeedAttention
+		}
+	}
+	return g
+}
+
+// Sentence says the counts in plain words.
+func (g Glance) Sentence() string {
+	of := func(n int, what string) string {
+		if n == 1 {
+			return "1 " + what
+		}
+		return strconv.Itoa(n) + " " + what
+	}
+	parts := []string{
+		of(g.Rises, "with a rise unlikely from sampling alone"),
+		of(g.Falls, "with a fall unlikely from sampling alone"),
+		of(g.Unexplained, "with lots beyond their limits or signals this week and no cause recorded"),
+		of(g.Shifts, "with a sustained small shift this week"),
+		fmt.Sprintf("%s of the record needing attention (%s)", of(g.NeedProcesses, "with lots"), plural(g.NeedLots, "lot", "lots")),
+	}
+	s := "At a glance, of " + plural(g.Processes, "process", "processes") + ": " + strings.Join(parts, "; ") + "."
+	if g.NotCompared > 0 {
+		s += " " + of(g.NotCompared, "could not be compared (no lots in one of the two weeks).")
+	}
+	return s
+}
+
 // ByConcern returns the processes of the review, those asking most for
 // attention first (a stated rise, unexplained lots outside their limits or
 // signals or lots needing attention, a rise too close to call, a stated
