@@ -13,6 +13,7 @@ import (
 	"lotwatch/spc"
 	"lotwatch/store"
 	"lotwatch/web/review"
+	"lotwatch/web/review/report"
 )
 
 // trickyRecord stores a process whose record tests the review's reuse of
@@ -104,16 +105,16 @@ func TestReviewFromKeptRecordsAsWhole(t *testing.T) {
 
 	render := func(r *review.Review) string {
 		var b bytes.Buffer
-		if err := r.WriteJSON(&b); err != nil {
+		if err := report.WriteJSON(&b, r); err != nil {
 			t.Fatal(err)
 		}
-		if err := r.WriteText(&b); err != nil {
+		if err := report.WriteText(&b, r); err != nil {
 			t.Fatal(err)
 		}
-		if err := r.WriteCSV(&b); err != nil {
+		if err := report.WriteCSV(&b, r); err != nil {
 			t.Fatal(err)
 		}
-		h, err := r.HTMLFragment()
+		h, err := report.HTMLFragment(r)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -139,7 +140,7 @@ func TestReviewFromKeptRecordsAsWhole(t *testing.T) {
 				checkTricky(t, e, p, whole)
 				rec := e.do(req{method: "GET", path: "/review/download?" + url.Values{"format": {"json"}, "week": {opt.Week}}.Encode(), cookie: c})
 				var b bytes.Buffer
-				whole.WriteJSON(&b)
+				report.WriteJSON(&b, whole)
 				if rec.Code != 200 || rec.Body.String() != b.String() {
 					t.Errorf("the served review's JSON (status %d) differs from the whole record's:\n%s", rec.Code, firstDiff(b.String(), rec.Body.String()))
 				}

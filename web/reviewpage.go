@@ -17,6 +17,7 @@ import (
 	"lotwatch/store"
 	"lotwatch/web/attention"
 	"lotwatch/web/review"
+	"lotwatch/web/review/report"
 )
 
 type reviewPageData struct {
@@ -87,7 +88,7 @@ func (s *Server) reviewPage(w http.ResponseWriter, r *http.Request) {
 		base.Set("fdr", "1")
 	}
 	d.Query = base.Encode()
-	v := review.View{MaxDetails: reviewMaxDetails, DetailURL: func(pr *review.ProcessReview) string {
+	v := report.View{MaxDetails: reviewMaxDetails, DetailURL: func(pr *review.ProcessReview) string {
 		u := url.Values{"week": {rv.Week}, "process": {pr.Process.Name}}
 		if opt.FDR {
 			u.Set("fdr", "1")
@@ -107,7 +108,7 @@ func (s *Server) reviewPage(w http.ResponseWriter, r *http.Request) {
 			return strings.Contains(strings.ToLower(pr.Process.Name), f) && (area == "" || pr.Process.Area == area)
 		}
 	}
-	if d.Fragment, err = rv.HTMLView(v); err != nil {
+	if d.Fragment, err = report.HTMLView(rv, v); err != nil {
 		s.internalError(w, r, err)
 		return
 	}
@@ -136,11 +137,11 @@ func (s *Server) reviewDownload(w http.ResponseWriter, r *http.Request) {
 	var b bytes.Buffer
 	switch format {
 	case "html":
-		err = rv.WriteHTML(&b)
+		err = report.WriteHTML(&b, rv)
 	case "csv":
-		err = rv.WriteCSV(&b)
+		err = report.WriteCSV(&b, rv)
 	case "json":
-		err = rv.WriteJSON(&b)
+		err = report.WriteJSON(&b, rv)
 	}
 	if err != nil {
 		s.internalError(w, r, err)
@@ -159,7 +160,7 @@ func reviewCSS(w http.ResponseWriter, r *http.Request) {
 	h := w.Header()
 	h.Set("Content-Type", "text/css; charset=utf-8")
 	h.Set("Cache-Control", "public, max-age=3600")
-	w.Write([]byte(review.Stylesheet))
+	w.Write([]byte(report.Stylesheet))
 }
 
 type planPageData struct {

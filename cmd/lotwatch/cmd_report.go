@@ -12,6 +12,7 @@ import (
 	"lotwatch/spc"
 	"lotwatch/store"
 	"lotwatch/web/review"
+	"lotwatch/web/review/report"
 )
 
 func init() {
@@ -144,13 +145,13 @@ func runReport(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	var b bytes.Buffer
 	switch *format {
 	case "html":
-		err = r.WriteHTML(&b)
+		err = report.WriteHTML(&b, r)
 	case "csv":
-		err = r.WriteCSV(&b)
+		err = report.WriteCSV(&b, r)
 	case "json":
-		err = r.WriteJSON(&b)
+		err = report.WriteJSON(&b, r)
 	default:
-		err = r.WriteText(&b) // carries review.Caution, which covers caution
+		err = report.WriteText(&b, r) // carries review.Caution, which covers caution
 	}
 	if err != nil {
 		fmt.Fprintf(stderr, "lotwatch report: %v\n", err)

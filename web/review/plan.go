@@ -56,7 +56,7 @@ func CurrentCentre(ctx context.Context, src Source, p store.Process) (Centre, er
 		// The frozen centre is p̄ for p and np charts, as spc.Standard
 		// takes it.
 		c.P0, c.LimitSet = ls.Center, ls.Number
-		c.Source = fmt.Sprintf("centre of limit set %d, in force from %s", ls.Number, ls.EffectiveFrom.In(p.Location()).Format(dateOnly))
+		c.Source = fmt.Sprintf("centre of limit set %d, in force from %s", ls.Number, ls.EffectiveFrom.In(p.Location()).Format("2006-01-02"))
 		return c, nil
 	}
 	lots, err := src.Lots(ctx, p.ID, time.Time{}, time.Time{})
@@ -166,7 +166,7 @@ func PlanFor(c Centre, req PlanRequest) (*PlanResult, error) {
 		switch {
 		case errors.Is(err, spc.ErrNoPlan):
 			res.SmallestNote = fmt.Sprintf("no lot size up to %d detects a shift to %s within %s lots on average while keeping false alarms to at most one in %s lots", maxN,
-				percent(req.P1)+"%", strconv.FormatFloat(req.TargetARL1, 'g', -1, 64), strconv.FormatFloat(floor, 'g', -1, 64))
+				Percent(req.P1)+"%", strconv.FormatFloat(req.TargetARL1, 'g', -1, 64), strconv.FormatFloat(floor, 'g', -1, 64))
 		case err != nil:
 			return nil, err
 		default:

@@ -1,13 +1,15 @@
-// Package review assembles and renders the weekly review of inspected
+// Package review computes the figures of the weekly review of inspected
 // lots: for one ISO week and each process, the rate with its confidence
 // interval beside the previous week's, the change between them with its
-// interval and test, the week's out-of-limit lots and run-rule signals with
-// their recorded causes, a Pareto of the defect categories, a trend of the
-// weekly rate and the dispersion check of the week's lots.
+// interval, test and verdict, the week's out-of-limit lots and signals
+// with their recorded causes, a Pareto of the defect categories, a trend
+// of the weekly rate and the dispersion check of the week's lots; and the
+// figures of planning a lot size. It judges a process's record against
+// its limit sets (Judge).
 //
-// It reads lots through Source (which *store.DB satisfies) and renders as
-// text, a self-contained HTML document, an HTML fragment for the web
-// pages, CSV or JSON.
+// It reads lots through Source (which *store.DB satisfies); it neither
+// renders nor serves: package report writes a review as text, CSV, JSON
+// and HTML.
 package review
 
 import (
@@ -129,19 +131,12 @@ func (m Multiplicity) Sentence(fdr bool) string {
 		return strconv.Itoa(n) + " " + many
 	}
 	s := fmt.Sprintf("%s compared: %s a change unlikely from sampling alone on its own p-value; chance alone would give about %s such verdicts across %d processes at the %s level even if no process changed.",
-		plural(m.Compared, "process", "processes"), verb(m.Stated, "shows", "show"), strconv.FormatFloat(m.Expected, 'f', 1, 64), m.Compared, levelPercent(m.Alpha))
+		Plural(m.Compared, "process", "processes"), verb(m.Stated, "shows", "show"), strconv.FormatFloat(m.Expected, 'f', 1, 64), m.Compared, LevelPercent(m.Alpha))
 	s += fmt.Sprintf(" With p-values adjusted for the false discovery rate across the review (Benjamini–Hochberg), %s", verb(m.AfterFDR, "remains", "remain"))
 	if fdr {
 		return s + "; the verdicts below use the adjusted p-values."
 	}
 	return s + "; the verdicts below use each process's own p-value."
-}
-
-func plural(n int, one, many string) string {
-	if n == 1 {
-		return "1 " + one
-	}
-	return strconv.Itoa(n) + " " + many
 }
 
 // ProcessReview is the review of one process.
@@ -968,9 +963,9 @@ func (g Glance) Sentence() string {
 		of(g.Falls, "with a fall unlikely from sampling alone"),
 		of(g.Unexplained, "with lots beyond their limits or signals this week and no cause recorded"),
 		of(g.Shifts, "with a sustained small shift this week"),
-		fmt.Sprintf("%s of the record needing attention (%s)", of(g.NeedProcesses, "with lots"), plural(g.NeedLots, "lot", "lots")),
+		fmt.Sprintf("%s of the record needing attention (%s)", of(g.NeedProcesses, "with lots"), Plural(g.NeedLots, "lot", "lots")),
 	}
-	s := "At a glance, of " + plural(g.Processes, "process", "processes") + ": " + strings.Join(parts, "; ") + "."
+	s := "At a glance, of " + Plural(g.Processes, "process", "processes") + ": " + strings.Join(parts, "; ") + "."
 	if g.NotCompared > 0 {
 		s += " " + of(g.NotCompared, "could not be compared (no lots in one of the two weeks).")
 	}

@@ -1,4 +1,8 @@
-package review
+// Package report writes a weekly review (package review computes it) for
+// people and programs: plain text, CSV, JSON, a self-contained HTML
+// document to mail or print, and an HTML fragment for the web pages, with
+// its charts as inline SVG. It computes no figure of its own.
+package report
 
 import (
 	"bufio"
@@ -15,6 +19,7 @@ import (
 	"lotwatch/spc"
 	"lotwatch/store"
 	"lotwatch/web/attention"
+	"lotwatch/web/review"
 )
 
 // dateOnly formats the local date of a time.
@@ -36,21 +41,11 @@ func FormatRate(ch spc.Chart, x float64) string {
 	if math.IsNaN(x) {
 		return "—"
 	}
-	v := percent(x)
+	v := review.Percent(x)
 	if ch.CountsUnits() {
 		return v + "%"
 	}
 	return v + " per 100 units"
-}
-
-// percent writes 100·x with two decimals, or three significant digits
-// when two decimals would hide it.
-func percent(x float64) string {
-	y := 100 * x
-	if y != 0 && math.Abs(y) < 0.01 {
-		return strconv.FormatFloat(y, 'g', 3, 64)
-	}
-	return strconv.FormatFloat(y, 'f', 2, 64)
 }
 
 // formatDiff formats a change of rate: percentage points for p, per 100
@@ -59,7 +54,7 @@ func formatDiff(ch spc.Chart, x float64) string {
 	if math.IsNaN(x) {
 		return "—"
 	}
-	s := percent(x)
+	s := review.Percent(x)
 	if x > 0 {
 		s = "+" + s
 	}
@@ -69,36 +64,23 @@ func formatDiff(ch spc.Chart, x float64) string {
 	return s + " per 100 units"
 }
 
-func levelPercent(level float64) string {
-	return strconv.FormatFloat(level*100, 'g', 6, 64) + "%"
-}
-
 // Interval describes the interval of a week's rate, e.g. "95% Wilson
 // interval 1.80% to 2.95%".
-func (pr *ProcessReview) interval(level float64, st WeekStat) string {
+func interval(pr *review.ProcessReview, level float64, st review.WeekStat) string {
 	if !st.HasLots() {
 		return "no lots inspected"
 	}
 	ch := pr.Process.Chart
-	return fmt.Sprintf("%s %s interval %s to %s", levelPercent(level), pr.Method, FormatRate(ch, st.Lower), FormatRate(ch, st.Upper))
-}
-
-// VerdictText is the verdict with the too-little-data reason, as written
-// in the text and HTML renderings.
-func (c Change) VerdictText() string {
-	if c.Detail != "" {
-		return c.Detail
-	}
-	return c.Verdict
+	return fmt.Sprintf("%s %s interval %s to %s", review.LevelPercent(level), pr.Method, FormatRate(ch, st.Lower), FormatRate(ch, st.Upper))
 }
 
 // WriteText writes the review as plain text.
-func (r *Review) WriteText(w io.Writer) error {
+func WriteText(w io.Writer, r *review.Review) error {
 	b := bufio.NewWriter(w)
 	fmt.Fprintf(b, "Weekly review %s (Monday %s to Sunday %s, each process on its own clocks)\n",
 		r.Week, r.FirstDay.Format(dateOnly), r.LastDay.Format(dateOnly))
 	fmt.Fprintf(b, "Intervals at %s; rates of p and np processes by the %s interval, of u and c processes by the %s interval.\n",
-		levelPercent(r.Level), r.Method, spc.IntervalPoissonExact)
+		review.LevelPercent(r.Level), r.Method, spc.IntervalPoissonExact)
 	if c := r.Method.Caveat(); c != "" {
 		fmt.Fprintf(b, "Note: %s\n", c)
 	}
@@ -117,7 +99,7 @@ func (r *Review) WriteText(w io.Writer) error {
 			ch := pr.Process.Chart
 			shifts := ""
 			if n := pr.Shifts(); n > 0 {
-				shifts = fmt.Sprintf(", %s of a sustained small shift", plural(n, "signal", "signals"))
+				shifts = fmt.Sprintf(", %s of a sustained small shift", review.Plural(n, "signal", "signals"))
 			}
 			fmt.Fprintf(b, "  %s: rate %s, change %s, %s; %d outside limits (%d no cause), %d signals (%d no cause)%s; %d lots of the record need attention\n",
 				pr.Process.Name, FormatRate(ch, pr.Current.Rate), formatDiff(ch, pr.Change.Difference), pr.Change.VerdictText(),
@@ -125,29 +107,29 @@ func (r *Review) WriteText(w io.Writer) error {
 		}
 	}
 	for _, pr := range byConcern {
-		pr.writeText(b, r)
+		writeProcessText(b, r, pr)
 	}
-	fmt.Fprintf(b, "\nCaution: %s\n", Caution)
+	fmt.Fprintf(b, "\nCaution: %s\n", review.Caution)
 	return b.Flush()
 }
 
-func (pr *ProcessReview) writeText(b *bufio.Writer, r *Review) {
+func writeProcessText(b *bufio.Writer, r *review.Review, pr *review.ProcessReview) {
 	p := pr.Process
 	ch := p.Chart
 	loc := p.Location()
 	fmt.Fprintf(b, "\n== %s (%s chart, %s) ==\n", p.Name, ch, p.TimeZone)
-	for _, st := range []WeekStat{pr.Current, pr.Previous} {
+	for _, st := range []review.WeekStat{pr.Current, pr.Previous} {
 		fmt.Fprintf(b, "%s: %d lots, %d inspected, %d %s", st.Week, st.Lots, st.Inspected, st.Count, UnitWord(ch))
 		if st.HasLots() {
-			fmt.Fprintf(b, ", rate %s (%s)", FormatRate(ch, st.Rate), pr.interval(r.Level, st))
+			fmt.Fprintf(b, ", rate %s (%s)", FormatRate(ch, st.Rate), interval(pr, r.Level, st))
 		}
 		b.WriteString("\n")
 	}
 	c := pr.Change
 	if c.Compared {
 		fmt.Fprintf(b, "Change: %s (%s %s interval %s to %s; %s %s; adjusted across the review %s)\n", formatDiff(ch, c.Difference),
-			levelPercent(r.Level), c.Interval, formatDiff(ch, c.Lower), formatDiff(ch, c.Upper), c.Test, FormatP(c.PValue),
-			strings.TrimPrefix(FormatP(c.AdjustedP), "p "))
+			review.LevelPercent(r.Level), c.Interval, formatDiff(ch, c.Lower), formatDiff(ch, c.Upper), c.Test, review.FormatP(c.PValue),
+			strings.TrimPrefix(review.FormatP(c.AdjustedP), "p "))
 	}
 	fmt.Fprintf(b, "Verdict: %s\n", c.VerdictText())
 
@@ -162,7 +144,7 @@ func (pr *ProcessReview) writeText(b *bufio.Writer, r *Review) {
 			side, lim = "below the lower limit", o.LCL
 		}
 		fmt.Fprintf(b, "  %s (%s): %d of %d, %s %s (%s); %s\n", o.Lot.Lot, o.Lot.Time.In(loc).Format("Mon 2006-01-02 15:04"),
-			o.Lot.Count, o.Lot.Inspected, side, plotted(ch, lim), o.Limits, CauseStatus(o.Annotations))
+			o.Lot.Count, o.Lot.Inspected, side, plotted(ch, lim), o.Limits, review.CauseStatus(o.Annotations))
 		writeAnnotations(b, o.Annotations, loc)
 	}
 	b.WriteString("\nSignals touching the week (run rules and small shifts):\n")
@@ -174,7 +156,7 @@ func (pr *ProcessReview) writeText(b *bufio.Writer, r *Review) {
 		if s.Kind == attention.Shift {
 			what += " (a sustained small shift)"
 		}
-		fmt.Fprintf(b, "  %s: %s; lots %s; %s\n", what, s.Description, lotList(s.Lots), CauseStatus(s.Annotations))
+		fmt.Fprintf(b, "  %s: %s; lots %s; %s\n", what, s.Description, lotList(s.Lots), review.CauseStatus(s.Annotations))
 		if m := s.Meaning(); m != "" {
 			fmt.Fprintf(b, "    What it means: %s\n", m)
 		}
@@ -218,7 +200,7 @@ func (pr *ProcessReview) writeText(b *bufio.Writer, r *Review) {
 func plotted(ch spc.Chart, v float64) string {
 	switch ch {
 	case spc.ChartP:
-		return percent(v) + "%"
+		return review.Percent(v) + "%"
 	case spc.ChartU:
 		return strconv.FormatFloat(v, 'g', 4, 64) + " per unit"
 	}
@@ -418,7 +400,7 @@ type jsonWarning struct {
 	Message string `json:"message"`
 }
 
-func weekJSON(st WeekStat) jsonWeek {
+func weekJSON(st review.WeekStat) jsonWeek {
 	return jsonWeek{Week: st.Week, Lots: st.Lots, Inspected: st.Inspected, Count: st.Count,
 		Rate: NullFloat(st.Rate), Lower: NullFloat(st.Lower), Upper: NullFloat(st.Upper)}
 }
@@ -441,10 +423,10 @@ func stamp(t time.Time, loc *time.Location) string {
 }
 
 // jsonValue is the review in its JSON form.
-func (r *Review) jsonValue() jsonReview {
+func jsonValue(r *review.Review) jsonReview {
 	out := jsonReview{Week: r.Week, From: r.FirstDay.Format(dateOnly), To: r.LastDay.Format(dateOnly),
 		Method: string(r.Method), Level: r.Level, TrendWeeks: r.TrendWeeks, Generated: r.Generated.UTC().Format(time.RFC3339),
-		Processes: make([]jsonProcess, 0, len(r.Processes)), Caution: Caution, FDR: r.FDR}
+		Processes: make([]jsonProcess, 0, len(r.Processes)), Caution: review.Caution, FDR: r.FDR}
 	g := r.Glance()
 	out.Glance = jsonGlance{g.Processes, g.Rises, g.Falls, g.NotCompared, g.Unexplained, g.Shifts, g.NeedProcesses, g.NeedLots, g.Sentence()}
 	m := r.Chance
@@ -475,12 +457,12 @@ func (r *Review) jsonValue() jsonReview {
 			}
 			j.OutOfLimits = append(j.OutOfLimits, jsonOutOfLimit{Lot: o.Lot.Lot, Time: stamp(o.Lot.Time, loc),
 				Inspected: o.Lot.Inspected, Count: o.Lot.Count, Value: NullFloat(o.Value), UCL: NullFloat(o.UCL), LCL: NullFloat(o.LCL),
-				Side: side, Limits: o.Limits, Status: CauseStatus(o.Annotations), Annotations: annotationsJSON(o.Annotations, lotCode, loc)})
+				Side: side, Limits: o.Limits, Status: review.CauseStatus(o.Annotations), Annotations: annotationsJSON(o.Annotations, lotCode, loc)})
 		}
 		for _, s := range pr.Signals {
 			j.Signals = append(j.Signals, jsonSignal{Rule: s.Rule, Kind: string(s.Kind), Meaning: s.Meaning(), Description: s.Description, Side: s.Side,
 				Lots: append([]string{}, s.Lots...), First: stamp(s.First, loc), Last: stamp(s.Last, loc),
-				Status: CauseStatus(s.Annotations), Annotations: annotationsJSON(s.Annotations, nil, loc)})
+				Status: review.CauseStatus(s.Annotations), Annotations: annotationsJSON(s.Annotations, nil, loc)})
 		}
 		for _, b := range pr.Pareto {
 			j.Pareto = append(j.Pareto, jsonPareto{b.Category, b.Count, b.Percent, b.CumulativePercent})
@@ -506,10 +488,10 @@ func (r *Review) jsonValue() jsonReview {
 // c; "from" and "to" are the Monday and the Sunday of the week, and each
 // process's "start" and "end" the instants bounding it on the plant's
 // clocks ("end" excluded).
-func (r *Review) WriteJSON(w io.Writer) error {
+func WriteJSON(w io.Writer, r *review.Review) error {
 	enc := json.NewEncoder(w)
 	enc.SetIndent("", "  ")
-	return enc.Encode(r.jsonValue())
+	return enc.Encode(jsonValue(r))
 }
 
 // CSVHeader is the header row of WriteCSV.
@@ -522,7 +504,7 @@ var CSVHeader = []string{"week", "process", "chart", "method", "level", "lots", 
 // fractions, empty where a week has no lots. "signals" counts every signal
 // touching the week, "shift_signals" those of a sustained small shift
 // (CUSUM or EWMA), which call for a cause like any other.
-func (r *Review) WriteCSV(w io.Writer) error {
+func WriteCSV(w io.Writer, r *review.Review) error {
 	cw := csv.NewWriter(w)
 	if err := cw.Write(CSVHeader); err != nil {
 		return err

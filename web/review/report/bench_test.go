@@ -1,7 +1,8 @@
-package review
+package report
 
 import (
 	"bytes"
+	"context"
 	"fmt"
 	"math/rand/v2"
 	"os"
@@ -12,6 +13,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/web/review"
 )
 
 // BenchmarkReviewPlant builds the weekly review of a plant: 500 processes
@@ -32,6 +34,7 @@ func BenchmarkReviewPlant(b *testing.B) {
 		}
 	}
 	const perProcess = 2190
+	ctx := context.Background()
 	db, err := store.Open(filepath.Join(b.TempDir(), "plant.db"))
 	if err != nil {
 		b.Fatal(err)
@@ -64,7 +67,7 @@ func BenchmarkReviewPlant(b *testing.B) {
 			b.Fatal(err)
 		}
 	}
-	opt := Options{Week: "2026-W48", Now: end}
+	opt := review.Options{Week: "2026-W48", Now: end}
 	readAll := func() (time.Duration, time.Duration) {
 		t0, c0 := time.Now(), cpuTime()
 		all, err := db.Processes(ctx, false)
@@ -80,22 +83,22 @@ func BenchmarkReviewPlant(b *testing.B) {
 	}
 	base, baseCPU := readAll()
 	b.ResetTimer()
-	var r *Review
+	var r *review.Review
 	t0, c0 := time.Now(), cpuTime()
 	for b.Loop() {
-		if r, err = Build(ctx, db, opt); err != nil {
+		if r, err = review.Build(ctx, db, opt); err != nil {
 			b.Fatal(err)
 		}
 	}
 	per := time.Since(t0) / time.Duration(b.N)
 	perCPU := (cpuTime() - c0) / time.Duration(b.N)
 	b.StopTimer()
-	page, err := r.HTMLView(View{MaxDetails: 12, DetailURL: func(pr *ProcessReview) string { return "/review?process=" + pr.Process.Name }})
+	page, err := HTMLView(r, View{MaxDetails: 12, DetailURL: func(pr *review.ProcessReview) string { return "/review?process=" + pr.Process.Name }})
 	if err != nil {
 		b.Fatal(err)
 	}
 	var doc bytes.Buffer
-	if err := r.WriteHTML(&doc); err != nil {
+	if err := WriteHTML(&doc, r); err != nil {
 		b.Fatal(err)
 	}
 	b.ReportMetric(float64(per.Milliseconds()), "ms/review")

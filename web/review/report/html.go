@@ -1,4 +1,4 @@
-package review
+package report
 
 import (
 	"bytes"
@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"lotwatch/spc"
+	"lotwatch/web/review"
 )
 
 // Stylesheet is the CSS of the review, also for the web layer to serve
@@ -50,11 +51,11 @@ const Stylesheet = `.lw-review{font-family:sans-serif;color:#222;max-width:60rem
 var funcs = template.FuncMap{
 	"rate":    FormatRate,
 	"diff":    formatDiff,
-	"pval":    FormatP,
+	"pval":    review.FormatP,
 	"pct":     func(x float64) string { return fmt.Sprintf("%.1f%%", x) },
-	"level":   levelPercent,
+	"level":   review.LevelPercent,
 	"unit":    UnitWord,
-	"status":  CauseStatus,
+	"status":  review.CauseStatus,
 	"plotted": plotted,
 	"when": func(t time.Time, loc *time.Location) string {
 		if t.IsZero() {
@@ -65,19 +66,19 @@ var funcs = template.FuncMap{
 	"date":   func(t time.Time) string { return t.Format(dateOnly) },
 	"lots":   lotList,
 	"finite": func(x float64) bool { return !math.IsNaN(x) && !math.IsInf(x, 0) },
-	"pareto": func(pr *ProcessReview) template.HTML {
+	"pareto": func(pr *review.ProcessReview) template.HTML {
 		return ParetoSVG(pr.Pareto, "Defect categories, "+pr.Current.Week)
 	},
-	"trend": func(pr *ProcessReview) template.HTML {
+	"trend": func(pr *review.ProcessReview) template.HTML {
 		return TrendSVG(pr.Process.Chart, pr.Trend, fmt.Sprintf("Weekly rate with %s intervals, %d weeks", pr.Method, len(pr.Trend)))
 	},
 	"caveat": func(m spc.IntervalMethod) string { return m.Caveat() },
 	"stamp":  func(t time.Time) string { return t.UTC().Format("2006-01-02 15:04 UTC") },
-	"adjp": func(c Change) string {
+	"adjp": func(c review.Change) string {
 		if !c.Compared {
 			return "—"
 		}
-		return strings.TrimPrefix(FormatP(c.AdjustedP), "p = ")
+		return strings.TrimPrefix(review.FormatP(c.AdjustedP), "p = ")
 	},
 }
 
@@ -157,71 +158,49 @@ var documentTmpl = template.Must(template.New("document").Parse(`<!DOCTYPE html>
 `))
 
 type fragmentData struct {
-	*Review
-	Rows     []*ProcessReview // summary rows, by concern
-	Details  []*ProcessReview // sections written, by concern
+	*review.Review
+	Rows     []*review.ProcessReview // summary rows, by concern
+	Details  []*review.ProcessReview // sections written, by concern
 	Filtered bool
 	Hidden   int // rows whose section is not written
-	RowsOf   map[*ProcessReview][]WeekStat
+	RowsOf   map[*review.ProcessReview][]review.WeekStat
 	Caution  string
-	link     func(*ProcessReview) string
+	link     func(*review.ProcessReview) string
 }
 
 // Link is the address of a summary row's process: its section on the page,
 // or the View's DetailURL when its section is not written; "" for none.
-func (d fragmentData) Link(pr *ProcessReview) string {
+func (d fragmentData) Link(pr *review.ProcessReview) string {
 	if d.link == nil {
 		return ""
 	}
 	return d.link(pr)
 }
 
-// UnexplainedOut counts the lots outside their limits with no cause.
-func (pr *ProcessReview) UnexplainedOut() int {
-	n := 0
-	for _, o := range pr.OutOfLimits {
-		if len(o.Annotations) == 0 {
-			n++
-		}
-	}
-	return n
-}
-
-// UnexplainedSignals counts the run-rule signals with no cause.
-func (pr *ProcessReview) UnexplainedSignals() int {
-	n := 0
-	for _, s := range pr.Signals {
-		if len(s.Annotations) == 0 {
-			n++
-		}
-	}
-	return n
-}
-
 // View chooses what a page shows of the review. The zero View shows every
 // process, summary and sections, with no links (the mailed file).
 type View struct {
 	// Match keeps the processes the reader filtered for; nil keeps all.
-	Match func(*ProcessReview) bool
+	Match func(*review.ProcessReview) bool
 	// MaxDetails writes the sections only when at most this many processes
 	// match; 0 means always. A plant-wide review is then a summary whose
 	// rows link to DetailURL.
 	MaxDetails int
 	// DetailURL is the address of one process's section on its own page;
 	// nil gives no links.
-	DetailURL func(*ProcessReview) string
+	DetailURL func(*review.ProcessReview) string
 }
 
 // HTMLFragment renders the review as an HTML fragment (a div of class
 // lw-review) for a page with the server's own layout; style it with
 // Stylesheet. It holds no scripts, no style attributes and no references
 // to other resources; the charts are inline SVG.
-func (r *Review) HTMLFragment() (template.HTML, error) { return r.HTMLView(View{}) }
+func HTMLFragment(r *review.Review) (template.HTML, error) { return HTMLView(r, View{}) }
 
 // HTMLView renders the review as HTMLFragment does, showing what v
 // chooses: the summary first, sorted by concern, then the sections.
-func (r *Review) HTMLView(v View) (template.HTML, error) {
-	d := fragmentData{Review: r, RowsOf: map[*ProcessReview][]WeekStat{}, Caution: "Caution: " + Caution}
+func HTMLView(r *review.Review, v View) (template.HTML, error) {
+	d := fragmentData{Review: r, RowsOf: map[*review.ProcessReview][]review.WeekStat{}, Caution: "Caution: " + review.Caution}
 	for _, pr := range r.ByConcern() {
 		if v.Match == nil || v.Match(pr) {
 			d.Rows = append(d.Rows, pr)
@@ -232,13 +211,13 @@ func (r *Review) HTMLView(v View) (template.HTML, error) {
 	if v.MaxDetails > 0 && len(d.Rows) > v.MaxDetails {
 		d.Details, d.Hidden = nil, len(d.Rows)
 	}
-	shown := map[*ProcessReview]bool{}
+	shown := map[*review.ProcessReview]bool{}
 	for _, pr := range d.Details {
 		shown[pr] = true
-		d.RowsOf[pr] = []WeekStat{pr.Current, pr.Previous}
+		d.RowsOf[pr] = []review.WeekStat{pr.Current, pr.Previous}
 	}
 	if v.DetailURL != nil {
-		d.link = func(pr *ProcessReview) string {
+		d.link = func(pr *review.ProcessReview) string {
 			if shown[pr] {
 				return "#p-" + strconv.FormatInt(pr.Process.ID, 10)
 			}
@@ -256,8 +235,8 @@ func (r *Review) HTMLView(v View) (template.HTML, error) {
 // sheet (with its print rules) inline, the charts as inline SVG, no
 // scripts and no external references, so that it reads the same when
 // mailed or printed.
-func (r *Review) WriteHTML(w io.Writer) error {
-	body, err := r.HTMLFragment()
+func WriteHTML(w io.Writer, r *review.Review) error {
+	body, err := HTMLFragment(r)
 	if err != nil {
 		return err
 	}

@@ -1,4 +1,4 @@
-package review
+package report
 
 import (
 	"fmt"
@@ -9,6 +9,7 @@ import (
 	"strings"
 
 	"lotwatch/spc"
+	"lotwatch/web/review"
 )
 
 // The charts are inline SVG written here, with presentation attributes
@@ -113,7 +114,7 @@ func ParetoSVG(bars []spc.ParetoBar, title string) template.HTML {
 // TrendSVG draws the weekly rate of the weeks (oldest first) as points
 // with their confidence intervals as bars; the last week is the reviewed
 // one and is drawn darker. Weeks without lots are marked "no lots".
-func TrendSVG(ch spc.Chart, weeks []WeekStat, title string) template.HTML {
+func TrendSVG(ch spc.Chart, weeks []review.WeekStat, title string) template.HTML {
 	const w, h = 640, 260
 	const left, right, top, bottom = 60.0, 20.0, 30.0, 60.0
 	var s svgWriter
