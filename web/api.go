@@ -11,32 +11,8 @@ import (
 
 	"lotwatch/spc/chartjson"
 	"lotwatch/store"
+	"lotwatch/web/storejson"
 )
-
-// processJSON is a process as the API shows it.
-type processJSON struct {
-	ID          int64    `json:"id"`
-	Name        string   `json:"name"`
-	Description string   `json:"description"`
-	Chart       string   `json:"chart"`
-	Method      string   `json:"method"`
-	K           Num      `json:"k"`
-	Rules       string   `json:"rules"`
-	Categories  []string `json:"categories"`
-	TimeZone    string   `json:"time_zone"`
-	Active      bool     `json:"active"`
-	Created     string   `json:"created"`
-}
-
-func toProcessJSON(p store.Process) processJSON {
-	cats := p.Categories
-	if cats == nil {
-		cats = []string{}
-	}
-	return processJSON{ID: p.ID, Name: p.Name, Description: p.Description, Chart: string(p.Chart),
-		Method: string(p.Method), K: Num(p.K), Rules: p.Rules, Categories: cats, TimeZone: p.TimeZone,
-		Active: p.Active, Created: p.Created.UTC().Format(time.RFC3339)}
-}
 
 // lotJSON is a stored lot as the API shows it.
 type lotJSON struct {
@@ -78,30 +54,13 @@ type verdictJSON struct {
 	LimitSet    int      `json:"limit_set,omitempty"`
 }
 
-type annotationJSON struct {
-	ID       int64  `json:"id"`
-	LotID    int64  `json:"lot_id,omitempty"`
-	Lot      string `json:"lot,omitempty"`
-	Rule     string `json:"rule,omitempty"`
-	Cause    string `json:"cause"`
-	Action   string `json:"action"`
-	Closed   bool   `json:"closed"`
-	By       string `json:"by"`
-	At       string `json:"at"`
-	ClosedBy string `json:"closed_by,omitempty"`
-	ClosedAt string `json:"closed_at,omitempty"`
-	// NoCauseFound and Reason: investigated, no assignable cause found.
-	NoCauseFound bool   `json:"no_cause_found,omitempty"`
-	Reason       string `json:"reason,omitempty"`
-}
-
 type signalJSON struct {
-	Rule        string           `json:"rule"`
-	Lots        []string         `json:"lots"`
-	Description string           `json:"description"`
-	FirstTime   string           `json:"first_time"`
-	LastTime    string           `json:"last_time"`
-	Annotations []annotationJSON `json:"annotations"`
+	Rule        string                 `json:"rule"`
+	Lots        []string               `json:"lots"`
+	Description string                 `json:"description"`
+	FirstTime   string                 `json:"first_time"`
+	LastTime    string                 `json:"last_time"`
+	Annotations []storejson.Annotation `json:"annotations"`
 }
 
 type limitSetJSON struct {
@@ -162,9 +121,9 @@ func (s *Server) apiProcesses(w http.ResponseWriter, r *http.Request) {
 		s.internalError(w, r, err)
 		return
 	}
-	out := make([]processJSON, len(ps))
+	out := make([]storejson.Process, len(ps))
 	for i, p := range ps {
-		out[i] = toProcessJSON(p)
+		out[i] = storejson.ProcessOf(p)
 	}
 	writeJSON(w, http.StatusOK, out)
 }
@@ -174,7 +133,7 @@ func (s *Server) apiProcess(w http.ResponseWriter, r *http.Request) {
 	if !ok {
 		return
 	}
-	writeJSON(w, http.StatusOK, toProcessJSON(p))
+	writeJSON(w, http.StatusOK, storejson.ProcessOf(p))
 }
 
 // apiWindowedChart reads the process of the path and its from=/to=
@@ -388,23 +347,13 @@ func (pc *processChart) signals(win window, anns []store.Annotation) []signalJSO
 		}
 		js := signalJSON{Rule: rule, Lots: lots, Description: sg.Description,
 			FirstTime: first.Time.In(loc).Format(time.RFC3339), LastTime: last.Time.In(loc).Format(time.RFC3339),
-			Annotations: []annotationJSON{}}
+			Annotations: []storejson.Annotation{}}
 		for _, a := range anns {
 			if ids[a.LotID] && (a.Rule == "" || a.Rule == rule) {
-				js.Annotations = append(js.Annotations, toAnnotationJSON(a, codeOf, loc))
+				js.Annotations = append(js.Annotations, storejson.AnnotationOf(a, codeOf[a.LotID], loc))
 			}
 		}
 		out = append(out, js)
-	}
-	return out
-}
-
-func toAnnotationJSON(a store.Annotation, codeOf map[int64]string, loc *time.Location) annotationJSON {
-	out := annotationJSON{ID: a.ID, LotID: a.LotID, Lot: codeOf[a.LotID], Rule: a.Rule, Cause: a.Cause,
-		Action: a.Action, Closed: a.Closed, By: a.By, At: a.At.In(loc).Format(time.RFC3339), ClosedBy: a.ClosedBy,
-		NoCauseFound: a.NoCauseFound, Reason: a.Reason}
-	if !a.ClosedAt.IsZero() {
-		out.ClosedAt = a.ClosedAt.In(loc).Format(time.RFC3339)
 	}
 	return out
 }

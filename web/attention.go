@@ -18,6 +18,7 @@ import (
 
 	"lotwatch/store"
 	"lotwatch/web/attention"
+	"lotwatch/web/storejson"
 )
 
 // procSummary is what the status board and the attention list need of
@@ -286,22 +287,6 @@ func (s *Server) apiAttention(w http.ResponseWriter, r *http.Request) {
 	writeJSON(w, http.StatusOK, out)
 }
 
-// causeJSON is a stored annotation in the API.
-type causeJSON struct {
-	ID           int64  `json:"id"`
-	ProcessID    int64  `json:"process_id"`
-	LotID        int64  `json:"lot_id"`
-	Lot          string `json:"lot"`
-	Rule         string `json:"rule"`
-	Cause        string `json:"cause"`
-	Action       string `json:"action"`
-	NoCauseFound bool   `json:"no_cause_found"`
-	Reason       string `json:"reason"`
-	Closed       bool   `json:"closed"`
-	By           string `json:"by"`
-	At           string `json:"at"`
-}
-
 // causeFields are the fields a posted cause may have.
 var causeFields = map[string]bool{"cause": true, "action": true, "no_cause_found": true, "reason": true, "rule": true}
 
@@ -431,9 +416,10 @@ func (s *Server) apiPostCause(w http.ResponseWriter, r *http.Request) {
 	writeJSON(w, http.StatusCreated, toCauseJSON(stored, l))
 }
 
-func toCauseJSON(a store.Annotation, l store.Lot) causeJSON {
-	return causeJSON{ID: a.ID, ProcessID: a.ProcessID, LotID: a.LotID, Lot: l.Lot, Rule: a.Rule, Cause: a.Cause, Action: a.Action,
-		NoCauseFound: a.NoCauseFound, Reason: a.Reason, Closed: a.Closed, By: a.By, At: a.At.Format(time.RFC3339)}
+// toCauseJSON is a stored annotation as the API answers it, its time in
+// UTC.
+func toCauseJSON(a store.Annotation, l store.Lot) storejson.Annotation {
+	return storejson.AnnotationOf(a, l.Lot, time.UTC)
 }
 
 // problemsMessage joins problems into one line, each naming its field.

@@ -14,6 +14,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/web/storejson"
 )
 
 // TestAPIAttention walks the contract of issue 11: a lot out of limits is
@@ -102,7 +103,7 @@ func TestAPIAttention(t *testing.T) {
 	if rec.Code != http.StatusCreated {
 		t.Fatalf("posting a cause: %d %s", rec.Code, rec.Body.String())
 	}
-	c := decodeJSON[causeJSON](t, rec)
+	c := decodeJSON[storejson.Annotation](t, rec)
 	if c.LotID != lots[10].ID || c.Cause != "film torn at the splice" || c.Closed || c.By != "inspector1" || c.ID == 0 {
 		t.Errorf("stored cause %+v", c)
 	}
@@ -116,7 +117,7 @@ func TestAPIAttention(t *testing.T) {
 	if rec.Code != http.StatusCreated {
 		t.Fatalf("posting no cause found for %q: %d %s", odd, rec.Code, rec.Body.String())
 	}
-	if c := decodeJSON[causeJSON](t, rec); !c.NoCauseFound || !c.Closed || c.LotID != lots[30].ID {
+	if c := decodeJSON[storejson.Annotation](t, rec); !c.NoCauseFound || !c.Closed || c.LotID != lots[30].ID {
 		t.Errorf("stored finding %+v", c)
 	}
 	if got := list(); len(got) != 0 {

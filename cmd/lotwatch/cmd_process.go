@@ -13,6 +13,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/web/storejson"
 )
 
 func init() {
@@ -330,23 +331,6 @@ func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 	return exitOK
 }
 
-type processJSON struct {
-	ID          int64             `json:"id"`
-	Name        string            `json:"name"`
-	Description string            `json:"description"`
-	Chart       spc.Chart         `json:"chart"`
-	Limits      string            `json:"limits"`
-	Sigma       float64           `json:"sigma"`
-	Rules       string            `json:"rules"`
-	Categories  []string          `json:"categories"`
-	TimeZone    string            `json:"tz"`
-	Active      bool              `json:"active"`
-	Created     string            `json:"created"`
-	Area        string            `json:"area"`
-	ColumnMap   map[string]string `json:"map,omitempty"`
-	DateOrder   string            `json:"date_order,omitempty"`
-}
-
 func runProcessList(args []string, stdout, stderr io.Writer) int {
 	fs := cliFlags("process list")
 	dbPath := fs.String("db", "", "")
@@ -377,9 +361,9 @@ func runProcessList(args []string, stdout, stderr io.Writer) int {
 		return cliStoreError(stderr, "process list", "", err)
 	}
 	if *format == "json" {
-		out := make([]processJSON, 0, len(ps))
+		out := make([]storejson.Process, 0, len(ps))
 		for _, p := range ps {
-			out = append(out, processJSON{p.ID, p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Created.Format("2006-01-02T15:04:05Z07:00"), p.Area, p.ColumnMap, p.DateOrder})
+			out = append(out, storejson.ProcessOf(p))
 		}
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")

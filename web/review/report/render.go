@@ -20,6 +20,7 @@ import (
 	"lotwatch/store"
 	"lotwatch/web/attention"
 	"lotwatch/web/review"
+	"lotwatch/web/storejson"
 )
 
 // dateOnly formats the local date of a time.
@@ -334,48 +335,33 @@ type jsonWeek struct {
 	Upper     NullFloat `json:"upper"`
 }
 
-type jsonAnnotation struct {
-	Lot      string `json:"lot,omitempty"`
-	Rule     string `json:"rule,omitempty"`
-	Cause    string `json:"cause"`
-	Action   string `json:"action"`
-	Closed   bool   `json:"closed"`
-	By       string `json:"by"`
-	At       string `json:"at"`
-	ClosedBy string `json:"closed_by,omitempty"`
-	ClosedAt string `json:"closed_at,omitempty"`
-	// NoCauseFound and Reason: investigated, no assignable cause found.
-	NoCauseFound bool   `json:"no_cause_found,omitempty"`
-	Reason       string `json:"reason,omitempty"`
-}
-
 type jsonSignal struct {
 	Rule string `json:"rule"`
 	// Kind is "run_rule" or "shift"; Meaning says what a shift means
 	// (absent for a run rule).
-	Kind        string           `json:"kind"`
-	Meaning     string           `json:"meaning,omitempty"`
-	Description string           `json:"description"`
-	Side        int8             `json:"side"`
-	Lots        []string         `json:"lots"`
-	First       string           `json:"first"`
-	Last        string           `json:"last"`
-	Status      string           `json:"status"`
-	Annotations []jsonAnnotation `json:"annotations"`
+	Kind        string                 `json:"kind"`
+	Meaning     string                 `json:"meaning,omitempty"`
+	Description string                 `json:"description"`
+	Side        int8                   `json:"side"`
+	Lots        []string               `json:"lots"`
+	First       string                 `json:"first"`
+	Last        string                 `json:"last"`
+	Status      string                 `json:"status"`
+	Annotations []storejson.Annotation `json:"annotations"`
 }
 
 type jsonOutOfLimit struct {
-	Lot         string           `json:"lot"`
-	Time        string           `json:"time"`
-	Inspected   int64            `json:"inspected"`
-	Count       int64            `json:"count"`
-	Value       NullFloat        `json:"value"`
-	UCL         NullFloat        `json:"ucl"`
-	LCL         NullFloat        `json:"lcl"`
-	Side        string           `json:"side"`
-	Limits      string           `json:"limits"`
-	Status      string           `json:"status"`
-	Annotations []jsonAnnotation `json:"annotations"`
+	Lot         string                 `json:"lot"`
+	Time        string                 `json:"time"`
+	Inspected   int64                  `json:"inspected"`
+	Count       int64                  `json:"count"`
+	Value       NullFloat              `json:"value"`
+	UCL         NullFloat              `json:"ucl"`
+	LCL         NullFloat              `json:"lcl"`
+	Side        string                 `json:"side"`
+	Limits      string                 `json:"limits"`
+	Status      string                 `json:"status"`
+	Annotations []storejson.Annotation `json:"annotations"`
 }
 
 type jsonPareto struct {
@@ -405,12 +391,10 @@ func weekJSON(st review.WeekStat) jsonWeek {
 		Rate: NullFloat(st.Rate), Lower: NullFloat(st.Lower), Upper: NullFloat(st.Upper)}
 }
 
-func annotationsJSON(as []store.Annotation, lotCode map[int64]string, loc *time.Location) []jsonAnnotation {
-	out := make([]jsonAnnotation, 0, len(as))
+func annotationsJSON(as []store.Annotation, lotCode map[int64]string, loc *time.Location) []storejson.Annotation {
+	out := make([]storejson.Annotation, 0, len(as))
 	for _, a := range as {
-		j := jsonAnnotation{Lot: lotCode[a.LotID], Rule: a.Rule, Cause: a.Cause, Action: a.Action, Closed: a.Closed,
-			By: a.By, At: stamp(a.At, loc), ClosedBy: a.ClosedBy, ClosedAt: stamp(a.ClosedAt, loc), NoCauseFound: a.NoCauseFound, Reason: a.Reason}
-		out = append(out, j)
+		out = append(out, storejson.AnnotationOf(a, lotCode[a.LotID], loc))
 	}
 	return out
 }
