@@ -6,6 +6,7 @@ import (
 	"encoding/base64"
 	"errors"
 	"fmt"
+	"net"
 	"net/mail"
 	"net/url"
 	"sort"
@@ -192,6 +193,11 @@ func (db *DB) AddAlertRule(ctx context.Context, actor string, r AlertRule) (Aler
 		p, err := w.activeProcess(r.ProcessID)
 		if err != nil {
 			return err
+		}
+		if r.Webhook != "" {
+			if err := w.checkWebhookHost(r.Webhook); err != nil {
+				return err
+			}
 		}
 		r.Process, r.Active, r.Created, r.CreatedBy = p.Name, true, w.now, actor
 		err = w.QueryRow(`INSERT INTO alert_rules (process_id, webhook, secret, email, triggers, unexplained_after, each_lot, active, created, created_by)
@@ -796,4 +802,130 @@ func (db *DB) FinishAlertBatch(ctx context.Context, id int64, ds []NewDelivery) 
 		_, err := w.Exec("UPDATE alert_batches SET done = ?, lease_owner = '', lease_until = 0 WHERE id = ? AND done = 0", w.now.UnixNano(), id)
 		return err
 	})
+}
+
+// The webhook hosts allow-list: a plant setting naming the hosts webhooks
+// may go to, so that nobody can be talked into adding a rule that posts
+// the plant's figures to an outside address. Unset, any host is allowed
+// (receivers on the plant network are the usual case). It is set from the
+// command line only (lotwatch alert hosts), by whoever runs the server.
+
+// webhookHostsKey is the plant_settings key of the allow-list.
+const webhookHostsKey = "webhook_hosts"
+
+// CheckWebhookHosts reads an allow-list: a comma list of host names
+// (chat.plant.example), host names under a domain (*.plant.example), IP
+// addresses and IP ranges (10.0.0.0/8). Problems name the field "hosts".
+func CheckWebhookHosts(s string) ([]string, []Problem) {
+	var out []string
+	for _, h := range strings.Split(s, ",") {
+		h = strings.ToLower(strings.TrimSpace(h))
+		if h == "" {
+			continue
+		}
+		name := strings.TrimPrefix(h, "*.")
+		_, _, cidrErr := net.ParseCIDR(h)
+		ok := cidrErr == nil || net.ParseIP(h) != nil
+		if !ok && !strings.Contains(h, "/") && len(name) <= 253 {
+			ok = true
+			for _, label := range strings.Split(name, ".") {
+				ok = ok && label != "" && len(label) <= 63 && strings.Trim(label, "abcdefghijklmnopqrstuvwxyz0123456789-") == ""
+			}
+		}
+		if !ok {
+			return nil, []Problem{{Field: "hosts", Value: h, Reason: "is not a host name, *.domain, IP address or IP range (e.g. chat.plant.example, *.plant.example, 10.0.0.0/8)"}}
+		}
+		out = append(out, h)
+	}
+	return out, nil
+}
+
+// HostAllowed reports whether the host of a webhook URL is on the
+// allow-list; every host is when the list is empty.
+func HostAllowed(list []string, host string) bool {
+	if len(list) == 0 {
+		return true
+	}
+	host = strings.ToLower(strings.TrimSuffix(host, "."))
+	ip := net.ParseIP(host)
+	for _, h := range list {
+		switch _, n, err := net.ParseCIDR(h); {
+		case err == nil:
+			if ip != nil && n.Contains(ip) {
+				return true
+			}
+		case strings.HasPrefix(h, "*."):
+			if strings.HasSuffix(host, h[1:]) {
+				return true
+			}
+		case ip != nil && net.ParseIP(h) != nil:
+			if ip.Equal(net.ParseIP(h)) {
+				return true
+			}
+		case h == host:
+			return true
+		}
+	}
+	return false
+}
+
+// checkWebhookHost refuses a webhook URL whose host the allow-list
+// leaves out, naming the field "webhook".
+func (w *wtx) checkWebhookHost(u string) error {
+	list, err := webhookHosts(context.Background(), w.Tx)
+	if err != nil {
+		return err
+	}
+	if p, err := url.Parse(u); err == nil && !HostAllowed(list, p.Hostname()) {
+		return invalid(Problem{Field: "webhook", Value: u, Reason: "goes to a host the plant's webhook hosts leave out (" + strings.Join(list, ", ") + "; see lotwatch alert hosts)"})
+	}
+	return nil
+}
+
+// WebhookHosts returns the allow-list of webhook hosts (empty: any host).
+func (db *DB) WebhookHosts(ctx context.Context) ([]string, error) {
+	return webhookHosts(ctx, db.r)
+}
+
+func webhookHosts(ctx context.Context, q ctxQueryer) ([]string, error) {
+	var s string
+	err := q.QueryRowContext(ctx, "SELECT value FROM plant_settings WHERE key = ?", webhookHostsKey).Scan(&s)
+	if errors.Is(err, sql.ErrNoRows) {
+		return nil, nil
+	}
+	if err != nil {
+		return nil, err
+	}
+	list, _ := CheckWebhookHosts(s)
+	return list, nil
+}
+
+// SetWebhookHosts sets the allow-list of webhook hosts (s as
+// CheckWebhookHosts reads it; empty allows any host) with a reason; the
+// change is in the audit trail (entity "plant"). Rules already stored
+// whose host it leaves out stay, but their messages are not sent: each
+// fails at once, saying why, on the Alerts page.
+func (db *DB) SetWebhookHosts(ctx context.Context, actor, reason, s string) ([]string, error) {
+	list, ps := CheckWebhookHosts(s)
+	ps = append(ps, checkReason(reason, "say why webhooks may go to these hosts")...)
+	if len(ps) > 0 {
+		return nil, invalid(ps...)
+	}
+	err := db.write(ctx, func(w *wtx) error {
+		old, err := webhookHosts(context.Background(), w.Tx)
+		if err != nil {
+			return err
+		}
+		// ON CONFLICT … DO UPDATE is understood by SQLite and PostgreSQL alike.
+		if _, err := w.Exec("INSERT INTO plant_settings (key, value) VALUES (?, ?) ON CONFLICT(key) DO UPDATE SET value = excluded.value",
+			webhookHostsKey, strings.Join(list, ",")); err != nil {
+			return err
+		}
+		return w.audit(actor, "update", "plant", 0, 0, map[string]string{webhookHostsKey: strings.Join(old, ",")},
+			map[string]string{webhookHostsKey: strings.Join(list, ",")}, reason)
+	})
+	if err != nil {
+		return nil, err
+	}
+	return list, nil
 }

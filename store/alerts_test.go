@@ -258,3 +258,87 @@ func TestAlertOutboxChanges(t *testing.T) {
 		}
 	})
 }
+
+// TestHostAllowed checks the allow-list's matching: names exactly (any
+// case), *.domain for the names under the domain (not the domain itself,
+// not a name that merely ends alike), IP addresses and ranges (CIDR as
+// RFC 4632 defines it) for literal addresses only.
+func TestHostAllowed(t *testing.T) {
+	list, ps := CheckWebhookHosts(" Chat.Plant.Example, *.pager.example ,10.1.0.0/16, 192.168.7.9,::1 ")
+	if len(ps) > 0 || len(list) != 5 {
+		t.Fatalf("list %v, problems %v", list, ps)
+	}
+	for _, tc := range []struct {
+		host string
+		want bool
+	}{
+		{"chat.plant.example", true},
+		{"CHAT.plant.example.", true},
+		{"evil-chat.plant.example", false},
+		{"a.pager.example", true},
+		{"x.y.pager.example", true},
+		{"pager.example", false},
+		{"notpager.example", false},
+		{"10.1.200.3", true},
+		{"10.2.0.1", false},
+		{"192.168.7.9", true},
+		{"192.168.7.10", false},
+		{"::1", true},
+		{"attacker.example", false},
+	} {
+		if got := HostAllowed(list, tc.host); got != tc.want {
+			t.Errorf("%s: allowed %v, want %v", tc.host, got, tc.want)
+		}
+	}
+	if !HostAllowed(nil, "anywhere.example") {
+		t.Error("no list must allow any host")
+	}
+	for _, bad := range []string{"http://chat.example", "chat example", "10.0.0.0/33", "*.", "a..b"} {
+		if _, ps := CheckWebhookHosts(bad); len(ps) != 1 || ps[0].Field != "hosts" {
+			t.Errorf("%q: problems %v", bad, ps)
+		}
+	}
+}
+
+// TestWebhookHostsSetting: with an allow-list set, a rule to another host
+// is refused naming the field and nothing is stored; the change of the
+// list is in the audit trail; an empty list allows any host again.
+func TestWebhookHostsSetting(t *testing.T) {
+	forEachBackend(t, func(t *testing.T, open opener) {
+		db, _ := open(t)
+		p := addProcess(t, db, "press", spc.ChartP)
+		if _, err := db.SetWebhookHosts(ctx, "admin", "", "chat.plant.example"); err == nil {
+			t.Error("a change without a reason was taken")
+		}
+		before := auditCount(t, db)
+		list, err := db.SetWebhookHosts(ctx, "admin", "plant data stays on site", "chat.plant.example, 10.0.0.0/8")
+		if err != nil || strings.Join(list, ",") != "chat.plant.example,10.0.0.0/8" || auditCount(t, db) != before+1 {
+			t.Fatalf("set: %v %v, %d audit entries", list, err, auditCount(t, db)-before)
+		}
+		_, err = db.AddAlertRule(ctx, "eng", AlertRule{ProcessID: p.ID, Webhook: "https://hooks.outside.example/x", Secret: "s"})
+		var ve *ValidationError
+		if !errors.As(err, &ve) || ve.Problems[0].Field != "webhook" || !strings.Contains(ve.Problems[0].Reason, "chat.plant.example") {
+			t.Fatalf("rule to a host left out: %v", err)
+		}
+		if rs, _ := db.AlertRules(ctx); len(rs) != 0 {
+			t.Fatalf("%d rules stored", len(rs))
+		}
+		for _, u := range []string{"http://chat.plant.example:8080/hook", "http://10.3.4.5/hook"} {
+			if _, err := db.AddAlertRule(ctx, "eng", AlertRule{ProcessID: p.ID, Webhook: u, Secret: "s"}); err != nil {
+				t.Errorf("%s: %v", u, err)
+			}
+		}
+		if _, err := db.AddAlertRule(ctx, "eng", AlertRule{ProcessID: p.ID, Email: "qa@outside.example"}); err != nil {
+			t.Errorf("an e-mail rule was refused by the webhook hosts: %v", err)
+		}
+		if _, err := db.SetWebhookHosts(ctx, "admin", "open again", ""); err != nil {
+			t.Fatal(err)
+		}
+		if list, err := db.WebhookHosts(ctx); err != nil || len(list) != 0 {
+			t.Errorf("after clearing: %v %v", list, err)
+		}
+		if rep, err := db.VerifyAudit(ctx); err != nil || !rep.OK {
+			t.Errorf("audit verify: %+v %v", rep, err)
+		}
+	})
+}

@@ -191,6 +191,7 @@ type alertsData struct {
 	Failed    int
 	Pending   int
 	PublicURL string
+	Hosts     []string // the plant's webhook hosts; empty: any host
 }
 
 // alertsPage lists the alert rules with their latest messages and every
@@ -219,6 +220,11 @@ func (s *Server) showAlerts(w http.ResponseWriter, r *http.Request, status int, 
 		s.internalError(w, r, err)
 		return
 	}
+	hosts, err := s.db.WebhookHosts(ctx)
+	if err != nil {
+		s.internalError(w, r, err)
+		return
+	}
 	if on == nil {
 		on = map[string]bool{}
 		for _, t := range store.DefaultTriggers {
@@ -226,7 +232,7 @@ func (s *Server) showAlerts(w http.ResponseWriter, r *http.Request, status int, 
 		}
 	}
 	d := alertsData{Processes: ps, Triggers: store.Triggers, Values: vals, On: on, Problems: problems,
-		Done: r.URL.Query().Get("done"), Failed: counts[store.DeliveryFailed], Pending: counts[store.DeliveryPending], PublicURL: s.publicURL}
+		Done: r.URL.Query().Get("done"), Failed: counts[store.DeliveryFailed], Pending: counts[store.DeliveryPending], PublicURL: s.publicURL, Hosts: hosts}
 	for _, rule := range rules {
 		row := alertRow{Rule: rule}
 		ds, err := s.db.Deliveries(ctx, rule.ID, deliveriesShown)

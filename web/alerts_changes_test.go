@@ -329,3 +329,33 @@ func TestAlertCorrectionAndVoid(t *testing.T) {
 		t.Errorf("message %+v", m.Data)
 	}
 }
+
+// TestAlertHostLeftOut: a rule added before the plant's webhook hosts
+// were restricted keeps its place, but its messages are not sent: each
+// fails at once (no retries for a day) with the reason on the Alerts
+// page, and the receiver gets nothing. The Alerts page names the hosts.
+func TestAlertHostLeftOut(t *testing.T) {
+	e := newTestEnv(t)
+	e.addLots(t, 30, func(int) int64 { return 4 })
+	rc := newReceiver(t, "left out")
+	r := e.alertRule(t, store.AlertRule{Webhook: rc.srv.URL, Secret: rc.secret})
+	if _, err := e.db.SetWebhookHosts(t.Context(), "admin", "plant data stays on site", "chat.plant.example"); err != nil {
+		t.Fatal(err)
+	}
+	srv := quietServer(t, e)
+	e.postLot(t, "HOT-1", 40)
+	drain(t, srv, 3)
+	ds, err := e.db.Deliveries(t.Context(), r.ID, 10)
+	if err != nil || len(ds) != 1 || ds[0].State != store.DeliveryFailed || ds[0].Attempts != 1 || !strings.Contains(ds[0].LastError, "not among the plant's webhook hosts") {
+		t.Fatalf("deliveries %+v (%v): want one failed at its first attempt", ds, err)
+	}
+	if n := len(rc.all()); n != 0 {
+		t.Errorf("the receiver got %d requests", n)
+	}
+	page := e.do(req{method: "GET", path: "/alerts", cookie: e.signIn(t, "engineer1", testPassword)}).Body.String()
+	for _, s := range []string{"not among the plant&#39;s webhook hosts", "chat.plant.example"} {
+		if !strings.Contains(page, s) {
+			t.Errorf("the alerts page does not show %q", s)
+		}
+	}
+}

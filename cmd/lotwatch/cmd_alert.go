@@ -28,6 +28,7 @@ const alertHelp = `Usage:
   lotwatch alert add --db FILE --process NAME --email ADDR [--on LIST] [--each-lot] [--unexplained-after DURATION] [--as NAME]
   lotwatch alert list --db FILE [--format text|json]
   lotwatch alert remove --db FILE --id N [--as NAME]
+  lotwatch alert hosts --db FILE [--set LIST --reason TEXT] [--as NAME]
 
 An alert rule sends a message when a lot of its process signals, while
 "lotwatch serve" runs: to a webhook (a chat channel, a paging system; the
@@ -61,6 +62,11 @@ Options:
   --unexplained-after DURATION
                      the delay of unexplained, e.g. 4h or 90m (default 4h)
   --id N             the rule number shown by list
+  --set LIST         hosts: the only hosts webhooks may go to, a comma list
+                     of host names (chat.plant.example), *.domain, IP
+                     addresses and ranges (10.0.0.0/8); "" allows any host
+                     (the default). Without --set, hosts prints the list.
+  --reason TEXT      why the hosts change (for the audit trail)
   --format F         text (the default) or json, for list
   --as NAME          the name recorded in the audit trail (default: your
                      user name on this computer)
@@ -75,6 +81,7 @@ func runAlert(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 		cliAction{"add", runAlertAdd},
 		cliAction{"list", runAlertList},
 		cliAction{"remove", runAlertRemove},
+		cliAction{"hosts", runAlertHosts},
 	)
 }
 
@@ -288,5 +295,59 @@ func runAlertRemove(args []string, stdout, stderr io.Writer) int {
 		return cliStoreError(stderr, cmd, "", err)
 	}
 	fmt.Fprintf(stdout, "removed alert rule %d\n", id)
+	return exitOK
+}
+
+// runAlertHosts prints or sets the plant's allow-list of webhook hosts.
+// It is a command-line setting only: those who add rules on the Alerts
+// page cannot widen it.
+func runAlertHosts(args []string, stdout, stderr io.Writer) int {
+	const cmd = "alert hosts"
+	fs := cliFlags(cmd)
+	dbPath := fs.String("db", "", "")
+	list := fs.String("set", "", "")
+	reason := fs.String("reason", "", "")
+	as := fs.String("as", "", "")
+	pos, code, done := cliParse(fs, args, alertHelp, stdout, stderr)
+	if done {
+		return code
+	}
+	set := map[string]bool{}
+	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
+	probs := append(cliRequire(cmd, "db", *dbPath), cliNoArgs(pos)...)
+	if set["set"] {
+		if _, ps := store.CheckWebhookHosts(*list); len(ps) > 0 {
+			probs = append(probs, alertProblem(store.Problem{Field: "set", Value: ps[0].Value, Reason: ps[0].Reason}))
+		}
+		if strings.TrimSpace(*reason) == "" {
+			probs = append(probs, `--reason "": say why webhooks may go to these hosts`)
+		}
+	} else if set["reason"] {
+		probs = append(probs, fmt.Sprintf("--reason %q: is given without --set", *reason))
+	}
+	probs = append(probs, cliExistingDB(*dbPath)...)
+	if len(probs) > 0 {
+		return cliProblems(stderr, cmd, probs[0])
+	}
+	db, code, ok := cliOpen(stderr, cmd, *dbPath)
+	if !ok {
+		return code
+	}
+	defer db.Close()
+	ctx := context.Background()
+	hosts, err := db.WebhookHosts(ctx)
+	if set["set"] {
+		hosts, err = db.SetWebhookHosts(ctx, cliActor(*as), *reason, *list)
+	}
+	if err != nil {
+		return cliStoreError(stderr, cmd, "", err)
+	}
+	if len(hosts) == 0 {
+		fmt.Fprintln(stdout, "webhooks may go to any host (no allow-list is set)")
+		return exitOK
+	}
+	for _, h := range hosts {
+		fmt.Fprintln(stdout, h)
+	}
 	return exitOK
 }

@@ -89,3 +89,50 @@ func TestCLIAlert(t *testing.T) {
 		t.Errorf("audit verify: %d %s", code, out)
 	}
 }
+
+// TestCLIAlertHosts: alert hosts prints the plant's webhook hosts, sets
+// them with a reason (bad input: exit 2, one line naming the option and
+// value, nothing changed), and alert add then refuses a webhook to
+// another host with exit 2 naming --webhook.
+func TestCLIAlertHosts(t *testing.T) {
+	db := filepath.Join(t.TempDir(), "a.db")
+	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "Line 2 final", "--as", "qa"); code != exitOK {
+		t.Fatalf("process add: %d %s", code, errs)
+	}
+	hosts := func(args ...string) (int, string, string) {
+		return runCLI(t, "", append([]string{"alert", "hosts", "--db", db}, args...)...)
+	}
+	if code, out, _ := hosts(); code != exitOK || !strings.Contains(out, "any host") {
+		t.Errorf("unset: %d %q", code, out)
+	}
+	for _, tc := range []struct {
+		args []string
+		want string
+	}{
+		{[]string{"--set", "chat.plant.example,http://x/", "--reason", "r"}, `--set "http://x/"`},
+		{[]string{"--set", "chat.plant.example"}, `--reason ""`},
+		{[]string{"--reason", "why"}, `--reason "why"`},
+	} {
+		code, out, errs := hosts(tc.args...)
+		lines := strings.Split(strings.TrimRight(errs, "\n"), "\n")
+		if code != exitUsage || out != "" || len(lines) != 1 || !strings.Contains(lines[0], tc.want) {
+			t.Errorf("%v: exit %d, stdout %q, stderr %q; want 2 and one line naming %s", tc.args, code, out, errs, tc.want)
+		}
+	}
+	if code, out, errs := hosts("--set", "chat.plant.example, 10.0.0.0/8", "--reason", "plant data stays on site", "--as", "admin"); code != exitOK || out != "chat.plant.example\n10.0.0.0/8\n" {
+		t.Fatalf("set: %d %q %s", code, out, errs)
+	}
+	if _, out, _ := hosts(); out != "chat.plant.example\n10.0.0.0/8\n" {
+		t.Errorf("print: %q", out)
+	}
+	code, out, errs := runCLI(t, "", "alert", "add", "--db", db, "--process", "Line 2 final", "--webhook", "https://hooks.outside.example/x", "--secret", "s")
+	if code != exitUsage || out != "" || !strings.Contains(errs, `--webhook "https://hooks.outside.example/x"`) {
+		t.Errorf("add to a host left out: %d %q %q", code, out, errs)
+	}
+	if code, _, errs := runCLI(t, "", "alert", "add", "--db", db, "--process", "Line 2 final", "--webhook", "http://10.9.8.7/hook", "--secret", "s"); code != exitOK {
+		t.Errorf("add to an allowed host: %d %s", code, errs)
+	}
+	if code, out, _ := runCLI(t, "", "audit", "verify", "--db", db); code != exitOK {
+		t.Errorf("audit verify: %d %s", code, out)
+	}
+}

@@ -8,6 +8,7 @@ import (
 	"io"
 	"log/slog"
 	"net/http"
+	"net/url"
 	"strconv"
 	"strings"
 	"sync"
@@ -320,6 +321,9 @@ func (w *Worker) attempt(ctx context.Context, d store.Delivery) {
 			a.Error = a.Error[:1000] + "…"
 		}
 		next = nextAttempt(d.Created, time.Now(), d.Attempts+1, w.cfg.RetryBase)
+		if errors.Is(err, errHostLeftOut) {
+			next = time.Time{} // no retry can succeed
+		}
 		w.cfg.Log.Warn("alerts: delivery failed", "msg", d.MsgID, "target", d.Rule.Target(), "attempt", d.Attempts+1, "err", err)
 	}
 	if err := w.cfg.DB.RecordAttempt(ctx, w.cfg.Owner, d.ID, a, next); err != nil {
@@ -337,8 +341,19 @@ func (w *Worker) deliver(ctx context.Context, d store.Delivery) (int, error) {
 		}
 		return w.cfg.Mail.Send(ctx, d.Rule.Email, d.MsgID, []byte(d.Payload))
 	}
+	list, err := w.cfg.DB.WebhookHosts(ctx)
+	if err != nil {
+		return 0, err
+	}
+	if u, err := url.Parse(d.Rule.Webhook); err != nil || !store.HostAllowed(list, u.Hostname()) {
+		return 0, fmt.Errorf("%w (%s): the message is not sent", errHostLeftOut, strings.Join(list, ", "))
+	}
 	return SendWebhook(ctx, w.cfg.Client, d.Rule.Webhook, d.Rule.Secret, d.MsgID, []byte(d.Payload), time.Now())
 }
+
+// errHostLeftOut is the failure of a message to a webhook whose host the
+// plant's allow-list (set after the rule was added) leaves out.
+var errHostLeftOut = errors.New("the webhook's host is not among the plant's webhook hosts")
 
 // SendWebhook posts body to url with the Standard Webhooks headers:
 // webhook-id msgID, webhook-timestamp now in Unix seconds and
