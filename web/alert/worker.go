@@ -302,6 +302,10 @@ func (w *Worker) sendDue(ctx context.Context) error {
 				w.mu.Lock()
 				delete(w.inflight, d.ID)
 				w.mu.Unlock()
+				// Room for the next message: a backlog (a receiver back
+				// after a while, a server restarted) is sent at the pace
+				// of the receiver, not one handful per poll.
+				w.Wake()
 			}()
 			w.attempt(context.WithoutCancel(ctx), d)
 		}()
