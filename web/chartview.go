@@ -57,6 +57,8 @@ type shiftPoint struct {
 	HasCUSUM, HasEWMA bool
 	S                 float64
 	Z, UCL, LCL       float64
+	// CUSUMSignal and EWMASignal: the monitor signals at this point.
+	CUSUMSignal, EWMASignal bool
 }
 
 // Out reports a point beyond a limit.
@@ -316,11 +318,11 @@ func monitorPoint(sw *spc.ShiftWatch, k int) *shiftPoint {
 	}
 	sp := &shiftPoint{HasCUSUM: sw.CUSUM != nil, HasEWMA: sw.EWMA != nil}
 	if sp.HasCUSUM {
-		sp.S = sw.CUSUMPoints[k].S
+		sp.S, sp.CUSUMSignal = sw.CUSUMPoints[k].S, sw.CUSUMPoints[k].Signal
 	}
 	if sp.HasEWMA {
 		e := sw.EWMAPoints[k]
-		sp.Z, sp.UCL, sp.LCL = e.Z, e.UCL, e.LCL
+		sp.Z, sp.UCL, sp.LCL, sp.EWMASignal = e.Z, e.UCL, e.LCL, e.Signal
 	}
 	return sp
 }
