@@ -90,7 +90,7 @@ var fragmentTmpl = template.Must(template.New("fragment").Funcs(funcs).Parse(`<d
 {{if .Processes}}<section class="lw-summary-block">
 <h2>Summary{{if .Filtered}} <span class="muted">({{len .Rows}} of {{len .Processes}} processes)</span>{{end}}</h2>
 <p class="lw-glance">{{.Glance.Sentence}}</p>
-<p>Processes asking most for attention first: a rise unlikely from sampling alone, lots outside their limits or in run-rule signals with no cause recorded, a rise too close to call. "Outside limits" and "Signals" count the week's; "Lots needing attention" counts every lot of the record, of any age, flagged and not yet explained.</p>
+<p>Processes asking most for attention first: a rise unlikely from sampling alone, lots outside their limits or in run-rule or small-shift signals with no cause recorded, a rise too close to call. "Outside limits" and "Signals" count the week's; "Lots needing attention" counts every lot of the record, of any age, flagged and not yet explained.</p>
 {{with .Chance.Sentence .FDR}}<p>{{.}}</p>{{end}}
 <div class="lw-scroll"><table class="lw-summary">
 <thead><tr><th scope="col">Process</th><th scope="col">Rate {{.Week}}</th><th scope="col">{{level .Level}} interval</th><th scope="col">Change</th><th scope="col">Verdict</th><th scope="col">Adjusted p</th><th scope="col">Outside limits</th><th scope="col">Signals</th><th scope="col">Lots needing attention</th></tr></thead>
