@@ -46,7 +46,11 @@ type AlertRule struct {
 	// EachLot makes the rule hear of every lot that extends a run-rule or
 	// shift signal; otherwise it hears of the lot that starts the signal
 	// only (the unexplained trigger reminds of it).
-	EachLot   bool
+	EachLot bool
+	// Digest, for an e-mail rule, is the time of day (HH:MM in the
+	// process's time zone) when the messages made since the last digest
+	// go out as one e-mail; "" sends each message at once.
+	Digest    string
 	Active    bool
 	Created   time.Time
 	CreatedBy string
@@ -164,6 +168,13 @@ func CheckAlertRule(r *AlertRule) []Problem {
 			ps = append(ps, p...)
 		}
 	}
+	if r.Digest != "" {
+		if r.Email == "" {
+			ps = append(ps, Problem{Field: "digest-at", Value: r.Digest, Reason: "is for e-mail rules only (a webhook gets each message at once)"})
+		} else if _, err := time.Parse("15:04", r.Digest); err != nil {
+			ps = append(ps, Problem{Field: "digest-at", Value: r.Digest, Reason: "is not a time of day HH:MM (e.g. 06:00)"})
+		}
+	}
 	if r.EachLot && !r.Has(TriggerRunRule) && !r.Has(TriggerShift) {
 		ps = append(ps, Problem{Field: "each-lot", Value: "true", Reason: "is given but the rule listens for neither run_rule nor shift"})
 	}
@@ -200,8 +211,8 @@ func (db *DB) AddAlertRule(ctx context.Context, actor string, r AlertRule) (Aler
 			}
 		}
 		r.Process, r.Active, r.Created, r.CreatedBy = p.Name, true, w.now, actor
-		err = w.QueryRow(`INSERT INTO alert_rules (process_id, webhook, secret, email, triggers, unexplained_after, each_lot, active, created, created_by)
-			VALUES (?, ?, ?, ?, ?, ?, ?, 1, ?, ?) RETURNING id`, r.ProcessID, r.Webhook, r.Secret, r.Email, strings.Join(r.On, ","), int64(r.UnexplainedAfter), boolInt(r.EachLot), w.now.UnixNano(), actor).Scan(&r.ID)
+		err = w.QueryRow(`INSERT INTO alert_rules (process_id, webhook, secret, email, triggers, unexplained_after, each_lot, digest, active, created, created_by)
+			VALUES (?, ?, ?, ?, ?, ?, ?, ?, 1, ?, ?) RETURNING id`, r.ProcessID, r.Webhook, r.Secret, r.Email, strings.Join(r.On, ","), int64(r.UnexplainedAfter), boolInt(r.EachLot), r.Digest, w.now.UnixNano(), actor).Scan(&r.ID)
 		if err != nil {
 			return err
 		}
@@ -234,13 +245,13 @@ func (db *DB) RemoveAlertRule(ctx context.Context, actor string, id int64) error
 	})
 }
 
-const alertRuleCols = `r.id, r.process_id, p.name, r.webhook, r.secret, r.email, r.triggers, r.unexplained_after, r.each_lot, r.active, r.created, r.created_by`
+const alertRuleCols = `r.id, r.process_id, p.name, r.webhook, r.secret, r.email, r.triggers, r.unexplained_after, r.each_lot, r.digest, r.active, r.created, r.created_by`
 
 func scanAlertRule(s interface{ Scan(...any) error }) (AlertRule, error) {
 	var r AlertRule
 	var on string
 	var after, created int64
-	err := s.Scan(&r.ID, &r.ProcessID, &r.Process, &r.Webhook, &r.Secret, &r.Email, &on, &after, &r.EachLot, &r.Active, &created, &r.CreatedBy)
+	err := s.Scan(&r.ID, &r.ProcessID, &r.Process, &r.Webhook, &r.Secret, &r.Email, &on, &after, &r.EachLot, &r.Digest, &r.Active, &created, &r.CreatedBy)
 	if on != "" {
 		r.On = strings.Split(on, ",")
 	}
@@ -411,6 +422,24 @@ type NewDelivery struct {
 	LotID   int64 // 0 when about no lot (a test)
 	Type    string
 	Payload string
+	// NotBefore holds the message back until then (a rule's digest
+	// time); zero sends it at once.
+	NotBefore time.Time
+}
+
+// NextDigest is when a rule with a digest at hhmm (HH:MM in loc) next
+// sends its digest after now; zero when hhmm is "".
+func NextDigest(hhmm string, loc *time.Location, now time.Time) time.Time {
+	at, err := time.Parse("15:04", hhmm)
+	if err != nil {
+		return time.Time{}
+	}
+	n := now.In(loc)
+	t := time.Date(n.Year(), n.Month(), n.Day(), at.Hour(), at.Minute(), 0, 0, loc)
+	if !t.After(n) {
+		t = time.Date(n.Year(), n.Month(), n.Day()+1, at.Hour(), at.Minute(), 0, 0, loc)
+	}
+	return t
 }
 
 // FinishAlertEvents makes the deliveries of judged events and marks them
@@ -443,9 +472,10 @@ func (w *wtx) addDeliveries(ds []NewDelivery) error {
 		if d.LotID != 0 {
 			lot = d.LotID
 		}
+		next := max(w.now.UnixNano(), nanos(d.NotBefore))
 		if _, err := w.Exec(`INSERT INTO alert_deliveries (msg_id, rule_id, lot_id, type, payload, created, state, next_at)
 			VALUES (?, ?, ?, ?, ?, ?, 'pending', ?) ON CONFLICT (msg_id) DO NOTHING`,
-			d.MsgID, d.RuleID, lot, d.Type, d.Payload, w.now.UnixNano(), w.now.UnixNano()); err != nil {
+			d.MsgID, d.RuleID, lot, d.Type, d.Payload, w.now.UnixNano(), next); err != nil {
 			return fmt.Errorf("store: delivery %s: %w", d.MsgID, err)
 		}
 	}
@@ -489,13 +519,24 @@ func scanDelivery(s interface{ Scan(...any) error }, d *Delivery, extra ...any) 
 // ClaimDeliveries takes up to limit pending deliveries that are due, for
 // owner until lease ends, with their rules.
 func (db *DB) ClaimDeliveries(ctx context.Context, owner string, lease time.Duration, limit int) ([]Delivery, error) {
+	return db.claimDeliveries(ctx, owner, lease, limit, 0)
+}
+
+// ClaimRuleDeliveries is ClaimDeliveries for the deliveries of one rule
+// (those of a digest, sent as one e-mail).
+func (db *DB) ClaimRuleDeliveries(ctx context.Context, owner string, lease time.Duration, limit int, ruleID int64) ([]Delivery, error) {
+	return db.claimDeliveries(ctx, owner, lease, limit, ruleID)
+}
+
+func (db *DB) claimDeliveries(ctx context.Context, owner string, lease time.Duration, limit int, ruleID int64) ([]Delivery, error) {
 	var ids []int64
 	err := db.write(ctx, func(w *wtx) error {
 		ids = ids[:0]
 		now := w.now.UnixNano()
 		rows, err := w.Query(`UPDATE alert_deliveries SET lease_owner = ?, lease_until = ?
-			WHERE id IN (SELECT id FROM alert_deliveries WHERE state = 'pending' AND next_at <= ? AND lease_until < ? ORDER BY next_at LIMIT ?)
-			RETURNING id`, owner, now+int64(lease), now, now, limit)
+			WHERE id IN (SELECT id FROM alert_deliveries WHERE state = 'pending' AND next_at <= ? AND lease_until < ? AND (? = 0 OR rule_id = ?)
+			ORDER BY next_at LIMIT ?)
+			RETURNING id`, owner, now+int64(lease), now, now, ruleID, ruleID, limit)
 		if err != nil {
 			return err
 		}

@@ -39,6 +39,9 @@ func TestAlertRuleInput(t *testing.T) {
 			{AlertRule{Webhook: "http://127.0.0.1:9/", Secret: "s", On: []string{"sometimes"}}, "on", "sometimes"},
 			{AlertRule{Webhook: "http://127.0.0.1:9/", Secret: "s", On: []string{TriggerUnexplained}, UnexplainedAfter: time.Second}, "unexplained-after", "1s"},
 			{AlertRule{Webhook: "http://127.0.0.1:9/", Secret: "s", UnexplainedAfter: time.Hour}, "unexplained-after", "1h0m0s"},
+			{AlertRule{Webhook: "http://127.0.0.1:9/", Secret: "s", Digest: "06:00"}, "digest-at", "06:00"},
+			{AlertRule{Email: "qa@plant.test", Digest: "25:00"}, "digest-at", "25:00"},
+			{AlertRule{Email: "qa@plant.test", On: []string{TriggerOutOfLimits}, EachLot: true}, "each-lot", "true"},
 		}
 		for _, tc := range tests {
 			tc.r.ProcessID = p.ID
@@ -341,4 +344,30 @@ func TestWebhookHostsSetting(t *testing.T) {
 			t.Errorf("audit verify: %+v %v", rep, err)
 		}
 	})
+}
+
+// TestNextDigest: a digest at HH:MM goes out at the next such wall-clock
+// time in the process's zone, across the change to summer time (Europe/
+// Berlin moves from 02:00 CET to 03:00 CEST on the last Sunday of March,
+// 29 March 2026: EU summer-time rule, from memory).
+func TestNextDigest(t *testing.T) {
+	berlin, err := time.LoadLocation("Europe/Berlin")
+	if err != nil {
+		t.Skip("no time zone data:", err)
+	}
+	for _, tc := range []struct {
+		hhmm string
+		now  time.Time
+		want time.Time
+	}{
+		{"06:00", time.Date(2026, 3, 2, 5, 59, 0, 0, berlin), time.Date(2026, 3, 2, 6, 0, 0, 0, berlin)},
+		{"06:00", time.Date(2026, 3, 2, 6, 0, 0, 0, berlin), time.Date(2026, 3, 3, 6, 0, 0, 0, berlin)},
+		{"06:00", time.Date(2026, 3, 28, 7, 0, 0, 0, berlin), time.Date(2026, 3, 29, 4, 0, 0, 0, time.UTC)},
+		{"00:00", time.Date(2026, 12, 31, 22, 30, 0, 0, time.UTC), time.Date(2027, 1, 1, 0, 0, 0, 0, berlin)}, // 23:30 in Berlin
+		{"", time.Date(2026, 3, 2, 5, 0, 0, 0, berlin), time.Time{}},
+	} {
+		if got := NextDigest(tc.hhmm, berlin, tc.now); !got.Equal(tc.want) {
+			t.Errorf("%q at %v: %v, want %v", tc.hhmm, tc.now, got, tc.want)
+		}
+	}
 }

@@ -88,12 +88,13 @@ type alertRuleAudit struct {
 	On               string `json:"on"`
 	UnexplainedAfter int64  `json:"unexplained_after_ns"`
 	EachLot          bool   `json:"each_lot,omitempty"` // omitted when false, as in entries written before it existed
+	Digest           string `json:"digest,omitempty"`   // likewise omitted when ""
 	Active           bool   `json:"active"`
 }
 
 func auditAlertRule(r AlertRule) alertRuleAudit {
 	a := alertRuleAudit{ProcessID: r.ProcessID, Webhook: r.Webhook, Email: r.Email, On: strings.Join(r.On, ","),
-		UnexplainedAfter: int64(r.UnexplainedAfter), EachLot: r.EachLot, Active: r.Active}
+		UnexplainedAfter: int64(r.UnexplainedAfter), EachLot: r.EachLot, Digest: r.Digest, Active: r.Active}
 	if r.Secret != "" {
 		a.SecretSHA256 = credentialDigest([]byte(r.Secret))
 	}

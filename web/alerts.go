@@ -257,7 +257,7 @@ func (s *Server) showAlerts(w http.ResponseWriter, r *http.Request, status int, 
 // form, which keeps what was typed (but not the secret).
 func (s *Server) addAlertRule(w http.ResponseWriter, r *http.Request) {
 	vals := map[string]string{}
-	for _, k := range []string{"process", "target", "webhook", "email", "unexplained_after"} {
+	for _, k := range []string{"process", "target", "webhook", "email", "unexplained_after", "digest_at"} {
 		vals[k] = strings.TrimSpace(r.PostFormValue(k))
 	}
 	on := map[string]bool{}
@@ -270,7 +270,7 @@ func (s *Server) addAlertRule(w http.ResponseWriter, r *http.Request) {
 		vals["each_lot"] = "1"
 	}
 	var problems []string
-	rule := store.AlertRule{Secret: r.PostFormValue("secret"), EachLot: vals["each_lot"] != ""}
+	rule := store.AlertRule{Secret: r.PostFormValue("secret"), EachLot: vals["each_lot"] != "", Digest: vals["digest_at"]}
 	pid, err := strconv.ParseInt(vals["process"], 10, 64)
 	if err != nil {
 		problems = append(problems, fmt.Sprintf("process %q: choose a process", vals["process"]))

@@ -1,16 +1,24 @@
 package web
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"log/slog"
+	"mime"
+	"mime/multipart"
+	"net"
 	"net/http"
+	netmail "net/mail"
 	"slices"
 	"strings"
 	"testing"
 	"time"
+
+	"github.com/emersion/go-smtp"
 
 	"lotwatch/spc"
 	"lotwatch/spc/chartjson"
@@ -358,4 +366,125 @@ func TestAlertHostLeftOut(t *testing.T) {
 			t.Errorf("the alerts page does not show %q", s)
 		}
 	}
+}
+
+// TestAlertEmailDigest: an e-mail rule with a daily digest holds its
+// messages until the digest time in the process's zone (a time an hour
+// before now: tomorrow), then sends those due as one e-mail through a
+// real SMTP server: the subject counts them, both parts list each lot
+// with its link, and every message is logged as sent by that one attempt.
+func TestAlertEmailDigest(t *testing.T) {
+	be, mailer := smtpServer(t)
+	for _, due := range []bool{false, true} {
+		e := newTestEnv(t)
+		e.addLots(t, 30, func(int) int64 { return 4 })
+		loc := e.proc.Location()
+		at := e.clock.Now().In(loc).Add(-time.Hour).Format("15:04")
+		r := e.alertRule(t, store.AlertRule{Email: "digest@plant.test", Digest: at})
+		if due { // the server's clock two days back: its next digest time is past
+			e.clock.Advance(-48 * time.Hour)
+		}
+		srv, err := NewServer(Config{DB: e.db, Now: e.clock.Now, Logger: slog.New(slog.NewTextHandler(io.Discard, nil)),
+			Alerts: AlertsConfig{PublicURL: "https://lotwatch.plant.test", Mail: mailer, RetryBase: time.Millisecond}})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var hot []store.Lot
+		for i := range 3 {
+			hot = append(hot, e.postLot(t, fmt.Sprintf("HOT-%d", i), 40+i))
+		}
+		drain(t, srv, 3)
+		ds, err := e.db.Deliveries(t.Context(), r.ID, 10)
+		if err != nil || len(ds) != 3 {
+			t.Fatalf("deliveries %+v (%v)", ds, err)
+		}
+		if !due {
+			n := e.clock.Now().In(loc)
+			hm, _ := time.Parse("15:04", at)
+			want := time.Date(n.Year(), n.Month(), n.Day()+1, hm.Hour(), hm.Minute(), 0, 0, loc)
+			for _, d := range ds {
+				if d.State != store.DeliveryPending || !d.NextAt.Equal(want) {
+					t.Errorf("%s: %s, next at %v, want pending until %v", d.MsgID, d.State, d.NextAt, want)
+				}
+			}
+			if n := be.count(); n != 0 {
+				t.Fatalf("%d e-mails before the digest time", n)
+			}
+			continue
+		}
+		for _, d := range ds {
+			if as, _ := e.db.Attempts(t.Context(), d.ID); d.State != store.DeliverySent || len(as) != 1 {
+				t.Errorf("%s: %s after %d attempts", d.MsgID, d.State, len(as))
+			}
+		}
+		if n := be.count(); n != 1 {
+			t.Fatalf("%d e-mails, want one digest", n)
+		}
+		subject, parts := decodeMail(t, be.msgs[0].data)
+		if want := "lotwatch digest: " + e.proc.Name + ", 3 alerts"; subject != want {
+			t.Errorf("subject %q, want %q", subject, want)
+		}
+		for _, l := range hot {
+			link := fmt.Sprintf("https://lotwatch.plant.test/lots/%d", l.ID)
+			if !strings.Contains(parts["text/plain"], link) || !strings.Contains(parts["text/plain"], l.Lot) || !strings.Contains(parts["text/html"], `href="`+link+`"`) {
+				t.Errorf("the digest lacks lot %s or its link %s:\n%s", l.Lot, link, parts["text/plain"])
+			}
+		}
+	}
+}
+
+// smtpServer starts an in-process SMTP server on loopback (see
+// smtpBackend) and a Mailer sending to it.
+func smtpServer(t *testing.T) (*smtpBackend, *alert.Mailer) {
+	t.Helper()
+	be := &smtpBackend{}
+	ss := smtp.NewServer(be)
+	ss.Domain = "localhost"
+	ln, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	go ss.Serve(ln)
+	t.Cleanup(func() { ss.Close() })
+	mailer, err := alert.NewMailer(alert.MailConfig{Addr: ln.Addr().String(), From: "lotwatch@plant.test"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return be, mailer
+}
+
+func (b *smtpBackend) count() int {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	return len(b.msgs)
+}
+
+// decodeMail reads a received e-mail: its decoded subject and its parts
+// by content type.
+func decodeMail(t *testing.T, data []byte) (string, map[string]string) {
+	t.Helper()
+	msg, err := netmail.ReadMessage(bytes.NewReader(data))
+	if err != nil {
+		t.Fatal(err)
+	}
+	subject, _ := new(mime.WordDecoder).DecodeHeader(msg.Header.Get("Subject"))
+	_, params, err := mime.ParseMediaType(msg.Header.Get("Content-Type"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	parts := map[string]string{}
+	mr := multipart.NewReader(msg.Body, params["boundary"])
+	for {
+		p, err := mr.NextPart()
+		if errors.Is(err, io.EOF) {
+			break
+		}
+		if err != nil {
+			t.Fatal(err)
+		}
+		b, _ := io.ReadAll(p)
+		ct, _, _ := mime.ParseMediaType(p.Header.Get("Content-Type"))
+		parts[ct] = string(b)
+	}
+	return subject, parts
 }

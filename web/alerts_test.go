@@ -473,6 +473,8 @@ func TestAlertRuleForm(t *testing.T) {
 		{"process=" + pid + "&target=email&email=not-an-address&on=out_of_limits", "not an e-mail address"},
 		{"process=" + pid + "&target=webhook&webhook=http://127.0.0.1:9/&secret=s&on=sometimes", "sometimes"},
 		{"process=" + pid + "&target=webhook&webhook=http://127.0.0.1:9/&secret=s&on=unexplained&unexplained_after=soon", "soon"},
+		{"process=" + pid + "&target=webhook&webhook=http://127.0.0.1:9/&secret=s&on=out_of_limits&digest_at=06:00", "for e-mail rules only"},
+		{"process=" + pid + "&target=email&email=qa@plant.test&on=out_of_limits&digest_at=noon", "not a time of day"},
 	} {
 		rec := post(tc.body)
 		if rec.Code != http.StatusBadRequest || !strings.Contains(rec.Body.String(), tc.want) {

@@ -25,7 +25,7 @@ func init() {
 
 const alertHelp = `Usage:
   lotwatch alert add --db FILE --process NAME --webhook URL --secret S [--on LIST] [--each-lot] [--unexplained-after DURATION] [--as NAME]
-  lotwatch alert add --db FILE --process NAME --email ADDR [--on LIST] [--each-lot] [--unexplained-after DURATION] [--as NAME]
+  lotwatch alert add --db FILE --process NAME --email ADDR [--on LIST] [--each-lot] [--unexplained-after DURATION] [--digest-at HH:MM] [--as NAME]
   lotwatch alert list --db FILE [--format text|json]
   lotwatch alert remove --db FILE --id N [--as NAME]
   lotwatch alert hosts --db FILE [--set LIST --reason TEXT] [--as NAME]
@@ -61,6 +61,9 @@ Options:
                      reminds of it)
   --unexplained-after DURATION
                      the delay of unexplained, e.g. 4h or 90m (default 4h)
+  --digest-at HH:MM  e-mail only: send the messages once a day, as one
+                     e-mail at this time of day in the process's time zone
+                     (default: each message at once)
   --id N             the rule number shown by list
   --set LIST         hosts: the only hosts webhooks may go to, a comma list
                      of host names (chat.plant.example), *.domain, IP
@@ -113,6 +116,7 @@ func runAlertAdd(args []string, stdout, stderr io.Writer) int {
 	on := fs.String("on", "", "")
 	after := fs.String("unexplained-after", "", "")
 	eachLot := fs.Bool("each-lot", false, "")
+	digest := fs.String("digest-at", "", "")
 	as := fs.String("as", "", "")
 	pos, code, done := cliParse(fs, args, alertHelp, stdout, stderr)
 	if done {
@@ -138,7 +142,7 @@ func runAlertAdd(args []string, stdout, stderr io.Writer) int {
 	if len(ps) > 0 {
 		return fail(alertProblem(ps[0]))
 	}
-	r := store.AlertRule{Webhook: *webhook, Secret: *secret, Email: *email, On: triggers, EachLot: *eachLot}
+	r := store.AlertRule{Webhook: *webhook, Secret: *secret, Email: *email, On: triggers, EachLot: *eachLot, Digest: *digest}
 	if *after != "" {
 		d, err := time.ParseDuration(*after)
 		if err != nil {
@@ -233,10 +237,11 @@ func runAlertList(args []string, stdout, stderr io.Writer) int {
 			On               []string `json:"on"`
 			UnexplainedAfter string   `json:"unexplained_after"`
 			EachLot          bool     `json:"each_lot"`
+			DigestAt         string   `json:"digest_at"`
 		}
 		out := []rj{}
 		for _, r := range rules {
-			out = append(out, rj{r.ID, r.Process, r.Target(), r.On, shortDuration(r.UnexplainedAfter), r.EachLot})
+			out = append(out, rj{r.ID, r.Process, r.Target(), r.On, shortDuration(r.UnexplainedAfter), r.EachLot, r.Digest})
 		}
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
@@ -244,13 +249,13 @@ func runAlertList(args []string, stdout, stderr io.Writer) int {
 		return exitOK
 	}
 	tw := tabwriter.NewWriter(stdout, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "ID\tPROCESS\tTARGET\tON\tUNEXPLAINED AFTER\tEACH LOT")
+	fmt.Fprintln(tw, "ID\tPROCESS\tTARGET\tON\tUNEXPLAINED AFTER\tEACH LOT\tDIGEST AT")
 	for _, r := range rules {
 		each := "no"
 		if r.EachLot {
 			each = "yes"
 		}
-		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%s\t%s\n", r.ID, r.Process, r.Target(), strings.Join(r.On, ","), orNone(shortDuration(r.UnexplainedAfter)), each)
+		fmt.Fprintf(tw, "%d\t%s\t%s\t%s\t%s\t%s\t%s\n", r.ID, r.Process, r.Target(), strings.Join(r.On, ","), orNone(shortDuration(r.UnexplainedAfter)), each, orNone(r.Digest))
 	}
 	tw.Flush()
 	return exitOK

@@ -33,6 +33,8 @@ func TestCLIAlert(t *testing.T) {
 		{[]string{"--process", "Line 2 final", "--webhook", "http://127.0.0.1:9/", "--secret", "s", "--on", "unexplained", "--unexplained-after", "soon"}, `--unexplained-after "soon"`},
 		{[]string{"--process", "Line 2 final", "--email", "nobody"}, `--email "nobody"`},
 		{[]string{"--process", "Line 2 final", "--email", "qa@plant.test", "--on", "out_of_limits", "--each-lot"}, `--each-lot "true"`},
+		{[]string{"--process", "Line 2 final", "--email", "qa@plant.test", "--digest-at", "6am"}, `--digest-at "6am"`},
+		{[]string{"--process", "Line 2 final", "--webhook", "http://127.0.0.1:9/", "--secret", "s", "--digest-at", "06:00"}, `--digest-at "06:00"`},
 	}
 	for _, tc := range bad {
 		code, out, errs := add(tc.args...)
@@ -52,7 +54,7 @@ func TestCLIAlert(t *testing.T) {
 	if err != nil {
 		t.Fatalf("add printed %q: the id must come first", out)
 	}
-	code, out, errs = add("--process", "Line 2 final", "--email", "qa@plant.test", "--on", "out_of_limits,run_rule,unexplained", "--unexplained-after", "90m", "--each-lot")
+	code, out, errs = add("--process", "Line 2 final", "--email", "qa@plant.test", "--on", "out_of_limits,run_rule,unexplained", "--unexplained-after", "90m", "--each-lot", "--digest-at", "06:30")
 	if code != exitOK {
 		t.Fatalf("add e-mail: %d %s", code, errs)
 	}
@@ -66,8 +68,8 @@ func TestCLIAlert(t *testing.T) {
 		t.Error("list shows a secret")
 	}
 	want := []string{
-		`{"each_lot":false,"id":` + strconv.Itoa(id1) + `,"on":["out_of_limits","run_rule","shift"],"process":"Line 2 final","target":"http://10.0.0.7:8080/hook","unexplained_after":""}`,
-		`{"each_lot":true,"id":` + strconv.Itoa(id2) + `,"on":["out_of_limits","run_rule","unexplained"],"process":"Line 2 final","target":"qa@plant.test","unexplained_after":"1h30m"}`,
+		`{"digest_at":"","each_lot":false,"id":` + strconv.Itoa(id1) + `,"on":["out_of_limits","run_rule","shift"],"process":"Line 2 final","target":"http://10.0.0.7:8080/hook","unexplained_after":""}`,
+		`{"digest_at":"06:30","each_lot":true,"id":` + strconv.Itoa(id2) + `,"on":["out_of_limits","run_rule","unexplained"],"process":"Line 2 final","target":"qa@plant.test","unexplained_after":"1h30m"}`,
 	}
 	for i, g := range got {
 		b, _ := json.Marshal(g)

@@ -89,7 +89,7 @@ func (w *Worker) judgeBatch(ctx context.Context, b store.AlertBatch, rules []sto
 		if err != nil {
 			return nil, err
 		}
-		ds = append(ds, store.NewDelivery{MsgID: BatchMsgID(b.ID, r.ID), RuleID: r.ID, Type: TypeBatch, Payload: body})
+		ds = append(ds, store.NewDelivery{MsgID: BatchMsgID(b.ID, r.ID), RuleID: r.ID, Type: TypeBatch, Payload: body, NotBefore: w.digestTime(r, p)})
 	}
 	return ds, nil
 }

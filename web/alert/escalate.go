@@ -120,7 +120,8 @@ func (w *Worker) escalateProcess(ctx context.Context, pid int64, rules []store.A
 		if err != nil {
 			return nil, err
 		}
-		ds = append(ds, store.NewDelivery{MsgID: MsgID(TypeUnexplained, d.lot, d.rule.ID), RuleID: d.rule.ID, LotID: d.lot, Type: TypeUnexplained, Payload: body})
+		ds = append(ds, store.NewDelivery{MsgID: MsgID(TypeUnexplained, d.lot, d.rule.ID), RuleID: d.rule.ID, LotID: d.lot, Type: TypeUnexplained, Payload: body,
+			NotBefore: w.digestTime(d.rule, p)})
 	}
 	return ds, nil
 }

@@ -14,6 +14,8 @@ import (
 	"time"
 
 	mail "github.com/wneessen/go-mail"
+
+	"lotwatch/store"
 )
 
 // MailConfig is the SMTP server alerts are sent through.
@@ -63,6 +65,11 @@ func (m *Mailer) Send(ctx context.Context, to, msgID string, body []byte) (int, 
 	if err != nil {
 		return 0, err
 	}
+	return m.send(ctx, em)
+}
+
+// send hands em to the SMTP server.
+func (m *Mailer) send(ctx context.Context, em *mail.Msg) (int, error) {
 	opts := []mail.Option{mail.WithPort(m.port), mail.WithTLSPolicy(mail.TLSOpportunistic), mail.WithTimeout(30 * time.Second)}
 	if m.cfg.User != "" {
 		opts = append(opts, mail.WithSMTPAuth(mail.SMTPAuthAutoDiscover), mail.WithUsername(m.cfg.User), mail.WithPassword(m.cfg.Password))
@@ -205,4 +212,72 @@ func (m *Mailer) compose(to, msgID string, msg mailFacts) (*mail.Msg, error) {
 	em.SetBodyString(mail.TypeTextPlain, plain.String())
 	em.AddAlternativeString(mail.TypeTextHTML, html.String())
 	return em, nil
+}
+
+// digestItem is one message of a digest e-mail.
+type digestItem struct {
+	Subject, URL, Cause string
+}
+
+var plainDigest = textTemplate.Must(textTemplate.New("plain").Parse(`The alerts of process {{.Process}} since the last digest ({{len .Items}}):
+{{range .Items}}
+- {{.Subject}}{{with .Cause}}
+  judged again after: {{.}}{{end}}
+  {{.URL}}
+{{end}}
+A chart in control is not proof that the product meets its specification;
+follow the plant's quality system for release and containment.
+`))
+
+var htmlDigest = template.Must(template.New("html").Parse(`<!doctype html>
+<html><body>
+<p>The alerts of process <b>{{.Process}}</b> since the last digest ({{len .Items}}):</p>
+<ul>{{range .Items}}<li><a href="{{.URL}}">{{.Subject}}</a>{{with .Cause}} (judged again after: {{.}}){{end}}</li>
+{{end}}</ul>
+<p><small>A chart in control is not proof that the product meets its specification; follow the plant's quality system for release and containment.</small></p>
+</body></html>
+`))
+
+// SendDigest mails the messages ds of one digest rule as one e-mail: the
+// subject counts them, each is listed with its own subject line and link.
+func (m *Mailer) SendDigest(ctx context.Context, to string, ds []store.Delivery) (int, error) {
+	data := struct {
+		Process string
+		Items   []digestItem
+	}{Process: ds[0].Rule.Process}
+	for _, d := range ds {
+		f, err := readMail([]byte(d.Payload))
+		if err != nil {
+			return 0, err
+		}
+		it := digestItem{Subject: strings.TrimPrefix(f.subject(), "lotwatch: "), URL: f.Data.URL, Cause: f.Data.Cause}
+		if f.Batch != nil {
+			it.URL = f.Batch.URL
+		}
+		data.Items = append(data.Items, it)
+	}
+	em := mail.NewMsg()
+	if err := em.From(m.cfg.From); err != nil {
+		return 0, err
+	}
+	if err := em.To(to); err != nil {
+		return 0, err
+	}
+	alerts := "alerts"
+	if len(ds) == 1 {
+		alerts = "alert"
+	}
+	em.Subject(fmt.Sprintf("lotwatch digest: %s, %d %s", data.Process, len(ds), alerts))
+	em.SetMessageIDWithValue(strings.ReplaceAll(ds[0].MsgID, "@", "_") + fmt.Sprintf(".digest%d@lotwatch", len(ds)))
+	em.SetDate()
+	var plain, html bytes.Buffer
+	if err := plainDigest.Execute(&plain, data); err != nil {
+		return 0, err
+	}
+	if err := htmlDigest.Execute(&html, data); err != nil {
+		return 0, err
+	}
+	em.SetBodyString(mail.TypeTextPlain, plain.String())
+	em.AddAlternativeString(mail.TypeTextHTML, html.String())
+	return m.send(ctx, em)
 }

@@ -265,10 +265,17 @@ func (w *Worker) judgeProcess(ctx context.Context, pid int64, es []store.AlertEv
 			if err != nil {
 				return nil, err
 			}
-			ds = append(ds, store.NewDelivery{MsgID: MsgID(TypeSignal, e.LotID, r.ID), RuleID: r.ID, LotID: e.LotID, Type: TypeSignal, Payload: body})
+			ds = append(ds, store.NewDelivery{MsgID: MsgID(TypeSignal, e.LotID, r.ID), RuleID: r.ID, LotID: e.LotID, Type: TypeSignal, Payload: body,
+				NotBefore: w.digestTime(r, p)})
 		}
 	}
 	return ds, nil
+}
+
+// digestTime is when a message of rule r about process p may go: the
+// rule's next digest, or zero (at once) for a rule without one.
+func (w *Worker) digestTime(r store.AlertRule, p store.Process) time.Time {
+	return store.NextDigest(r.Digest, p.Location(), w.cfg.Now())
 }
 
 // sendDue claims the deliveries that are due and starts their attempts.
@@ -287,51 +294,106 @@ func (w *Worker) sendDue(ctx context.Context) error {
 	if err != nil {
 		return err
 	}
+	digests := map[int64][]store.Delivery{}
 	for _, d := range ds {
-		w.mu.Lock()
-		if w.inflight[d.ID] {
-			w.mu.Unlock()
+		if d.Rule.Digest != "" && d.Type != TypeTest {
+			digests[d.RuleID] = append(digests[d.RuleID], d)
 			continue
 		}
-		w.inflight[d.ID] = true
-		w.mu.Unlock()
-		w.sends.Add(1)
-		go func() {
-			defer w.sends.Done()
-			defer func() {
-				w.mu.Lock()
-				delete(w.inflight, d.ID)
-				w.mu.Unlock()
-				// Room for the next message: a backlog (a receiver back
-				// after a while, a server restarted) is sent at the pace
-				// of the receiver, not one handful per poll.
-				w.Wake()
-			}()
-			w.attempt(context.WithoutCancel(ctx), d)
-		}()
+		w.start(ctx, []store.Delivery{d}, w.attempt)
+	}
+	for rule, ds := range digests {
+		// The rest of the rule's due messages join the digest.
+		more, err := w.cfg.DB.ClaimRuleDeliveries(ctx, w.cfg.Owner, w.lease(), digestMax-len(ds), rule)
+		if err != nil {
+			return err
+		}
+		w.start(ctx, append(ds, more...), w.attemptDigest)
 	}
 	return nil
 }
 
-// attempt tries one delivery once and logs the attempt.
-func (w *Worker) attempt(ctx context.Context, d store.Delivery) {
-	start := time.Now()
-	status, err := w.deliver(ctx, d)
-	a := store.Attempt{At: start, Status: status, Took: time.Since(start)}
-	var next time.Time
-	if err != nil {
-		a.Error = err.Error()
-		if len(a.Error) > 1000 {
-			a.Error = a.Error[:1000] + "…"
+// digestMax bounds the messages of one digest e-mail; more go in the next.
+const digestMax = 500
+
+// start tries deliveries ds (one message, or a digest's) in the
+// background with try, unless one of them is being tried already.
+func (w *Worker) start(ctx context.Context, ds []store.Delivery, try func(context.Context, []store.Delivery)) {
+	w.mu.Lock()
+	for _, d := range ds {
+		if w.inflight[d.ID] {
+			w.mu.Unlock()
+			return
 		}
-		next = nextAttempt(d.Created, time.Now(), d.Attempts+1, w.cfg.RetryBase)
-		if errors.Is(err, errHostLeftOut) {
-			next = time.Time{} // no retry can succeed
-		}
-		w.cfg.Log.Warn("alerts: delivery failed", "msg", d.MsgID, "target", d.Rule.Target(), "attempt", d.Attempts+1, "err", err)
 	}
-	if err := w.cfg.DB.RecordAttempt(ctx, w.cfg.Owner, d.ID, a, next); err != nil {
-		w.cfg.Log.Error("alerts: logging an attempt", "msg", d.MsgID, "err", err)
+	for _, d := range ds {
+		w.inflight[d.ID] = true
+	}
+	w.mu.Unlock()
+	w.sends.Add(1)
+	go func() {
+		defer w.sends.Done()
+		defer func() {
+			w.mu.Lock()
+			for _, d := range ds {
+				delete(w.inflight, d.ID)
+			}
+			w.mu.Unlock()
+			// Room for the next message: a backlog (a receiver back
+			// after a while, a server restarted) is sent at the pace
+			// of the receiver, not one handful per poll.
+			w.Wake()
+		}()
+		try(context.WithoutCancel(ctx), ds)
+	}()
+}
+
+// attempt tries one delivery (ds[0]) once and logs the attempt.
+func (w *Worker) attempt(ctx context.Context, ds []store.Delivery) {
+	start := time.Now()
+	status, err := w.deliver(ctx, ds[0])
+	w.record(ctx, ds, start, status, err)
+}
+
+// attemptDigest mails the deliveries ds of one digest rule as one
+// e-mail and logs the attempt on each.
+func (w *Worker) attemptDigest(ctx context.Context, ds []store.Delivery) {
+	start := time.Now()
+	var status int
+	err := errors.New("no SMTP server is set up (serve --smtp-addr HOST:PORT --smtp-from ADDR)")
+	if w.cfg.Mail != nil {
+		dctx, cancel := context.WithTimeout(ctx, w.cfg.Timeout)
+		status, err = w.cfg.Mail.SendDigest(dctx, ds[0].Rule.Email, ds)
+		cancel()
+	}
+	w.record(ctx, ds, start, status, err)
+}
+
+// record logs an attempt (its answer status and error) on each of ds and
+// sets when each is tried again. A message held for a digest counts its
+// day of retries from the latest digest it could wait for.
+func (w *Worker) record(ctx context.Context, ds []store.Delivery, start time.Time, status int, err error) {
+	a := store.Attempt{At: start, Status: status, Took: time.Since(start)}
+	for _, d := range ds {
+		var next time.Time
+		if err != nil {
+			a.Error = err.Error()
+			if len(a.Error) > 1000 {
+				a.Error = a.Error[:1000] + "…"
+			}
+			from := d.Created
+			if d.Rule.Digest != "" {
+				from = from.Add(24 * time.Hour)
+			}
+			next = nextAttempt(from, time.Now(), d.Attempts+1, w.cfg.RetryBase)
+			if errors.Is(err, errHostLeftOut) {
+				next = time.Time{} // no retry can succeed
+			}
+			w.cfg.Log.Warn("alerts: delivery failed", "msg", d.MsgID, "target", d.Rule.Target(), "attempt", d.Attempts+1, "err", err)
+		}
+		if err := w.cfg.DB.RecordAttempt(ctx, w.cfg.Owner, d.ID, a, next); err != nil {
+			w.cfg.Log.Error("alerts: logging an attempt", "msg", d.MsgID, "err", err)
+		}
 	}
 }
 
