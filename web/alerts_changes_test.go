@@ -258,6 +258,7 @@ func TestAlertImportOneMessage(t *testing.T) {
 		t.Fatalf("%d messages after the freeze, want 2", len(got))
 	}
 	for _, hs := range got {
+		var m alert.BatchMessage // a fresh one each: the lists must not share memory
 		if err := json.Unmarshal(hs[0].body, &m); err != nil {
 			t.Fatal(err)
 		}
@@ -267,7 +268,7 @@ func TestAlertImportOneMessage(t *testing.T) {
 	}
 	if d.Change != "limits" || d.Judged != 600 || d.Signalling != 600 || len(d.Lots) != alert.BatchListed || d.More != 600-alert.BatchListed ||
 		d.Lots[0].Lot != "F0000" || !strings.Contains(d.Cause, "limit set 2 frozen by engineer1: new supplier, tighter") {
-		t.Errorf("limits message: %d judged, %d signalling, %d listed, %d more, cause %q", d.Judged, d.Signalling, len(d.Lots), d.More, d.Cause)
+		t.Errorf("limits message: %d judged, %d signalling, %d listed (first %s), %d more, cause %q", d.Judged, d.Signalling, len(d.Lots), d.Lots[0].Lot, d.More, d.Cause)
 	}
 }
 
