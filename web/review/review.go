@@ -426,23 +426,11 @@ func LastCompleteWeek(now time.Time, procs []store.Process) (year, week int) {
 // from their own lots; the verdicts on the week's lots come from the
 // whole record judged (judged, or here).
 func buildProcess(ctx context.Context, src Source, p store.Process, year, week int, method spc.IntervalMethod, level float64, nweeks int, judged JudgedFunc) (*ProcessReview, error) {
-	loc := p.Location()
 	pr := &ProcessReview{Process: p, Method: method}
 	if !p.Chart.CountsUnits() {
 		pr.Method = spc.IntervalPoissonExact
 	}
-
-	// The weeks of the trend, oldest first; the last is the reviewed one.
-	pr.Trend = make([]WeekStat, nweeks)
-	index := make(map[[2]int]int, nweeks) // (ISO year, week) → position
-	y, w := year, week
-	for i := nweeks - 1; i >= 0; i-- {
-		st := &pr.Trend[i]
-		st.Week = spc.FormatISOWeek(y, w)
-		st.Start, st.End = spc.ISOWeekRange(y, w, loc)
-		index[[2]int{y, w}] = i
-		y, w = spc.PreviousISOWeek(y, w)
-	}
+	pr.Trend = trendWeeks(year, week, nweeks, p.Location())
 	lots, flagged, err := readJudged(ctx, src, p, pr.Trend[0].Start, pr.Trend[nweeks-1].End, judged)
 	if err != nil {
 		return nil, err
@@ -452,31 +440,7 @@ func buildProcess(ctx context.Context, src Source, p store.Process, year, week i
 		return nil, fmt.Errorf("reading annotations: %w", err)
 	}
 
-	// Sum each week; the week of a lot is read on the plant's clocks.
-	weekLo, weekHi := -1, -1 // the reviewed week's lots are lots[weekLo:weekHi]
-	categories := map[string]int64{}
-	var categorized int64
-	for i, l := range lots {
-		ly, lw := spc.ISOWeekOf(l.Time, loc)
-		j, ok := index[[2]int{ly, lw}]
-		if !ok {
-			continue // outside the trend's weeks
-		}
-		st := &pr.Trend[j]
-		st.Lots++
-		st.Inspected += l.Inspected
-		st.Count += l.Count
-		if j == nweeks-1 {
-			if weekLo < 0 {
-				weekLo = i
-			}
-			weekHi = i + 1
-			for c, n := range l.Categories {
-				categories[c] += n
-				categorized += n
-			}
-		}
-	}
+	weekLots, categories := pr.sumWeeks(lots)
 	for i := range pr.Trend {
 		if err := pr.Trend[i].estimate(p.Chart, pr.Method, level); err != nil {
 			return nil, fmt.Errorf("week %s: %w", pr.Trend[i].Week, err)
@@ -488,21 +452,77 @@ func buildProcess(ctx context.Context, src Source, p store.Process, year, week i
 	if pr.Pareto, err = spc.Pareto(categories); err != nil {
 		return nil, fmt.Errorf("defect categories of %s: %w", pr.Current.Week, err)
 	}
+	var categorized int64
+	for _, n := range categories {
+		categorized += n
+	}
 	pr.Uncategorized = max(0, pr.Current.Count-categorized)
 
 	pr.Notes = append(pr.Notes, flagged.notes...)
 	if flagged.f != nil {
 		pr.NeedAttention = len(flagged.f.Unexplained(p, notes))
 	}
-	if weekLo >= 0 {
+	if len(weekLots) > 0 {
 		if flagged.err != nil {
 			pr.Notes = append(pr.Notes, "The lots could not be judged against their limits: "+flagged.err.Error()+".")
 		} else {
-			pr.week(flagged.f, lots[weekLo:weekHi], notes)
+			pr.week(flagged.f, weekLots, notes)
 		}
-		pr.checkWeek(lots[weekLo:weekHi])
+		pr.checkWeek(weekLots)
 	}
 	return pr, nil
+}
+
+// trendWeeks are the n ISO weeks ending with the reviewed one, oldest
+// first, each bounded on the process's clocks.
+func trendWeeks(year, week, n int, loc *time.Location) []WeekStat {
+	trend := make([]WeekStat, n)
+	for i := n - 1; i >= 0; i-- {
+		st := &trend[i]
+		st.Week = spc.FormatISOWeek(year, week)
+		st.Start, st.End = spc.ISOWeekRange(year, week, loc)
+		year, week = spc.PreviousISOWeek(year, week)
+	}
+	return trend
+}
+
+// sumWeeks sums the lots (in time order) into the trend's weeks, the week
+// of a lot read on the plant's clocks, and returns the reviewed week's
+// lots and their counts by defect category.
+func (pr *ProcessReview) sumWeeks(lots []store.Lot) (weekLots []store.Lot, categories map[string]int64) {
+	loc := pr.Process.Location()
+	index := make(map[[2]int]int, len(pr.Trend)) // (ISO year, week) → position
+	for i, st := range pr.Trend {
+		y, w := spc.ISOWeekOf(st.Start, loc)
+		index[[2]int{y, w}] = i
+	}
+	last := len(pr.Trend) - 1
+	lo, hi := -1, -1 // the reviewed week's lots are lots[lo:hi]
+	categories = map[string]int64{}
+	for i, l := range lots {
+		y, w := spc.ISOWeekOf(l.Time, loc)
+		j, ok := index[[2]int{y, w}]
+		if !ok {
+			continue // outside the trend's weeks
+		}
+		st := &pr.Trend[j]
+		st.Lots++
+		st.Inspected += l.Inspected
+		st.Count += l.Count
+		if j == last {
+			if lo < 0 {
+				lo = i
+			}
+			hi = i + 1
+			for c, n := range l.Categories {
+				categories[c] += n
+			}
+		}
+	}
+	if lo < 0 {
+		return nil, categories
+	}
+	return lots[lo:hi], categories
 }
 
 // JudgedFunc gives what a process's whole record, judged against its
