@@ -127,11 +127,13 @@ func scanAudit(rows *sql.Rows) (AuditEntry, error) {
 // file alone; compare Head with a value noted elsewhere (it is printed by
 // `lotwatch audit verify`) to anchor it.
 func (db *DB) VerifyAudit(ctx context.Context) (AuditCheck, error) {
-	return verifyAudit(ctx, db.r)
+	return verifyAudit(ctx, db.r, db.d.snapshot)
 }
 
-func verifyAudit(ctx context.Context, q *sql.DB) (AuditCheck, error) {
-	tx, err := q.BeginTx(ctx, &sql.TxOptions{ReadOnly: true})
+// verifyAudit checks the database of q in one read transaction of
+// isolation iso (one snapshot of the whole database).
+func verifyAudit(ctx context.Context, q *sql.DB, iso sql.IsolationLevel) (AuditCheck, error) {
+	tx, err := q.BeginTx(ctx, &sql.TxOptions{ReadOnly: true, Isolation: iso})
 	if err != nil {
 		return AuditCheck{}, err
 	}
@@ -151,6 +153,7 @@ func verifyAudit(ctx context.Context, q *sql.DB) (AuditCheck, error) {
 	var c AuditCheck
 	prev := chainHead{}
 	trail := newDataTrail()
+	trail.side = q
 	for rows.Next() {
 		e, err := scanAudit(rows)
 		if err != nil {

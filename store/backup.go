@@ -18,7 +18,13 @@ import (
 // a temporary file beside dest, synced and renamed into place. Writing
 // over a database that a store has open (dest is a live database) is
 // refused with ErrInUse.
+//
+// A PostgreSQL database is backed up as a SQLite file with the same
+// record (see Copy), from one snapshot, so that a backup opens anywhere.
 func (db *DB) Backup(ctx context.Context, dest string) error {
+	if db.d == postgresDialect {
+		return db.backupToFile(ctx, dest)
+	}
 	lock, err := lockIfDatabase(dest)
 	if err != nil {
 		return err
@@ -136,7 +142,7 @@ func CheckFile(ctx context.Context, path string) (AuditCheck, error) {
 	if v > SchemaVersion() {
 		return AuditCheck{}, fmt.Errorf("store: %s has schema version %d, newer than this lotwatch (%d): %w", path, v, SchemaVersion(), ErrNewerSchema)
 	}
-	return verifyAudit(ctx, f)
+	return verifyAudit(ctx, f, sql.LevelDefault)
 }
 
 // Restore replaces the database at path with the backup file from, after

@@ -40,13 +40,26 @@ type dialect struct {
 	lotsRead string
 	// greatest is the function of the larger of two values.
 	greatest string
+	// snapshot is the isolation of a read transaction that sees one
+	// state of the whole database (SQLite's read transactions always do).
+	snapshot sql.IsolationLevel
+	// tables lists the tables of the database (Copy refuses unknown ones).
+	tables string
+	// afterCopy, with TABLE replaced by a table's name, makes the ids
+	// handed out after a copy follow the copied ones ("" when the
+	// database does that by itself).
+	afterCopy string
 }
 
 var (
 	sqliteDialect = &dialect{name: "sqlite", migrations: "migrations",
-		headSelect: qHeadSelect, lotsRead: "lots INDEXED BY lots_read", greatest: "max"}
+		headSelect: qHeadSelect, lotsRead: "lots INDEXED BY lots_read", greatest: "max",
+		tables: "SELECT name FROM sqlite_master WHERE type = 'table' AND name NOT LIKE 'sqlite_%'"}
 	postgresDialect = &dialect{name: "postgres", migrations: "migrations/postgres",
-		headSelect: qHeadSelect + " FOR UPDATE", lotsRead: "lots", greatest: "GREATEST"}
+		headSelect: qHeadSelect + " FOR UPDATE", lotsRead: "lots", greatest: "GREATEST",
+		snapshot:  sql.LevelRepeatableRead,
+		tables:    "SELECT table_name FROM information_schema.tables WHERE table_schema = current_schema()",
+		afterCopy: `SELECT setval(pg_get_serial_sequence('TABLE', 'id'), (SELECT COALESCE(MAX(id), 0) + 1 FROM TABLE), false)`}
 )
 
 // migration is one forward-only schema step, numbered from 1.

@@ -21,6 +21,7 @@ const schema1Fixture = "testdata/schema1.sqlite"
 // LOTWATCH_WRITE_FIXTURE=1 to write it again (only meaningful at schema 1;
 // the committed file was written at commit 294cd8b). The data-row tests of
 // the audit trail use the same recipe at the current schema.
+// (path may be a PostgreSQL URL: the same record is written there.)
 func writeSchema1Fixture(t *testing.T, path string) {
 	db, err := Open(path)
 	if err != nil {

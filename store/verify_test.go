@@ -47,7 +47,9 @@ func TestAuditCatchesDataRows(t *testing.T) {
 		name string
 		sql  []string
 		args func(t *testing.T, path string) []any
-		want string // in Why; "" means verify must hold
+		want string   // in Why; "" means verify must hold
+		pg   []string // the change in PostgreSQL's words, where SQLite's differ
+
 	}{
 		// A batch of more than 20 lots is recorded by its digest only, so a
 		// change to one of its lots is named by the batch's range.
@@ -77,6 +79,8 @@ func TestAuditCatchesDataRows(t *testing.T) {
 		{name: "process limits", sql: []string{"UPDATE processes SET k = 2 WHERE name = 'Line 2 press'"},
 			want: `process 1 ("Line 2 press"): stored values differ`},
 		{name: "process removed", sql: []string{"PRAGMA foreign_keys = OFF", "DELETE FROM processes WHERE name = 'Paint'"},
+			pg: []string{"ALTER TABLE lots DROP CONSTRAINT lots_process_id_fkey", "ALTER TABLE lot_versions DROP CONSTRAINT lot_versions_process_id_fkey",
+				"DELETE FROM processes WHERE name = 'Paint'"},
 			want: `process 2: was removed`},
 		{name: "user role", sql: []string{"UPDATE users SET role = 'admin' WHERE name = 'bo'"},
 			want: `user 2 ("bo"): stored values differ`},
@@ -92,41 +96,49 @@ func TestAuditCatchesDataRows(t *testing.T) {
 			want: `annotation 2: was removed`},
 		{name: "password hash copied onto another user", sql: []string{"UPDATE users SET password_hash = (SELECT password_hash FROM users WHERE name = 'bo') WHERE name = 'ana'"},
 			want: `user 1 ("ana"): its password hash differs from the audit trail`},
-		{name: "token hash replaced", sql: []string{"UPDATE tokens SET hash = x'00112233'"},
+		{name: "token hash replaced", sql: []string{"UPDATE tokens SET hash = x'00112233'"}, pg: []string{`UPDATE tokens SET hash = '\x00112233'::bytea`},
 			want: `token 1 ("station 1" of user "ana"): its hash differs from the audit trail`},
 		{name: "sessions (not covered)", sql: []string{"DELETE FROM sessions"}},
 	}
-	for _, c := range cases {
-		t.Run(c.name, func(t *testing.T) {
-			path := filepath.Join(t.TempDir(), "lotwatch.db")
-			writeSchema1Fixture(t, path) // verifies that the untouched database holds
-			var args []any
-			if c.args != nil {
-				args = c.args(t, path)
-			}
-			raw := rawSQL(t, path)
-			for _, q := range c.sql {
-				a := args
-				if !strings.Contains(q, "?") {
-					a = nil
+	for _, b := range []string{"sqlite", "postgres"} {
+		for _, c := range cases {
+			t.Run(b+"/"+c.name, func(t *testing.T) {
+				path := filepath.Join(t.TempDir(), "lotwatch.db")
+				if b == "postgres" {
+					path = newPostgresSchema(t)
+					if c.pg != nil {
+						c.sql = c.pg
+					}
 				}
-				if _, err := raw.Exec(q, a...); err != nil {
-					t.Fatalf("%s: %v", q, err)
+				writeSchema1Fixture(t, path) // verifies that the untouched database holds
+				var args []any
+				if c.args != nil {
+					args = c.args(t, path)
 				}
-			}
-			raw.Close()
-			chk := verifyFile(t, path)
-			if c.want == "" {
-				if !chk.OK {
-					t.Fatalf("verify failed after a change it does not cover: %+v", chk)
+				raw := rawSQL(t, path)
+				for _, q := range c.sql {
+					a := args
+					if !strings.Contains(q, "?") {
+						a = nil
+					}
+					if _, err := raw.Exec(q, a...); err != nil {
+						t.Fatalf("%s: %v", q, err)
+					}
 				}
-				return
-			}
-			t.Log(chk.Why)
-			if chk.OK || chk.Entity == "" || !strings.Contains(chk.Why, c.want) {
-				t.Fatalf("verify: %+v\nwant a failure saying %q", chk, c.want)
-			}
-		})
+				raw.Close()
+				chk := verifyFile(t, path)
+				if c.want == "" {
+					if !chk.OK {
+						t.Fatalf("verify failed after a change it does not cover: %+v", chk)
+					}
+					return
+				}
+				t.Log(chk.Why)
+				if chk.OK || chk.Entity == "" || !strings.Contains(chk.Why, c.want) {
+					t.Fatalf("verify: %+v\nwant a failure saying %q", chk, c.want)
+				}
+			})
+		}
 	}
 }
 

@@ -218,7 +218,7 @@ func (c *lotCheck) closeBatch() (*rowBreak, error) {
 // entry lists the lots' content; else the whole batch.
 func (c *lotCheck) nameChanged(b *lotBatch) (*rowBreak, error) {
 	var raw string
-	if err := c.tx.QueryRowContext(c.ctx, "SELECT new FROM audit WHERE seq = ?", b.seq).Scan(&raw); err != nil {
+	if err := c.d.side.QueryRowContext(c.ctx, "SELECT new FROM audit WHERE seq = ?", b.seq).Scan(&raw); err != nil {
 		return nil, err
 	}
 	var e struct {
