@@ -151,7 +151,12 @@ func CheckFile(ctx context.Context, path string) (AuditCheck, error) {
 // database being replaced is kept beside it as path + ".before-restore-"
 // + a timestamp, and the backup is copied to a temporary file, synced and
 // renamed over path, so a crash leaves either the old or the new file.
+//
+// A PostgreSQL database (path is a URL) is restored by restorePostgres.
 func Restore(ctx context.Context, path, from string) (kept string, err error) {
+	if IsURL(path) {
+		return restorePostgres(ctx, path, from)
+	}
 	lock, err := lockExclusive(path)
 	if err != nil {
 		return "", err

@@ -8,6 +8,7 @@ import (
 	"os"
 	"path/filepath"
 	"strings"
+	"time"
 )
 
 // copyTables are the tables of a plant's record in an order that keeps
@@ -27,6 +28,12 @@ var ErrNotEmpty = errors.New("the destination database is not empty")
 // from one snapshot of src. It then checks dst's audit trail and returns
 // the check; a copy whose check fails is reported as an error.
 func Copy(ctx context.Context, src, dst *DB) (AuditCheck, error) {
+	return copyRecord(ctx, src, dst, func(w *wtx) error { return mustBeEmpty(w.Tx, dst.path) })
+}
+
+// copyRecord is Copy with prepare run first in dst's transaction (to
+// refuse, or to clear dst).
+func copyRecord(ctx context.Context, src, dst *DB, prepare func(*wtx) error) (AuditCheck, error) {
 	rtx, err := src.r.BeginTx(ctx, &sql.TxOptions{ReadOnly: true, Isolation: src.d.snapshot})
 	if err != nil {
 		return AuditCheck{}, err
@@ -40,7 +47,7 @@ func Copy(ctx context.Context, src, dst *DB) (AuditCheck, error) {
 		return AuditCheck{}, err
 	}
 	err = dst.write(ctx, func(w *wtx) error {
-		if err := mustBeEmpty(w.Tx, dst.path); err != nil {
+		if err := prepare(w); err != nil {
 			return err
 		}
 		if err := copyRows(ctx, rtx, w.Tx, dst.d); err != nil {
@@ -216,4 +223,72 @@ func (db *DB) backupToFile(ctx context.Context, dest string) error {
 		return fmt.Errorf("store: backup: %w", err)
 	}
 	return syncDir(filepath.Dir(dest))
+}
+
+// restorePostgres replaces the record of the PostgreSQL database at url
+// with the backup file from (already checked by the caller with
+// CheckFile), in one transaction. It is refused with ErrInUse while any
+// other session is connected to the database (a running server, another
+// command), as a restore of a file is refused while a program has it
+// open. A record it replaces is first written as a SQLite file beside
+// the backup, named in kept.
+func restorePostgres(ctx context.Context, url, from string) (kept string, err error) {
+	dir, err := os.MkdirTemp("", "lotwatch-restore")
+	if err != nil {
+		return "", err
+	}
+	defer os.RemoveAll(dir)
+	// The backup is read through a copy, so that a backup of an earlier
+	// lotwatch is migrated there and the file itself stays as it was.
+	tmp := filepath.Join(dir, "backup.db")
+	if err := copyFile(from, tmp); err != nil {
+		return "", err
+	}
+	src, err := Open(tmp)
+	if err != nil {
+		return "", err
+	}
+	defer src.Close()
+	app := fmt.Sprintf("lotwatch restore %d-%d", os.Getpid(), time.Now().UnixNano())
+	dst, err := openPostgresAs(url, app)
+	if err != nil {
+		return "", err
+	}
+	defer dst.Close()
+	others := func(q interface {
+		QueryRowContext(context.Context, string, ...any) *sql.Row
+	}) error {
+		var n int
+		if err := q.QueryRowContext(ctx, "SELECT COUNT(*) FROM pg_stat_activity WHERE datname = current_database() AND application_name <> ?", app).Scan(&n); err != nil {
+			return err
+		}
+		if n > 0 {
+			return fmt.Errorf("store: %s: %d other sessions are connected to the database: %w", dst.path, n, ErrInUse)
+		}
+		return nil
+	}
+	if err := others(dst.r); err != nil {
+		return "", err
+	}
+	var seq int64
+	if err := dst.r.QueryRowContext(ctx, "SELECT seq FROM audit_head WHERE id = 1").Scan(&seq); err != nil {
+		return "", err
+	}
+	if seq > 0 {
+		kept = filepath.Join(filepath.Dir(from), "before-restore-"+time.Now().UTC().Format("20060102T150405Z")+".db")
+		if err := dst.backupToFile(ctx, kept); err != nil {
+			return "", err
+		}
+	}
+	_, err = copyRecord(ctx, src, dst, func(w *wtx) error {
+		if err := others(w.Tx); err != nil {
+			return err
+		}
+		if _, err := w.Exec("TRUNCATE " + strings.Join(copyTables, ", ") + " RESTART IDENTITY"); err != nil {
+			return err
+		}
+		_, err := w.Exec(qHeadUpdate, 0, "")
+		return err
+	})
+	return kept, err
 }

@@ -110,12 +110,17 @@ func pgHost(cfg *pgconn.Config) string {
 // openPostgres opens the PostgreSQL database of the URL raw, applying the
 // migrations it lacks. The writer and the readers are connections of
 // their own, as on SQLite; the readers' transactions are read-only.
-func openPostgres(raw string) (*DB, error) {
+func openPostgres(raw string) (*DB, error) { return openPostgresAs(raw, "lotwatch") }
+
+// openPostgresAs is openPostgres with the application name its
+// connections show in pg_stat_activity.
+func openPostgresAs(raw, app string) (*DB, error) {
 	name, secrets := Redact(raw), secretsOf(raw)
 	cfg, err := pgx.ParseConfig(raw)
 	if err != nil {
 		return nil, fmt.Errorf("store: %s: %w: %w", name, ErrBadURL, scrub(err, secrets))
 	}
+	cfg.RuntimeParams["application_name"] = app
 	if cfg.ConnectTimeout == 0 {
 		cfg.ConnectTimeout = 10 * time.Second
 	}

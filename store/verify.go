@@ -26,7 +26,7 @@ type dataTrail struct {
 	// side reads an audit entry while the transaction is reading rows
 	// (a PostgreSQL connection reads one result at a time); entries never
 	// change, so any connection reads the same.
-	side *sql.DB
+	side    *sql.DB
 	batches []lotBatch
 	edits   map[int64][]lotEdit
 	procs   map[int64]*rowTrail

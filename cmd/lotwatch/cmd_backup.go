@@ -26,10 +26,13 @@ const backupHelp = `Usage: lotwatch backup --db FILE --to BACKUP
 
 Copies the database to BACKUP as one consistent snapshot with SQLite's
 online backup, while the server may go on logging lots. The copy is
-written beside BACKUP first and renamed into place when complete.
+written beside BACKUP first and renamed into place when complete. A
+PostgreSQL database (--db postgres://…) is written to BACKUP as a SQLite
+file with the same record, from one snapshot, so the backup opens
+anywhere.
 
 Options:
-  --db FILE    the lotwatch database file
+  --db FILE    the lotwatch database file, or a postgres:// URL
   --to BACKUP  the file to write (replaced if it exists)
 
 Exit status: 0 when done, 2 for bad input, 1 when the copy fails.
@@ -45,8 +48,13 @@ FILE.before-restore-TIME. Stop the server before restoring: while any
 program has FILE open (a running lotwatch serve, or another command still
 working) the restore is refused and nothing is replaced.
 
+Into PostgreSQL (--db postgres://…) the record is replaced in one
+transaction, refused while any other session is connected to the
+database; a record it replaces is first kept as a SQLite file
+before-restore-TIME.db beside BACKUP.
+
 Options:
-  --db FILE       the lotwatch database file to replace (made if missing)
+  --db FILE       the lotwatch database file to replace (made if missing), or a postgres:// URL
   --from BACKUP   the backup file to restore
 
 Exit status: 0 when done, 2 for bad input or a backup that fails its
@@ -106,14 +114,14 @@ func runRestore(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	}
 	kept, err := store.Restore(ctx, *dbPath, *from)
 	if errors.Is(err, store.ErrInUse) {
-		fmt.Fprintf(stderr, "lotwatch restore: --db %s is open in another program (a running lotwatch serve, or a command still working): stop it first; nothing was replaced\n", *dbPath)
+		fmt.Fprintf(stderr, "lotwatch restore: --db %s is open in another program (a running lotwatch serve, or a command still working): stop it first; nothing was replaced\n", store.Redact(*dbPath))
 		return exitFail
 	}
 	if err != nil {
 		fmt.Fprintf(stderr, "lotwatch restore: %v\n", err)
 		return exitFail
 	}
-	fmt.Fprintf(stdout, "restored %s from %s (%d audit entries verified)\n", *dbPath, *from, chk.Entries)
+	fmt.Fprintf(stdout, "restored %s from %s (%d audit entries verified)\n", store.Redact(*dbPath), *from, chk.Entries)
 	if kept != "" {
 		fmt.Fprintf(stdout, "the replaced database is kept as %s\n", kept)
 	}

@@ -1,0 +1,239 @@
+package main
+
+import (
+	"crypto/rand"
+	"database/sql"
+	"encoding/hex"
+	"net/url"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	_ "github.com/jackc/pgx/v5/stdlib"
+)
+
+// postgresURL is the test server's URL (LOTWATCH_TEST_POSTGRES, see
+// .ci/postgres); without it the test is skipped, or failed when CI=true.
+func postgresURL(t *testing.T) string {
+	t.Helper()
+	u := os.Getenv("LOTWATCH_TEST_POSTGRES")
+	if u == "" {
+		if os.Getenv("CI") == "true" {
+			t.Fatal("LOTWATCH_TEST_POSTGRES is not set (CI must test on PostgreSQL: see .ci/postgres)")
+		}
+		t.Skip("LOTWATCH_TEST_POSTGRES is not set: PostgreSQL not tested (source .ci/postgres to start one)")
+	}
+	return u
+}
+
+// newPostgresDatabase creates an empty database on the test server,
+// dropped when the test ends, and returns its URL. A database of its own
+// (not a schema) because restore counts the sessions on the database.
+func newPostgresDatabase(t *testing.T) string {
+	t.Helper()
+	base := postgresURL(t)
+	admin, err := sql.Open("pgx", base)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { admin.Close() })
+	b := make([]byte, 6)
+	rand.Read(b)
+	name := "lotwatch_cmd_" + hex.EncodeToString(b)
+	if _, err := admin.Exec("CREATE DATABASE " + name); err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() {
+		if _, err := admin.Exec("DROP DATABASE " + name + " WITH (FORCE)"); err != nil {
+			t.Errorf("drop database %s: %v", name, err)
+		}
+	})
+	u, err := url.Parse(base)
+	if err != nil {
+		t.Fatal(err)
+	}
+	u.Path = "/" + name
+	return u.String()
+}
+
+// buildLotwatch builds the binary once for a test.
+func buildLotwatch(t *testing.T) string {
+	t.Helper()
+	if testing.Short() {
+		t.Skip("builds the binary; skipped with -short")
+	}
+	bin := filepath.Join(t.TempDir(), "lotwatch")
+	if out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput(); err != nil {
+		t.Fatalf("go build: %v\n%s", err, out)
+	}
+	return bin
+}
+
+// TestPostgresBehavesAsSQLite runs the real binary through the commands
+// of the exact contract of issue 17, once on a SQLite file and once on a
+// PostgreSQL URL: the same exit statuses, and the same output wherever
+// the output does not carry a time or a hash of this run (a token's
+// secret, the audit head). Then `copy` moves the file to a second
+// database: `export` gives the same bytes on both, `audit verify` exits 0
+// on both. (The reference is the SQLite behaviour of this program.)
+func TestPostgresBehavesAsSQLite(t *testing.T) {
+	pg := newPostgresDatabase(t)
+	bin := buildLotwatch(t)
+	dir := t.TempDir()
+	file := filepath.Join(dir, "plant.db")
+	csv, err := filepath.Abs("../../testdata/demo/line-2-housing-visual.csv")
+	if err != nil {
+		t.Fatal(err)
+	}
+	steps := []struct {
+		stdin string
+		args  []string
+		same  bool // the output must be the same on both
+	}{
+		{"", []string{"process", "add", "--name", "housing", "--categories", "short shot,flash,sink mark,scratch,discolour", "--tz", "Europe/Berlin", "--as", "t"}, true},
+		{"", []string{"process", "add", "--name", "panel", "--chart", "u", "--as", "t"}, true},
+		{"", []string{"process", "add", "--name", "housing", "--as", "t"}, true}, // exists: exit 2
+		{"", []string{"import", "--process", "housing", "--as", "t", csv}, true},
+		{"", []string{"import", "--process", "housing", "--as", "t", csv}, true}, // nothing new
+		{"", []string{"process", "update", "--name", "panel", "--description", "top coat", "--reason", "named", "--as", "t"}, true},
+		{"", []string{"process", "list"}, true},
+		{"", []string{"process", "list", "--format", "json"}, false}, // carries the creation time
+		{"", []string{"export", "--process", "housing"}, true},
+		{"", []string{"export", "--process", "housing", "--format", "json"}, true},
+		{"a long enough password\n", []string{"user", "add", "--name", "ana", "--role", "engineer", "--as", "t"}, true},
+		{"", []string{"token", "create", "--user", "ana", "--label", "station 1", "--as", "t"}, false},
+		{"", []string{"token", "list"}, false},
+		{"", []string{"token", "revoke", "--id", "1", "--as", "t"}, true},
+		{"", []string{"token", "revoke", "--id", "9", "--as", "t"}, true}, // no such token
+		{"", []string{"report", "--week", "2026-W47", "--format", "json"}, true},
+		{"", []string{"report", "--week", "2026-W47"}, true},
+		{"", []string{"plan", "--process", "housing", "--n", "300", "--p1", "0.05", "--format", "json"}, true},
+		{"", []string{"audit", "verify"}, false},
+	}
+	for _, s := range steps {
+		run := func(db string) (int, string) {
+			args := append([]string{s.args[0]}, s.args[1:]...)
+			if s.args[0] == "process" || s.args[0] == "token" || s.args[0] == "user" || s.args[0] == "audit" {
+				args = append(args[:2:2], append([]string{"--db", db}, s.args[2:]...)...)
+			} else {
+				args = append(args[:1:1], append([]string{"--db", db}, s.args[1:]...)...)
+			}
+			code, out := lotwatchCmd(t, bin, s.stdin, args...)
+			return code, strings.ReplaceAll(out, db, "DB")
+		}
+		fc, fout := run(file)
+		pc, pout := run(pg)
+		if fc != pc {
+			t.Errorf("%v: exit %d on PostgreSQL, %d on SQLite\n%s", s.args, pc, fc, pout)
+			continue
+		}
+		if s.same && fout != pout {
+			t.Errorf("%v: output differs\nSQLite:\n%s\nPostgreSQL:\n%s", s.args, fout, pout)
+		}
+		if strings.Contains(pout, "lotwatch-test") || strings.Contains(pout, passwordOf(pg)) {
+			t.Errorf("%v: the output holds the password:\n%s", s.args, pout)
+		}
+	}
+
+	// copy --from FILE --to URL: the same bytes for every process, and
+	// the audit check holds on both.
+	dst := newPostgresDatabase(t)
+	if code, out := lotwatchCmd(t, bin, "", "copy", "--from", file, "--to", dst); code != exitOK || !strings.Contains(out, "audit trail verified") {
+		t.Fatalf("copy: exit %d\n%s", code, out)
+	}
+	if code, out := lotwatchCmd(t, bin, "", "copy", "--from", file, "--to", dst); code != exitUsage || !strings.Contains(out, "not empty") {
+		t.Errorf("copy into a database with a record: exit %d\n%s\nwant 2, refused", code, out)
+	}
+	for _, p := range []string{"housing", "panel"} {
+		_, a := lotwatchCmd(t, bin, "", "export", "--db", file, "--process", p)
+		_, b := lotwatchCmd(t, bin, "", "export", "--db", dst, "--process", p)
+		if a != b || a == "" {
+			t.Errorf("export of %s after copy differs:\n%s\n%s", p, a, b)
+		}
+	}
+	for _, db := range []string{file, dst} {
+		if code, out := lotwatchCmd(t, bin, "", "audit", "verify", "--db", db); code != exitOK {
+			t.Errorf("audit verify after copy: exit %d\n%s", code, out)
+		}
+	}
+
+	// backup of the URL is a SQLite file with the same record.
+	back := filepath.Join(dir, "back.db")
+	if code, out := lotwatchCmd(t, bin, "", "backup", "--db", pg, "--to", back); code != exitOK || strings.Contains(out, passwordOf(pg)) {
+		t.Fatalf("backup: exit %d\n%s", code, out)
+	}
+	_, a := lotwatchCmd(t, bin, "", "export", "--db", pg, "--process", "housing")
+	_, b := lotwatchCmd(t, bin, "", "export", "--db", back, "--process", "housing")
+	if a != b {
+		t.Errorf("export of the backup differs:\n%s\n%s", a, b)
+	}
+	if code, out := lotwatchCmd(t, bin, "", "audit", "verify", "--db", back); code != exitOK {
+		t.Errorf("audit verify of the backup: exit %d\n%s", code, out)
+	}
+}
+
+// passwordOf is the password of a URL.
+func passwordOf(raw string) string {
+	u, err := url.Parse(raw)
+	if err != nil {
+		return raw
+	}
+	p, _ := u.User.Password()
+	if p == "" {
+		return "\x00none"
+	}
+	return p
+}
+
+// TestPostgresConnectionErrors: an unreachable server and a refused
+// login exit 1 with one line naming the host and the error, a malformed
+// URL exits 2, and none of them prints the password (issue 17's exact
+// contract).
+func TestPostgresConnectionErrors(t *testing.T) {
+	base := postgresURL(t)
+	bin := buildLotwatch(t)
+	u, _ := url.Parse(base)
+	const secret = "Sup3r-secret-pw"
+	refused := *u
+	refused.User = url.UserPassword(u.User.Username(), secret)
+	closed := refused
+	closed.Host = "127.0.0.1:" + strings.TrimPrefix(freeAddr(t), "127.0.0.1:")
+	cases := []struct {
+		name string
+		db   string
+		code int
+		want []string
+	}{
+		{"unreachable", closed.String(), exitFail, []string{closed.Host, "connect"}},
+		{"login refused", refused.String(), exitFail, []string{u.Host, "password authentication failed"}},
+		{"malformed", "postgres://lotwatch:" + secret + "@127.0.0.1:notaport/x", exitUsage, []string{"malformed database URL"}},
+	}
+	for _, c := range cases {
+		for _, args := range [][]string{
+			{"process", "list", "--db", c.db},
+			{"export", "--db", c.db, "--process", "x"},
+			{"audit", "verify", "--db", c.db},
+			{"report", "--db", c.db},
+			{"serve", "--db", c.db, "--addr", "127.0.0.1:0"},
+			{"copy", "--from", c.db, "--to", filepath.Join(t.TempDir(), "x.db")},
+		} {
+			code, out := lotwatchCmd(t, bin, "", args...)
+			if code != c.code {
+				t.Errorf("%s, %v: exit %d, want %d\n%s", c.name, args[:2], code, c.code, out)
+			}
+			if n := strings.Count(strings.TrimSpace(out), "\n"); n != 0 {
+				t.Errorf("%s, %v: %d lines, want one:\n%s", c.name, args[:2], n+1, out)
+			}
+			for _, w := range c.want {
+				if !strings.Contains(out, w) {
+					t.Errorf("%s, %v: %q does not say %q", c.name, args[:2], out, w)
+				}
+			}
+			if strings.Contains(out, secret) {
+				t.Errorf("%s, %v: the password is printed: %s", c.name, args[:2], out)
+			}
+		}
+	}
+}
