@@ -39,7 +39,7 @@ alert one by one; an imported file and frozen limits that judge stored
 lots again send one message naming the lots that signal.
 
 Options:
-  --db FILE          the lotwatch database file
+  --db FILE          the lotwatch database file, or a postgres:// URL
   --process NAME     the process whose lots are watched
   --webhook URL      an http or https URL; addresses on this host or the
                      plant's network are fine

@@ -31,7 +31,7 @@ note it elsewhere (e.g. in the weekly review) to tell later whether the
 whole trail was rewritten.
 
 Options:
-  --db FILE   the lotwatch database file
+  --db FILE   the lotwatch database file, or a postgres:// URL
 
 Exit status: 0 when the chain and the rows hold, 1 when not (the first
 broken entry or row is named), 2 for bad input.

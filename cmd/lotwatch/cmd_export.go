@@ -26,7 +26,7 @@ lots. Text that a spreadsheet would run as a formula (starting with
 = + - @, tab or CR) gets a leading single quote; import removes it again.
 
 Options:
-  --db FILE        the lotwatch database file
+  --db FILE        the lotwatch database file, or a postgres:// URL
   --process NAME   the process
   --from DATE      only lots from this day on (YYYY-MM-DD in the process's
                    time zone, or an RFC 3339 time)

@@ -69,7 +69,7 @@ without time gets the import time). Without --process the lots go to the
 process the file names. Problems name the line of the file.
 
 Options:
-  --db FILE        the lotwatch database file
+  --db FILE        the lotwatch database file, or a postgres:// URL
   --process NAME   the process the lots belong to
   --create         make the process if it does not exist: a p chart for a
                    defective column, a u chart for defects, its defect

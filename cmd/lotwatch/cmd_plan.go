@@ -40,7 +40,7 @@ Options:
               unless --process is given
   --process NAME  take P0 from this p or np process: the centre of its latest
               frozen limit set, else the trial centre of all its lots
-  --db FILE   the lotwatch database holding --process
+  --db FILE   the lotwatch database holding --process (a file or a postgres:// URL)
   --p1 P      shifted fraction nonconforming to detect, between 0 and 1, not P0
   --n N       units per lot, a whole number greater than 0
   --arl1 T    target: a shift to P1 should signal within T lots on average

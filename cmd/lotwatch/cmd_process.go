@@ -32,7 +32,7 @@ const processHelp = `Usage:
 A process is one inspection point whose lots make one control chart.
 
 Options of "add":
-  --db FILE          the lotwatch database file (created if missing)
+  --db FILE          the lotwatch database file (created if missing), or a postgres:// URL
   --name NAME        the process name, unique in the database
   --chart KIND       p (fraction nonconforming, the default), np (number
                      nonconforming, constant lot size), u (defects per unit)
@@ -95,7 +95,7 @@ reason go to the audit trail):
   --as NAME          the name recorded in the audit trail
 
 Options of "list":
-  --db FILE          the lotwatch database file
+  --db FILE          the lotwatch database file, or a postgres:// URL
   --all              include retired processes
   --format F         text (the default) or json
 

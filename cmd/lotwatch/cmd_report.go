@@ -34,7 +34,7 @@ and run-rule signals with their recorded causes, a Pareto of the defect
 categories, a trend of the weekly rate and the dispersion check.
 
 Options:
-  --db FILE        the lotwatch database; required, must exist
+  --db FILE        the lotwatch database (a file, or a postgres:// URL); required, must exist
   --week W         ISO week such as 2026-W48 (default: the last week that
                    is complete in every chosen process's time zone)
   --process NAME   a process to review; repeat the option or give a comma

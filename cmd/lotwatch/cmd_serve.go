@@ -31,7 +31,7 @@ func init() {
 
 func runServe(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs := cliFlags("serve")
-	dbPath := fs.String("db", "", "database `file` (required)")
+	dbPath := fs.String("db", "", "database `file`, or a postgres:// URL (required)")
 	addr := fs.String("addr", "127.0.0.1:8080", "listen `address` (host:port)")
 	cert := fs.String("cert", "", "TLS certificate `file` (PEM); with --key, serve HTTPS")
 	key := fs.String("key", "", "TLS private key `file` (PEM)")

@@ -40,7 +40,7 @@ standard input is the password. It must have at least 8 characters and
 is stored only as a bcrypt hash.
 
 Options:
-  --db FILE     the lotwatch database file (created if missing)
+  --db FILE     the lotwatch database file (created if missing), or a postgres:// URL
   --name NAME   the sign-in name (no spaces)
   --role ROLE   what the user may do; each role may do all of the ones
                 before it (the table of roles in README.md):
@@ -70,7 +70,7 @@ user. "create" prints the token once; only its SHA-256 is stored, so it
 cannot be shown again. "revoke" stops a token for good.
 
 Options:
-  --db FILE     the lotwatch database file
+  --db FILE     the lotwatch database file, or a postgres:// URL
   --user NAME   the user the token acts as
   --label TEXT  what the token is for, e.g. "line 3 terminal"
   --id N        the token number shown by list

@@ -4,11 +4,15 @@ import (
 	"crypto/rand"
 	"database/sql"
 	"encoding/hex"
+	"fmt"
+	"io"
+	"net/http"
 	"net/url"
 	"os"
 	"os/exec"
 	"path/filepath"
 	"strings"
+	"syscall"
 	"testing"
 
 	_ "github.com/jackc/pgx/v5/stdlib"
@@ -237,3 +241,115 @@ func TestPostgresConnectionErrors(t *testing.T) {
 		}
 	}
 }
+
+// TestTwoServersOnePostgres runs two `lotwatch serve` on one PostgreSQL
+// database (issue 17's exact contract): a lot posted with a token to one
+// is in the other's chart (GET /api/v1/processes/1/chart) on the next
+// request after the 201, although that server had the chart cached
+// before; a session cookie from one server's sign-in is accepted by the
+// other; a restore is refused while the servers are connected and goes
+// through once they have stopped.
+func TestTwoServersOnePostgres(t *testing.T) {
+	pg := newPostgresDatabase(t)
+	bin := buildLotwatch(t)
+	for _, args := range [][]string{
+		{"process", "add", "--db", pg, "--name", "weld", "--as", "t"},
+		{"user", "add", "--db", pg, "--name", "station", "--role", "inspector", "--as", "t"},
+		{"user", "add", "--db", pg, "--name", "eve", "--role", "engineer", "--as", "t"},
+	} {
+		if code, out := lotwatchCmd(t, bin, "two-servers-pass\n", args...); code != exitOK {
+			t.Fatalf("%v: %d %s", args, code, out)
+		}
+	}
+	tokOut, err := exec.Command(bin, "token", "create", "--db", pg, "--user", "station", "--as", "t").Output()
+	if err != nil {
+		t.Fatalf("token create: %v", err)
+	}
+	token := strings.TrimSpace(string(tokOut))
+	var bases []string
+	var srvs []*exec.Cmd
+	for range 2 {
+		addr := freeAddr(t)
+		srv := exec.Command(bin, "serve", "--db", pg, "--addr", addr)
+		var log strings.Builder
+		srv.Stdout, srv.Stderr = &log, &log
+		if err := srv.Start(); err != nil {
+			t.Fatal(err)
+		}
+		defer srv.Process.Kill()
+		waitHealthy(t, "http://"+addr, srv)
+		bases = append(bases, "http://"+addr)
+		srvs = append(srvs, srv)
+	}
+	call := func(method, url, body string, hdr ...string) (int, string, *http.Response) {
+		t.Helper()
+		req, _ := http.NewRequest(method, url, strings.NewReader(body))
+		for i := 0; i+1 < len(hdr); i += 2 {
+			req.Header.Set(hdr[i], hdr[i+1])
+		}
+		res, err := noRedirect.Do(req)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer res.Body.Close()
+		b, _ := io.ReadAll(res.Body)
+		return res.StatusCode, string(b), res
+	}
+	bearer := []string{"Authorization", "Bearer " + token, "Content-Type", "application/json"}
+	for i := range 5 {
+		code := fmt.Sprintf("L-%02d", i)
+		from, to := bases[i%2], bases[(i+1)%2]
+		if c, body, _ := call("GET", to+"/api/v1/processes/1/chart", "", bearer...); c != 200 || strings.Contains(body, code) {
+			t.Fatalf("chart before the post: %d %s", c, body)
+		}
+		if c, body, _ := call("POST", from+"/api/v1/processes/1/lots", fmt.Sprintf(`{"lot":%q,"inspected":50,"defective":1}`, code), bearer...); c != http.StatusCreated {
+			t.Fatalf("post %s: %d %s", code, c, body)
+		}
+		if c, body, _ := call("GET", to+"/api/v1/processes/1/chart", "", bearer...); c != 200 || !strings.Contains(body, `"`+code+`"`) {
+			t.Errorf("lot %s posted to %s is not in %s's chart on the next request: %d %s", code, from, to, c, body)
+		}
+	}
+	form := url.Values{"name": {"eve"}, "password": {"two-servers-pass"}}.Encode()
+	c, _, res := call("POST", bases[0]+"/signin", form, "Content-Type", "application/x-www-form-urlencoded")
+	var cookie *http.Cookie
+	for _, ck := range res.Cookies() {
+		if ck.Value != "" {
+			cookie = ck
+		}
+	}
+	if c != http.StatusSeeOther || cookie == nil {
+		t.Fatalf("sign-in on the first server: %d, cookies %v", c, res.Cookies())
+	}
+	if c, body, _ := call("GET", bases[1]+"/api/v1/processes", "", "Cookie", cookie.Name+"="+cookie.Value); c != 200 || !strings.Contains(body, "weld") {
+		t.Errorf("the first server's session cookie on the second server: %d %s", c, body)
+	}
+	if c, _, _ := call("GET", bases[1]+"/api/v1/processes", "", "Cookie", cookie.Name+"=not-a-session"); c == 200 {
+		t.Errorf("a made-up session cookie was accepted")
+	}
+
+	back := filepath.Join(t.TempDir(), "back.db")
+	if code, out := lotwatchCmd(t, bin, "", "backup", "--db", pg, "--to", back); code != exitOK {
+		t.Fatalf("backup while serving: %d %s", code, out)
+	}
+	if code, out := lotwatchCmd(t, bin, "", "restore", "--db", pg, "--from", back); code != exitFail || !strings.Contains(out, "open in another program") {
+		t.Errorf("restore while two servers are connected: exit %d\n%s\nwant 1, refused", code, out)
+	}
+	for _, srv := range srvs {
+		srv.Process.Signal(syscall.SIGTERM)
+		srv.Wait()
+	}
+	if code, out := lotwatchCmd(t, bin, "", "restore", "--db", pg, "--from", back); code != exitOK {
+		t.Errorf("restore after the servers stopped: exit %d\n%s", code, out)
+	}
+	if code, out := lotwatchCmd(t, bin, "", "audit", "verify", "--db", pg); code != exitOK {
+		t.Errorf("audit verify after restore: exit %d\n%s", code, out)
+	}
+	_, a := lotwatchCmd(t, bin, "", "export", "--db", pg, "--process", "weld")
+	_, b := lotwatchCmd(t, bin, "", "export", "--db", back, "--process", "weld")
+	if a != b || strings.Count(a, "\n") != 6 {
+		t.Errorf("export after restore:\n%s\nwant the backup's 5 lots:\n%s", a, b)
+	}
+}
+
+// noRedirect is a client that shows redirects instead of following them.
+var noRedirect = &http.Client{CheckRedirect: func(*http.Request, []*http.Request) error { return http.ErrUseLastResponse }}
