@@ -6,6 +6,8 @@ import (
 	"encoding/hex"
 	"net/url"
 	"os"
+	"sort"
+	"strings"
 	"testing"
 
 	_ "github.com/jackc/pgx/v5/stdlib"
@@ -90,4 +92,50 @@ func newPostgresSchema(t testing.TB) string {
 	q.Set("search_path", schema)
 	pu.RawQuery = q.Encode()
 	return pu.String()
+}
+
+// TestSchemasAgree: a new SQLite database and a new PostgreSQL one have
+// the same tables with the same columns, so that a migration added for
+// one database and not the other is caught here (and Copy, which copies
+// by column name, moves every column).
+func TestSchemasAgree(t *testing.T) {
+	columns := func(db *DB) map[string]string {
+		t.Helper()
+		rows, err := db.r.Query(db.d.tables)
+		if err != nil {
+			t.Fatal(err)
+		}
+		var tables []string
+		for rows.Next() {
+			var n string
+			rows.Scan(&n)
+			tables = append(tables, n)
+		}
+		rows.Close()
+		out := map[string]string{}
+		for _, tb := range tables {
+			rows, err := db.r.Query("SELECT * FROM " + tb + " LIMIT 0")
+			if err != nil {
+				t.Fatal(err)
+			}
+			cols, _ := rows.Columns()
+			rows.Close()
+			sort.Strings(cols)
+			out[tb] = strings.Join(cols, ",")
+		}
+		return out
+	}
+	lite, _ := openTemp(t)
+	pg, _ := openPostgresTemp(t)
+	a, b := columns(lite), columns(pg)
+	for tb, cols := range a {
+		if b[tb] != cols {
+			t.Errorf("table %s: SQLite has columns %s, PostgreSQL %q", tb, cols, b[tb])
+		}
+	}
+	for tb := range b {
+		if _, ok := a[tb]; !ok {
+			t.Errorf("table %s is on PostgreSQL only", tb)
+		}
+	}
 }

@@ -15,7 +15,7 @@ import (
 // every reference pointing backwards. audit_head is copied after them
 // (one row), schema_migrations never (each database records its own).
 var copyTables = []string{"users", "sessions", "tokens", "processes", "lots", "lot_revisions", "lot_versions",
-	"limit_sets", "annotations", "audit", "alert_rules", "alert_events", "alert_deliveries", "alert_attempts",
+	"limit_sets", "annotations", "audit", "alert_rules", "alert_events", "alert_batches", "alert_deliveries", "alert_attempts",
 	"plant_settings"}
 
 // ErrNotEmpty is returned by Copy when the destination holds a record.

@@ -1,5 +1,6 @@
--- 0002: alerts raised by changes other than a posted lot, and rules that
--- hear of every lot of a signal (the SQLite migration 0010; see there).
+-- 0002 (PostgreSQL): SQLite's 0010, alerts raised by changes other than
+-- a posted lot (see store/migrations/0010_alert_changes.sql for the
+-- meaning of each column).
 ALTER TABLE alert_events ADD COLUMN cause TEXT NOT NULL DEFAULT '';
 ALTER TABLE alert_rules ADD COLUMN each_lot INTEGER NOT NULL DEFAULT 0;
 
