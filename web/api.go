@@ -394,16 +394,9 @@ func (s *Server) apiUsers(w http.ResponseWriter, r *http.Request) {
 		s.internalError(w, r, err)
 		return
 	}
-	type userJSON struct {
-		ID      int64  `json:"id"`
-		Name    string `json:"name"`
-		Role    string `json:"role"`
-		Active  bool   `json:"active"`
-		Created string `json:"created"`
-	}
-	out := make([]userJSON, len(us))
+	out := make([]storejson.User, len(us))
 	for i, u := range us {
-		out[i] = userJSON{u.ID, u.Name, string(u.Role), u.Active, u.Created.UTC().Format(time.RFC3339)}
+		out[i] = storejson.UserOf(u)
 	}
 	writeJSON(w, http.StatusOK, out)
 }

@@ -15,6 +15,7 @@ import (
 	"golang.org/x/term"
 
 	"lotwatch/store"
+	"lotwatch/web/storejson"
 )
 
 func init() {
@@ -193,15 +194,9 @@ func runUserList(args []string, stdout, stderr io.Writer) int {
 		return cliStoreError(stderr, "user list", "", err)
 	}
 	if *format == "json" {
-		type uj struct {
-			Name    string     `json:"name"`
-			Role    store.Role `json:"role"`
-			Active  bool       `json:"active"`
-			Created string     `json:"created"`
-		}
-		out := []uj{}
+		out := []storejson.User{}
 		for _, u := range us {
-			out = append(out, uj{u.Name, u.Role, u.Active, u.Created.Format(time.RFC3339)})
+			out = append(out, storejson.UserOf(u))
 		}
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")

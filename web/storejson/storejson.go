@@ -79,3 +79,17 @@ func AnnotationOf(a store.Annotation, lot string, loc *time.Location) Annotation
 	}
 	return out
 }
+
+// User is a user as the API and `lotwatch user list` show one.
+type User struct {
+	ID      int64  `json:"id"`
+	Name    string `json:"name"`
+	Role    string `json:"role"`
+	Active  bool   `json:"active"`
+	Created string `json:"created"`
+}
+
+// UserOf is u as JSON.
+func UserOf(u store.User) User {
+	return User{ID: u.ID, Name: u.Name, Role: string(u.Role), Active: u.Active, Created: u.Created.UTC().Format(time.RFC3339)}
+}

@@ -26,11 +26,11 @@ func keys(t *testing.T, v any) map[string]any {
 	return m
 }
 
-// TestProcessNames checks a process's JSON against the API's description
-// (web/openapi.json: every property it declares, no other) and the names
-// `lotwatch process list` writes (limits, sigma, tz, area, map,
-// date_order), which repeat the API's values.
-func TestProcessNames(t *testing.T) {
+// TestNamesAsTheAPIDescribes checks the JSON of a process, a user and a
+// (closed) annotation against the API's description (web/openapi.json):
+// every property it declares, no other; and that the names `lotwatch
+// process list` writes (limits, sigma, tz) repeat the API's values.
+func TestNamesAsTheAPIDescribes(t *testing.T) {
 	raw, err := os.ReadFile("../openapi.json")
 	if err != nil {
 		t.Fatal(err)
@@ -45,22 +45,35 @@ func TestProcessNames(t *testing.T) {
 	if err := json.Unmarshal(raw, &doc); err != nil {
 		t.Fatal(err)
 	}
+	at := time.Date(2026, 3, 2, 6, 0, 0, 0, time.UTC)
 	p := store.Process{ID: 4, Name: "Press 2", Chart: spc.ChartNP, Method: spc.MethodLaney, K: 2.5, Rules: "we",
-		TimeZone: "Europe/Berlin", Area: "Press shop", Active: true, Created: time.Date(2026, 3, 2, 6, 0, 0, 0, time.UTC),
+		TimeZone: "Europe/Berlin", Area: "Press shop", Active: true, Created: at,
 		ColumnMap: map[string]string{"Qty inspected": "inspected"}, DateOrder: "day-first"}
+	a := store.Annotation{ID: 7, ProcessID: 4, LotID: 41, Cause: "worn die", Action: "die replaced", Closed: true,
+		By: "kim", At: at, ClosedBy: "kim", ClosedAt: at.Add(time.Hour)}
+	for _, tc := range []struct {
+		schema string
+		v      any
+	}{
+		{"Process", ProcessOf(p)},
+		{"User", UserOf(store.User{ID: 2, Name: "kim", Role: store.RoleInspector, Active: true, Created: at})},
+		{"Annotation", AnnotationOf(a, "A-1041", time.UTC)},
+	} {
+		got := keys(t, tc.v)
+		var names, want []string
+		for k := range got {
+			names = append(names, k)
+		}
+		for k := range doc.Components.Schemas[tc.schema].Properties {
+			want = append(want, k)
+		}
+		sort.Strings(names)
+		sort.Strings(want)
+		if !reflect.DeepEqual(names, want) {
+			t.Errorf("%s: fields %v, the API's description declares %v", tc.schema, names, want)
+		}
+	}
 	got := keys(t, ProcessOf(p))
-	var names, want []string
-	for k := range got {
-		names = append(names, k)
-	}
-	for k := range doc.Components.Schemas["Process"].Properties {
-		want = append(want, k)
-	}
-	sort.Strings(names)
-	sort.Strings(want)
-	if !reflect.DeepEqual(names, want) {
-		t.Errorf("fields %v, the API's description declares %v", names, want)
-	}
 	for cli, api := range map[string]string{"limits": "method", "sigma": "k", "tz": "time_zone"} {
 		if got[cli] != got[api] {
 			t.Errorf("%s = %v, %s = %v; want the same", cli, got[cli], api, got[api])
