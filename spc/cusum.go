@@ -60,8 +60,9 @@ type CUSUMSignal struct {
 
 // cusumCells is the number of states of the Markov chain between 0 and h
 // (Brook & Evans 1972): the decision interval is cut into cells of
-// width h/cusumCells, and each score is rounded to a whole number of
-// cells.
+// width h/cusumCells, and each score's probability is shared between the
+// two whole numbers of cells around it, so that the chain's mean step is
+// the score's own.
 const cusumCells = 200
 
 // cusumGridStep is the step of the grid of decision intervals DesignCUSUM
@@ -170,7 +171,8 @@ func (c *CUSUM) score(n, count float64) float64 {
 
 // arlAt returns the ARL of the CUSUM with decision interval h while the
 // rate is p, by the Markov chain of Brook & Evans: state j is S = j·w,
-// w = h/cusumCells; a lot moves S by its score rounded to whole cells,
+// w = h/cusumCells; a lot moves S by its score in whole cells (shared
+// between the two around it, see stepDistribution),
 // to state 0 when it falls to 0 or below and out of the chain (a signal)
 // at h or above. The ARL from state 0 solves (I − Q)·L = 1, with Q the
 // moves between states, each move the mixture over the lot sizes of the
@@ -211,11 +213,22 @@ type cusumStep struct {
 
 // stepDistribution returns the distribution of a lot's score in whole
 // cells of width w when the rate is p, the lot size drawn from c.Sizes.
+// A score between two whole numbers of cells has its probability shared
+// between them in proportion to its nearness. Rounding it to the nearest
+// instead moves S by the same fraction of a cell at every lot where the
+// scores fall on a lattice (a c chart: c·ln(c1/c0) − (c1 − c0)), and
+// overstated a designed in-control ARL by 9 % (389 lots for 356).
 func (c *CUSUM) stepDistribution(p, w float64) []cusumStep {
 	probs := make([]float64, 2*cusumCells+1) // cells −cusumCells … cusumCells
 	for _, s := range c.scoreDistribution(p) {
-		cells := max(-cusumCells, min(cusumCells, int(math.Round(s.w/w))))
-		probs[cells+cusumCells] += s.prob
+		x := max(-cusumCells, min(cusumCells, s.w/w))
+		lo := math.Floor(x)
+		frac := x - lo
+		i := int(lo) + cusumCells
+		probs[i] += s.prob * (1 - frac)
+		if frac > 0 {
+			probs[i+1] += s.prob * frac
+		}
 	}
 	var steps []cusumStep
 	for i, pr := range probs {

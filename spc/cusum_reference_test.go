@@ -15,13 +15,18 @@ type cusumReference struct {
 	Normal []struct {
 		K, H, Shift, ARL float64
 	} `json:"normal"`
-	PoissonLattice []struct {
-		C0, C1 float64
-		K, H   int
-		HScore float64 `json:"h_score"`
-		Mean   float64
-		ARL    float64
-	} `json:"poisson_lattice"`
+	PoissonLattice    []poissonLatticeRow `json:"poisson_lattice"`
+	PoissonOffLattice []poissonLatticeRow `json:"poisson_off_lattice"`
+}
+
+// poissonLatticeRow is the exact ARL of a Poisson CUSUM in whole counts.
+type poissonLatticeRow struct {
+	C0, C1 float64
+	K      int
+	H      float64
+	HScore float64 `json:"h_score"`
+	Mean   float64
+	ARL    float64
 }
 
 func readCUSUMReference(t *testing.T) cusumReference {
@@ -110,13 +115,34 @@ func TestCUSUMARLNormalLimit(t *testing.T) {
 func TestCUSUMARLPoissonLattice(t *testing.T) {
 	ref := readCUSUMReference(t)
 	for _, r := range ref.PoissonLattice {
-		if cusumCells%r.H != 0 {
-			t.Fatalf("h = %d does not divide the %d cells; the comparison would not be exact", r.H, cusumCells)
+		if h := int(r.H); float64(h) != r.H || cusumCells%h != 0 {
+			t.Fatalf("h = %g does not divide the %d cells; the comparison would not be exact", r.H, cusumCells)
 		}
 		c := &CUSUM{Chart: ChartC, P0: r.C0, P1: r.C1, H: r.HScore, Sizes: []int64{1}}
 		got := c.ARL(r.Mean)
 		if rel := got/r.ARL - 1; math.Abs(rel) > 1e-9 {
-			t.Errorf("c0 %g, c1 %.6g, k %d, h %d counts, mean %.6g: ARL %.10g, exact %.10g", r.C0, r.C1, r.K, r.H, r.Mean, got, r.ARL)
+			t.Errorf("c0 %g, c1 %.6g, k %d, h %g counts, mean %.6g: ARL %.10g, exact %.10g", r.C0, r.C1, r.K, r.H, r.Mean, got, r.ARL)
+		}
+	}
+}
+
+// TestCUSUMARLOffLattice checks the chain where a count is not a whole
+// number of its cells: the Poisson CUSUMs of TestCUSUMARLPoissonLattice
+// with h = 6.5, 8.5 and 11.5 counts (a count is 30.8, 23.5 or 17.4
+// cells). S stays a whole number of counts, so the exact ARL is that of
+// the lattice with h rounded up (SciPy, testdata/cusum_arl_reference.py).
+// The tolerance, 0.5 %, is the discretisation error of a chain of 200
+// cells, common practice, no source.
+func TestCUSUMARLOffLattice(t *testing.T) {
+	ref := readCUSUMReference(t)
+	if len(ref.PoissonOffLattice) == 0 {
+		t.Fatal("no off-lattice rows in the reference")
+	}
+	for _, r := range ref.PoissonOffLattice {
+		c := &CUSUM{Chart: ChartC, P0: r.C0, P1: r.C1, H: r.HScore, Sizes: []int64{1}}
+		got := c.ARL(r.Mean)
+		if rel := got/r.ARL - 1; math.Abs(rel) > 0.005 {
+			t.Errorf("c0 %g, k %d, h %g counts, mean %.4g: ARL %.5g, exact %.5g (off by %.2f %%)", r.C0, r.K, r.H, r.Mean, got, r.ARL, 100*rel)
 		}
 	}
 }

@@ -87,6 +87,25 @@ func TestCUSUMARLAgainstSimulation(t *testing.T) {
 	}
 }
 
+// TestCUSUMDesignedARL0BetweenCells holds a designed in-control ARL to a
+// long seeded simulation where the scores fall at a fixed fraction of a
+// cell: a c chart from c0 = 4 to c1 = 6 scores c·ln 1.5 − 2, and rounding
+// each score to the nearest of the chain's cells moved S by the same
+// amount at every lot, so the chain said 389 lots (h = 3.86) where the
+// CUSUM runs 356 on average: more false alarms than the design promised. The check
+// is the Markov-chain approximation against Monte Carlo, within 4
+// standard errors of the simulated mean (common practice, no source).
+func TestCUSUMDesignedARL0BetweenCells(t *testing.T) {
+	c, err := DesignCUSUM(ChartC, 4, 6, []int64{1}, 370, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	mean, se := simulateRunLength(c, c.P0, 20000, 5)
+	if math.Abs(c.ARL0-mean) > 4*se {
+		t.Errorf("h %v: Markov-chain ARL0 %.1f, simulated %.1f ± %.1f", c.H, c.ARL0, mean, se)
+	}
+}
+
 func TestCUSUMRunSignalsAndStart(t *testing.T) {
 	// c chart, c0 = 2, c1 = 4: W = c·ln 2 − 2, so a count of 2 scores
 	// −0.61, 3 scores 0.08, 6 scores 2.16 (arithmetic).

@@ -69,6 +69,7 @@ def main():
         "numpy": np.__version__,
         "normal": [],
         "poisson_lattice": [],
+        "poisson_off_lattice": [],
     }
     for h in (4.0, 5.0):
         for shift in (0.0, 0.5, 1.0, 2.0):
@@ -84,6 +85,11 @@ def main():
             out["poisson_lattice"].append({"c0": c0, "c1": c1, "k": k, "h": h,
                                            "h_score": h * math.log(c1 / c0), "mean": mean,
                                            "arl": lattice_arl(mean, k, h)})
+    for h in (6.5, 8.5, 11.5):
+        for mean in (c0, c1):
+            out["poisson_off_lattice"].append({"c0": c0, "c1": c1, "k": k, "h": h,
+                                               "h_score": h * math.log(c1 / c0), "mean": mean,
+                                               "arl": lattice_arl(mean, k, math.ceil(h))})
     path = os.path.join(os.path.dirname(os.path.abspath(__file__)), "cusum_arl_reference.json")
     with open(path, "w") as f:
         json.dump(out, f, indent=1)
