@@ -483,7 +483,11 @@ func (db *DB) write(ctx context.Context, fn func(*wtx) error) error {
 		return ctx.Err()
 	}
 	db.mu.RUnlock()
-	return <-j.err
+	err := <-j.err
+	if err != nil && db.d == postgresDialect {
+		err = tagUnavailable(err) // e.g. a commit cut off by the server's stop
+	}
+	return err
 }
 
 // isUnique reports a UNIQUE constraint failure.

@@ -6,6 +6,8 @@ import (
 	"database/sql/driver"
 	"errors"
 	"fmt"
+	"io"
+	"net"
 	"net/url"
 	"strings"
 	"time"
@@ -21,6 +23,11 @@ var ErrBadURL = errors.New("malformed database URL")
 // ErrUnreachable is returned by Open when the PostgreSQL server cannot be
 // reached or refuses the login.
 var ErrUnreachable = errors.New("cannot connect to the database server")
+
+// ErrUnavailable wraps an error of a PostgreSQL server that cannot be
+// reached (stopped, restarting, the network down): the request may be
+// tried again once it is back. The store reconnects by itself.
+var ErrUnavailable = errors.New("the database server is unavailable")
 
 // IsURL reports whether a --db value names a PostgreSQL database
 // (postgres:// or postgresql://) rather than a SQLite file.
@@ -165,22 +172,55 @@ type rebindConnector struct{ driver.Connector }
 func (c rebindConnector) Connect(ctx context.Context) (driver.Conn, error) {
 	conn, err := c.Connector.Connect(ctx)
 	if err != nil {
-		return nil, err
+		return nil, fmt.Errorf("%w: %w", ErrUnavailable, err)
 	}
 	return rebindConn{conn.(*stdlib.Conn)}, nil
 }
 
 type rebindConn struct{ *stdlib.Conn }
 
-func (c rebindConn) Prepare(q string) (driver.Stmt, error) { return c.Conn.Prepare(rebind(q)) }
+func (c rebindConn) Prepare(q string) (driver.Stmt, error) {
+	st, err := c.Conn.Prepare(rebind(q))
+	return st, tagUnavailable(err)
+}
 func (c rebindConn) PrepareContext(ctx context.Context, q string) (driver.Stmt, error) {
-	return c.Conn.PrepareContext(ctx, rebind(q))
+	st, err := c.Conn.PrepareContext(ctx, rebind(q))
+	return st, tagUnavailable(err)
 }
 func (c rebindConn) ExecContext(ctx context.Context, q string, args []driver.NamedValue) (driver.Result, error) {
-	return c.Conn.ExecContext(ctx, rebind(q), args)
+	r, err := c.Conn.ExecContext(ctx, rebind(q), args)
+	return r, tagUnavailable(err)
 }
 func (c rebindConn) QueryContext(ctx context.Context, q string, args []driver.NamedValue) (driver.Rows, error) {
-	return c.Conn.QueryContext(ctx, rebind(q), args)
+	r, err := c.Conn.QueryContext(ctx, rebind(q), args)
+	return r, tagUnavailable(err)
+}
+func (c rebindConn) BeginTx(ctx context.Context, opts driver.TxOptions) (driver.Tx, error) {
+	tx, err := c.Conn.BeginTx(ctx, opts)
+	return tx, tagUnavailable(err)
+}
+
+// tagUnavailable wraps ErrUnavailable around an error that says the
+// server is gone (the connection broke, the server is shutting down or
+// starting), keeping the error itself (database/sql retries a bad
+// connection on another).
+func tagUnavailable(err error) error {
+	if err == nil || errors.Is(err, ErrUnavailable) {
+		return err
+	}
+	var pe *pgconn.PgError
+	if errors.As(err, &pe) {
+		if !strings.HasPrefix(pe.Code, "08") && !strings.HasPrefix(pe.Code, "57P") {
+			return err
+		}
+	} else {
+		var ne net.Error
+		if !errors.Is(err, driver.ErrBadConn) && !errors.As(err, &ne) && !errors.Is(err, io.EOF) && !errors.Is(err, io.ErrUnexpectedEOF) &&
+			!pgconn.SafeToRetry(err) && !strings.Contains(err.Error(), "conn closed") {
+			return err
+		}
+	}
+	return fmt.Errorf("%w: %w", ErrUnavailable, err)
 }
 
 // rebind numbers the ? placeholders of q as $1, $2, …, leaving quoted

@@ -27,7 +27,8 @@ var errFormRefused = fmt.Errorf("the form was refused: %w", store.ErrInvalid)
 
 // statusOf is the HTTP status that answers err, for the pages and the
 // API alike: a body or file over its limit 413, a database served
-// read-only or a server holding as many waiting uploads as it keeps 503,
+// read-only or unreachable, or a server holding as many waiting uploads
+// as it keeps 503,
 // no sign-in 401, a role too low 403, something not found 404, a method
 // the address does not take 405, a lot code stored with other values
 // 409, too many attempts 429, bad input 400, anything else 500.
@@ -36,7 +37,7 @@ func statusOf(err error) int {
 	switch {
 	case errors.As(err, &tooBig), errors.Is(err, errTooLarge):
 		return http.StatusRequestEntityTooLarge
-	case errors.Is(err, store.ErrReadOnly), errors.Is(err, errBusy):
+	case errors.Is(err, store.ErrReadOnly), errors.Is(err, errBusy), errors.Is(err, store.ErrUnavailable):
 		return http.StatusServiceUnavailable
 	case errors.Is(err, errSignIn):
 		return http.StatusUnauthorized
@@ -103,6 +104,9 @@ func (s *Server) fail(w http.ResponseWriter, r *http.Request, err error) {
 	case status == http.StatusInternalServerError:
 		s.log.Error("request failed", "method", r.Method, "path", r.URL.Path, "err", err)
 		msg, page = "internal error; the server log has the details", "Something went wrong on the server; the server log has the details."
+	case errors.Is(err, store.ErrUnavailable):
+		s.log.Warn("the database server is unavailable", "method", r.Method, "path", r.URL.Path, "err", err)
+		msg = "The database server cannot be reached just now; try again shortly."
 	case status == http.StatusServiceUnavailable:
 		msg = "This database is served read-only (lotwatch cannot write its file): it can be read, but nothing can be changed."
 	case errors.As(err, &tooBig):
