@@ -58,7 +58,7 @@ func TestCrashRecovery(t *testing.T) {
 
 // lotwatchCmd runs the binary to completion and returns its exit status
 // and output.
-func lotwatchCmd(t *testing.T, bin, stdin string, args ...string) (int, string) {
+func lotwatchCmd(t testing.TB, bin, stdin string, args ...string) (int, string) {
 	t.Helper()
 	c := exec.Command(bin, args...)
 	c.Stdin = strings.NewReader(stdin)
@@ -326,7 +326,7 @@ func crashServer(t *testing.T, bin, dir string, rounds int, rng *rand.Rand) {
 }
 
 // freeAddr returns a loopback address with a port free at the moment.
-func freeAddr(t *testing.T) string {
+func freeAddr(t testing.TB) string {
 	t.Helper()
 	ln, err := net.Listen("tcp", "127.0.0.1:0")
 	if err != nil {
@@ -337,7 +337,7 @@ func freeAddr(t *testing.T) string {
 }
 
 // waitHealthy polls /healthz until the server answers (at most 20 s).
-func waitHealthy(t *testing.T, base string, srv *exec.Cmd) {
+func waitHealthy(t testing.TB, base string, srv *exec.Cmd) {
 	t.Helper()
 	ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
 	defer cancel()

@@ -21,7 +21,7 @@ import (
 
 // postgresURL is the test server's URL (LOTWATCH_TEST_POSTGRES, see
 // .ci/postgres); without it the test is skipped, or failed when CI=true.
-func postgresURL(t *testing.T) string {
+func postgresURL(t testing.TB) string {
 	t.Helper()
 	u := os.Getenv("LOTWATCH_TEST_POSTGRES")
 	if u == "" {
@@ -36,7 +36,7 @@ func postgresURL(t *testing.T) string {
 // newPostgresDatabase creates an empty database on the test server,
 // dropped when the test ends, and returns its URL. A database of its own
 // (not a schema) because restore counts the sessions on the database.
-func newPostgresDatabase(t *testing.T) string {
+func newPostgresDatabase(t testing.TB) string {
 	t.Helper()
 	base := postgresURL(t)
 	admin, err := sql.Open("pgx", base)
@@ -64,7 +64,7 @@ func newPostgresDatabase(t *testing.T) string {
 }
 
 // buildLotwatch builds the binary once for a test.
-func buildLotwatch(t *testing.T) string {
+func buildLotwatch(t testing.TB) string {
 	t.Helper()
 	if testing.Short() {
 		t.Skip("builds the binary; skipped with -short")
