@@ -42,6 +42,8 @@ func TestAuditCoversCredentials(t *testing.T) {
 // A database written before the trail stated credentials (the schema-1
 // fixture) still verifies; the upgrade states every password and token
 // hash once, so that a hash copied afterwards is named too.
+//
+// SQLite only: upgrades a file written before migration 0005 (Go upgrades exist for SQLite files only).
 func TestCredentialsUpgrade(t *testing.T) {
 	path := fixtureCopy(t)
 	if chk := verifyFile(t, path); !chk.OK {

@@ -11,6 +11,8 @@ import (
 // files, its lock file, a backup and a restored file are made readable by
 // their owner only, whatever the umask (the probe of issue 12 found them
 // 0644 under umask 022).
+//
+// SQLite only: file modes of the database file.
 func TestFilesArePrivate(t *testing.T) {
 	old := syscall.Umask(0o022)
 	defer syscall.Umask(old)

@@ -106,6 +106,7 @@ func writeSchema1Fixture(t *testing.T, path string) {
 	}
 }
 
+// SQLite only: writes the committed SQLite fixture file.
 func TestWriteSchema1Fixture(t *testing.T) {
 	if os.Getenv("LOTWATCH_WRITE_FIXTURE") == "" {
 		t.Skip("set LOTWATCH_WRITE_FIXTURE=1 to write " + schema1Fixture)
@@ -172,6 +173,7 @@ func writeSchema2Fixture(t *testing.T, path string) {
 	}
 }
 
+// SQLite only: writes the committed SQLite fixture file.
 func TestWriteSchema2Fixture(t *testing.T) {
 	if os.Getenv("LOTWATCH_WRITE_FIXTURE") == "" {
 		t.Skip("set LOTWATCH_WRITE_FIXTURE=1 to write " + schema2Fixture)

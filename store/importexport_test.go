@@ -206,6 +206,8 @@ func generateCSV(w io.Writer, n int) {
 // A kill -9 in the middle of a large import leaves nothing of it: the
 // import runs in a child process (this test binary re-executed), which is
 // killed once it has read well into the file.
+//
+// SQLite only: kills a process holding the file; PostgreSQL crashes are in cmd/lotwatch TestPostgresCrash.
 func TestImportKilled(t *testing.T) {
 	if path := os.Getenv("LOTWATCH_KILL_IMPORT_DB"); path != "" {
 		db, err := Open(path)
@@ -270,6 +272,8 @@ func TestImportKilled(t *testing.T) {
 // Back up while 4 writers log lots, then restore the backup over the
 // database: it opens, its audit chain holds, and it has every lot that was
 // acknowledged before the backup started.
+//
+// SQLite only: SQLite online backup and file restore; PostgreSQL backup and restore are in TestCopyBetweenBackends and cmd/lotwatch TestTwoServersOnePostgres.
 func TestBackupWhileWritingRestore(t *testing.T) {
 	dir := t.TempDir()
 	path := filepath.Join(dir, "live.db")

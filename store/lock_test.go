@@ -18,6 +18,8 @@ import (
 // written over a database in use is refused the same way, and a second
 // store on the same file (a command-line import while the server runs)
 // is not blocked.
+//
+// SQLite only: the file lock; PostgreSQL refuses by pg_stat_activity (cmd/lotwatch TestTwoServersOnePostgres).
 func TestRestoreRefusedWhileOpen(t *testing.T) {
 	dir := t.TempDir()
 	path := filepath.Join(dir, "live.db")
@@ -75,6 +77,8 @@ func TestRestoreRefusedWhileOpen(t *testing.T) {
 
 // While a restore holds the file, opening it is refused rather than
 // reading a file about to be replaced.
+//
+// SQLite only: the file lock.
 func TestOpenRefusedDuringRestore(t *testing.T) {
 	path := filepath.Join(t.TempDir(), "live.db")
 	l, err := lockExclusive(path)

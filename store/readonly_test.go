@@ -16,6 +16,8 @@ import (
 // (bytes 18 and 19 are 1; 2 would be WAL, see "Database File Format",
 // sqlite.org/fileformat2.html §1.3.3), and checking it leaves no -wal or
 // -shm file beside it.
+//
+// SQLite only: the journal mode of a SQLite backup file.
 func TestBackupIsOneFile(t *testing.T) {
 	db, path := openTemp(t)
 	addProcess(t, db, "weld", spc.ChartP)
@@ -45,6 +47,8 @@ func TestBackupIsOneFile(t *testing.T) {
 
 // A live database with a write-ahead log beside it is not a backup: its
 // log may hold committed lots that a copy of the file alone would lose.
+//
+// SQLite only: a live SQLite file and its WAL.
 func TestCheckFileRefusesLiveDatabase(t *testing.T) {
 	db, path := openTemp(t)
 	addProcess(t, db, "weld", spc.ChartP)
@@ -75,6 +79,8 @@ func readOnlyDir(t *testing.T, dir string) {
 // verified, signs a user in (the session is kept in memory) and refuses
 // every change with ErrReadOnly. The probe of issue 12 found "unable to
 // open database file" for each of these.
+//
+// SQLite only: read-only files.
 func TestReadOnlyMedia(t *testing.T) {
 	media := t.TempDir()
 	plant := filepath.Join(media, "plant.db")

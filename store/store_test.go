@@ -59,6 +59,7 @@ func rawSQL(t *testing.T, path string) *sql.DB {
 	return raw
 }
 
+// SQLite only: SQLite's migrations and user_version (PostgreSQL's schema is held to SQLite's by TestSchemasAgree).
 func TestMigrations(t *testing.T) {
 	db, path := openTemp(t)
 	var n, uv int
@@ -98,6 +99,7 @@ func TestMigrations(t *testing.T) {
 	}
 }
 
+// SQLite only: PRAGMAs.
 func TestPragmas(t *testing.T) {
 	db, _ := openTemp(t)
 	var mode string

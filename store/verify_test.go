@@ -146,6 +146,8 @@ func TestAuditCatchesDataRows(t *testing.T) {
 // copies are filled, one migration entry is appended, and the trail holds
 // (the rows are checked against the entries they were written with);
 // migration 0004 then drops the copies again and adds no entry.
+//
+// SQLite only: upgrades an old SQLite file.
 func TestMigration0002FromSchema1(t *testing.T) {
 	path := fixtureCopy(t)
 	raw := rawSQL(t, path)
@@ -206,6 +208,8 @@ func TestMigration0002FromSchema1(t *testing.T) {
 
 // A row changed behind lotwatch's back before the upgrade is still found
 // after it: the migration does not bless what it finds.
+//
+// SQLite only: upgrades an old SQLite file.
 func TestMigration0002KeepsEarlierTamperingVisible(t *testing.T) {
 	path := fixtureCopy(t)
 	raw := rawSQL(t, path)
@@ -237,6 +241,8 @@ func TestMigrationNewDatabaseNoEntry(t *testing.T) {
 // index are gone, no entry is added but 0005's statements of the
 // credentials, the trail still holds, and every
 // lot reads as its columns held it before.
+//
+// SQLite only: upgrades an old SQLite file.
 func TestMigration0004FromSchema2(t *testing.T) {
 	b, err := os.ReadFile(schema2Fixture)
 	if err != nil {
@@ -361,6 +367,8 @@ func TestLotsOwnTheirCategories(t *testing.T) {
 // An import entry written before imports listed their lots carries the
 // digest only: a change to one of its lots is named by the entry's range,
 // never by a lot that was not changed.
+//
+// SQLite only: reads an old SQLite fixture file.
 func TestAuditOldImportEntryNamesRange(t *testing.T) {
 	path := fixtureCopy(t)
 	raw := rawSQL(t, path)

@@ -7,6 +7,7 @@ import (
 	"mime/multipart"
 	"net/http"
 	"net/url"
+	"path/filepath"
 	"regexp"
 	"strings"
 	"testing"
@@ -14,6 +15,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 )
 
 // authzRoute is the expectation for one route of the table: the least
@@ -426,7 +428,11 @@ func expected(pattern string, rt authzRoute, who caller) int {
 }
 
 func newMatrixEnv(t *testing.T) (*matrixEnv, []caller) {
-	e := newTestEnv(t)
+	return newMatrixEnvOn(t, filepath.Join(t.TempDir(), "lotwatch.db"))
+}
+
+func newMatrixEnvOn(t *testing.T, path string) (*matrixEnv, []caller) {
+	e := newTestEnvOn(t, path)
 	lots := e.addLots(t, 30, func(i int) int64 { return int64(3 + i%4) })
 	m := &matrixEnv{testEnv: e, cookies: map[store.Role]*http.Cookie{}, lot: lots[4]}
 	callers := []caller{{name: "anonymous"}}
@@ -443,64 +449,68 @@ func newMatrixEnv(t *testing.T) (*matrixEnv, []caller) {
 // HEAD (answered like GET). Refusals of the API are JSON with an error;
 // anonymous page requests are sent to the sign-in page.
 func TestAuthzMatrix(t *testing.T) {
-	m, callers := newMatrixEnv(t)
-	table := m.srv.routes()
-	seen := map[string]bool{}
-	for _, rt := range table {
-		key := rt.method + " " + rt.pattern
-		seen[key] = true
-		if _, ok := authzRoutes[key]; !ok {
-			t.Errorf("route %s has no expectation in authzRoutes: state who may use it", key)
-		}
-	}
-	for key := range authzRoutes {
-		if !seen[key] {
-			t.Errorf("authzRoutes expects %s, which is not in the route table", key)
-		}
-	}
-	checked := 0
-	for _, rt := range table {
-		key := rt.method + " " + rt.pattern
-		exp, ok := authzRoutes[key]
-		if !ok {
-			continue
-		}
-		methods := []string{rt.method}
-		if rt.method == "GET" {
-			methods = append(methods, "HEAD")
-		}
-		for _, method := range methods {
-			for _, who := range callers {
-				want := expected(rt.pattern, exp, who)
-				s := m.prepare(t, exp, method, who)
-				var auditBefore string
-				if method == "POST" {
-					auditBefore = m.auditOf(t)
-				}
-				got, loc, body := m.send(t, method, exp, s, who, nil)
-				checked++
-				if got != want {
-					t.Errorf("%s %s as %s: status %d, want %d\n%s", method, rt.pattern, who.name, got, want, trim(body))
-					continue
-				}
-				if method == "POST" {
-					changed := m.auditOf(t) != auditBefore
-					if allowed := got == exp.ok && (exp.min == anyone || who.via == "session" || strings.HasPrefix(rt.pattern, "/api/")); allowed && changed != exp.writes {
-						t.Errorf("%s %s as %s: audit trail changed %v, want %v", method, rt.pattern, who.name, changed, exp.writes)
-					} else if !allowed && changed {
-						t.Errorf("%s %s as %s: a refused request changed the audit trail", method, rt.pattern, who.name)
-					}
-				}
-				if got == http.StatusSeeOther && exp.min != anyone && who.via != "session" && !strings.HasPrefix(loc, "/signin?next=") {
-					t.Errorf("%s %s as %s: redirected to %q, want the sign-in page", method, rt.pattern, who.name, loc)
-				}
-				if (got == 401 || got == 403) && strings.HasPrefix(rt.pattern, "/api/") && method != "HEAD" && !strings.Contains(body, `"error"`) {
-					t.Errorf("%s %s as %s: refusal is not a JSON error: %s", method, rt.pattern, who.name, trim(body))
+	for _, b := range storetest.Backends {
+		t.Run(b.Name, func(t *testing.T) {
+			m, callers := newMatrixEnvOn(t, b.DB(t))
+			table := m.srv.routes()
+			seen := map[string]bool{}
+			for _, rt := range table {
+				key := rt.method + " " + rt.pattern
+				seen[key] = true
+				if _, ok := authzRoutes[key]; !ok {
+					t.Errorf("route %s has no expectation in authzRoutes: state who may use it", key)
 				}
 			}
-		}
+			for key := range authzRoutes {
+				if !seen[key] {
+					t.Errorf("authzRoutes expects %s, which is not in the route table", key)
+				}
+			}
+			checked := 0
+			for _, rt := range table {
+				key := rt.method + " " + rt.pattern
+				exp, ok := authzRoutes[key]
+				if !ok {
+					continue
+				}
+				methods := []string{rt.method}
+				if rt.method == "GET" {
+					methods = append(methods, "HEAD")
+				}
+				for _, method := range methods {
+					for _, who := range callers {
+						want := expected(rt.pattern, exp, who)
+						s := m.prepare(t, exp, method, who)
+						var auditBefore string
+						if method == "POST" {
+							auditBefore = m.auditOf(t)
+						}
+						got, loc, body := m.send(t, method, exp, s, who, nil)
+						checked++
+						if got != want {
+							t.Errorf("%s %s as %s: status %d, want %d\n%s", method, rt.pattern, who.name, got, want, trim(body))
+							continue
+						}
+						if method == "POST" {
+							changed := m.auditOf(t) != auditBefore
+							if allowed := got == exp.ok && (exp.min == anyone || who.via == "session" || strings.HasPrefix(rt.pattern, "/api/")); allowed && changed != exp.writes {
+								t.Errorf("%s %s as %s: audit trail changed %v, want %v", method, rt.pattern, who.name, changed, exp.writes)
+							} else if !allowed && changed {
+								t.Errorf("%s %s as %s: a refused request changed the audit trail", method, rt.pattern, who.name)
+							}
+						}
+						if got == http.StatusSeeOther && exp.min != anyone && who.via != "session" && !strings.HasPrefix(loc, "/signin?next=") {
+							t.Errorf("%s %s as %s: redirected to %q, want the sign-in page", method, rt.pattern, who.name, loc)
+						}
+						if (got == 401 || got == 403) && strings.HasPrefix(rt.pattern, "/api/") && method != "HEAD" && !strings.Contains(body, `"error"`) {
+							t.Errorf("%s %s as %s: refusal is not a JSON error: %s", method, rt.pattern, who.name, trim(body))
+						}
+					}
+				}
+			}
+			t.Logf("%d routes × %d callers: %d requests checked", len(table), len(callers), checked)
+		})
 	}
-	t.Logf("%d routes × %d callers: %d requests checked", len(table), len(callers), checked)
 }
 
 // TestAuthzCrossOrigin: every state-changing route of the table refuses

@@ -36,8 +36,15 @@ var roles = []store.Role{store.RoleViewer, store.RoleInspector, store.RoleEngine
 
 func newTestEnv(t testing.TB) *testEnv {
 	t.Helper()
+	return newTestEnvOn(t, filepath.Join(t.TempDir(), "lotwatch.db"))
+}
+
+// newTestEnvOn is newTestEnv on the database path (a file or a URL, see
+// storetest.Backends).
+func newTestEnvOn(t testing.TB, path string) *testEnv {
+	t.Helper()
 	ctx := context.Background()
-	db, err := store.Open(filepath.Join(t.TempDir(), "lotwatch.db"))
+	db, err := store.Open(path)
 	if err != nil {
 		t.Fatal(err)
 	}
