@@ -202,7 +202,8 @@ func BenchmarkBareInsert(b *testing.B) {
 // a database holding them among another process's lots, and reports the
 // rate beside the rate of a bare scan of the same rows (id and time only,
 // through database/sql) measured in the same run: each pass reads both,
-// so that a busy machine slows both alike.
+// so that a busy machine slows both alike. counts/bare is the same for
+// LotCounts, the read of the charts, the board and the review.
 func BenchmarkReadLots(b *testing.B) {
 	n := benchLots(b)
 	db, p := benchDB(b)
@@ -235,7 +236,7 @@ func BenchmarkReadLots(b *testing.B) {
 	}
 	bareScan()
 	b.ResetTimer()
-	var readNs, bareNs time.Duration
+	var readNs, bareNs, countsNs time.Duration
 	for i := 0; i < b.N; i++ {
 		got := 0
 		t := time.Now()
@@ -250,13 +251,20 @@ func BenchmarkReadLots(b *testing.B) {
 		t = time.Now()
 		bareScan()
 		bareNs += time.Since(t)
+		t = time.Now()
+		if counted, err := db.LotCounts(ctx, p.ID, time.Time{}, time.Time{}); err != nil || len(counted) != n {
+			b.Fatalf("LotCounts: %d lots, %v", len(counted), err)
+		}
+		countsNs += time.Since(t)
 		b.StartTimer()
 	}
 	rate := float64(n*b.N) / readNs.Seconds()
 	bare := float64(n*b.N) / bareNs.Seconds()
+	counts := float64(n*b.N) / countsNs.Seconds()
 	b.ReportMetric(rate, "lots/s")
 	b.ReportMetric(bare, "bare-scan-lots/s")
 	b.ReportMetric(rate/bare, "read/bare")
+	b.ReportMetric(counts/bare, "counts/bare")
 }
 
 // BenchmarkVerifyAudit checks the audit trail and every data row of a

@@ -365,6 +365,21 @@ func (db *DB) AddLots(ctx context.Context, actor string, processID int64, in []L
 // Lots returns the lots of a process that are not voided, in time order
 // (then id), with from ≤ time < to; a zero bound is open.
 func (db *DB) Lots(ctx context.Context, processID int64, from, to time.Time) ([]Lot, error) {
+	return db.collectLots(ctx, processID, from, to, readCols)
+}
+
+// LotCounts returns what Lots returns with only what judging, charts and
+// reviews read: each lot's id, code, time, shift, counts and categories.
+// The inspector, note, revision and who recorded it are left empty;
+// reading them too takes about twice as long over a whole record, which
+// a supervisor waits for when a chart or the board is opened cold. The
+// lot page, the API's lot list and exports read them with Lots.
+func (db *DB) LotCounts(ctx context.Context, processID int64, from, to time.Time) ([]Lot, error) {
+	return db.collectLots(ctx, processID, from, to, countCols)
+}
+
+// collectLots gathers the lots Lots describes, reading the columns cols.
+func (db *DB) collectLots(ctx context.Context, processID int64, from, to time.Time, cols string) ([]Lot, error) {
 	// Counting first (the index alone, no value read) sizes the result
 	// once instead of copying it as it grows.
 	lo, hi := timeBounds(from, to)
@@ -374,7 +389,7 @@ func (db *DB) Lots(ctx context.Context, processID int64, from, to time.Time) ([]
 		return nil, err
 	}
 	out := make([]Lot, 0, n)
-	err := db.EachLot(ctx, processID, from, to, func(l Lot) error {
+	err := db.eachLot(ctx, processID, from, to, cols, func(l Lot) error {
 		out = append(out, l)
 		return nil
 	})
@@ -391,12 +406,16 @@ func (db *DB) Lots(ctx context.Context, processID int64, from, to time.Time) ([]
 // The lots are read from the covering index lots_read, which holds every
 // column of a lot in time order: one index scan, no lookup in the table.
 func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, fn func(Lot) error) error {
+	return db.eachLot(ctx, processID, from, to, readCols, fn)
+}
+
+func (db *DB) eachLot(ctx context.Context, processID int64, from, to time.Time, cols string, fn func(Lot) error) error {
 	p, err := db.Process(ctx, processID)
 	if err != nil {
 		return err
 	}
 	lo, hi := timeBounds(from, to)
-	return db.walkLots(ctx, p, `SELECT `+readCols+` FROM `+db.d.lotsRead+`
+	return db.walkLots(ctx, p, `SELECT `+cols+` FROM `+db.d.lotsRead+`
 		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ? ORDER BY time, id`, fn, processID, lo, hi)
 }
 
@@ -413,16 +432,17 @@ func timeBounds(from, to time.Time) (lo, hi int64) {
 	return lo, hi
 }
 
-// LotsAddedAfter returns the lots of a process with an id above afterID
-// that are not voided, in time order (then id): with LotsVersion, what a
-// reader holding the lots up to afterID lacks when only lots were added.
-func (db *DB) LotsAddedAfter(ctx context.Context, processID, afterID int64) ([]Lot, error) {
+// LotCountsAddedAfter returns, as LotCounts does, the lots of a process
+// with an id above afterID that are not voided, in time order (then id):
+// with LotsVersion, what a reader holding the lots up to afterID lacks
+// when only lots were added.
+func (db *DB) LotCountsAddedAfter(ctx context.Context, processID, afterID int64) ([]Lot, error) {
 	p, err := db.Process(ctx, processID)
 	if err != nil {
 		return nil, err
 	}
 	var out []Lot
-	err = db.walkLots(ctx, p, `SELECT `+readCols+` FROM lots
+	err = db.walkLots(ctx, p, `SELECT `+countCols+` FROM lots
 		WHERE id > ? AND process_id = ? AND voided = 0 ORDER BY time, id`, func(l Lot) error {
 		out = append(out, l)
 		return nil
@@ -430,14 +450,19 @@ func (db *DB) LotsAddedAfter(ctx context.Context, processID, afterID int64) ([]L
 	return out, err
 }
 
-// readCols are the columns walkLots reads: those of a lot that is not
-// voided, but its process.
-const readCols = "id, lot, time, shift, inspected, count, categories, inspector, note, revision, recorded, recorded_by, reason"
+// The columns walkLots reads: readCols, those of a lot that is not
+// voided but its process; countCols, the first of them, what LotCounts
+// reads.
+const (
+	countCols = "id, lot, time, shift, inspected, count, categories"
+	readCols  = countCols + ", inspector, note, revision, recorded, recorded_by, reason"
+)
 
-// walkLots runs query (selecting readCols) and calls fn with each lot of
-// process p, as EachLot describes. Each lot gets a Categories map of its
-// own; lots mostly repeat a few combinations of category counts, so each
-// stored form met is decoded once and copied after that.
+// walkLots runs query (selecting readCols or countCols) and calls fn
+// with each lot of process p, as EachLot describes. Each lot gets a
+// Categories map of its own; lots mostly repeat a few combinations of
+// category counts, so each stored form met is decoded once and copied
+// after that.
 func (db *DB) walkLots(ctx context.Context, p Process, query string, fn func(Lot) error, args ...any) error {
 	loc := p.Location()
 	rows, err := db.r.QueryContext(ctx, query, args...)
@@ -445,15 +470,21 @@ func (db *DB) walkLots(ctx context.Context, p Process, query string, fn func(Lot
 		return err
 	}
 	defer rows.Close()
+	cols, err := rows.Columns()
+	if err != nil {
+		return err
+	}
 	decoded := map[string]map[string]int64{}
 	var cats sql.RawBytes
 	// One Lot is scanned into and handed to fn by value: the pointers
 	// Scan takes would otherwise move a new Lot to the heap for each row.
 	var l Lot
 	var t, rec, rev int64 // (database/sql converts an int64 to an int64 directly)
+	dest := []any{&l.ID, &l.Lot, &t, &l.Shift, &l.Inspected, &l.Count, &cats, &l.Inspector, &l.Note, &rev, &rec, &l.RecordedBy, &l.Reason}
+	dest = dest[:len(cols)]
 	for rows.Next() {
 		l = Lot{ProcessID: p.ID}
-		if err := rows.Scan(&l.ID, &l.Lot, &t, &l.Shift, &l.Inspected, &l.Count, &cats, &l.Inspector, &l.Note, &rev, &rec, &l.RecordedBy, &l.Reason); err != nil {
+		if err := rows.Scan(dest...); err != nil {
 			return err
 		}
 		l.Revision = int(rev)

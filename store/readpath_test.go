@@ -11,10 +11,11 @@ import (
 	"lotwatch/spc"
 )
 
-// TestReadPathsAgree checks the read path of charts (Lots and EachLot,
+// TestReadPathsAgree checks the read paths (Lots and EachLot,
 // which read the covering index lots_read and decode each stored form of
-// category counts once) against LotByID, which reads the table's row:
-// every field of every lot,
+// category counts once, and the charts' LotCounts and
+// LotCountsAddedAfter) against LotByID, which reads the table's row:
+// every field of every lot (its counts only for the charts' reads),
 // over many shifts, inspectors, notes and category counts, with
 // corrections and voids among them. The reference is the row as stored
 // (a property of the store itself; no outside source applies).
@@ -75,8 +76,24 @@ func TestReadPathsAgree(t *testing.T) {
 		}); err != nil {
 			t.Fatal(err)
 		}
-		if len(lots) != len(walked) || len(lots) != len(stored)-20 {
-			t.Fatalf("Lots %d, EachLot %d", len(lots), len(walked))
+		counts, err := db.LotCounts(ctx, p.ID, time.Time{}, time.Time{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		added, err := db.LotCountsAddedAfter(ctx, p.ID, stored[999].ID)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(lots) != len(walked) || len(lots) != len(stored)-20 || len(counts) != len(lots) {
+			t.Fatalf("Lots %d, EachLot %d, LotCounts %d", len(lots), len(walked), len(counts))
+		}
+		if want := len(stored) - 1000 - 12; len(added) != want { // voided after lot 1000: 5+i*137 > 999 for i ≥ 8
+			t.Fatalf("LotCountsAddedAfter: %d lots, want %d", len(added), want)
+		}
+		for i, l := range added {
+			if !sameLot(l, countsOf(lots[len(lots)-len(added)+i])) {
+				t.Fatalf("LotCountsAddedAfter: lot %s read as\n%+v", l.Lot, l)
+			}
 		}
 		for i, l := range lots {
 			ref, err := db.LotByID(ctx, l.ID)
@@ -88,8 +105,17 @@ func TestReadPathsAgree(t *testing.T) {
 					t.Fatalf("lot %s read as\n%+v\nstored\n%+v", l.Lot, got, ref)
 				}
 			}
+			if !sameLot(counts[i], countsOf(ref)) {
+				t.Fatalf("LotCounts: lot %s read as\n%+v\nstored\n%+v", l.Lot, counts[i], ref)
+			}
 		}
 	})
+}
+
+// countsOf is what LotCounts reads of a lot: the rest left empty.
+func countsOf(l Lot) Lot {
+	return Lot{ID: l.ID, ProcessID: l.ProcessID, LotInput: LotInput{Lot: l.Lot, Time: l.Time, Shift: l.Shift,
+		Inspected: l.Inspected, Count: l.Count, Categories: l.Categories}}
 }
 
 func cloneCounts(m map[string]int64) map[string]int64 {

@@ -10,7 +10,7 @@ import (
 
 // LotsVersion moves with every write a chart is drawn from, Rewrites only
 // with those that change stored lots or how they are judged; refused and
-// repeated writes move nothing. LotsAddedAfter returns the lots added
+// repeated writes move nothing. LotCountsAddedAfter returns the lots added
 // since a given id.
 func TestLotsVersion(t *testing.T) {
 	forEachBackend(t, func(t *testing.T, open opener) {
@@ -73,7 +73,7 @@ func TestLotsVersion(t *testing.T) {
 		if chk, err := db.VerifyAudit(ctx); err != nil || !chk.OK {
 			t.Fatalf("audit: %+v %v", chk, err)
 		}
-		added, err := db.LotsAddedAfter(ctx, p.ID, got[1].ID)
+		added, err := db.LotCountsAddedAfter(ctx, p.ID, got[1].ID)
 		if err != nil || len(added) != 2 || added[0].Lot != "B1" || added[1].Lot != "A3" {
 			t.Fatalf("added after %d: %+v %v", got[1].ID, added, err)
 		}

@@ -21,7 +21,7 @@ import (
 // on against that frozen set, with the run rules running across the joins.
 type processChart struct {
 	proc  store.Process
-	lots  []store.Lot // not voided, in time order
+	lots  []store.Lot // not voided, in time order; their counts only (store.LotCounts)
 	sets  []store.LimitSet
 	setOf []int // per lot: the number of the limit set judging it, 0 for trial limits
 	a     *spc.Analysis
@@ -31,7 +31,7 @@ type processChart struct {
 // judged on the whole record, whatever window is shown afterwards, so that
 // a lot's verdict does not depend on what else is on the screen.
 func (s *Server) analyzeProcess(ctx context.Context, p store.Process) (*processChart, error) {
-	lots, err := s.db.Lots(ctx, p.ID, time.Time{}, time.Time{})
+	lots, err := s.db.LotCounts(ctx, p.ID, time.Time{}, time.Time{})
 	if err != nil {
 		return nil, err
 	}

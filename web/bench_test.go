@@ -234,7 +234,7 @@ func BenchmarkChartPageLarge(b *testing.B) {
 		return time.Since(t0) / n
 	}
 	read := timed(func() {
-		if _, err := e.db.Lots(ctx, e.proc.ID, time.Time{}, time.Time{}); err != nil {
+		if _, err := e.db.LotCounts(ctx, e.proc.ID, time.Time{}, time.Time{}); err != nil {
 			b.Fatal(err)
 		}
 	})

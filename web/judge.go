@@ -178,7 +178,7 @@ func (s *Server) chartFor(ctx context.Context, p store.Process) (*processChart, 
 	var pc *processChart
 	var maxID int64
 	if incremental {
-		added, err := s.db.LotsAddedAfter(ctx, p.ID, c.maxID)
+		added, err := s.db.LotCountsAddedAfter(ctx, p.ID, c.maxID)
 		if err != nil {
 			return nil, err
 		}

@@ -59,7 +59,7 @@ func CurrentCentre(ctx context.Context, src Source, p store.Process) (Centre, er
 		c.Source = fmt.Sprintf("centre of limit set %d, in force from %s", ls.Number, ls.EffectiveFrom.In(p.Location()).Format("2006-01-02"))
 		return c, nil
 	}
-	lots, err := src.Lots(ctx, p.ID, time.Time{}, time.Time{})
+	lots, err := src.LotCounts(ctx, p.ID, time.Time{}, time.Time{})
 	if err != nil {
 		return c, fmt.Errorf("reading lots of %q: %w", p.Name, err)
 	}

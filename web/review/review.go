@@ -33,7 +33,8 @@ import (
 // Source is what the review reads from the store.
 type Source interface {
 	Processes(ctx context.Context, includeRetired bool) ([]store.Process, error)
-	Lots(ctx context.Context, processID int64, from, to time.Time) ([]store.Lot, error)
+	// LotCounts: the review reads no inspector, note or record of who logged a lot.
+	LotCounts(ctx context.Context, processID int64, from, to time.Time) ([]store.Lot, error)
 	LimitSets(ctx context.Context, processID int64) ([]store.LimitSet, error)
 	Annotations(ctx context.Context, processID int64) ([]store.Annotation, error)
 }
@@ -551,7 +552,7 @@ func readJudged(ctx context.Context, src Source, p store.Process, from, to time.
 	if judged != nil {
 		var jr judgedRecord
 		jr.f, jr.err = judged(ctx, p)
-		lots, err := src.Lots(ctx, p.ID, from, to)
+		lots, err := src.LotCounts(ctx, p.ID, from, to)
 		if err != nil {
 			return nil, jr, fmt.Errorf("reading lots: %w", err)
 		}
@@ -562,7 +563,7 @@ func readJudged(ctx context.Context, src Source, p store.Process, from, to time.
 	// record, as on the chart page (trial limits from all lots before the
 	// first frozen set), so that a lot's verdict is the same wherever it
 	// is shown.
-	all, err := src.Lots(ctx, p.ID, time.Time{}, time.Time{})
+	all, err := src.LotCounts(ctx, p.ID, time.Time{}, time.Time{})
 	if err != nil {
 		return nil, judgedRecord{}, fmt.Errorf("reading lots: %w", err)
 	}

@@ -38,7 +38,7 @@ func (f *fakeSource) Processes(_ context.Context, retired bool) ([]store.Process
 }
 
 // Lots keeps from ≤ time < to, as the store contract says.
-func (f *fakeSource) Lots(_ context.Context, id int64, from, to time.Time) ([]store.Lot, error) {
+func (f *fakeSource) LotCounts(_ context.Context, id int64, from, to time.Time) ([]store.Lot, error) {
 	var out []store.Lot
 	for _, l := range f.lots[id] {
 		if (from.IsZero() || !l.Time.Before(from)) && (to.IsZero() || l.Time.Before(to)) {
