@@ -9,6 +9,8 @@ import (
 // TestNum checks that an undefined figure is written as JSON null and
 // every other as the shortest number that reads back the same (the
 // exact contract of the API and `lotwatch analyze`: numbers or null).
+// Source: RFC 8259 §6, a JSON number has no NaN or infinity; the
+// shortest form that reads back is strconv's 'g' with precision -1.
 func TestNum(t *testing.T) {
 	for _, tc := range []struct {
 		in   float64
