@@ -66,7 +66,13 @@ func (db *DB) AllLotsVersions(ctx context.Context) (map[int64]LotsVersion, error
 // FileSchemaVersion reads the schema version of the database file at
 // path without changing it (no migration is applied): what `lotwatch
 // version --db` reports beside SchemaVersion.
+//
+// For a PostgreSQL URL it reads the database's schema_migrations (0 for
+// a database lotwatch has not used yet).
 func FileSchemaVersion(ctx context.Context, path string) (int, error) {
+	if IsURL(path) {
+		return postgresSchemaVersion(ctx, path)
+	}
 	if _, err := os.Stat(path); err != nil {
 		return 0, fmt.Errorf("store: %w", err)
 	}
@@ -78,6 +84,37 @@ func FileSchemaVersion(ctx context.Context, path string) (int, error) {
 	var v int
 	if err := f.QueryRowContext(ctx, "SELECT COALESCE(MAX(version), 0) FROM schema_migrations").Scan(&v); err != nil {
 		return 0, fmt.Errorf("store: %s is not a lotwatch database: %w", path, err)
+	}
+	return v, nil
+}
+
+// SchemaVersionFor is the schema version this build writes in the
+// database db names: SchemaVersion for a file, the number of PostgreSQL
+// migrations for a URL.
+func SchemaVersionFor(db string) int {
+	if !IsURL(db) {
+		return SchemaVersion()
+	}
+	ms, _ := migrationsOf(postgresDialect)
+	return len(ms)
+}
+
+func postgresSchemaVersion(ctx context.Context, raw string) (int, error) {
+	db, err := rawPostgres(raw)
+	if err != nil {
+		return 0, err
+	}
+	defer db.Close()
+	var exists bool
+	if err := db.QueryRowContext(ctx, "SELECT to_regclass('schema_migrations') IS NOT NULL").Scan(&exists); err != nil {
+		return 0, fmt.Errorf("store: %s: %w: %w", Redact(raw), ErrUnreachable, scrub(err, secretsOf(raw)))
+	}
+	if !exists {
+		return 0, nil
+	}
+	var v int
+	if err := db.QueryRowContext(ctx, "SELECT COALESCE(MAX(version), 0) FROM schema_migrations").Scan(&v); err != nil {
+		return 0, scrub(err, secretsOf(raw))
 	}
 	return v, nil
 }

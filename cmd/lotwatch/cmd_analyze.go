@@ -276,7 +276,7 @@ func (o analyzeOptions) readOptions(stderr io.Writer, chart spc.Chart) (lotcsv.O
 	if o.db == "" {
 		return lotcsv.Options{}, cliProblems(stderr, "analyze", "--process needs --db FILE, the database that holds it"), false
 	}
-	if _, err := os.Stat(o.db); err != nil {
+	if cliNoFile(o.db) {
 		return lotcsv.Options{}, cliProblems(stderr, "analyze", fmt.Sprintf("--db %s: no such database file", o.db)), false
 	}
 	db, code, ok := cliOpen(stderr, "analyze", o.db)

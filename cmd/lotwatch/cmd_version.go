@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"io"
 	"runtime/debug"
@@ -82,17 +83,21 @@ func runVersion(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fmt.Fprintf(stdout, "schema:     %d (the version this build writes)\n", store.SchemaVersion())
 	if *dbPath != "" {
 		v, err := store.FileSchemaVersion(context.Background(), *dbPath)
-		if err != nil {
-			return cliProblems(stderr, "version", fmt.Sprintf("--db %s: %v", *dbPath, err))
+		if errors.Is(err, store.ErrUnreachable) {
+			fmt.Fprintf(stderr, "lotwatch version: %v\n", err)
+			return exitFail
 		}
-		note := "the same"
+		if err != nil {
+			return cliProblems(stderr, "version", fmt.Sprintf("--db %s: %v", store.Redact(*dbPath), err))
+		}
+		note, writes := "the same", store.SchemaVersionFor(*dbPath) // PostgreSQL has its own numbering
 		switch {
-		case v < store.SchemaVersion():
+		case v < writes:
 			note = "older: this lotwatch upgrades it when it opens it to write"
-		case v > store.SchemaVersion():
+		case v > writes:
 			note = "newer than this lotwatch: use a newer build"
 		}
-		fmt.Fprintf(stdout, "database:   %s, schema %d (%s)\n", *dbPath, v, note)
+		fmt.Fprintf(stdout, "database:   %s, schema %d (%s)\n", store.Redact(*dbPath), v, note)
 	}
 	return exitOK
 }
