@@ -107,7 +107,7 @@ func (s *Server) fail(w http.ResponseWriter, r *http.Request, err error) {
 	case errors.Is(err, store.ErrUnavailable):
 		s.log.Warn("the database server is unavailable", "method", r.Method, "path", r.URL.Path, "err", err)
 		msg = "The database server cannot be reached just now; try again shortly."
-	case status == http.StatusServiceUnavailable:
+	case errors.Is(err, store.ErrReadOnly):
 		msg = "This database is served read-only (lotwatch cannot write its file): it can be read, but nothing can be changed."
 	case errors.As(err, &tooBig):
 		msg = "the request body is larger than " + strconv.FormatInt(tooBig.Limit, 10) + " bytes"
