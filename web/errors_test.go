@@ -49,6 +49,7 @@ func TestStatusOf(t *testing.T) {
 		{"web: a file over its limit", refuse(errTooLarge, "The file is larger than 8 MiB.", ""), 413},
 		{"web: too many attempts", refuse(errTooMany, "Too many attempts.", ""), 429},
 		{"store: read-only database", wrapped(store.ErrReadOnly), 503},
+		{"store: database server out of reach", wrapped(store.ErrUnavailable), 503},
 		{"web: as many waiting uploads as kept", errBusy, 503},
 		{"anything else", errors.New("disk I/O error"), 500},
 	} {
