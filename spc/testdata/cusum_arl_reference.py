@@ -63,6 +63,19 @@ def lattice_arl(mean, k, h):
     return float(arl[0])
 
 
+def bernoulli_arl(p, m, h):
+    """Exact zero-start ARL of the Bernoulli CUSUM in whole units: a
+    conforming unit takes 1 off S (not below 0), a nonconforming one adds
+    m; signal at S >= h: states 0 .. h-1."""
+    q = np.zeros((h, h))
+    for j in range(h):
+        q[j, max(j - 1, 0)] += 1 - p
+        if j + m < h:
+            q[j, j + m] += p
+    arl = np.linalg.solve(np.eye(h) - q, np.ones(h))
+    return float(arl[0])
+
+
 def main():
     out = {
         "scipy": scipy.__version__,
@@ -70,6 +83,7 @@ def main():
         "normal": [],
         "poisson_lattice": [],
         "poisson_off_lattice": [],
+        "bernoulli": [],
     }
     for h in (4.0, 5.0):
         for shift in (0.0, 0.5, 1.0, 2.0):
@@ -90,6 +104,16 @@ def main():
             out["poisson_off_lattice"].append({"c0": c0, "c1": c1, "k": k, "h": h,
                                                "h_score": h * math.log(c1 / c0), "mean": mean,
                                                "arl": lattice_arl(mean, k, math.ceil(h))})
+    # The Bernoulli CUSUM of lots of one unit, p0 = 1 %, p1 near 2 %
+    # chosen so that a nonconforming unit scores m times what a
+    # conforming one loses: in units of that loss S is whole.
+    p0, m = 0.01, 68
+    p1 = optimize.brentq(lambda p: math.log(p / p0) + m * math.log((1 - p) / (1 - p0)), 0.015, 0.03, xtol=1e-15, rtol=1e-15)
+    b = -math.log((1 - p1) / (1 - p0))
+    for h in (200.5, 295.5):
+        for p in (p0, p1):
+            out["bernoulli"].append({"p0": p0, "p1": p1, "m": m, "h": h, "h_score": h * b,
+                                     "p": p, "arl": bernoulli_arl(p, m, math.ceil(h))})
     path = os.path.join(os.path.dirname(os.path.abspath(__file__)), "cusum_arl_reference.json")
     with open(path, "w") as f:
         json.dump(out, f, indent=1)
