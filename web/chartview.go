@@ -79,7 +79,7 @@ func (v viewPoint) Verdict() string {
 	return "within limits"
 }
 
-// viewSignal is a run-rule signal as the page lists it.
+// viewSignal is a signal (run rule, CUSUM or EWMA) as the page lists it.
 type viewSignal struct {
 	Rule        string
 	Description string
@@ -112,7 +112,8 @@ type chartView struct {
 	Limits      string
 	Trial       bool
 	OutCount    int
-	SignalCount int
+	SignalCount int // signals of the run rules and of the CUSUM and EWMA
+	ShiftCount  int // those of the CUSUM and EWMA
 	Method      string
 	K           float64
 	Rate        float64
@@ -348,7 +349,22 @@ func causeNotes(l store.Lot, anns []store.Annotation, pooled bool) []string {
 	return notes
 }
 
-// addSignals adds the run-rule signals that touch the points lo ≤ k < hi,
+// SignalWords counts the period's signals in words, the small shifts
+// (CUSUM, EWMA) apart from the run rules' patterns.
+func (v *chartView) SignalWords() string {
+	run := v.SignalCount - v.ShiftCount
+	switch {
+	case v.SignalCount == 0:
+		return "no signal"
+	case v.ShiftCount == 0:
+		return plural(run, "run-rule signal", "run-rule signals")
+	case run == 0:
+		return plural(v.ShiftCount, "small-shift signal", "small-shift signals")
+	}
+	return plural(run, "run-rule signal", "run-rule signals") + " and " + plural(v.ShiftCount, "small-shift signal", "small-shift signals")
+}
+
+// addSignals adds the signals (run rules, CUSUM, EWMA) that touch the points lo ≤ k < hi,
 // each with the causes recorded for its lots.
 func (v *chartView) addSignals(pc *processChart, gs [][2]int, a *spc.Analysis, lo, hi int, byLotID map[int64][]store.Annotation) {
 	for _, sg := range a.Signals {
@@ -369,6 +385,11 @@ func (v *chartView) addSignals(pc *processChart, gs [][2]int, a *spc.Analysis, l
 		v.Signals = append(v.Signals, vs)
 	}
 	v.SignalCount = len(v.Signals)
+	for _, sg := range a.Signals {
+		if sg.Rule.Kind() == "shift" && sg.Last >= lo && sg.First < hi {
+			v.ShiftCount++
+		}
+	}
 }
 
 // addRecordNotes adds the notes about the limits the lots are judged

@@ -144,7 +144,7 @@ func TestE2EShiftMonitorCharts(t *testing.T) {
 		if ep.Signal {
 			shiftLots[i] = true
 		}
-		if onMain := marked(main["run-rule signal"], i) || marked(main["out of limits"], i); onMain != shiftLots[i] {
+		if onMain := marked(main["in a signal"], i) || marked(main["out of limits"], i); onMain != shiftLots[i] {
 			t.Errorf("lot %s: marked on the control chart %v; takes part in a shift signal %v", codes[i], onMain, shiftLots[i])
 		}
 	}

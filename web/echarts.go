@@ -111,7 +111,7 @@ func chartOptions(title string, v *chartView, idx []int) (options map[string]any
 	marksOut.AddSeries("out of limits", out,
 		charts.WithScatterChartOpts(opts.ScatterChart{Symbol: "diamond", SymbolSize: 13}),
 		charts.WithItemStyleOpts(opts.ItemStyle{Color: colourOut}))
-	marksOut.AddSeries("run-rule signal", sig,
+	marksOut.AddSeries("in a signal", sig,
 		charts.WithScatterChartOpts(opts.ScatterChart{Symbol: "triangle", SymbolSize: 10}),
 		charts.WithItemStyleOpts(opts.ItemStyle{Color: colourSignal}))
 	line.Overlap(marksOut)

@@ -69,6 +69,14 @@ func TestShiftSignalsOnTheChart(t *testing.T) {
 	if page.Code != 200 || !strings.Contains(page.Body.String(), "cusum") {
 		t.Errorf("chart page %d does not list the CUSUM signal", page.Code)
 	}
+	// The summary counts the small shifts apart from the run rules'
+	// patterns, as the API's kinds do.
+	shifts := kinds["cusum"] + kinds["ewma"]
+	want := plural(shifts, "small-shift signal", "small-shift signals")
+	if !strings.Contains(page.Body.String(), "▲ "+plural(len(got.Signals)-shifts, "run-rule signal", "run-rule signals")+" and "+want) &&
+		!strings.Contains(page.Body.String(), "▲ "+want) {
+		t.Errorf("chart page summary does not count %s", want)
+	}
 }
 
 // TestPlanPageComparesCUSUM: for a lot size and a shift, the planning
