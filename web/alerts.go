@@ -317,19 +317,19 @@ func (s *Server) addAlertRule(w http.ResponseWriter, r *http.Request) {
 			return
 		}
 	}
-	s.showAlerts(w, r, http.StatusBadRequest, vals, on, problems)
+	s.showAlerts(w, r, statusOf(errFormRefused), vals, on, problems)
 }
 
 // pathAlertRule reads the rule of the path; false when answered.
 func (s *Server) pathAlertRule(w http.ResponseWriter, r *http.Request) (store.AlertRule, bool) {
 	id, err := strconv.ParseInt(chi.URLParam(r, "rule"), 10, 64)
 	if err != nil {
-		s.pageError(w, r, http.StatusNotFound, "There is no such alert rule.")
+		s.fail(w, r, refuse(store.ErrNotFound, "no such alert rule", "There is no such alert rule."))
 		return store.AlertRule{}, false
 	}
 	rule, err := s.db.AlertRule(r.Context(), id)
 	if errors.Is(err, store.ErrNotFound) || (err == nil && !rule.Active) {
-		s.pageError(w, r, http.StatusNotFound, "There is no such alert rule (it may have been removed).")
+		s.fail(w, r, refuse(store.ErrNotFound, "no such alert rule", "There is no such alert rule (it may have been removed)."))
 		return store.AlertRule{}, false
 	}
 	if err != nil {

@@ -5,6 +5,7 @@ import (
 	"context"
 	"encoding/json"
 	"errors"
+	"fmt"
 	"io"
 	"net/http"
 	"net/url"
@@ -374,20 +375,16 @@ func (s *Server) apiPostCause(w http.ResponseWriter, r *http.Request) {
 	}
 	code, err := pathLotCode(r)
 	if err != nil {
-		writeError(w, http.StatusBadRequest, "the lot code in the path is not a valid escaped path segment: "+err.Error())
+		s.fail(w, r, invalid("the lot code in the path is not a valid escaped path segment: "+err.Error()))
 		return
 	}
 	a, ps, err := decodeCause(r.Body)
 	if err != nil {
-		if statusOf(err) == http.StatusRequestEntityTooLarge {
-			s.fail(w, r, err)
-			return
-		}
-		writeError(w, http.StatusBadRequest, "reading the request body: "+err.Error())
+		s.fail(w, r, invalidBecause(fmt.Errorf("reading the request body: %w", err))) // 413 when too large
 		return
 	}
 	if len(ps) > 0 {
-		writeJSON(w, http.StatusBadRequest, apiError{Error: problemsMessage(ps), Problems: ps})
+		s.fail(w, r, &fieldProblems{problemsMessage(ps), ps})
 		return
 	}
 	l, found, err := s.lotByCode(r.Context(), p, code)
@@ -396,7 +393,7 @@ func (s *Server) apiPostCause(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	if !found {
-		writeError(w, http.StatusNotFound, "process "+strconv.Quote(p.Name)+" has no lot "+strconv.Quote(code)+" (voided lots take no cause)")
+		s.fail(w, r, refuse(store.ErrNotFound, "process "+strconv.Quote(p.Name)+" has no lot "+strconv.Quote(code)+" (voided lots take no cause)", ""))
 		return
 	}
 	a.ProcessID, a.LotID = p.ID, l.ID
@@ -407,7 +404,7 @@ func (s *Server) apiPostCause(w http.ResponseWriter, r *http.Request) {
 		for _, pr := range ve.Problems {
 			ps = append(ps, apiProblem{Field: pr.Field, Value: pr.Value, Reason: pr.Reason})
 		}
-		writeJSON(w, http.StatusBadRequest, apiError{Error: problemsMessage(ps), Problems: ps})
+		s.fail(w, r, &fieldProblems{problemsMessage(ps), ps})
 		return
 	case err != nil:
 		s.fail(w, r, err)

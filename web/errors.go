@@ -91,6 +91,16 @@ func invalidBecause(err error) error {
 	return &problem{kind: store.ErrInvalid, api: err.Error(), cause: err}
 }
 
+// fieldProblems is bad input (400) found field by field: the API answers
+// with the list and msg, a page with msg.
+type fieldProblems struct {
+	msg  string
+	list []apiProblem
+}
+
+func (fp *fieldProblems) Error() string { return fp.msg }
+func (fp *fieldProblems) Unwrap() error { return store.ErrInvalid }
+
 // fail answers err with statusOf(err): as JSON for the API, as a page
 // otherwise. The message of a 4xx names what was wrong (a list of
 // problems, when err has them, goes into the API's answer whole); a 500
@@ -119,8 +129,13 @@ func (s *Server) fail(w http.ResponseWriter, r *http.Request, err error) {
 	}
 	if isAPI(r) {
 		var lp *lotProblems
-		if status == http.StatusBadRequest && errors.As(err, &lp) {
+		var fp *fieldProblems
+		switch {
+		case status == http.StatusBadRequest && errors.As(err, &lp):
 			writeJSON(w, status, lp.answer())
+			return
+		case status == http.StatusBadRequest && errors.As(err, &fp):
+			writeJSON(w, status, apiError{Error: fp.msg, Problems: fp.list})
 			return
 		}
 		writeError(w, status, msg)

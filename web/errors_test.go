@@ -77,6 +77,8 @@ func TestFailAnswersPagesAndAPIAlike(t *testing.T) {
 		{"not found", refuse(store.ErrNotFound, "no process with id 9", "There is no process with id 9."), 404, "no process with id 9", "There is no process with id 9.", 0},
 		{"bad input", invalid("process id \"x\" is not a positive whole number"), 400, "process id \"x\" is not a positive whole number", "is not a positive whole number", 0},
 		{"problems of posted lots", lp, 400, "invalid lot; nothing was stored: count", "invalid lot; nothing was stored", 1},
+		{"problems of a posted cause", &fieldProblems{"the cause was not recorded: cause is empty", []apiProblem{{Field: "cause", Reason: "is empty"}}}, 400,
+			"the cause was not recorded: cause is empty", "the cause was not recorded", 1},
 		{"read-only database", fmt.Errorf("adding lot B7: %w", store.ErrReadOnly), 503, "This database is served read-only", "This database is served read-only", 0},
 		{"busy", refuse(errBusy, "12 uploads are waiting for confirmation", ""), 503, "12 uploads are waiting for confirmation", "12 uploads are waiting for confirmation", 0},
 		{"conflict", refuse(store.ErrConflict, "lot B7 is stored with other values", ""), 409, "lot B7 is stored with other values", "lot B7 is stored with other values", 0},

@@ -76,7 +76,7 @@ func (s *Server) reviewPage(w http.ResponseWriter, r *http.Request) {
 	switch {
 	case errors.As(err, &oe):
 		d.Problem = oe.Error() + " (write the week as 2026-W48)"
-		s.render(w, r, http.StatusBadRequest, "review.html", "Weekly review", d)
+		s.render(w, r, statusOf(errFormRefused), "review.html", "Weekly review", d)
 		return
 	case err != nil:
 		s.internalError(w, r, err)
@@ -235,7 +235,7 @@ func (s *Server) planPage(w http.ResponseWriter, r *http.Request) {
 	}
 	fail := func(msg string) {
 		d.Problem = msg
-		s.render(w, r, http.StatusBadRequest, "plan.html", "Planning", d)
+		s.render(w, r, statusOf(errFormRefused), "plan.html", "Planning", d)
 	}
 	d.Selected, _ = strconv.ParseInt(d.Values["process"], 10, 64)
 	var proc *store.Process
