@@ -10,6 +10,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"hash"
 	"io"
 	"strconv"
 	"strings"
@@ -114,123 +115,218 @@ func (db *DB) Import(ctx context.Context, actor string, r io.Reader, opt ImportO
 	}
 	var res ImportResult
 	err := db.write(ctx, func(w *wtx) error {
-		res = ImportResult{}
-		h := sha256.New()
-		cr := &countingReader{r: io.TeeReader(r, h)}
-		p, err := processByName(w, opt.Process)
-		create := false
-		if errors.Is(err, ErrNotFound) && opt.Create {
-			create = true
-		} else if err != nil {
+		f := &sheetImport{ctx: ctx, w: w, actor: actor, opt: opt, max: max, h: sha256.New()}
+		f.cr = &countingReader{r: io.TeeReader(r, f.h)}
+		defer f.close()
+		if err := f.open(); err != nil {
 			return err
 		}
-		ropt := p.ReadOptions()
-		if create {
-			tz := opt.TimeZone
-			if tz == "" {
-				tz = "UTC"
-			}
-			p = Process{Name: opt.Process, TimeZone: tz}
-			ropt = lotcsv.Options{CategoriesFromHeader: true, Location: p.Location()}
-		}
-		ropt.MaxProblems, ropt.Sheet, ropt.Ignore = max, opt.Sheet, opt.Ignore
-		rd, err := lotcsv.NewReader(cr, ropt)
-		if err != nil {
-			var ps lotcsv.Problems
-			if errors.As(err, &ps) {
-				return &ValidationError{Problems: fileProblems(ps)}
-			}
+		if err := f.readRows(); err != nil {
 			return err
 		}
-		if create {
-			p.Chart = spc.ChartP
-			if rd.CountColumn() == lotcsv.ColDefects {
-				p.Chart = spc.ChartU
-			}
-			p.Categories = append([]string(nil), rd.Categories()...)
-			if p, err = w.addActiveProcess(actor, p); err != nil {
-				return err
-			}
-			res.Created = true
-		} else if !p.Active {
-			return errRetired(p)
-		}
-		res.Process = p
-		a, err := w.newLotAdder(actor, p)
-		if err != nil {
+		if err := f.record(); err != nil {
 			return err
 		}
-		defer a.close()
-		a.skipConflicts = opt.SkipConflicts
-		cmp := compareFields{time: rd.Has(lotcsv.ColTime), shift: rd.Has(lotcsv.ColShift), inspector: rd.Has(lotcsv.ColInspector),
-			note: rd.Has(lotcsv.ColNote), categories: rd.Categories()}
-		ve := &ValidationError{}
-		problem := func(pr Problem) {
-			if pr.Line > 0 && pr.Sheet == "" {
-				pr.Sheet = rd.Sheet()
-			}
-			if len(ve.Problems) < max {
-				ve.Problems = append(ve.Problems, pr)
-			} else {
-				ve.More++
-			}
-		}
-		var met bitset
-		for {
-			if err := ctx.Err(); err != nil {
-				return err
-			}
-			row, err := rd.Next()
-			if err == io.EOF {
-				break
-			}
-			res.Rows++
-			if opt.Progress != nil && res.Rows%8192 == 0 {
-				opt.Progress(res.Rows, cr.n)
-			}
-			var rps lotcsv.Problems
-			if errors.As(err, &rps) {
-				for _, pr := range rps {
-					problem(Problem(pr))
-				}
-				continue
-			}
-			if err != nil {
-				return fmt.Errorf("store: import: %w", err)
-			}
-			in := LotInput{Lot: row.Lot, Time: row.Time, Shift: row.Shift, Inspected: row.Inspected, Count: row.Count,
-				Categories: row.Categories, Inspector: row.Inspector, Note: row.Note}
-			if ps := validateLot(p, in, w.now); len(ps) > 0 {
-				for _, pr := range ps {
-					if pr.Field == "defective" || pr.Field == "defects" {
-						pr.Field = rd.CountColumn()
-					}
-					pr.Line = row.Line
-					problem(pr)
-				}
-				continue
-			}
-			if err := a.place(&in, row.Line, cmp, &met, &res, problem, max); err != nil {
-				return err
-			}
-		}
-		if opt.Progress != nil {
-			opt.Progress(res.Rows, cr.n)
-		}
-		if len(ve.Problems) > 0 {
-			return ve
-		}
-		res.FileSHA256 = hex.EncodeToString(h.Sum(nil))
-		if err := a.finish("import", nil, map[string]any{"file_sha256": res.FileSHA256, "rows": res.Rows,
-			"unchanged": res.Unchanged, "conflicts": len(res.Conflicts) + res.MoreConflicts}); err != nil {
-			return err
-		}
-		return a.queueAlertImport()
+		res = f.res
+		return nil
 	})
 	if err != nil {
 		return ImportResult{}, err
 	}
 	return res, nil
+}
+
+// sheetImport is one CSV or XLSX lot file on its way into a process,
+// inside one write transaction: the file is either taken whole or not at
+// all.
+type sheetImport struct {
+	ctx   context.Context
+	w     *wtx
+	actor string
+	opt   ImportOptions
+	max   int
+
+	h  hash.Hash       // the file's SHA-256, for the audit trail
+	cr *countingReader // bytes read, for progress
+	rd *lotcsv.Reader
+	ve ValidationError // every problem found, up to max
+
+	p   Process   // the process the lots go into
+	a   *lotAdder // nil until the process is known
+	cmp compareFields
+	met bitset // lot codes met in the file
+	res ImportResult
+}
+
+// close releases the lot adder, if the process was reached.
+func (f *sheetImport) close() {
+	if f.a != nil {
+		f.a.close()
+	}
+}
+
+// open finds the process, reads the file's header against it (or, for a
+// process to be made, takes the categories from the header) and makes the
+// process if asked. A retired process takes no lots.
+func (f *sheetImport) open() error {
+	p, err := processByName(f.w, f.opt.Process)
+	create := false
+	if errors.Is(err, ErrNotFound) && f.opt.Create {
+		create = true
+	} else if err != nil {
+		return err
+	}
+	ropt := p.ReadOptions()
+	if create {
+		tz := f.opt.TimeZone
+		if tz == "" {
+			tz = "UTC"
+		}
+		p = Process{Name: f.opt.Process, TimeZone: tz}
+		ropt = lotcsv.Options{CategoriesFromHeader: true, Location: p.Location()}
+	}
+	if err := f.openReader(ropt); err != nil {
+		return err
+	}
+	if create {
+		if p, err = f.createProcess(p); err != nil {
+			return err
+		}
+	} else if !p.Active {
+		return errRetired(p)
+	}
+	f.p, f.res.Process = p, p
+	f.a, err = f.w.newLotAdder(f.actor, p)
+	if err != nil {
+		return err
+	}
+	f.a.skipConflicts = f.opt.SkipConflicts
+	f.cmp = f.comparedFields()
+	return nil
+}
+
+// openReader reads the file's header: a header the reader cannot match
+// (an unknown column, a column missing) is the file's problem, with
+// nothing written.
+func (f *sheetImport) openReader(ropt lotcsv.Options) error {
+	ropt.MaxProblems, ropt.Sheet, ropt.Ignore = f.max, f.opt.Sheet, f.opt.Ignore
+	rd, err := lotcsv.NewReader(f.cr, ropt)
+	if err != nil {
+		var ps lotcsv.Problems
+		if errors.As(err, &ps) {
+			return &ValidationError{Problems: fileProblems(ps)}
+		}
+		return err
+	}
+	f.rd = rd
+	return nil
+}
+
+// createProcess makes p from the file's columns: a u chart when the file
+// counts defects, else a p chart; its categories are the file's extra
+// columns.
+func (f *sheetImport) createProcess(p Process) (Process, error) {
+	p.Chart = spc.ChartP
+	if f.rd.CountColumn() == lotcsv.ColDefects {
+		p.Chart = spc.ChartU
+	}
+	p.Categories = append([]string(nil), f.rd.Categories()...)
+	p, err := f.w.addActiveProcess(f.actor, p)
+	if err != nil {
+		return p, err
+	}
+	f.res.Created = true
+	return p, nil
+}
+
+// comparedFields are the fields a stored lot is compared on: only those
+// the file has, so a file without a time column does not conflict on time.
+func (f *sheetImport) comparedFields() compareFields {
+	rd := f.rd
+	return compareFields{time: rd.Has(lotcsv.ColTime), shift: rd.Has(lotcsv.ColShift), inspector: rd.Has(lotcsv.ColInspector),
+		note: rd.Has(lotcsv.ColNote), categories: rd.Categories()}
+}
+
+// problem notes a bad row, on its sheet, and reading goes on, so that the
+// user sees every bad line of the file at once (up to the cap).
+func (f *sheetImport) problem(pr Problem) {
+	if pr.Line > 0 && pr.Sheet == "" {
+		pr.Sheet = f.rd.Sheet()
+	}
+	if len(f.ve.Problems) < f.max {
+		f.ve.Problems = append(f.ve.Problems, pr)
+	} else {
+		f.ve.More++
+	}
+}
+
+// readRows reads the file row by row: each row is checked against the
+// rules every lot obeys and placed (added, found unchanged, or a
+// conflict); a bad row is noted and reading goes on.
+func (f *sheetImport) readRows() error {
+	for {
+		if err := f.ctx.Err(); err != nil {
+			return err
+		}
+		row, err := f.rd.Next()
+		if err == io.EOF {
+			return nil
+		}
+		f.res.Rows++
+		if f.opt.Progress != nil && f.res.Rows%8192 == 0 {
+			f.opt.Progress(f.res.Rows, f.cr.n)
+		}
+		var rps lotcsv.Problems
+		if errors.As(err, &rps) {
+			for _, pr := range rps {
+				f.problem(Problem(pr))
+			}
+			continue
+		}
+		if err != nil {
+			return fmt.Errorf("store: import: %w", err)
+		}
+		if err := f.readRow(row); err != nil {
+			return err
+		}
+	}
+}
+
+// readRow checks one well-formed row against the rules every lot of the
+// process obeys, naming the count by the file's column, and places it.
+func (f *sheetImport) readRow(row lotcsv.Row) error {
+	in := LotInput{Lot: row.Lot, Time: row.Time, Shift: row.Shift, Inspected: row.Inspected, Count: row.Count,
+		Categories: row.Categories, Inspector: row.Inspector, Note: row.Note}
+	if ps := validateLot(f.p, in, f.w.now); len(ps) > 0 {
+		for _, pr := range ps {
+			if pr.Field == "defective" || pr.Field == "defects" {
+				pr.Field = f.rd.CountColumn()
+			}
+			pr.Line = row.Line
+			f.problem(pr)
+		}
+		return nil
+	}
+	return f.a.place(&in, row.Line, f.cmp, &f.met, &f.res, f.problem, f.max)
+}
+
+// record ends a file read without a problem: the lots are written with
+// one audit entry naming the file by its SHA-256, and one alert for the
+// import. Any problem in the file and nothing is written.
+func (f *sheetImport) record() error {
+	if f.opt.Progress != nil {
+		f.opt.Progress(f.res.Rows, f.cr.n)
+	}
+	if len(f.ve.Problems) > 0 {
+		return &f.ve
+	}
+	res := &f.res
+	res.FileSHA256 = hex.EncodeToString(f.h.Sum(nil))
+	if err := f.a.finish("import", nil, map[string]any{"file_sha256": res.FileSHA256, "rows": res.Rows,
+		"unchanged": res.Unchanged, "conflicts": len(res.Conflicts) + res.MoreConflicts}); err != nil {
+		return err
+	}
+	return f.a.queueAlertImport()
 }
 
 func processByName(w *wtx, name string) (Process, error) {
