@@ -199,136 +199,195 @@ func runProcessAdd(args []string, stdout, stderr io.Writer) int {
 
 func runProcessUpdate(args []string, stdout, stderr io.Writer) int {
 	fs := cliFlags("process update")
-	dbPath := fs.String("db", "", "")
-	name := fs.String("name", "", "")
-	desc := fs.String("description", "", "")
-	area := fs.String("area", "", "")
-	limits := fs.String("limits", "", "")
-	sigma := fs.String("sigma", "", "")
-	rules := fs.String("rules", "", "")
-	cats := fs.String("categories", "", "")
-	tz := fs.String("tz", "", "")
-	mon := monitorFlags(fs)
-	retire := fs.Bool("retire", false, "")
-	activate := fs.Bool("activate", false, "")
-	reason := fs.String("reason", "", "")
-	cmap := fs.String("map", "", "")
-	dateOrder := fs.String("date-order", "", "")
-	as := fs.String("as", "", "")
+	u := processUpdateFlags(fs)
 	pos, code, done := cliParse(fs, args, processHelp, stdout, stderr)
 	if done {
 		return code
 	}
-	set := map[string]bool{}
-	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
-	probs := cliRequire("process update", "db", *dbPath, "name", *name)
-	if strings.TrimSpace(*reason) == "" {
-		probs = append(probs, "--reason is required: say why the process changes")
-	}
-	probs = append(probs, cliNoArgs(pos)...)
-	if *retire && *activate {
-		probs = append(probs, "--retire and --activate exclude each other")
-	}
-	changes := 0
-	for _, f := range []string{"description", "area", "limits", "sigma", "rules", "categories", "tz", "retire", "activate", "map", "date-order", "cusum-shift", "cusum-arl0", "ewma-lambda", "ewma-width"} {
-		if set[f] {
-			changes++
-		}
-	}
-	if changes == 0 {
-		probs = append(probs, "nothing to change: give --description, --area, --limits, --sigma, --rules, --categories, --tz, --map, --date-order, a monitor option, --retire or --activate")
-	}
-	newMap, mprobs := parseColumnMap(*cmap)
-	probs = append(probs, mprobs...)
-	var monitors spc.Monitors
-	probs = append(probs, mon.apply(&monitors, set)...)
-	var method spc.Method
-	if set["limits"] {
-		m, err := spc.ParseMethod(*limits)
-		if err != nil {
-			probs = append(probs, fmt.Sprintf("--limits %q: want sigma, exact or laney", *limits))
-		}
-		method = m
-	}
-	var k float64
-	if set["sigma"] {
-		v, err := strconv.ParseFloat(*sigma, 64)
-		if err != nil || !(v > 0 && v <= 10) {
-			probs = append(probs, fmt.Sprintf("--sigma %q: want a number greater than 0 and at most 10", *sigma))
-		}
-		k = v
-	}
-	if set["tz"] {
-		if _, err := time.LoadLocation(*tz); err != nil || *tz == "" || *tz == "Local" {
-			probs = append(probs, fmt.Sprintf("--tz %q: want an IANA time zone name such as Europe/Berlin or UTC", *tz))
-		}
-	}
-	if len(probs) > 0 {
+	fs.Visit(func(f *flag.Flag) { u.set[f.Name] = true })
+	if probs := u.check(pos); len(probs) > 0 {
 		return cliProblems(stderr, "process update", probs...)
 	}
-	if cliNoFile(*dbPath) {
-		return cliProblems(stderr, "process update", fmt.Sprintf("--db %s: no such database file", *dbPath))
+	if cliNoFile(*u.dbPath) {
+		return cliProblems(stderr, "process update", fmt.Sprintf("--db %s: no such database file", *u.dbPath))
 	}
-	db, code, ok := cliOpen(stderr, "process update", *dbPath)
+	db, code, ok := cliOpen(stderr, "process update", *u.dbPath)
 	if !ok {
 		return code
 	}
 	defer db.Close()
 	ctx := context.Background()
-	p, err := db.ProcessByName(ctx, *name)
+	p, err := db.ProcessByName(ctx, *u.name)
 	if err != nil {
 		return cliStoreError(stderr, "process update", "", err)
 	}
-	if set["description"] {
-		p.Description = *desc
+	u.apply(&p)
+	p, err = db.UpdateProcess(ctx, cliActor(*u.as), *u.reason, p)
+	if err != nil {
+		return cliStoreError(stderr, "process update", "", err)
 	}
-	if set["area"] {
-		p.Area = *area
+	printProcessUpdated(stdout, p)
+	return exitOK
+}
+
+// processUpdate is what `lotwatch process update` was asked to change:
+// the options as given, which of them were given (only those change), and
+// the values check has read from them.
+type processUpdate struct {
+	dbPath, name, desc, area, limits, sigma, rules, cats, tz *string
+	reason, cmap, dateOrder, as                              *string
+	retire, activate                                         *bool
+	mon                                                      processMonitors
+	set                                                      map[string]bool
+
+	method   spc.Method
+	k        float64
+	newMap   map[string]string
+	monitors spc.Monitors
+}
+
+// processUpdateFlags declares the options of `lotwatch process update`.
+func processUpdateFlags(fs *flag.FlagSet) *processUpdate {
+	return &processUpdate{
+		dbPath:    fs.String("db", "", ""),
+		name:      fs.String("name", "", ""),
+		desc:      fs.String("description", "", ""),
+		area:      fs.String("area", "", ""),
+		limits:    fs.String("limits", "", ""),
+		sigma:     fs.String("sigma", "", ""),
+		rules:     fs.String("rules", "", ""),
+		cats:      fs.String("categories", "", ""),
+		tz:        fs.String("tz", "", ""),
+		mon:       monitorFlags(fs),
+		retire:    fs.Bool("retire", false, ""),
+		activate:  fs.Bool("activate", false, ""),
+		reason:    fs.String("reason", "", ""),
+		cmap:      fs.String("map", "", ""),
+		dateOrder: fs.String("date-order", "", ""),
+		as:        fs.String("as", "", ""),
+		set:       map[string]bool{},
 	}
-	if set["limits"] {
-		p.Method = method
+}
+
+// check lists every problem with the options at once, before the database
+// is opened: a change to a process is kept in its audit trail, so it needs
+// a reason, and at least one thing to change.
+func (u *processUpdate) check(pos []string) []string {
+	probs := cliRequire("process update", "db", *u.dbPath, "name", *u.name)
+	if strings.TrimSpace(*u.reason) == "" {
+		probs = append(probs, "--reason is required: say why the process changes")
 	}
-	if set["sigma"] {
-		p.K = k
+	probs = append(probs, cliNoArgs(pos)...)
+	if *u.retire && *u.activate {
+		probs = append(probs, "--retire and --activate exclude each other")
 	}
-	if set["rules"] {
-		p.Rules = *rules
+	if !u.changesAnything() {
+		probs = append(probs, "nothing to change: give --description, --area, --limits, --sigma, --rules, --categories, --tz, --map, --date-order, a monitor option, --retire or --activate")
 	}
-	if set["tz"] {
-		p.TimeZone = *tz
-	}
-	if set["categories"] {
-		p.Categories = []string{}
-		if *cats != "" {
-			for _, c := range strings.Split(*cats, ",") {
-				p.Categories = append(p.Categories, strings.TrimSpace(c))
-			}
+	newMap, mprobs := parseColumnMap(*u.cmap)
+	u.newMap = newMap
+	probs = append(probs, mprobs...)
+	probs = append(probs, u.mon.apply(&u.monitors, u.set)...)
+	return append(probs, u.checkLimits()...)
+}
+
+// changesAnything says whether an option that changes the process was
+// given (the database, the name, the reason and the user change nothing).
+func (u *processUpdate) changesAnything() bool {
+	for _, f := range []string{"description", "area", "limits", "sigma", "rules", "categories", "tz", "retire", "activate", "map", "date-order", "cusum-shift", "cusum-arl0", "ewma-lambda", "ewma-width"} {
+		if u.set[f] {
+			return true
 		}
 	}
+	return false
+}
+
+// checkLimits reads the options that move the control limits or the
+// lots' days: the limit method, the sigma multiple k and the time zone.
+func (u *processUpdate) checkLimits() []string {
+	var probs []string
+	if u.set["limits"] {
+		m, err := spc.ParseMethod(*u.limits)
+		if err != nil {
+			probs = append(probs, fmt.Sprintf("--limits %q: want sigma, exact or laney", *u.limits))
+		}
+		u.method = m
+	}
+	if u.set["sigma"] {
+		v, err := strconv.ParseFloat(*u.sigma, 64)
+		if err != nil || !(v > 0 && v <= 10) {
+			probs = append(probs, fmt.Sprintf("--sigma %q: want a number greater than 0 and at most 10", *u.sigma))
+		}
+		u.k = v
+	}
+	if u.set["tz"] {
+		if _, err := time.LoadLocation(*u.tz); err != nil || *u.tz == "" || *u.tz == "Local" {
+			probs = append(probs, fmt.Sprintf("--tz %q: want an IANA time zone name such as Europe/Berlin or UTC", *u.tz))
+		}
+	}
+	return probs
+}
+
+// apply changes p where an option was given, and only there: what the
+// user left out stays as it is.
+func (u *processUpdate) apply(p *store.Process) {
+	set := u.set
+	if set["description"] {
+		p.Description = *u.desc
+	}
+	if set["area"] {
+		p.Area = *u.area
+	}
+	if set["limits"] {
+		p.Method = u.method
+	}
+	if set["sigma"] {
+		p.K = u.k
+	}
+	if set["rules"] {
+		p.Rules = *u.rules
+	}
+	if set["tz"] {
+		p.TimeZone = *u.tz
+	}
+	if set["categories"] {
+		p.Categories = splitCategories(*u.cats)
+	}
 	if set["map"] {
-		p.ColumnMap = newMap
+		p.ColumnMap = u.newMap
 	}
 	if set["date-order"] {
-		p.DateOrder = *dateOrder
+		p.DateOrder = *u.dateOrder
 	}
-	mon.update(&p.Monitors, monitors, set)
-	if *retire {
+	u.mon.update(&p.Monitors, u.monitors, set)
+	if *u.retire {
 		p.Active = false
 	}
-	if *activate {
+	if *u.activate {
 		p.Active = true
 	}
-	p, err = db.UpdateProcess(ctx, cliActor(*as), *reason, p)
-	if err != nil {
-		return cliStoreError(stderr, "process update", "", err)
+}
+
+// splitCategories reads --categories: names separated by commas; empty
+// means the process keeps no categories.
+func splitCategories(s string) []string {
+	cats := []string{}
+	if s != "" {
+		for _, c := range strings.Split(s, ",") {
+			cats = append(cats, strings.TrimSpace(c))
+		}
 	}
+	return cats
+}
+
+// printProcessUpdated tells the user the process as it now stands.
+func printProcessUpdated(stdout io.Writer, p store.Process) {
 	state := "active"
 	if !p.Active {
 		state = "retired"
 	}
 	fmt.Fprintf(stdout, "updated process %q (id %d): %s chart, limits %s k=%g, rules %s, categories [%s], time zone %s, %s\n",
 		p.Name, p.ID, p.Chart, p.Method, p.K, p.Rules, strings.Join(p.Categories, ", "), p.TimeZone, state)
-	return exitOK
 }
 
 func runProcessList(args []string, stdout, stderr io.Writer) int {
