@@ -101,22 +101,98 @@ func finiteOrNil(x float64) *float64 {
 
 func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("plan", flag.ContinueOnError)
-	p0s := fs.String("p0", "", "")
-	p1s := fs.String("p1", "", "")
-	ns := fs.String("n", "", "")
-	arl1s := fs.String("arl1", "", "")
-	sigmas := fs.String("sigma", "3", "")
-	maxNs := fs.String("max-n", "100000", "")
-	minARL0s := fs.String("min-arl0", strconv.Itoa(spc.DefaultMinARL0), "")
-	format := fs.String("format", "text", "")
-	procName := fs.String("process", "", "")
-	dbPath := fs.String("db", "", "")
+	r := planFlags(fs)
 	pos, code := statsParse(fs, args, planHelp, stdout, stderr)
 	if code >= 0 {
 		return code
 	}
 	u := &statsUsage{cmd: "plan"}
-	asJSON := u.format(*format)
+	asJSON := u.format(*r.format)
+	r.read(u, pos)
+	if c := u.report(stderr); c >= 0 {
+		return c
+	}
+	if r.searched() {
+		if c := r.search(stderr); c >= 0 {
+			return c
+		}
+	}
+	pl := spc.PlanLimits(r.p0, r.n, r.k)
+	var cusum *spc.CUSUM
+	if *r.p1s != "" {
+		pl = pl.WithShift(r.p1)
+		cusum = planCUSUM(r.p0, r.p1, r.n, pl.ARL0)
+	}
+	if asJSON {
+		return statsJSON(stdout, r.json(pl, cusum))
+	}
+	fmt.Fprint(stdout, r.text(pl, cusum))
+	return exitOK
+}
+
+// planRequest is what `lotwatch plan` was asked: the options as given
+// and the figures read from them.
+type planRequest struct {
+	p0s, p1s, ns, arl1s, sigmas, maxNs, minARL0s *string
+	format, procName, dbPath                     *string
+
+	p0, p1, target float64 // usual and shifted fraction, target ARL1
+	n, maxN        int64
+	k              float64 // limits at k sigma
+	p0Source       string  // where p0 came from, when read from a process
+}
+
+// planFlags declares the options of `lotwatch plan`.
+func planFlags(fs *flag.FlagSet) *planRequest {
+	return &planRequest{
+		p0s:      fs.String("p0", "", ""),
+		p1s:      fs.String("p1", "", ""),
+		ns:       fs.String("n", "", ""),
+		arl1s:    fs.String("arl1", "", ""),
+		sigmas:   fs.String("sigma", "3", ""),
+		maxNs:    fs.String("max-n", "100000", ""),
+		minARL0s: fs.String("min-arl0", strconv.Itoa(spc.DefaultMinARL0), ""),
+		format:   fs.String("format", "text", ""),
+		procName: fs.String("process", "", ""),
+		dbPath:   fs.String("db", "", ""),
+		p0:       math.NaN(), p1: math.NaN(), target: math.NaN(),
+	}
+}
+
+// searched says whether the lot size is to be found (no --n given) rather
+// than evaluated.
+func (r *planRequest) searched() bool { return *r.ns == "" }
+
+// read reads every option into u's list of problems at once: the usual
+// fraction (given, or the centre line of a process), the shift to detect
+// and how soon, the sigma multiple and how far the search may go.
+func (r *planRequest) read(u *statsUsage, pos []string) {
+	r.readRates(u)
+	if *r.ns != "" {
+		r.n = u.count("--n", *r.ns, 1)
+	}
+	r.readTarget(u)
+	k, err := strconv.ParseFloat(*r.sigmas, 64)
+	if err != nil || !(k > 0) || math.IsInf(k, 1) {
+		u.addf("--sigma %q must be a number greater than 0, such as 3", *r.sigmas)
+	}
+	r.k = k
+	r.maxN = u.count("--max-n", *r.maxNs, 1)
+	if r.maxN > planMaxN {
+		u.addf("--max-n %q must be at most %d (the search tries every lot size up to it)", *r.maxNs, planMaxN)
+	}
+	if *r.ns == "" && (*r.p1s == "" || *r.arl1s == "") {
+		u.addf("give --n N to evaluate a lot size, or --p1 and --arl1 to find the smallest one")
+	}
+	if len(pos) > 0 {
+		u.addf("unexpected argument %q: plan takes options only", pos[0])
+	}
+}
+
+// readRates reads the usual fraction nonconforming p0 (from a process's
+// frozen centre line when one is named) and the shifted fraction p1, which
+// must differ from it.
+func (r *planRequest) readRates(u *statsUsage) {
 	fraction := func(name, s string) float64 {
 		v, err := strconv.ParseFloat(s, 64)
 		if err != nil || !(v > 0 && v < 1) {
@@ -125,158 +201,163 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		}
 		return v
 	}
-	var p0, p1, target float64 = math.NaN(), math.NaN(), math.NaN()
-	var n int64
-	var p0Source string
-	if *procName != "" || *dbPath != "" {
-		p0, p0Source = planProcessCentre(u, *procName, *dbPath, *p0s)
-	} else if *p0s == "" {
+	if *r.procName != "" || *r.dbPath != "" {
+		r.p0, r.p0Source = planProcessCentre(u, *r.procName, *r.dbPath, *r.p0s)
+	} else if *r.p0s == "" {
 		u.addf("--p0 is required: the usual fraction nonconforming, such as 0.02")
 	} else {
-		p0 = fraction("p0", *p0s)
+		r.p0 = fraction("p0", *r.p0s)
 	}
-	if *p1s != "" {
-		p1 = fraction("p1", *p1s)
-		if p1 == p0 {
-			u.addf("--p1 %q must differ from --p0", *p1s)
+	if *r.p1s != "" {
+		r.p1 = fraction("p1", *r.p1s)
+		if r.p1 == r.p0 {
+			u.addf("--p1 %q must differ from --p0", *r.p1s)
 		}
 	}
-	if *ns != "" {
-		n = u.count("--n", *ns, 1)
-	}
-	if *arl1s != "" {
-		v, err := strconv.ParseFloat(*arl1s, 64)
-		if err != nil || !(v >= 1) || math.IsInf(v, 1) {
-			u.addf("--arl1 %q must be a number of lots, 1 or more", *arl1s)
-		} else {
-			target = v
-		}
-		if *p1s == "" {
-			u.addf("--arl1 %q needs --p1, the shifted fraction to detect", *arl1s)
-		}
-	}
-	k, err := strconv.ParseFloat(*sigmas, 64)
-	if err != nil || !(k > 0) || math.IsInf(k, 1) {
-		u.addf("--sigma %q must be a number greater than 0, such as 3", *sigmas)
-	}
-	maxN := u.count("--max-n", *maxNs, 1)
-	if maxN > planMaxN {
-		u.addf("--max-n %q must be at most %d (the search tries every lot size up to it)", *maxNs, planMaxN)
-	}
-	if *ns == "" && (*p1s == "" || *arl1s == "") {
-		u.addf("give --n N to evaluate a lot size, or --p1 and --arl1 to find the smallest one")
-	}
-	if len(pos) > 0 {
-		u.addf("unexpected argument %q: plan takes options only", pos[0])
-	}
-	if c := u.report(stderr); c >= 0 {
-		return c
-	}
+}
 
-	searched := *ns == ""
-	if searched {
-		minARL0, perr := strconv.ParseFloat(*minARL0s, 64)
-		if perr != nil || !(minARL0 >= 0) || math.IsInf(minARL0, 1) {
-			fmt.Fprintf(stderr, "lotwatch plan: --min-arl0 %q must be a number of lots, 0 or more\n", *minARL0s)
-			return exitUsage
-		}
-		if minARL0 < spc.DefaultMinARL0 {
-			fmt.Fprintf(stderr, "lotwatch plan: warning: --min-arl0 %s is below the default floor of %d lots between false alarms; the lot size found may raise false alarms often enough that people stop trusting the chart\n",
-				*minARL0s, spc.DefaultMinARL0)
-		}
-		n, err = spc.SmallestNWithARL0(p0, p1, k, target, minARL0, maxN)
-		if errors.Is(err, spc.ErrNoPlan) {
-			fmt.Fprintf(stderr, "lotwatch plan: no lot size up to %d units detects a shift to %s within %s lots on average with at least %s lots between false alarms; try a larger --max-n\n",
-				maxN, *p1s, *arl1s, *minARL0s)
-			return exitFail
-		}
-		if err != nil {
-			fmt.Fprintf(stderr, "lotwatch plan: %v\n", err)
-			return exitUsage
-		}
+// readTarget reads --arl1, how many lots on average a shift to p1 may go
+// unseen; it means nothing without p1.
+func (r *planRequest) readTarget(u *statsUsage) {
+	if *r.arl1s == "" {
+		return
 	}
-	pl := spc.PlanLimits(p0, n, k)
-	var cusum *spc.CUSUM
-	if *p1s != "" {
-		pl = pl.WithShift(p1)
-		cusum = planCUSUM(p0, p1, n, pl.ARL0)
-	}
-
-	if asJSON {
-		out := planJSON{
-			N: pl.N, UCLCount: pl.UCLCount,
-			ARL0: finiteOrNil(pl.ARL0), MinNPositiveLCL: pl.MinNPositiveLCL,
-			P0: p0, Sigma: k, UCL: pl.UCL, P0Source: p0Source,
-		}
-		if pl.LCLCount > 0 {
-			out.LCLCount, out.LCL = &pl.LCLCount, &pl.LCL
-		}
-		if *p1s != "" {
-			out.P1, out.ARL1 = &p1, finiteOrNil(pl.ARL1)
-		}
-		if *arl1s != "" {
-			out.TargetARL1 = &target
-		}
-		if cusum != nil {
-			out.CUSUM = &planCUSUMJSON{H: cusum.H, ARL0: cusum.ARL0, ARL1: cusum.ARL1}
-			out.Sooner = sooner(pl.ARL1, cusum.ARL1)
-		}
-		return statsJSON(stdout, out)
-	}
-
-	var b strings.Builder
-	if p0Source != "" {
-		fmt.Fprintf(&b, "Usual fraction nonconforming of process %q: %s, the %s.\n\n", *procName, statsRate(p0), p0Source)
-	}
-	if searched {
-		fmt.Fprintf(&b, "Smallest lot size that detects a shift to %s within %s lots on average: %d units.\n\n",
-			statsRate(p1), strconv.FormatFloat(target, 'g', -1, 64), n)
-	}
-	fmt.Fprintf(&b, "Lots of %d units, usual fraction nonconforming %s, limits at %s sigma:\n",
-		n, statsRate(p0), strconv.FormatFloat(k, 'g', -1, 64))
-	if pl.UCLCount >= n {
-		fmt.Fprintf(&b, "  upper limit %s: no lot can signal high at this size.\n", statsRate(pl.UCL))
+	v, err := strconv.ParseFloat(*r.arl1s, 64)
+	if err != nil || !(v >= 1) || math.IsInf(v, 1) {
+		u.addf("--arl1 %q must be a number of lots, 1 or more", *r.arl1s)
 	} else {
-		fmt.Fprintf(&b, "  upper limit %s: a lot signals when it has more than %d nonconforming units.\n", statsRate(pl.UCL), pl.UCLCount)
+		r.target = v
 	}
-	if pl.LCLCount < 1 {
-		fmt.Fprintf(&b, "  no lower limit: no lot can signal low at this size; that needs lots of at least %d units.\n",
-			pl.MinNPositiveLCL)
-	} else {
-		fmt.Fprintf(&b, "  lower limit %s: a lot signals when it has fewer than %d nonconforming units.\n", statsRate(pl.LCL), pl.LCLCount)
+	if *r.p1s == "" {
+		u.addf("--arl1 %q needs --p1, the shifted fraction to detect", *r.arl1s)
 	}
-	fmt.Fprintf(&b, "  at the usual rate, a false alarm comes %s (ARL0).\n", planRunLength(pl.ARL0))
-	if *p1s != "" {
-		fmt.Fprintf(&b, "  after a shift to %s, a signal comes %s (ARL1).\n", statsRate(p1), planRunLength(pl.ARL1))
-		if *arl1s != "" && !searched {
-			verdict := "meets"
-			if !(pl.ARL1 <= target) {
-				verdict = "does not meet"
-			}
-			fmt.Fprintf(&b, "  this %s the target of %s lots.\n", verdict, strconv.FormatFloat(target, 'g', -1, 64))
-		}
+}
+
+// search finds the smallest lot size that detects the shift in time
+// without false alarms more often than --min-arl0 allows; it returns an
+// exit code when it stops the command, else -1. A floor below the
+// default is allowed with a warning: frequent false alarms make people
+// stop trusting the chart.
+func (r *planRequest) search(stderr io.Writer) int {
+	minARL0, perr := strconv.ParseFloat(*r.minARL0s, 64)
+	if perr != nil || !(minARL0 >= 0) || math.IsInf(minARL0, 1) {
+		fmt.Fprintf(stderr, "lotwatch plan: --min-arl0 %q must be a number of lots, 0 or more\n", *r.minARL0s)
+		return exitUsage
+	}
+	if minARL0 < spc.DefaultMinARL0 {
+		fmt.Fprintf(stderr, "lotwatch plan: warning: --min-arl0 %s is below the default floor of %d lots between false alarms; the lot size found may raise false alarms often enough that people stop trusting the chart\n",
+			*r.minARL0s, spc.DefaultMinARL0)
+	}
+	n, err := spc.SmallestNWithARL0(r.p0, r.p1, r.k, r.target, minARL0, r.maxN)
+	if errors.Is(err, spc.ErrNoPlan) {
+		fmt.Fprintf(stderr, "lotwatch plan: no lot size up to %d units detects a shift to %s within %s lots on average with at least %s lots between false alarms; try a larger --max-n\n",
+			r.maxN, *r.p1s, *r.arl1s, *r.minARL0s)
+		return exitFail
+	}
+	if err != nil {
+		fmt.Fprintf(stderr, "lotwatch plan: %v\n", err)
+		return exitUsage
+	}
+	r.n = n
+	return -1
+}
+
+// json is the plan as --format json gives it; a figure that does not
+// apply (no lower limit, no shift, no target) is left out.
+func (r *planRequest) json(pl spc.Plan, cusum *spc.CUSUM) planJSON {
+	out := planJSON{
+		N: pl.N, UCLCount: pl.UCLCount,
+		ARL0: finiteOrNil(pl.ARL0), MinNPositiveLCL: pl.MinNPositiveLCL,
+		P0: r.p0, Sigma: r.k, UCL: pl.UCL, P0Source: r.p0Source,
+	}
+	if pl.LCLCount > 0 {
+		out.LCLCount, out.LCL = &pl.LCLCount, &pl.LCL
+	}
+	if *r.p1s != "" {
+		p1 := r.p1
+		out.P1, out.ARL1 = &p1, finiteOrNil(pl.ARL1)
+	}
+	if *r.arl1s != "" {
+		target := r.target
+		out.TargetARL1 = &target
 	}
 	if cusum != nil {
-		fmt.Fprintf(&b, "\nA CUSUM on the same lots (decision interval h = %.2f), with no more false alarms than the chart\n(one every %.1f lots on average), signals a shift to %s on average after %.1f lots.\n",
-			cusum.H, cusum.ARL0, statsRate(p1), cusum.ARL1)
-		switch sooner(pl.ARL1, cusum.ARL1) {
-		case "cusum":
-			fmt.Fprintf(&b, "The CUSUM catches this shift sooner: %.1f lots against %s for the chart.\n", cusum.ARL1, planLots(pl.ARL1))
-		case "chart":
-			fmt.Fprintf(&b, "The chart catches this shift sooner: %s against %.1f lots for the CUSUM.\n", planLots(pl.ARL1), cusum.ARL1)
-		default:
-			fmt.Fprintf(&b, "The chart and the CUSUM catch this shift equally soon, after about %.1f lots.\n", cusum.ARL1)
-		}
+		out.CUSUM = &planCUSUMJSON{H: cusum.H, ARL0: cusum.ARL0, ARL1: cusum.ARL1}
+		out.Sooner = sooner(pl.ARL1, cusum.ARL1)
+	}
+	return out
+}
+
+// text is the plan in words: where p0 came from, the lot size found, the
+// limits as counts of nonconforming units, how soon false alarms and
+// signals come, the CUSUM beside the chart, and the cautions.
+func (r *planRequest) text(pl spc.Plan, cusum *spc.CUSUM) string {
+	var b strings.Builder
+	if r.p0Source != "" {
+		fmt.Fprintf(&b, "Usual fraction nonconforming of process %q: %s, the %s.\n\n", *r.procName, statsRate(r.p0), r.p0Source)
+	}
+	if r.searched() {
+		fmt.Fprintf(&b, "Smallest lot size that detects a shift to %s within %s lots on average: %d units.\n\n",
+			statsRate(r.p1), strconv.FormatFloat(r.target, 'g', -1, 64), r.n)
+	}
+	r.writeLimits(&b, pl)
+	if cusum != nil {
+		r.writeCUSUM(&b, pl, cusum)
 	}
 	if pl.ARL0 < spc.DefaultMinARL0 {
 		fmt.Fprintf(&b, "\nWarning: at this size an in-control process gives a false alarm every %.1f lots on average,\nmore often than once in %d lots; a larger --n, or a search with --p1 and --arl1, keeps to that floor.\n", pl.ARL0, spc.DefaultMinARL0)
 	}
-	if searched {
+	if r.searched() {
 		b.WriteString("\nBecause counts are whole numbers, some larger lot sizes may miss the target again;\ncheck the size you choose with --n.\n")
 	}
 	b.WriteString("\n" + caution)
-	fmt.Fprint(stdout, b.String())
-	return exitOK
+	return b.String()
+}
+
+// writeLimits says the limits as counts a supervisor can check a lot
+// against, and how soon a false alarm and a real signal come.
+func (r *planRequest) writeLimits(b *strings.Builder, pl spc.Plan) {
+	n := r.n
+	fmt.Fprintf(b, "Lots of %d units, usual fraction nonconforming %s, limits at %s sigma:\n",
+		n, statsRate(r.p0), strconv.FormatFloat(r.k, 'g', -1, 64))
+	if pl.UCLCount >= n {
+		fmt.Fprintf(b, "  upper limit %s: no lot can signal high at this size.\n", statsRate(pl.UCL))
+	} else {
+		fmt.Fprintf(b, "  upper limit %s: a lot signals when it has more than %d nonconforming units.\n", statsRate(pl.UCL), pl.UCLCount)
+	}
+	if pl.LCLCount < 1 {
+		fmt.Fprintf(b, "  no lower limit: no lot can signal low at this size; that needs lots of at least %d units.\n",
+			pl.MinNPositiveLCL)
+	} else {
+		fmt.Fprintf(b, "  lower limit %s: a lot signals when it has fewer than %d nonconforming units.\n", statsRate(pl.LCL), pl.LCLCount)
+	}
+	fmt.Fprintf(b, "  at the usual rate, a false alarm comes %s (ARL0).\n", planRunLength(pl.ARL0))
+	if *r.p1s == "" {
+		return
+	}
+	fmt.Fprintf(b, "  after a shift to %s, a signal comes %s (ARL1).\n", statsRate(r.p1), planRunLength(pl.ARL1))
+	if *r.arl1s != "" && !r.searched() {
+		verdict := "meets"
+		if !(pl.ARL1 <= r.target) {
+			verdict = "does not meet"
+		}
+		fmt.Fprintf(b, "  this %s the target of %s lots.\n", verdict, strconv.FormatFloat(r.target, 'g', -1, 64))
+	}
+}
+
+// writeCUSUM sets a CUSUM with no more false alarms than the chart beside
+// it, and says which catches the shift sooner.
+func (r *planRequest) writeCUSUM(b *strings.Builder, pl spc.Plan, cusum *spc.CUSUM) {
+	fmt.Fprintf(b, "\nA CUSUM on the same lots (decision interval h = %.2f), with no more false alarms than the chart\n(one every %.1f lots on average), signals a shift to %s on average after %.1f lots.\n",
+		cusum.H, cusum.ARL0, statsRate(r.p1), cusum.ARL1)
+	switch sooner(pl.ARL1, cusum.ARL1) {
+	case "cusum":
+		fmt.Fprintf(b, "The CUSUM catches this shift sooner: %.1f lots against %s for the chart.\n", cusum.ARL1, planLots(pl.ARL1))
+	case "chart":
+		fmt.Fprintf(b, "The chart catches this shift sooner: %s against %.1f lots for the CUSUM.\n", planLots(pl.ARL1), cusum.ARL1)
+	default:
+		fmt.Fprintf(b, "The chart and the CUSUM catch this shift equally soon, after about %.1f lots.\n", cusum.ARL1)
+	}
 }
 
 // planRunLength says an average run length in words.
