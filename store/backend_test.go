@@ -1,11 +1,7 @@
 package store
 
 import (
-	"crypto/rand"
-	"database/sql"
-	"encoding/hex"
-	"net/url"
-	"os"
+	"lotwatch/store/storetest"
 	"sort"
 	"strings"
 	"testing"
@@ -36,62 +32,17 @@ func forEachBackend(t *testing.T, f func(t *testing.T, open opener)) {
 	}
 }
 
-// postgresURL is the test server's URL, or the test is skipped (locally)
-// or failed (when CI=true) without one.
-func postgresURL(t testing.TB) string {
-	t.Helper()
-	u := os.Getenv("LOTWATCH_TEST_POSTGRES")
-	if u == "" {
-		if os.Getenv("CI") == "true" {
-			t.Fatal("LOTWATCH_TEST_POSTGRES is not set (CI must test on PostgreSQL: see .ci/postgres)")
-		}
-		t.Skip("LOTWATCH_TEST_POSTGRES is not set: PostgreSQL not tested (source .ci/postgres to start one)")
-	}
-	return u
-}
-
 // openPostgresTemp opens a new schema of the test server, dropped when
 // the test ends, so that tests do not see each other's rows.
 func openPostgresTemp(t testing.TB) (*DB, string) {
 	t.Helper()
-	u := newPostgresSchema(t)
+	u := storetest.PostgresSchema(t)
 	db, err := Open(u)
 	if err != nil {
 		t.Fatal(err)
 	}
 	t.Cleanup(func() { db.Close() })
 	return db, u
-}
-
-// newPostgresSchema creates an empty schema on the test server and
-// returns the URL whose connections use it.
-func newPostgresSchema(t testing.TB) string {
-	t.Helper()
-	base := postgresURL(t)
-	admin, err := sql.Open("pgx", base)
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { admin.Close() })
-	b := make([]byte, 6)
-	rand.Read(b)
-	schema := "test_" + hex.EncodeToString(b)
-	if _, err := admin.Exec("CREATE SCHEMA " + schema); err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() {
-		if _, err := admin.Exec("DROP SCHEMA " + schema + " CASCADE"); err != nil {
-			t.Errorf("drop schema %s: %v", schema, err)
-		}
-	})
-	pu, err := url.Parse(base)
-	if err != nil {
-		t.Fatal(err)
-	}
-	q := pu.Query()
-	q.Set("search_path", schema)
-	pu.RawQuery = q.Encode()
-	return pu.String()
 }
 
 // TestSchemasAgree: a new SQLite database and a new PostgreSQL one have

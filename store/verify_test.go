@@ -1,6 +1,7 @@
 package store
 
 import (
+	"lotwatch/store/storetest"
 	"os"
 	"path/filepath"
 	"strings"
@@ -105,7 +106,7 @@ func TestAuditCatchesDataRows(t *testing.T) {
 			t.Run(b+"/"+c.name, func(t *testing.T) {
 				path := filepath.Join(t.TempDir(), "lotwatch.db")
 				if b == "postgres" {
-					path = newPostgresSchema(t)
+					path = storetest.PostgresSchema(t)
 					if c.pg != nil {
 						c.sql = c.pg
 					}

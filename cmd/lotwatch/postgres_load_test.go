@@ -5,6 +5,7 @@ import (
 	"database/sql"
 	"fmt"
 	"io"
+	"lotwatch/store/storetest"
 	"net/http"
 	"os"
 	"os/exec"
@@ -25,7 +26,7 @@ import (
 // pgx. lots/s of the servers ÷ lots/s of the bare loop is the ratio
 // (goal ≥ 0.8); p99 is of one post as a station sees it.
 func BenchmarkPostgresLoad(b *testing.B) {
-	pg := newPostgresDatabase(b)
+	pg := storetest.PostgresDatabase(b)
 	bin := buildLotwatch(b)
 	for _, args := range [][]string{
 		{"process", "add", "--db", pg, "--name", "weld", "--as", "t"},

@@ -1,14 +1,11 @@
 package main
 
 import (
-	"crypto/rand"
-	"database/sql"
-	"encoding/hex"
 	"fmt"
 	"io"
+	"lotwatch/store/storetest"
 	"net/http"
 	"net/url"
-	"os"
 	"os/exec"
 	"path/filepath"
 	"regexp"
@@ -18,50 +15,6 @@ import (
 
 	_ "github.com/jackc/pgx/v5/stdlib"
 )
-
-// postgresURL is the test server's URL (LOTWATCH_TEST_POSTGRES, see
-// .ci/postgres); without it the test is skipped, or failed when CI=true.
-func postgresURL(t testing.TB) string {
-	t.Helper()
-	u := os.Getenv("LOTWATCH_TEST_POSTGRES")
-	if u == "" {
-		if os.Getenv("CI") == "true" {
-			t.Fatal("LOTWATCH_TEST_POSTGRES is not set (CI must test on PostgreSQL: see .ci/postgres)")
-		}
-		t.Skip("LOTWATCH_TEST_POSTGRES is not set: PostgreSQL not tested (source .ci/postgres to start one)")
-	}
-	return u
-}
-
-// newPostgresDatabase creates an empty database on the test server,
-// dropped when the test ends, and returns its URL. A database of its own
-// (not a schema) because restore counts the sessions on the database.
-func newPostgresDatabase(t testing.TB) string {
-	t.Helper()
-	base := postgresURL(t)
-	admin, err := sql.Open("pgx", base)
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { admin.Close() })
-	b := make([]byte, 6)
-	rand.Read(b)
-	name := "lotwatch_cmd_" + hex.EncodeToString(b)
-	if _, err := admin.Exec("CREATE DATABASE " + name); err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() {
-		if _, err := admin.Exec("DROP DATABASE " + name + " WITH (FORCE)"); err != nil {
-			t.Errorf("drop database %s: %v", name, err)
-		}
-	})
-	u, err := url.Parse(base)
-	if err != nil {
-		t.Fatal(err)
-	}
-	u.Path = "/" + name
-	return u.String()
-}
 
 // buildLotwatch builds the binary once for a test.
 func buildLotwatch(t testing.TB) string {
@@ -84,7 +37,7 @@ func buildLotwatch(t testing.TB) string {
 // database: `export` gives the same bytes on both, `audit verify` exits 0
 // on both. (The reference is the SQLite behaviour of this program.)
 func TestPostgresBehavesAsSQLite(t *testing.T) {
-	pg := newPostgresDatabase(t)
+	pg := storetest.PostgresDatabase(t)
 	bin := buildLotwatch(t)
 	dir := t.TempDir()
 	file := filepath.Join(dir, "plant.db")
@@ -147,7 +100,7 @@ func TestPostgresBehavesAsSQLite(t *testing.T) {
 
 	// copy --from FILE --to URL: the same bytes for every process, and
 	// the audit check holds on both.
-	dst := newPostgresDatabase(t)
+	dst := storetest.PostgresDatabase(t)
 	if code, out := lotwatchCmd(t, bin, "", "copy", "--from", file, "--to", dst); code != exitOK || !strings.Contains(out, "audit trail verified") {
 		t.Fatalf("copy: exit %d\n%s", code, out)
 	}
@@ -202,7 +155,7 @@ func passwordOf(raw string) string {
 // URL exits 2, and none of them prints the password (issue 17's exact
 // contract).
 func TestPostgresConnectionErrors(t *testing.T) {
-	base := postgresURL(t)
+	base := storetest.PostgresURL(t)
 	bin := buildLotwatch(t)
 	u, _ := url.Parse(base)
 	const secret = "Sup3r-secret-pw"
@@ -256,7 +209,7 @@ func TestPostgresConnectionErrors(t *testing.T) {
 // other; a restore is refused while the servers are connected and goes
 // through once they have stopped.
 func TestTwoServersOnePostgres(t *testing.T) {
-	pg := newPostgresDatabase(t)
+	pg := storetest.PostgresDatabase(t)
 	bin := buildLotwatch(t)
 	for _, args := range [][]string{
 		{"process", "add", "--db", pg, "--name", "weld", "--as", "t"},

@@ -31,41 +31,72 @@ var Backends = []Backend{
 	{"postgres", PostgresSchema},
 }
 
-// PostgresSchema creates an empty schema on the test server and returns
-// the URL whose connections use it.
-func PostgresSchema(t testing.TB) string {
+// PostgresURL is the test server's URL (LOTWATCH_TEST_POSTGRES, see
+// .ci/postgres); without it the test is skipped, or failed when CI=true.
+func PostgresURL(t testing.TB) string {
 	t.Helper()
-	base := os.Getenv("LOTWATCH_TEST_POSTGRES")
-	if base == "" {
+	u := os.Getenv("LOTWATCH_TEST_POSTGRES")
+	if u == "" {
 		if os.Getenv("CI") == "true" {
 			t.Fatal("LOTWATCH_TEST_POSTGRES is not set (CI must test on PostgreSQL: see .ci/postgres)")
 		}
 		t.Skip("LOTWATCH_TEST_POSTGRES is not set: PostgreSQL not tested (source .ci/postgres to start one)")
 	}
+	return u
+}
+
+// PostgresSchema creates an empty schema on the test server, dropped when
+// the test ends, and returns the URL whose connections use it.
+func PostgresSchema(t testing.TB) string {
+	t.Helper()
+	schema := "test_" + randomName()
+	u := createOnServer(t, "SCHEMA "+schema, "DROP SCHEMA "+schema+" CASCADE")
+	q := u.Query()
+	q.Set("search_path", schema)
+	u.RawQuery = q.Encode()
+	return u.String()
+}
+
+// PostgresDatabase creates an empty database on the test server, dropped
+// when the test ends, and returns its URL: for a test that needs a
+// database of its own (restore counts the sessions on the database).
+func PostgresDatabase(t testing.TB) string {
+	t.Helper()
+	name := "lotwatch_test_" + randomName()
+	u := createOnServer(t, "DATABASE "+name, "DROP DATABASE "+name+" WITH (FORCE)")
+	u.Path = "/" + name
+	return u.String()
+}
+
+// createOnServer runs CREATE what on the test server and drop when the
+// test ends, and returns the server's URL for the caller to point at it.
+func createOnServer(t testing.TB, what, drop string) *url.URL {
+	t.Helper()
+	base := PostgresURL(t)
+	u, err := url.Parse(base)
+	if err != nil {
+		t.Fatal(err)
+	}
 	admin, err := sql.Open("pgx", base)
 	if err != nil {
 		t.Fatal(err)
 	}
-	b := make([]byte, 6)
-	rand.Read(b)
-	schema := "test_" + hex.EncodeToString(b)
-	if _, err := admin.Exec("CREATE SCHEMA " + schema); err != nil {
+	if _, err := admin.Exec("CREATE " + what); err != nil {
 		admin.Close()
 		t.Fatal(err)
 	}
 	// Registered first, so run last: after the store using it is closed.
 	t.Cleanup(func() {
 		defer admin.Close()
-		if _, err := admin.Exec("DROP SCHEMA " + schema + " CASCADE"); err != nil {
-			t.Errorf("drop schema %s: %v", schema, err)
+		if _, err := admin.Exec(drop); err != nil {
+			t.Errorf("%s: %v", drop, err)
 		}
 	})
-	u, err := url.Parse(base)
-	if err != nil {
-		t.Fatal(err)
-	}
-	q := u.Query()
-	q.Set("search_path", schema)
-	u.RawQuery = q.Encode()
-	return u.String()
+	return u
+}
+
+func randomName() string {
+	b := make([]byte, 6)
+	rand.Read(b)
+	return hex.EncodeToString(b)
 }
