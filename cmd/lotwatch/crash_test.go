@@ -93,26 +93,9 @@ func crashCheck(t *testing.T, bin, db string) {
 // storedCodes returns the set of stored lot codes.
 func storedCodes(t *testing.T, db string) map[string]bool {
 	t.Helper()
-	raw, err := sql.Open("sqlite3", "file:"+db+"?mode=ro")
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer raw.Close()
-	rows, err := raw.Query("SELECT lot FROM lots")
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer rows.Close()
 	have := map[string]bool{}
-	for rows.Next() {
-		var s string
-		if err := rows.Scan(&s); err != nil {
-			t.Fatal(err)
-		}
-		have[s] = true
-	}
-	if err := rows.Err(); err != nil {
-		t.Fatal(err)
+	for code := range storedLots(t, db) {
+		have[code] = true
 	}
 	return have
 }
