@@ -375,15 +375,16 @@ type AlertEvent struct {
 
 // ClaimAlertEvents takes up to limit pending events for owner until
 // lease ends; an event claimed by another whose lease has not ended is
-// left alone. The claim is in the database, so several servers sharing it
-// each take different events.
+// left alone. The claim is in the database, and two claims at once never
+// take the same row (see dialect.claimRows), so several servers sharing
+// it each take different events.
 func (db *DB) ClaimAlertEvents(ctx context.Context, owner string, lease time.Duration, limit int) ([]AlertEvent, error) {
 	var out []AlertEvent
 	err := db.write(ctx, func(w *wtx) error {
 		out = out[:0]
 		now := w.now.UnixNano()
 		rows, err := w.Query(`UPDATE alert_events SET lease_owner = ?, lease_until = ?
-			WHERE id IN (SELECT id FROM alert_events WHERE done = 0 AND lease_until < ? ORDER BY id LIMIT ?)
+			WHERE id IN (SELECT id FROM alert_events WHERE done = 0 AND lease_until < ? ORDER BY id LIMIT ?`+w.db.d.claimRows+`)
 			RETURNING id, lot_id, process_id, created, cause`, owner, now+int64(lease), now, limit)
 		if err != nil {
 			return err
@@ -535,7 +536,7 @@ func (db *DB) claimDeliveries(ctx context.Context, owner string, lease time.Dura
 		now := w.now.UnixNano()
 		rows, err := w.Query(`UPDATE alert_deliveries SET lease_owner = ?, lease_until = ?
 			WHERE id IN (SELECT id FROM alert_deliveries WHERE state = 'pending' AND next_at <= ? AND lease_until < ? AND (? = 0 OR rule_id = ?)
-			ORDER BY next_at LIMIT ?)
+			ORDER BY next_at LIMIT ?`+w.db.d.claimRows+`)
 			RETURNING id`, owner, now+int64(lease), now, now, ruleID, ruleID, limit)
 		if err != nil {
 			return err
@@ -605,12 +606,15 @@ type Attempt struct {
 // it) gets the attempt logged but its state is left to the other.
 func (db *DB) RecordAttempt(ctx context.Context, owner string, id int64, a Attempt, next time.Time) error {
 	return db.write(ctx, func(w *wtx) error {
+		// Counting in the UPDATE locks the row until the commit: two
+		// servers logging attempts of one delivery at once (a lease run
+		// out mid-attempt) number them one after the other, and the
+		// owner read is the one in force.
 		var n int
 		var held string
-		if err := w.QueryRow("SELECT attempts, lease_owner FROM alert_deliveries WHERE id = ?", id).Scan(&n, &held); err != nil {
+		if err := w.QueryRow("UPDATE alert_deliveries SET attempts = attempts + 1 WHERE id = ? RETURNING attempts, lease_owner", id).Scan(&n, &held); err != nil {
 			return err
 		}
-		n++
 		if _, err := w.Exec("INSERT INTO alert_attempts (delivery_id, n, at, status, error, took) VALUES (?, ?, ?, ?, ?, ?)",
 			id, n, a.At.UnixNano(), a.Status, a.Error, int64(a.Took)); err != nil {
 			return err
@@ -623,11 +627,10 @@ func (db *DB) RecordAttempt(ctx context.Context, owner string, id int64, a Attem
 			state, doneAt = DeliveryFailed, w.now.UnixNano()
 		}
 		if held != owner {
-			_, err := w.Exec("UPDATE alert_deliveries SET attempts = ? WHERE id = ?", n, id)
-			return err
+			return nil
 		}
-		_, err := w.Exec(`UPDATE alert_deliveries SET attempts = ?, state = ?, next_at = ?, done_at = ?, last_error = ?, lease_owner = '', lease_until = 0
-			WHERE id = ?`, n, state, nextAt, doneAt, a.Error, id)
+		_, err := w.Exec(`UPDATE alert_deliveries SET state = ?, next_at = ?, done_at = ?, last_error = ?, lease_owner = '', lease_until = 0
+			WHERE id = ?`, state, nextAt, doneAt, a.Error, id)
 		return err
 	})
 }
@@ -805,7 +808,7 @@ func (db *DB) ClaimAlertBatches(ctx context.Context, owner string, lease time.Du
 		out = out[:0]
 		now := w.now.UnixNano()
 		rows, err := w.Query(`UPDATE alert_batches SET lease_owner = ?, lease_until = ?
-			WHERE id IN (SELECT id FROM alert_batches WHERE done = 0 AND lease_until < ? ORDER BY id LIMIT ?)
+			WHERE id IN (SELECT id FROM alert_batches WHERE done = 0 AND lease_until < ? ORDER BY id LIMIT ?`+w.db.d.claimRows+`)
 			RETURNING id, process_id, kind, first_lot, last_lot, from_time, cause, created`, owner, now+int64(lease), now, limit)
 		if err != nil {
 			return err

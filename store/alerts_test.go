@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -370,4 +371,191 @@ func TestNextDigest(t *testing.T) {
 			t.Errorf("%q at %v: %v, want %v", tc.hhmm, tc.now, got, tc.want)
 		}
 	}
+}
+
+// TestAlertClaimsExclusive: two stores on one database, as two servers
+// sharing it, each with six claimers, take the outbox's events, batches
+// and deliveries at the same time. No row is handed to a second owner
+// while the first holds it; every row is taken; a delivery that fails k
+// times before it goes is claimed k+1 times and has k+1 attempts logged.
+func TestAlertClaimsExclusive(t *testing.T) {
+	forEachBackend(t, func(t *testing.T, open opener) {
+		one, path := open(t)
+		two, err := Open(path)
+		if err != nil {
+			t.Fatal(err)
+		}
+		t.Cleanup(func() { two.Close() })
+		p := addProcess(t, one, "press", spc.ChartP)
+		r, err := one.AddAlertRule(ctx, "tester", AlertRule{ProcessID: p.ID, Webhook: "http://127.0.0.1:9/", Secret: "s"})
+		if err != nil {
+			t.Fatal(err)
+		}
+		const lots, batches = 300, 40
+		in := make([]LotInput, lots)
+		ds := make([]NewDelivery, lots)
+		for i := range in {
+			in[i] = LotInput{Lot: fmt.Sprintf("L%03d", i), Inspected: 100, Count: int64(i % 7)}
+			ds[i] = NewDelivery{MsgID: fmt.Sprintf("msg_claim_%03d", i), RuleID: r.ID, Type: "lot.signal", Payload: "{}"}
+		}
+		if _, err := one.AddLots(ctx, "tester", p.ID, in); err != nil {
+			t.Fatal(err)
+		}
+		if err := one.AddDeliveries(ctx, ds); err != nil {
+			t.Fatal(err)
+		}
+		for i := range batches {
+			b := AlertBatch{ProcessID: p.ID, Kind: BatchImport, First: 1, Last: 2, Cause: fmt.Sprintf("file %d", i)}
+			if err := one.write(ctx, func(w *wtx) error { return w.queueAlertBatch(b) }); err != nil {
+				t.Fatal(err)
+			}
+		}
+
+		c := &claimCheck{events: map[int64]string{}, batches: map[int64]string{}, held: map[int64]string{}, tries: map[int64]int{}}
+		var wg sync.WaitGroup
+		for s, db := range []*DB{one, two} {
+			for g := range 6 {
+				wg.Add(1)
+				go func() {
+					defer wg.Done()
+					if err := c.work(db, fmt.Sprintf("server%d/%d", s+1, g)); err != nil {
+						t.Error(err)
+					}
+				}()
+			}
+		}
+		wg.Wait()
+
+		for i, s := range c.twice {
+			if i == 5 {
+				t.Errorf("… %d rows handed to two owners in all", len(c.twice))
+				break
+			}
+			t.Error(s)
+		}
+		if len(c.events) != lots || len(c.batches) != batches {
+			t.Errorf("%d of %d events and %d of %d batches were claimed", len(c.events), lots, len(c.batches), batches)
+		}
+		got, err := one.Deliveries(ctx, r.ID, 2*lots)
+		if err != nil || len(got) != lots {
+			t.Fatalf("%d deliveries (%v), want %d", len(got), err, lots)
+		}
+		for _, d := range got {
+			want := failuresOf(d.ID) + 1
+			if d.State != DeliverySent || d.Attempts != want || c.tries[d.ID] != want {
+				t.Errorf("delivery %d: %s after %d attempts logged, %d made; want sent after %d", d.ID, d.State, d.Attempts, c.tries[d.ID], want)
+			}
+		}
+	})
+}
+
+// claimCheck follows who holds which outbox row in TestAlertClaimsExclusive.
+type claimCheck struct {
+	mu sync.Mutex
+	// events and batches: the owner each was handed to. They are finished
+	// by that owner and the leases outlast the test, so each is handed
+	// out once.
+	events, batches map[int64]string
+	held            map[int64]string // delivery → the owner trying it now
+	tries           map[int64]int    // delivery → attempts made
+	twice           []string         // rows handed to a second owner
+}
+
+// failuresOf is how many attempts of delivery id fail before one goes.
+func failuresOf(id int64) int { return int(id % 3) }
+
+// work claims, finishes and tries outbox rows as owner until none is
+// left pending.
+func (c *claimCheck) work(db *DB, owner string) error {
+	stop := time.Now().Add(30 * time.Second) // a row lost by a claim would keep the others waiting for ever
+	for time.Now().Before(stop) {
+		evs, err := db.ClaimAlertEvents(ctx, owner, time.Hour, 7)
+		if err != nil {
+			return fmt.Errorf("%s: claim events: %w", owner, err)
+		}
+		bs, err := db.ClaimAlertBatches(ctx, owner, time.Hour, 2)
+		if err != nil {
+			return fmt.Errorf("%s: claim batches: %w", owner, err)
+		}
+		ds, err := db.ClaimDeliveries(ctx, owner, time.Hour, 7)
+		if err != nil {
+			return fmt.Errorf("%s: claim deliveries: %w", owner, err)
+		}
+		ids := make([]int64, len(evs))
+		c.mu.Lock()
+		for i, e := range evs {
+			ids[i] = e.ID
+			c.take(c.events, "event", e.ID, owner)
+		}
+		for _, b := range bs {
+			c.take(c.batches, "batch", b.ID, owner)
+		}
+		for _, d := range ds {
+			c.take(c.held, "delivery", d.ID, owner)
+		}
+		c.mu.Unlock()
+		if len(ids) > 0 {
+			if err := db.FinishAlertEvents(ctx, ids, nil); err != nil {
+				return fmt.Errorf("%s: finish events: %w", owner, err)
+			}
+		}
+		for _, b := range bs {
+			if err := db.FinishAlertBatch(ctx, b.ID, nil); err != nil {
+				return fmt.Errorf("%s: finish batch %d: %w", owner, b.ID, err)
+			}
+		}
+		for _, d := range ds {
+			if err := c.try(db, owner, d.ID); err != nil {
+				return err
+			}
+		}
+		if len(evs)+len(bs)+len(ds) > 0 {
+			continue
+		}
+		left, err := pendingRows(db)
+		if err != nil || left == 0 {
+			return err
+		}
+		time.Sleep(time.Millisecond)
+	}
+	return fmt.Errorf("%s: rows still pending after 30 s", owner)
+}
+
+// take notes that row id of a kind (events, batches or deliveries held)
+// was handed to owner; c.mu is held.
+func (c *claimCheck) take(m map[int64]string, kind string, id int64, owner string) {
+	if had, ok := m[id]; ok {
+		c.twice = append(c.twice, fmt.Sprintf("%s %d handed to %s while %s has it", kind, id, owner, had))
+		return
+	}
+	m[id] = owner
+}
+
+// try makes one attempt of delivery id: a failure due again at once for
+// its first failuresOf(id) attempts, then success. The row is let go
+// before the attempt is logged, since the logging ends the claim.
+func (c *claimCheck) try(db *DB, owner string, id int64) error {
+	c.mu.Lock()
+	if c.held[id] == owner {
+		delete(c.held, id)
+	}
+	c.tries[id]++
+	fail := c.tries[id] <= failuresOf(id)
+	c.mu.Unlock()
+	a := Attempt{At: time.Now(), Status: 204}
+	if fail {
+		a.Status, a.Error = 500, "the receiver answered 500"
+	}
+	if err := db.RecordAttempt(ctx, owner, id, a, time.Now()); err != nil {
+		return fmt.Errorf("%s: delivery %d: %w", owner, id, err)
+	}
+	return nil
+}
+
+// pendingRows counts the outbox rows not finished yet.
+func pendingRows(db *DB) (int, error) {
+	var n int
+	err := db.r.QueryRowContext(ctx, `SELECT (SELECT COUNT(*) FROM alert_events WHERE done = 0) + (SELECT COUNT(*) FROM alert_batches WHERE done = 0)
+		+ (SELECT COUNT(*) FROM alert_deliveries WHERE state = 'pending')`).Scan(&n)
+	return n, err
 }

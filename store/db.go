@@ -40,6 +40,11 @@ type dialect struct {
 	lotsRead string
 	// greatest is the function of the larger of two values.
 	greatest string
+	// claimRows ends the subquery that picks the outbox rows a claim
+	// takes: on PostgreSQL it locks them and skips those another
+	// server's claim holds, so that two claims at once never take the
+	// same row (SQLite's writer holds the whole file).
+	claimRows string
 	// snapshot is the isolation of a read transaction that sees one
 	// state of the whole database (SQLite's read transactions always do).
 	snapshot sql.IsolationLevel
@@ -58,6 +63,7 @@ var (
 	postgresDialect = &dialect{name: "postgres", migrations: "migrations/postgres",
 		headSelect: qHeadSelect + " FOR UPDATE", lotsRead: "lots", greatest: "GREATEST",
 		snapshot:  sql.LevelRepeatableRead,
+		claimRows: " FOR UPDATE SKIP LOCKED",
 		tables:    "SELECT table_name FROM information_schema.tables WHERE table_schema = current_schema()",
 		afterCopy: `SELECT setval(pg_get_serial_sequence('TABLE', 'id'), (SELECT COALESCE(MAX(id), 0) + 1 FROM TABLE), false)`}
 )
