@@ -410,9 +410,11 @@ func (db *DB) ClaimAlertEvents(ctx context.Context, owner string, lease time.Dur
 // HasPendingAlertEvents reports whether some event waits to be judged
 // (claimed or not), without writing.
 func (db *DB) HasPendingAlertEvents(ctx context.Context) (bool, error) {
-	var n int
-	err := db.r.QueryRowContext(ctx, "SELECT EXISTS (SELECT 1 FROM alert_events WHERE done = 0)").Scan(&n)
-	return n == 1, err
+	// EXISTS is a boolean on PostgreSQL and 0 or 1 on SQLite: both scan
+	// into a bool.
+	var pending bool
+	err := db.r.QueryRowContext(ctx, "SELECT EXISTS (SELECT 1 FROM alert_events WHERE done = 0)").Scan(&pending)
+	return pending, err
 }
 
 // NewDelivery is a message to make: MsgID is its stable id (the

@@ -54,6 +54,10 @@ type dialect struct {
 	// handed out after a copy follow the copied ones ("" when the
 	// database does that by itself).
 	afterCopy string
+	// size reads the bytes the database takes on the server, its
+	// tables with their indexes and long values ("" where the database
+	// is a file, whose size the file system tells).
+	size string
 }
 
 var (
@@ -65,7 +69,10 @@ var (
 		snapshot:  sql.LevelRepeatableRead,
 		claimRows: " FOR UPDATE SKIP LOCKED",
 		tables:    "SELECT table_name FROM information_schema.tables WHERE table_schema = current_schema()",
-		afterCopy: `SELECT setval(pg_get_serial_sequence('TABLE', 'id'), (SELECT COALESCE(MAX(id), 0) + 1 FROM TABLE), false)`}
+		afterCopy: `SELECT setval(pg_get_serial_sequence('TABLE', 'id'), (SELECT COALESCE(MAX(id), 0) + 1 FROM TABLE), false)`,
+		size: `SELECT COALESCE(SUM(pg_total_relation_size(c.oid)), 0) FROM pg_class c
+			JOIN pg_namespace n ON n.oid = c.relnamespace
+			WHERE n.nspname = current_schema() AND c.relkind = 'r'`}
 )
 
 // migration is one forward-only schema step, numbered from 1.

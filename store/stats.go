@@ -14,8 +14,14 @@ func (db *DB) LotCount(ctx context.Context) (int64, error) {
 }
 
 // FileSize is the size on disk of the database in bytes: the file and
-// its write-ahead log.
+// its write-ahead log; on PostgreSQL, the tables of its schema with their
+// indexes (there is no file of its own to measure).
 func (db *DB) FileSize() (int64, error) {
+	if db.d.size != "" {
+		var n int64
+		err := db.r.QueryRow(db.d.size).Scan(&n)
+		return n, err
+	}
 	fi, err := os.Stat(db.path)
 	if err != nil {
 		return 0, err

@@ -7,13 +7,13 @@ import (
 	"net/http"
 	"net/http/httptest"
 	"net/url"
-	"path/filepath"
 	"strconv"
 	"strings"
 	"testing"
 	"time"
 
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 )
 
 func sameOrigin() map[string]string { return map[string]string{"Sec-Fetch-Site": "same-origin"} }
@@ -29,7 +29,7 @@ func TestSessionCookieFlags(t *testing.T) {
 	}
 
 	// Under TLS the cookie is Secure and __Host- prefixed.
-	db, err := store.Open(filepath.Join(t.TempDir(), "tls.db"))
+	db, err := store.Open(storetest.DB(t))
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -7,7 +7,6 @@ import (
 	"mime/multipart"
 	"net/http"
 	"net/url"
-	"path/filepath"
 	"regexp"
 	"strings"
 	"testing"
@@ -428,7 +427,7 @@ func expected(pattern string, rt authzRoute, who caller) int {
 }
 
 func newMatrixEnv(t *testing.T) (*matrixEnv, []caller) {
-	return newMatrixEnvOn(t, filepath.Join(t.TempDir(), "lotwatch.db"))
+	return newMatrixEnvOn(t, storetest.DB(t))
 }
 
 func newMatrixEnvOn(t *testing.T, path string) (*matrixEnv, []caller) {

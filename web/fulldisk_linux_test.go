@@ -13,6 +13,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 )
 
 // fullDisk mounts a small tmpfs for a database, or skips the test when
@@ -20,6 +21,7 @@ import (
 // returns the folder and a function that fills the disk to the last byte.
 func fullDisk(t *testing.T) (dir string, fill func()) {
 	t.Helper()
+	storetest.SQLiteOnly(t, "a database file on a full disk")
 	dir = t.TempDir()
 	if err := syscall.Mount("tmpfs", dir, "tmpfs", 0, "size=8m"); err != nil {
 		t.Skipf("cannot mount a small tmpfs to fill (needs root): %v", err)

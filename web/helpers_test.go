@@ -8,23 +8,26 @@ import (
 	"log/slog"
 	"net/http"
 	"net/http/httptest"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 )
 
 // testPassword is every test user's password.
 const testPassword = "quality-first-7"
 
-// testEnv is a server on a real store in a temporary directory, with a
-// settable clock, one user and one API token per role, and one process.
+// testEnv is a server on a real store of the chosen backend (a file in a
+// temporary directory, or a schema of its own on PostgreSQL: see
+// storetest.DB), with a settable clock, one user and one API token per
+// role, and one process.
 type testEnv struct {
 	t      *testing.T
 	db     *store.DB
+	dbPath string // the --db value: a file, or a URL with its password
 	srv    *Server
 	h      http.Handler
 	clock  *fakeClock
@@ -36,7 +39,7 @@ var roles = []store.Role{store.RoleViewer, store.RoleInspector, store.RoleEngine
 
 func newTestEnv(t testing.TB) *testEnv {
 	t.Helper()
-	return newTestEnvOn(t, filepath.Join(t.TempDir(), "lotwatch.db"))
+	return newTestEnvOn(t, storetest.DB(t))
 }
 
 // newTestEnvOn is newTestEnv on the database path (a file or a URL, see
@@ -54,7 +57,7 @@ func newTestEnvOn(t testing.TB, path string) *testEnv {
 	if err != nil {
 		t.Fatal(err)
 	}
-	e := &testEnv{db: db, srv: srv, h: srv.Handler(), clock: clk, tokens: map[store.Role]string{}}
+	e := &testEnv{db: db, dbPath: path, srv: srv, h: srv.Handler(), clock: clk, tokens: map[store.Role]string{}}
 	if tt, ok := t.(*testing.T); ok {
 		e.t = tt
 	}

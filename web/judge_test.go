@@ -44,7 +44,7 @@ func TestChartCacheFollowsChanges(t *testing.T) {
 	e := newTestEnv(t)
 	ctx := context.Background()
 	lots := e.addLots(t, 30, func(i int) int64 { return int64(2 + i%4) })
-	other, err := store.Open(e.db.Path()) // as a command-line import would
+	other, err := store.Open(e.dbPath) // as a command-line import would
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -4,6 +4,9 @@
 // LOTWATCH_TEST_POSTGRES (dropped when the test ends). Without that
 // variable the PostgreSQL backend is skipped with a message, and fails
 // the test when CI=true.
+//
+// DB gives a test the database of the backend the run is for
+// (LOTWATCH_TEST_BACKEND), so that one suite runs on either.
 package storetest
 
 import (
@@ -23,6 +26,47 @@ import (
 type Backend struct {
 	Name string
 	DB   func(t testing.TB) string
+}
+
+// BackendEnv names the environment variable choosing the backend of DB:
+// "sqlite" (the default, also when empty) or "postgres".
+const BackendEnv = "LOTWATCH_TEST_BACKEND"
+
+// Chosen is the backend this run of the tests is for (BackendEnv); a
+// value naming no backend fails the test, as a misspelt one would
+// otherwise test SQLite while claiming PostgreSQL.
+func Chosen(t testing.TB) Backend {
+	t.Helper()
+	name := os.Getenv(BackendEnv)
+	if name == "" {
+		return Backends[0]
+	}
+	for _, b := range Backends {
+		if b.Name == name {
+			return b
+		}
+	}
+	t.Fatalf("%s=%q names no backend (sqlite or postgres)", BackendEnv, name)
+	return Backend{}
+}
+
+// DB returns the --db value of a new, empty database of the chosen
+// backend (see Chosen): a SQLite file by default, a schema of its own on
+// the test server under LOTWATCH_TEST_BACKEND=postgres.
+func DB(t testing.TB) string {
+	t.Helper()
+	return Chosen(t).DB(t)
+}
+
+// SQLiteOnly skips the test under another backend: for a test about the
+// SQLite file itself (its folder, its mode, a full or read-only disk),
+// which has no counterpart on a database server. why says what it is
+// about.
+func SQLiteOnly(t testing.TB, why string) {
+	t.Helper()
+	if b := Chosen(t); b.Name != "sqlite" {
+		t.Skipf("SQLite only (%s): not run on %s", why, b.Name)
+	}
 }
 
 // Backends is the table of backends every such test runs on.

@@ -84,7 +84,7 @@ func New(db *store.DB, log *slog.Logger) *Metrics {
 	}))
 	m.reg.MustRegister(prometheus.NewGaugeFunc(prometheus.GaugeOpts{
 		Name: "lotwatch_database_size_bytes",
-		Help: "Size of the database on disk: the file and its write-ahead log.",
+		Help: "Size of the database on disk: the file and its write-ahead log (on PostgreSQL, the tables of its schema with their indexes).",
 	}, func() float64 {
 		n, err := db.FileSize()
 		if err != nil {

@@ -6,7 +6,6 @@ import (
 	"log/slog"
 	"net/http"
 	"net/http/httptest"
-	"path/filepath"
 	"strconv"
 	"strings"
 	"testing"
@@ -16,6 +15,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 	"lotwatch/web"
 )
 
@@ -63,7 +63,7 @@ func scrape(t *testing.T, url string) map[string]float64 {
 // lot is posted, and the other figures move with what the server does.
 func TestMetricsCountPostedLot(t *testing.T) {
 	ctx := context.Background()
-	db, err := store.Open(filepath.Join(t.TempDir(), "lotwatch.db"))
+	db, err := store.Open(storetest.DB(t))
 	if err != nil {
 		t.Fatal(err)
 	}

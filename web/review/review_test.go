@@ -14,6 +14,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 )
 
 var ctx = context.Background()
@@ -237,7 +238,7 @@ func TestReferenceFake(t *testing.T) {
 // each lot was found by Python's zoneinfo and isocalendar.
 func TestReferenceWithStore(t *testing.T) {
 	ref := loadReference(t)
-	db, err := store.Open(filepath.Join(t.TempDir(), "review.db"))
+	db, err := store.Open(storetest.DB(t))
 	if err != nil {
 		t.Fatal(err)
 	}

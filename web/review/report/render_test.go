@@ -18,6 +18,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 	"lotwatch/web/review"
 )
 
@@ -50,7 +51,7 @@ func referenceStore(t *testing.T) (*store.DB, string) {
 	if err := json.Unmarshal(b, &ref); err != nil {
 		t.Fatal(err)
 	}
-	db, err := store.Open(filepath.Join(t.TempDir(), "review.db"))
+	db, err := store.Open(storetest.DB(t))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -265,7 +266,7 @@ func TestAnnotationText(t *testing.T) {
 // for a rise to 5% from the trial centre catches the rise (Page 1954; its
 // decision interval by spc.DesignCUSUM).
 func TestShiftWording(t *testing.T) {
-	db, err := store.Open(filepath.Join(t.TempDir(), "shift.db"))
+	db, err := store.Open(storetest.DB(t))
 	if err != nil {
 		t.Fatal(err)
 	}
