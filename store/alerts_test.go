@@ -76,8 +76,8 @@ func TestAlertOutbox(t *testing.T) {
 		if _, err := db.AddLots(ctx, "tester", p.ID, []LotInput{{Lot: "A1", Inspected: 100, Count: 1}}); err != nil {
 			t.Fatal(err)
 		}
-		if ok, _ := db.HasPendingAlertEvents(ctx); ok {
-			t.Fatal("a lot of a process without rules was queued")
+		if ok, err := db.HasPendingAlertEvents(ctx); ok || err != nil {
+			t.Fatalf("a lot of a process without rules was queued (%v)", err)
 		}
 		r, err := db.AddAlertRule(ctx, "tester", AlertRule{ProcessID: p.ID, Webhook: "http://127.0.0.1:9/", Secret: "s"})
 		if err != nil {
@@ -94,6 +94,9 @@ func TestAlertOutbox(t *testing.T) {
 		if _, err := db.AddLots(ctx, "tester", p.ID, []LotInput{{Lot: "A2", Inspected: 100, Count: 1, Time: lots[0].Time}}); err != nil {
 			t.Fatal(err)
 		}
+		if ok, err := db.HasPendingAlertEvents(ctx); !ok || err != nil {
+			t.Fatalf("the lots queued are not pending (%v)", err)
+		}
 		one, err := db.ClaimAlertEvents(ctx, "one", time.Minute, 10)
 		if err != nil || len(one) != 2 || one[0].LotID != lots[0].ID || one[1].LotID != lots[1].ID {
 			t.Fatalf("claim: %+v %v", one, err)
@@ -107,8 +110,8 @@ func TestAlertOutbox(t *testing.T) {
 				t.Fatal(err)
 			}
 		}
-		if ok, _ := db.HasPendingAlertEvents(ctx); ok {
-			t.Error("finished events still pending")
+		if ok, err := db.HasPendingAlertEvents(ctx); ok || err != nil {
+			t.Errorf("finished events still pending (%v)", err)
 		}
 		ds, _ := db.Deliveries(ctx, r.ID, 10)
 		if len(ds) != 1 || ds[0].State != DeliveryPending {
