@@ -8,6 +8,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"strings"
 	"time"
 )
 
@@ -59,8 +60,13 @@ func entryHash(e *AuditEntry) string {
 	return hex.EncodeToString(h.Sum(nil))
 }
 
-func (db *DB) loadChain(ctx context.Context) error {
-	return db.w.QueryRowContext(ctx, "SELECT seq, hash FROM audit_head WHERE id = 1").Scan(&db.chain.seq, &db.chain.hash)
+// checkChain reads the chain head once at open: a database without one is
+// not a lotwatch database.
+func checkChain(ctx context.Context, q interface {
+	QueryRowContext(context.Context, string, ...any) *sql.Row
+}) error {
+	var head chainHead
+	return q.QueryRowContext(ctx, qHeadSelect).Scan(&head.seq, &head.hash)
 }
 
 func toJSON(v any) string {
@@ -74,16 +80,12 @@ func toJSON(v any) string {
 	return string(b)
 }
 
-// audit appends one entry to the chain inside the writer transaction.
+// audit records one entry of the audit trail in the writer transaction.
+// The entry is chained and written when the batch ends (settle), with the
+// batch's other entries.
 func (w *wtx) audit(actor, action, entity string, id, to int64, old, new any, reason string) error {
-	db := w.db
-	e := AuditEntry{At: w.now, Actor: actor, Action: action, Entity: entity,
-		EntityID: id, EntityTo: to, Old: toJSON(old), New: toJSON(new), Reason: reason}
-	head, err := db.appendAudit(w.Tx, db.chain, &e)
-	if err != nil {
-		return err
-	}
-	db.chain = head
+	w.entries = append(w.entries, AuditEntry{At: w.now, Actor: actor, Action: action, Entity: entity,
+		EntityID: id, EntityTo: to, Old: toJSON(old), New: toJSON(new), Reason: reason})
 	return nil
 }
 
@@ -91,16 +93,52 @@ func (w *wtx) audit(actor, action, entity string, id, to int64, old, new any, re
 // Hash) and moves the chain head in audit_head; it returns the new head.
 // db may be nil (during a migration).
 func (db *DB) appendAudit(tx *sql.Tx, head chainHead, e *AuditEntry) (chainHead, error) {
-	e.Seq, e.PrevHash = head.seq+1, head.hash
-	e.Hash = entryHash(e)
-	if _, err := db.execIn(tx, qAuditInsert,
-		e.Seq, e.At.UnixNano(), e.Actor, e.Action, e.Entity, e.EntityID, e.EntityTo, e.Old, e.New, e.Reason, e.PrevHash, e.Hash); err != nil {
-		return head, fmt.Errorf("store: audit: %w", err)
+	es := []AuditEntry{*e}
+	head, err := db.insertAudit(tx, head, es)
+	if err != nil {
+		return head, err
 	}
-	if _, err := db.execIn(tx, qHeadUpdate, e.Seq, e.Hash); err != nil {
-		return head, fmt.Errorf("store: audit head: %w", err)
+	*e = es[0]
+	return head, db.moveHead(tx, head)
+}
+
+// auditRowsPerInsert bounds the rows of one INSERT (12 values each; SQLite
+// takes up to 32,766 values in a statement, PostgreSQL 65,535).
+const auditRowsPerInsert = 64
+
+// insertAudit writes es as the entries after head, in order (filling their
+// Seq, PrevHash and Hash), and returns the new head, leaving audit_head
+// to moveHead. Several entries go in one statement: a batch's entries
+// cost a round trip to PostgreSQL, not one each.
+func (db *DB) insertAudit(tx *sql.Tx, head chainHead, es []AuditEntry) (chainHead, error) {
+	for len(es) > 0 {
+		n := min(len(es), auditRowsPerInsert)
+		args := make([]any, 0, 12*n)
+		for i := range es[:n] {
+			e := &es[i]
+			e.Seq, e.PrevHash = head.seq+1, head.hash
+			e.Hash = entryHash(e)
+			head = chainHead{e.Seq, e.Hash}
+			args = append(args, e.Seq, e.At.UnixNano(), e.Actor, e.Action, e.Entity, e.EntityID, e.EntityTo, e.Old, e.New, e.Reason, e.PrevHash, e.Hash)
+		}
+		q := qAuditInsert
+		if n > 1 {
+			q += strings.Repeat(", (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)", n-1)
+		}
+		if _, err := db.execIn(tx, q, args...); err != nil {
+			return head, fmt.Errorf("store: audit: %w", err)
+		}
+		es = es[n:]
 	}
-	return chainHead{e.Seq, e.Hash}, nil
+	return head, nil
+}
+
+// moveHead records head as the chain's last entry.
+func (db *DB) moveHead(tx *sql.Tx, head chainHead) error {
+	if _, err := db.execIn(tx, qHeadUpdate, head.seq, head.hash); err != nil {
+		return fmt.Errorf("store: audit head: %w", err)
+	}
+	return nil
 }
 
 const auditCols = "seq, at, actor, action, entity, entity_id, entity_to, old, new, reason, prev_hash, hash"

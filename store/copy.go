@@ -56,7 +56,7 @@ func copyRecord(ctx context.Context, src, dst *DB, prepare func(*wtx) error) (Au
 		if _, err := w.Exec(qHeadUpdate, head.seq, head.hash); err != nil {
 			return err
 		}
-		w.db.chain = head
+		w.head = head // the batch's entries go on from the copied trail
 		return nil
 	})
 	if err != nil {

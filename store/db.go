@@ -33,7 +33,11 @@ type dialect struct {
 	// headSelect reads the audit chain head at the start of each writer
 	// transaction. SQLite's BEGIN IMMEDIATE already holds the file's write
 	// lock; on PostgreSQL the row lock makes the writers of several
-	// servers append to the chain one after another.
+	// servers take turns, as SQLite's one writer does: each appends to
+	// the chain after the last, a process's lot ids follow the commits
+	// (the chart cache reads the lots above the highest id it holds; an
+	// audit entry names its lots by an id range), and no two writers
+	// wait for each other's rows.
 	headSelect string
 	// lotsRead names the lots table for reading a process's lots in time
 	// order: SQLite is told to use its covering index.
@@ -141,8 +145,6 @@ type DB struct {
 	// commitHook, when set, is told of each committed transaction.
 	commitHook atomic.Pointer[func(time.Duration, int)]
 
-	// chain is the audit chain head, owned by the writer goroutine.
-	chain chainHead
 	// hot holds the writer's most frequent statements, prepared once on
 	// its connection (preparing costs about as much as running them).
 	hot map[string]*sql.Stmt
@@ -150,14 +152,17 @@ type DB struct {
 
 // Statements the writer runs for nearly every job.
 const (
-	qSavepoint   = "SAVEPOINT job"
-	qRelease     = "RELEASE job"
-	qHeadSelect  = "SELECT seq, hash FROM audit_head WHERE id = 1"
-	qHeadUpdate  = "UPDATE audit_head SET seq = ?, hash = ? WHERE id = 1"
-	qAuditInsert = `INSERT INTO audit (seq, at, actor, action, entity, entity_id, entity_to, old, new, reason, prev_hash, hash)
+	qSavepoint = "SAVEPOINT job"
+	qRelease   = "RELEASE job"
+	// qNextSavepoint has no arguments: PostgreSQL takes both statements
+	// in one message (the simple query protocol).
+	qNextSavepoint = "RELEASE job; SAVEPOINT job"
+	qHeadSelect    = "SELECT seq, hash FROM audit_head WHERE id = 1"
+	qHeadUpdate    = "UPDATE audit_head SET seq = ?, hash = ? WHERE id = 1"
+	qAuditInsert   = `INSERT INTO audit (seq, at, actor, action, entity, entity_id, entity_to, old, new, reason, prev_hash, hash)
 		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)`
-	qBumpVersion = `INSERT INTO lot_versions (process_id, version, rewrites) VALUES (?, 1, ?)
-		ON CONFLICT (process_id) DO UPDATE SET version = lot_versions.version + 1, rewrites = lot_versions.rewrites + excluded.rewrites`
+	qBumpVersion = `INSERT INTO lot_versions (process_id, version, rewrites) VALUES (?, ?, ?)
+		ON CONFLICT (process_id) DO UPDATE SET version = lot_versions.version + excluded.version, rewrites = lot_versions.rewrites + excluded.rewrites`
 	qLotInsert = `INSERT INTO lots (process_id, lot, time, shift, inspected, count, categories, inspector, note, revision, voided, recorded, recorded_by)
 		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, 1, 0, ?, ?) ON CONFLICT (process_id, lot) DO NOTHING RETURNING id`
 	qLotByCode   = "SELECT " + lotCols + " FROM lots WHERE process_id = ? AND lot = ?"
@@ -274,7 +279,7 @@ func open(path string) (*DB, error) {
 	r.SetMaxOpenConns(8)
 	r.SetMaxIdleConns(8)
 	db := &DB{path: path, d: sqliteDialect, w: w, r: r, jobs: make(chan *job, 256), quit: make(chan struct{}), done: make(chan struct{})}
-	if err := db.loadChain(context.Background()); err != nil {
+	if err := checkChain(context.Background(), db.w); err != nil {
 		db.w.Close()
 		db.r.Close()
 		return nil, err
@@ -373,6 +378,14 @@ type wtx struct {
 	*sql.Tx
 	db  *DB
 	now time.Time
+
+	// The audit chain's head when the batch began, and what the jobs
+	// leave for its end (see settle).
+	head    chainHead
+	entries []AuditEntry
+	bumps   []versionBump
+	// procs holds the processes read by activeProcess in this batch.
+	procs map[int64]Process
 }
 
 const maxBatch = 128
@@ -428,40 +441,26 @@ func (db *DB) runBatch(batch []*job) {
 		return
 	}
 	w := &wtx{Tx: tx, db: db, now: time.Now()}
-	// Another program (a command-line import while the server runs) may
-	// have written since: take the chain head as the file has it now,
-	// under this transaction's write lock.
-	if err := db.queryRowIn(tx, db.d.headSelect).Scan(&db.chain.seq, &db.chain.hash); err != nil {
+	// Another program (a command-line import while the server runs,
+	// another server on the same PostgreSQL database) may have written
+	// since: take the chain head as the database has it now, under this
+	// transaction's write lock.
+	if err := db.queryRowIn(tx, db.d.headSelect).Scan(&w.head.seq, &w.head.hash); err != nil {
 		tx.Rollback()
 		fail(fmt.Errorf("store: audit head: %w", err))
 		return
 	}
-	saved := db.chain
-	for i, j := range batch {
-		before := db.chain
-		if _, err := db.execIn(tx, qSavepoint); err != nil {
-			errs[i] = err
-			continue
-		}
-		errs[i] = j.fn(w)
-		if errs[i] != nil {
-			db.chain = before
-			if _, err := tx.Exec("ROLLBACK TO job"); err != nil {
-				tx.Rollback()
-				db.chain = saved
-				fail(fmt.Errorf("store: rollback to savepoint: %w", err))
-				return
-			}
-		}
-		if _, err := db.execIn(tx, qRelease); err != nil {
-			tx.Rollback()
-			db.chain = saved
-			fail(fmt.Errorf("store: release savepoint: %w", err))
-			return
-		}
+	if err := w.runJobs(batch, errs); err != nil {
+		tx.Rollback()
+		fail(err)
+		return
+	}
+	if err := w.settle(); err != nil {
+		tx.Rollback()
+		fail(err)
+		return
 	}
 	if err := tx.Commit(); err != nil {
-		db.chain = saved
 		fail(fmt.Errorf("store: commit: %w", err))
 		return
 	}
@@ -474,6 +473,34 @@ func (db *DB) runBatch(batch []*job) {
 		}
 		j.err <- errs[i]
 	}
+}
+
+// runJobs runs each job of the batch in its own savepoint, so that a job
+// that fails leaves the others' work in place; its error goes to errs.
+// Between two jobs one statement ends a savepoint and begins the next: a
+// round trip fewer on PostgreSQL.
+func (w *wtx) runJobs(batch []*job, errs []error) error {
+	if _, err := w.db.execIn(w.Tx, qSavepoint); err != nil {
+		return fmt.Errorf("store: savepoint: %w", err)
+	}
+	for i, j := range batch {
+		if i > 0 {
+			if _, err := w.Exec(qNextSavepoint); err != nil {
+				return fmt.Errorf("store: savepoint: %w", err)
+			}
+		}
+		entries, bumps := len(w.entries), len(w.bumps)
+		if errs[i] = j.fn(w); errs[i] != nil {
+			w.entries, w.bumps = w.entries[:entries], w.bumps[:bumps]
+			if _, err := w.Exec("ROLLBACK TO job"); err != nil {
+				return fmt.Errorf("store: rollback to savepoint: %w", err)
+			}
+		}
+	}
+	if _, err := w.db.execIn(w.Tx, qRelease); err != nil {
+		return fmt.Errorf("store: release savepoint: %w", err)
+	}
+	return nil
 }
 
 // write runs fn in the writer transaction and returns once it is committed

@@ -270,13 +270,25 @@ func (a *lotAdder) finish(how string, lots []LotInput, extra map[string]any) err
 	return a.w.audit(a.actor, how, "lot", a.first, a.last, nil, rec, "")
 }
 
+// activeProcess reads the process lots are added to. The batch keeps what
+// it read: the stations posting to one process read it once a batch, not
+// once a lot (a change of the process in the batch drops it, see
+// updateProcess).
 func (w *wtx) activeProcess(id int64) (Process, error) {
-	p, err := scanProcess(w.db.queryRowIn(w.Tx, qProcessByID, id))
-	if errors.Is(err, sql.ErrNoRows) {
-		return Process{}, fmt.Errorf("process %d: %w", id, ErrNotFound)
-	}
-	if err != nil {
-		return Process{}, err
+	p, ok := w.procs[id]
+	if !ok {
+		var err error
+		p, err = scanProcess(w.db.queryRowIn(w.Tx, qProcessByID, id))
+		if errors.Is(err, sql.ErrNoRows) {
+			return Process{}, fmt.Errorf("process %d: %w", id, ErrNotFound)
+		}
+		if err != nil {
+			return Process{}, err
+		}
+		if w.procs == nil {
+			w.procs = map[int64]Process{}
+		}
+		w.procs[id] = p
 	}
 	if !p.Active {
 		return Process{}, errRetired(p)

@@ -150,7 +150,7 @@ func openPostgresAs(raw, app string) (*DB, error) {
 	r.SetMaxOpenConns(8)
 	r.SetMaxIdleConns(8)
 	db := &DB{path: name, d: postgresDialect, w: w, r: r, jobs: make(chan *job, 256), quit: make(chan struct{}), done: make(chan struct{})}
-	if err := db.loadChain(ctx); err != nil {
+	if err := checkChain(ctx, db.w); err != nil {
 		w.Close()
 		r.Close()
 		return nil, scrub(err, secrets)

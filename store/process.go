@@ -388,6 +388,7 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 		if err != nil {
 			return err
 		}
+		delete(w.procs, p.ID)
 		if err := w.bumpVersion(p.ID, true); err != nil {
 			return err
 		}

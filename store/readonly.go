@@ -78,7 +78,7 @@ func openReadOnly(path string) (*DB, error) {
 		return nil, fmt.Errorf("store: %s is read-only and has schema version %d; this lotwatch needs %d: open it once where it can be written, to upgrade it", path, v, SchemaVersion())
 	}
 	db := &DB{path: path, d: sqliteDialect, r: r, readOnly: true, jobs: make(chan *job, 1), quit: make(chan struct{}), done: make(chan struct{})}
-	if err := db.r.QueryRow(qHeadSelect).Scan(&db.chain.seq, &db.chain.hash); err != nil {
+	if err := checkChain(context.Background(), db.r); err != nil {
 		r.Close()
 		return nil, fmt.Errorf("store: %s: audit head: %w", path, err)
 	}

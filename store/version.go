@@ -6,6 +6,7 @@ import (
 	"errors"
 	"fmt"
 	"os"
+	"slices"
 )
 
 // LotsVersion is the change counter of what a process's chart is drawn
@@ -32,15 +33,61 @@ func (db *DB) LotsVersion(ctx context.Context, processID int64) (LotsVersion, er
 	return v, err
 }
 
+// versionBump is one change of a process's chart data, counted in
+// lot_versions when the batch ends.
+type versionBump struct {
+	processID int64
+	rewrite   bool
+}
+
 // bumpVersion counts a change of the process's chart data in the writer
-// transaction.
+// transaction (written by settle, with the batch's other counts).
 func (w *wtx) bumpVersion(processID int64, rewrite bool) error {
-	r := 0
-	if rewrite {
-		r = 1
+	w.bumps = append(w.bumps, versionBump{processID, rewrite})
+	return nil
+}
+
+// settle writes what the batch's jobs left for its end: the audit entries,
+// chained after the head the batch began with, and the change counters of
+// the processes written. A batch thus moves the chain head and each
+// process's counter once, however many jobs it carries.
+func (w *wtx) settle() error {
+	if len(w.entries) > 0 {
+		head, err := w.db.insertAudit(w.Tx, w.head, w.entries)
+		if err != nil {
+			return err
+		}
+		if err := w.db.moveHead(w.Tx, head); err != nil {
+			return err
+		}
 	}
-	_, err := w.db.execIn(w.Tx, qBumpVersion, processID, r)
-	return err
+	return w.writeBumps()
+}
+
+// writeBumps adds the batch's changes to each process's counters.
+func (w *wtx) writeBumps() error {
+	type count struct{ versions, rewrites int64 }
+	counts := map[int64]*count{}
+	var ids []int64
+	for _, b := range w.bumps {
+		c := counts[b.processID]
+		if c == nil {
+			c = &count{}
+			counts[b.processID] = c
+			ids = append(ids, b.processID)
+		}
+		c.versions++
+		if b.rewrite {
+			c.rewrites++
+		}
+	}
+	slices.Sort(ids)
+	for _, id := range ids {
+		if _, err := w.db.execIn(w.Tx, qBumpVersion, id, counts[id].versions, counts[id].rewrites); err != nil {
+			return fmt.Errorf("store: process %d change counter: %w", id, err)
+		}
+	}
+	return nil
 }
 
 // AllLotsVersions returns the change counter of every process that has
