@@ -13,7 +13,8 @@ import (
 
 // copyTables are the tables of a plant's record in an order that keeps
 // every reference pointing backwards. audit_head is copied after them
-// (one row), schema_migrations never (each database records its own).
+// (one row), schema_migrations never (each database records its own),
+// nor the counts of failed sign-ins (signinTables: no part of the record).
 var copyTables = []string{"users", "sessions", "tokens", "processes", "lots", "lot_revisions", "lot_versions",
 	"limit_sets", "annotations", "audit", "alert_rules", "alert_events", "alert_batches", "alert_deliveries", "alert_attempts",
 	"plant_settings"}
@@ -78,6 +79,9 @@ func knowsEveryTable(ctx context.Context, tx *sql.Tx, d *dialect) error {
 	}
 	defer rows.Close()
 	known := map[string]bool{"audit_head": true, "schema_migrations": true}
+	for _, t := range signinTables {
+		known[t] = true
+	}
 	for _, t := range copyTables {
 		known[t] = true
 	}

@@ -87,10 +87,13 @@ func openReadOnly(path string) (*DB, error) {
 }
 
 // memSessions are the sign-in sessions of a read-only database, and
-// those begun on a full disk.
+// those begun on a full disk; attempts are its failed sign-ins (see
+// RecordSignInFailure).
 type memSessions struct {
 	mu sync.Mutex
 	m  map[string]*memSession // by the id's hash
+
+	attempts memAttempts
 }
 
 type memSession struct {

@@ -91,7 +91,7 @@ func (s *Server) signIn(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	addr := s.clientAddr(r)
-	if wait := s.gate.wait(name, addr); wait > 0 {
+	if wait := s.gate.wait(r.Context(), name, addr); wait > 0 {
 		w.Header().Set("Retry-After", retryAfter(wait))
 		again(refuse(errTooMany, "Too many sign-in attempts. Wait "+retryAfter(wait)+" seconds and try again.", ""))
 		return
@@ -107,7 +107,7 @@ func (s *Server) signIn(w http.ResponseWriter, r *http.Request) {
 	if errors.Is(err, store.ErrBadCredentials) {
 		s.log.Warn("sign-in refused", "name", name, "addr", addr)
 		msg := "The user name or password is not right."
-		if wait := s.gate.fail(name, addr); wait > 0 {
+		if wait := s.gate.fail(r.Context(), name, addr); wait > 0 {
 			msg += " Too many failed attempts: wait " + retryAfter(wait) + " seconds before the next."
 		}
 		again(refuse(errSignIn, msg, ""))
@@ -130,7 +130,7 @@ func (s *Server) signIn(w http.ResponseWriter, r *http.Request) {
 		s.internalError(w, r, err)
 		return
 	}
-	s.gate.succeed(name, addr)
+	s.gate.succeed(r.Context(), name, addr)
 	s.setSessionCookie(w, raw)
 	s.log.Info("signed in", "user", u.Name, "addr", addr)
 	http.Redirect(w, r, data.Next, http.StatusSeeOther)
@@ -173,7 +173,7 @@ func (s *Server) changePassword(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	addr := s.clientAddr(r)
-	if wait := s.gate.wait(p.user.Name, addr); wait > 0 {
+	if wait := s.gate.wait(r.Context(), p.user.Name, addr); wait > 0 {
 		w.Header().Set("Retry-After", retryAfter(wait))
 		again(refuse(errTooMany, "Too many attempts. Wait "+retryAfter(wait)+" seconds and try again.", ""))
 		return
@@ -191,7 +191,7 @@ func (s *Server) changePassword(w http.ResponseWriter, r *http.Request) {
 	}
 	if _, err := s.db.Authenticate(r.Context(), p.user.Name, current); err != nil {
 		if errors.Is(err, store.ErrBadCredentials) {
-			s.gate.fail(p.user.Name, addr)
+			s.gate.fail(r.Context(), p.user.Name, addr)
 			again(refuse(errSignIn, "The current password is not right.", ""))
 			return
 		}

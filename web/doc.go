@@ -25,7 +25,11 @@
 //     Successful sign-ins are not counted. The client address is
 //     RemoteAddr, or, from a proxy in Config.TrustedProxies (serve
 //     --proxy-addr), the nearest untrusted X-Forwarded-For hop. Names
-//     over 64 bytes are refused before they are counted or logged.
+//     over 64 bytes are refused before they are counted or logged. The
+//     failures are counted in the database (store.RecordSignInFailure),
+//     so every server on one database holds a client to the same count;
+//     a read-only database, or one that cannot take the write, counts in
+//     the server's memory.
 //   - Every page goes through html/template; the chart options travel as a
 //     JSON data block read by /static/charts.js, so the Content-Security-
 //     Policy forbids inline scripts and styles.

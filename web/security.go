@@ -1,14 +1,17 @@
 package web
 
 import (
+	"context"
 	"fmt"
+	"log/slog"
 	"net"
 	"net/http"
 	"net/netip"
 	"strconv"
 	"strings"
-	"sync"
 	"time"
+
+	"lotwatch/store"
 )
 
 // contentSecurityPolicy allows the page to load scripts, styles and images
@@ -127,146 +130,79 @@ const maxNameBytes = 64
 // user name and client address, so that someone guessing one user's
 // password is slowed down without locking that user out everywhere, and
 // per client address with a higher limit, so that one address guessing
-// many names is slowed down too. A name alone is never locked.
+// many names is slowed down too. A name alone is never locked. The
+// counts live in the database (store.DB.RecordSignInFailure), so that
+// every server on it holds a client to the same limits.
 type signInGate struct {
-	pair    *attemptLimiter // keyed by lower-case name, NUL, address
-	addr    *attemptLimiter
+	counts  attemptCounter
+	now     func() time.Time
+	log     *slog.Logger
 	proxies []netip.Prefix
+}
+
+// attemptCounter keeps the failed sign-ins: the store, or in a test
+// anything that counts alike.
+type attemptCounter interface {
+	RecordSignInFailure(ctx context.Context, now time.Time, limits ...store.AttemptLimit) (time.Duration, error)
+	SignInWait(ctx context.Context, now time.Time, keys ...string) (time.Duration, error)
+	ClearSignInFailures(ctx context.Context, now time.Time, key string) error
 }
 
 // Failures allowed within a minute before a block: five per name and
 // address (a user's typos), twenty per address (a shared terminal or an
-// untrusted proxy carries several users' typos). Common practice, no
-// source.
+// untrusted proxy carries several users' typos). A key is blocked for
+// the minute the first time and twice as long each time it is blocked
+// again, up to a quarter of an hour; an hour's quiet clears its record.
+// Successful sign-ins are not counted, so that a shift signing in
+// through one shared address is not held up. Common practice, no source.
 const (
-	pairAttempts = 5
-	addrAttempts = 20
+	pairAttempts  = 5
+	addrAttempts  = 20
+	attemptWindow = time.Minute
+	maxBlock      = 15 * time.Minute
+	forgetAfter   = time.Hour
 )
 
-func newSignInGate(now func() time.Time, proxies []netip.Prefix) *signInGate {
-	return &signInGate{pair: newAttemptLimiter(now, pairAttempts), addr: newAttemptLimiter(now, addrAttempts), proxies: proxies}
+func newSignInGate(counts attemptCounter, now func() time.Time, log *slog.Logger, proxies []netip.Prefix) *signInGate {
+	return &signInGate{counts: counts, now: now, log: log, proxies: proxies}
 }
 
+// pairKey is the key of a name from an address. A client address holds
+// no NUL, so no pair has the key of an address.
 func pairKey(name, addr string) string { return strings.ToLower(name) + "\x00" + addr }
 
-// wait reports how long the name from the address must still wait.
-func (g *signInGate) wait(name, addr string) time.Duration {
-	return max(g.pair.wait(pairKey(name, addr)), g.addr.wait(addr))
+// limit is the rule a key is held to, allowing max failures a minute.
+func limit(key string, max int) store.AttemptLimit {
+	return store.AttemptLimit{Key: key, Max: max, Window: attemptWindow, MaxBlock: maxBlock, Forget: forgetAfter}
 }
 
-// fail records a failure and reports the wait it now causes.
-func (g *signInGate) fail(name, addr string) time.Duration {
-	return max(g.pair.fail(pairKey(name, addr)), g.addr.fail(addr))
-}
-
-// succeed forgets the failures of the name from the address.
-func (g *signInGate) succeed(name, addr string) { g.pair.reset(pairKey(name, addr)) }
-
-// attemptLimiter limits failed sign-in attempts per key (a user name and
-// address, or an address): after max failures within window the key is
-// blocked, for window the first time and twice as long each time it is
-// blocked again (up to maxBlock); a quiet spell of forgetAfter clears its
-// record. Successful sign-ins are not counted, so that a shift signing in
-// through one shared address is not held up. The figures are common
-// practice, no source.
-type attemptLimiter struct {
-	max         int
-	window      time.Duration
-	maxBlock    time.Duration
-	forgetAfter time.Duration
-	now         func() time.Time
-
-	mu    sync.Mutex
-	keys  map[string]*attempts
-	swept time.Time
-}
-
-type attempts struct {
-	fails   []time.Time // failures within the window, oldest first
-	blocked time.Time   // refused until this instant
-	strikes int         // times the key was blocked
-	last    time.Time
-}
-
-func newAttemptLimiter(now func() time.Time, max int) *attemptLimiter {
-	return &attemptLimiter{
-		max:         max,
-		window:      time.Minute,
-		maxBlock:    15 * time.Minute,
-		forgetAfter: time.Hour,
-		now:         now,
-		keys:        map[string]*attempts{},
-	}
-}
-
-// wait reports how long the longest block among the keys still lasts;
-// 0 lets the attempt go ahead.
-func (l *attemptLimiter) wait(keys ...string) time.Duration {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	now := l.now()
-	var w time.Duration
-	for _, k := range keys {
-		if a := l.keys[k]; a != nil && now.Before(a.blocked) {
-			w = max(w, a.blocked.Sub(now))
-		}
+// wait reports how long the name from the address must still wait. If the
+// database cannot be read, the failures this server counted in memory
+// still hold (the store answers with them) and the trouble is logged.
+func (g *signInGate) wait(ctx context.Context, name, addr string) time.Duration {
+	w, err := g.counts.SignInWait(ctx, g.now(), pairKey(name, addr), addr)
+	if err != nil {
+		g.log.Warn("sign-in limits: database not read, this server's own counts used", "err", err)
 	}
 	return w
 }
 
-// fail records a failed attempt against every key and reports how long
-// the keys are now blocked (0 if none is).
-func (l *attemptLimiter) fail(keys ...string) time.Duration {
-	l.mu.Lock()
-	defer l.mu.Unlock()
-	now := l.now()
-	l.sweep(now)
-	var w time.Duration
-	for _, k := range keys {
-		a := l.keys[k]
-		if a == nil || now.Sub(a.last) > l.forgetAfter {
-			a = &attempts{}
-			l.keys[k] = a
-		}
-		a.last = now
-		cut := 0
-		for cut < len(a.fails) && now.Sub(a.fails[cut]) >= l.window {
-			cut++
-		}
-		a.fails = append(a.fails[cut:], now)
-		if len(a.fails) >= l.max {
-			block := l.window << a.strikes
-			if block > l.maxBlock || block <= 0 {
-				block = l.maxBlock
-			}
-			a.strikes++
-			a.blocked = now.Add(block)
-			a.fails = a.fails[:0]
-		}
-		if now.Before(a.blocked) {
-			w = max(w, a.blocked.Sub(now))
-		}
+// fail records a failure and reports the wait it now causes. A failure
+// the database cannot take is counted in memory by the store, and the
+// trouble logged.
+func (g *signInGate) fail(ctx context.Context, name, addr string) time.Duration {
+	w, err := g.counts.RecordSignInFailure(ctx, g.now(), limit(pairKey(name, addr), pairAttempts), limit(addr, addrAttempts))
+	if err != nil {
+		g.log.Warn("sign-in limits: failure not written, counted by this server alone", "err", err)
 	}
 	return w
 }
 
-// reset forgets a key, after a successful sign-in for its user name.
-func (l *attemptLimiter) reset(key string) {
-	l.mu.Lock()
-	delete(l.keys, key)
-	l.mu.Unlock()
-}
-
-// sweep drops forgotten keys now and then so that the map stays small.
-func (l *attemptLimiter) sweep(now time.Time) {
-	if now.Sub(l.swept) < l.window {
-		return
-	}
-	l.swept = now
-	for k, a := range l.keys {
-		if now.Sub(a.last) > l.forgetAfter && !now.Before(a.blocked) {
-			delete(l.keys, k)
-		}
+// succeed forgets the failures of the name from the address; the
+// address's own count stays.
+func (g *signInGate) succeed(ctx context.Context, name, addr string) {
+	if err := g.counts.ClearSignInFailures(ctx, g.now(), pairKey(name, addr)); err != nil {
+		g.log.Warn("sign-in limits: earlier failures not cleared", "err", err)
 	}
 }
 

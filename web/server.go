@@ -103,7 +103,7 @@ func NewServer(cfg Config) (*Server, error) {
 	if s.now == nil {
 		s.now = time.Now
 	}
-	s.gate = newSignInGate(s.now, cfg.TrustedProxies)
+	s.gate = newSignInGate(cfg.DB, s.now, s.log, cfg.TrustedProxies)
 	uploads, err := newUploads()
 	if err != nil {
 		return nil, err
