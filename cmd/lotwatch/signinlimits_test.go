@@ -2,13 +2,21 @@ package main
 
 import (
 	"io"
-	"lotwatch/store/storetest"
+	"log/slog"
 	"net/http"
+	"net/http/httptest"
 	"net/url"
+	"os"
 	"os/exec"
+	"path/filepath"
 	"strconv"
 	"strings"
 	"testing"
+	"time"
+
+	"lotwatch/store"
+	"lotwatch/store/storetest"
+	"lotwatch/web"
 )
 
 // TestTwoServersShareSignInLimits runs two `lotwatch serve` on one
@@ -68,5 +76,60 @@ func TestTwoServersShareSignInLimits(t *testing.T) {
 		if code, _, _ := signIn(base, "ana", "shared-limits-pass"); code != http.StatusSeeOther {
 			t.Errorf("%s, another name from the same address: %d, want 303", base, code)
 		}
+	}
+}
+
+// TestReadOnlyServerLimitsSignIns: a server of a database on read-only
+// media counts failed sign-ins in its memory: five bad passwords for a
+// name from one address block it there (429, Retry-After 60), another
+// address still signs the user in, and the file is left as it was.
+//
+// SQLite only: read-only files.
+func TestReadOnlyServerLimitsSignIns(t *testing.T) {
+	media := t.TempDir()
+	plant := filepath.Join(media, "plant.db")
+	if code, out, errs := runCLI(t, "a-long-password\n", "user", "add", "--db", plant, "--name", "ana", "--role", "viewer", "--as", "t"); code != exitOK {
+		t.Fatalf("user add: %d %s %s", code, out, errs)
+	}
+	before, err := os.ReadFile(plant)
+	if err != nil {
+		t.Fatal(err)
+	}
+	readOnlyDir(t, media)
+	db, err := store.Open(plant)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	if !db.ReadOnly() {
+		t.Fatal("not opened read-only")
+	}
+	now := time.Date(2026, 3, 2, 8, 0, 0, 0, time.UTC)
+	srv, err := web.NewServer(web.Config{DB: db, Now: func() time.Time { return now }, Logger: slog.New(slog.NewTextHandler(io.Discard, nil))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	signIn := func(password, addr string) *httptest.ResponseRecorder {
+		r := httptest.NewRequest("POST", "http://lotwatch.test/signin", strings.NewReader("name=ana&password="+password))
+		r.Header.Set("Content-Type", "application/x-www-form-urlencoded")
+		r.Header.Set("Sec-Fetch-Site", "same-origin")
+		r.RemoteAddr = addr + ":40000"
+		rec := httptest.NewRecorder()
+		srv.Handler().ServeHTTP(rec, r)
+		return rec
+	}
+	for i := range 5 {
+		if rec := signIn("wrong-password", "10.0.0.1"); rec.Code != http.StatusUnauthorized {
+			t.Fatalf("wrong password %d: %d, want 401", i+1, rec.Code)
+		}
+	}
+	if rec := signIn("a-long-password", "10.0.0.1"); rec.Code != http.StatusTooManyRequests || rec.Header().Get("Retry-After") != "60" {
+		t.Errorf("the right password from the failing address: %d Retry-After %q, want 429 and 60", rec.Code, rec.Header().Get("Retry-After"))
+	}
+	if rec := signIn("a-long-password", "10.0.0.2"); rec.Code != http.StatusSeeOther {
+		t.Errorf("the right password from another address: %d, want 303", rec.Code)
+	}
+	if after, _ := os.ReadFile(plant); string(after) != string(before) {
+		t.Error("sign-ins changed the read-only file")
 	}
 }
