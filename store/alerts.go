@@ -290,17 +290,40 @@ func alertRule(ctx context.Context, q ctxQueryer, id int64) (AlertRule, error) {
 	return r, err
 }
 
-// qAlertEvents queues the lots first..last of a process for judging when
-// the process has a rule in force; it runs in the lots' transaction.
-const qAlertEvents = `INSERT INTO alert_events (lot_id, process_id, created)
-	SELECT id, process_id, ? FROM lots WHERE id BETWEEN ? AND ? AND process_id = ?
-	AND EXISTS (SELECT 1 FROM alert_rules WHERE process_id = ? AND active = 1)`
+// lotRange is the lots first..last of a process, added by one job.
+type lotRange struct{ processID, first, last int64 }
 
 // queueAlertEvents puts the lots first..last in the outbox, in the
-// transaction that stores them, when the process has alert rules.
+// transaction that stores them, when the process has alert rules; they
+// are written with the batch's other lots when it ends (writeAlertEvents).
 func (w *wtx) queueAlertEvents(processID, first, last int64) error {
-	_, err := w.db.execIn(w.Tx, qAlertEvents, w.now.UnixNano(), first, last, processID, processID)
-	return err
+	w.added = append(w.added, lotRange{processID, first, last})
+	return nil
+}
+
+// rangesPerInsert bounds the lot ranges of one outbox statement.
+const rangesPerInsert = 64
+
+// writeAlertEvents queues the lots the batch added for judging, for the
+// processes with a rule in force: one statement for many jobs' lots. The
+// writers take turns (see dialect.headSelect), so a job's id range holds
+// only its own lots of the process.
+func (w *wtx) writeAlertEvents() error {
+	for rs := w.added; len(rs) > 0; rs = rs[min(len(rs), rangesPerInsert):] {
+		args := []any{w.now.UnixNano()}
+		var ranges []string
+		for _, r := range rs[:min(len(rs), rangesPerInsert)] {
+			ranges = append(ranges, "(l.id BETWEEN ? AND ? AND l.process_id = ?)")
+			args = append(args, r.first, r.last, r.processID)
+		}
+		q := `INSERT INTO alert_events (lot_id, process_id, created)
+			SELECT l.id, l.process_id, ? FROM lots l WHERE (` + strings.Join(ranges, " OR ") + `)
+			AND EXISTS (SELECT 1 FROM alert_rules r WHERE r.process_id = l.process_id AND r.active = 1) ORDER BY l.id`
+		if _, err := w.Exec(q, args...); err != nil {
+			return fmt.Errorf("store: alert outbox: %w", err)
+		}
+	}
+	return nil
 }
 
 // RuleLookBack is how many lots a run rule looks at, at most (the

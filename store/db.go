@@ -169,7 +169,7 @@ const (
 	qProcessByID = "SELECT " + processCols + " FROM processes WHERE id = ?"
 )
 
-var hotQueries = []string{qSavepoint, qRelease, qHeadUpdate, qAuditInsert, qBumpVersion, qLotInsert, qLotByCode, qProcessByID, qAlertEvents}
+var hotQueries = []string{qSavepoint, qRelease, qHeadUpdate, qAuditInsert, qBumpVersion, qLotInsert, qLotByCode, qProcessByID}
 
 func (db *DB) prepareHot() error {
 	db.hot = map[string]*sql.Stmt{}
@@ -371,6 +371,9 @@ type job struct {
 	fn   func(*wtx) error
 	err  chan error
 	post func() // runs after the commit succeeded (e.g. fill results)
+	// again: fn may run a second time, in a new transaction, when
+	// another job of its batch failed (see writeAgain).
+	again bool
 }
 
 // wtx is the writer transaction handed to a job.
@@ -384,6 +387,7 @@ type wtx struct {
 	head    chainHead
 	entries []AuditEntry
 	bumps   []versionBump
+	added   []lotRange
 	// procs holds the processes read by activeProcess in this batch.
 	procs map[int64]Process
 }
@@ -429,39 +433,18 @@ func (db *DB) OnCommit(f func(d time.Duration, writes int)) { db.commitHook.Stor
 
 func (db *DB) runBatch(batch []*job) {
 	start := time.Now()
-	errs := make([]error, len(batch))
-	fail := func(err error) {
+	errs, err := db.tryBatch(batch, len(batch) == 1 || allAgain(batch))
+	if errors.Is(err, errJobFailed) {
+		if len(batch) == 1 {
+			errs, err = []error{errors.Unwrap(err)}, nil // nothing was committed
+		} else {
+			errs, err = db.tryBatch(batch, false)
+		}
+	}
+	if err != nil {
 		for _, j := range batch {
 			j.err <- err
 		}
-	}
-	tx, err := db.w.Begin()
-	if err != nil {
-		fail(fmt.Errorf("store: begin: %w", err))
-		return
-	}
-	w := &wtx{Tx: tx, db: db, now: time.Now()}
-	// Another program (a command-line import while the server runs,
-	// another server on the same PostgreSQL database) may have written
-	// since: take the chain head as the database has it now, under this
-	// transaction's write lock.
-	if err := db.queryRowIn(tx, db.d.headSelect).Scan(&w.head.seq, &w.head.hash); err != nil {
-		tx.Rollback()
-		fail(fmt.Errorf("store: audit head: %w", err))
-		return
-	}
-	if err := w.runJobs(batch, errs); err != nil {
-		tx.Rollback()
-		fail(err)
-		return
-	}
-	if err := w.settle(); err != nil {
-		tx.Rollback()
-		fail(err)
-		return
-	}
-	if err := tx.Commit(); err != nil {
-		fail(fmt.Errorf("store: commit: %w", err))
 		return
 	}
 	if h := db.commitHook.Load(); h != nil {
@@ -473,6 +456,69 @@ func (db *DB) runBatch(batch []*job) {
 		}
 		j.err <- errs[i]
 	}
+}
+
+// errJobFailed wraps the error of a job run without a savepoint: the
+// whole transaction is given up.
+var errJobFailed = errors.New("store: a job failed")
+
+type jobFailed struct{ err error }
+
+func (e jobFailed) Error() string        { return e.err.Error() }
+func (e jobFailed) Unwrap() error        { return e.err }
+func (e jobFailed) Is(target error) bool { return target == errJobFailed }
+
+// allAgain reports whether every job of the batch may run a second time.
+func allAgain(batch []*job) bool {
+	for _, j := range batch {
+		if !j.again {
+			return false
+		}
+	}
+	return true
+}
+
+// tryBatch runs the batch in one transaction and commits it, answering
+// the error of each job. together runs the jobs without savepoints (a
+// round trip fewer each, on PostgreSQL); the first job to fail then gives
+// up the transaction with a jobFailed, and runBatch runs the batch again
+// with each job in its savepoint, or answers a lone job's error.
+func (db *DB) tryBatch(batch []*job, together bool) ([]error, error) {
+	tx, err := db.w.Begin()
+	if err != nil {
+		return nil, fmt.Errorf("store: begin: %w", err)
+	}
+	w := &wtx{Tx: tx, db: db, now: time.Now()}
+	errs := make([]error, len(batch))
+	if err := w.run(batch, together, errs); err != nil {
+		tx.Rollback()
+		return nil, err
+	}
+	if err := tx.Commit(); err != nil {
+		return nil, fmt.Errorf("store: commit: %w", err)
+	}
+	return errs, nil
+}
+
+// run takes the chain head, runs the jobs and settles the batch.
+func (w *wtx) run(batch []*job, together bool, errs []error) error {
+	// Another program (a command-line import while the server runs,
+	// another server on the same PostgreSQL database) may have written
+	// since: take the chain head as the database has it now, under this
+	// transaction's write lock.
+	if err := w.db.queryRowIn(w.Tx, w.db.d.headSelect).Scan(&w.head.seq, &w.head.hash); err != nil {
+		return fmt.Errorf("store: audit head: %w", err)
+	}
+	if together {
+		for _, j := range batch {
+			if err := j.fn(w); err != nil {
+				return jobFailed{err}
+			}
+		}
+	} else if err := w.runJobs(batch, errs); err != nil {
+		return err
+	}
+	return w.settle()
 }
 
 // runJobs runs each job of the batch in its own savepoint, so that a job
@@ -489,9 +535,9 @@ func (w *wtx) runJobs(batch []*job, errs []error) error {
 				return fmt.Errorf("store: savepoint: %w", err)
 			}
 		}
-		entries, bumps := len(w.entries), len(w.bumps)
+		entries, bumps, added := len(w.entries), len(w.bumps), len(w.added)
 		if errs[i] = j.fn(w); errs[i] != nil {
-			w.entries, w.bumps = w.entries[:entries], w.bumps[:bumps]
+			w.entries, w.bumps, w.added = w.entries[:entries], w.bumps[:bumps], w.added[:added]
 			if _, err := w.Exec("ROLLBACK TO job"); err != nil {
 				return fmt.Errorf("store: rollback to savepoint: %w", err)
 			}
@@ -507,10 +553,20 @@ func (w *wtx) runJobs(batch []*job, errs []error) error {
 // (or failed). A write once queued is carried out even if ctx ends, so
 // the caller waits for its outcome.
 func (db *DB) write(ctx context.Context, fn func(*wtx) error) error {
+	return db.submit(ctx, &job{fn: fn, err: make(chan error, 1)})
+}
+
+// writeAgain is write for a job that may run twice: fn changes nothing but
+// the transaction it is given (its results it sets afresh each time).
+// A batch of such jobs runs without a savepoint for each.
+func (db *DB) writeAgain(ctx context.Context, fn func(*wtx) error) error {
+	return db.submit(ctx, &job{fn: fn, err: make(chan error, 1), again: true})
+}
+
+func (db *DB) submit(ctx context.Context, j *job) error {
 	if db.readOnly {
 		return fmt.Errorf("store: %s: %w", db.path, ErrReadOnly)
 	}
-	j := &job{fn: fn, err: make(chan error, 1)}
 	db.mu.RLock()
 	if db.closed {
 		db.mu.RUnlock()

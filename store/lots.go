@@ -309,9 +309,10 @@ func (db *DB) AddLots(ctx context.Context, actor string, processID int64, in []L
 	if len(in) == 0 {
 		return nil, nil
 	}
-	in = append([]LotInput(nil), in...)
+	given := in
 	var out []Lot
-	err := db.write(ctx, func(w *wtx) error {
+	err := db.writeAgain(ctx, func(w *wtx) error {
+		in := append([]LotInput(nil), given...) // a lot without a time takes this run's
 		p, err := w.activeProcess(processID)
 		if err != nil {
 			return err

@@ -48,9 +48,10 @@ func (w *wtx) bumpVersion(processID int64, rewrite bool) error {
 }
 
 // settle writes what the batch's jobs left for its end: the audit entries,
-// chained after the head the batch began with, and the change counters of
-// the processes written. A batch thus moves the chain head and each
-// process's counter once, however many jobs it carries.
+// chained after the head the batch began with, the change counters of the
+// processes written and the alert outbox's new lots. A batch thus moves
+// the chain head and each process's counter once, however many jobs it
+// carries.
 func (w *wtx) settle() error {
 	if len(w.entries) > 0 {
 		head, err := w.db.insertAudit(w.Tx, w.head, w.entries)
@@ -61,7 +62,10 @@ func (w *wtx) settle() error {
 			return err
 		}
 	}
-	return w.writeBumps()
+	if err := w.writeBumps(); err != nil {
+		return err
+	}
+	return w.writeAlertEvents()
 }
 
 // writeBumps adds the batch's changes to each process's counters.
