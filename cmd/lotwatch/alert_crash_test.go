@@ -24,6 +24,7 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 	"lotwatch/web/alert"
 )
 
@@ -125,6 +126,7 @@ func (h *hookSink) received() map[string]int {
 // naming the 5. Limits are frozen (p = 0.02, n = 200: UCL ≈
 // 0.050) so that a lot's verdict does not depend on the others.
 func TestAlertCrashRecovery(t *testing.T) {
+	storetest.SQLiteOnly(t, "checks the killed server's SQLite file and reads it directly")
 	if testing.Short() {
 		t.Skip("builds and kills the server: not in -short")
 	}

@@ -2,7 +2,7 @@ package main
 
 import (
 	"encoding/json"
-	"path/filepath"
+	"lotwatch/store/storetest"
 	"strconv"
 	"strings"
 	"testing"
@@ -13,8 +13,7 @@ import (
 // remove takes a rule out of the list; bad input is one line naming the
 // option and value, exit 2, and stores nothing.
 func TestCLIAlert(t *testing.T) {
-	dir := t.TempDir()
-	db := filepath.Join(dir, "a.db")
+	db := storetest.DB(t)
 	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "Line 2 final", "--as", "qa"); code != exitOK {
 		t.Fatalf("process add: %d %s", code, errs)
 	}
@@ -97,7 +96,7 @@ func TestCLIAlert(t *testing.T) {
 // value, nothing changed), and alert add then refuses a webhook to
 // another host with exit 2 naming --webhook.
 func TestCLIAlertHosts(t *testing.T) {
-	db := filepath.Join(t.TempDir(), "a.db")
+	db := storetest.DB(t)
 	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "Line 2 final", "--as", "qa"); code != exitOK {
 		t.Fatalf("process add: %d %s", code, errs)
 	}

@@ -7,12 +7,12 @@ import (
 	"net/http"
 	"net/http/httptest"
 	"os"
-	"path/filepath"
 	"regexp"
 	"testing"
 	"time"
 
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 	"lotwatch/web"
 )
 
@@ -23,7 +23,7 @@ import (
 // sign-in per role) must be there.
 func TestDemoDatabase(t *testing.T) {
 	ctx := context.Background()
-	db, err := store.Open(filepath.Join(t.TempDir(), "demo.db"))
+	db, err := store.Open(storetest.DB(t))
 	if err != nil {
 		t.Fatal(err)
 	}

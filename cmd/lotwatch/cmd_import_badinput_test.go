@@ -2,7 +2,7 @@ package main
 
 import (
 	"fmt"
-	"path/filepath"
+	"lotwatch/store/storetest"
 	"strings"
 	"testing"
 )
@@ -18,7 +18,7 @@ import (
 // lot file: whole numbers in plain decimal digits.
 func TestCLIImportBadInput(t *testing.T) {
 	dir := t.TempDir()
-	db := filepath.Join(dir, "lotwatch.db")
+	db := storetest.DB(t)
 	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "weld", "--categories", "dent,burr", "--as", "qa"); code != exitOK {
 		t.Fatal(errs)
 	}

@@ -3,7 +3,7 @@ package main
 import (
 	"bytes"
 	"encoding/csv"
-	"path/filepath"
+	"lotwatch/store/storetest"
 	"regexp"
 	"strconv"
 	"strings"
@@ -101,7 +101,7 @@ func TestCLIImportPlantFormats(t *testing.T) {
 	}
 	export := func(name string) string {
 		t.Helper()
-		db := filepath.Join(dir, name+".db")
+		db := storetest.DB(t)
 		if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "weld", "--categories", "dent,burr", "--tz", "Europe/Berlin", "--as", "qa"); code != exitOK {
 			t.Fatal(errs)
 		}
@@ -139,7 +139,7 @@ func TestCLIImportPlantFormats(t *testing.T) {
 // column header and the value.
 func TestCLIImportXLSXBadInput(t *testing.T) {
 	dir := t.TempDir()
-	db := filepath.Join(dir, "lotwatch.db")
+	db := storetest.DB(t)
 	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "weld", "--categories", "dent,burr", "--as", "qa"); code != exitOK {
 		t.Fatal(errs)
 	}
@@ -187,7 +187,7 @@ func TestCLIImportXLSXBadInput(t *testing.T) {
 // on purpose.
 func TestCLIImportUnknownColumn(t *testing.T) {
 	dir := t.TempDir()
-	db := filepath.Join(dir, "lotwatch.db")
+	db := storetest.DB(t)
 	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "paint", "--categories", "discolour,run", "--as", "qa"); code != exitOK {
 		t.Fatal(errs)
 	}
@@ -213,7 +213,7 @@ func timeParseUTC(s string) (time.Time, error) { return time.Parse("2006-01-02 1
 // them as it is kept.
 func TestCLIColumnMapAndDateOrder(t *testing.T) {
 	dir := t.TempDir()
-	db := filepath.Join(dir, "lotwatch.db")
+	db := storetest.DB(t)
 	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "weld", "--categories", "dent", "--tz", "Europe/Berlin", "--as", "qa"); code != exitOK {
 		t.Fatal(errs)
 	}

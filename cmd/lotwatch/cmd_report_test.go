@@ -11,13 +11,14 @@ import (
 
 	"lotwatch/spc"
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 )
 
 // reportDB makes a database with one p process in Europe/Berlin: 2026-W47
 // 12 of 1000 nonconforming, 2026-W48 30 of 1000 (invented for the test).
 func reportDB(t *testing.T) string {
 	t.Helper()
-	path := filepath.Join(t.TempDir(), "lotwatch.db")
+	path := storetest.DB(t)
 	db, err := store.Open(path)
 	if err != nil {
 		t.Fatal(err)

@@ -2,6 +2,7 @@ package main
 
 import (
 	"io"
+	"lotwatch/store/storetest"
 	"net/http"
 	"os/exec"
 	"path/filepath"
@@ -25,7 +26,7 @@ func TestServeMetricsAddr(t *testing.T) {
 	if out, err := exec.Command("go", "build", "-o", bin, ".").CombinedOutput(); err != nil {
 		t.Fatalf("go build: %v\n%s", err, out)
 	}
-	db := filepath.Join(dir, "plant.db")
+	db := storetest.DB(t)
 	for _, args := range [][]string{
 		{"process", "add", "--db", db, "--name", "weld", "--as", "t"},
 		{"user", "add", "--db", db, "--name", "station", "--role", "inspector", "--as", "t"},

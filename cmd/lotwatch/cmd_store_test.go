@@ -9,9 +9,11 @@ import (
 	"strings"
 	"testing"
 
+	_ "github.com/jackc/pgx/v5/stdlib"
 	_ "github.com/mattn/go-sqlite3"
 
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 )
 
 // runCLI runs lotwatch with args and stdin and returns the exit status,
@@ -21,6 +23,15 @@ func runCLI(t *testing.T, stdin string, args ...string) (int, string, string) {
 	var out, errb bytes.Buffer
 	code := run(args, strings.NewReader(stdin), &out, &errb)
 	return code, out.String(), errb.String()
+}
+
+// openRaw opens the database db (a file or a URL) behind lotwatch's back,
+// as someone editing it with plain SQL would.
+func openRaw(db string) (*sql.DB, error) {
+	if store.IsURL(db) {
+		return sql.Open("pgx", db)
+	}
+	return sql.Open("sqlite3", "file:"+db)
 }
 
 func writeFile(t *testing.T, dir, name, content string) string {
@@ -34,7 +45,7 @@ func writeFile(t *testing.T, dir, name, content string) string {
 
 func TestCLIImportExportRoundTrip(t *testing.T) {
 	dir := t.TempDir()
-	db := filepath.Join(dir, "a.db")
+	db := storetest.DB(t)
 	csv := writeFile(t, dir, "lots.csv", "lot,time,shift,inspected,defects,run,sag,note\r\n"+
 		"P1,2025-04-01 07:00,early,12,3,2,1,=cmd\r\n"+
 		"P2,2025-04-01 15:00,late,10,0,,,\"a, b\"\r\n")
@@ -51,7 +62,7 @@ func TestCLIImportExportRoundTrip(t *testing.T) {
 		t.Fatalf("export: %d %q %q", code, exported, errs)
 	}
 	// Into a second database through stdin, then out again: the same text.
-	db2 := filepath.Join(dir, "b.db")
+	db2 := storetest.DB(t)
 	code, out, errs = runCLI(t, exported, "import", "--db", db2, "--process", "paint", "--create", "--tz", "Europe/Berlin", "-")
 	if code != exitOK || !strings.Contains(out, "2 added") {
 		t.Fatalf("import from stdin: %d %q %q", code, out, errs)
@@ -75,7 +86,7 @@ func TestCLIImportExportRoundTrip(t *testing.T) {
 // file, line, column and value.
 func TestCLIImportProblems(t *testing.T) {
 	dir := t.TempDir()
-	db := filepath.Join(dir, "a.db")
+	db := storetest.DB(t)
 	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "weld", "--categories", "dent", "--as", "t"); code != exitOK {
 		t.Fatal(errs)
 	}
@@ -142,6 +153,7 @@ func TestCLIHelp(t *testing.T) {
 }
 
 func TestCLIUsersTokensAuditBackup(t *testing.T) {
+	storetest.SQLiteOnly(t, "backup and restore of the SQLite file, tampered with in place")
 	dir := t.TempDir()
 	db := filepath.Join(dir, "a.db")
 	if code, out, errs := runCLI(t, "s3cret-pass\n", "user", "add", "--db", db, "--name", "ana", "--role", "admin", "--as", "root"); code != exitOK {
@@ -197,7 +209,7 @@ func TestCLIUsersTokensAuditBackup(t *testing.T) {
 // `lotwatch audit verify` names a lot edited with plain SQL and fails.
 func TestCLIAuditVerifyNamesEditedLot(t *testing.T) {
 	dir := t.TempDir()
-	db := filepath.Join(dir, "a.db")
+	db := storetest.DB(t)
 	csv := writeFile(t, dir, "lots.csv", "lot,time,inspected,defective\nH2-1,2025-04-01T07:00:00Z,50,1\nH2-2,2025-04-01T08:00:00Z,50,2\n")
 	if code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "Line 2", "--create", "--as", "kim", csv); code != exitOK {
 		t.Fatalf("import: %q", errs)
@@ -205,7 +217,7 @@ func TestCLIAuditVerifyNamesEditedLot(t *testing.T) {
 	if code, out, _ := runCLI(t, "", "audit", "verify", "--db", db); code != exitOK {
 		t.Fatalf("verify before: %d %q", code, out)
 	}
-	raw, err := sql.Open("sqlite3", "file:"+db)
+	raw, err := openRaw(db)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -223,7 +235,7 @@ func TestCLIAuditVerifyNamesEditedLot(t *testing.T) {
 // refuses a removed category and needs a reason; --retire stops new lots.
 func TestCLIProcessUpdate(t *testing.T) {
 	dir := t.TempDir()
-	db := filepath.Join(dir, "a.db")
+	db := storetest.DB(t)
 	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "Line 2", "--categories", "dent,scratch", "--as", "ana"); code != exitOK {
 		t.Fatalf("add: %q", errs)
 	}
@@ -279,8 +291,7 @@ func TestCLIProcessUpdate(t *testing.T) {
 // `lotwatch token list --format json` lists the tokens' records, never a
 // token itself.
 func TestCLITokenListJSON(t *testing.T) {
-	dir := t.TempDir()
-	db := filepath.Join(dir, "a.db")
+	db := storetest.DB(t)
 	if code, _, errs := runCLI(t, "correct horse battery\n", "user", "add", "--db", db, "--name", "ana", "--role", "inspector"); code != exitOK {
 		t.Fatalf("user add: %q", errs)
 	}
@@ -316,7 +327,7 @@ func TestCLITokenListJSON(t *testing.T) {
 // idempotent, with problems named by file and line.
 func TestCLIImportJSON(t *testing.T) {
 	dir := t.TempDir()
-	db := filepath.Join(dir, "a.db")
+	db := storetest.DB(t)
 	csv := writeFile(t, dir, "lots.csv", "lot,time,shift,inspected,defects,run,sag,note\n"+
 		"P1,2025-04-01 07:00,early,12,3,2,1,=cmd\nP2,2025-04-01 15:00,late,10,0,,,\"a, b\"\n")
 	if code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "paint", "--create", "--tz", "Europe/Berlin", csv); code != exitOK {
@@ -327,7 +338,7 @@ func TestCLIImportJSON(t *testing.T) {
 		t.Fatalf("export: %q", errs)
 	}
 	file := writeFile(t, dir, "paint.json", js)
-	db2 := filepath.Join(dir, "b.db")
+	db2 := storetest.DB(t)
 	code, out, errs := runCLI(t, "", "import", "--db", db2, "--create", "--as", "kim", file)
 	if code != exitOK || !strings.Contains(out, `created process "paint": u chart, categories [run sag], time zone Europe/Berlin`) || !strings.Contains(out, "2 rows, 2 added, 0 unchanged, 0 conflicts") {
 		t.Fatalf("import json: %d %q %q", code, out, errs)

@@ -1,7 +1,7 @@
 package main
 
 import (
-	"path/filepath"
+	"lotwatch/store/storetest"
 	"strings"
 	"testing"
 )
@@ -10,7 +10,7 @@ import (
 // page's form addresses is refused, naming it, before a password is
 // asked for.
 func TestCLIUserAddRefusesPathCharacters(t *testing.T) {
-	db := filepath.Join(t.TempDir(), "a.db")
+	db := storetest.DB(t)
 	for _, name := range []string{"viewer/active#x", "who?", "line\nbreak"} {
 		code, _, errs := runCLI(t, "", "user", "add", "--db", db, "--name", name, "--role", "viewer")
 		if code != exitUsage || !strings.Contains(errs, "name") || strings.Contains(errs, "password") {

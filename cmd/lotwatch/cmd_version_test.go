@@ -2,11 +2,11 @@ package main
 
 import (
 	"fmt"
-	"path/filepath"
 	"strings"
 	"testing"
 
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 )
 
 // Exact contract of issue 15: `lotwatch version` (and -version) exits 0
@@ -23,12 +23,14 @@ func TestCLIVersion(t *testing.T) {
 		}
 	}
 	dir := t.TempDir()
-	db := filepath.Join(dir, "plant.db")
+	db := storetest.DB(t)
 	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "weld", "--as", "qa"); code != exitOK {
 		t.Fatal(errs)
 	}
+	// A PostgreSQL database counts its own migrations (SchemaVersionFor),
+	// and its URL is printed without the password.
 	code, out, _ := runCLI(t, "", "version", "--db", db)
-	if code != exitOK || !strings.Contains(out, fmt.Sprintf("database:   %s, schema %d (the same)", db, store.SchemaVersion())) {
+	if code != exitOK || !strings.Contains(out, fmt.Sprintf("database:   %s, schema %d (the same)", store.Redact(db), store.SchemaVersionFor(db))) {
 		t.Errorf("--db: exit %d %q", code, out)
 	}
 	notDB := writeFile(t, dir, "lots.csv", "lot,inspected,defective\n")

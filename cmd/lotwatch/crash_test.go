@@ -7,6 +7,7 @@ import (
 	"database/sql"
 	"fmt"
 	"io"
+	"lotwatch/store/storetest"
 	"math/rand/v2"
 	"net"
 	"net/http"
@@ -43,6 +44,7 @@ func crashRounds(t *testing.T) int {
 // with 201 must be stored, and no import or posted batch may be partly
 // applied: the lots of one file (or one request) are all there or none.
 func TestCrashRecovery(t *testing.T) {
+	storetest.SQLiteOnly(t, "the SQLite file after a kill; TestPostgresCrash kills PostgreSQL's writers")
 	rounds := crashRounds(t)
 	dir := t.TempDir()
 	bin := filepath.Join(dir, "lotwatch")

@@ -1,7 +1,7 @@
 package main
 
 import (
-	"path/filepath"
+	"lotwatch/store/storetest"
 	"strings"
 	"testing"
 )
@@ -13,7 +13,7 @@ import (
 // the other rows went in and the exit status was 0.)
 func TestCLIImportConflicts(t *testing.T) {
 	dir := t.TempDir()
-	db := filepath.Join(dir, "a.db")
+	db := storetest.DB(t)
 	first := writeFile(t, dir, "first.csv", "lot,time,inspected,defective\nK1,2025-04-01T07:00:00Z,50,1\nK2,2025-04-01T08:00:00Z,50,2\n")
 	if code, _, errs := runCLI(t, "", "import", "--db", db, "--process", "weld", "--create", "--as", "t", first); code != exitOK {
 		t.Fatalf("first import: %d %s", code, errs)

@@ -14,6 +14,7 @@ import (
 	"time"
 
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 	"lotwatch/web"
 )
 
@@ -40,6 +41,7 @@ func readOnlyDir(t *testing.T, dir string) {
 // with 503 saying why. (The probe of issue 12 found "unable to open
 // database file" for each.)
 func TestReadOnlyMediaCommands(t *testing.T) {
+	storetest.SQLiteOnly(t, "a database file on read-only media")
 	media := t.TempDir()
 	plant := filepath.Join(media, "plant.db")
 	csv := writeFile(t, t.TempDir(), "lots.csv", "lot,time,inspected,defective\nH1,2025-04-01T07:00:00Z,50,1\nH2,2025-04-01T08:00:00Z,50,2\n")

@@ -3,6 +3,7 @@ package main
 import (
 	"fmt"
 	"io"
+	"lotwatch/store/storetest"
 	"net/http"
 	"os"
 	"os/exec"
@@ -23,6 +24,7 @@ import (
 // (The probe of issue 12 found the restore going through, and lots
 // answered 201 afterwards stored in neither file.)
 func TestRestoreRefusedWhileServing(t *testing.T) {
+	storetest.SQLiteOnly(t, "the lock on the SQLite file a server holds; a restore refused while servers use PostgreSQL is in TestTwoServersOnePostgres")
 	if testing.Short() {
 		t.Skip("builds the binary; skipped with -short")
 	}
