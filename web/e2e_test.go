@@ -89,6 +89,12 @@ func text(t *testing.T, ctx context.Context, sel string) string {
 	sctx, cancel := context.WithTimeout(ctx, 20*time.Second)
 	defer cancel()
 	s, err := chromedp.Run(sctx, chromedp.Text(chromedp.CSS(sel)))
+	if err != nil && strings.Contains(err.Error(), "No node with given id") {
+		// The browser renumbered its nodes between finding the element
+		// and reading it (a large page still being laid out): find it
+		// again; the text asserted is the same.
+		s, err = chromedp.Run(sctx, chromedp.Text(chromedp.CSS(sel)))
+	}
 	if err != nil {
 		t.Fatalf("text of %s: %v", sel, err)
 	}
