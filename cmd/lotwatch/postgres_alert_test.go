@@ -322,33 +322,20 @@ func waitJudged(t *testing.T, raw *sql.DB, within time.Duration) {
 // claimsOf maps the webhook-ids of the pending deliveries owner holds to
 // the end of its lease (Unix nanoseconds).
 func claimsOf(t *testing.T, raw *sql.DB, owner string) map[string]int64 {
-	t.Helper()
-	rows, err := raw.Query("SELECT msg_id, lease_until FROM alert_deliveries WHERE state = 'pending' AND lease_owner = $1", owner)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer rows.Close()
-	out := map[string]int64{}
-	for rows.Next() {
-		var id string
-		var until int64
-		if err := rows.Scan(&id, &until); err != nil {
-			t.Fatal(err)
-		}
-		out[id] = until
-	}
-	if err := rows.Err(); err != nil {
-		t.Fatal(err)
-	}
-	return out
+	return idTimes(t, raw, "SELECT msg_id, lease_until FROM alert_deliveries WHERE state = 'pending' AND lease_owner = $1", owner)
 }
 
 // sentAt maps the webhook-ids of the deliveries logged sent to the start
 // of their successful attempt (Unix nanoseconds).
 func sentAt(t *testing.T, raw *sql.DB) map[string]int64 {
-	t.Helper()
-	rows, err := raw.Query(`SELECT d.msg_id, a.at FROM alert_deliveries d JOIN alert_attempts a ON a.delivery_id = d.id
+	return idTimes(t, raw, `SELECT d.msg_id, a.at FROM alert_deliveries d JOIN alert_attempts a ON a.delivery_id = d.id
 		WHERE d.state = 'sent' AND a.error = ''`)
+}
+
+// idTimes maps the webhook-id of each row of q to its time.
+func idTimes(t *testing.T, raw *sql.DB, q string, args ...any) map[string]int64 {
+	t.Helper()
+	rows, err := raw.Query(q, args...)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -29,6 +29,26 @@ func buildLotwatch(t testing.TB) string {
 	return bin
 }
 
+// startServers starts n `lotwatch serve` on the database db, killed when
+// the test ends, and returns their base URLs and processes.
+func startServers(t *testing.T, bin, db string, n int) ([]string, []*exec.Cmd) {
+	t.Helper()
+	var bases []string
+	var srvs []*exec.Cmd
+	for range n {
+		addr := freeAddr(t)
+		srv := exec.Command(bin, "serve", "--db", db, "--addr", addr)
+		if err := srv.Start(); err != nil {
+			t.Fatal(err)
+		}
+		t.Cleanup(func() { srv.Process.Kill(); srv.Wait() })
+		waitHealthy(t, "http://"+addr, srv)
+		bases = append(bases, "http://"+addr)
+		srvs = append(srvs, srv)
+	}
+	return bases, srvs
+}
+
 // TestPostgresBehavesAsSQLite runs the real binary through the commands
 // of the exact contract of issue 17, once on a SQLite file and once on a
 // PostgreSQL URL: the same exit statuses, and the same output wherever
@@ -225,21 +245,7 @@ func TestTwoServersOnePostgres(t *testing.T) {
 		t.Fatalf("token create: %v", err)
 	}
 	token := strings.TrimSpace(string(tokOut))
-	var bases []string
-	var srvs []*exec.Cmd
-	for range 2 {
-		addr := freeAddr(t)
-		srv := exec.Command(bin, "serve", "--db", pg, "--addr", addr)
-		var log strings.Builder
-		srv.Stdout, srv.Stderr = &log, &log
-		if err := srv.Start(); err != nil {
-			t.Fatal(err)
-		}
-		defer srv.Process.Kill()
-		waitHealthy(t, "http://"+addr, srv)
-		bases = append(bases, "http://"+addr)
-		srvs = append(srvs, srv)
-	}
+	bases, srvs := startServers(t, bin, pg, 2)
 	call := func(method, url, body string, hdr ...string) (int, string, *http.Response) {
 		t.Helper()
 		req, _ := http.NewRequest(method, url, strings.NewReader(body))

@@ -7,7 +7,6 @@ import (
 	"net/http/httptest"
 	"net/url"
 	"os"
-	"os/exec"
 	"path/filepath"
 	"strconv"
 	"strings"
@@ -34,19 +33,7 @@ func TestTwoServersShareSignInLimits(t *testing.T) {
 			t.Fatalf("%v: %d %s", args, code, out)
 		}
 	}
-	var bases []string
-	for range 2 {
-		addr := freeAddr(t)
-		srv := exec.Command(bin, "serve", "--db", pg, "--addr", addr)
-		var log strings.Builder
-		srv.Stdout, srv.Stderr = &log, &log
-		if err := srv.Start(); err != nil {
-			t.Fatal(err)
-		}
-		defer srv.Process.Kill()
-		waitHealthy(t, "http://"+addr, srv)
-		bases = append(bases, "http://"+addr)
-	}
+	bases, _ := startServers(t, bin, pg, 2)
 	signIn := func(base, name, password string) (int, string, string) {
 		t.Helper()
 		form := url.Values{"name": {name}, "password": {password}}.Encode()
