@@ -9,12 +9,12 @@ import (
 	"log/slog"
 	"net/http"
 	"net/http/httptest"
-	"path/filepath"
 	"strings"
 	"testing"
 	"time"
 
 	"lotwatch/store"
+	"lotwatch/store/storetest"
 )
 
 // fakeClock is a settable clock for expiry and rate-limit tests.
@@ -23,11 +23,11 @@ type fakeClock struct{ t time.Time }
 func (c *fakeClock) Now() time.Time          { return c.t }
 func (c *fakeClock) Advance(d time.Duration) { c.t = c.t.Add(d) }
 
-// gateOnFile is a sign-in gate counting in a new SQLite database, with
-// the clock it reads.
+// gateOnFile is a sign-in gate counting in a new database of the chosen
+// backend (storetest.DB), with the clock it reads.
 func gateOnFile(t *testing.T) (*signInGate, *fakeClock) {
 	t.Helper()
-	db, err := store.Open(filepath.Join(t.TempDir(), "lotwatch.db"))
+	db, err := store.Open(storetest.DB(t))
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -73,6 +73,7 @@ func TestTwoServersShareSignInLimits(t *testing.T) {
 //
 // SQLite only: read-only files.
 func TestReadOnlyServerLimitsSignIns(t *testing.T) {
+	storetest.SQLiteOnly(t, "a database file on read-only media")
 	media := t.TempDir()
 	plant := filepath.Join(media, "plant.db")
 	if code, out, errs := runCLI(t, "a-long-password\n", "user", "add", "--db", plant, "--name", "ana", "--role", "viewer", "--as", "t"); code != exitOK {
