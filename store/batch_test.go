@@ -10,10 +10,10 @@ import (
 	"lotwatch/spc"
 )
 
-// Lots posted at once are committed together, their jobs run without a
-// savepoint each; when one of them fails (a conflict) the batch runs
-// again with each job in its savepoint: the others' lots are stored once,
-// the failing one gets its own error, and the audit trail holds.
+// Lots posted at once are committed together, each post in its own
+// savepoint; when one of them fails (a conflict) the others' lots are
+// stored once, the failing one gets its own error, and the audit trail,
+// written at the batch's end, holds only the posts that stayed.
 func TestBatchWithAFailingJob(t *testing.T) {
 	forEachBackend(t, func(t *testing.T, open opener) {
 		db, _ := open(t)

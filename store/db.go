@@ -368,12 +368,8 @@ func (db *DB) Close() error {
 // job is one unit of work for the writer: fn runs inside the batch's
 // transaction, in its own savepoint.
 type job struct {
-	fn   func(*wtx) error
-	err  chan error
-	post func() // runs after the commit succeeded (e.g. fill results)
-	// again: fn may run a second time, in a new transaction, when
-	// another job of its batch failed (see writeAgain).
-	again bool
+	fn  func(*wtx) error
+	err chan error
 }
 
 // wtx is the writer transaction handed to a job.
@@ -433,14 +429,7 @@ func (db *DB) OnCommit(f func(d time.Duration, writes int)) { db.commitHook.Stor
 
 func (db *DB) runBatch(batch []*job) {
 	start := time.Now()
-	errs, err := db.tryBatch(batch, len(batch) == 1 || allAgain(batch))
-	if errors.Is(err, errJobFailed) {
-		if len(batch) == 1 {
-			errs, err = []error{errors.Unwrap(err)}, nil // nothing was committed
-		} else {
-			errs, err = db.tryBatch(batch, false)
-		}
-	}
+	errs, err := db.commitBatch(batch)
 	if err != nil {
 		for _, j := range batch {
 			j.err <- err
@@ -451,46 +440,20 @@ func (db *DB) runBatch(batch []*job) {
 		(*h)(time.Since(start), len(batch))
 	}
 	for i, j := range batch {
-		if errs[i] == nil && j.post != nil {
-			j.post()
-		}
 		j.err <- errs[i]
 	}
 }
 
-// errJobFailed wraps the error of a job run without a savepoint: the
-// whole transaction is given up.
-var errJobFailed = errors.New("store: a job failed")
-
-type jobFailed struct{ err error }
-
-func (e jobFailed) Error() string        { return e.err.Error() }
-func (e jobFailed) Unwrap() error        { return e.err }
-func (e jobFailed) Is(target error) bool { return target == errJobFailed }
-
-// allAgain reports whether every job of the batch may run a second time.
-func allAgain(batch []*job) bool {
-	for _, j := range batch {
-		if !j.again {
-			return false
-		}
-	}
-	return true
-}
-
-// tryBatch runs the batch in one transaction and commits it, answering
-// the error of each job. together runs the jobs without savepoints (a
-// round trip fewer each, on PostgreSQL); the first job to fail then gives
-// up the transaction with a jobFailed, and runBatch runs the batch again
-// with each job in its savepoint, or answers a lone job's error.
-func (db *DB) tryBatch(batch []*job, together bool) ([]error, error) {
+// commitBatch runs the batch in one transaction and commits it, returning
+// the error of each job.
+func (db *DB) commitBatch(batch []*job) ([]error, error) {
 	tx, err := db.w.Begin()
 	if err != nil {
 		return nil, fmt.Errorf("store: begin: %w", err)
 	}
 	w := &wtx{Tx: tx, db: db, now: time.Now()}
 	errs := make([]error, len(batch))
-	if err := w.run(batch, together, errs); err != nil {
+	if err := w.run(batch, errs); err != nil {
 		tx.Rollback()
 		return nil, err
 	}
@@ -501,7 +464,7 @@ func (db *DB) tryBatch(batch []*job, together bool) ([]error, error) {
 }
 
 // run takes the chain head, runs the jobs and settles the batch.
-func (w *wtx) run(batch []*job, together bool, errs []error) error {
+func (w *wtx) run(batch []*job, errs []error) error {
 	// Another program (a command-line import while the server runs,
 	// another server on the same PostgreSQL database) may have written
 	// since: take the chain head as the database has it now, under this
@@ -509,13 +472,7 @@ func (w *wtx) run(batch []*job, together bool, errs []error) error {
 	if err := w.db.queryRowIn(w.Tx, w.db.d.headSelect).Scan(&w.head.seq, &w.head.hash); err != nil {
 		return fmt.Errorf("store: audit head: %w", err)
 	}
-	if together {
-		for _, j := range batch {
-			if err := j.fn(w); err != nil {
-				return jobFailed{err}
-			}
-		}
-	} else if err := w.runJobs(batch, errs); err != nil {
+	if err := w.runJobs(batch, errs); err != nil {
 		return err
 	}
 	return w.settle()
@@ -553,17 +510,7 @@ func (w *wtx) runJobs(batch []*job, errs []error) error {
 // (or failed). A write once queued is carried out even if ctx ends, so
 // the caller waits for its outcome.
 func (db *DB) write(ctx context.Context, fn func(*wtx) error) error {
-	return db.submit(ctx, &job{fn: fn, err: make(chan error, 1)})
-}
-
-// writeAgain is write for a job that may run twice: fn changes nothing but
-// the transaction it is given (its results it sets afresh each time).
-// A batch of such jobs runs without a savepoint for each.
-func (db *DB) writeAgain(ctx context.Context, fn func(*wtx) error) error {
-	return db.submit(ctx, &job{fn: fn, err: make(chan error, 1), again: true})
-}
-
-func (db *DB) submit(ctx context.Context, j *job) error {
+	j := &job{fn: fn, err: make(chan error, 1)}
 	if db.readOnly {
 		return fmt.Errorf("store: %s: %w", db.path, ErrReadOnly)
 	}

@@ -309,10 +309,9 @@ func (db *DB) AddLots(ctx context.Context, actor string, processID int64, in []L
 	if len(in) == 0 {
 		return nil, nil
 	}
-	given := in
+	in = append([]LotInput(nil), in...)
 	var out []Lot
-	err := db.writeAgain(ctx, func(w *wtx) error {
-		in := append([]LotInput(nil), given...) // a lot without a time takes this run's
+	err := db.write(ctx, func(w *wtx) error {
 		p, err := w.activeProcess(processID)
 		if err != nil {
 			return err
