@@ -12,7 +12,7 @@ import (
 
 // signinTables hold the counts of failed sign-ins: kept while they count,
 // never copied, no part of the audit trail.
-var signinTables = []string{"signin_failures", "signin_blocks", "signin_sweep"}
+var signinTables = []string{"signin_failures", "signin_blocks"}
 
 // AttemptLimit is how the failed sign-ins against one key (a user name
 // and client address, or an address) are limited: after Max failures
@@ -43,7 +43,7 @@ func (db *DB) RecordSignInFailure(ctx context.Context, now time.Time, limits ...
 	var until int64
 	err := db.write(ctx, func(w *wtx) error {
 		until = 0
-		if err := takeSigninTurn(w, n); err != nil {
+		if err := sweepSignins(w, n); err != nil {
 			return err
 		}
 		for _, l := range limits {
@@ -101,7 +101,7 @@ func (db *DB) ClearSignInFailures(ctx context.Context, now time.Time, key string
 		return fmt.Errorf("store: clear failed sign-ins: %w", err)
 	}
 	err = db.write(ctx, func(w *wtx) error {
-		if err := takeSigninTurn(w, now.UnixNano()); err != nil {
+		if err := sweepSignins(w, now.UnixNano()); err != nil {
 			return err
 		}
 		if _, err := w.Exec("DELETE FROM signin_failures WHERE key_hash = ?", h); err != nil {
@@ -116,15 +116,10 @@ func (db *DB) ClearSignInFailures(ctx context.Context, now time.Time, key string
 	return nil
 }
 
-// takeSigninTurn updates the one row of signin_sweep, which on PostgreSQL
-// holds off every other server's writer of the sign-in tables until this
-// transaction ends (so that two servers counting the same key do not both
-// read the old count), then sweeps out what no longer counts, so that the
-// tables stay as small as the failures of the last hour.
-func takeSigninTurn(w *wtx, now int64) error {
-	if _, err := w.Exec("UPDATE signin_sweep SET swept = ? WHERE id = 1", now); err != nil {
-		return fmt.Errorf("sign-in failures: %w", err)
-	}
+// sweepSignins removes what no longer counts, so that the tables stay as
+// small as the failures of the last hour. Two servers counting one key
+// never both read the old count: writers take turns (dialect.headSelect).
+func sweepSignins(w *wtx, now int64) error {
 	if _, err := w.Exec("DELETE FROM signin_failures WHERE expires <= ?", now); err != nil {
 		return fmt.Errorf("sign-in failures: sweep: %w", err)
 	}
