@@ -132,6 +132,8 @@ type DB struct {
 	r    *sql.DB  // read-only pool
 	lock *dbLock  // shared, while open (see lockShared)
 
+	replica *replica // answers the reads of lots, when set (see UseReplica)
+
 	readOnly bool        // see ReadOnly: w is nil
 	mem      memSessions // the sessions of a read-only database
 
@@ -357,6 +359,9 @@ func (db *DB) Close() error {
 			st.Close()
 		}
 		err = db.r.Close()
+		if db.replica != nil {
+			err = errors.Join(err, db.replica.db.Close())
+		}
 		if db.w != nil {
 			err = errors.Join(err, db.w.Close())
 		}

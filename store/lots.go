@@ -390,20 +390,28 @@ func (db *DB) LotCounts(ctx context.Context, processID int64, from, to time.Time
 	return db.collectLots(ctx, processID, from, to, countCols)
 }
 
-// collectLots gathers the lots Lots describes, reading the columns cols.
+// collectLots gathers the lots Lots describes, reading the columns cols
+// (from the replica when it has caught up: see UseReplica).
 func (db *DB) collectLots(ctx context.Context, processID int64, from, to time.Time, cols string) ([]Lot, error) {
-	// Counting first (the index alone, no value read) sizes the result
-	// once instead of copying it as it grows.
-	lo, hi := timeBounds(from, to)
-	var n int
-	if err := db.r.QueryRowContext(ctx, `SELECT COUNT(*) FROM `+db.d.lotsRead+`
-		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ?`, processID, lo, hi).Scan(&n); err != nil {
+	p, err := db.Process(ctx, processID)
+	if err != nil {
 		return nil, err
 	}
-	out := make([]Lot, 0, n)
-	err := db.eachLot(ctx, processID, from, to, cols, func(l Lot) error {
-		out = append(out, l)
-		return nil
+	lo, hi := timeBounds(from, to)
+	var out []Lot
+	err = db.readLots(ctx, processID, func(q lotQueryer) error {
+		// Counting first (the index alone, no value read) sizes the
+		// result once instead of copying it as it grows.
+		var n int
+		if err := q.QueryRowContext(ctx, `SELECT COUNT(*) FROM `+db.d.lotsRead+`
+			WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ?`, processID, lo, hi).Scan(&n); err != nil {
+			return err
+		}
+		out = make([]Lot, 0, n)
+		return walkLots(ctx, q, p, db.lotsQuery(cols), func(l Lot) error {
+			out = append(out, l)
+			return nil
+		}, processID, lo, hi)
 	})
 	if len(out) == 0 {
 		out = nil
@@ -413,22 +421,24 @@ func (db *DB) collectLots(ctx context.Context, processID int64, from, to time.Ti
 
 // EachLot calls fn with each lot that Lots would return, streaming, so
 // memory does not grow with the number of lots. An error from fn stops
-// the walk and is returned.
-//
-// The lots are read from the covering index lots_read, which holds every
-// column of a lot in time order: one index scan, no lookup in the table.
+// the walk and is returned. It reads the primary, even with a replica:
+// what fn was handed cannot be taken back if the replica fails midway.
 func (db *DB) EachLot(ctx context.Context, processID int64, from, to time.Time, fn func(Lot) error) error {
-	return db.eachLot(ctx, processID, from, to, readCols, fn)
-}
-
-func (db *DB) eachLot(ctx context.Context, processID int64, from, to time.Time, cols string, fn func(Lot) error) error {
 	p, err := db.Process(ctx, processID)
 	if err != nil {
 		return err
 	}
 	lo, hi := timeBounds(from, to)
-	return db.walkLots(ctx, p, `SELECT `+cols+` FROM `+db.d.lotsRead+`
-		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ? ORDER BY time, id`, fn, processID, lo, hi)
+	return walkLots(ctx, db.r, p, db.lotsQuery(readCols), fn, processID, lo, hi)
+}
+
+// lotsQuery selects cols of a process's lots that are not voided, in a
+// span of time, in time order: one scan of the covering index lots_read,
+// which holds every column of a lot in time order, no lookup in the
+// table.
+func (db *DB) lotsQuery(cols string) string {
+	return `SELECT ` + cols + ` FROM ` + db.d.lotsRead + `
+		WHERE process_id = ? AND voided = 0 AND time BETWEEN ? AND ? ORDER BY time, id`
 }
 
 // timeBounds are the stored times of from ≤ time < to, both ends
@@ -454,11 +464,14 @@ func (db *DB) LotCountsAddedAfter(ctx context.Context, processID, afterID int64)
 		return nil, err
 	}
 	var out []Lot
-	err = db.walkLots(ctx, p, `SELECT `+countCols+` FROM lots
-		WHERE id > ? AND process_id = ? AND voided = 0 ORDER BY time, id`, func(l Lot) error {
-		out = append(out, l)
-		return nil
-	}, afterID, processID)
+	err = db.readLots(ctx, processID, func(q lotQueryer) error {
+		out = nil
+		return walkLots(ctx, q, p, `SELECT `+countCols+` FROM lots
+			WHERE id > ? AND process_id = ? AND voided = 0 ORDER BY time, id`, func(l Lot) error {
+			out = append(out, l)
+			return nil
+		}, afterID, processID)
+	})
 	return out, err
 }
 
@@ -470,14 +483,14 @@ const (
 	readCols  = countCols + ", inspector, note, revision, recorded, recorded_by, reason"
 )
 
-// walkLots runs query (selecting readCols or countCols) and calls fn
+// walkLots runs query on q (selecting readCols or countCols) and calls fn
 // with each lot of process p, as EachLot describes. Each lot gets a
 // Categories map of its own; lots mostly repeat a few combinations of
 // category counts, so each stored form met is decoded once and copied
 // after that.
-func (db *DB) walkLots(ctx context.Context, p Process, query string, fn func(Lot) error, args ...any) error {
+func walkLots(ctx context.Context, q lotQueryer, p Process, query string, fn func(Lot) error, args ...any) error {
 	loc := p.Location()
-	rows, err := db.r.QueryContext(ctx, query, args...)
+	rows, err := q.QueryContext(ctx, query, args...)
 	if err != nil {
 		return err
 	}

@@ -144,3 +144,28 @@ func randomName() string {
 	rand.Read(b)
 	return hex.EncodeToString(b)
 }
+
+// ReplicaOf returns the URL that reads the database of db (a URL of the
+// test server, as PostgresSchema or PostgresDatabase give) on the
+// server's streaming replica, LOTWATCH_TEST_POSTGRES_REPLICA (see
+// .ci/postgres); without it the test is skipped, or failed when CI=true.
+func ReplicaOf(t testing.TB, db string) string {
+	t.Helper()
+	rep := os.Getenv("LOTWATCH_TEST_POSTGRES_REPLICA")
+	if rep == "" {
+		if os.Getenv("CI") == "true" {
+			t.Fatal("LOTWATCH_TEST_POSTGRES_REPLICA is not set (CI must test the read replica: see .ci/postgres)")
+		}
+		t.Skip("LOTWATCH_TEST_POSTGRES_REPLICA is not set: the read replica not tested (source .ci/postgres to start one)")
+	}
+	ru, err := url.Parse(rep)
+	if err != nil {
+		t.Fatal(err)
+	}
+	u, err := url.Parse(db)
+	if err != nil {
+		t.Fatal(err)
+	}
+	u.Host = ru.Host
+	return u.String()
+}

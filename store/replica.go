@@ -1,0 +1,178 @@
+package store
+
+import (
+	"context"
+	"database/sql"
+	"errors"
+	"fmt"
+	"sync/atomic"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/stdlib"
+)
+
+// ErrNotReplica is returned by UseReplica for a database that does not
+// hold this plant's audit trail: it is not a replica of the database the
+// store writes.
+var ErrNotReplica = errors.New("not a replica of the database")
+
+// ErrReplicaNeedsServer is returned by UseReplica on a SQLite store, or
+// for a replica that is not a PostgreSQL URL: a SQLite file has no
+// streaming replicas.
+var ErrReplicaNeedsServer = errors.New("a read replica needs PostgreSQL for both databases")
+
+// replica is a streaming replica of the store's PostgreSQL database that
+// answers the reads of a process's lots (see UseReplica).
+type replica struct {
+	db   *sql.DB
+	name string // the URL without its password
+
+	served, lagging, failed atomic.Int64
+}
+
+// ReplicaReads counts the reads of lots since UseReplica: Replica, those
+// the replica answered; Lagging, those the primary answered because the
+// replica had not yet replayed the process's latest change; Failed, those
+// the primary answered because the replica could not be read.
+type ReplicaReads struct {
+	Replica, Lagging, Failed int64
+}
+
+// UseReplica sends the reads of a process's lots (charts, the board,
+// reviews, reports, the API's lot lists) to a streaming replica of the
+// store's PostgreSQL database, at url. Call it before the store is
+// shared.
+//
+// A chart is only as good as the lots it is drawn from, so a replica
+// that has not yet replayed a process's latest change never answers for
+// that process: each read compares the replica's change counter of the
+// process (LotsVersion, in the snapshot the lots are then read in) with
+// the primary's, and the primary answers when the replica is behind or
+// cannot be read. Whatever the replica's lag, a read returns what the
+// primary would have returned when the read began, or later.
+//
+// Everything else (sessions, tokens, users, limit sets, causes, the
+// audit trail, the alert outbox) is read from the primary, so that a
+// change is seen by the very next request.
+func (db *DB) UseReplica(url string) error {
+	if db.d != postgresDialect || !IsURL(url) {
+		return fmt.Errorf("store: read replica %s: %w", Redact(url), ErrReplicaNeedsServer)
+	}
+	name, secrets := Redact(url), secretsOf(url)
+	cfg, err := pgx.ParseConfig(url)
+	if err != nil {
+		return fmt.Errorf("store: read replica %s: %w: %w", name, ErrBadURL, scrub(err, secrets))
+	}
+	cfg.RuntimeParams["application_name"] = "lotwatch-read"
+	cfg.RuntimeParams["default_transaction_read_only"] = "on"
+	if cfg.ConnectTimeout == 0 {
+		cfg.ConnectTimeout = 10 * time.Second
+	}
+	r := sql.OpenDB(rebindConnector{stdlib.GetConnector(*cfg)})
+	r.SetMaxOpenConns(8)
+	r.SetMaxIdleConns(8)
+	ctx, cancel := context.WithTimeout(context.Background(), cfg.ConnectTimeout+5*time.Second)
+	defer cancel()
+	if err := r.PingContext(ctx); err != nil {
+		r.Close()
+		return fmt.Errorf("store: read replica %s: %w at %s: %w", name, ErrUnreachable, pgHost(&cfg.Config), scrub(err, secrets))
+	}
+	if err := db.sameChain(ctx, r); err != nil {
+		r.Close()
+		return fmt.Errorf("store: read replica %s: %w", name, scrub(err, secrets))
+	}
+	db.replica = &replica{db: r, name: name}
+	return nil
+}
+
+// sameChain checks that r holds this plant's audit trail: the head of
+// its chain (where its replay has come to) is an entry of the primary's
+// chain. A replica of another database, or a copy that has since gone
+// its own way, fails.
+func (db *DB) sameChain(ctx context.Context, r *sql.DB) error {
+	var head chainHead
+	if err := r.QueryRowContext(ctx, qHeadSelect).Scan(&head.seq, &head.hash); err != nil {
+		return fmt.Errorf("%w: it holds no lotwatch audit trail (%w)", ErrNotReplica, err)
+	}
+	if head.seq == 0 {
+		return nil // nothing logged yet on the replica: nothing to tell apart
+	}
+	var hash string
+	err := db.r.QueryRowContext(ctx, "SELECT hash FROM audit WHERE seq = ?", head.seq).Scan(&hash)
+	if errors.Is(err, sql.ErrNoRows) || (err == nil && hash != head.hash) {
+		return fmt.Errorf("%w: its audit entry %d is not this database's", ErrNotReplica, head.seq)
+	}
+	return err
+}
+
+// ReplicaReads returns the counts of lot reads since UseReplica, and
+// false when the store has no replica.
+func (db *DB) ReplicaReads() (ReplicaReads, bool) {
+	rep := db.replica
+	if rep == nil {
+		return ReplicaReads{}, false
+	}
+	return ReplicaReads{rep.served.Load(), rep.lagging.Load(), rep.failed.Load()}, true
+}
+
+// lotQueryer is what the reads of lots run their queries on: the read
+// pool of the primary, or a snapshot of the replica.
+type lotQueryer interface {
+	QueryContext(ctx context.Context, query string, args ...any) (*sql.Rows, error)
+	QueryRowContext(ctx context.Context, query string, args ...any) *sql.Row
+}
+
+// readLots runs read, which reads lots of the process on q, on a
+// snapshot of the replica when that holds the primary's latest change of
+// the process, else on the primary. read may run twice (on the primary
+// after the replica failed it), so it must start its result afresh.
+func (db *DB) readLots(ctx context.Context, processID int64, read func(q lotQueryer) error) error {
+	rep := db.replica
+	if rep == nil {
+		return read(db.r)
+	}
+	want, err := db.LotsVersion(ctx, processID)
+	if err != nil {
+		return err
+	}
+	tx, caughtUp, err := rep.snapshot(ctx, processID, want)
+	switch {
+	case err != nil:
+		rep.failed.Add(1)
+		return read(db.r)
+	case !caughtUp:
+		rep.lagging.Add(1)
+		return read(db.r)
+	}
+	defer tx.Rollback()
+	if err := read(tx); err != nil {
+		if ctx.Err() != nil {
+			return err
+		}
+		rep.failed.Add(1)
+		return read(db.r)
+	}
+	rep.served.Add(1)
+	return nil
+}
+
+// snapshot begins a read of the replica and reports whether, in it, the
+// process's change counter has come to want (the primary's).
+func (rep *replica) snapshot(ctx context.Context, processID int64, want LotsVersion) (*sql.Tx, bool, error) {
+	tx, err := rep.db.BeginTx(ctx, &sql.TxOptions{Isolation: sql.LevelRepeatableRead, ReadOnly: true})
+	if err != nil {
+		return nil, false, err
+	}
+	var have LotsVersion
+	err = tx.QueryRowContext(ctx, "SELECT version, rewrites FROM lot_versions WHERE process_id = ?", processID).Scan(&have.Version, &have.Rewrites)
+	if err != nil && !errors.Is(err, sql.ErrNoRows) {
+		tx.Rollback()
+		return nil, false, err
+	}
+	if have.Version < want.Version {
+		tx.Rollback()
+		return nil, false, nil
+	}
+	return tx, true, nil
+}
