@@ -44,13 +44,15 @@ type ReplicaReads struct {
 // store's PostgreSQL database, at url. Call it before the store is
 // shared.
 //
-// A chart is only as good as the lots it is drawn from, so a replica
-// that has not yet replayed a process's latest change never answers for
-// that process: each read compares the replica's change counter of the
-// process (LotsVersion, in the snapshot the lots are then read in) with
-// the primary's, and the primary answers when the replica is behind or
-// cannot be read. Whatever the replica's lag, a read returns what the
-// primary would have returned when the read began, or later.
+// A chart is only as good as the lots it is drawn from, so the replica
+// answers for a process only when it holds the same change counter of
+// that process (LotsVersion, read in the snapshot the lots are then read
+// in) as the primary at that moment: then it holds the same lots. When
+// the replica is behind, or cannot be read, the primary answers. So
+// whatever the replica's lag, a read returns what the primary holds.
+// (Equal, not at least: a restore may set a counter back, and a replica
+// that has not yet replayed the restore must not answer with what the
+// restore replaced.)
 //
 // Everything else (sessions, tokens, users, limit sets, causes, the
 // audit trail, the alert outbox) is read from the primary, so that a
@@ -158,7 +160,7 @@ func (db *DB) readLots(ctx context.Context, processID int64, read func(q lotQuer
 }
 
 // snapshot begins a read of the replica and reports whether, in it, the
-// process's change counter has come to want (the primary's).
+// process's change counter is want (the primary's).
 func (rep *replica) snapshot(ctx context.Context, processID int64, want LotsVersion) (*sql.Tx, bool, error) {
 	tx, err := rep.db.BeginTx(ctx, &sql.TxOptions{Isolation: sql.LevelRepeatableRead, ReadOnly: true})
 	if err != nil {
@@ -170,7 +172,7 @@ func (rep *replica) snapshot(ctx context.Context, processID int64, want LotsVers
 		tx.Rollback()
 		return nil, false, err
 	}
-	if have.Version < want.Version {
+	if have != want {
 		tx.Rollback()
 		return nil, false, nil
 	}

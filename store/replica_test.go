@@ -1,7 +1,6 @@
 package store
 
 import (
-	"database/sql"
 	"errors"
 	"fmt"
 	"reflect"
@@ -78,60 +77,18 @@ func TestReadReplica(t *testing.T) {
 
 	// Replay held back: the lot just added is read all the same, from
 	// the primary.
-	ctl := replayControl(t, repURL)
-	ctl.pause()
+	release := storetest.HoldReplay(t, repURL)
 	add(3)
 	if d := read("replay paused"); d != (ReplicaReads{Lagging: 1}) {
 		t.Errorf("replay paused: %+v, want the primary to answer because the replica lags", d)
 	}
-	ctl.resume()
+	release()
 	caughtUp("replay resumed")
 
 	// The replica cannot be read: the primary answers.
 	db.replica.db.Close()
 	if d := read("replica closed"); d != (ReplicaReads{Failed: 1}) {
 		t.Errorf("replica closed: %+v, want the primary to answer because the replica failed", d)
-	}
-}
-
-// replay holds back and lets go the replay of the test server's replica.
-type replay struct {
-	t  *testing.T
-	db *sql.DB
-}
-
-func replayControl(t *testing.T, repURL string) replay {
-	r, err := sql.Open("pgx", repURL)
-	if err != nil {
-		t.Fatal(err)
-	}
-	c := replay{t, r}
-	t.Cleanup(func() { c.resume(); r.Close() })
-	return c
-}
-
-// pause returns once replay has stopped: a change committed after it is
-// not on the replica until resume.
-func (c replay) pause() {
-	c.t.Helper()
-	if _, err := c.db.Exec("SELECT pg_wal_replay_pause()"); err != nil {
-		c.t.Fatal(err)
-	}
-	for start := time.Now(); time.Since(start) < 30*time.Second; time.Sleep(10 * time.Millisecond) {
-		var state string
-		if err := c.db.QueryRow("SELECT pg_get_wal_replay_pause_state()").Scan(&state); err != nil {
-			c.t.Fatal(err)
-		}
-		if state == "paused" {
-			return
-		}
-	}
-	c.t.Fatal("replay did not pause")
-}
-
-func (c replay) resume() {
-	if _, err := c.db.Exec("SELECT pg_wal_replay_resume()"); err != nil {
-		c.t.Error(err)
 	}
 }
 

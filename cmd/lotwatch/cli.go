@@ -170,6 +170,28 @@ func cliOpen(stderr io.Writer, cmd, path string) (*store.DB, int, bool) {
 	return db, 0, true
 }
 
+// cliReplica points db's reads of lots at the streaming replica of
+// --read-db (nothing when url is empty) or prints why not: exitUsage for
+// a value that cannot be a replica of --db, exitFail for a server that
+// cannot be reached.
+func cliReplica(stderr io.Writer, cmd string, db *store.DB, url string) (int, bool) {
+	if url == "" {
+		return 0, true
+	}
+	err := db.UseReplica(url)
+	if err == nil {
+		return 0, true
+	}
+	fmt.Fprintf(stderr, "lotwatch %s: --read-db: %v\n", cmd, err)
+	if errors.Is(err, store.ErrUnreachable) {
+		return exitFail, false
+	}
+	return exitUsage, false
+}
+
+// readDBHelp is the help line of --read-db.
+const readDBHelp = "`URL` of a streaming replica of a postgres:// --db, to read the lots of charts and reports from;\nthe primary answers for a process whose latest change the replica has not yet replayed"
+
 // cliNoFile reports a --db value that names no file. A PostgreSQL URL is
 // not a file: it is checked when it is opened.
 func cliNoFile(db string) bool {

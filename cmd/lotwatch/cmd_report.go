@@ -35,6 +35,9 @@ categories, a trend of the weekly rate and the dispersion check.
 
 Options:
   --db FILE        the lotwatch database (a file, or a postgres:// URL); required, must exist
+  --read-db URL    a streaming replica of a postgres:// --db to read the lots
+                   from; for a process whose latest change the replica has
+                   not yet replayed, the lots are read from --db
   --week W         ISO week such as 2026-W48 (default: the last week that
                    is complete in every chosen process's time zone)
   --process NAME   a process to review; repeat the option or give a comma
@@ -86,6 +89,7 @@ func (l *processList) Set(v string) error {
 func runReport(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 	fs := flag.NewFlagSet("report", flag.ContinueOnError)
 	dbPath := fs.String("db", "", "")
+	readDB := fs.String("read-db", "", "")
 	week := fs.String("week", "", "")
 	var procs processList
 	fs.Var(&procs, "process", "")
@@ -130,6 +134,9 @@ func runReport(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		return exitFail
 	}
 	defer db.Close()
+	if code, ok := cliReplica(stderr, "report", db, *readDB); !ok {
+		return code
+	}
 	r, err := review.Build(context.Background(), db, review.Options{Week: *week, Processes: procs, Method: m, Level: level, FDR: *fdr})
 	var oe *review.OptionError
 	switch {

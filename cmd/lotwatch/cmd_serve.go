@@ -32,6 +32,7 @@ func init() {
 func runServe(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	fs := cliFlags("serve")
 	dbPath := fs.String("db", "", "database `file`, or a postgres:// URL (required)")
+	readDB := fs.String("read-db", "", readDBHelp)
 	addr := fs.String("addr", "127.0.0.1:8080", "listen `address` (host:port)")
 	cert := fs.String("cert", "", "TLS certificate `file` (PEM); with --key, serve HTTPS")
 	key := fs.String("key", "", "TLS private key `file` (PEM)")
@@ -44,6 +45,7 @@ func runServe(args []string, stdin io.Reader, stdout, stderr io.Writer) int {
 	metricsAddr := fs.String("metrics-addr", "", "serve Prometheus metrics at http://`HOST:PORT`/metrics, a listener of its own apart\nfrom the public one (no sign-in: keep it on a private address)")
 	help := cliHelp(fs, `Usage: lotwatch serve --db FILE [--addr 127.0.0.1:8080] [--cert FILE --key FILE] [--proxy-addr LIST]
                       [--public-url URL] [--smtp-addr HOST:PORT --smtp-from ADDR] [--metrics-addr HOST:PORT]
+                      [--read-db URL]
 
 Serves the pages (sign-in, processes, control charts) and the JSON API under
 /api/v1/ until interrupted (SIGINT or SIGTERM); requests in flight are
@@ -54,6 +56,12 @@ address. Behind a reverse proxy every request comes from the proxy's
 address: name the proxy with --proxy-addr so that the client's address is
 read from the X-Forwarded-For header the proxy adds (the header is ignored
 from any other address, since anyone can send it).
+
+On PostgreSQL, --read-db takes the reading of lots for charts, the board
+and reviews off the primary onto one of its streaming replicas. A replica
+answers for a process only once it has replayed that process's latest
+change, so a chart never shows less than the primary holds; sign-ins,
+causes and every write stay on the primary.
 
 Options:
 `, "\n"+caution)
@@ -103,6 +111,10 @@ Options:
 			return exitUsage
 		}
 		return exitFail
+	}
+	if code, ok := cliReplica(stderr, "serve", db, *readDB); !ok {
+		db.Close()
+		return code
 	}
 	if db.ReadOnly() {
 		logger.Warn("the database cannot be written: serving it read-only (pages and charts work, every change is refused)", "db", *dbPath)

@@ -31,13 +31,13 @@ func buildLotwatch(t testing.TB) string {
 
 // startServers starts n `lotwatch serve` on the database db, killed when
 // the test ends, and returns their base URLs and processes.
-func startServers(t *testing.T, bin, db string, n int) ([]string, []*exec.Cmd) {
+func startServers(t *testing.T, bin, db string, n int, extra ...string) ([]string, []*exec.Cmd) {
 	t.Helper()
 	var bases []string
 	var srvs []*exec.Cmd
 	for range n {
 		addr := freeAddr(t)
-		srv := exec.Command(bin, "serve", "--db", db, "--addr", addr)
+		srv := exec.Command(bin, append([]string{"serve", "--db", db, "--addr", addr}, extra...)...)
 		if err := srv.Start(); err != nil {
 			t.Fatal(err)
 		}

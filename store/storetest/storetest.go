@@ -10,6 +10,7 @@
 package storetest
 
 import (
+	"context"
 	"crypto/rand"
 	"database/sql"
 	"encoding/hex"
@@ -17,6 +18,7 @@ import (
 	"os"
 	"path/filepath"
 	"testing"
+	"time"
 
 	_ "github.com/jackc/pgx/v5/stdlib" // the driver of the test server
 )
@@ -169,3 +171,63 @@ func ReplicaOf(t testing.TB, db string) string {
 	u.Host = ru.Host
 	return u.String()
 }
+
+// HoldReplay pauses the replay of the test server's replica (replica is
+// a URL of it, as ReplicaOf gives) and returns once it has stopped: a
+// change committed on the server after that is not on the replica until
+// the returned function lets replay go on (done at the test's end too).
+// Tests of several packages run at once: one holds replay at a time (an
+// advisory lock on the server), so that one's release does not end
+// another's hold.
+func HoldReplay(t testing.TB, replica string) (release func()) {
+	t.Helper()
+	ctx := context.Background()
+	primary, err := sql.Open("pgx", PostgresURL(t))
+	if err != nil {
+		t.Fatal(err)
+	}
+	turn, err := primary.Conn(ctx)
+	if err == nil {
+		_, err = turn.ExecContext(ctx, "SELECT pg_advisory_lock($1)", holdReplayLock)
+	}
+	if err != nil {
+		primary.Close()
+		t.Fatalf("waiting for the turn to hold replay: %v", err)
+	}
+	rep, err := sql.Open("pgx", replica)
+	if err != nil {
+		t.Fatal(err)
+	}
+	released := false
+	release = func() {
+		if released {
+			return
+		}
+		released = true
+		if _, err := rep.Exec("SELECT pg_wal_replay_resume()"); err != nil {
+			t.Errorf("resuming replay: %v", err)
+		}
+		turn.ExecContext(ctx, "SELECT pg_advisory_unlock($1)", holdReplayLock)
+		turn.Close()
+		primary.Close()
+		rep.Close()
+	}
+	t.Cleanup(release)
+	if _, err := rep.Exec("SELECT pg_wal_replay_pause()"); err != nil {
+		t.Fatalf("pausing replay: %v", err)
+	}
+	for start := time.Now(); time.Since(start) < 30*time.Second; time.Sleep(10 * time.Millisecond) {
+		var state string
+		if err := rep.QueryRow("SELECT pg_get_wal_replay_pause_state()").Scan(&state); err != nil {
+			t.Fatal(err)
+		}
+		if state == "paused" {
+			return release
+		}
+	}
+	t.Fatal("replay did not pause within 30 s")
+	return release
+}
+
+// holdReplayLock is the advisory lock HoldReplay takes.
+const holdReplayLock = 0x10717a7c

@@ -93,8 +93,34 @@ func New(db *store.DB, log *slog.Logger) *Metrics {
 		return float64(n)
 	}))
 	m.reg.MustRegister(&deliveryCollector{db: db, log: log})
+	if _, ok := db.ReplicaReads(); ok {
+		registerReplicaReads(m.reg, db)
+	}
 	db.OnCommit(func(d time.Duration, writes int) { m.commits.Observe(d.Seconds()) })
 	return m
+}
+
+// registerReplicaReads counts the reads of lots of a server with a read
+// replica by who answered them: a replica that keeps lagging or failing
+// shows as the primary answering.
+func registerReplicaReads(reg *prometheus.Registry, db *store.DB) {
+	for _, c := range []struct {
+		by    string
+		count func(store.ReplicaReads) int64
+	}{
+		{"replica", func(r store.ReplicaReads) int64 { return r.Replica }},
+		{"primary_replica_lagging", func(r store.ReplicaReads) int64 { return r.Lagging }},
+		{"primary_replica_failed", func(r store.ReplicaReads) int64 { return r.Failed }},
+	} {
+		reg.MustRegister(prometheus.NewCounterFunc(prometheus.CounterOpts{
+			Name:        "lotwatch_lot_reads_total",
+			Help:        "Reads of a process's lots (charts, board, reviews) on a server with --read-db, by who answered: the replica, or the primary because the replica had not yet replayed the process's latest change or could not be read.",
+			ConstLabels: prometheus.Labels{"answered_by": c.by},
+		}, func() float64 {
+			r, _ := db.ReplicaReads()
+			return float64(c.count(r))
+		}))
+	}
 }
 
 var deliveriesDesc = prometheus.NewDesc("lotwatch_alert_deliveries",
