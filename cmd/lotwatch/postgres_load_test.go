@@ -10,6 +10,7 @@ import (
 	"os"
 	"os/exec"
 	"sort"
+	"strconv"
 	"strings"
 	"sync"
 	"syscall"
@@ -67,7 +68,7 @@ func BenchmarkPostgresLoad(b *testing.B) {
 			wg     sync.WaitGroup
 			client = &http.Client{Transport: &http.Transport{MaxIdleConnsPerHost: 64}}
 		)
-		start := time.Now()
+		start, cpu0 := time.Now(), machineCPU(b)
 		for i, base := range bases {
 			for s := range stations {
 				wg.Add(1)
@@ -101,10 +102,13 @@ func BenchmarkPostgresLoad(b *testing.B) {
 		}
 		wg.Wait()
 		served := float64(len(acked)) / time.Since(start).Seconds()
-		bare, err := bareInserts(pg, 2*stations, run)
+		servedCPU := (machineCPU(b) - cpu0).Seconds() * 1000 / float64(len(acked))
+		cpu0 = machineCPU(b)
+		bare, bareN, err := bareInserts(pg, 2*stations, run)
 		if err != nil {
 			b.Fatal(err)
 		}
+		bareCPU := (machineCPU(b) - cpu0).Seconds() * 1000 / float64(bareN)
 		sort.Slice(lat, func(i, j int) bool { return lat[i] < lat[j] })
 		p99 := lat[len(lat)*99/100]
 		_, out := lotwatchCmd(b, bin, "", "export", "--db", pg, "--process", "weld")
@@ -121,23 +125,28 @@ func BenchmarkPostgresLoad(b *testing.B) {
 		b.ReportMetric(bare, "bare-lots/s")
 		b.ReportMetric(served/bare, "ratio")
 		b.ReportMetric(float64(p99.Microseconds())/1000, "p99-ms")
+		b.ReportMetric(servedCPU, "cpu-ms/lot")
+		b.ReportMetric(bareCPU, "bare-cpu-ms/lot")
 		b.Logf("2 servers × %d stations, %s: %d lots (%.0f/s), bare pgx loop %.0f/s, ratio %.2f, post p50 %s p99 %s, %d errors, %d lost",
 			stations, run, len(acked), served, bare, served/bare, lat[len(lat)/2].Round(time.Millisecond), p99.Round(time.Millisecond), errs, lost)
+		b.Logf("machine CPU a lot (all processes: stations, servers, PostgreSQL): %.2f ms posted, %.2f ms in the bare loop (%.1f×)",
+			servedCPU, bareCPU, servedCPU/bareCPU)
 	}
 }
 
 // bareInserts inserts lots into a table shaped like lots from conns
-// connections for d, one transaction per lot, and returns lots/s.
-func bareInserts(url string, conns int, d time.Duration) (float64, error) {
+// connections for d, one transaction per lot, and returns lots/s and the
+// lots inserted.
+func bareInserts(url string, conns int, d time.Duration) (float64, int64, error) {
 	db, err := sql.Open("pgx", url)
 	if err != nil {
-		return 0, err
+		return 0, 0, err
 	}
 	defer db.Close()
 	db.SetMaxOpenConns(conns)
 	ctx := context.Background()
 	if _, err := db.ExecContext(ctx, "DROP TABLE IF EXISTS bare_lots; CREATE TABLE bare_lots (LIKE lots INCLUDING ALL)"); err != nil {
-		return 0, err
+		return 0, 0, err
 	}
 	defer db.ExecContext(ctx, "DROP TABLE bare_lots")
 	var n int64
@@ -164,5 +173,31 @@ func bareInserts(url string, conns int, d time.Duration) (float64, error) {
 		}()
 	}
 	wg.Wait()
-	return float64(n) / time.Since(start).Seconds(), first
+	return float64(n) / time.Since(start).Seconds(), n, first
+}
+
+// machineCPU is the processor time the whole machine has spent busy
+// since boot (/proc/stat: every state but idle and waiting for the
+// disk), so that a phase's difference counts the stations, the servers
+// and PostgreSQL alike.
+func machineCPU(b *testing.B) time.Duration {
+	b.Helper()
+	stat, err := os.ReadFile("/proc/stat")
+	if err != nil {
+		b.Skipf("no /proc/stat: %v", err)
+	}
+	line, _, _ := strings.Cut(string(stat), "\n")
+	fields := strings.Fields(line) // cpu user nice system idle iowait irq softirq steal …
+	var busy int64
+	for i, f := range fields[1:] {
+		if i == 3 || i == 4 || i >= 8 { // idle, iowait; guest time is in user already
+			continue
+		}
+		n, err := strconv.ParseInt(f, 10, 64)
+		if err != nil {
+			b.Fatalf("/proc/stat: %q", line)
+		}
+		busy += n
+	}
+	return time.Duration(busy) * time.Second / 100 // USER_HZ, 100 on Linux
 }
