@@ -29,7 +29,15 @@ type replica struct {
 	name string // the URL without its password
 
 	served, lagging, failed atomic.Int64
+	// restUntil: after a failure the replica is left alone for a while
+	// (replicaRest), so that a replica that is down, or slow to refuse,
+	// does not make every chart wait for it.
+	restUntil atomic.Int64 // Unix nanoseconds
 }
+
+// replicaRest is how long the primary answers alone after the replica
+// failed a read.
+const replicaRest = 10 * time.Second
 
 // ReplicaReads counts the reads of lots since UseReplica: Replica, those
 // the replica answered; Lagging, those the primary answered because the
@@ -48,8 +56,9 @@ type ReplicaReads struct {
 // answers for a process only when it holds the same change counter of
 // that process (LotsVersion, read in the snapshot the lots are then read
 // in) as the primary at that moment: then it holds the same lots. When
-// the replica is behind, or cannot be read, the primary answers. So
-// whatever the replica's lag, a read returns what the primary holds.
+// the replica is behind, or cannot be read, the primary answers (alone
+// for the next 10 s after the replica failed a read). So whatever the
+// replica's lag, a read returns what the primary holds.
 // (Equal, not at least: a restore may set a counter back, and a replica
 // that has not yet replayed the restore must not answer with what the
 // restore replaced.)
@@ -134,6 +143,10 @@ func (db *DB) readLots(ctx context.Context, processID int64, read func(q lotQuer
 	if rep == nil {
 		return read(db.r)
 	}
+	if time.Now().UnixNano() < rep.restUntil.Load() {
+		rep.failed.Add(1)
+		return read(db.r)
+	}
 	want, err := db.LotsVersion(ctx, processID)
 	if err != nil {
 		return err
@@ -141,7 +154,7 @@ func (db *DB) readLots(ctx context.Context, processID int64, read func(q lotQuer
 	tx, caughtUp, err := rep.snapshot(ctx, processID, want)
 	switch {
 	case err != nil:
-		rep.failed.Add(1)
+		rep.fail()
 		return read(db.r)
 	case !caughtUp:
 		rep.lagging.Add(1)
@@ -152,11 +165,17 @@ func (db *DB) readLots(ctx context.Context, processID int64, read func(q lotQuer
 		if ctx.Err() != nil {
 			return err
 		}
-		rep.failed.Add(1)
+		rep.fail()
 		return read(db.r)
 	}
 	rep.served.Add(1)
 	return nil
+}
+
+// fail counts a read the replica failed and rests it.
+func (rep *replica) fail() {
+	rep.failed.Add(1)
+	rep.restUntil.Store(time.Now().Add(replicaRest).UnixNano())
 }
 
 // snapshot begins a read of the replica and reports whether, in it, the

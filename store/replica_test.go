@@ -85,10 +85,24 @@ func TestReadReplica(t *testing.T) {
 	release()
 	caughtUp("replay resumed")
 
-	// The replica cannot be read: the primary answers.
+	// The replica cannot be read: the primary answers, and goes on
+	// answering alone for a while although the replica is back.
 	db.replica.db.Close()
 	if d := read("replica closed"); d != (ReplicaReads{Failed: 1}) {
 		t.Errorf("replica closed: %+v, want the primary to answer because the replica failed", d)
+	}
+	back, err := Open(u)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer back.Close()
+	db.replica.db = back.r
+	if d := read("replica back, resting"); d != (ReplicaReads{Failed: 1}) {
+		t.Errorf("replica back within its rest: %+v, want the primary to answer alone", d)
+	}
+	db.replica.restUntil.Store(0)
+	if d := read("replica back, rested"); d != (ReplicaReads{Replica: 1}) {
+		t.Errorf("replica back after its rest: %+v, want it to answer", d)
 	}
 }
 
