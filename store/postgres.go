@@ -123,22 +123,15 @@ func openPostgres(raw string) (*DB, error) { return openPostgresAs(raw, "lotwatc
 // connections show in pg_stat_activity.
 func openPostgresAs(raw, app string) (*DB, error) {
 	name, secrets := Redact(raw), secretsOf(raw)
-	cfg, err := pgx.ParseConfig(raw)
+	cfg, err := pgConfig(raw, app)
 	if err != nil {
-		return nil, fmt.Errorf("store: %s: %w: %w", name, ErrBadURL, scrub(err, secrets))
+		return nil, fmt.Errorf("store: %s: %w", name, err)
 	}
-	cfg.RuntimeParams["application_name"] = app
-	if cfg.ConnectTimeout == 0 {
-		cfg.ConnectTimeout = 10 * time.Second
-	}
-	w := sql.OpenDB(rebindConnector{stdlib.GetConnector(*cfg)})
-	w.SetMaxOpenConns(1)
-	w.SetMaxIdleConns(1)
 	ctx, cancel := context.WithTimeout(context.Background(), cfg.ConnectTimeout+5*time.Second)
 	defer cancel()
-	if err := w.PingContext(ctx); err != nil {
-		w.Close()
-		return nil, fmt.Errorf("store: %s: %w at %s: %w", name, ErrUnreachable, pgHost(&cfg.Config), scrub(err, secrets))
+	w, err := pgConnect(ctx, cfg, 1, secrets)
+	if err != nil {
+		return nil, fmt.Errorf("store: %s: %w", name, err)
 	}
 	if err := migrateWith(w, name, postgresDialect); err != nil {
 		w.Close()
@@ -146,9 +139,7 @@ func openPostgresAs(raw, app string) (*DB, error) {
 	}
 	rcfg := cfg.Copy()
 	rcfg.RuntimeParams["default_transaction_read_only"] = "on"
-	r := sql.OpenDB(rebindConnector{stdlib.GetConnector(*rcfg)})
-	r.SetMaxOpenConns(8)
-	r.SetMaxIdleConns(8)
+	r := pgPool(rcfg, readConns)
 	db := &DB{path: name, d: postgresDialect, w: w, r: r, jobs: make(chan *job, 256), quit: make(chan struct{}), done: make(chan struct{})}
 	if err := checkChain(ctx, db.w); err != nil {
 		w.Close()
@@ -161,6 +152,44 @@ func openPostgresAs(raw, app string) (*DB, error) {
 		return nil, scrub(err, secrets)
 	}
 	go db.writer()
+	return db, nil
+}
+
+// readConns is the size of a pool of reading connections.
+const readConns = 8
+
+// pgConfig reads a PostgreSQL URL for connections that name themselves
+// app (in pg_stat_activity) and give up connecting after 10 s unless the
+// URL says otherwise.
+func pgConfig(raw, app string) (*pgx.ConnConfig, error) {
+	cfg, err := pgx.ParseConfig(raw)
+	if err != nil {
+		return nil, fmt.Errorf("%w: %w", ErrBadURL, scrub(err, secretsOf(raw)))
+	}
+	cfg.RuntimeParams["application_name"] = app
+	if cfg.ConnectTimeout == 0 {
+		cfg.ConnectTimeout = 10 * time.Second
+	}
+	return cfg, nil
+}
+
+// pgPool is a pool of at most conns connections of cfg, taking the
+// store's queries as written (see rebindConnector).
+func pgPool(cfg *pgx.ConnConfig, conns int) *sql.DB {
+	db := sql.OpenDB(rebindConnector{stdlib.GetConnector(*cfg)})
+	db.SetMaxOpenConns(conns)
+	db.SetMaxIdleConns(conns)
+	return db
+}
+
+// pgConnect is pgPool, once the server has answered: an error names the
+// host, without the password.
+func pgConnect(ctx context.Context, cfg *pgx.ConnConfig, conns int, secrets []string) (*sql.DB, error) {
+	db := pgPool(cfg, conns)
+	if err := db.PingContext(ctx); err != nil {
+		db.Close()
+		return nil, fmt.Errorf("%w at %s: %w", ErrUnreachable, pgHost(&cfg.Config), scrub(err, secrets))
+	}
 	return db, nil
 }
 

@@ -7,9 +7,6 @@ import (
 	"fmt"
 	"sync/atomic"
 	"time"
-
-	"github.com/jackc/pgx/v5"
-	"github.com/jackc/pgx/v5/stdlib"
 )
 
 // ErrNotReplica is returned by UseReplica for a database that does not
@@ -71,23 +68,16 @@ func (db *DB) UseReplica(url string) error {
 		return fmt.Errorf("store: read replica %s: %w", Redact(url), ErrReplicaNeedsServer)
 	}
 	name, secrets := Redact(url), secretsOf(url)
-	cfg, err := pgx.ParseConfig(url)
+	cfg, err := pgConfig(url, "lotwatch-read")
 	if err != nil {
-		return fmt.Errorf("store: read replica %s: %w: %w", name, ErrBadURL, scrub(err, secrets))
+		return fmt.Errorf("store: read replica %s: %w", name, err)
 	}
-	cfg.RuntimeParams["application_name"] = "lotwatch-read"
 	cfg.RuntimeParams["default_transaction_read_only"] = "on"
-	if cfg.ConnectTimeout == 0 {
-		cfg.ConnectTimeout = 10 * time.Second
-	}
-	r := sql.OpenDB(rebindConnector{stdlib.GetConnector(*cfg)})
-	r.SetMaxOpenConns(8)
-	r.SetMaxIdleConns(8)
 	ctx, cancel := context.WithTimeout(context.Background(), cfg.ConnectTimeout+5*time.Second)
 	defer cancel()
-	if err := r.PingContext(ctx); err != nil {
-		r.Close()
-		return fmt.Errorf("store: read replica %s: %w at %s: %w", name, ErrUnreachable, pgHost(&cfg.Config), scrub(err, secrets))
+	r, err := pgConnect(ctx, cfg, readConns, secrets)
+	if err != nil {
+		return fmt.Errorf("store: read replica %s: %w", name, err)
 	}
 	if err := db.sameChain(ctx, r); err != nil {
 		r.Close()
