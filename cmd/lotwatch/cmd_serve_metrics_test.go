@@ -27,19 +27,10 @@ func TestServeMetricsAddr(t *testing.T) {
 		t.Fatalf("go build: %v\n%s", err, out)
 	}
 	db := storetest.DB(t)
-	for _, args := range [][]string{
+	token := stationToken(t, bin, db, "metrics-test-pass\n", [][]string{
 		{"process", "add", "--db", db, "--name", "weld", "--as", "t"},
 		{"user", "add", "--db", db, "--name", "station", "--role", "inspector", "--as", "t"},
-	} {
-		if code, out := lotwatchCmd(t, bin, "metrics-test-pass\n", args...); code != exitOK {
-			t.Fatalf("%v: %d %s", args, code, out)
-		}
-	}
-	tokOut, err := exec.Command(bin, "token", "create", "--db", db, "--user", "station", "--as", "t").Output()
-	if err != nil {
-		t.Fatalf("token create: %v", err)
-	}
-	token := strings.TrimSpace(string(tokOut))
+	})
 	addr, maddr := freeAddr(t), freeAddr(t)
 	srv := exec.Command(bin, "serve", "--db", db, "--addr", addr, "--metrics-addr", maddr)
 	var log strings.Builder

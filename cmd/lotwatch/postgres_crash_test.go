@@ -76,19 +76,10 @@ func TestPostgresCrash(t *testing.T) {
 	bin := buildLotwatch(t)
 	pg := newPGCluster(t)
 	db := pg.url()
-	for _, args := range [][]string{
+	token := stationToken(t, bin, db, "crash-test-pass\n", [][]string{
 		{"process", "add", "--db", db, "--name", "weld", "--as", "t"},
 		{"user", "add", "--db", db, "--name", "station", "--role", "inspector", "--as", "t"},
-	} {
-		if code, out := lotwatchCmd(t, bin, "crash-test-pass\n", args...); code != exitOK {
-			t.Fatalf("%v: %d %s", args, code, out)
-		}
-	}
-	tokOut, err := exec.Command(bin, "token", "create", "--db", db, "--user", "station", "--as", "t").Output()
-	if err != nil {
-		t.Fatalf("token create: %v", err)
-	}
-	token := strings.TrimSpace(string(tokOut))
+	})
 	addrs := []string{freeAddr(t), freeAddr(t)}
 	srvs := make([]*exec.Cmd, 2)
 	logs := make([]*strings.Builder, 2)

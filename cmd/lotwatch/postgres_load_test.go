@@ -29,19 +29,10 @@ import (
 func BenchmarkPostgresLoad(b *testing.B) {
 	pg := storetest.PostgresDatabase(b)
 	bin := buildLotwatch(b)
-	for _, args := range [][]string{
+	token := stationToken(b, bin, pg, "load-test-pass\n", [][]string{
 		{"process", "add", "--db", pg, "--name", "weld", "--as", "t"},
 		{"user", "add", "--db", pg, "--name", "station", "--role", "inspector", "--as", "t"},
-	} {
-		if code, out := lotwatchCmd(b, bin, "load-test-pass\n", args...); code != exitOK {
-			b.Fatalf("%v: %d %s", args, code, out)
-		}
-	}
-	tokOut, err := exec.Command(bin, "token", "create", "--db", pg, "--user", "station", "--as", "t").Output()
-	if err != nil {
-		b.Fatalf("token create: %v", err)
-	}
-	token := strings.TrimSpace(string(tokOut))
+	})
 	var bases []string
 	for range 2 {
 		addr := freeAddr(b)

@@ -29,6 +29,23 @@ func buildLotwatch(t testing.TB) string {
 	return bin
 }
 
+// stationToken runs the set-up commands (stdin answers any password
+// prompt), then creates an API token for the user "station", whom one of
+// them added, and returns it.
+func stationToken(t testing.TB, bin, db, stdin string, setup [][]string) string {
+	t.Helper()
+	for _, args := range setup {
+		if code, out := lotwatchCmd(t, bin, stdin, args...); code != exitOK {
+			t.Fatalf("%v: %d %s", args, code, out)
+		}
+	}
+	tok, err := exec.Command(bin, "token", "create", "--db", db, "--user", "station", "--as", "t").Output()
+	if err != nil {
+		t.Fatalf("token create: %v", err)
+	}
+	return strings.TrimSpace(string(tok))
+}
+
 // startServers starts n `lotwatch serve` on the database db, killed when
 // the test ends, and returns their base URLs and processes.
 func startServers(t *testing.T, bin, db string, n int, extra ...string) ([]string, []*exec.Cmd) {
@@ -231,20 +248,11 @@ func TestPostgresConnectionErrors(t *testing.T) {
 func TestTwoServersOnePostgres(t *testing.T) {
 	pg := storetest.PostgresDatabase(t)
 	bin := buildLotwatch(t)
-	for _, args := range [][]string{
+	token := stationToken(t, bin, pg, "two-servers-pass\n", [][]string{
 		{"process", "add", "--db", pg, "--name", "weld", "--as", "t"},
 		{"user", "add", "--db", pg, "--name", "station", "--role", "inspector", "--as", "t"},
 		{"user", "add", "--db", pg, "--name", "eve", "--role", "engineer", "--as", "t"},
-	} {
-		if code, out := lotwatchCmd(t, bin, "two-servers-pass\n", args...); code != exitOK {
-			t.Fatalf("%v: %d %s", args, code, out)
-		}
-	}
-	tokOut, err := exec.Command(bin, "token", "create", "--db", pg, "--user", "station", "--as", "t").Output()
-	if err != nil {
-		t.Fatalf("token create: %v", err)
-	}
-	token := strings.TrimSpace(string(tokOut))
+	})
 	bases, srvs := startServers(t, bin, pg, 2)
 	call := func(method, url, body string, hdr ...string) (int, string, *http.Response) {
 		t.Helper()

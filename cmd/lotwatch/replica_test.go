@@ -5,7 +5,6 @@ import (
 	"io"
 	"lotwatch/store/storetest"
 	"net/http"
-	"os/exec"
 	"path/filepath"
 	"regexp"
 	"strconv"
@@ -33,21 +32,12 @@ func TestReadReplicaServeAndReport(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	for _, args := range [][]string{
+	bearer := "Bearer " + stationToken(t, bin, pg, "replica-test-pass\n", [][]string{
 		{"process", "add", "--db", pg, "--name", "housing", "--categories", "short shot,flash,sink mark,scratch,discolour", "--tz", "Europe/Berlin", "--as", "t"},
 		{"process", "add", "--db", pg, "--name", "weld", "--as", "t"},
 		{"import", "--db", pg, "--process", "housing", "--as", "t", csv},
 		{"user", "add", "--db", pg, "--name", "station", "--role", "inspector", "--as", "t"},
-	} {
-		if code, out := lotwatchCmd(t, bin, "replica-test-pass\n", args...); code != exitOK {
-			t.Fatalf("%v: %d %s", args, code, out)
-		}
-	}
-	tokOut, err := exec.Command(bin, "token", "create", "--db", pg, "--user", "station", "--as", "t").Output()
-	if err != nil {
-		t.Fatalf("token create: %v", err)
-	}
-	bearer := "Bearer " + strings.TrimSpace(string(tokOut))
+	})
 	maddr := freeAddr(t)
 	a, _ := startServers(t, bin, pg, 1, "--read-db", rep)
 	b, _ := startServers(t, bin, pg, 1, "--read-db", rep, "--metrics-addr", maddr)

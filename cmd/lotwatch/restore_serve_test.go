@@ -34,20 +34,11 @@ func TestRestoreRefusedWhileServing(t *testing.T) {
 		t.Fatalf("go build: %v\n%s", err, out)
 	}
 	db := filepath.Join(dir, "live.db")
-	for _, args := range [][]string{
+	token := stationToken(t, bin, db, "restore-test-pass\n", [][]string{
 		{"process", "add", "--db", db, "--name", "weld", "--as", "t"},
 		{"user", "add", "--db", db, "--name", "station", "--role", "inspector", "--as", "t"},
 		{"backup", "--db", db, "--to", filepath.Join(dir, "good.db")},
-	} {
-		if code, out := lotwatchCmd(t, bin, "restore-test-pass\n", args...); code != exitOK {
-			t.Fatalf("%v: %d %s", args, code, out)
-		}
-	}
-	tokOut, err := exec.Command(bin, "token", "create", "--db", db, "--user", "station", "--as", "t").Output()
-	if err != nil {
-		t.Fatalf("token create: %v", err)
-	}
-	token := strings.TrimSpace(string(tokOut))
+	})
 
 	addr := freeAddr(t)
 	srv := exec.Command(bin, "serve", "--db", db, "--addr", addr)
