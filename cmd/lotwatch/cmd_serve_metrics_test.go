@@ -61,21 +61,11 @@ func TestServeMetricsAddr(t *testing.T) {
 		return v
 	}
 	before := read()
-	req, _ := http.NewRequest("POST", "http://"+addr+"/api/v1/processes/1/lots", strings.NewReader(`{"lot":"M1","inspected":50,"defective":1}`))
-	req.Header.Set("Authorization", "Bearer "+token)
-	req.Header.Set("Content-Type", "application/json")
-	res, err := http.DefaultClient.Do(req)
-	if err != nil {
-		t.Fatal(err)
-	}
-	res.Body.Close()
-	if res.StatusCode != http.StatusCreated {
-		t.Fatalf("post: %d", res.StatusCode)
-	}
+	postLot(t, "http://"+addr+"/api/v1/processes/1/lots", token, `{"lot":"M1","inspected":50,"defective":1}`)
 	if after := read(); after != before+1 {
 		t.Errorf("lotwatch_lots_stored went from %v to %v after one lot, want +1", before, after)
 	}
-	res, err = http.Get("http://" + addr + "/metrics")
+	res, err := http.Get("http://" + addr + "/metrics")
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -46,6 +46,23 @@ func stationToken(t testing.TB, bin, db, stdin string, setup [][]string) string 
 	return strings.TrimSpace(string(tok))
 }
 
+// postLot posts one lot (its JSON) with the token to the API at url and
+// fails the test unless it is stored (201).
+func postLot(t testing.TB, url, token, lot string) {
+	t.Helper()
+	req, _ := http.NewRequest("POST", url, strings.NewReader(lot))
+	req.Header.Set("Authorization", "Bearer "+token)
+	req.Header.Set("Content-Type", "application/json")
+	res, err := http.DefaultClient.Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	res.Body.Close()
+	if res.StatusCode != http.StatusCreated {
+		t.Fatalf("post %s: %d", lot, res.StatusCode)
+	}
+}
+
 // startServers starts n `lotwatch serve` on the database db, killed when
 // the test ends, and returns their base URLs and processes.
 func startServers(t *testing.T, bin, db string, n int, extra ...string) ([]string, []*exec.Cmd) {

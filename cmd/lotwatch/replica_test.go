@@ -32,7 +32,7 @@ func TestReadReplicaServeAndReport(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	bearer := "Bearer " + stationToken(t, bin, pg, "replica-test-pass\n", [][]string{
+	token := stationToken(t, bin, pg, "replica-test-pass\n", [][]string{
 		{"process", "add", "--db", pg, "--name", "housing", "--categories", "short shot,flash,sink mark,scratch,discolour", "--tz", "Europe/Berlin", "--as", "t"},
 		{"process", "add", "--db", pg, "--name", "weld", "--as", "t"},
 		{"import", "--db", pg, "--process", "housing", "--as", "t", csv},
@@ -44,7 +44,7 @@ func TestReadReplicaServeAndReport(t *testing.T) {
 	get := func(url string) string {
 		t.Helper()
 		req, _ := http.NewRequest("GET", url, nil)
-		req.Header.Set("Authorization", bearer)
+		req.Header.Set("Authorization", "Bearer "+token)
 		res, err := http.DefaultClient.Do(req)
 		if err != nil {
 			t.Fatal(err)
@@ -58,17 +58,7 @@ func TestReadReplicaServeAndReport(t *testing.T) {
 	}
 	post := func(code string) {
 		t.Helper()
-		req, _ := http.NewRequest("POST", a[0]+"/api/v1/processes/2/lots", strings.NewReader(fmt.Sprintf(`{"lot":%q,"inspected":50,"defective":1}`, code)))
-		req.Header.Set("Authorization", bearer)
-		req.Header.Set("Content-Type", "application/json")
-		res, err := http.DefaultClient.Do(req)
-		if err != nil {
-			t.Fatal(err)
-		}
-		res.Body.Close()
-		if res.StatusCode != http.StatusCreated {
-			t.Fatalf("post %s: %d", code, res.StatusCode)
-		}
+		postLot(t, a[0]+"/api/v1/processes/2/lots", token, fmt.Sprintf(`{"lot":%q,"inspected":50,"defective":1}`, code))
 	}
 	reads := func() map[string]float64 {
 		t.Helper()
