@@ -81,12 +81,20 @@ var Backends = []Backend{
 // .ci/postgres); without it the test is skipped, or failed when CI=true.
 func PostgresURL(t testing.TB) string {
 	t.Helper()
-	u := os.Getenv("LOTWATCH_TEST_POSTGRES")
+	return serverURL(t, "LOTWATCH_TEST_POSTGRES", "PostgreSQL")
+}
+
+// serverURL is the URL in the environment variable env; without it the
+// test is skipped, or failed when CI=true (CI must test what on a real
+// server).
+func serverURL(t testing.TB, env, what string) string {
+	t.Helper()
+	u := os.Getenv(env)
 	if u == "" {
 		if os.Getenv("CI") == "true" {
-			t.Fatal("LOTWATCH_TEST_POSTGRES is not set (CI must test on PostgreSQL: see .ci/postgres)")
+			t.Fatalf("%s is not set (CI must test %s: see .ci/postgres)", env, what)
 		}
-		t.Skip("LOTWATCH_TEST_POSTGRES is not set: PostgreSQL not tested (source .ci/postgres to start one)")
+		t.Skipf("%s is not set: %s not tested (source .ci/postgres to start one)", env, what)
 	}
 	return u
 }
@@ -153,13 +161,7 @@ func randomName() string {
 // .ci/postgres); without it the test is skipped, or failed when CI=true.
 func ReplicaOf(t testing.TB, db string) string {
 	t.Helper()
-	rep := os.Getenv("LOTWATCH_TEST_POSTGRES_REPLICA")
-	if rep == "" {
-		if os.Getenv("CI") == "true" {
-			t.Fatal("LOTWATCH_TEST_POSTGRES_REPLICA is not set (CI must test the read replica: see .ci/postgres)")
-		}
-		t.Skip("LOTWATCH_TEST_POSTGRES_REPLICA is not set: the read replica not tested (source .ci/postgres to start one)")
-	}
+	rep := serverURL(t, "LOTWATCH_TEST_POSTGRES_REPLICA", "the read replica")
 	ru, err := url.Parse(rep)
 	if err != nil {
 		t.Fatal(err)
