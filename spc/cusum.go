@@ -247,34 +247,9 @@ func (c *CUSUM) scoreDistribution(p float64) []cusumScore {
 		return s
 	}
 	var out []cusumScore
-	weight := map[int64]float64{}
-	for _, n := range c.Sizes {
-		if c.Chart == ChartC {
-			n = 1
-		}
-		weight[n] += 1 / float64(len(c.Sizes))
-	}
-	for n, wt := range weight {
-		var d countDist
-		switch c.Chart {
-		case ChartP, ChartNP:
-			d = binomialDist(n, p)
-		case ChartU:
-			d = poissonDist(float64(n) * p)
-		default:
-			d = poissonDist(p)
-		}
-		lo := max(0, int64(math.Floor(d.mean-12*d.sd-10)))
-		hi := int64(math.Ceil(d.mean + 12*d.sd + 10))
-		if d.binomial {
-			hi = min(hi, n)
-		}
-		for k := lo; k <= hi; k++ {
-			if pr := d.pmf(k); pr > 0 {
-				out = append(out, cusumScore{c.score(float64(n), float64(k)), wt * pr})
-			}
-		}
-	}
+	eachCount(c.Chart, p, c.Sizes, func(n, k int64, prob float64) {
+		out = append(out, cusumScore{c.score(float64(n), float64(k)), prob})
+	})
 	if c.scores == nil {
 		c.scores = map[float64][]cusumScore{}
 	}

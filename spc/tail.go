@@ -205,3 +205,39 @@ func bd0(x, m float64) float64 {
 	}
 	return x*math.Log(x/m) + m - x
 }
+
+// eachCount calls fn with each count k a lot may have while the rate is
+// p, with its probability: the lot size n drawn from sizes (each entry
+// equally likely; a c chart's lot is its own unit, n = 1), the count
+// binomial (p, np charts) or Poisson (u, c). Counts beyond 12 standard
+// deviations of the mean are left out.
+func eachCount(ch Chart, p float64, sizes []int64, fn func(n, k int64, prob float64)) {
+	weight := map[int64]float64{}
+	for _, n := range sizes {
+		if ch == ChartC {
+			n = 1
+		}
+		weight[n] += 1 / float64(len(sizes))
+	}
+	for n, wt := range weight {
+		var d countDist
+		switch ch {
+		case ChartP, ChartNP:
+			d = binomialDist(n, p)
+		case ChartU:
+			d = poissonDist(float64(n) * p)
+		default:
+			d = poissonDist(p)
+		}
+		lo := max(0, int64(math.Floor(d.mean-12*d.sd-10)))
+		hi := int64(math.Ceil(d.mean + 12*d.sd + 10))
+		if d.binomial {
+			hi = min(hi, n)
+		}
+		for k := lo; k <= hi; k++ {
+			if pr := d.pmf(k); pr > 0 {
+				fn(n, k, wt*pr)
+			}
+		}
+	}
+}

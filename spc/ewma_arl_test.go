@@ -1,0 +1,100 @@
+package spc
+
+import (
+	"encoding/json"
+	"fmt"
+	"math"
+	"os"
+	"testing"
+)
+
+// ewmaReference is testdata/ewma_arl_reference.json, written by
+// ewma_arl_reference.py beside it (SciPy: the integral equation for
+// normal observations, and a Markov chain 20 times finer than
+// ewma_arl.go's for counts).
+type ewmaReference struct {
+	Normal []struct {
+		Lambda, Width, Shift, ARL float64
+	} `json:"normal"`
+	Counts []struct {
+		Chart                    Chart
+		P0, Lambda, Width, P, ARL float64
+		Sizes                    []int64
+	} `json:"counts"`
+}
+
+func readEWMAReference(t *testing.T) ewmaReference {
+	t.Helper()
+	raw, err := os.ReadFile("testdata/ewma_arl_reference.json")
+	if err != nil {
+		t.Fatal(err)
+	}
+	var ref ewmaReference
+	if err := json.Unmarshal(raw, &ref); err != nil {
+		t.Fatal(err)
+	}
+	if len(ref.Normal) == 0 || len(ref.Counts) == 0 {
+		t.Fatal("the reference file has no rows")
+	}
+	return ref
+}
+
+// TestEWMAARLNormalLimit checks the Markov chain of ewma_arl.go on the
+// EWMA of a c chart whose counts are so large (c0 = 10⁶, skewness 0.001)
+// that they are normal for the purpose; a shift is in standard
+// deviations √c0.
+//
+// Sources: the ARLs of the integral equation (Crowder 1987; SciPy,
+// Nyström on 400 Gauss–Legendre nodes: testdata/ewma_arl_reference.py),
+// and Lucas & Saccucci (1990), Technometrics 32, 1–12, as tabulated in
+// Montgomery, Introduction to Statistical Quality Control, Table 9.11
+// (from memory; 3 significant figures, so within 0.5 % of the
+// reference). Tolerance 1 %: the chain puts Z at the middle of its cell
+// (ewmaCells).
+func TestEWMAARLNormalLimit(t *testing.T) {
+	ref := readEWMAReference(t)
+	// Montgomery Table 9.11 (from memory), by λ, L and shift.
+	table := map[[3]float64]float64{
+		{0.05, 2.615, 0}: 500, {0.05, 2.615, 0.5}: 28.8, {0.05, 2.615, 1}: 11.4, {0.05, 2.615, 2}: 5.2,
+		{0.10, 2.814, 0}: 500, {0.10, 2.814, 0.5}: 31.3, {0.10, 2.814, 1}: 10.3, {0.10, 2.814, 2}: 4.4,
+		{0.20, 2.962, 0}: 500, {0.20, 2.962, 0.5}: 41.8, {0.20, 2.962, 1}: 10.5, {0.20, 2.962, 2}: 3.7,
+		{0.25, 2.998, 0}: 500, {0.25, 2.998, 0.5}: 48.2, {0.25, 2.998, 1}: 11.1, {0.25, 2.998, 2}: 3.6,
+		{0.40, 3.054, 0}: 500, {0.40, 3.054, 0.5}: 71.2, {0.40, 3.054, 1}: 14.3, {0.40, 3.054, 2}: 3.5,
+	}
+	const c0 = 1e6
+	sigma := math.Sqrt(c0)
+	for _, r := range ref.Normal {
+		t.Run(fmt.Sprintf("λ=%g L=%g shift=%g", r.Lambda, r.Width, r.Shift), func(t *testing.T) {
+			e := EWMA{Chart: ChartC, P0: c0, Lambda: r.Lambda, L: r.Width}
+			got := e.ARL(c0+r.Shift*sigma, []int64{1})
+			if rel := got/r.ARL - 1; math.Abs(rel) > 0.01 {
+				t.Errorf("ARL %.4g, integral equation %.4g: off by %.2f %%", got, r.ARL, 100*rel)
+			}
+			pub, ok := table[[3]float64{r.Lambda, r.Width, r.Shift}]
+			if !ok {
+				return // a design the table does not hold (λ 0.2, L 3: the default)
+			}
+			// 3 significant figures, and 2 for the smallest values.
+			if rel := pub/r.ARL - 1; math.Abs(rel) > 0.005 && math.Abs(pub-r.ARL) > 0.05 {
+				t.Errorf("the table value %.4g is %.2f %% from the integral equation's %.4g", pub, 100*rel, r.ARL)
+			}
+		})
+	}
+}
+
+// TestEWMAARLCounts checks the chain on counts where the normal
+// approximation does not hold (4 nonconforming or defects a lot on
+// average), one case with lot sizes of its own, against the same chain
+// on 20 times as many cells with SciPy's probabilities
+// (testdata/ewma_arl_reference.py). Tolerance 2 %, the cell's error.
+func TestEWMAARLCounts(t *testing.T) {
+	for _, r := range readEWMAReference(t).Counts {
+		t.Run(fmt.Sprintf("%s p0=%g p=%g", r.Chart, r.P0, r.P), func(t *testing.T) {
+			e := EWMA{Chart: r.Chart, P0: r.P0, Lambda: r.Lambda, L: r.Width}
+			got := e.ARL(r.P, r.Sizes)
+			if rel := got/r.ARL - 1; math.Abs(rel) > 0.02 {
+				t.Errorf("ARL %.4g, the finer chain %.4g: off by %.2f %%", got, r.ARL, 100*rel)
+			}
+		})
+	}
+}
