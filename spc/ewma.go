@@ -24,6 +24,10 @@ type EWMA struct {
 	// Lambda is the weight of the newest lot, in (0, 1]; L the width of
 	// the limits in standard deviations of Z.
 	Lambda, L float64
+	// ARL0 is the mean number of lots between false alarms while the
+	// rate stays at P0 (ARL, for the lot sizes watched); 0 when not
+	// worked out.
+	ARL0 float64
 }
 
 // The usual EWMA design (Montgomery §9.2: λ between 0.05 and 0.25, L = 3

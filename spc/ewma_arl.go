@@ -57,11 +57,7 @@ func (e EWMA) ARL(p float64, sizes []int64) float64 {
 	lcl, ucl := e.SteadyLimits(sizes)
 	m := ewmaCells
 	w := (ucl - lcl) / float64(m)
-	type move struct{ x, prob float64 }
-	var moves []move
-	eachCount(e.Chart, p, sizes, func(n, k int64, prob float64) {
-		moves = append(moves, move{float64(k) / float64(n), prob})
-	})
+	moves := e.rateMoves(p, sizes, w)
 	q := mat.NewDense(m, m, nil)
 	for i := range m {
 		q.Set(i, i, 1)
@@ -84,4 +80,33 @@ func (e EWMA) ARL(p float64, sizes []int64) float64 {
 		return math.Inf(1)
 	}
 	return l.AtVec(min(int((e.P0-lcl)/w), m-1))
+}
+
+// ewmaMove is a lot's rate and its probability.
+type ewmaMove struct{ x, prob float64 }
+
+// rateMoves returns the rates a lot may have while the rate is p, the
+// lot size drawn from sizes, with their probabilities. Rates closer than
+// a quarter cell (w) of λ·x are merged at their mean: they move Z into
+// nearly the same place, and a process with a thousand lot sizes would
+// otherwise give the chain a thousand count distributions to walk.
+func (e EWMA) rateMoves(p float64, sizes []int64, w float64) []ewmaMove {
+	bin := w / (4 * e.Lambda)
+	merged := map[int64]*ewmaMove{}
+	eachCount(e.Chart, p, sizes, func(n, k int64, prob float64) {
+		x := float64(k) / float64(n)
+		b := int64(math.Round(x / bin))
+		mv := merged[b]
+		if mv == nil {
+			mv = &ewmaMove{}
+			merged[b] = mv
+		}
+		mv.x += prob * x // the weighted sum, until divided below
+		mv.prob += prob
+	})
+	out := make([]ewmaMove, 0, len(merged))
+	for _, mv := range merged {
+		out = append(out, ewmaMove{mv.x / mv.prob, mv.prob})
+	}
+	return out
 }

@@ -17,9 +17,9 @@ type ewmaReference struct {
 		Lambda, Width, Shift, ARL float64
 	} `json:"normal"`
 	Counts []struct {
-		Chart                    Chart
+		Chart                     Chart
 		P0, Lambda, Width, P, ARL float64
-		Sizes                    []int64
+		Sizes                     []int64
 	} `json:"counts"`
 }
 

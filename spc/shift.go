@@ -82,6 +82,9 @@ func WatchShifts(a *Analysis, lots []Lot, m Monitors, sizes []int64) (*ShiftWatc
 			return nil, fmt.Errorf("EWMA: %w", err)
 		}
 		e := EWMA{Chart: a.Chart, P0: p0, Lambda: m.EWMALambda, L: width}
+		if len(sizes) > 0 {
+			e.ARL0 = e.ARL(p0, sizes)
+		}
 		w.EWMA = &e
 		w.EWMAPoints = e.Run(lots)
 		for i := 0; i < len(w.EWMAPoints); {

@@ -8,6 +8,7 @@ import (
 	"net/http/httptest"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 	"time"
 
@@ -89,7 +90,8 @@ func TestE2EShiftMonitorCharts(t *testing.T) {
 		t.Fatal(err)
 	}
 	cPoints, cSignals := cusum.Run(lots)
-	ePoints := spc.EWMA{Chart: spc.ChartP, P0: p0, Lambda: 0.2, L: 3}.Run(lots)
+	ewma := spc.EWMA{Chart: spc.ChartP, P0: p0, Lambda: 0.2, L: 3}
+	ePoints := ewma.Run(lots)
 	if len(cSignals) == 0 {
 		t.Fatal("the CUSUM does not signal on the rise; the test's lots do not show what it checks")
 	}
@@ -146,6 +148,13 @@ func TestE2EShiftMonitorCharts(t *testing.T) {
 		}
 		if onMain := marked(main["in a signal"], i) || marked(main["out of limits"], i); onMain != shiftLots[i] {
 			t.Errorf("lot %s: marked on the control chart %v; takes part in a shift signal %v", codes[i], onMain, shiftLots[i])
+		}
+	}
+	// Each monitor's legend carries its false-alarm cost.
+	legends := text(t, ctx, "main")
+	for what, arl0 := range map[string]float64{"CUSUM": cusum.ARL0, "EWMA": ewma.ARL(p0, sizes)} {
+		if want := fmt.Sprintf("on average %.0f lots between false alarms at the centre", arl0); !strings.Contains(legends, want) {
+			t.Errorf("the %s legend does not say %q:\n%s", what, want, legends)
 		}
 	}
 	for _, id := range []string{"cusum-chart", "ewma-chart"} {

@@ -104,7 +104,7 @@ func shiftChartOptions(v *chartView, idx []int) []shiftChart {
 		signals(line, func(p *shiftPoint) float64 { return p.Z }, func(p *shiftPoint) bool { return p.EWMASignal })
 		line.Validate()
 		out = append(out, shiftChart{ID: "ewma-chart", Options: line.JSON(),
-			Label: fmt.Sprintf("EWMA below the chart, same lots: the weighted average of the rates (weight %g on the newest) with its limits at %g standard deviations (a signal beyond them).", e.Lambda, e.L)})
+			Label: fmt.Sprintf("EWMA below the chart, same lots: the weighted average of the rates (weight %g on the newest) with its limits at %g standard deviations (a signal beyond them); on average %.0f lots between false alarms at the centre.", e.Lambda, e.L, e.ARL0)})
 	}
 	return out
 }

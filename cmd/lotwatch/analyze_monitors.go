@@ -59,7 +59,7 @@ func (m *monitorOptions) addFlags(fs *flag.FlagSet) {
 	fs.Func("arl0", "for --monitor cusum: how many lots on average between false alarms while the rate\nstays at the centre, `A`; the decision interval h is set to reach it (default 370,\nabout that of a 3-sigma chart)", number("arl0", &m.arl0, nil))
 	fs.Func("decision-interval", "for --monitor cusum: the decision interval `H` itself (the CUSUM signals when its\nsum reaches H) instead of one designed from --arl0; the run lengths are still reported", number("decision-interval", &m.h, &m.hSet))
 	fs.Func("lambda", "for --monitor ewma: the weight `L` of the newest lot in the average, above 0 and at\nmost 1 (default 0.2); smaller weights remember more lots and see smaller shifts", number("lambda", &m.lambda, nil))
-	fs.Func("width", "for --monitor ewma: the width `W` of the EWMA's limits in its standard deviations\n(default 3)", number("width", &m.width, nil))
+	fs.Func("width", "for --monitor ewma: the width `W` of the EWMA's limits in its standard deviations\n(default 3); the output gives the mean number of lots between false alarms that\nλ and W make at the centre", number("width", &m.width, nil))
 }
 
 // problems checks the monitor flags that need no data.
@@ -149,6 +149,7 @@ func (m *monitorOptions) run(ch spc.Chart, lots []spc.Lot, p0 float64, sizes []i
 		if err := spc.CheckEWMA(ch, p0, m.lambda, m.width); err != nil {
 			return nil, fmt.Errorf("--monitor ewma: %v", err)
 		}
+		e.ARL0 = e.ARL(p0, sizes)
 		r.ewma = &e
 		r.ePoints = e.Run(lots)
 	}
@@ -215,7 +216,8 @@ func (r *monitorResult) text(w io.Writer, ch spc.Chart) {
 		}
 	}
 	if e := r.ewma; e != nil {
-		fmt.Fprintf(w, "\nEWMA of the rates, weight %g, limits at %g standard deviations, centre %s\n\n", e.Lambda, e.L, fmtRate(ch, e.P0))
+		fmt.Fprintf(w, "\nEWMA of the rates, weight %g, limits at %g standard deviations, centre %s\n", e.Lambda, e.L, fmtRate(ch, e.P0))
+		fmt.Fprintf(w, "  on average %.1f lots between false alarms at the centre (limits at their steady width, lot sizes as in these lots)\n\n", e.ARL0)
 		tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
 		fmt.Fprintln(tw, "lot\tLCL\tEWMA\tUCL\t \t")
 		n := 0

@@ -3,6 +3,7 @@ package main
 import (
 	"encoding/json"
 	"math"
+	"regexp"
 	"strconv"
 	"strings"
 	"testing"
@@ -31,6 +32,7 @@ type monitorsJSON struct {
 		P0     *float64 `json:"p0"`
 		Lambda *float64 `json:"lambda"`
 		Width  *float64 `json:"width"`
+		ARL0   *float64 `json:"arl0"`
 		Points []struct {
 			Lot    *string  `json:"lot"`
 			Z      *float64 `json:"z"`
@@ -61,6 +63,14 @@ func TestAnalyzeMonitorsJSON(t *testing.T) {
 	// p0 is the chart's centre, 347/1500 (Montgomery's orange juice, from memory).
 	if math.Abs(*c.P0-347.0/1500) > 1e-15 || *c.P1 != 0.35 || *c.ARL0 < 370 || !(*c.ARL1 < *c.ARL0) || *e.Lambda != 0.2 || *e.Width != 3 || *e.P0 != *c.P0 {
 		t.Errorf("cusum %v %v %v %v, ewma %v %v", *c.P0, *c.P1, *c.ARL0, *c.ARL1, *e.Lambda, *e.Width)
+	}
+	// The EWMA's false alarms: λ 0.2 and L 3 give 559.9 lots between them
+	// for normal data (Crowder's integral equation, SciPy:
+	// spc/testdata/ewma_arl_reference.json); 50 units at 0.23 (11.6
+	// nonconforming a lot) are near enough normal for 5 % (common
+	// practice, no source).
+	if e.ARL0 == nil || math.Abs(*e.ARL0/559.9-1) > 0.05 {
+		t.Errorf("EWMA arl0 %v, want about 560 lots", e.ARL0)
 	}
 	if len(c.Points) != 30 || len(e.Points) != 30 || *c.Points[0].Lot != "S1" || *e.Points[29].Lot != "S30" {
 		t.Fatalf("%d and %d points", len(c.Points), len(e.Points))
@@ -145,7 +155,7 @@ func TestAnalyzeMonitorsHelpAndText(t *testing.T) {
 		}
 	}
 	code, out, _ := runCmd(t, orangeJuiceCSV(), "analyze", "--monitor", "cusum", "--shift", "0.35", "--monitor", "ewma", "-")
-	if code != 0 || !strings.Contains(out, "CUSUM watching for a rise") || !strings.Contains(out, "the change probably began at lot") || !strings.Contains(out, "EWMA of the rates") {
+	if code != 0 || !strings.Contains(out, "CUSUM watching for a rise") || !strings.Contains(out, "the change probably began at lot") || !strings.Contains(out, "EWMA of the rates") || !regexp.MustCompile(`on average 5\d\d\.\d lots between false alarms at the centre \(limits at their steady width`).MatchString(out) {
 		t.Errorf("text: %s", out)
 	}
 }

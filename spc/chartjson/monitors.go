@@ -47,9 +47,12 @@ func CUSUMOf(c *spc.CUSUM, pts []spc.CUSUMPoint, sigs []spc.CUSUMSignal) *CUSUM 
 // EWMA is an EWMA monitor's settings and its statistic and limits after
 // each lot, in the order of the lots.
 type EWMA struct {
-	P0     Num         `json:"p0"`
-	Lambda Num         `json:"lambda"`
-	Width  Num         `json:"width"`
+	P0     Num `json:"p0"`
+	Lambda Num `json:"lambda"`
+	Width  Num `json:"width"`
+	// ARL0 is the mean number of lots between false alarms at the centre
+	// (spc.EWMA.ARL); null when not worked out.
+	ARL0   *Num        `json:"arl0,omitempty"`
 	Points []EWMAPoint `json:"points"`
 }
 
@@ -65,6 +68,10 @@ type EWMAPoint struct {
 // EWMAOf renders e and what it gave over the lots (EWMA.Run).
 func EWMAOf(e spc.EWMA, pts []spc.EWMAPoint) *EWMA {
 	out := &EWMA{P0: Num(e.P0), Lambda: Num(e.Lambda), Width: Num(e.L), Points: make([]EWMAPoint, len(pts))}
+	if e.ARL0 > 0 {
+		arl0 := Num(e.ARL0)
+		out.ARL0 = &arl0
+	}
 	for i, p := range pts {
 		out.Points[i] = EWMAPoint{Lot: p.Lot, Z: Num(p.Z), UCL: Num(p.UCL), LCL: Num(p.LCL), Signal: p.Signal}
 	}
