@@ -1,6 +1,8 @@
 package spc
 
 import (
+	"errors"
+	"fmt"
 	"math"
 
 	"gonum.org/v1/gonum/mat"
@@ -109,4 +111,71 @@ func (e EWMA) rateMoves(p float64, sizes []int64, w float64) []ewmaMove {
 		out = append(out, ewmaMove{mv.x / mv.prob, mv.prob})
 	}
 	return out
+}
+
+// ewmaGridStep is the step of the grid of widths DesignEWMA searches,
+// and ewmaMaxWidth its end.
+const (
+	ewmaGridStep = 0.01
+	ewmaMaxWidth = 6
+)
+
+// DesignEWMA returns the EWMA of chart ch with weight lambda whose width
+// L is the smallest multiple of 0.01 (up to 6) giving an in-control ARL
+// of at least arl0 lots, the lot sizes drawn from sizes (see ARL); its
+// ARL0 is set. Lucas & Saccucci (1990) design their EWMAs so: the weight
+// for the shift to be caught, then the width for the false alarms
+// wanted.
+func DesignEWMA(ch Chart, p0, lambda float64, sizes []int64, arl0 float64) (*EWMA, error) {
+	if err := CheckEWMA(ch, p0, lambda, 1); err != nil {
+		return nil, err
+	}
+	if len(sizes) == 0 {
+		return nil, errors.New("an EWMA needs at least one lot size")
+	}
+	if !(arl0 >= 1) || math.IsInf(arl0, 0) {
+		return nil, fmt.Errorf("target ARL0 %v is not a number of lots of 1 or more", arl0)
+	}
+	e := &EWMA{Chart: ch, P0: p0, Lambda: lambda}
+	arlAt := func(step int) float64 {
+		e.L = float64(step) * ewmaGridStep
+		return e.ARL(p0, sizes)
+	}
+	hi := int(ewmaMaxWidth / ewmaGridStep)
+	if arlAt(hi) < arl0 {
+		return nil, fmt.Errorf("no width up to %g reaches an in-control ARL of %g lots", float64(ewmaMaxWidth), arl0)
+	}
+	lo := 0 // an ARL below the target at lo: a width of 0 signals at once
+	for hi-lo > 1 {
+		mid := (lo + hi) / 2
+		if arlAt(mid) >= arl0 {
+			hi = mid
+		} else {
+			lo = mid
+		}
+	}
+	e.ARL0 = arlAt(hi)
+	return e, nil
+}
+
+// EWMAWeights are the weights BestEWMA chooses from: the usual range
+// (Montgomery §9.2: 0.05 to 0.25) and 0.4 for larger shifts.
+var EWMAWeights = []float64{0.05, 0.1, 0.2, 0.4}
+
+// BestEWMA returns, of the EWMAs with the weights EWMAWeights, each
+// designed for an in-control ARL of at least arl0 (DesignEWMA), the one
+// that catches a shift to p1 soonest, and its ARL there.
+func BestEWMA(ch Chart, p0, p1 float64, sizes []int64, arl0 float64) (*EWMA, float64, error) {
+	var best *EWMA
+	bestARL := math.Inf(1)
+	for _, lambda := range EWMAWeights {
+		e, err := DesignEWMA(ch, p0, lambda, sizes, arl0)
+		if err != nil {
+			return nil, 0, err
+		}
+		if arl1 := e.ARL(p1, sizes); arl1 < bestARL {
+			best, bestARL = e, arl1
+		}
+	}
+	return best, bestARL, nil
 }

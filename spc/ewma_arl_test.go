@@ -98,3 +98,42 @@ func TestEWMAARLCounts(t *testing.T) {
 		})
 	}
 }
+
+// TestDesignEWMA: for normal observations (a c chart at c0 = 10⁴,
+// skewness 0.01) and an in-control ARL of 500, the widths designed are
+// Lucas & Saccucci's (1990), as tabulated in Montgomery Table 9.11 (from
+// memory; their ARLs of 500 are confirmed by the integral equation in
+// testdata/ewma_arl_reference.json), rounded up to the grid of 0.01. Of
+// those designs, BestEWMA takes the smallest weight for a shift of half a
+// standard deviation and the largest for two, as the integral equation's
+// ARLs order them (28.8 lots at λ 0.05 against 71.2 at 0.4; 3.5 at 0.4
+// against 5.2 at 0.05).
+func TestDesignEWMA(t *testing.T) {
+	const c0 = 1e4
+	for _, d := range []struct{ lambda, width float64 }{{0.05, 2.615}, {0.1, 2.814}, {0.2, 2.962}, {0.4, 3.054}} {
+		e, err := DesignEWMA(ChartC, c0, d.lambda, []int64{1}, 500)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if e.L < d.width-0.01 || e.L > d.width+0.02 || e.ARL0 < 500 || e.Lambda != d.lambda {
+			t.Errorf("λ %g: width %g (ARL0 %.1f), want %g rounded up to 0.01", d.lambda, e.L, e.ARL0, d.width)
+		}
+	}
+	for _, c := range []struct{ shift, lambda float64 }{{0.5, 0.05}, {2, 0.4}} {
+		e, arl1, err := BestEWMA(ChartC, c0, c0+c.shift*math.Sqrt(c0), []int64{1}, 500)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if e.Lambda != c.lambda || arl1 != e.ARL(c0+c.shift*math.Sqrt(c0), []int64{1}) {
+			t.Errorf("shift %g σ: λ %g (ARL1 %.1f), want λ %g", c.shift, e.Lambda, arl1, c.lambda)
+		}
+	}
+	for _, bad := range []struct {
+		lambda, arl0 float64
+		sizes        []int64
+	}{{0, 500, []int64{1}}, {0.2, 0, []int64{1}}, {0.2, 500, nil}, {0.2, 1e12, []int64{1}}} {
+		if _, err := DesignEWMA(ChartC, c0, bad.lambda, bad.sizes, bad.arl0); err == nil {
+			t.Errorf("λ %g, ARL0 %g, sizes %v: designed", bad.lambda, bad.arl0, bad.sizes)
+		}
+	}
+}
