@@ -81,7 +81,7 @@ func TestShiftSignalsOnTheChart(t *testing.T) {
 
 // TestPlanPageComparesCUSUM: for a lot size and a shift, the planning
 // page says whether the chart or a CUSUM with no more false alarms
-// catches the shift sooner (here the CUSUM: lots of 200 at 2 %, a shift
+// catches the shift sooner, and sets an EWMA beside them (here the CUSUM: lots of 200 at 2 %, a shift
 // to 4 %).
 func TestPlanPageComparesCUSUM(t *testing.T) {
 	e := newTestEnv(t)
@@ -91,6 +91,18 @@ func TestPlanPageComparesCUSUM(t *testing.T) {
 	body := rec.Body.String()
 	if rec.Code != 200 || !strings.Contains(body, `id="plan-cusum"`) || !strings.Contains(body, "catches this shift sooner") {
 		t.Errorf("status %d; the page does not compare the CUSUM:\n%.2000s", rec.Code, body)
+	}
+	// The EWMA beside them: the design spc.BestEWMA makes for no more
+	// false alarms than the chart, its figures as the page states them.
+	pl := spc.PlanLimits(0.02, 200, 3).WithShift(0.04)
+	ewma, arl1, err := spc.BestEWMA(spc.ChartP, 0.02, 0.04, []int64{200}, pl.ARL0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := fmt.Sprintf("An EWMA of the rates (weight %g, limits at %.2f standard deviations, a false alarm once every %.1f lots) signals this shift after %.1f lots on average",
+		ewma.Lambda, ewma.L, ewma.ARL0, arl1)
+	if !strings.Contains(body, `id="plan-ewma"`) || !strings.Contains(body, want) {
+		t.Errorf("the page does not set the EWMA beside the chart, %q:\n%.3000s", want, body)
 	}
 }
 

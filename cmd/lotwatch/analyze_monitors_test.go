@@ -2,8 +2,10 @@ package main
 
 import (
 	"encoding/json"
+	"lotwatch/spc"
 	"math"
 	"regexp"
+	"slices"
 	"strconv"
 	"strings"
 	"testing"
@@ -254,5 +256,48 @@ func TestPlanComparesCUSUM(t *testing.T) {
 	_, text, _ := runCmd(t, "", "plan", "--p0", "0.005", "--p1", "0.01", "--n", "200")
 	if !strings.Contains(text, "catches this shift sooner") && !strings.Contains(text, "equally soon") {
 		t.Errorf("text does not say which is sooner:\n%s", text)
+	}
+}
+
+// TestPlanComparesEWMA: with --p1 and --n, plan also reports the EWMA
+// for the same shift, with no more false alarms than the chart: the
+// weight of spc.EWMAWeights that catches it soonest, its width designed
+// for that (spc.DesignEWMA, checked against Lucas & Saccucci's designs in
+// spc), and its ARL at the shift as spc.EWMA.ARL gives it. Without --p1
+// there is no shift to weigh, and no EWMA.
+func TestPlanComparesEWMA(t *testing.T) {
+	type planOut struct {
+		ARL0 float64
+		EWMA *struct{ Lambda, Width, ARL0, ARL1 float64 }
+	}
+	code, out, stderr := runCmd(t, "", "plan", "--p0", "0.005", "--p1", "0.01", "--n", "200", "--format", "json")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	var got planOut
+	if err := json.Unmarshal([]byte(out), &got); err != nil {
+		t.Fatal(err)
+	}
+	e := got.EWMA
+	if e == nil || !slices.Contains(spc.EWMAWeights, e.Lambda) || e.ARL0 < got.ARL0 {
+		t.Fatalf("%s", out)
+	}
+	ewma := spc.EWMA{Chart: spc.ChartP, P0: 0.005, Lambda: e.Lambda, L: e.Width}
+	if a0, a1 := ewma.ARL(0.005, []int64{200}), ewma.ARL(0.01, []int64{200}); a0 != e.ARL0 || a1 != e.ARL1 {
+		t.Errorf("EWMA ARLs %v and %v, spc gives %v and %v", e.ARL0, e.ARL1, a0, a1)
+	}
+	ewma.L -= 0.01
+	if ewma.ARL(0.005, []int64{200}) >= got.ARL0 {
+		t.Errorf("a width of %g would do: it is not the narrowest with no more false alarms than the chart", ewma.L)
+	}
+	_, text, _ := runCmd(t, "", "plan", "--p0", "0.005", "--p1", "0.01", "--n", "200")
+	if !strings.Contains(text, "An EWMA of the lots' rates (weight") {
+		t.Errorf("text does not set an EWMA beside the chart:\n%s", text)
+	}
+	_, out, _ = runCmd(t, "", "plan", "--p0", "0.005", "--n", "200", "--format", "json")
+	got = planOut{}
+	json.Unmarshal([]byte(out), &got)
+	if got.EWMA != nil {
+		t.Errorf("an EWMA without a shift: %s", out)
 	}
 }

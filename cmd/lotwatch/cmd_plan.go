@@ -35,6 +35,13 @@ to P1 (detection). All figures use the exact binomial distribution.
 With --n it evaluates that lot size. Without --n, give --p1 and --arl1: it
 finds the smallest lot size whose ARL at P1 is at most the target.
 
+With --p1, it also sets beside the chart, on the same lots and with no more
+false alarms, a CUSUM for the shift (decision interval designed by the
+Markov chain of Brook & Evans 1972) and an EWMA of the lots' rates (of the
+weights 0.05, 0.1, 0.2 and 0.4 the one that catches the shift soonest, its
+width designed as Lucas & Saccucci 1990 do), and says which catches the
+shift soonest.
+
 Options:
   --p0 P      usual (in-control) fraction nonconforming, between 0 and 1; required
               unless --process is given
@@ -87,9 +94,12 @@ type planJSON struct {
 	// CUSUM is the CUSUM for the same shift at the same ARL0, with lots of
 	// N units; Sooner says which catches the shift sooner on average
 	// ("cusum", "chart" or "same"). Both only with --p1.
-	CUSUM    *planCUSUMJSON `json:"cusum,omitempty"`
-	Sooner   string         `json:"sooner,omitempty"`
-	P0Source string         `json:"p0_source,omitempty"`
+	CUSUM  *planCUSUMJSON `json:"cusum,omitempty"`
+	Sooner string         `json:"sooner,omitempty"`
+	// EWMA is the EWMA for the same shift at the same ARL0, the weight
+	// of spc.EWMAWeights that catches it soonest; only with --p1.
+	EWMA     *planEWMAJSON `json:"ewma,omitempty"`
+	P0Source string        `json:"p0_source,omitempty"`
 }
 
 func finiteOrNil(x float64) *float64 {
@@ -118,15 +128,15 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		}
 	}
 	pl := spc.PlanLimits(r.p0, r.n, r.k)
-	var cusum *spc.CUSUM
+	var mon planMonitors
 	if *r.p1s != "" {
 		pl = pl.WithShift(r.p1)
-		cusum = planCUSUM(r.p0, r.p1, r.n, pl.ARL0)
+		mon = planMonitorsFor(r.p0, r.p1, r.n, pl.ARL0)
 	}
 	if asJSON {
-		return statsJSON(stdout, r.json(pl, cusum))
+		return statsJSON(stdout, r.json(pl, mon))
 	}
-	fmt.Fprint(stdout, r.text(pl, cusum))
+	fmt.Fprint(stdout, r.text(pl, mon))
 	return exitOK
 }
 
@@ -264,7 +274,7 @@ func (r *planRequest) search(stderr io.Writer) int {
 
 // json is the plan as --format json gives it; a figure that does not
 // apply (no lower limit, no shift, no target) is left out.
-func (r *planRequest) json(pl spc.Plan, cusum *spc.CUSUM) planJSON {
+func (r *planRequest) json(pl spc.Plan, mon planMonitors) planJSON {
 	out := planJSON{
 		N: pl.N, UCLCount: pl.UCLCount,
 		ARL0: finiteOrNil(pl.ARL0), MinNPositiveLCL: pl.MinNPositiveLCL,
@@ -281,17 +291,20 @@ func (r *planRequest) json(pl spc.Plan, cusum *spc.CUSUM) planJSON {
 		target := r.target
 		out.TargetARL1 = &target
 	}
-	if cusum != nil {
-		out.CUSUM = &planCUSUMJSON{H: cusum.H, ARL0: cusum.ARL0, ARL1: cusum.ARL1}
-		out.Sooner = sooner(pl.ARL1, cusum.ARL1)
+	if c := mon.cusum; c != nil {
+		out.CUSUM = &planCUSUMJSON{H: c.H, ARL0: c.ARL0, ARL1: c.ARL1}
+		out.Sooner = sooner(pl.ARL1, c.ARL1)
+	}
+	if e := mon.ewma; e != nil {
+		out.EWMA = &planEWMAJSON{Lambda: e.Lambda, Width: e.L, ARL0: e.ARL0, ARL1: mon.ewmaARL1}
 	}
 	return out
 }
 
 // text is the plan in words: where p0 came from, the lot size found, the
 // limits as counts of nonconforming units, how soon false alarms and
-// signals come, the CUSUM beside the chart, and the cautions.
-func (r *planRequest) text(pl spc.Plan, cusum *spc.CUSUM) string {
+// signals come, the CUSUM and the EWMA beside the chart, and the cautions.
+func (r *planRequest) text(pl spc.Plan, mon planMonitors) string {
 	var b strings.Builder
 	if r.p0Source != "" {
 		fmt.Fprintf(&b, "Usual fraction nonconforming of process %q: %s, the %s.\n\n", *r.procName, statsRate(r.p0), r.p0Source)
@@ -301,8 +314,11 @@ func (r *planRequest) text(pl spc.Plan, cusum *spc.CUSUM) string {
 			statsRate(r.p1), strconv.FormatFloat(r.target, 'g', -1, 64), r.n)
 	}
 	r.writeLimits(&b, pl)
-	if cusum != nil {
-		r.writeCUSUM(&b, pl, cusum)
+	if mon.cusum != nil {
+		r.writeCUSUM(&b, pl, mon.cusum)
+	}
+	if mon.ewma != nil {
+		r.writeEWMA(&b, pl, mon)
 	}
 	if pl.ARL0 < spc.DefaultMinARL0 {
 		fmt.Fprintf(&b, "\nWarning: at this size an in-control process gives a false alarm every %.1f lots on average,\nmore often than once in %d lots; a larger --n, or a search with --p1 and --arl1, keeps to that floor.\n", pl.ARL0, spc.DefaultMinARL0)
@@ -357,6 +373,17 @@ func (r *planRequest) writeCUSUM(b *strings.Builder, pl spc.Plan, cusum *spc.CUS
 		fmt.Fprintf(b, "The chart catches this shift sooner: %s against %.1f lots for the CUSUM.\n", planLots(pl.ARL1), cusum.ARL1)
 	default:
 		fmt.Fprintf(b, "The chart and the CUSUM catch this shift equally soon, after about %.1f lots.\n", cusum.ARL1)
+	}
+}
+
+// writeEWMA sets the EWMA with no more false alarms than the chart beside
+// it, and says whether it is the soonest of the three.
+func (r *planRequest) writeEWMA(b *strings.Builder, pl spc.Plan, mon planMonitors) {
+	e := mon.ewma
+	fmt.Fprintf(b, "\nAn EWMA of the lots' rates (weight %g, limits at %.2f standard deviations), with no more false\nalarms than the chart (one every %.1f lots on average), signals a shift to %s on average after %.1f lots.\n",
+		e.Lambda, e.L, e.ARL0, statsRate(r.p1), mon.ewmaARL1)
+	if mon.cusum != nil && mon.ewmaARL1 < 0.99*pl.ARL1 && mon.ewmaARL1 < 0.99*mon.cusum.ARL1 {
+		fmt.Fprintf(b, "The EWMA catches this shift soonest of the three.\n")
 	}
 }
 
@@ -415,25 +442,42 @@ func planProcessCentre(u *statsUsage, name, dbPath, p0s string) (float64, string
 	return c.P0, c.Source
 }
 
+// planMonitors are the CUSUM and the EWMA set beside the chart for the
+// shift asked (nil when none can be designed), and the EWMA's ARL there.
+type planMonitors struct {
+	cusum    *spc.CUSUM
+	ewma     *spc.EWMA
+	ewmaARL1 float64
+}
+
+// planMonitorsFor designs the CUSUM and the EWMA for a shift from p0 to
+// p1 with lots of n units, each with no more false alarms than the
+// chart's arl0 (370 when no lot can signal on the chart).
+func planMonitorsFor(p0, p1 float64, n int64, arl0 float64) planMonitors {
+	if math.IsInf(arl0, 1) || !(arl0 >= 1) {
+		arl0 = spc.DefaultARL0
+	}
+	var m planMonitors
+	if c, err := spc.DesignCUSUM(spc.ChartP, p0, p1, []int64{n}, arl0, 0); err == nil {
+		m.cusum = c
+	}
+	if e, arl1, err := spc.BestEWMA(spc.ChartP, p0, p1, []int64{n}, arl0); err == nil {
+		m.ewma, m.ewmaARL1 = e, arl1
+	}
+	return m
+}
+
+type planEWMAJSON struct {
+	Lambda float64 `json:"lambda"`
+	Width  float64 `json:"width"`
+	ARL0   float64 `json:"arl0"`
+	ARL1   float64 `json:"arl1"`
+}
+
 type planCUSUMJSON struct {
 	H    float64 `json:"h"`
 	ARL0 float64 `json:"arl0"`
 	ARL1 float64 `json:"arl1"`
-}
-
-// planCUSUM returns the CUSUM for a shift from p0 to p1 with lots of n
-// units, designed for an in-control ARL of at least the chart's arl0
-// (370 when no lot can signal on the chart), or nil when none can be
-// designed.
-func planCUSUM(p0, p1 float64, n int64, arl0 float64) *spc.CUSUM {
-	if math.IsInf(arl0, 1) || !(arl0 >= 1) {
-		arl0 = spc.DefaultARL0
-	}
-	c, err := spc.DesignCUSUM(spc.ChartP, p0, p1, []int64{n}, arl0, 0)
-	if err != nil {
-		return nil
-	}
-	return c
 }
 
 // sooner says which average run length is shorter, by more than 1 %.

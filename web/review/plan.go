@@ -109,6 +109,12 @@ type PlanResult struct {
 	// words which of the two catches the shift sooner on average.
 	CUSUM  *spc.CUSUM
 	Sooner string
+	// EWMA is, likewise, the EWMA for the same shift (spc.BestEWMA) and
+	// EWMAARL1 its ARL there; EWMASays puts it beside the chart and the
+	// CUSUM in words.
+	EWMA     *spc.EWMA
+	EWMAARL1 float64
+	EWMASays string
 	// Warnings say in plain words where the plan falls short: a floor
 	// lowered below the default, a lot size asked whose ARL0 is below it.
 	Warnings []string
@@ -156,6 +162,7 @@ func PlanFor(c Centre, req PlanRequest) (*PlanResult, error) {
 		pl := spc.PlanLimits(c.P0, req.N, k).WithShift(req.P1)
 		res.Plan = &pl
 		res.CUSUM, res.Sooner = compareCUSUM(c.P0, req.P1, req.N, pl)
+		res.EWMA, res.EWMAARL1, res.EWMASays = compareEWMA(c.P0, req.P1, req.N, pl, res.CUSUM)
 		if bar := math.Max(floor, spc.DefaultMinARL0); pl.ARL0 < bar {
 			res.Warnings = append(res.Warnings, fmt.Sprintf("At %d units per lot an in-control process raises a false alarm once every %s lots on average, more often than once in %s lots.",
 				req.N, lots(pl.ARL0), strconv.FormatFloat(bar, 'g', -1, 64)))
@@ -204,16 +211,38 @@ func CurveSizes(hi int64, count int) []int64 {
 	return out
 }
 
+// monitorARL0 is the in-control ARL a monitor set beside the chart is
+// designed for: the chart's, or 370 when the chart cannot signal.
+func monitorARL0(pl spc.Plan) float64 {
+	if math.IsInf(pl.ARL0, 1) || !(pl.ARL0 >= 1) {
+		return spc.DefaultARL0
+	}
+	return pl.ARL0
+}
+
+// compareEWMA returns the EWMA for a shift from p0 to p1 in lots of n
+// units with no more false alarms than the chart (spc.BestEWMA), its ARL
+// at p1, and says so, naming it the soonest when it beats both the chart
+// and the CUSUM c (nil for none) by more than 1 %.
+func compareEWMA(p0, p1 float64, n int64, pl spc.Plan, c *spc.CUSUM) (*spc.EWMA, float64, string) {
+	e, arl1, err := spc.BestEWMA(spc.ChartP, p0, p1, []int64{n}, monitorARL0(pl))
+	if err != nil {
+		return nil, 0, ""
+	}
+	lots := func(x float64) string { return strconv.FormatFloat(x, 'f', 1, 64) }
+	says := fmt.Sprintf("An EWMA of the rates (weight %g, limits at %.2f standard deviations, a false alarm once every %s lots) signals this shift after %s lots on average", e.Lambda, e.L, lots(e.ARL0), lots(arl1))
+	if arl1 < 0.99*pl.ARL1 && (c == nil || arl1 < 0.99*c.ARL1) {
+		return e, arl1, says + ": the soonest of the three."
+	}
+	return e, arl1, says + "."
+}
+
 // compareCUSUM returns the CUSUM for a shift from p0 to p1 in lots of n
 // units designed for an in-control ARL no shorter than the chart's (370
 // when the chart cannot signal), and says which catches the shift sooner.
 func compareCUSUM(p0, p1 float64, n int64, pl spc.Plan) (*spc.CUSUM, string) {
 	lots := func(x float64) string { return strconv.FormatFloat(x, 'f', 1, 64) }
-	arl0 := pl.ARL0
-	if math.IsInf(arl0, 1) || !(arl0 >= 1) {
-		arl0 = spc.DefaultARL0
-	}
-	c, err := spc.DesignCUSUM(spc.ChartP, p0, p1, []int64{n}, arl0, 0)
+	c, err := spc.DesignCUSUM(spc.ChartP, p0, p1, []int64{n}, monitorARL0(pl), 0)
 	if err != nil {
 		return nil, ""
 	}
