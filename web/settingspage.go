@@ -24,6 +24,9 @@ type processForm struct {
 	Zones    []string
 	HasLots  bool
 	Done     bool
+	// MonitorCosts says, for a process with lots, what its CUSUM and EWMA
+	// as judged now cost in false alarms and gain in detection.
+	MonitorCosts []string
 	// MethodChange says what a change of the limit method changed.
 	MethodChange string
 }
@@ -100,7 +103,7 @@ func readProcessForm(r *http.Request, f *processForm) store.Process {
 
 func newProcessFormKeep(f processForm) processForm {
 	n := newProcessForm(f.Values)
-	n.Proc, n.Editing, n.Problems, n.HasLots = f.Proc, f.Editing, f.Problems, f.HasLots
+	n.Proc, n.Editing, n.Problems, n.HasLots, n.MonitorCosts = f.Proc, f.Editing, f.Problems, f.HasLots, f.MonitorCosts
 	return n
 }
 
@@ -206,13 +209,38 @@ func (s *Server) processSettingsPage(w http.ResponseWriter, r *http.Request) {
 		f.MethodChange = fmt.Sprintf("The limit method changed from %s to %s. The trial limits, on which every lot before the first frozen limit set is judged, use %s from now on, and so will the next limit set you freeze; limit sets already frozen keep the method they were frozen with.",
 			was, p.Method, p.Method)
 	}
-	f.HasLots = s.hasLots(r, p)
+	f.HasLots, f.MonitorCosts = s.chartFacts(r, p)
 	s.render(w, r, http.StatusOK, "processform.html", "Settings — "+p.Name, f)
 }
 
-func (s *Server) hasLots(r *http.Request, p store.Process) bool {
+// chartFacts reads the process's judged chart for its settings form:
+// whether it has lots, and what its shift monitors cost (monitorCosts).
+func (s *Server) chartFacts(r *http.Request, p store.Process) (bool, []string) {
 	pc, err := s.freshChart(r.Context(), p)
-	return err == nil && len(pc.lots) > 0
+	if err != nil || len(pc.lots) == 0 {
+		return false, nil
+	}
+	return true, monitorCosts(pc.a.Shift)
+}
+
+// monitorCosts says in words how often the CUSUM and the EWMA of a judged
+// chart raise a false alarm at its centre, over its lot sizes, and how
+// soon the CUSUM catches its shift: the price of each setting, beside it.
+func monitorCosts(sw *spc.ShiftWatch) []string {
+	if sw == nil {
+		return nil
+	}
+	lots := func(x float64) string { return strconv.FormatFloat(x, 'f', 1, 64) }
+	var out []string
+	if c := sw.CUSUM; c != nil {
+		out = append(out, fmt.Sprintf("As judged now (centre %s, this process's lot sizes), the CUSUM (h = %.2f) raises a false alarm once every %s lots on average and catches a shift to %s after %s lots.",
+			strconv.FormatFloat(c.P0, 'g', 4, 64), c.H, lots(c.ARL0), strconv.FormatFloat(c.P1, 'g', 4, 64), lots(c.ARL1)))
+	}
+	if e := sw.EWMA; e != nil && e.ARL0 > 0 {
+		out = append(out, fmt.Sprintf("As judged now (centre %s, this process's lot sizes), the EWMA (weight %g, limits at %g standard deviations) raises a false alarm once every %s lots on average; the planning page finds the weight and width that catch a given shift soonest for as many false alarms as the chart.",
+			strconv.FormatFloat(e.P0, 'g', 4, 64), e.Lambda, e.L, lots(e.ARL0)))
+	}
+	return out
 }
 
 func (s *Server) updateProcess(w http.ResponseWriter, r *http.Request) {
@@ -239,7 +267,7 @@ func (s *Server) updateProcess(w http.ResponseWriter, r *http.Request) {
 			return
 		}
 	}
-	f.HasLots = s.hasLots(r, old)
+	f.HasLots, f.MonitorCosts = s.chartFacts(r, old)
 	s.render(w, r, statusOf(errFormRefused), "processform.html", "Settings — "+old.Name, f)
 }
 

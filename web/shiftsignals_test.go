@@ -173,3 +173,51 @@ func TestProcessFormMonitors(t *testing.T) {
 		t.Errorf("a refused form changed the monitors: %+v", again.Monitors)
 	}
 }
+
+// TestSettingsStateMonitorCosts: beside the shift monitors' settings, the
+// settings page of a process with lots states what they cost as judged
+// now: the CUSUM's false alarms and detection (spc.DesignCUSUM over the
+// lots' sizes at the trial centre) and the EWMA's false alarms
+// (spc.EWMA.ARL likewise); a process without monitors states none.
+func TestSettingsStateMonitorCosts(t *testing.T) {
+	e := newTestEnv(t)
+	lots := e.addLots(t, 40, func(i int) int64 { return int64(2 + i%3) })
+	c := e.signIn(t, "engineer1", testPassword)
+	page := func() string {
+		t.Helper()
+		rec := e.do(req{method: "GET", path: fmt.Sprintf("/processes/%d/settings", e.proc.ID), cookie: c})
+		if rec.Code != 200 {
+			t.Fatalf("settings page: %d", rec.Code)
+		}
+		return rec.Body.String()
+	}
+	if body := page(); strings.Contains(body, "monitor-cost") {
+		t.Errorf("costs stated for a process without monitors")
+	}
+	p := e.proc
+	p.Monitors = spc.Monitors{CUSUMShift: 0.03, EWMALambda: 0.1, EWMAWidth: 2.7}
+	if _, err := e.db.UpdateProcess(t.Context(), "setup", "watch for a rise", p); err != nil {
+		t.Fatal(err)
+	}
+	sizes := make([]int64, len(lots))
+	var d, n int64
+	for i, l := range lots {
+		sizes[i] = l.Inspected
+		d, n = d+l.Count, n+l.Inspected
+	}
+	p0 := float64(d) / float64(n) // trial limits: the centre of all lots
+	cusum, err := spc.DesignCUSUM(spc.ChartP, p0, 0.03, sizes, spc.DefaultARL0, 0)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ewma := spc.EWMA{Chart: spc.ChartP, P0: p0, Lambda: 0.1, L: 2.7}
+	body := page()
+	for _, want := range []string{
+		fmt.Sprintf("the CUSUM (h = %.2f) raises a false alarm once every %.1f lots on average and catches a shift to 0.03 after %.1f lots", cusum.H, cusum.ARL0, cusum.ARL1),
+		fmt.Sprintf("the EWMA (weight 0.1, limits at 2.7 standard deviations) raises a false alarm once every %.1f lots on average", ewma.ARL(p0, sizes)),
+	} {
+		if !strings.Contains(body, want) {
+			t.Errorf("the settings page does not say %q:\n%s", want, body[strings.Index(body, "monitors"):])
+		}
+	}
+}
