@@ -798,17 +798,18 @@ func (db *DB) DeliveriesMade(ctx context.Context, msgIDs []string) (map[string]b
 
 // Kinds of alert batches.
 const (
-	BatchImport = "import" // the lots an imported file added
-	BatchLimits = "limits" // the lots a frozen limit set judges
+	BatchImport   = "import"   // the lots an imported file added
+	BatchLimits   = "limits"   // the lots a frozen limit set judges
+	BatchSettings = "settings" // every lot, when the process's way of judging changed
 )
 
 // AlertBatch is a change that judges many lots at once, waiting to be
 // judged for alerts: it raises one message per rule, not one per lot.
 type AlertBatch struct {
 	ID, ProcessID int64
-	Kind          string    // BatchImport or BatchLimits
+	Kind          string    // BatchImport, BatchLimits or BatchSettings
 	First, Last   int64     // import: the ids of the lots it added
-	From          time.Time // limits: the set is in force from then
+	From          time.Time // limits: the set is in force from then (settings: zero, every lot)
 	Cause         string    // the change in plain words
 	Created       time.Time
 }

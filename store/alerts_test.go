@@ -263,6 +263,24 @@ func TestAlertOutboxChanges(t *testing.T) {
 		if err != nil || len(bs) != 1 || bs[0].Kind != BatchLimits || !bs[0].From.Equal(from) || bs[0].Cause != "limit set 1 frozen by ann: new die" {
 			t.Fatalf("after a freeze: %+v %v", bs, err)
 		}
+		// A change of the process's settings: only one that changes how
+		// lots are judged re-judges them all.
+		p.Description = "press 4, left die"
+		if p, err = db.UpdateProcess(ctx, "ann", "describe", p); err != nil {
+			t.Fatal(err)
+		}
+		if bs, err = db.ClaimAlertBatches(ctx, "one", time.Minute, 10); err != nil || len(bs) != 0 {
+			t.Fatalf("after a new description: %+v %v, want no batch", bs, err)
+		}
+		p.Rules = "nelson"
+		if p, err = db.UpdateProcess(ctx, "ann", "customer asks for Nelson rules", p); err != nil {
+			t.Fatal(err)
+		}
+		bs, err = db.ClaimAlertBatches(ctx, "one", time.Minute, 10)
+		if err != nil || len(bs) != 1 || bs[0].Kind != BatchSettings || !bs[0].From.IsZero() ||
+			bs[0].Cause != "settings of process "+p.Name+" changed by ann: customer asks for Nelson rules" {
+			t.Fatalf("after new run rules: %+v %v", bs, err)
+		}
 	})
 }
 

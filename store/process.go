@@ -341,6 +341,14 @@ func (w *wtx) addProcess(actor string, p Process) (Process, error) {
 	return p, w.audit(actor, "add", "process", p.ID, p.ID, nil, auditProcess(p), "")
 }
 
+// judgesAlike reports whether two settings of a process judge its lots
+// alike: the same limit method and width (for the trial limits), run
+// rules and shift monitors. A change of any of them re-judges every lot,
+// and the alert rules hear of what signals then.
+func judgesAlike(a, b Process) bool {
+	return a.Method == b.Method && a.K == b.K && a.Rules == b.Rules && a.Monitors == b.Monitors
+}
+
 // UpdateProcess changes a process (looked up by p.ID) and records why.
 // The chart type cannot change once lots are logged, and categories can
 // only be added (lots keep their counts by category name); retiring is
@@ -392,7 +400,14 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 		if err := w.bumpVersion(p.ID, true); err != nil {
 			return err
 		}
-		return w.audit(actor, "update", "process", p.ID, p.ID, auditProcess(old), auditProcess(p), reason)
+		if err := w.audit(actor, "update", "process", p.ID, p.ID, auditProcess(old), auditProcess(p), reason); err != nil {
+			return err
+		}
+		if !judgesAlike(old, p) {
+			return w.queueAlertBatch(AlertBatch{ProcessID: p.ID, Kind: BatchSettings,
+				Cause: fmt.Sprintf("settings of process %s changed by %s: %s", p.Name, actor, reason)})
+		}
+		return nil
 	})
 	if err != nil {
 		return Process{}, err

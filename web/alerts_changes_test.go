@@ -489,3 +489,60 @@ func decodeMail(t *testing.T, data []byte) (string, map[string]string) {
 	}
 	return subject, parts
 }
+
+// TestAlertSettingsChange: narrowing the trial limits of a process from 3
+// to 2 standard deviations puts its one high lot (9 of 200 against a
+// centre of 2.125 %: UCL 5.19 % at 3σ, 4.17 % at 2σ, from the binomial
+// standard error) out of limits, and raises one lots.signal message per
+// rule, change "settings", naming that lot and the change (and the run of
+// lots below the centre line, which signals under either width: the
+// message states the judging after the change); a new description, which
+// judges nothing differently, raises none.
+func TestAlertSettingsChange(t *testing.T) {
+	e := newTestEnv(t)
+	lots := e.addLots(t, 20, func(i int) int64 {
+		if i == 12 {
+			return 9
+		}
+		return 4
+	})
+	rc := newReceiver(t, "settings")
+	e.alertRule(t, store.AlertRule{Webhook: rc.srv.URL, Secret: rc.secret})
+	srv := quietServer(t, e)
+	p := e.proc
+	p.Description = "left die"
+	p, err := e.db.UpdateProcess(t.Context(), "engineer1", "describe", p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	drain(t, srv, 3)
+	if got := rc.delivered(); len(got) != 0 {
+		t.Fatalf("%d messages after a new description, want none", len(got))
+	}
+	p.K = 2
+	if _, err := e.db.UpdateProcess(t.Context(), "engineer1", "tighter watch after the complaint", p); err != nil {
+		t.Fatal(err)
+	}
+	drain(t, srv, 3)
+	got := rc.delivered()
+	if len(got) != 1 {
+		t.Fatalf("%d messages after narrower limits, want 1", len(got))
+	}
+	for _, hs := range got {
+		var m alert.BatchMessage
+		if err := json.Unmarshal(hs[0].body, &m); err != nil {
+			t.Fatal(err)
+		}
+		d := m.Data
+		var out []string
+		for _, l := range d.Lots {
+			if slices.Contains(l.Kinds, "out_of_limits") {
+				out = append(out, l.Lot)
+			}
+		}
+		if m.Type != "lots.signal" || d.Change != "settings" || d.Judged != 20 || d.Counts["out_of_limits"] != 1 || fmt.Sprint(out) != "["+lots[12].Lot+"]" ||
+			!strings.Contains(d.Cause, "changed by engineer1: tighter watch after the complaint") {
+			t.Errorf("settings message %+v", d)
+		}
+	}
+}

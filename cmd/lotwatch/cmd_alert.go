@@ -35,8 +35,9 @@ An alert rule sends a message when a lot of its process signals, while
 message is signed as the Standard Webhooks specification says, with the
 secret) or to an e-mail address (serve --smtp-addr and --smtp-from).
 "add" prints the new rule's id first. Lots posted, corrected or voided
-alert one by one; an imported file and frozen limits that judge stored
-lots again send one message naming the lots that signal.
+alert one by one; an imported file, frozen limits and new settings of the
+process (method, width, run rules, shift monitors) that judge stored lots
+again send one message naming the lots that signal.
 
 Options:
   --db FILE          the lotwatch database file, or a postgres:// URL

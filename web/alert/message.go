@@ -75,7 +75,7 @@ type BatchMessage struct {
 type BatchData struct {
 	ProcessID int64  `json:"process_id"`
 	Process   string `json:"process"`
-	Change    string `json:"change"` // "import" or "limits"
+	Change    string `json:"change"` // "import", "limits" or "settings"
 	Cause     string `json:"cause"`  // the change in plain words
 	Judged    int    `json:"lots_judged"`
 	// Signalling counts the lots that signal with a kind the rule listens
