@@ -1,10 +1,8 @@
 package spc
 
 import (
-	"encoding/json"
 	"fmt"
 	"math"
-	"os"
 	"testing"
 )
 
@@ -35,14 +33,8 @@ type poissonLatticeRow struct {
 
 func readCUSUMReference(t *testing.T) cusumReference {
 	t.Helper()
-	raw, err := os.ReadFile("testdata/cusum_arl_reference.json")
-	if err != nil {
-		t.Fatal(err)
-	}
 	var ref cusumReference
-	if err := json.Unmarshal(raw, &ref); err != nil {
-		t.Fatal(err)
-	}
+	readTestdata(t, "cusum_arl_reference.json", &ref)
 	if len(ref.Normal) == 0 || len(ref.PoissonLattice) == 0 {
 		t.Fatal("the reference file has no rows")
 	}

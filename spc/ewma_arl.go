@@ -3,7 +3,9 @@ package spc
 import (
 	"errors"
 	"fmt"
+	"maps"
 	"math"
+	"slices"
 
 	"gonum.org/v1/gonum/mat"
 )
@@ -107,7 +109,8 @@ func (e EWMA) rateMoves(p float64, sizes []int64, w float64) []ewmaMove {
 		mv.prob += prob
 	})
 	out := make([]ewmaMove, 0, len(merged))
-	for _, mv := range merged {
+	for _, b := range slices.Sorted(maps.Keys(merged)) { // in order: the same sums every time
+		mv := merged[b]
 		out = append(out, ewmaMove{mv.x / mv.prob, mv.prob})
 	}
 	return out

@@ -1,10 +1,8 @@
 package spc
 
 import (
-	"encoding/json"
 	"fmt"
 	"math"
-	"os"
 	"testing"
 )
 
@@ -25,14 +23,8 @@ type ewmaReference struct {
 
 func readEWMAReference(t *testing.T) ewmaReference {
 	t.Helper()
-	raw, err := os.ReadFile("testdata/ewma_arl_reference.json")
-	if err != nil {
-		t.Fatal(err)
-	}
 	var ref ewmaReference
-	if err := json.Unmarshal(raw, &ref); err != nil {
-		t.Fatal(err)
-	}
+	readTestdata(t, "ewma_arl_reference.json", &ref)
 	if len(ref.Normal) == 0 || len(ref.Counts) == 0 {
 		t.Fatal("the reference file has no rows")
 	}

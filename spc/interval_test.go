@@ -1,11 +1,9 @@
 package spc
 
 import (
-	"encoding/json"
 	"errors"
 	"math"
 	"math/rand/v2"
-	"os"
 	"testing"
 )
 
@@ -69,14 +67,8 @@ type intervalsRef struct {
 
 func loadIntervalsRef(t *testing.T) *intervalsRef {
 	t.Helper()
-	b, err := os.ReadFile("testdata/intervals_reference.json")
-	if err != nil {
-		t.Fatal(err)
-	}
 	var ref intervalsRef
-	if err := json.Unmarshal(b, &ref); err != nil {
-		t.Fatal(err)
-	}
+	readTestdata(t, "intervals_reference.json", &ref)
 	if ref.SciPy == "" || ref.Statsmodels == "" || len(ref.RawProportion) == 0 {
 		t.Fatal("reference file lacks library versions or values")
 	}

@@ -1,10 +1,8 @@
 package spc
 
 import (
-	"encoding/json"
 	"math"
 	"math/rand/v2"
-	"os"
 	"sort"
 	"testing"
 
@@ -55,14 +53,8 @@ type homogeneity struct {
 
 func loadReference(t *testing.T) *reference {
 	t.Helper()
-	b, err := os.ReadFile("testdata/engine_reference.json")
-	if err != nil {
-		t.Fatal(err)
-	}
 	var r reference
-	if err := json.Unmarshal(b, &r); err != nil {
-		t.Fatal(err)
-	}
+	readTestdata(t, "engine_reference.json", &r)
 	if r.SciPy == "" || len(r.ExactLimits) == 0 {
 		t.Fatal("reference file incomplete")
 	}

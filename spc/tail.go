@@ -1,6 +1,10 @@
 package spc
 
-import "math"
+import (
+	"maps"
+	"math"
+	"slices"
+)
 
 // countDist is the distribution of a lot's count when the process runs at
 // its centre line: binomial(n, p) for units (p and np charts) or
@@ -210,7 +214,9 @@ func bd0(x, m float64) float64 {
 // p, with its probability: the lot size n drawn from sizes (each entry
 // equally likely; a c chart's lot is its own unit, n = 1), the count
 // binomial (p, np charts) or Poisson (u, c). Counts beyond 12 standard
-// deviations of the mean are left out.
+// deviations of the mean are left out. The sizes are taken in increasing
+// order, so that sums over the counts come out the same to the last digit
+// every time.
 func eachCount(ch Chart, p float64, sizes []int64, fn func(n, k int64, prob float64)) {
 	weight := map[int64]float64{}
 	for _, n := range sizes {
@@ -219,7 +225,8 @@ func eachCount(ch Chart, p float64, sizes []int64, fn func(n, k int64, prob floa
 		}
 		weight[n] += 1 / float64(len(sizes))
 	}
-	for n, wt := range weight {
+	for _, n := range slices.Sorted(maps.Keys(weight)) {
+		wt := weight[n]
 		var d countDist
 		switch ch {
 		case ChartP, ChartNP:

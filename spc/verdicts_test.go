@@ -1,9 +1,7 @@
 package spc
 
 import (
-	"encoding/json"
 	"math"
-	"os"
 	"testing"
 )
 
@@ -24,14 +22,8 @@ type verdictsRef struct {
 
 func loadVerdictsRef(t *testing.T) *verdictsRef {
 	t.Helper()
-	b, err := os.ReadFile("testdata/verdicts_reference.json")
-	if err != nil {
-		t.Fatal(err)
-	}
 	var ref verdictsRef
-	if err := json.Unmarshal(b, &ref); err != nil {
-		t.Fatal(err)
-	}
+	readTestdata(t, "verdicts_reference.json", &ref)
 	if ref.SciPy == "" || ref.Statsmodels == "" || len(ref.Fisher) == 0 || len(ref.BH) == 0 {
 		t.Fatal("reference file lacks library versions or values")
 	}
