@@ -14,14 +14,48 @@ type Monitors struct {
 	// CUSUMH a decision interval fixed beforehand, as a frozen limit set
 	// holds it (0 designs one).
 	CUSUMShift, CUSUMARL0, CUSUMH float64
-	// EWMALambda and EWMAWidth are the EWMA's weight and width (see EWMA;
-	// a zero width means DefaultEWMAWidth).
-	EWMALambda, EWMAWidth float64
+	// EWMALambda and EWMAWidth are the EWMA's weight and width (see EWMA).
+	// A zero width is designed for the in-control ARL EWMAARL0 over the
+	// lot sizes (DesignEWMA), or is DefaultEWMAWidth when EWMAARL0 is 0
+	// too; a frozen limit set holds the width designed.
+	EWMALambda, EWMAWidth, EWMAARL0 float64
 }
 
 // DefaultARL0 is the in-control average run length a CUSUM is designed
 // for unless told otherwise: about that of a 3σ Shewhart chart (1/0.0027).
 const DefaultARL0 = 370
+
+// ewma returns the EWMA of m for chart ch from the centre p0, its width
+// designed over the lot sizes when m asks for that, and its ARL0 worked
+// out over them.
+func (m Monitors) ewma(ch Chart, p0 float64, sizes []int64) (*EWMA, error) {
+	if m.EWMAWidth == 0 && m.EWMAARL0 != 0 {
+		return DesignEWMA(ch, p0, m.EWMALambda, sizes, m.EWMAARL0)
+	}
+	width := m.EWMAWidth
+	if width == 0 {
+		width = DefaultEWMAWidth
+	}
+	if err := CheckEWMA(ch, p0, m.EWMALambda, width); err != nil {
+		return nil, err
+	}
+	e := &EWMA{Chart: ch, P0: p0, Lambda: m.EWMALambda, L: width}
+	if len(sizes) > 0 {
+		e.ARL0 = e.ARL(p0, sizes)
+	}
+	return e, nil
+}
+
+// DesignedEWMAWidth returns the width of m's EWMA for chart ch from the
+// centre p0 over the lot sizes (see Monitors): what a frozen limit set
+// holds.
+func (m Monitors) DesignedEWMAWidth(ch Chart, p0 float64, sizes []int64) (float64, error) {
+	e, err := m.ewma(ch, p0, sizes)
+	if err != nil {
+		return 0, err
+	}
+	return e.L, nil
+}
 
 // On reports whether any monitor is set.
 func (m Monitors) On() bool { return m.CUSUMShift != 0 || m.EWMALambda != 0 }
@@ -74,18 +108,11 @@ func WatchShifts(a *Analysis, lots []Lot, m Monitors, sizes []int64) (*ShiftWatc
 		}
 	}
 	if m.EWMALambda != 0 {
-		width := m.EWMAWidth
-		if width == 0 {
-			width = DefaultEWMAWidth
-		}
-		if err := CheckEWMA(a.Chart, p0, m.EWMALambda, width); err != nil {
+		e, err := m.ewma(a.Chart, p0, sizes)
+		if err != nil {
 			return nil, fmt.Errorf("EWMA: %w", err)
 		}
-		e := EWMA{Chart: a.Chart, P0: p0, Lambda: m.EWMALambda, L: width}
-		if len(sizes) > 0 {
-			e.ARL0 = e.ARL(p0, sizes)
-		}
-		w.EWMA = &e
+		w.EWMA = e
 		w.EWMAPoints = e.Run(lots)
 		for i := 0; i < len(w.EWMAPoints); {
 			p := w.EWMAPoints[i]

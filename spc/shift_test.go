@@ -60,3 +60,45 @@ func TestWatchShifts(t *testing.T) {
 		t.Error("cusum parsed as a run rule")
 	}
 }
+
+// TestWatchShiftsDesignsEWMAWidth: an EWMA given a number of lots between
+// false alarms instead of a width gets the width DesignEWMA designs for
+// it over the lot sizes (the design itself is checked against Lucas &
+// Saccucci in ewma_arl_test.go); a width given is kept, and no width and
+// no target give DefaultEWMAWidth. Giving both is refused by the store.
+func TestWatchShiftsDesignsEWMAWidth(t *testing.T) {
+	lots := make([]Lot, 30)
+	sizes := make([]int64, len(lots))
+	for i := range lots {
+		lots[i] = Lot{Code: fmt.Sprintf("L%02d", i), Inspected: 200, Count: int64(1 + i%3)}
+		sizes[i] = 200
+	}
+	want, err := DesignEWMA(ChartP, 0.01, 0.1, sizes, 500)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range []struct {
+		m     Monitors
+		width float64
+	}{
+		{Monitors{EWMALambda: 0.1, EWMAARL0: 500}, want.L},
+		{Monitors{EWMALambda: 0.1, EWMAWidth: 2.5}, 2.5},
+		{Monitors{EWMALambda: 0.1}, DefaultEWMAWidth},
+	} {
+		a, err := Analyze(lots, Config{Chart: ChartP, Standard: &Standard{Center: 0.01}, Rules: RuleWE1.Set()})
+		if err != nil {
+			t.Fatal(err)
+		}
+		w, err := WatchShifts(a, lots, c.m, sizes)
+		if err != nil {
+			t.Fatal(err)
+		}
+		got, err := c.m.DesignedEWMAWidth(ChartP, 0.01, sizes)
+		if err != nil || w.EWMA.L != c.width || got != c.width || w.EWMA.ARL0 != w.EWMA.ARL(0.01, sizes) {
+			t.Errorf("%+v: width %g (designed %g, %v), ARL0 %g; want width %g", c.m, w.EWMA.L, got, err, w.EWMA.ARL0, c.width)
+		}
+	}
+	if want.ARL0 < 500 || want.L == DefaultEWMAWidth {
+		t.Errorf("the design for 500 lots: width %g, ARL0 %g", want.L, want.ARL0)
+	}
+}

@@ -63,6 +63,7 @@ type limitSetAudit struct {
 	EffectiveFrom int64             `json:"effective_from"`
 	EWMALambda    float64           `json:"ewma_lambda,omitempty"`
 	EWMAWidth     float64           `json:"ewma_width,omitempty"`
+	EWMAARL0      float64           `json:"ewma_arl0,omitempty"`
 	Excluded      map[string]string `json:"excluded"`
 	K             float64           `json:"k"`
 	Method        spc.Method        `json:"method"`
@@ -74,7 +75,7 @@ type limitSetAudit struct {
 func limitSetRecord(ls LimitSet) limitSetAudit {
 	m := ls.Monitors
 	return limitSetAudit{nanos(ls.BaselineFrom), ls.BaselineLots, nanos(ls.BaselineTo), ls.Center, m.CUSUMARL0, m.CUSUMH, m.CUSUMShift,
-		ls.EffectiveFrom.UnixNano(), m.EWMALambda, m.EWMAWidth, ls.Excluded, ls.K, ls.Method, ls.Number, ls.ProcessID, ls.SigmaZ}
+		ls.EffectiveFrom.UnixNano(), m.EWMALambda, m.EWMAWidth, m.EWMAARL0, ls.Excluded, ls.K, ls.Method, ls.Number, ls.ProcessID, ls.SigmaZ}
 }
 
 // alertRuleAudit is an alert rule as the trail states it: everything but

@@ -120,16 +120,16 @@ func (db *DB) FreezeLimitSet(ctx context.Context, actor string, ls LimitSet) (Li
 		}
 		ls.Number = last + 1
 		ls.FrozenBy, ls.FrozenAt = actor, w.now.UTC()
-		if ps := checkMonitors(p.Chart, &spc.Monitors{CUSUMShift: ls.Monitors.CUSUMShift, CUSUMARL0: ls.Monitors.CUSUMARL0, EWMALambda: ls.Monitors.EWMALambda, EWMAWidth: ls.Monitors.EWMAWidth}); len(ps) > 0 {
+		if ps := checkMonitors(p.Chart, &spc.Monitors{CUSUMShift: ls.Monitors.CUSUMShift, CUSUMARL0: ls.Monitors.CUSUMARL0, EWMALambda: ls.Monitors.EWMALambda, EWMAWidth: ls.Monitors.EWMAWidth, EWMAARL0: ls.Monitors.EWMAARL0}); len(ps) > 0 {
 			return invalid(ps...)
 		}
 		excl, _ := json.Marshal(ls.Excluded)
 		m := ls.Monitors
 		err = w.QueryRow(`INSERT INTO limit_sets (process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason,
-			cusum_shift, cusum_arl0, cusum_h, ewma_lambda, ewma_width)
-			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) RETURNING id`, p.ID, ls.Number, ls.Method, ls.K, ls.Center, ls.SigmaZ,
+			cusum_shift, cusum_arl0, cusum_h, ewma_lambda, ewma_width, ewma_arl0)
+			VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) RETURNING id`, p.ID, ls.Number, ls.Method, ls.K, ls.Center, ls.SigmaZ,
 			nanos(ls.BaselineFrom), nanos(ls.BaselineTo), ls.BaselineLots, string(excl), ls.EffectiveFrom.UnixNano(), actor, w.now.UnixNano(), ls.Reason,
-			m.CUSUMShift, m.CUSUMARL0, m.CUSUMH, m.EWMALambda, m.EWMAWidth).Scan(&ls.ID)
+			m.CUSUMShift, m.CUSUMARL0, m.CUSUMH, m.EWMALambda, m.EWMAWidth, m.EWMAARL0).Scan(&ls.ID)
 		if err != nil {
 			return err
 		}
@@ -157,7 +157,7 @@ func (db *DB) LimitSets(ctx context.Context, processID int64) ([]LimitSet, error
 	}
 	loc := p.Location()
 	rows, err := db.r.QueryContext(ctx, `SELECT id, process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason,
-		cusum_shift, cusum_arl0, cusum_h, ewma_lambda, ewma_width
+		cusum_shift, cusum_arl0, cusum_h, ewma_lambda, ewma_width, ewma_arl0
 		FROM limit_sets WHERE process_id = ? ORDER BY number`, processID)
 	if err != nil {
 		return nil, err
@@ -169,7 +169,7 @@ func (db *DB) LimitSets(ctx context.Context, processID int64) ([]LimitSet, error
 		var bf, bt, ef, fa int64
 		var excl string
 		if err := rows.Scan(&ls.ID, &ls.ProcessID, &ls.Number, &ls.Method, &ls.K, &ls.Center, &ls.SigmaZ, &bf, &bt, &ls.BaselineLots, &excl, &ef, &ls.FrozenBy, &fa, &ls.Reason,
-			&ls.Monitors.CUSUMShift, &ls.Monitors.CUSUMARL0, &ls.Monitors.CUSUMH, &ls.Monitors.EWMALambda, &ls.Monitors.EWMAWidth); err != nil {
+			&ls.Monitors.CUSUMShift, &ls.Monitors.CUSUMARL0, &ls.Monitors.CUSUMH, &ls.Monitors.EWMALambda, &ls.Monitors.EWMAWidth, &ls.Monitors.EWMAARL0); err != nil {
 			return nil, err
 		}
 		if err := json.Unmarshal([]byte(excl), &ls.Excluded); err != nil {

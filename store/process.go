@@ -157,6 +157,10 @@ func normalizeProcess(p *Process) []Problem {
 	ps = append(ps, checkText("description", p.Description, 4000, false)...)
 	ps = append(ps, checkText("area", p.Area, 100, true)...)
 	ps = append(ps, checkMonitors(p.Chart, &p.Monitors)...)
+	if m := p.Monitors; m.EWMAWidth != 0 && m.EWMAARL0 != 0 {
+		ps = append(ps, Problem{Field: "ewma_arl0", Value: fmt.Sprint(m.EWMAARL0),
+			Reason: fmt.Sprintf("is given with the width %g: give the width, or the lots between false alarms to design it for, not both", m.EWMAWidth)})
+	}
 	if _, err := spc.ParseChart(string(p.Chart)); err != nil {
 		ps = append(ps, Problem{Field: "chart", Value: string(p.Chart), Reason: "is not p, np, u or c"})
 	}
@@ -237,12 +241,13 @@ type processAudit struct {
 	CUSUMARL0  float64           `json:"cusum_arl0,omitempty"`
 	EWMALambda float64           `json:"ewma_lambda,omitempty"`
 	EWMAWidth  float64           `json:"ewma_width,omitempty"`
+	EWMAARL0   float64           `json:"ewma_arl0,omitempty"`
 }
 
 func auditProcess(p Process) processAudit {
 	m := p.Monitors
 	return processAudit{p.Name, p.Description, p.Chart, string(p.Method), p.K, p.Rules, p.Categories, p.TimeZone, p.Active, p.Area, p.ColumnMap, p.DateOrder,
-		m.CUSUMShift, m.CUSUMARL0, m.EWMALambda, m.EWMAWidth}
+		m.CUSUMShift, m.CUSUMARL0, m.EWMALambda, m.EWMAWidth, m.EWMAARL0}
 }
 
 // columnMapJSON is the stored form of a column map.
@@ -285,6 +290,11 @@ func checkMonitors(ch spc.Chart, m *spc.Monitors) []Problem {
 	}
 	if m.EWMALambda == 0 && m.EWMAWidth != 0 {
 		bad("ewma_width", m.EWMAWidth, "is set without an EWMA weight")
+	}
+	if a := m.EWMAARL0; a != 0 && (!finite(a) || a < 1) {
+		bad("ewma_arl0", a, "is not a number of lots of 1 or more")
+	} else if m.EWMALambda == 0 && a != 0 {
+		bad("ewma_arl0", a, "is set without an EWMA weight")
 	}
 	return ps
 }
@@ -329,9 +339,9 @@ func (w *wtx) addProcess(actor string, p Process) (Process, error) {
 	cats, _ := json.Marshal(p.Categories)
 	p.Created = w.now.UTC()
 	m := p.Monitors
-	err := w.QueryRow(`INSERT INTO processes (name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order, cusum_shift, cusum_arl0, ewma_lambda, ewma_width)
-		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) RETURNING id`, p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, w.now.UnixNano(), p.Area,
-		columnMapJSON(p.ColumnMap), p.DateOrder, m.CUSUMShift, m.CUSUMARL0, m.EWMALambda, m.EWMAWidth).Scan(&p.ID)
+	err := w.QueryRow(`INSERT INTO processes (name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order, cusum_shift, cusum_arl0, ewma_lambda, ewma_width, ewma_arl0)
+		VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?) RETURNING id`, p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, w.now.UnixNano(), p.Area,
+		columnMapJSON(p.ColumnMap), p.DateOrder, m.CUSUMShift, m.CUSUMARL0, m.EWMALambda, m.EWMAWidth, m.EWMAARL0).Scan(&p.ID)
 	if isUnique(err) {
 		return p, fmt.Errorf("process %q already exists: %w", p.Name, ErrConflict)
 	}
@@ -387,9 +397,9 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 		cats, _ := json.Marshal(p.Categories)
 		m := p.Monitors
 		_, err = w.Exec(`UPDATE processes SET name = ?, description = ?, chart = ?, method = ?, k = ?, rules = ?, categories = ?, time_zone = ?, active = ?, area = ?,
-			column_map = ?, date_order = ?, cusum_shift = ?, cusum_arl0 = ?, ewma_lambda = ?, ewma_width = ? WHERE id = ?`,
+			column_map = ?, date_order = ?, cusum_shift = ?, cusum_arl0 = ?, ewma_lambda = ?, ewma_width = ?, ewma_arl0 = ? WHERE id = ?`,
 			p.Name, p.Description, p.Chart, p.Method, p.K, p.Rules, string(cats), p.TimeZone, p.Active, p.Area, columnMapJSON(p.ColumnMap), p.DateOrder,
-			m.CUSUMShift, m.CUSUMARL0, m.EWMALambda, m.EWMAWidth, p.ID)
+			m.CUSUMShift, m.CUSUMARL0, m.EWMALambda, m.EWMAWidth, m.EWMAARL0, p.ID)
 		if isUnique(err) {
 			return fmt.Errorf("process %q already exists: %w", p.Name, ErrConflict)
 		}
@@ -415,7 +425,7 @@ func (db *DB) UpdateProcess(ctx context.Context, actor, reason string, p Process
 	return p, nil
 }
 
-const processCols = "id, name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order, cusum_shift, cusum_arl0, ewma_lambda, ewma_width"
+const processCols = "id, name, description, chart, method, k, rules, categories, time_zone, active, created, area, column_map, date_order, cusum_shift, cusum_arl0, ewma_lambda, ewma_width, ewma_arl0"
 
 type queryer interface {
 	QueryRow(query string, args ...any) *sql.Row
@@ -426,7 +436,7 @@ func scanProcess(s interface{ Scan(...any) error }) (Process, error) {
 	var cats, cmap string
 	var created int64
 	if err := s.Scan(&p.ID, &p.Name, &p.Description, &p.Chart, &p.Method, &p.K, &p.Rules, &cats, &p.TimeZone, &p.Active, &created, &p.Area, &cmap, &p.DateOrder,
-		&p.Monitors.CUSUMShift, &p.Monitors.CUSUMARL0, &p.Monitors.EWMALambda, &p.Monitors.EWMAWidth); err != nil {
+		&p.Monitors.CUSUMShift, &p.Monitors.CUSUMARL0, &p.Monitors.EWMALambda, &p.Monitors.EWMAWidth, &p.Monitors.EWMAARL0); err != nil {
 		return Process{}, err
 	}
 	if err := json.Unmarshal([]byte(cats), &p.Categories); err != nil {

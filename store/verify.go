@@ -347,7 +347,7 @@ func (d *dataTrail) checkTokens(ctx context.Context, tx *sql.Tx, _ map[int64]pro
 
 func (d *dataTrail) checkLimitSets(ctx context.Context, tx *sql.Tx, procs map[int64]procInfo) (*rowBreak, error) {
 	rows, err := tx.QueryContext(ctx, `SELECT id, process_id, number, method, k, center, sigma_z, baseline_from, baseline_to, baseline_lots, excluded, effective_from, frozen_by, frozen_at, reason,
-		cusum_shift, cusum_arl0, cusum_h, ewma_lambda, ewma_width
+		cusum_shift, cusum_arl0, cusum_h, ewma_lambda, ewma_width, ewma_arl0
 		FROM limit_sets ORDER BY id`)
 	if err != nil {
 		return nil, err
@@ -361,7 +361,7 @@ func (d *dataTrail) checkLimitSets(ctx context.Context, tx *sql.Tx, procs map[in
 		var k, center, sz float64
 		var m spc.Monitors
 		if err := rows.Scan(&id, &pid, &number, &method, &k, &center, &sz, &bf, &bt, &blots, &excl, &ef, &by, &fa, &reason,
-			&m.CUSUMShift, &m.CUSUMARL0, &m.CUSUMH, &m.EWMALambda, &m.EWMAWidth); err != nil {
+			&m.CUSUMShift, &m.CUSUMARL0, &m.CUSUMH, &m.EWMALambda, &m.EWMAWidth, &m.EWMAARL0); err != nil {
 			return nil, err
 		}
 		seen[id] = true

@@ -361,13 +361,21 @@ func (s *Server) freezeLimits(w http.ResponseWriter, r *http.Request) {
 		}
 	}
 	// The process's monitors are frozen with the centre; the CUSUM's
-	// decision interval is designed now, over the baseline's lot sizes.
+	// decision interval and an EWMA's width asked by its false alarms are
+	// designed now, over the baseline's lot sizes.
 	mon := p.Monitors
-	if mon.CUSUMShift != 0 {
-		sizes := make([]int64, len(base))
-		for i, l := range base {
-			sizes[i] = l.Inspected
+	sizes := make([]int64, len(base))
+	for i, l := range base {
+		sizes[i] = l.Inspected
+	}
+	if mon.EWMALambda != 0 && mon.EWMAWidth == 0 && mon.EWMAARL0 != 0 {
+		if width, err := mon.DesignedEWMAWidth(p.Chart, a.Rate, sizes); err != nil {
+			problems["baseline"] = "the process's EWMA cannot be designed from this baseline: " + err.Error()
+		} else {
+			mon.EWMAWidth = width
 		}
+	}
+	if mon.CUSUMShift != 0 {
 		arl0 := mon.CUSUMARL0
 		if arl0 == 0 {
 			arl0 = spc.DefaultARL0

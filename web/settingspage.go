@@ -52,11 +52,12 @@ func processValues(p store.Process) map[string]string {
 		"method": string(p.Method), "k": strconv.FormatFloat(p.K, 'g', -1, 64), "rules": p.Rules,
 		"categories": strings.Join(p.Categories, ", "), "tz": p.TimeZone, "retired": map[bool]string{true: "", false: "1"}[p.Active],
 		"cusum_shift": monitorValue(p.Monitors.CUSUMShift), "cusum_arl0": monitorValue(p.Monitors.CUSUMARL0),
-		"ewma_lambda": monitorValue(p.Monitors.EWMALambda), "ewma_width": monitorValue(p.Monitors.EWMAWidth)}
+		"ewma_lambda": monitorValue(p.Monitors.EWMALambda), "ewma_width": monitorValue(p.Monitors.EWMAWidth),
+		"ewma_arl0": monitorValue(p.Monitors.EWMAARL0)}
 }
 
 // monitorKeys are the form fields of the shift monitors.
-var monitorKeys = []string{"cusum_shift", "cusum_arl0", "ewma_lambda", "ewma_width"}
+var monitorKeys = []string{"cusum_shift", "cusum_arl0", "ewma_lambda", "ewma_width", "ewma_arl0"}
 
 // monitorValue shows a monitor setting in the form: empty when not set.
 func monitorValue(v float64) string {
@@ -83,7 +84,7 @@ func readProcessForm(r *http.Request, f *processForm) store.Process {
 		p.K = v
 	}
 	for k, dst := range map[string]*float64{"cusum_shift": &p.Monitors.CUSUMShift, "cusum_arl0": &p.Monitors.CUSUMARL0,
-		"ewma_lambda": &p.Monitors.EWMALambda, "ewma_width": &p.Monitors.EWMAWidth} {
+		"ewma_lambda": &p.Monitors.EWMALambda, "ewma_width": &p.Monitors.EWMAWidth, "ewma_arl0": &p.Monitors.EWMAARL0} {
 		if s := strings.TrimSpace(f.Values[k]); s != "" {
 			v, err := strconv.ParseFloat(s, 64)
 			if err != nil {
@@ -120,7 +121,7 @@ func (f *processForm) place(ps []store.Problem) {
 			msg = strconv.Quote(pr.Value) + " " + pr.Reason
 		}
 		switch k {
-		case "name", "description", "area", "chart", "method", "k", "rules", "categories", "tz", "reason", "cusum_shift", "cusum_arl0", "ewma_lambda", "ewma_width":
+		case "name", "description", "area", "chart", "method", "k", "rules", "categories", "tz", "reason", "cusum_shift", "cusum_arl0", "ewma_lambda", "ewma_width", "ewma_arl0":
 			f.Problems[k] = joinMsg(f.Problems[k], msg)
 		default:
 			f.Other = append(f.Other, pr.String())

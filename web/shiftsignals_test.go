@@ -221,3 +221,55 @@ func TestSettingsStateMonitorCosts(t *testing.T) {
 		}
 	}
 }
+
+// TestEWMADesignedForFalseAlarms: an EWMA set on the settings form by its
+// lots between false alarms, with no width, is drawn with the width
+// spc.DesignEWMA gives over the lots' sizes at the chart's centre, and
+// freezing limits freezes that width beside the target; a form giving a
+// width and a target both is refused beside the target, changing nothing.
+func TestEWMADesignedForFalseAlarms(t *testing.T) {
+	e := newTestEnv(t)
+	ctx := t.Context()
+	lots := e.addLots(t, 30, func(i int) int64 { return int64(2 + i%4) })
+	c := e.signIn(t, "engineer1", testPassword)
+	form := func(width, arl0 string) string {
+		return "name=Final+visual+check&chart=p&method=sigma&k=3&rules=we&categories=scratch,dent&tz=Europe/Berlin&reason=watch+small+shifts" +
+			"&ewma_lambda=0.1&ewma_width=" + width + "&ewma_arl0=" + arl0
+	}
+	path := fmt.Sprintf("/processes/%d/settings", e.proc.ID)
+	if rec := e.do(req{method: "POST", path: path, cookie: c, body: form("", "500"), form: true}); rec.Code != 303 {
+		t.Fatalf("status %d: %.800s", rec.Code, rec.Body.String())
+	}
+	if rec := e.do(req{method: "POST", path: path, cookie: c, body: form("2.5", "500"), form: true}); rec.Code != 400 ||
+		!strings.Contains(rec.Body.String(), "give the width, or the lots between false alarms to design it for, not both") {
+		t.Errorf("a width and a target: status %d", rec.Code)
+	}
+	p, _ := e.db.Process(ctx, e.proc.ID)
+	if p.Monitors != (spc.Monitors{EWMALambda: 0.1, EWMAARL0: 500}) {
+		t.Fatalf("monitors %+v", p.Monitors)
+	}
+	sizes := make([]int64, len(lots))
+	var d, n int64
+	for i, l := range lots {
+		sizes[i] = l.Inspected
+		d, n = d+l.Count, n+l.Inspected
+	}
+	want, err := spc.DesignEWMA(spc.ChartP, float64(d)/float64(n), 0.1, sizes, 500)
+	if err != nil {
+		t.Fatal(err)
+	}
+	page := e.do(req{method: "GET", path: fmt.Sprintf("/processes/%d?period=all", p.ID), cookie: c}).Body.String()
+	if legend := fmt.Sprintf("limits at %g standard deviations (a signal beyond them); on average %.0f lots between false alarms", want.L, want.ARL0); !strings.Contains(page, legend) {
+		t.Errorf("the chart page does not draw the designed EWMA, %q", legend)
+	}
+	if rec := e.do(req{method: "POST", path: fmt.Sprintf("/processes/%d/limits", p.ID), cookie: c, body: "reason=thirty+lots+in+control", form: true}); rec.Code >= 400 {
+		t.Fatalf("freeze: status %d: %.500s", rec.Code, rec.Body.String())
+	}
+	sets, err := e.db.LimitSets(ctx, p.ID)
+	if err != nil || len(sets) != 1 || sets[0].Monitors != (spc.Monitors{EWMALambda: 0.1, EWMAARL0: 500, EWMAWidth: want.L}) {
+		t.Fatalf("frozen monitors %+v %v, want the width %g", sets, err, want.L)
+	}
+	if chk, err := e.db.VerifyAudit(ctx); err != nil || !chk.OK {
+		t.Errorf("audit: %+v %v", chk, err)
+	}
+}

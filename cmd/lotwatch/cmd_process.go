@@ -73,6 +73,11 @@ Options of "add":
                      default, watches none
   --ewma-width W     the width of the EWMA's limits in its standard
                      deviations (default 3)
+  --ewma-arl0 A      instead of --ewma-width: how many lots on average
+                     between the EWMA's false alarms while the rate stays at
+                     the centre; the width is designed for it over the
+                     process's lot sizes (Markov chain of Lucas & Saccucci),
+                     and frozen with the limits
   --as NAME          the name recorded in the audit trail (default: your
                      user name on this computer)
 
@@ -81,7 +86,7 @@ reason go to the audit trail):
   --db FILE, --name NAME   the database and the process to change
   --description TEXT, --area TEXT, --limits METHOD, --sigma K, --rules SET,
   --tz ZONE, --date-order ORDER, --cusum-shift P1, --cusum-arl0 A,
-  --ewma-lambda L, --ewma-width W
+  --ewma-lambda L, --ewma-width W, --ewma-arl0 A
                      as for "add" (--date-order "" reads YYYY-MM-DD only;
                      0 turns a monitor off)
   --map "HEADER=COLUMN,..."
@@ -294,7 +299,7 @@ func (u *processUpdate) check(pos []string) []string {
 // changesAnything says whether an option that changes the process was
 // given (the database, the name, the reason and the user change nothing).
 func (u *processUpdate) changesAnything() bool {
-	for _, f := range []string{"description", "area", "limits", "sigma", "rules", "categories", "tz", "retire", "activate", "map", "date-order", "cusum-shift", "cusum-arl0", "ewma-lambda", "ewma-width"} {
+	for _, f := range []string{"description", "area", "limits", "sigma", "rules", "categories", "tz", "retire", "activate", "map", "date-order", "cusum-shift", "cusum-arl0", "ewma-lambda", "ewma-width", "ewma-arl0"} {
 		if u.set[f] {
 			return true
 		}
@@ -445,11 +450,12 @@ func runProcessList(args []string, stdout, stderr io.Writer) int {
 // processMonitors are the shift-monitor options of "process add" and
 // "process update", as typed.
 type processMonitors struct {
-	cusumShift, cusumARL0, ewmaLambda, ewmaWidth *string
+	cusumShift, cusumARL0, ewmaLambda, ewmaWidth, ewmaARL0 *string
 }
 
 func monitorFlags(fs *flag.FlagSet) processMonitors {
-	return processMonitors{fs.String("cusum-shift", "", ""), fs.String("cusum-arl0", "", ""), fs.String("ewma-lambda", "", ""), fs.String("ewma-width", "", "")}
+	return processMonitors{fs.String("cusum-shift", "", ""), fs.String("cusum-arl0", "", ""), fs.String("ewma-lambda", "", ""), fs.String("ewma-width", "", ""),
+		fs.String("ewma-arl0", "", "")}
 }
 
 // apply reads the options given (all of them when set is nil) into m;
@@ -460,7 +466,7 @@ func (o processMonitors) apply(m *spc.Monitors, set map[string]bool) []string {
 		name string
 		v    *string
 		dst  *float64
-	}{{"cusum-shift", o.cusumShift, &m.CUSUMShift}, {"cusum-arl0", o.cusumARL0, &m.CUSUMARL0}, {"ewma-lambda", o.ewmaLambda, &m.EWMALambda}, {"ewma-width", o.ewmaWidth, &m.EWMAWidth}} {
+	}{{"cusum-shift", o.cusumShift, &m.CUSUMShift}, {"cusum-arl0", o.cusumARL0, &m.CUSUMARL0}, {"ewma-lambda", o.ewmaLambda, &m.EWMALambda}, {"ewma-width", o.ewmaWidth, &m.EWMAWidth}, {"ewma-arl0", o.ewmaARL0, &m.EWMAARL0}} {
 		if (set == nil && *f.v == "") || (set != nil && !set[f.name]) {
 			continue
 		}
@@ -487,5 +493,8 @@ func (o processMonitors) update(p *spc.Monitors, m spc.Monitors, set map[string]
 	}
 	if set["ewma-width"] {
 		p.EWMAWidth = m.EWMAWidth
+	}
+	if set["ewma-arl0"] {
+		p.EWMAARL0 = m.EWMAARL0
 	}
 }

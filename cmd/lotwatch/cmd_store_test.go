@@ -12,6 +12,7 @@ import (
 	_ "github.com/jackc/pgx/v5/stdlib"
 	_ "github.com/mattn/go-sqlite3"
 
+	"lotwatch/spc"
 	"lotwatch/store"
 	"lotwatch/store/storetest"
 )
@@ -414,5 +415,55 @@ func TestUserHelpRolesAsREADME(t *testing.T) {
 	}
 	if n != 4 {
 		t.Errorf("README's table of roles has %d rows, want 4", n)
+	}
+}
+
+// TestProcessEWMAFlags: `process add|update` take the EWMA by its weight
+// and either its width or the lots between its false alarms
+// (--ewma-arl0, the width then designed over the lot sizes); giving both
+// is refused with exit 2 naming --ewma-arl0's field and changes nothing,
+// and a value that is not a number is refused too.
+func TestProcessEWMAFlags(t *testing.T) {
+	db := storetest.DB(t)
+	monitors := func() spc.Monitors {
+		t.Helper()
+		s, err := store.Open(db)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer s.Close()
+		p, err := s.ProcessByName(t.Context(), "press")
+		if err != nil {
+			t.Fatal(err)
+		}
+		return p.Monitors
+	}
+	if code, _, errs := runCLI(t, "", "process", "add", "--db", db, "--name", "press", "--ewma-lambda", "0.1", "--ewma-arl0", "500", "--as", "t"); code != exitOK {
+		t.Fatalf("add: exit %d: %s", code, errs)
+	}
+	if m := monitors(); m != (spc.Monitors{EWMALambda: 0.1, EWMAARL0: 500}) {
+		t.Fatalf("after add: %+v", m)
+	}
+	for _, c := range []struct {
+		args []string
+		says string
+	}{
+		{[]string{"--ewma-width", "2.5"}, "ewma_arl0"},
+		{[]string{"--ewma-arl0", "many"}, "--ewma-arl0"},
+		{[]string{"--ewma-arl0", "0.5"}, "ewma_arl0"},
+	} {
+		args := append([]string{"process", "update", "--db", db, "--name", "press", "--reason", "try", "--as", "t"}, c.args...)
+		if code, _, errs := runCLI(t, "", args...); code != exitUsage || !strings.Contains(errs, c.says) {
+			t.Errorf("%v: exit %d, want 2 naming %s: %s", c.args, code, c.says, errs)
+		}
+		if m := monitors(); m != (spc.Monitors{EWMALambda: 0.1, EWMAARL0: 500}) {
+			t.Errorf("%v refused, yet the monitors changed: %+v", c.args, m)
+		}
+	}
+	if code, _, errs := runCLI(t, "", "process", "update", "--db", db, "--name", "press", "--ewma-width", "2.5", "--ewma-arl0", "0", "--reason", "a width instead", "--as", "t"); code != exitOK {
+		t.Fatalf("update: exit %d: %s", code, errs)
+	}
+	if m := monitors(); m != (spc.Monitors{EWMALambda: 0.1, EWMAWidth: 2.5}) {
+		t.Errorf("after update: %+v", m)
 	}
 }
