@@ -56,7 +56,7 @@ func (m *monitorOptions) addFlags(fs *flag.FlagSet) {
 		}
 	}
 	fs.Func("shift", "for --monitor cusum: the rate the CUSUM should catch, `P1`, in the chart's units (a fraction\nfor p and np, defects per unit for u, defects per lot for c); above the centre it\nwatches for a rise, below it for a fall", number("shift", &m.shift, &m.shiftSet))
-	fs.Func("arl0", "for --monitor cusum: how many lots on average between false alarms while the rate\nstays at the centre, `A`; the decision interval h is set to reach it (default 370,\nabout that of a 3-sigma chart)", number("arl0", &m.arl0, nil))
+	fs.Func("arl0", "for --monitor cusum: how many lots on average between false alarms while the rate\nstays at the centre, `A`; the decision interval h is set to reach it (default 370,\nabout that of a 3-sigma chart). For --monitor ewma, when given and --width is not,\nthe EWMA's width is set to reach it too", number("arl0", &m.arl0, nil))
 	fs.Func("decision-interval", "for --monitor cusum: the decision interval `H` itself (the CUSUM signals when its\nsum reaches H) instead of one designed from --arl0; the run lengths are still reported", number("decision-interval", &m.h, &m.hSet))
 	fs.Func("lambda", "for --monitor ewma: the weight `L` of the newest lot in the average, above 0 and at\nmost 1 (default 0.2); smaller weights remember more lots and see smaller shifts", number("lambda", &m.lambda, nil))
 	fs.Func("width", "for --monitor ewma: the width `W` of the EWMA's limits in its standard deviations\n(default 3); the output gives the mean number of lots between false alarms that\nλ and W make at the centre", number("width", &m.width, nil))
@@ -68,10 +68,13 @@ func (m *monitorOptions) problems() []string {
 	bad := func(name, why string) {
 		out = append(out, fmt.Sprintf("--%s: %s %s", name, m.set[name], why))
 	}
-	for _, name := range []string{"shift", "arl0", "decision-interval"} {
+	for _, name := range []string{"shift", "decision-interval"} {
 		if _, ok := m.set[name]; ok && !m.cusum {
 			bad(name, "is for --monitor cusum, which is not asked for")
 		}
+	}
+	if _, ok := m.set["arl0"]; ok && !m.cusum && !m.ewma {
+		bad("arl0", "is for --monitor cusum or ewma, neither of which is asked for")
 	}
 	for _, name := range []string{"lambda", "width"} {
 		if _, ok := m.set[name]; ok && !m.ewma {
@@ -82,9 +85,6 @@ func (m *monitorOptions) problems() []string {
 		if !m.shiftSet {
 			out = append(out, "--monitor cusum: needs --shift P1, the rate to catch")
 		}
-		if _, ok := m.set["arl0"]; ok && !(m.arl0 >= 1) {
-			bad("arl0", "is not a number of lots of 1 or more")
-		}
 		if m.hSet && !(m.h > 0) {
 			bad("decision-interval", "is not a number above 0")
 		}
@@ -92,7 +92,13 @@ func (m *monitorOptions) problems() []string {
 			out = append(out, "--arl0 and --decision-interval both set the decision interval; give one of them")
 		}
 	}
+	if _, ok := m.set["arl0"]; ok && !(m.arl0 >= 1) {
+		bad("arl0", "is not a number of lots of 1 or more")
+	}
 	if m.ewma {
+		if m.designsWidth() && m.set["width"] != "" {
+			out = append(out, "--arl0 and --width both set the EWMA's width; give one of them")
+		}
 		if !(m.lambda > 0 && m.lambda <= 1) {
 			bad("lambda", "is not a weight above 0 and at most 1")
 		}
@@ -103,6 +109,13 @@ func (m *monitorOptions) problems() []string {
 	return out
 }
 
+// designsWidth reports whether the EWMA's width is to be designed for
+// --arl0 (given, and --width not).
+func (m *monitorOptions) designsWidth() bool {
+	_, arl0 := m.set["arl0"]
+	return m.ewma && arl0
+}
+
 // monitorResult holds what the monitors found, ready to print.
 type monitorResult struct {
 	cusum   *spc.CUSUM
@@ -111,6 +124,9 @@ type monitorResult struct {
 	cSigs   []spc.CUSUMSignal
 	ewma    *spc.EWMA
 	ePoints []spc.EWMAPoint
+	// ewmaTarget is the in-control ARL the EWMA's width was designed
+	// for, 0 when the width was given.
+	ewmaTarget float64
 }
 
 // run designs and applies the monitors to the lots, with centre p0 (the
@@ -145,10 +161,19 @@ func (m *monitorOptions) run(ch spc.Chart, lots []spc.Lot, p0 float64, sizes []i
 		r.cPoints, r.cSigs = c.Run(lots)
 	}
 	if m.ewma {
-		e := spc.EWMA{Chart: ch, P0: p0, Lambda: m.lambda, L: m.width}
-		if err := spc.CheckEWMA(ch, p0, m.lambda, m.width); err != nil {
+		mon := spc.Monitors{EWMALambda: m.lambda, EWMAWidth: m.width}
+		if m.designsWidth() {
+			mon.EWMAWidth, mon.EWMAARL0 = 0, m.arl0
+			r.ewmaTarget = m.arl0
+		}
+		if err := spc.CheckEWMA(ch, p0, m.lambda, max(mon.EWMAWidth, 1)); err != nil {
 			return nil, fmt.Errorf("--monitor ewma: %v", err)
 		}
+		width, err := mon.DesignedEWMAWidth(ch, p0, sizes)
+		if err != nil {
+			return nil, fmt.Errorf("--monitor ewma: %v", err)
+		}
+		e := spc.EWMA{Chart: ch, P0: p0, Lambda: m.lambda, L: width}
 		e.ARL0 = e.ARL(p0, sizes)
 		r.ewma = &e
 		r.ePoints = e.Run(lots)
@@ -178,6 +203,10 @@ func (r *monitorResult) json(out *analyzeOut) {
 	}
 	if e := r.ewma; e != nil {
 		out.EWMA = chartjson.EWMAOf(*e, r.ePoints)
+		if r.ewmaTarget > 0 {
+			t := chartjson.Num(r.ewmaTarget)
+			out.EWMA.ARL0Target = &t
+		}
 	}
 }
 
@@ -216,7 +245,11 @@ func (r *monitorResult) text(w io.Writer, ch spc.Chart) {
 		}
 	}
 	if e := r.ewma; e != nil {
-		fmt.Fprintf(w, "\nEWMA of the rates, weight %g, limits at %g standard deviations, centre %s\n", e.Lambda, e.L, fmtRate(ch, e.P0))
+		fmt.Fprintf(w, "\nEWMA of the rates, weight %g, limits at %g standard deviations, centre %s", e.Lambda, e.L, fmtRate(ch, e.P0))
+		if r.ewmaTarget > 0 {
+			fmt.Fprintf(w, " (the narrowest with an in-control ARL of at least %g lots)", r.ewmaTarget)
+		}
+		fmt.Fprintln(w)
 		fmt.Fprintf(w, "  on average %.1f lots between false alarms at the centre (limits at their steady width, lot sizes as in these lots)\n\n", e.ARL0)
 		tw := tabwriter.NewWriter(w, 0, 0, 2, ' ', tabwriter.AlignRight)
 		fmt.Fprintln(tw, "lot\tLCL\tEWMA\tUCL\t \t")

@@ -2,6 +2,7 @@ package main
 
 import (
 	"encoding/json"
+	"fmt"
 	"lotwatch/spc"
 	"math"
 	"regexp"
@@ -139,6 +140,9 @@ func TestAnalyzeMonitorsBadValues(t *testing.T) {
 		{[]string{"--monitor", "cusum"}, "--shift"},
 		{[]string{"--monitor", "median"}, "median"},
 		{[]string{"--shift", "0.3"}, "--shift: 0.3"},
+		{[]string{"--arl0", "500"}, "--arl0: 500 is for --monitor cusum or ewma"},
+		{[]string{"--monitor", "ewma", "--arl0", "500", "--width", "3"}, "--arl0 and --width both set the EWMA's width"},
+		{[]string{"--monitor", "ewma", "--arl0", "0.5"}, "--arl0: 0.5"},
 	} {
 		args := append(append([]string{"analyze"}, tc.args...), "-")
 		code, out, stderr := runCmd(t, orangeJuiceCSV(), args...)
@@ -299,5 +303,42 @@ func TestPlanComparesEWMA(t *testing.T) {
 	json.Unmarshal([]byte(out), &got)
 	if got.EWMA != nil {
 		t.Errorf("an EWMA without a shift: %s", out)
+	}
+}
+
+// TestAnalyzeEWMADesignedWidth: `analyze --monitor ewma --arl0 A` without
+// --width sets the EWMA's width to spc.DesignEWMA's for A over the file's
+// lot sizes (checked against Lucas & Saccucci's designs in spc), says so,
+// and the JSON carries the target beside the ARL0 reached.
+func TestAnalyzeEWMADesignedWidth(t *testing.T) {
+	code, out, stderr := runCmd(t, orangeJuiceCSV(), "analyze", "--format", "json", "--monitor", "ewma", "--lambda", "0.1", "--arl0", "500", "-")
+	if code != 0 {
+		t.Fatalf("exit %d: %s", code, stderr)
+	}
+	var got struct {
+		EWMA *struct {
+			P0         float64 `json:"p0"`
+			Width      float64 `json:"width"`
+			ARL0       float64 `json:"arl0"`
+			ARL0Target float64 `json:"arl0_target"`
+		} `json:"ewma"`
+	}
+	if err := json.Unmarshal([]byte(out), &got); err != nil || got.EWMA == nil {
+		t.Fatalf("%v: %s", err, out)
+	}
+	sizes := make([]int64, 30)
+	for i := range sizes {
+		sizes[i] = 50
+	}
+	want, err := spc.DesignEWMA(spc.ChartP, got.EWMA.P0, 0.1, sizes, 500)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if e := got.EWMA; e.Width != want.L || e.ARL0 != want.ARL0 || e.ARL0Target != 500 {
+		t.Errorf("EWMA width %v (ARL0 %v, target %v), want %v (ARL0 %v, target 500)", e.Width, e.ARL0, e.ARL0Target, want.L, want.ARL0)
+	}
+	_, text, _ := runCmd(t, orangeJuiceCSV(), "analyze", "--monitor", "ewma", "--lambda", "0.1", "--arl0", "500", "-")
+	if !strings.Contains(text, fmt.Sprintf("limits at %g standard deviations, centre 0.2313 (the narrowest with an in-control ARL of at least 500 lots)", want.L)) {
+		t.Errorf("text does not say the width was designed:\n%s", text)
 	}
 }

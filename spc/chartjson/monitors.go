@@ -51,9 +51,11 @@ type EWMA struct {
 	Lambda Num `json:"lambda"`
 	Width  Num `json:"width"`
 	// ARL0 is the mean number of lots between false alarms at the centre
-	// (spc.EWMA.ARL); null when not worked out.
-	ARL0   *Num        `json:"arl0,omitempty"`
-	Points []EWMAPoint `json:"points"`
+	// (spc.EWMA.ARL); null when not worked out. ARL0Target is the
+	// in-control ARL the width was designed for, when it was.
+	ARL0       *Num        `json:"arl0,omitempty"`
+	ARL0Target *Num        `json:"arl0_target,omitempty"`
+	Points     []EWMAPoint `json:"points"`
 }
 
 // EWMAPoint is the EWMA and its limits after one lot.
