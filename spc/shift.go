@@ -25,10 +25,10 @@ type Monitors struct {
 // for unless told otherwise: about that of a 3σ Shewhart chart (1/0.0027).
 const DefaultARL0 = 370
 
-// ewma returns the EWMA of m for chart ch from the centre p0, its width
-// designed over the lot sizes when m asks for that, and its ARL0 worked
-// out over them.
-func (m Monitors) ewma(ch Chart, p0 float64, sizes []int64) (*EWMA, error) {
+// EWMA returns the EWMA of m for chart ch from the centre p0: its width
+// designed over the lot sizes when m asks for that (what a frozen limit
+// set then holds), and its ARL0 worked out over them.
+func (m Monitors) EWMA(ch Chart, p0 float64, sizes []int64) (*EWMA, error) {
 	if m.EWMAWidth == 0 && m.EWMAARL0 != 0 {
 		return DesignEWMA(ch, p0, m.EWMALambda, sizes, m.EWMAARL0)
 	}
@@ -44,17 +44,6 @@ func (m Monitors) ewma(ch Chart, p0 float64, sizes []int64) (*EWMA, error) {
 		e.ARL0 = e.ARL(p0, sizes)
 	}
 	return e, nil
-}
-
-// DesignedEWMAWidth returns the width of m's EWMA for chart ch from the
-// centre p0 over the lot sizes (see Monitors): what a frozen limit set
-// holds.
-func (m Monitors) DesignedEWMAWidth(ch Chart, p0 float64, sizes []int64) (float64, error) {
-	e, err := m.ewma(ch, p0, sizes)
-	if err != nil {
-		return 0, err
-	}
-	return e.L, nil
 }
 
 // On reports whether any monitor is set.
@@ -108,7 +97,7 @@ func WatchShifts(a *Analysis, lots []Lot, m Monitors, sizes []int64) (*ShiftWatc
 		}
 	}
 	if m.EWMALambda != 0 {
-		e, err := m.ewma(a.Chart, p0, sizes)
+		e, err := m.EWMA(a.Chart, p0, sizes)
 		if err != nil {
 			return nil, fmt.Errorf("EWMA: %w", err)
 		}

@@ -93,9 +93,9 @@ func TestWatchShiftsDesignsEWMAWidth(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		got, err := c.m.DesignedEWMAWidth(ChartP, 0.01, sizes)
-		if err != nil || w.EWMA.L != c.width || got != c.width || w.EWMA.ARL0 != w.EWMA.ARL(0.01, sizes) {
-			t.Errorf("%+v: width %g (designed %g, %v), ARL0 %g; want width %g", c.m, w.EWMA.L, got, err, w.EWMA.ARL0, c.width)
+		got, err := c.m.EWMA(ChartP, 0.01, sizes)
+		if err != nil || w.EWMA.L != c.width || got.L != c.width || w.EWMA.ARL0 != w.EWMA.ARL(0.01, sizes) {
+			t.Errorf("%+v: width %g (designed %v, %v), ARL0 %g; want width %g", c.m, w.EWMA.L, got, err, w.EWMA.ARL0, c.width)
 		}
 	}
 	if want.ARL0 < 500 || want.L == DefaultEWMAWidth {

@@ -369,10 +369,10 @@ func (s *Server) freezeLimits(w http.ResponseWriter, r *http.Request) {
 		sizes[i] = l.Inspected
 	}
 	if mon.EWMALambda != 0 && mon.EWMAWidth == 0 && mon.EWMAARL0 != 0 {
-		if width, err := mon.DesignedEWMAWidth(p.Chart, a.Rate, sizes); err != nil {
+		if e, err := mon.EWMA(p.Chart, a.Rate, sizes); err != nil {
 			problems["baseline"] = "the process's EWMA cannot be designed from this baseline: " + err.Error()
 		} else {
-			mon.EWMAWidth = width
+			mon.EWMAWidth = e.L
 		}
 	}
 	if mon.CUSUMShift != 0 {

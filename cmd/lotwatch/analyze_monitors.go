@@ -166,16 +166,11 @@ func (m *monitorOptions) run(ch spc.Chart, lots []spc.Lot, p0 float64, sizes []i
 			mon.EWMAWidth, mon.EWMAARL0 = 0, m.arl0
 			r.ewmaTarget = m.arl0
 		}
-		if err := spc.CheckEWMA(ch, p0, m.lambda, max(mon.EWMAWidth, 1)); err != nil {
-			return nil, fmt.Errorf("--monitor ewma: %v", err)
-		}
-		width, err := mon.DesignedEWMAWidth(ch, p0, sizes)
+		e, err := mon.EWMA(ch, p0, sizes)
 		if err != nil {
 			return nil, fmt.Errorf("--monitor ewma: %v", err)
 		}
-		e := spc.EWMA{Chart: ch, P0: p0, Lambda: m.lambda, L: width}
-		e.ARL0 = e.ARL(p0, sizes)
-		r.ewma = &e
+		r.ewma = e
 		r.ePoints = e.Run(lots)
 	}
 	return r, nil
