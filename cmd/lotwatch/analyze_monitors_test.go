@@ -298,6 +298,16 @@ func TestPlanComparesEWMA(t *testing.T) {
 	if !strings.Contains(text, "An EWMA of the lots' rates (weight") {
 		t.Errorf("text does not set an EWMA beside the chart:\n%s", text)
 	}
+	// "Soonest" only when its ARL beats the chart's and the CUSUM's.
+	var all struct {
+		ARL1  float64
+		CUSUM struct{ ARL1 float64 }
+	}
+	json.Unmarshal([]byte(out), &all)
+	soonest := e.ARL1 < 0.99*all.ARL1 && e.ARL1 < 0.99*all.CUSUM.ARL1
+	if strings.Contains(text, "The EWMA catches this shift soonest") != soonest {
+		t.Errorf("EWMA ARL1 %v, chart %v, CUSUM %v: the text's verdict on the soonest does not follow them:\n%s", e.ARL1, all.ARL1, all.CUSUM.ARL1, text)
+	}
 	_, out, _ = runCmd(t, "", "plan", "--p0", "0.005", "--n", "200", "--format", "json")
 	got = planOut{}
 	json.Unmarshal([]byte(out), &got)

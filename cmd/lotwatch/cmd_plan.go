@@ -128,10 +128,10 @@ func runPlan(args []string, _ io.Reader, stdout, stderr io.Writer) int {
 		}
 	}
 	pl := spc.PlanLimits(r.p0, r.n, r.k)
-	var mon planMonitors
+	var mon review.Monitors
 	if *r.p1s != "" {
 		pl = pl.WithShift(r.p1)
-		mon = planMonitorsFor(r.p0, r.p1, r.n, pl.ARL0)
+		mon = review.MonitorsFor(r.p0, r.p1, r.n, pl)
 	}
 	if asJSON {
 		return statsJSON(stdout, r.json(pl, mon))
@@ -274,7 +274,7 @@ func (r *planRequest) search(stderr io.Writer) int {
 
 // json is the plan as --format json gives it; a figure that does not
 // apply (no lower limit, no shift, no target) is left out.
-func (r *planRequest) json(pl spc.Plan, mon planMonitors) planJSON {
+func (r *planRequest) json(pl spc.Plan, mon review.Monitors) planJSON {
 	out := planJSON{
 		N: pl.N, UCLCount: pl.UCLCount,
 		ARL0: finiteOrNil(pl.ARL0), MinNPositiveLCL: pl.MinNPositiveLCL,
@@ -291,12 +291,12 @@ func (r *planRequest) json(pl spc.Plan, mon planMonitors) planJSON {
 		target := r.target
 		out.TargetARL1 = &target
 	}
-	if c := mon.cusum; c != nil {
+	if c := mon.CUSUM; c != nil {
 		out.CUSUM = &planCUSUMJSON{H: c.H, ARL0: c.ARL0, ARL1: c.ARL1}
 		out.Sooner = sooner(pl.ARL1, c.ARL1)
 	}
-	if e := mon.ewma; e != nil {
-		out.EWMA = &planEWMAJSON{Lambda: e.Lambda, Width: e.L, ARL0: e.ARL0, ARL1: mon.ewmaARL1}
+	if e := mon.EWMA; e != nil {
+		out.EWMA = &planEWMAJSON{Lambda: e.Lambda, Width: e.L, ARL0: e.ARL0, ARL1: mon.EWMAARL1}
 	}
 	return out
 }
@@ -304,7 +304,7 @@ func (r *planRequest) json(pl spc.Plan, mon planMonitors) planJSON {
 // text is the plan in words: where p0 came from, the lot size found, the
 // limits as counts of nonconforming units, how soon false alarms and
 // signals come, the CUSUM and the EWMA beside the chart, and the cautions.
-func (r *planRequest) text(pl spc.Plan, mon planMonitors) string {
+func (r *planRequest) text(pl spc.Plan, mon review.Monitors) string {
 	var b strings.Builder
 	if r.p0Source != "" {
 		fmt.Fprintf(&b, "Usual fraction nonconforming of process %q: %s, the %s.\n\n", *r.procName, statsRate(r.p0), r.p0Source)
@@ -314,10 +314,10 @@ func (r *planRequest) text(pl spc.Plan, mon planMonitors) string {
 			statsRate(r.p1), strconv.FormatFloat(r.target, 'g', -1, 64), r.n)
 	}
 	r.writeLimits(&b, pl)
-	if mon.cusum != nil {
-		r.writeCUSUM(&b, pl, mon.cusum)
+	if mon.CUSUM != nil {
+		r.writeCUSUM(&b, pl, mon.CUSUM)
 	}
-	if mon.ewma != nil {
+	if mon.EWMA != nil {
 		r.writeEWMA(&b, pl, mon)
 	}
 	if pl.ARL0 < spc.DefaultMinARL0 {
@@ -377,13 +377,13 @@ func (r *planRequest) writeCUSUM(b *strings.Builder, pl spc.Plan, cusum *spc.CUS
 }
 
 // writeEWMA sets the EWMA with no more false alarms than the chart beside
-// it, and says whether it is the soonest of the three.
-func (r *planRequest) writeEWMA(b *strings.Builder, pl spc.Plan, mon planMonitors) {
-	e := mon.ewma
+// it, and says whether it is the soonest.
+func (r *planRequest) writeEWMA(b *strings.Builder, pl spc.Plan, mon review.Monitors) {
+	e := mon.EWMA
 	fmt.Fprintf(b, "\nAn EWMA of the lots' rates (weight %g, limits at %.2f standard deviations), with no more false\nalarms than the chart (one every %.1f lots on average), signals a shift to %s on average after %.1f lots.\n",
-		e.Lambda, e.L, e.ARL0, statsRate(r.p1), mon.ewmaARL1)
-	if mon.cusum != nil && mon.ewmaARL1 < 0.99*pl.ARL1 && mon.ewmaARL1 < 0.99*mon.cusum.ARL1 {
-		fmt.Fprintf(b, "The EWMA catches this shift soonest of the three.\n")
+		e.Lambda, e.L, e.ARL0, statsRate(r.p1), mon.EWMAARL1)
+	if mon.Soonest(pl.ARL1) {
+		fmt.Fprintf(b, "The EWMA catches this shift soonest.\n")
 	}
 }
 
@@ -440,31 +440,6 @@ func planProcessCentre(u *statsUsage, name, dbPath, p0s string) (float64, string
 		return math.NaN(), ""
 	}
 	return c.P0, c.Source
-}
-
-// planMonitors are the CUSUM and the EWMA set beside the chart for the
-// shift asked (nil when none can be designed), and the EWMA's ARL there.
-type planMonitors struct {
-	cusum    *spc.CUSUM
-	ewma     *spc.EWMA
-	ewmaARL1 float64
-}
-
-// planMonitorsFor designs the CUSUM and the EWMA for a shift from p0 to
-// p1 with lots of n units, each with no more false alarms than the
-// chart's arl0 (370 when no lot can signal on the chart).
-func planMonitorsFor(p0, p1 float64, n int64, arl0 float64) planMonitors {
-	if math.IsInf(arl0, 1) || !(arl0 >= 1) {
-		arl0 = spc.DefaultARL0
-	}
-	var m planMonitors
-	if c, err := spc.DesignCUSUM(spc.ChartP, p0, p1, []int64{n}, arl0, 0); err == nil {
-		m.cusum = c
-	}
-	if e, arl1, err := spc.BestEWMA(spc.ChartP, p0, p1, []int64{n}, arl0); err == nil {
-		m.ewma, m.ewmaARL1 = e, arl1
-	}
-	return m
 }
 
 type planEWMAJSON struct {

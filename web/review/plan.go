@@ -104,16 +104,12 @@ type PlanResult struct {
 	Curve []spc.Plan
 	// MinARL0 is the floor on ARL0 that the search kept to.
 	MinARL0 float64
-	// CUSUM is, for the requested N, the CUSUM for the same shift with no
-	// more false alarms than the chart (nil without N); Sooner says in
-	// words which of the two catches the shift sooner on average.
-	CUSUM  *spc.CUSUM
-	Sooner string
-	// EWMA is, likewise, the EWMA for the same shift (spc.BestEWMA) and
-	// EWMAARL1 its ARL there; EWMASays puts it beside the chart and the
-	// CUSUM in words.
-	EWMA     *spc.EWMA
-	EWMAARL1 float64
+	// Monitors are, for the requested N, the CUSUM and the EWMA for the
+	// same shift with no more false alarms than the chart (none without
+	// N); Sooner says in words which of the chart and the CUSUM catches
+	// the shift sooner on average, EWMASays puts the EWMA beside them.
+	Monitors
+	Sooner   string
 	EWMASays string
 	// Warnings say in plain words where the plan falls short: a floor
 	// lowered below the default, a lot size asked whose ARL0 is below it.
@@ -161,8 +157,8 @@ func PlanFor(c Centre, req PlanRequest) (*PlanResult, error) {
 	if req.N > 0 {
 		pl := spc.PlanLimits(c.P0, req.N, k).WithShift(req.P1)
 		res.Plan = &pl
-		res.CUSUM, res.Sooner = compareCUSUM(c.P0, req.P1, req.N, pl)
-		res.EWMA, res.EWMAARL1, res.EWMASays = compareEWMA(c.P0, req.P1, req.N, pl, res.CUSUM)
+		res.Monitors = MonitorsFor(c.P0, req.P1, req.N, pl)
+		res.Sooner, res.EWMASays = compareCUSUM(res.CUSUM, pl), compareEWMA(res.Monitors, pl)
 		if bar := math.Max(floor, spc.DefaultMinARL0); pl.ARL0 < bar {
 			res.Warnings = append(res.Warnings, fmt.Sprintf("At %d units per lot an in-control process raises a false alarm once every %s lots on average, more often than once in %s lots.",
 				req.N, lots(pl.ARL0), strconv.FormatFloat(bar, 'g', -1, 64)))
@@ -211,50 +207,73 @@ func CurveSizes(hi int64, count int) []int64 {
 	return out
 }
 
-// monitorARL0 is the in-control ARL a monitor set beside the chart is
-// designed for: the chart's, or 370 when the chart cannot signal.
-func monitorARL0(pl spc.Plan) float64 {
-	if math.IsInf(pl.ARL0, 1) || !(pl.ARL0 >= 1) {
-		return spc.DefaultARL0
-	}
-	return pl.ARL0
+// Monitors are the CUSUM and the EWMA set beside a chart for a shift,
+// each with no more false alarms than the chart (nil when none can be
+// designed), and the EWMA's ARL at the shift.
+type Monitors struct {
+	CUSUM    *spc.CUSUM
+	EWMA     *spc.EWMA
+	EWMAARL1 float64
 }
 
-// compareEWMA returns the EWMA for a shift from p0 to p1 in lots of n
-// units with no more false alarms than the chart (spc.BestEWMA), its ARL
-// at p1, and says so, naming it the soonest when it beats both the chart
-// and the CUSUM c (nil for none) by more than 1 %.
-func compareEWMA(p0, p1 float64, n int64, pl spc.Plan, c *spc.CUSUM) (*spc.EWMA, float64, string) {
-	e, arl1, err := spc.BestEWMA(spc.ChartP, p0, p1, []int64{n}, monitorARL0(pl))
-	if err != nil {
-		return nil, 0, ""
+// MonitorsFor designs the monitors for a shift from p0 to p1 in lots of
+// n units beside the chart pl: the CUSUM by spc.DesignCUSUM, the EWMA by
+// spc.BestEWMA, each for an in-control ARL no shorter than the chart's
+// (370 when the chart cannot signal). The planning page and `lotwatch
+// plan` both set them so.
+func MonitorsFor(p0, p1 float64, n int64, pl spc.Plan) Monitors {
+	arl0 := pl.ARL0
+	if math.IsInf(arl0, 1) || !(arl0 >= 1) {
+		arl0 = spc.DefaultARL0
 	}
-	lots := func(x float64) string { return strconv.FormatFloat(x, 'f', 1, 64) }
-	says := fmt.Sprintf("An EWMA of the rates (weight %g, limits at %.2f standard deviations, a false alarm once every %s lots) signals this shift after %s lots on average", e.Lambda, e.L, lots(e.ARL0), lots(arl1))
-	if arl1 < 0.99*pl.ARL1 && (c == nil || arl1 < 0.99*c.ARL1) {
-		return e, arl1, says + ": the soonest of the three."
+	var m Monitors
+	if c, err := spc.DesignCUSUM(spc.ChartP, p0, p1, []int64{n}, arl0, 0); err == nil {
+		m.CUSUM = c
 	}
-	return e, arl1, says + "."
+	if e, arl1, err := spc.BestEWMA(spc.ChartP, p0, p1, []int64{n}, arl0); err == nil {
+		m.EWMA, m.EWMAARL1 = e, arl1
+	}
+	return m
 }
 
-// compareCUSUM returns the CUSUM for a shift from p0 to p1 in lots of n
-// units designed for an in-control ARL no shorter than the chart's (370
-// when the chart cannot signal), and says which catches the shift sooner.
-func compareCUSUM(p0, p1 float64, n int64, pl spc.Plan) (*spc.CUSUM, string) {
-	lots := func(x float64) string { return strconv.FormatFloat(x, 'f', 1, 64) }
-	c, err := spc.DesignCUSUM(spc.ChartP, p0, p1, []int64{n}, monitorARL0(pl), 0)
-	if err != nil {
-		return nil, ""
+// Soonest reports whether the EWMA catches the shift sooner, by more than
+// 1 %, than both the chart (its ARL at the shift, chartARL1) and the
+// CUSUM (when there is one).
+func (m Monitors) Soonest(chartARL1 float64) bool {
+	return m.EWMA != nil && m.EWMAARL1 < 0.99*chartARL1 && (m.CUSUM == nil || m.EWMAARL1 < 0.99*m.CUSUM.ARL1)
+}
+
+// compareEWMA puts the EWMA of m beside the chart pl in words, naming it
+// the soonest when it is ("" without an EWMA).
+func compareEWMA(m Monitors, pl spc.Plan) string {
+	e := m.EWMA
+	if e == nil {
+		return ""
 	}
+	lots := func(x float64) string { return strconv.FormatFloat(x, 'f', 1, 64) }
+	says := fmt.Sprintf("An EWMA of the rates (weight %g, limits at %.2f standard deviations, a false alarm once every %s lots) signals this shift after %s lots on average", e.Lambda, e.L, lots(e.ARL0), lots(m.EWMAARL1))
+	if m.Soonest(pl.ARL1) {
+		return says + ": the soonest of them."
+	}
+	return says + "."
+}
+
+// compareCUSUM says which of the chart pl and the CUSUM c catches the
+// shift sooner ("" without a CUSUM).
+func compareCUSUM(c *spc.CUSUM, pl spc.Plan) string {
+	if c == nil {
+		return ""
+	}
+	lots := func(x float64) string { return strconv.FormatFloat(x, 'f', 1, 64) }
 	chart := "never"
 	if !math.IsInf(pl.ARL1, 1) {
 		chart = lots(pl.ARL1) + " lots"
 	}
 	switch {
 	case c.ARL1 < 0.99*pl.ARL1:
-		return c, fmt.Sprintf("A CUSUM (h = %.2f, a false alarm once every %s lots) catches this shift sooner: after %s lots on average, against %s for the chart.", c.H, lots(c.ARL0), lots(c.ARL1), chart)
+		return fmt.Sprintf("A CUSUM (h = %.2f, a false alarm once every %s lots) catches this shift sooner: after %s lots on average, against %s for the chart.", c.H, lots(c.ARL0), lots(c.ARL1), chart)
 	case pl.ARL1 < 0.99*c.ARL1:
-		return c, fmt.Sprintf("The chart catches this shift sooner: after %s on average, against %s lots for a CUSUM (h = %.2f, a false alarm once every %s lots).", chart, lots(c.ARL1), c.H, lots(c.ARL0))
+		return fmt.Sprintf("The chart catches this shift sooner: after %s on average, against %s lots for a CUSUM (h = %.2f, a false alarm once every %s lots).", chart, lots(c.ARL1), c.H, lots(c.ARL0))
 	}
-	return c, fmt.Sprintf("The chart and a CUSUM (h = %.2f) catch this shift equally soon, after about %s lots.", c.H, lots(c.ARL1))
+	return fmt.Sprintf("The chart and a CUSUM (h = %.2f) catch this shift equally soon, after about %s lots.", c.H, lots(c.ARL1))
 }
