@@ -402,11 +402,7 @@ func TestNextDigest(t *testing.T) {
 func TestAlertClaimsExclusive(t *testing.T) {
 	forEachBackend(t, func(t *testing.T, open opener) {
 		one, path := open(t)
-		two, err := Open(path)
-		if err != nil {
-			t.Fatal(err)
-		}
-		t.Cleanup(func() { two.Close() })
+		two := openAgain(t, path)
 		p := addProcess(t, one, "press", spc.ChartP)
 		r, err := one.AddAlertRule(ctx, "tester", AlertRule{ProcessID: p.ID, Webhook: "http://127.0.0.1:9/", Secret: "s"})
 		if err != nil {

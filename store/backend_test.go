@@ -32,6 +32,18 @@ func forEachBackend(t *testing.T, f func(t *testing.T, open opener)) {
 	}
 }
 
+// openAgain opens a second store on the database where (a file or a
+// URL), as another server or program would, closed when the test ends.
+func openAgain(t testing.TB, where string) *DB {
+	t.Helper()
+	db, err := Open(where)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { db.Close() })
+	return db
+}
+
 // openPostgresTemp opens a new schema of the test server, dropped when
 // the test ends, so that tests do not see each other's rows.
 func openPostgresTemp(t testing.TB) (*DB, string) {

@@ -19,11 +19,7 @@ import (
 func TestReadReplica(t *testing.T) {
 	db, u := openPostgresTemp(t)
 	repURL := storetest.ReplicaOf(t, u)
-	plain, err := Open(u) // the same database without a replica
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer plain.Close()
+	plain := openAgain(t, u) // the same database without a replica
 	p := addProcess(t, db, "press", spc.ChartP)
 	t0 := time.Date(2026, 11, 2, 6, 0, 0, 0, time.UTC)
 	add := func(i int) {
@@ -91,12 +87,7 @@ func TestReadReplica(t *testing.T) {
 	if d := read("replica closed"); d != (ReplicaReads{Failed: 1}) {
 		t.Errorf("replica closed: %+v, want the primary to answer because the replica failed", d)
 	}
-	back, err := Open(u)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer back.Close()
-	db.replica.db = back.r
+	db.replica.db = openAgain(t, u).r
 	if d := read("replica back, resting"); d != (ReplicaReads{Failed: 1}) {
 		t.Errorf("replica back within its rest: %+v, want the primary to answer alone", d)
 	}

@@ -142,11 +142,7 @@ func TestSignInFailures(t *testing.T) {
 func TestSignInFailuresSharedByServers(t *testing.T) {
 	forEachBackend(t, func(t *testing.T, open opener) {
 		a, where := open(t)
-		b, err := Open(where)
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer b.Close()
+		b := openAgain(t, where)
 		seq := auditSeq(t, a)
 		servers := []*DB{a, b}
 		for i, want := range []time.Duration{0, 0, time.Minute} {
@@ -178,11 +174,7 @@ func TestSignInFailuresSharedByServers(t *testing.T) {
 func TestSignInFailuresConcurrent(t *testing.T) {
 	forEachBackend(t, func(t *testing.T, open opener) {
 		a, where := open(t)
-		b, err := Open(where)
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer b.Close()
+		b := openAgain(t, where)
 		const each = 12
 		lim := AttemptLimit{Key: "10.0.0.9", Max: 1000, Window: time.Hour, MaxBlock: time.Hour, Forget: 2 * time.Hour}
 		var wg sync.WaitGroup

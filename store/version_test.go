@@ -57,11 +57,7 @@ func TestLotsVersion(t *testing.T) {
 
 		// A second connection to the file (another program) writes: seen,
 		// and the audit chain goes on from the entry that program wrote.
-		other, err := Open(path)
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer other.Close()
+		other := openAgain(t, path)
 		if _, err := other.Import(ctx, "b", strings.NewReader("lot,time,inspected,defective\nB1,2025-03-01T05:00:00Z,10,1\n"), ImportOptions{Process: "press"}); err != nil {
 			t.Fatal(err)
 		}

@@ -50,17 +50,28 @@ func stationToken(t testing.TB, bin, db, stdin string, setup [][]string) string 
 // fails the test unless it is stored (201).
 func postLot(t testing.TB, url, token, lot string) {
 	t.Helper()
+	if err := tryPost(http.DefaultClient, url, token, lot); err != nil {
+		t.Fatal(err)
+	}
+}
+
+// tryPost posts one lot (its JSON) with the token to the API at url and
+// says why it was not stored (an answer other than 201), or nil; for
+// posting from several goroutines, where a test may not stop.
+func tryPost(client *http.Client, url, token, lot string) error {
 	req, _ := http.NewRequest("POST", url, strings.NewReader(lot))
 	req.Header.Set("Authorization", "Bearer "+token)
 	req.Header.Set("Content-Type", "application/json")
-	res, err := http.DefaultClient.Do(req)
+	res, err := client.Do(req)
 	if err != nil {
-		t.Fatal(err)
+		return fmt.Errorf("post %s: %w", lot, err)
 	}
+	io.Copy(io.Discard, res.Body)
 	res.Body.Close()
 	if res.StatusCode != http.StatusCreated {
-		t.Fatalf("post %s: %d", lot, res.StatusCode)
+		return fmt.Errorf("post %s: %s", lot, res.Status)
 	}
+	return nil
 }
 
 // startServers starts n `lotwatch serve` on the database db, killed when

@@ -2,7 +2,6 @@ package main
 
 import (
 	"fmt"
-	"io"
 	"lotwatch/store/storetest"
 	"net/http"
 	"os"
@@ -59,18 +58,8 @@ func TestRestoreRefusedWhileServing(t *testing.T) {
 	)
 	post := func(code string) {
 		body := fmt.Sprintf(`{"lot":%q,"inspected":50,"defective":1}`, code)
-		req, _ := http.NewRequest("POST", base+"/api/v1/processes/1/lots", strings.NewReader(body))
-		req.Header.Set("Authorization", "Bearer "+token)
-		req.Header.Set("Content-Type", "application/json")
-		res, err := http.DefaultClient.Do(req)
-		if err != nil {
-			t.Errorf("post %s: %v", code, err)
-			return
-		}
-		io.Copy(io.Discard, res.Body)
-		res.Body.Close()
-		if res.StatusCode != http.StatusCreated {
-			t.Errorf("post %s: status %d", code, res.StatusCode)
+		if err := tryPost(http.DefaultClient, base+"/api/v1/processes/1/lots", token, body); err != nil {
+			t.Error(err)
 			return
 		}
 		mu.Lock()
